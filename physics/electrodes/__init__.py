@@ -1,0 +1,1 @@
+"""Parameterised electrode families (one module per family)."""

@@ -1,0 +1,451 @@
+"""Generating curves of bodies of revolution in the (r, z) half-plane.
+
+A curve is a chain of straight segments and circular arcs, all lengths in metres. Its kind
+follows from where it ends:
+
+- ``"body"``: both ends on the axis r = 0 — the closed surface of a solid of revolution;
+- ``"ring"``: the ends meet off the axis — the closed surface of a torus-like solid;
+- ``"sheet"``: anything else — an open thin sheet (a disk, an annulus, a bowl, a tube).
+
+Curves are immutable values; every piece has a constant-speed parametrisation
+``t in [-1, 1] -> (r, z)`` so that a mesh built from the same curve is bit-identical.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+
+from physics.errors import GeometryError
+
+#: Relative tolerance (of the curve's size) for "these two points are the same point".
+JOIN_TOLERANCE = 1e-9
+
+
+def _check_finite(name: str, values: Sequence[float]) -> None:
+    for v in values:
+        if not math.isfinite(v):
+            raise GeometryError(f"{name}: every coordinate must be finite, got {tuple(values)}")
+
+
+@dataclass(frozen=True)
+class Segment:
+    """Straight piece from ``start`` to ``end``, each an (r, z) point in metres."""
+
+    start: tuple[float, float]
+    end: tuple[float, float]
+
+    def __post_init__(self) -> None:
+        _check_finite("segment", (*self.start, *self.end))
+
+    @property
+    def length(self) -> float:
+        return math.hypot(self.end[0] - self.start[0], self.end[1] - self.start[1])
+
+    def points(self, t: np.ndarray) -> np.ndarray:
+        """Points at parameters ``t`` in [-1, 1]; shape (len(t), 2), metres."""
+        t = np.asarray(t, dtype=float)
+        a = np.asarray(self.start)
+        b = np.asarray(self.end)
+        return 0.5 * (1 - t)[:, None] * a + 0.5 * (1 + t)[:, None] * b
+
+    def tangents(self, t: np.ndarray) -> np.ndarray:
+        """Unit tangents at ``t`` (direction of travel); shape (len(t), 2)."""
+        d = (np.asarray(self.end) - np.asarray(self.start)) / self.length
+        return np.broadcast_to(d, (len(np.asarray(t)), 2)).copy()
+
+    def derivative(self, t: np.ndarray) -> np.ndarray:
+        """d(r, z)/dt, metres per unit parameter; shape (len(t), 2)."""
+        return self.tangents(t) * (0.5 * self.length)
+
+    def split(self, t: float) -> tuple[Segment, Segment]:
+        p = tuple(self.points(np.array([t]))[0])
+        return Segment(self.start, p), Segment(p, self.end)
+
+
+@dataclass(frozen=True)
+class Arc:
+    """Circular arc about ``center`` (r, z) of ``radius`` metres.
+
+    It runs from ``start_angle`` to ``end_angle`` (radians, measured from the +r direction
+    towards +z); ``end_angle < start_angle`` runs clockwise.
+    """
+
+    center: tuple[float, float]
+    radius: float
+    start_angle: float
+    end_angle: float
+
+    def __post_init__(self) -> None:
+        _check_finite("arc", (*self.center, self.radius, self.start_angle, self.end_angle))
+        if self.radius <= 0:
+            raise GeometryError(f"arc: radius must be > 0, got {self.radius}")
+
+    @property
+    def sweep(self) -> float:
+        return self.end_angle - self.start_angle
+
+    @property
+    def length(self) -> float:
+        return abs(self.sweep) * self.radius
+
+    @property
+    def start(self) -> tuple[float, float]:
+        return tuple(self.points(np.array([-1.0]))[0])
+
+    @property
+    def end(self) -> tuple[float, float]:
+        return tuple(self.points(np.array([1.0]))[0])
+
+    def _angles(self, t: np.ndarray) -> np.ndarray:
+        return self.start_angle + 0.5 * (np.asarray(t, dtype=float) + 1) * self.sweep
+
+    def points(self, t: np.ndarray) -> np.ndarray:
+        a = self._angles(t)
+        c = np.asarray(self.center)
+        return c + self.radius * np.stack([np.cos(a), np.sin(a)], axis=-1)
+
+    def tangents(self, t: np.ndarray) -> np.ndarray:
+        a = self._angles(t)
+        s = math.copysign(1.0, self.sweep)
+        return s * np.stack([-np.sin(a), np.cos(a)], axis=-1)
+
+    def derivative(self, t: np.ndarray) -> np.ndarray:
+        """d(r, z)/dt, metres per unit parameter; shape (len(t), 2)."""
+        return self.tangents(t) * (0.5 * self.length)
+
+    def split(self, t: float) -> tuple[Arc, Arc]:
+        mid = float(self._angles(np.array([t]))[0])
+        return (
+            Arc(self.center, self.radius, self.start_angle, mid),
+            Arc(self.center, self.radius, mid, self.end_angle),
+        )
+
+
+CurveKind = Literal["body", "ring", "sheet"]
+
+
+Piece = "Segment | Arc | EllipseArc"
+
+
+@dataclass(frozen=True)
+class Corner:
+    """A point of a curve where the charge density may be singular.
+
+    ``angle`` is the opening angle of the conductor there in radians: pi for a smooth point,
+    pi/2 for a right-angle edge, 0 for the free edge of a thin sheet. The density behaves like
+    distance**(pi/(2 pi - angle) - 1): singular for ``angle < pi``.
+    """
+
+    point: tuple[float, float]
+    piece_index: int
+    at_end: bool
+    angle: float
+
+    @property
+    def singular(self) -> bool:
+        return self.angle < math.pi - 1e-6
+
+
+@dataclass(frozen=True)
+class Curve:
+    """A chain of pieces; consecutive pieces share end points (checked)."""
+
+    pieces: tuple[Piece, ...]
+
+    def __post_init__(self) -> None:
+        if not self.pieces:
+            raise GeometryError("curve: needs at least one piece")
+        size = self.size
+        tol = JOIN_TOLERANCE * max(size, 1e-300)
+        for i, p in enumerate(self.pieces):
+            if p.length <= tol:
+                raise GeometryError(
+                    f"curve piece {i}: zero length ({p.length:.3g} m); every piece must be longer "
+                    f"than {tol:.3g} m"
+                )
+        for i in range(len(self.pieces) - 1):
+            a, b = self.pieces[i].end, self.pieces[i + 1].start
+            gap = math.hypot(a[0] - b[0], a[1] - b[1])
+            if gap > tol:
+                raise GeometryError(
+                    f"curve: piece {i} ends at {a} but piece {i + 1} starts at {b} "
+                    f"(gap {gap:.3g} m); consecutive pieces must join"
+                )
+
+    @property
+    def start(self) -> tuple[float, float]:
+        return self.pieces[0].start
+
+    @property
+    def end(self) -> tuple[float, float]:
+        return self.pieces[-1].end
+
+    @property
+    def length(self) -> float:
+        return float(sum(p.length for p in self.pieces))
+
+    @property
+    def size(self) -> float:
+        """Largest extent of the curve in metres (for tolerances)."""
+        pts = self.sample(4)
+        return float(np.max(np.ptp(pts, axis=0))) or self.pieces[0].length
+
+    @property
+    def kind(self) -> CurveKind:
+        tol = JOIN_TOLERANCE * self.size
+        on_axis = abs(self.start[0]) <= tol and abs(self.end[0]) <= tol
+        closed = math.hypot(self.start[0] - self.end[0], self.start[1] - self.end[1]) <= tol
+        if on_axis and not closed:
+            return "body"
+        if closed:
+            return "ring"
+        return "sheet"
+
+    def sample(self, per_piece: int = 32) -> np.ndarray:
+        """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2)."""
+        t = np.linspace(-1.0, 1.0, per_piece + 1)
+        parts = [p.points(t)[:-1] for p in self.pieces]
+        parts.append(np.asarray([self.end]))
+        return np.concatenate(parts)
+
+    def corners(self) -> tuple[Corner, ...]:
+        """Joints with a tangent break and free sheet ends (never points on the axis)."""
+        out: list[Corner] = []
+        kind = self.kind
+        size = self.size
+        n = len(self.pieces)
+        joints = list(range(n - 1)) + ([n - 1] if kind == "ring" else [])
+        for i in joints:
+            a = self.pieces[i]
+            b = self.pieces[(i + 1) % n]
+            ta = a.tangents(np.array([1.0]))[0]
+            tb = b.tangents(np.array([-1.0]))[0]
+            turn = math.atan2(ta[0] * tb[1] - ta[1] * tb[0], float(ta @ tb))
+            if abs(turn) < 1e-6:
+                continue
+            out.append(Corner(a.end, i, True, math.pi - abs(turn)))
+        if kind == "sheet":
+            tol = JOIN_TOLERANCE * size
+            if self.start[0] > tol:
+                out.append(Corner(self.start, 0, False, 0.0))
+            if self.end[0] > tol:
+                out.append(Corner(self.end, n - 1, True, 0.0))
+        return tuple(out)
+
+    def validate(self, name: str) -> None:
+        """Raise GeometryError naming ``name`` if the curve crosses the axis or itself."""
+        pts = self.sample(48)
+        tol = JOIN_TOLERANCE * self.size
+        rmin = float(pts[:, 0].min())
+        if rmin < -tol:
+            i = int(pts[:, 0].argmin())
+            raise GeometryError(
+                f"conductor '{name}': the generating curve crosses the axis (reaches r = {rmin:.6g} m "
+                f"at z = {pts[i, 1]:.6g} m); every point must have r >= 0"
+            )
+        interior_axis = pts[1:-1, 0] <= tol
+        if np.any(interior_axis):
+            i = int(np.argmax(interior_axis)) + 1
+            raise GeometryError(
+                f"conductor '{name}': the generating curve touches the axis at z = {pts[i, 1]:.6g} m "
+                "away from its ends; a curve may meet the axis only at its first and last point"
+            )
+        hit = _first_self_intersection(pts, closed=self.kind == "ring")
+        if hit is not None:
+            raise GeometryError(
+                f"conductor '{name}': the generating curve intersects itself near "
+                f"(r, z) = ({hit[0]:.6g}, {hit[1]:.6g}) m"
+            )
+
+
+def _segments_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """Pairwise proper-intersection test of chords p (M,2,2) vs q (K,2,2) -> (M,K) bool."""
+    a, b = p[:, None, 0], p[:, None, 1]
+    c, d = q[None, :, 0], q[None, :, 1]
+
+    def orient(u, v, w):
+        return (v[..., 0] - u[..., 0]) * (w[..., 1] - u[..., 1]) - (v[..., 1] - u[..., 1]) * (
+            w[..., 0] - u[..., 0]
+        )
+
+    o1, o2 = orient(a, b, c), orient(a, b, d)
+    o3, o4 = orient(c, d, a), orient(c, d, b)
+    return (o1 * o2 < 0) & (o3 * o4 < 0)
+
+
+def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, float] | None:
+    chords = np.stack([pts[:-1], pts[1:]], axis=1)
+    m = len(chords)
+    cross = _segments_cross(chords, chords)
+    i, j = np.triu_indices(m, k=2)
+    keep = ~(closed & (i == 0) & (j == m - 1))
+    i, j = i[keep], j[keep]
+    bad = cross[i, j]
+    if not np.any(bad):
+        return None
+    k = int(np.argmax(bad))
+    return tuple(chords[i[k]].mean(axis=0))
+
+
+def polyline_distance(a: np.ndarray, b: np.ndarray) -> tuple[float, np.ndarray]:
+    """Smallest distance between two polylines (M,2) and (K,2), and the point of ``a`` there."""
+    pa = a[:, None, :]
+    seg0, seg1 = b[:-1], b[1:]
+    d = seg1 - seg0
+    t = np.clip(
+        np.einsum("mkc,kc->mk", pa - seg0[None], d)
+        / np.maximum(np.einsum("kc,kc->k", d, d), 1e-300),
+        0,
+        1,
+    )
+    closest = seg0[None] + t[..., None] * d[None]
+    dist = np.linalg.norm(pa - closest, axis=-1)
+    k = np.unravel_index(int(dist.argmin()), dist.shape)
+    return float(dist[k]), a[k[0]]
+
+
+def point_in_region(points: np.ndarray, outline: np.ndarray) -> np.ndarray:
+    """Even-odd test of points (M,2) against a closed polygon outline (K,2) -> (M,) bool."""
+    x, y = points[:, 0:1], points[:, 1:2]
+    x0, y0 = outline[None, :-1, 0], outline[None, :-1, 1]
+    x1, y1 = outline[None, 1:, 0], outline[None, 1:, 1]
+    straddle = (y0 > y) != (y1 > y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xc = x0 + (y - y0) * (x1 - x0) / (y1 - y0)
+    return np.sum(straddle & (x < xc), axis=1) % 2 == 1
+
+
+def closed_outline(curve: Curve) -> np.ndarray | None:
+    """Polygon of the region a body or ring encloses in the half-plane; None for a sheet."""
+    pts = curve.sample(48)
+    if curve.kind == "body":
+        return np.concatenate([pts, pts[:1]])
+    if curve.kind == "ring":
+        return pts
+    return None
+
+
+def rounded_polyline(
+    vertices: Sequence[tuple[float, float]], fillet_radius: float, name: str = "curve"
+) -> Curve:
+    """Chain of segments through ``vertices`` with every interior corner rounded.
+
+    Each interior corner gets a tangent arc of ``fillet_radius`` metres (0 keeps it sharp).
+    Raises GeometryError when two fillets on one edge would overlap.
+    """
+    v = [np.asarray(p, dtype=float) for p in vertices]
+    if len(v) < 2:
+        raise GeometryError(f"{name}: needs at least two vertices")
+    if fillet_radius < 0 or not math.isfinite(fillet_radius):
+        raise GeometryError(f"{name}: fillet radius must be finite and >= 0, got {fillet_radius}")
+    cuts: list[tuple[np.ndarray, np.ndarray, Arc | None]] = []
+    for k in range(1, len(v) - 1):
+        d1 = v[k] - v[k - 1]
+        d2 = v[k + 1] - v[k]
+        l1, l2 = np.linalg.norm(d1), np.linalg.norm(d2)
+        if l1 == 0 or l2 == 0:
+            raise GeometryError(f"{name}: vertices {k - 1}..{k + 1} repeat a point {tuple(v[k])}")
+        u1, u2 = d1 / l1, d2 / l2
+        turn = math.atan2(u1[0] * u2[1] - u1[1] * u2[0], float(u1 @ u2))
+        if fillet_radius == 0 or abs(turn) < 1e-12:
+            cuts.append((v[k], v[k], None))
+            continue
+        back = fillet_radius * math.tan(abs(turn) / 2)
+        p_in, p_out = v[k] - back * u1, v[k] + back * u2
+        normal = np.array([-u1[1], u1[0]]) * math.copysign(1.0, turn)
+        center = p_in + fillet_radius * normal
+        a0 = math.atan2(p_in[1] - center[1], p_in[0] - center[0])
+        a1 = a0 + turn
+        cuts.append((p_in, p_out, Arc((center[0], center[1]), fillet_radius, a0, a1)))
+    pieces: list[Piece] = []
+    prev = v[0]
+    for k, (p_in, p_out, arc) in enumerate(cuts, start=1):
+        edge_len = np.linalg.norm(v[k] - v[k - 1])
+        used_start = np.linalg.norm(prev - v[k - 1])
+        used_end = np.linalg.norm(v[k] - p_in)
+        if used_start + used_end > edge_len * (1 + 1e-12):
+            raise GeometryError(
+                f"{name}: fillets of radius {fillet_radius:.6g} m overlap on the edge from "
+                f"{tuple(v[k - 1])} to {tuple(v[k])} (length {edge_len:.6g} m)"
+            )
+        if np.linalg.norm(p_in - prev) > JOIN_TOLERANCE * edge_len:
+            pieces.append(Segment(tuple(prev), tuple(p_in)))
+        if arc is not None:
+            pieces.append(arc)
+        prev = p_out
+    if np.linalg.norm(v[-1] - prev) > JOIN_TOLERANCE * np.linalg.norm(v[-1] - v[-2]):
+        pieces.append(Segment(tuple(prev), tuple(v[-1])))
+    return Curve(tuple(pieces))
+
+
+def sphere(radius: float, center_z: float = 0.0) -> Curve:
+    """Generating curve of a sphere: a half circle from the south to the north pole."""
+    return Curve((Arc((0.0, center_z), radius, -math.pi / 2, math.pi / 2),))
+
+
+def disk(radius: float, z: float = 0.0) -> Curve:
+    """Thin flat disk (open sheet) from the axis to ``radius`` at height ``z``."""
+    return Curve((Segment((0.0, z), (radius, z)),))
+
+
+def spheroid(semi_axis_r: float, semi_axis_z: float, center_z: float = 0.0) -> Curve:
+    """Generating curve of a spheroid: one exact half-ellipse from pole to pole (metres)."""
+    return Curve((EllipseArc(center_z, semi_axis_r, semi_axis_z, -math.pi / 2, math.pi / 2),))
+
+
+@dataclass(frozen=True)
+class EllipseArc:
+    """Arc of the ellipse r = a cos(u), z = c0 + b sin(u) for u from ``start_u`` to ``end_u``.
+
+    Not constant-speed, so its Jacobian varies along the piece; used for spheroid checks.
+    """
+
+    center_z: float
+    semi_axis_r: float
+    semi_axis_z: float
+    start_u: float
+    end_u: float
+
+    def _u(self, t: np.ndarray) -> np.ndarray:
+        return self.start_u + 0.5 * (np.asarray(t, dtype=float) + 1) * (self.end_u - self.start_u)
+
+    def points(self, t: np.ndarray) -> np.ndarray:
+        u = self._u(t)
+        return np.stack(
+            [self.semi_axis_r * np.cos(u), self.center_z + self.semi_axis_z * np.sin(u)], axis=-1
+        )
+
+    def derivative(self, t: np.ndarray) -> np.ndarray:
+        """d(r, z)/dt; shape (len(t), 2)."""
+        u = self._u(t)
+        du = 0.5 * (self.end_u - self.start_u)
+        return du * np.stack([-self.semi_axis_r * np.sin(u), self.semi_axis_z * np.cos(u)], axis=-1)
+
+    def tangents(self, t: np.ndarray) -> np.ndarray:
+        d = self.derivative(t)
+        return d / np.linalg.norm(d, axis=-1, keepdims=True)
+
+    @property
+    def start(self) -> tuple[float, float]:
+        return tuple(self.points(np.array([-1.0]))[0])
+
+    @property
+    def end(self) -> tuple[float, float]:
+        return tuple(self.points(np.array([1.0]))[0])
+
+    @property
+    def length(self) -> float:
+        x, w = np.polynomial.legendre.leggauss(64)
+        return float(np.sum(w * np.linalg.norm(self.derivative(x), axis=-1)))
+
+    def split(self, t: float) -> tuple[EllipseArc, EllipseArc]:
+        mid = float(self._u(np.array([t]))[0])
+        return (
+            EllipseArc(self.center_z, self.semi_axis_r, self.semi_axis_z, self.start_u, mid),
+            EllipseArc(self.center_z, self.semi_axis_r, self.semi_axis_z, mid, self.end_u),
+        )

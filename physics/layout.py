@@ -1,0 +1,139 @@
+"""A layout: the conductors of one electrostatic problem, how each is driven, and the medium.
+
+A conductor is either *driven* (its potential is fixed, ``potential_V``) or *floating* (its
+total charge is fixed, ``charge_C``; its potential is solved for). The medium is homogeneous
+with relative permittivity ``eps_r``. Optionally a grounded infinite plane z = 0 bounds the
+half-space z > 0, and a uniform field ``applied_field_V_per_m`` along +z is applied
+(potential -E0 z).
+
+``shape`` is a :class:`physics.geometry.Curve` for bodies of revolution; the 3-D solver takes
+triangle surfaces there instead.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from physics.errors import GeometryError
+from physics.geometry import Curve, closed_outline, point_in_region, polyline_distance
+
+EPS0_F_PER_M = 8.8541878128e-12
+"""Vacuum permittivity in F/m (CODATA 2018)."""
+
+
+@dataclass(frozen=True)
+class Conductor:
+    """One conductor: a name, a shape, and exactly one of potential (V) or total charge (C)."""
+
+    name: str
+    shape: Any
+    potential_V: float | None = None
+    charge_C: float | None = None
+
+    def __post_init__(self) -> None:
+        if (self.potential_V is None) == (self.charge_C is None):
+            raise GeometryError(
+                f"conductor '{self.name}': give exactly one of potential_V (driven) or charge_C "
+                f"(floating), got potential_V={self.potential_V}, charge_C={self.charge_C}"
+            )
+        value = self.potential_V if self.potential_V is not None else self.charge_C
+        if not math.isfinite(value):
+            raise GeometryError(f"conductor '{self.name}': drive value must be finite, got {value}")
+
+    @property
+    def floating(self) -> bool:
+        return self.charge_C is not None
+
+
+@dataclass(frozen=True)
+class Layout:
+    """Conductors plus the medium; validated on construction for bodies of revolution."""
+
+    conductors: tuple[Conductor, ...]
+    eps_r: float = 1.0
+    ground_plane: bool = False
+    applied_field_V_per_m: float = 0.0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "conductors", tuple(self.conductors))
+        if not self.conductors:
+            raise GeometryError("layout: needs at least one conductor")
+        if not (math.isfinite(self.eps_r) and self.eps_r >= 1.0):
+            raise GeometryError(f"layout: eps_r must be finite and >= 1, got {self.eps_r}")
+        if not math.isfinite(self.applied_field_V_per_m):
+            raise GeometryError(
+                f"layout: applied_field_V_per_m must be finite, got {self.applied_field_V_per_m}"
+            )
+        names = [c.name for c in self.conductors]
+        dup = {n for n in names if names.count(n) > 1}
+        if dup:
+            raise GeometryError(f"layout: conductor names must be unique, repeated: {sorted(dup)}")
+        if all(isinstance(c.shape, Curve) for c in self.conductors):
+            self._validate_curves()
+
+    @property
+    def eps_F_per_m(self) -> float:
+        return EPS0_F_PER_M * self.eps_r
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(c.name for c in self.conductors)
+
+    def index(self, name: str) -> int:
+        try:
+            return self.names.index(name)
+        except ValueError:
+            raise KeyError(f"no conductor '{name}'; conductors are {list(self.names)}") from None
+
+    def _validate_curves(self) -> None:
+        polylines = []
+        for c in self.conductors:
+            c.shape.validate(c.name)
+            pts = c.shape.sample(48)
+            if self.ground_plane:
+                zmin = float(pts[:, 1].min())
+                if zmin <= 0:
+                    i = int(pts[:, 1].argmin())
+                    raise GeometryError(
+                        f"conductor '{c.name}': touches or crosses the ground plane z = 0 "
+                        f"(reaches z = {zmin:.6g} m at r = {pts[i, 0]:.6g} m); every point must "
+                        "have z > 0"
+                    )
+            polylines.append(pts)
+        for i in range(len(self.conductors)):
+            for j in range(i + 1, len(self.conductors)):
+                _check_apart(self.conductors[i], polylines[i], self.conductors[j], polylines[j])
+
+
+def _check_apart(a: Conductor, pa: np.ndarray, b: Conductor, pb: np.ndarray) -> None:
+    size = max(a.shape.size, b.shape.size)
+    dist, where = polyline_distance(pa, pb)
+    if dist <= 1e-9 * size:
+        raise GeometryError(
+            f"conductors '{a.name}' and '{b.name}' touch or intersect near (r, z) = "
+            f"({where[0]:.6g}, {where[1]:.6g}) m (distance {dist:.3g} m); conductors must be apart"
+        )
+    for inner, pin, outer in ((a, pa, b), (b, pb, a)):
+        outline = closed_outline(outer.shape)
+        if outline is not None and point_in_region(pin[:1], outline)[0]:
+            raise GeometryError(
+                f"conductor '{inner.name}' lies inside conductor '{outer.name}' (point "
+                f"({pin[0, 0]:.6g}, {pin[0, 1]:.6g}) m); conductors must not overlap"
+            )
+
+
+def driven(name: str, shape: Any, potential_V: float) -> Conductor:
+    return Conductor(name=name, shape=shape, potential_V=float(potential_V))
+
+
+def floating(name: str, shape: Any, charge_C: float = 0.0) -> Conductor:
+    return Conductor(name=name, shape=shape, charge_C=float(charge_C))
+
+
+def layout(conductors: Sequence[Conductor], **kwargs: Any) -> Layout:
+    return Layout(conductors=tuple(conductors), **kwargs)
