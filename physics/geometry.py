@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Literal
 
 import numpy as np
@@ -189,13 +190,13 @@ class Curve:
     def length(self) -> float:
         return float(sum(p.length for p in self.pieces))
 
-    @property
+    @cached_property
     def size(self) -> float:
         """Largest extent of the curve in metres (for tolerances)."""
         pts = self.sample(4)
         return float(np.max(np.ptp(pts, axis=0))) or self.pieces[0].length
 
-    @property
+    @cached_property
     def kind(self) -> CurveKind:
         tol = JOIN_TOLERANCE * self.size
         on_axis = abs(self.start[0]) <= tol and abs(self.end[0]) <= tol
@@ -215,6 +216,10 @@ class Curve:
 
     def corners(self) -> tuple[Corner, ...]:
         """Joints with a tangent break and free sheet ends (never points on the axis)."""
+        return self._corners
+
+    @cached_property
+    def _corners(self) -> tuple[Corner, ...]:
         out: list[Corner] = []
         kind = self.kind
         size = self.size

@@ -1,0 +1,48 @@
+"""Radial quadrature on the target plane and the spot radius of a sensitivity density.
+
+The target is the plane z = 0; an axisymmetric density f(r) (per unit area) integrates as
+``integral f(r) 2 pi r dr``. The grid is fine (step ``fine_step_m``) out to ``fine_extent_m``,
+where the density varies on the scale of the standoff, and grows geometrically beyond it,
+where the density of a guarded probe decays like a power of r.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def radial_grid(
+    fine_step_m: float, fine_extent_m: float, outer_extent_m: float, growth: float = 1.08
+) -> np.ndarray:
+    """Radii (M,) in metres from 0: uniform up to ``fine_extent_m``, then geometric."""
+    n_fine = max(int(np.ceil(fine_extent_m / fine_step_m)), 2)
+    fine = np.linspace(0.0, fine_extent_m, n_fine + 1)
+    if outer_extent_m <= fine_extent_m:
+        return fine
+    n_outer = int(np.ceil(np.log(outer_extent_m / fine_extent_m) / np.log(growth)))
+    outer = fine_extent_m * growth ** np.arange(1, n_outer + 1)
+    return np.concatenate([fine, outer])
+
+
+def cumulative_on_plane(r_m: np.ndarray, density: np.ndarray) -> np.ndarray:
+    """Running integral of ``density`` (M,) over the disk of radius r, trapezoid rule -> (M,)."""
+    ring = density * 2.0 * np.pi * r_m
+    steps = 0.5 * (ring[1:] + ring[:-1]) * np.diff(r_m)
+    return np.concatenate([[0.0], np.cumsum(steps)])
+
+
+def spot_radius(r_m: np.ndarray, density: np.ndarray, fraction: float = 0.9) -> float:
+    """Radius (m) of the centred disk holding ``fraction`` of the integral of ``density``.
+
+    Linear interpolation of the running integral; NaN when the integral is not positive.
+    """
+    cum = cumulative_on_plane(r_m, density)
+    total = cum[-1]
+    if not total > 0:
+        return float("nan")
+    target = fraction * total
+    k = int(np.searchsorted(cum, target))
+    k = min(max(k, 1), len(r_m) - 1)
+    c0, c1 = cum[k - 1], cum[k]
+    w = 0.0 if c1 == c0 else (target - c0) / (c1 - c0)
+    return float(r_m[k - 1] + w * (r_m[k] - r_m[k - 1]))

@@ -1,0 +1,202 @@
+"""Uniform-field electrode pair: two profiled electrodes facing each other across a gap.
+
+The electrodes are identical and driven at +V/2 and -V/2, so the mid-plane between them is
+an equipotential at 0: the problem is solved as one electrode at V/2 above the grounded
+plane z = 0 of the solver, its flat face at z = G/2. Each electrode is a flat central face
+of radius R_f that blends into its rim through a curvature ramp and an edge arc (see
+:mod:`physics.edge_profile <physics.electrodes.edge_profile>`):
+
+- ``gap_mm`` G: face-to-face spacing of the two electrodes;
+- ``flat_radius_mm`` R_f: radius of the flat central face;
+- ``blend_length_mm`` L_b: arc length of the curvature ramp (0: the edge arc meets the flat
+  face directly, a flat disk with a rounded rim);
+- ``edge_radius_mm`` R_e: radius of the edge arc the ramp ends in (and of the back corner);
+- ``back_thickness_mm`` T: face-to-back thickness of one electrode;
+- ``drive_V`` V: voltage between the two electrodes.
+
+The overall radius follows: R_o = R_f + (radial reach of ramp and edge arc).
+Metrics: centre field on the mid-plane, radius over which |E| on the mid-plane stays within
+a tolerance of it, peak surface field with its ratio to the centre field and where it sits.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+
+from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
+from physics.electrodes.rules import RuleBook
+from physics.layout import Layout, driven
+from physics.solution import ChargeSolution
+
+MM = 1e-3
+ELECTRODE = "electrode"
+
+
+@dataclass(frozen=True)
+class UniformFieldParams:
+    """Uniform-field electrode pair; lengths in mm, drive (between the electrodes) in V."""
+
+    gap_mm: float
+    flat_radius_mm: float
+    blend_length_mm: float
+    edge_radius_mm: float
+    back_thickness_mm: float
+    drive_V: float
+
+
+@dataclass(frozen=True)
+class UniformFieldOptions:
+    """``uniform_tolerance_pct``: |E| on the mid-plane counts as uniform within this band."""
+
+    uniform_tolerance_pct: float = 1.0
+
+
+def overall_radius_m(p: UniformFieldParams) -> float:
+    """Outer radius of one electrode (m)."""
+    _, reach = front_rise_m(p.blend_length_mm * MM, p.edge_radius_mm * MM, RAMP_ARCS)
+    return p.flat_radius_mm * MM + reach
+
+
+def midplane_field_V_per_m(solution: ChargeSolution, r_m: np.ndarray) -> np.ndarray:
+    """|E| on the mid-plane at radii (M,) -> (M,): the plane's |sigma| / eps (field normal)."""
+    return np.abs(solution.plane_charge_density(r_m)) / solution.layout.eps_F_per_m
+
+
+def uniform_radius_m(
+    solution: ChargeSolution, r_max_m: float, tolerance: float, n: int = 241
+) -> tuple[float, np.ndarray, np.ndarray]:
+    """First radius where |E| leaves centre*(1 -+ tolerance) on the mid-plane (m).
+
+    Returns (radius, radii (n,), |E| (n,)) with the coarse profile for reports; the crossing
+    is refined on a 33-point grid inside the bracketing step and interpolated linearly.
+    """
+    r = np.linspace(0.0, r_max_m, n)
+    e = midplane_field_V_per_m(solution, r)
+    deviation = np.abs(e / e[0] - 1.0)
+    outside = np.nonzero(deviation > tolerance)[0]
+    if len(outside) == 0:
+        return float(r_max_m), r, e
+    k = int(outside[0])
+    fine = np.linspace(r[k - 1], r[k], 33)
+    dev_fine = np.abs(midplane_field_V_per_m(solution, fine) / e[0] - 1.0) - tolerance
+    j = int(np.nonzero(dev_fine > 0)[0][0])
+    j = max(j, 1)
+    w = -dev_fine[j - 1] / (dev_fine[j] - dev_fine[j - 1]) if dev_fine[j - 1] < 0 else 0.0
+    return float(fine[j - 1] + w * (fine[j] - fine[j - 1])), r, e
+
+
+class UniformField(ElectrodeFamily):
+    """Profiled uniform-field electrode pair, solved above its mirror plane."""
+
+    name: ClassVar[str] = "uniform_field"
+    Params: ClassVar[type] = UniformFieldParams
+    Options: ClassVar[type] = UniformFieldOptions
+    metrics: ClassVar[tuple[MetricSpec, ...]] = (
+        MetricSpec("centre_field_V_per_m", "V/m", "field at the centre of the mid-plane", "either"),
+        MetricSpec("uniform_field_radius_mm", "mm", "mid-plane radius of uniform |E|", "maximize"),
+        MetricSpec("uniform_radius_fraction", "1", "uniform radius / overall radius", "maximize"),
+        MetricSpec(
+            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
+        ),
+        MetricSpec("peak_to_centre_field_ratio", "1", "peak surface / centre field", "minimize"),
+        MetricSpec("peak_field_r_mm", "mm", "radius of the peak surface field", "either"),
+        MetricSpec("peak_field_z_mm", "mm", "height of the peak above the mid-plane", "either"),
+        MetricSpec("overall_radius_mm", "mm", "outer radius of one electrode", "minimize"),
+        MetricSpec("pair_capacitance_pF", "pF", "capacitance between the two electrodes", "either"),
+    )
+
+    def validate(self, params: UniformFieldParams) -> None:
+        rules = RuleBook(self.name, params)
+        if rules.finite():
+            rules.positive("gap_mm", "flat_radius_mm", "edge_radius_mm", "back_thickness_mm")
+            rules.non_negative("blend_length_mm")
+            rules.nonzero("drive_V")
+            if not rules.broken:
+                p = params
+                rules.below(
+                    "blend_length_mm",
+                    math.pi * p.edge_radius_mm,
+                    "pi * edge_radius_mm",
+                    "the curvature ramp would turn past vertical",
+                )
+            if not rules.broken:
+                rise, _ = front_rise_m(p.blend_length_mm * MM, p.edge_radius_mm * MM, RAMP_ARCS)
+                need = rise / MM + p.edge_radius_mm
+                rules.at_least(
+                    "back_thickness_mm",
+                    need,
+                    f"front rise {rise / MM:.6g} + edge_radius_mm",
+                    "the edge profile would not close at the back",
+                )
+        rules.raise_if_broken()
+
+    def validate_options(self, options: UniformFieldOptions) -> None:
+        rules = RuleBook(self.name, options)
+        if rules.finite():
+            tol = options.uniform_tolerance_pct
+            if not 0 < tol < 50:
+                rules.broken.append(f"uniform_tolerance_pct = {tol:.6g} must be in (0, 50)")
+        rules.raise_if_broken()
+
+    def build(self, params: UniformFieldParams, *, eps_r: float = 1.0) -> Layout:
+        self.validate(params)
+        curve = profile_curve(
+            params.flat_radius_mm * MM,
+            0.5 * params.gap_mm * MM,
+            params.blend_length_mm * MM,
+            params.edge_radius_mm * MM,
+            params.back_thickness_mm * MM,
+        )
+        return Layout(
+            conductors=(driven(ELECTRODE, curve, 0.5 * params.drive_V),),
+            eps_r=eps_r,
+            ground_plane=True,
+        )
+
+    def evaluate(
+        self,
+        params: UniformFieldParams,
+        *,
+        rel_accuracy: float = 1e-4,
+        eps_r: float = 1.0,
+        options: UniformFieldOptions | None = None,
+    ) -> Evaluation:
+        from physics.bem_axi import solve_axisymmetric
+
+        options = options or UniformFieldOptions()
+        self.validate_options(options)
+        layout = self.build(params, eps_r=eps_r)
+        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
+        r_out = overall_radius_m(params)
+        radius, r_profile, e_profile = uniform_radius_m(
+            sol, 1.5 * r_out, options.uniform_tolerance_pct / 100.0
+        )
+        centre = float(e_profile[0])
+        peak = sol.peak_field
+        # Each electrode holds Q = C_half V/2 against the mid-plane; Q/V is the pair's C.
+        c_pair = 0.5 * float(sol.capacitance_matrix_F[0, 0])
+        metrics = {
+            "centre_field_V_per_m": centre,
+            "uniform_field_radius_mm": radius / MM,
+            "uniform_radius_fraction": radius / r_out,
+            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
+            "peak_to_centre_field_ratio": float(peak.field_V_per_m) / centre,
+            "peak_field_r_mm": float(peak.location_m[0]) / MM,
+            "peak_field_z_mm": float(peak.location_m[1]) / MM,
+            "overall_radius_mm": r_out / MM,
+            "pair_capacitance_pF": c_pair * 1e12,
+        }
+        extra: dict[str, Any] = {
+            "layout": layout,
+            "sense_capacitance_F": c_pair,
+            "peak_conductor": peak.conductor,
+            "peak_singular": bool(peak.singular),
+            "midplane_r_m": r_profile,
+            "midplane_field_V_per_m": e_profile,
+        }
+        return Evaluation(metrics=metrics, solution=sol, extra=extra)
