@@ -244,7 +244,7 @@ class Curve:
 
     def validate(self, name: str) -> None:
         """Raise GeometryError naming ``name`` if the curve crosses the axis or itself."""
-        pts = self.sample(48)
+        pts = self.sample(16)
         tol = JOIN_TOLERANCE * self.size
         rmin = float(pts[:, 0].min())
         if rmin < -tol:

@@ -94,7 +94,7 @@ class Layout:
         polylines = []
         for c in self.conductors:
             c.shape.validate(c.name)
-            pts = c.shape.sample(48)
+            pts = c.shape.sample(16)
             if self.ground_plane:
                 zmin = float(pts[:, 1].min())
                 if zmin <= 0:

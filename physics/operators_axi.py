@@ -15,12 +15,12 @@ from collections.abc import Callable
 
 import numpy as np
 
-from physics.mesh_axi import AxiMesh, panel_geometry
+from physics.mesh_axi import AxiMesh
 from physics.quadrature import barycentric_weights, gauss_legendre, log_product_weights
 from physics.ring_kernels import ring_field, ring_potential
-from physics.ring_sums import field_sum, near_rows, potential_sum, self_rows
+from physics.ring_sums import field_sum, foot_points, near_rows, potential_sum, self_rows
 
-#: A panel is "near" a target closer than this many panel lengths (lower-bound distance).
+#: A panel is "near" a target closer than at least this many panel lengths (lower bound).
 NEAR_FACTOR = 1.0
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
 _MAX_LEVELS = 44
@@ -30,31 +30,23 @@ _MIRROR = np.array([1.0, -1.0])
 Kernel = Callable[..., np.ndarray | tuple[np.ndarray, np.ndarray]]
 
 
+def near_factor(p: int, rel_error: float = 1e-10) -> float:
+    """Distance, in panel lengths, beyond which a panel's own p-point Gauss rule is accurate.
+
+    The rule's error on a kernel singular at distance d past a panel end of length L falls like
+    rho^(-2p), rho = x0 + sqrt(x0^2 - 1), x0 = 1 + 2 d / L (Bernstein ellipse); closer panels
+    take the graded near-field rule instead.
+    """
+    rho = rel_error ** (-1.0 / (2 * p))
+    x0 = 0.5 * (rho + 1.0 / rho)
+    return max(0.5 * (x0 - 1.0), NEAR_FACTOR)
+
+
 def _near_pairs(mesh: AxiMesh, targets: np.ndarray, mirror: bool) -> tuple[np.ndarray, np.ndarray]:
     centres = mesh.center_m * _MIRROR if mirror else mesh.center_m
-    dist = np.linalg.norm(targets[:, None, :] - centres[None], axis=-1) - 0.5 * mesh.length_m
-    return np.nonzero(dist < NEAR_FACTOR * mesh.length_m)
-
-
-def _foot_points(
-    mesh: AxiMesh, pj: np.ndarray, pts: np.ndarray, mirror: bool
-) -> tuple[np.ndarray, np.ndarray]:
-    """Reference parameter of the panel point nearest each target, and that distance."""
-    rows = np.arange(len(pj))
-    best = np.zeros(len(pj))
-    for width in (None, 1.0 / 16):
-        if width is None:
-            tau = np.broadcast_to(_SAMPLE_TAU, (len(pj), len(_SAMPLE_TAU)))
-        else:
-            tau = np.clip(best[:, None] + width * np.linspace(-1, 1, 17), -1.0, 1.0)
-        geo, _ = panel_geometry(mesh.kind[pj], mesh.coef[pj], tau)
-        if mirror:
-            geo = geo * _MIRROR
-        d = np.linalg.norm(geo - pts[:, None, :], axis=-1)
-        k = d.argmin(axis=1)
-        best = tau[rows, k]
-        delta = d[rows, k]
-    return best, delta
+    d2 = (targets[:, None, 0] - centres[None, :, 0]) ** 2 + (targets[:, None, 1] - centres[None, :, 1]) ** 2
+    reach = (near_factor(mesh.order) + 0.5) * mesh.length_m
+    return np.nonzero(d2 < reach * reach)
 
 
 def _rule_order(p: int) -> int:
@@ -67,9 +59,16 @@ def _near_rows(
 ) -> np.ndarray:
     """Accurate rows (B, p, ncomp) of near (target, panel) pairs; sigma at panel nodes."""
     p = mesh.order
-    tau_c, delta = _foot_points(mesh, pj, pts, mirror)
+    tau_c, delta = foot_points(
+        np.ascontiguousarray(pts[:, 0]),
+        np.ascontiguousarray(pts[:, 1]),
+        mesh.kind[pj],
+        np.ascontiguousarray(mesh.coef[pj]),
+        mirror,
+    )
     ratio = mesh.length_m[pj] / np.maximum(delta, 1e-300)
     levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 2, 1, _MAX_LEVELS).astype(np.int64)
+    levels[ratio < 0.5] = 1
     x, _ = gauss_legendre(p)
     xq, wq = gauss_legendre(_rule_order(p))
     return near_rows(

@@ -268,3 +268,56 @@ def self_rows(
                     for j in range(p):
                         out[b, j] += v * lag[j]
     return out
+
+
+@njit(cache=True)
+def foot_points(
+    tr: np.ndarray, tz: np.ndarray, kind: np.ndarray, coef: np.ndarray, mirror: bool
+) -> tuple[np.ndarray, np.ndarray]:
+    """Reference parameter (B,) of the panel point nearest each target, and the distance (B,).
+
+    Exact projection for segments and arcs; ellipse arcs by sampling and local refinement.
+    ``mirror`` uses the panel's image in z = 0.
+    """
+    n = tr.shape[0]
+    tau = np.empty(n)
+    dist = np.empty(n)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(n):
+        c = coef[b]
+        r, z = tr[b], sgn * tz[b]
+        if kind[b] == 0:
+            dr, dz = c[2] - c[0], c[3] - c[1]
+            s = ((r - c[0]) * dr + (z - c[1]) * dz) / (dr * dr + dz * dz)
+            s = min(max(s, 0.0), 1.0)
+            tau[b] = 2.0 * s - 1.0
+            dist[b] = math.hypot(r - c[0] - s * dr, z - c[1] - s * dz)
+        elif kind[b] == 1:
+            a0, a1 = c[3], c[4]
+            ang = math.atan2(z - c[1], r - c[0])
+            lo, hi = min(a0, a1), max(a0, a1)
+            mid = 0.5 * (lo + hi)
+            ang = ang + 2 * math.pi * round((mid - ang) / (2 * math.pi))
+            if ang < lo or ang > hi:
+                d_lo = math.hypot(r - c[0] - c[2] * math.cos(lo), z - c[1] - c[2] * math.sin(lo))
+                d_hi = math.hypot(r - c[0] - c[2] * math.cos(hi), z - c[1] - c[2] * math.sin(hi))
+                ang = lo if d_lo < d_hi else hi
+            s = (ang - a0) / (a1 - a0)
+            tau[b] = 2.0 * s - 1.0
+            dist[b] = math.hypot(r - c[0] - c[2] * math.cos(ang), z - c[1] - c[2] * math.sin(ang))
+        else:
+            best, best_d = -1.0, 1e300
+            width = 2.0
+            center = 0.0
+            for _ in range(4):
+                for k in range(33):
+                    t = min(max(center + width * (k / 16.0 - 1.0), -1.0), 1.0)
+                    pr, pz, _ = _panel_point(kind[b], c, t)
+                    d = math.hypot(r - pr, z - pz)
+                    if d < best_d:
+                        best, best_d = t, d
+                center = best
+                width /= 8.0
+            tau[b] = best
+            dist[b] = best_d
+    return tau, dist

@@ -192,13 +192,10 @@ def _peaks(
     mesh = level.mesh
     _, sigma = level.excitation(layout)
     p = mesh.order
-    ends = lagrange_matrix(np.array([-1.0, 1.0]), p)
-    sig_p = sigma.reshape(-1, p)
-    sig_e = sig_p @ ends.T
-
-    end_pts, _ = panel_geometry(mesh.kind, mesh.coef, np.tile([-1.0, 1.0], (mesh.n_panels, 1)))
-    vals = np.abs(np.concatenate([sig_p, sig_e], axis=1))
-    pts = np.concatenate([mesh.points_m.reshape(-1, p, 2), end_pts], axis=1)
+    # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
+    tau = np.linspace(-1.0, 1.0, 4 * p + 1)
+    vals = np.abs(sigma.reshape(-1, p) @ lagrange_matrix(tau, p).T)
+    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
     out = []
     eps = layout.eps_F_per_m
     for ci, cond in enumerate(layout.conductors):
