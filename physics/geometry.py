@@ -284,13 +284,21 @@ def _segments_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
 
 
 def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, float] | None:
+    """A point where two non-adjacent chords of the polyline cross or touch, else None."""
     chords = np.stack([pts[:-1], pts[1:]], axis=1)
     m = len(chords)
     cross = _segments_cross(chords, chords)
+    a, d = chords[:, 0], chords[:, 1] - chords[:, 0]
+    length2 = np.maximum(np.einsum("kc,kc->k", d, d), 1e-300)
+    # distance of every chord start to every chord: catches touching without a proper crossing
+    t = np.clip(np.einsum("mkc,kc->mk", a[:, None, :] - a[None], d) / length2, 0.0, 1.0)
+    gap = np.linalg.norm(a[:, None, :] - (a[None] + t[..., None] * d[None]), axis=-1)
+    tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
+    touch = gap <= tol
     i, j = np.triu_indices(m, k=2)
     keep = ~(closed & (i == 0) & (j == m - 1))
     i, j = i[keep], j[keep]
-    bad = cross[i, j]
+    bad = cross[i, j] | touch[i, j] | touch[j, i]
     if not np.any(bad):
         return None
     k = int(np.argmax(bad))
