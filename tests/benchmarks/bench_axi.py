@@ -16,8 +16,6 @@ import sys
 import time
 from pathlib import Path
 
-import physics  # noqa: F401  (one BLAS thread per process)
-
 import numpy as np
 from scipy.special import ellipkm1
 
