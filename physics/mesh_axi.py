@@ -6,8 +6,9 @@ Panels are graded geometrically (ratio 2) towards corners and free sheet edges, 
 along a curve differ in length by at most a factor 2, and panels facing another conductor or
 the ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap.
 
-Refinement level ``level`` halves the bulk panel length ``level`` times and adds
-CORNER_LEVELS_PER_LEVEL grading levels per step at singular corners, so meshes of successive levels are nested.
+Refinement level ``level`` halves every level-0 panel ``level`` times and adds
+CORNER_LEVELS_PER_LEVEL grading levels per step at singular corners, so meshes of successive
+levels are nested.
 """
 
 from __future__ import annotations
@@ -30,9 +31,15 @@ BASE_PANELS_PER_SIZE = 2
 MAX_ARC_ANGLE = math.pi / 2
 #: Largest tangent turning of one ellipse-arc panel at level 0 (radians).
 ELLIPSE_TURN_ANGLE = math.pi / 8
-#: Grading halvings at a singular corner at level 0, and added per level.
-CORNER_LEVELS_0 = 12
+#: Grading halvings at a singular corner at level 0 per panel order (more for tighter
+#: requests, which use higher orders), and the halvings added per level.
+CORNER_LEVELS_0 = {4: 6, 6: 9, 8: 12}
 CORNER_LEVELS_PER_LEVEL = 4
+
+
+def corner_levels(order: int) -> int:
+    """Level-0 halvings towards a singular corner for panels of ``order`` nodes."""
+    return CORNER_LEVELS_0.get(order, 3 * order // 2)
 #: A panel is at most this many times its distance to another conductor or an image.
 GAP_FACTOR = 2.0
 
@@ -229,7 +236,7 @@ def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
     level-0 panel into 2**L and grades singular corners CORNER_LEVELS_PER_LEVEL * L times more.
     """
     per_conductor = []
-    for curve, base, corner_ends in _base_intervals(layout):
+    for curve, base, corner_ends in _base_intervals(layout, corner_levels(order)):
         intervals = []
         for iv in base:
             parts = []
@@ -244,7 +251,7 @@ def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
 
 
 @lru_cache(maxsize=8)
-def _base_intervals(layout: Layout):
+def _base_intervals(layout: Layout, grading: int):
     """Level-0 parameter intervals per piece of every conductor, and its singular corner ends."""
     per_conductor = []
     for cond in layout.conductors:
@@ -253,7 +260,7 @@ def _base_intervals(layout: Layout):
         corner_ends: set[tuple[int, bool]] = set()
         n_pieces = len(curve.pieces)
         for corner in curve.corners():
-            times = CORNER_LEVELS_0 if corner.singular else max(CORNER_LEVELS_0 // 2, 1)
+            times = grading if corner.singular else max(grading // 2, 1)
             sides = [(corner.piece_index, corner.at_end)]
             if corner.angle > 0:
                 sides.append(((corner.piece_index + 1) % n_pieces, False))

@@ -164,3 +164,14 @@ def test_sharp_corner_peak_is_flagged_and_fillet_peak_converges():
     assert peak.field_V_per_m == pytest.approx(finer.field_V_per_m, rel=max(peak.rel_error_estimate, 1e-6))
     # Rounding lowers the peak far below the sharp-edge value on a fine mesh.
     assert sharp.peak_field.field_V_per_m > peak.field_V_per_m
+
+
+def test_capacitance_scales_with_the_medium_permittivity():
+    # C is proportional to eps = eps_r eps0 in a homogeneous medium (common practice, no source).
+    base = solve_axisymmetric(_probe(), rel_accuracy=1e-6)
+    oil = solve_axisymmetric(
+        Layout(_probe().conductors, eps_r=2.2, ground_plane=True), rel_accuracy=1e-6
+    )
+    np.testing.assert_allclose(oil.capacitance_matrix_F, 2.2 * base.capacitance_matrix_F, rtol=1e-12)
+    # Same charge density per volt scaled, so the surface field at the drive is unchanged.
+    assert oil.peak_field.field_V_per_m == pytest.approx(base.peak_field.field_V_per_m, rel=1e-12)
