@@ -27,6 +27,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from physics.bem_axi import solve_axisymmetric
 from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
 from physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from physics.electrodes.rules import RuleBook
@@ -96,18 +97,20 @@ class UniformField(ElectrodeFamily):
     name: ClassVar[str] = "uniform_field"
     Params: ClassVar[type] = UniformFieldParams
     Options: ClassVar[type] = UniformFieldOptions
+    #: The layout is one electrode above the mid-plane of a symmetric pair.
+    mirror_pair: ClassVar[bool] = True
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        MetricSpec("centre_field_V_per_m", "V/m", "field at the centre of the mid-plane", "either"),
+        MetricSpec("centre_field_V_per_m", "V/m", "|E| at the mid-plane centre", "either"),
         MetricSpec("uniform_field_radius_mm", "mm", "mid-plane radius of uniform |E|", "maximize"),
         MetricSpec("uniform_radius_fraction", "1", "uniform radius / overall radius", "maximize"),
         MetricSpec(
             "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
         ),
         MetricSpec("peak_to_centre_field_ratio", "1", "peak surface / centre field", "minimize"),
-        MetricSpec("peak_field_r_mm", "mm", "radius of the peak surface field", "either"),
-        MetricSpec("peak_field_z_mm", "mm", "height of the peak above the mid-plane", "either"),
+        MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either"),
+        MetricSpec("peak_field_z_mm", "mm", "peak height above the mid-plane", "either"),
         MetricSpec("overall_radius_mm", "mm", "outer radius of one electrode", "minimize"),
-        MetricSpec("pair_capacitance_pF", "pF", "capacitance between the two electrodes", "either"),
+        MetricSpec("pair_capacitance_pF", "pF", "capacitance between electrodes", "either"),
     )
 
     def validate(self, params: UniformFieldParams) -> None:
@@ -166,8 +169,6 @@ class UniformField(ElectrodeFamily):
         eps_r: float = 1.0,
         options: UniformFieldOptions | None = None,
     ) -> Evaluation:
-        from physics.bem_axi import solve_axisymmetric
-
         options = options or UniformFieldOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
@@ -194,6 +195,7 @@ class UniformField(ElectrodeFamily):
         extra: dict[str, Any] = {
             "layout": layout,
             "sense_capacitance_F": c_pair,
+            "sense_capacitance_meaning": "capacitance between the two electrodes (Q / V)",
             "peak_conductor": peak.conductor,
             "peak_singular": bool(peak.singular),
             "midplane_r_m": r_profile,
