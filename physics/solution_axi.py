@@ -2,8 +2,8 @@
 
 Points are (r, z) pairs in metres. Surface densities are the node values of the finest
 level; the coarser level supplies error estimates. For an open thin sheet the density is the
-sum over both faces and the reported surface field |sigma|/eps is an upper bound of the field
-on either face.
+sum over both faces; each face's share comes from the normal field just off it, and the
+reported surface field is that of the more charged face.
 """
 
 from __future__ import annotations
@@ -112,15 +112,25 @@ class AxisymmetricSolution(ChargeSolution):
     def _nodes_of(self, name: str) -> np.ndarray:
         return np.nonzero(self.mesh.node_conductor == self.layout.index(name))[0]
 
+    @cached_property
+    def _faces(self) -> np.ndarray:
+        return face_densities(self._fine, self.layout)
+
     def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
+        """See :class:`ChargeSolution`; adds ``arc_length_m`` and, per node, the density on the
+        face the normal points to (``sigma_front_C_per_m2``) and on the other face
+        (``sigma_back_C_per_m2``, zero for closed bodies). For an open sheet the field is that
+        of the more charged face."""
         idx = self._nodes_of(conductor)
-        sigma = self.sigma_C_per_m2[idx]
+        faces = self._faces[idx]
         return {
             "points_m": self.mesh.points_m[idx],
             "arc_length_m": self.mesh.arc_m[idx],
-            "sigma_C_per_m2": sigma,
+            "sigma_C_per_m2": self.sigma_C_per_m2[idx],
+            "sigma_front_C_per_m2": faces[:, 0],
+            "sigma_back_C_per_m2": faces[:, 1],
             "area_m2": self.mesh.ring_area_m2[idx],
-            "field_V_per_m": np.abs(sigma) / self.eps,
+            "field_V_per_m": np.max(np.abs(faces), axis=1) / self.eps,
         }
 
     def peak_fields(self) -> tuple[PeakField, ...]:
@@ -185,16 +195,50 @@ class AxisymmetricSolution(ChargeSolution):
         return np.einsum("q,qi,qj->ij", wts, s, s) / self.eps
 
 
+#: Offset, in panel lengths, of the points where a sheet's face fields are evaluated.
+_FACE_OFFSET = 1e-7
+
+
+def face_densities(level: LevelResult, layout: Layout) -> np.ndarray:
+    """Charge density (N, 2) on the front (normal side) and back face of every node, C/m^2.
+
+    A closed body carries all its charge on the outside: (sigma, 0). For an open sheet the
+    single-layer density is the sum of both faces; each face's share is eps times the normal
+    field just off that face (evaluated 1e-7 panel lengths out).
+    """
+    mesh = level.mesh
+    _, sigma = level.excitation(layout)
+    faces = np.stack([sigma, np.zeros_like(sigma)], axis=1)
+    sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[mesh.node_conductor]
+    idx = np.nonzero(sheet)[0]
+    if len(idx) == 0:
+        return faces
+    n = mesh.normals[idx]
+    delta = _FACE_OFFSET * mesh.length_m[idx // mesh.order][:, None]
+    eps = layout.eps_F_per_m
+    applied = np.array([0.0, layout.applied_field_V_per_m])
+    for col, side in ((0, 1.0), (1, -1.0)):
+        pts = mesh.points_m[idx] + side * delta * n
+        field = (
+            np.tensordot(field_matrix(mesh, pts, layout.ground_plane), sigma, axes=([1], [0])) / eps
+        )
+        faces[idx, col] = eps * side * np.einsum("ij,ij->i", field + applied, n)
+    return faces
+
+
 def _peaks(
     level: LevelResult, layout: Layout
 ) -> list[tuple[str, float, tuple[float, float], bool]]:
-    """Per conductor: name, peak |sigma|/eps, its (r, z), and whether it sits at a corner."""
+    """Per conductor: name, peak surface field, its (r, z), and whether it sits at a corner."""
     mesh = level.mesh
-    _, sigma = level.excitation(layout)
+    faces = face_densities(level, layout)
     p = mesh.order
     # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
     tau = np.linspace(-1.0, 1.0, 4 * p + 1)
-    vals = np.abs(sigma.reshape(-1, p) @ lagrange_matrix(tau, p).T)
+    lag = lagrange_matrix(tau, p).T
+    vals = np.maximum(
+        np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
+    )
     pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
     out = []
     eps = layout.eps_F_per_m

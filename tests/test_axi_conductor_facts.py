@@ -68,7 +68,9 @@ def test_charges_equal_integral_of_sigma(probe_solution):
     sol = probe_solution
     for k, name in enumerate(sol.layout.names):
         s = sol.surface_samples(name)
-        assert np.sum(s["sigma_C_per_m2"] * s["area_m2"]) == pytest.approx(sol.charges_C[k], rel=1e-12)
+        assert np.sum(s["sigma_C_per_m2"] * s["area_m2"]) == pytest.approx(
+            sol.charges_C[k], rel=1e-12
+        )
 
 
 def test_plane_carries_the_opposite_of_all_conductor_charge(probe_solution):
@@ -110,7 +112,9 @@ def test_floating_conductor_takes_the_potential_that_holds_its_charge():
     sol = solve_axisymmetric(lay, rel_accuracy=1e-8)
     assert sol.charges_C[1] == pytest.approx(0.0, abs=1e-9 * abs(sol.charges_C[0]))
     assert 0.0 < sol.potentials_V[1] < 10.0
-    assert sol.potential_at(np.array([[0.1e-3, 2e-3]]))[0] == pytest.approx(sol.potentials_V[1], abs=1e-7)
+    assert sol.potential_at(np.array([[0.1e-3, 2e-3]]))[0] == pytest.approx(
+        sol.potentials_V[1], abs=1e-7
+    )
 
 
 def test_requested_accuracy_drives_refinement_and_is_reported():
@@ -121,7 +125,9 @@ def test_requested_accuracy_drives_refinement_and_is_reported():
     assert tight.n_unknowns > loose.n_unknowns
     assert tight.rel_error_estimate <= 1e-8
     ref = tight.capacitance_matrix_F
-    err = np.max(np.abs(loose.capacitance_matrix_F - ref) / np.sqrt(np.outer(np.diag(ref), np.diag(ref))))
+    err = np.max(
+        np.abs(loose.capacitance_matrix_F - ref) / np.sqrt(np.outer(np.diag(ref), np.diag(ref)))
+    )
     # The estimate compares the last two levels, so it bounds the finer level's error.
     assert err <= loose.rel_error_estimate
     capped = solve_axisymmetric(lay, rel_accuracy=1e-12, max_level=1)
@@ -161,7 +167,9 @@ def test_sharp_corner_peak_is_flagged_and_fillet_peak_converges():
     assert not peak.singular
     assert peak.rel_error_estimate < 1e-3
     finer = solve_axisymmetric(_probe(fillet=0.1e-3), rel_accuracy=1e-9).peak_field
-    assert peak.field_V_per_m == pytest.approx(finer.field_V_per_m, rel=max(peak.rel_error_estimate, 1e-6))
+    assert peak.field_V_per_m == pytest.approx(
+        finer.field_V_per_m, rel=max(peak.rel_error_estimate, 1e-6)
+    )
     # Rounding lowers the peak far below the sharp-edge value on a fine mesh.
     assert sharp.peak_field.field_V_per_m > peak.field_V_per_m
 
@@ -172,6 +180,28 @@ def test_capacitance_scales_with_the_medium_permittivity():
     oil = solve_axisymmetric(
         Layout(_probe().conductors, eps_r=2.2, ground_plane=True), rel_accuracy=1e-6
     )
-    np.testing.assert_allclose(oil.capacitance_matrix_F, 2.2 * base.capacitance_matrix_F, rtol=1e-12)
+    np.testing.assert_allclose(
+        oil.capacitance_matrix_F, 2.2 * base.capacitance_matrix_F, rtol=1e-12
+    )
     # Same charge density per volt scaled, so the surface field at the drive is unchanged.
     assert oil.peak_field.field_V_per_m == pytest.approx(base.peak_field.field_V_per_m, rel=1e-12)
+
+
+def test_open_sheet_faces_share_its_charge():
+    # An isolated thin disk carries half its charge on each face by symmetry; over a grounded
+    # plane the face towards the plane carries more, and the faces always sum to the total
+    # (jump of the normal field across a charged sheet: common practice, no source).
+    alone = solve_axisymmetric(
+        Layout((driven("disk", geo.disk(1e-2, 0.0), 1.0),)), rel_accuracy=1e-6
+    )
+    s = alone.surface_samples("disk")
+    np.testing.assert_allclose(s["sigma_front_C_per_m2"], 0.5 * s["sigma_C_per_m2"], rtol=1e-4)
+    over = solve_axisymmetric(
+        Layout((driven("disk", geo.disk(1e-2, 2e-3), 1.0),), ground_plane=True), rel_accuracy=1e-6
+    )
+    s = over.surface_samples("disk")
+    total = s["sigma_front_C_per_m2"] + s["sigma_back_C_per_m2"]
+    np.testing.assert_allclose(total, s["sigma_C_per_m2"], rtol=1e-4)
+    # The segment runs outwards along +r, so its normal points down, towards the plane.
+    assert np.all(s["sigma_front_C_per_m2"] > s["sigma_back_C_per_m2"])
+    assert np.max(s["field_V_per_m"]) <= over.peak_field.field_V_per_m * (1 + 1e-12)
