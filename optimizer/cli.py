@@ -3,10 +3,17 @@
 from __future__ import annotations
 
 import argparse
+import importlib
 import sys
 from collections.abc import Sequence
 
 from optimizer import __version__
+from physics.errors import ElOptError
+
+#: Modules that each define ``add_parser(subparsers)``; one verb (or a few) per module.
+VERB_MODULES: list[str] = []
+VERB_MODULES += ["optimizer.cmd_run", "optimizer.cmd_front", "optimizer.cmd_show"]
+VERB_MODULES += ["optimizer.cmd_solve", "optimizer.cmd_check"]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -16,7 +23,9 @@ def build_parser() -> argparse.ArgumentParser:
         "parameterised electrode and search its shape under a peak-surface-field limit.",
     )
     parser.add_argument("--version", action="version", version=f"elopt {__version__}")
-    parser.add_subparsers(dest="verb", metavar="VERB")
+    subparsers = parser.add_subparsers(dest="verb", metavar="VERB")
+    for module_name in VERB_MODULES:
+        importlib.import_module(module_name).add_parser(subparsers)
     return parser
 
 
@@ -26,7 +35,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.verb is None:
         parser.print_help()
         return 0
-    return 0
+    try:
+        return int(args.func(args))
+    except ElOptError as exc:
+        print(f"elopt: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("elopt: interrupted", file=sys.stderr)
+        return 130
 
 
 if __name__ == "__main__":

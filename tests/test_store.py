@@ -10,6 +10,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 import pytest
+from study_support.records import check_matches, record_for, small_header
 
 from optimizer.errors import StudyFileError
 from optimizer.store import (
@@ -20,7 +21,6 @@ from optimizer.store import (
     read_trial_arrays,
     salvage,
 )
-from study_support.records import check_matches, record_for, small_header
 
 TESTS_DIR = Path(__file__).parent
 
@@ -211,3 +211,28 @@ def test_writer_snapshot_matches_reader(tmp_path):
     assert own.n_trials == live.n_trials == 4
     for key in own.columns:
         np.testing.assert_array_equal(own.columns[key], live.columns[key])
+
+
+def test_open_salvages_a_file_that_refuses_writes(tmp_path, monkeypatch, capsys):
+    import optimizer.store as store
+
+    path = tmp_path / "s.h5"
+    _write(path, 6)
+    real = store._truncate_to_commit
+    calls = []
+
+    def first_fails(h5):
+        calls.append(1)
+        if len(calls) == 1:
+            raise OSError("simulated: cannot write metadata")
+        return real(h5)
+
+    monkeypatch.setattr(store, "_truncate_to_commit", first_fails)
+    with StudyWriter.open(path) as w:
+        assert w.n_trials == 6
+        w.append(record_for(6))
+    assert "salvaged 6 committed trials" in capsys.readouterr().out
+    assert len(list(tmp_path.glob("s.h5.damaged-*"))) == 1
+    snap = read_study(path)
+    for i in range(7):
+        check_matches(snap, lambda k: read_trial_arrays(path, k), i)

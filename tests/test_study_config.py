@@ -1,0 +1,181 @@
+"""Study config reader: good configs parse; each bad input gets one line naming key and fix."""
+
+from __future__ import annotations
+
+import pytest
+import tomllib
+from study_support.configs import FIXTURE_STUDY, GUARDED_DISK_STUDY
+
+from optimizer.errors import ConfigError
+from optimizer.study_config import (
+    identity_differences,
+    load_study_config,
+    parameter_unit,
+    parse_study_config,
+    study_identity,
+)
+
+
+def _parse(text: str):
+    return parse_study_config(tomllib.loads(text), text, source="t.toml")
+
+
+def _fixture_text(**kw) -> str:
+    args = {"trials": 30, "delay_s": 0.0, "sampler": "tpe", "handover": 100000} | kw
+    return FIXTURE_STUDY.format(**args)
+
+
+def test_real_family_config_parses():
+    spec = _parse(GUARDED_DISK_STUDY.format(trials=12, workers=2))
+    assert spec.family.name == "guarded_disk"
+    assert [s.name for s in spec.search] == [
+        "sensor_radius_mm",
+        "guard_gap_mm",
+        "guard_width_mm",
+        "fillet_mm",
+    ]
+    assert spec.fixed["drive_V"] == 10.0
+    assert [(o.metric, o.direction) for o in spec.objectives] == [
+        ("sensitivity_fF_per_um", "maximize"),
+        ("outer_radius_mm", "minimize"),
+    ]
+    (c,) = spec.constraints
+    assert (c.metric, c.kind, c.limit, c.unit) == ("peak_surface_field_V_per_m", "max", 5e4, "V/m")
+    assert c.violation(4e4) < 0 < c.violation(6e4)
+    assert spec.budget.trials == 12 and spec.workers == 2
+    assert spec.sampler.kind == "tpe"
+
+
+def test_fixture_family_gets_the_derived_peak_field_metric():
+    spec = _parse(_fixture_text())
+    names = [m.name for m in spec.metrics]
+    assert names == ["score_fF", "size_mm", "peak_surface_field_V_per_m"]
+
+
+def test_sampler_hand_over():
+    spec = _parse(_fixture_text(handover=50))
+    assert spec.sampler.kind_at(49) == "tpe"
+    assert spec.sampler.kind_at(50) == "nsga2"
+    assert _parse(_fixture_text(sampler="nsga2")).sampler.kind_at(0) == "nsga2"
+
+
+BAD = [
+    # (replace this, with this, message must match)
+    (
+        'score_fF = "maximize"',
+        'sensitivity = "maximize"',
+        r"objectives\.sensitivity: the family has no metric 'sensitivity'",
+    ),
+    (
+        "peak_surface_field_V_per_m = { max",
+        "peak_field = { max",
+        r"constraints\.peak_field: the family has no metric 'peak_field'; did you mean 'peak_surface_field_V_per_m'",
+    ),
+    (
+        "width_mm = { low = 0.5, high = 8.0 }",
+        "width_mm = { low = 8.0, high = 8.0 }",
+        r"search\.width_mm: low < high must hold, got low=8, high=8",
+    ),
+    (
+        "width_mm = { low = 0.5, high = 8.0 }",
+        "width_mm = { low = -2.0, high = 8.0 }",
+        r"search\.width_mm\.low = -2 is outside family analytic_fixture's rules: width_mm must be > 0",
+    ),
+    (
+        "width_mm = { low = 0.5, high = 8.0 }",
+        "width_mm = { low = 0.5, high = 20.0 }",
+        r"search\.width_mm\.high = 20 is outside family analytic_fixture's rules: width_mm \+ gap_mm <= 9",
+    ),
+    ('kind = "tpe"', 'kind = "cmaes"', r"sampler\.kind: 'cmaes' is not one of tpe, nsga2"),
+    ("trials = 30", "trials = 0", r"budget\.trials: 0 is outside the allowed range \[1, inf\]"),
+    ("[budget]\ntrials = 30", "[budget]", r"budget: give trials = N and/or hours = H"),
+    (
+        "gap_mm = { low = 0.1, high = 3.0, log = true }",
+        "gap_mm = { low = 0.0, high = 3.0, log = true }",
+        r"search\.gap_mm\.low: a log-scale range needs low > 0",
+    ),
+    (
+        "gap_mm = { low = 0.1, high = 3.0, log = true }",
+        "gap = { low = 0.1, high = 3.0 }",
+        r"search\.gap: unknown key; did you mean 'gap_mm'",
+    ),
+    (
+        "gap_mm = { low = 0.1, high = 3.0, log = true }",
+        "gap_mm = { low = 0.1, high = 3.0, step = 5.0 }",
+        r"search\.gap_mm\.step: must lie in \(0, high - low\]",
+    ),
+    ("[sampler]", "[sampler]\nwarmup = 3", r"sampler\.warmup: unknown key"),
+    (
+        'score_fF = "maximize"',
+        'score_fF = "biggest"',
+        r"objectives\.score_fF: 'biggest' is not one of maximize, minimize",
+    ),
+    (
+        "drive_V = 10.0\n",
+        "drive_V = 10.0\nwidth_mm = 1.0\n",
+        r"search\.width_mm: also given in \[fixed\]",
+    ),
+    (
+        'family = "study_support.analytic_family:FAMILY"',
+        'family = "no_such_family"',
+        r"study\.family: unknown electrode family 'no_such_family'; known families: .*guarded_disk",
+    ),
+]
+
+
+@pytest.mark.parametrize(("old", "new", "message"), BAD)
+def test_bad_input_gets_one_clear_line(old, new, message):
+    text = _fixture_text()
+    assert old in text
+    with pytest.raises(ConfigError, match=message) as info:
+        _parse(text.replace(old, new, 1))
+    assert "\n" not in str(info.value)
+
+
+def test_missing_parameter_is_named():
+    text = GUARDED_DISK_STUDY.format(trials=5, workers=1).replace("thickness_mm = 1.0\n", "")
+    with pytest.raises(
+        ConfigError, match=r"fixed: parameter thickness_mm of family guarded_disk has no value"
+    ):
+        _parse(text)
+
+
+def test_real_family_rule_in_a_range_end_is_named():
+    # fillet_mm <= thickness_mm / 2 is a guarded_disk rule: a fillet range up to 0.8 mm with a
+    # 1 mm thick probe can never be built at its high end.
+    text = GUARDED_DISK_STUDY.format(trials=5, workers=1).replace(
+        "fillet_mm = { low = 0.05, high = 0.1 }", "fillet_mm = { low = 0.05, high = 0.8 }"
+    )
+    with pytest.raises(
+        ConfigError,
+        match=r"search\.fillet_mm\.high = 0\.8 is outside family guarded_disk's rules: .*fillet_mm",
+    ):
+        _parse(text)
+
+
+def test_missing_file_and_bad_toml(tmp_path):
+    with pytest.raises(ConfigError, match="no such file"):
+        load_study_config(tmp_path / "nope.toml")
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[study\n")
+    with pytest.raises(ConfigError, match="malformed TOML"):
+        load_study_config(bad)
+
+
+def test_identity_ignores_budget_and_workers_and_names_differences():
+    a = tomllib.loads(GUARDED_DISK_STUDY.format(trials=12, workers=2))
+    b = tomllib.loads(GUARDED_DISK_STUDY.format(trials=500, workers=1))
+    assert identity_differences(study_identity(a), study_identity(b)) == []
+    c = tomllib.loads(
+        GUARDED_DISK_STUDY.format(trials=12, workers=2).replace("high = 2.0 }", "high = 2.5 }")
+    )
+    assert identity_differences(study_identity(a), study_identity(c)) == [
+        "search.sensor_radius_mm.high: stored 2.0, given 2.5"
+    ]
+
+
+def test_parameter_units_from_names():
+    assert parameter_unit("guard_gap_mm") == "mm"
+    assert parameter_unit("drive_V") == "V"
+    assert parameter_unit("peak_surface_field_V_per_m") == "V/m"
+    assert parameter_unit("count") == ""
