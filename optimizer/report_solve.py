@@ -47,7 +47,15 @@ def _design_table(spec: SolveSpec) -> Table:
     table.add_column("value", justify="right")
     table.add_column("unit")
     for f in dataclasses.fields(spec.params):
-        table.add_row(f.name, _num(float(getattr(spec.params, f.name))), parameter_unit(f.name))
+        value = getattr(spec.params, f.name)
+        if isinstance(value, tuple):
+            # Structured parameters (the conductors of a mesh_file design): one row each.
+            for item in value:
+                table.add_row(
+                    f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
+                )
+            continue
+        table.add_row(f.name, _num(float(value)), parameter_unit(f.name))
     table.add_row("eps_r (medium)", _num(spec.eps_r), "")
     return table
 
@@ -86,7 +94,7 @@ def _capacitance_table(evaluation: Evaluation) -> Table:
 def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
     sol = evaluation.solution
     peak = sol.peak_field
-    r_mm, z_mm = (1e3 * x for x in peak.location_m)
+    where = [1e3 * x for x in peak.location_m]
     line = Text("Peak surface field ")
     line.append(
         f"{peak.field_V_per_m:.4g} V/m = {peak.field_V_per_m / 1e6:.3g} kV/mm", style="bold"
@@ -95,7 +103,9 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
         line.append(
             f"   (changed {100 * peak.rel_error_estimate:.2g}% on the last refinement)", style="dim"
         )
-    out = [line, Text(f"  on {peak.conductor} at r = {r_mm:.4g} mm, z = {z_mm:.4g} mm")]
+    names = ("r", "z") if len(where) == 2 else ("x", "y", "z")
+    at = ", ".join(f"{n} = {v:.4g} mm" for n, v in zip(names, where, strict=True))
+    out = [line, Text(f"  on {peak.conductor} at {at}")]
     if spec.breakdown_field_V_per_m is not None:
         share = peak.field_V_per_m / spec.breakdown_field_V_per_m
         out.append(
@@ -184,17 +194,18 @@ def render_solve_report(
     peak = evaluation.solution.peak_field
     # A pair solved above its mid-plane says so; its picture shows the mirror electrode too.
     mirror = bool(getattr(family, "mirror_pair", False))
-    picture = section_picture(
-        evaluation.solution.layout,
-        marker_m=tuple(peak.location_m),
-        plane_label="mid-plane (0 V)" if mirror else "target (grounded)",
-        mirror=mirror,
-        width=max(24, min(64, console.width - 12)),
-    )
-    console.print(Text("Cross-section (r, z), axis of revolution on the left", style="bold"))
-    for line in picture.lines:
-        console.print(line, no_wrap=True, overflow="crop")
-    console.print(picture.legend)
+    if evaluation.solution.point_dim == 2:  # a 3-D layout has no (r, z) cross-section
+        picture = section_picture(
+            evaluation.solution.layout,
+            marker_m=tuple(peak.location_m),
+            plane_label="mid-plane (0 V)" if mirror else "target (grounded)",
+            mirror=mirror,
+            width=max(24, min(64, console.width - 12)),
+        )
+        console.print(Text("Cross-section (r, z), axis of revolution on the left", style="bold"))
+        for line in picture.lines:
+            console.print(line, no_wrap=True, overflow="crop")
+        console.print(picture.legend)
     profile = _profile_lines(family, evaluation)
     if profile:
         console.print()

@@ -105,7 +105,15 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
             raise ConfigError(f"title: expected a string, got {title!r}")
         geometry = as_table(require(table, "geometry", ""), "geometry")
         family = _family(geometry, path)
-        params = read_dataclass(family.Params, geometry, "geometry", skip=("family",))
+        from_table = getattr(family, "params_from_table", None)
+        if from_table is None:
+            params = read_dataclass(family.Params, geometry, "geometry", skip=("family",))
+        else:
+            # A family with structured parameters (tables of conductors) reads them itself.
+            try:
+                params = from_table(geometry, "geometry", Path(path).parent)
+            except ElectrodeError as exc:
+                raise ConfigError(str(exc)) from None
         options_cls = getattr(family, "Options", None)
         evaluation = as_table(table.get("evaluation", {}), "evaluation")
         if options_cls is None:

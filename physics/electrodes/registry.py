@@ -4,11 +4,15 @@ from __future__ import annotations
 
 from physics.electrodes.base import ElectrodeFamily
 from physics.electrodes.guarded_disk import GuardedDisk
+from physics.electrodes.guarded_pad import GuardedPad
+from physics.electrodes.mesh_file import MeshFile
 from physics.electrodes.uniform_field import UniformField
 from physics.errors import ElectrodeError
 
 FAMILIES: dict[str, ElectrodeFamily] = {
     GuardedDisk.name: GuardedDisk(),
+    GuardedPad.name: GuardedPad(),
+    MeshFile.name: MeshFile(),
     UniformField.name: UniformField(),
 }
 

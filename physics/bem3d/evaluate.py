@@ -1,0 +1,86 @@
+"""Potential integrals and their gradients of panel densities at arbitrary points.
+
+sum_j density_j * (1/4 pi) integral_j dA'/|x - x'| (minus the image panels' share when a
+ground plane is present) and its gradient, for K densities at once. Small problems are summed
+directly, every pair with the distance-chosen rule of :mod:`.panel_integrals`; large ones
+through hierarchical matrices of the same entries (:mod:`.hmatrix`). Points closer to a panel
+than a few panel sizes always get the closed form, so points just off a surface (one-sided
+limits) are exact for the discrete density.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from physics.bem3d import panel_integrals as pint
+from physics.bem3d.hmatrix import HMatrix
+from physics.bem3d.operators import FOUR_PI
+from physics.bem3d.panels import PanelSet
+
+#: Above this many target-panel pairs the hierarchical matrices are used.
+DIRECT_PAIRS = 30_000_000
+#: Targets per block of the direct path (bounds the memory of one call).
+_BLOCK = 4096
+#: Relative tolerance of the compressed blocks used for evaluation.
+EVAL_TOL = 1e-6
+
+
+def potential_and_gradient(
+    panels: PanelSet, density: np.ndarray, points_m: np.ndarray, *, gradient_only: bool = False
+) -> tuple[np.ndarray | None, np.ndarray]:
+    """Potential integrals (M, K) and gradients (M, 3, K) of ``density`` (N, K) at points.
+
+    With ``gradient_only`` the potential is not computed (None).
+    """
+    pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
+    dens = _columns(density)
+    m, k = len(pts), dens.shape[1]
+    if m == 0:
+        return np.zeros((0, k)), np.zeros((0, 3, k))
+    if m * panels.n <= DIRECT_PAIRS:
+        return _direct(panels, dens, pts)
+    grad = np.stack(
+        [directional_derivative(panels, dens, pts, np.tile(e, (m, 1))) for e in np.eye(3)], axis=1
+    )
+    if gradient_only:
+        return None, grad
+    h = HMatrix(panels, tol=EVAL_TOL, targets=pts)
+    pot = np.stack([h.matvec(dens[:, c]) for c in range(k)], axis=1)
+    return pot, grad
+
+
+def directional_derivative(
+    panels: PanelSet, density: np.ndarray, points_m: np.ndarray, directions: np.ndarray
+) -> np.ndarray:
+    """d . grad of the potential integrals (M, K) at points (M, 3) along directions (M, 3)."""
+    pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
+    dirs = np.ascontiguousarray(directions, dtype=float)
+    dens = _columns(density)
+    if len(pts) * panels.n <= DIRECT_PAIRS:
+        _, grad = _direct(panels, dens, pts)
+        return np.einsum("mck,mc->mk", grad, dirs)
+    h = HMatrix(panels, tol=EVAL_TOL, targets=pts, directions=dirs)
+    return np.stack([h.matvec(dens[:, c]) for c in range(dens.shape[1])], axis=1)
+
+
+def _columns(density: np.ndarray) -> np.ndarray:
+    dens = np.ascontiguousarray(np.asarray(density, dtype=float))
+    return dens[:, None] if dens.ndim == 1 else dens
+
+
+def _direct(panels: PanelSet, dens: np.ndarray, pts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    corners, centroids, areas, diams = panels.kernel_arrays
+    out = np.empty((len(pts), 4, dens.shape[1]))
+    for s in range(0, len(pts), _BLOCK):
+        out[s : s + _BLOCK] = pint.direct_sums(
+            pts[s : s + _BLOCK],
+            corners,
+            centroids,
+            areas,
+            diams,
+            dens,
+            panels.ground_plane,
+            *pint.rules(),
+        )
+    out /= FOUR_PI
+    return out[:, 0, :], out[:, 1:, :]

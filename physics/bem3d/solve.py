@@ -1,0 +1,286 @@
+"""3-D boundary-element solve for the surface charge of conductors of any shape.
+
+For every collocation point x on conductor k the single-layer (first-kind) equation
+
+    (1/eps) sum_j integral_j G(x, x') sigma(x') dA' = V_k + E0 z,   G = 1/(4 pi |x - x'|)
+
+holds (minus the image panels' share over a grounded plane z = 0), with one constant density
+per flat triangle. Columns of the Maxwell capacitance matrix come from unit potentials on each
+conductor in turn; the applied field adds one more column; floating conductors are then
+solved on that small matrix. Levels start, ..., are solved in turn (each halving the panel
+size) until two successive capacitance matrices agree to the requested accuracy.
+
+Small levels are solved by dense LU; large ones by GMRES on the hierarchical matrix, started
+from the previous level's densities and preconditioned by an incomplete LU of the near field. The
+memory a level needs is estimated before anything is allocated, and refused with the
+numbers when it exceeds what the machine has.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from typing import Literal
+
+import numpy as np
+import scipy.linalg
+from scipy.spatial import cKDTree
+
+from physics.bem3d.near_pairs import near_pairs
+from physics.bem3d.operators import PRECONDITIONER_FACTOR, FastOperator, SolveStats, dense_matrix
+from physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
+from physics.bem3d.solution3d import LevelResult3D, PanelSolution
+from physics.errors import SolverError
+from physics.layout import Layout
+
+#: Largest level solved by dense LU under method="auto".
+DENSE_MAX_PANELS = 4_000
+#: Largest level the solver attempts at all (unless asked for more).
+MAX_PANELS = 1_200_000
+#: A final error estimate above this multiple of the requested accuracy is refused.
+FAR_TOO_COARSE = 10.0
+
+Method = Literal["auto", "dense", "fast"]
+
+
+def available_memory_bytes() -> int:
+    """Memory the OS can give now (MemAvailable), or 4 GiB when it cannot say."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 4 * 1024**3
+
+
+def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
+    """Peak bytes a level will need: the dense N^2 matrix, or the compressed one.
+
+    The compressed matrix is estimated per panel as 5 kB of dense near blocks plus 0.5 kB per
+    tree level of low-rank factors (measured on spheres and boxes from 5e3 to 2e5 panels), and
+    the preconditioner from the near pairs of a sample (entries and their incomplete LU).
+    """
+    n = panels.n
+    base = 600 * n + 16 * n * n_columns
+    if method == "dense":
+        return base + 8 * n * n
+    _, centroids, _, diams = panels.kernel_arrays
+    rng = np.random.default_rng(0)
+    sample = rng.choice(n, size=min(n, 2000), replace=False)
+    images = 2 if panels.ground_plane else 1
+    ti, _ = near_pairs(centroids, centroids[sample], PRECONDITIONER_FACTOR * diams[sample])
+    pre = images * len(ti) * n / len(sample)
+    levels = max(1.0, math.log2(max(n, 64) / 32.0))
+    return int(base + n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
+
+
+def _refuse_if_too_large(panels: PanelSet, method: str, n_columns: int, limit: int) -> None:
+    need = estimate_memory_bytes(panels, method, n_columns)
+    if need > limit:
+        raise SolverError(
+            f"level {panels.level} has {panels.n} panels and would need about {need / 1e9:.2f} GB "
+            f"({method} solve) but only {limit / 1e9:.2f} GB may be used; ask for a coarser "
+            "mesh, fewer levels (max_level) or fewer panels (max_panels)"
+        )
+
+
+def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
+    """(N, n + 1): unit potential on each conductor, then the applied field's E0 z."""
+    n = len(layout.conductors)
+    rhs = np.zeros((panels.n, n + 1))
+    rhs[np.arange(panels.n), panels.owner] = 1.0
+    rhs[:, n] = layout.applied_field_V_per_m * panels.mesh.centroids_m[:, 2]
+    return rhs
+
+
+def _prolongation(coarse: PanelSet, fine: PanelSet) -> np.ndarray:
+    """Index (N_fine,) of the coarse panel of the same conductor nearest each fine centroid."""
+    out = np.empty(fine.n, dtype=np.int64)
+    for k in range(int(fine.owner.max()) + 1):
+        cs = np.nonzero(coarse.owner == k)[0]
+        fs = np.nonzero(fine.owner == k)[0]
+        _, near = cKDTree(coarse.mesh.centroids_m[cs]).query(fine.mesh.centroids_m[fs])
+        out[fs] = cs[near]
+    return out
+
+
+def solve_level(
+    layout: Layout,
+    panels: PanelSet,
+    *,
+    method: str,
+    gmres_rtol: float,
+    aca_tol: float,
+    previous: LevelResult3D | None = None,
+) -> LevelResult3D:
+    """Solve every excitation column on one level (dense LU or preconditioned GMRES)."""
+    eps = layout.eps_F_per_m
+    rhs = _rhs(layout, panels)
+    stats = SolveStats(method=method, n_panels=panels.n)
+    t0 = time.perf_counter()
+    if method == "dense":
+        a = dense_matrix(panels)
+        if not np.all(np.isfinite(a)):
+            raise SolverError("collocation matrix has non-finite entries; check the mesh")
+        stats.setup_s = time.perf_counter() - t0
+        t1 = time.perf_counter()
+        lu = scipy.linalg.lu_factor(a, overwrite_a=True, check_finite=False)
+        x = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
+        stats.solve_s = time.perf_counter() - t1
+    else:
+        op = FastOperator(panels, tol=aca_tol)
+        stats.setup_s = op.setup_s
+        stats.stored_bytes = op.stored_bytes
+        x0 = None
+        if previous is not None:
+            p = _prolongation(previous.panels, panels)
+            prev = (
+                np.concatenate([previous.sigma_unit, previous.sigma_applied[:, None]], axis=1) / eps
+            )
+            x0 = prev[p]
+        t1 = time.perf_counter()
+        x = op.solve(rhs, gmres_rtol, stats, x0=x0)
+        stats.solve_s = time.perf_counter() - t1
+    sigma = eps * x
+    n = len(layout.conductors)
+    charges = np.zeros((n, n + 1))
+    np.add.at(charges, panels.owner, sigma * panels.mesh.areas_m2[:, None])
+    cap = 0.5 * (charges[:, :n] + charges[:, :n].T)
+    return LevelResult3D(
+        panels=panels,
+        sigma_unit=sigma[:, :n],
+        sigma_applied=sigma[:, n],
+        capacitance_F=cap,
+        applied_charges_C=charges[:, n],
+        stats=stats,
+    )
+
+
+def relative_change(c_new: np.ndarray, c_old: np.ndarray) -> float:
+    """Largest |change| of a capacitance matrix, entry (i, j) scaled by sqrt(C_ii C_jj)."""
+    d = np.sqrt(np.abs(np.outer(np.diag(c_new), np.diag(c_new))))
+    return float(np.max(np.abs(c_new - c_old) / d))
+
+
+def richardson(caps: list[np.ndarray], smooth: bool) -> tuple[np.ndarray | None, float | None]:
+    """Extrapolated capacitance matrix and the order p in h it assumed (h halves per level).
+
+    Three levels or more: p observed from the last three (accepted in [0.5, 4.5]); two levels
+    of smooth surfaces (no sharp edge or rim): p = 2, the order of flat constant panels with
+    centroid collocation on smooth closed surfaces (measured by this project's sphere and
+    ellipsoid tests). Otherwise (None, None).
+    """
+    p = None
+    if len(caps) >= 3:
+        d1 = np.max(np.abs(caps[-2] - caps[-3]))
+        d2 = np.max(np.abs(caps[-1] - caps[-2]))
+        if d2 > 0 and d1 > d2:
+            p_obs = math.log2(d1 / d2)
+            if 0.5 <= p_obs <= 4.5:
+                p = p_obs
+    elif len(caps) == 2 and smooth:
+        p = 2.0
+    if p is None:
+        return None, None
+    extrapolated = caps[-1] + (caps[-1] - caps[-2]) / (2.0**p - 1.0)
+    return extrapolated, p
+
+
+def solve_3d(
+    layout: Layout,
+    *,
+    rel_accuracy: float = 1e-3,
+    start_level: int = 0,
+    max_level: int = 4,
+    min_levels: int = 2,
+    method: Method = "auto",
+    max_panels: int = MAX_PANELS,
+    memory_limit_bytes: int | None = None,
+    aca_tol: float | None = None,
+    check: bool = True,
+    strict: bool = True,
+) -> PanelSolution:
+    """Solve a layout of 3-D surfaces (every shape a :class:`physics.bem3d.surfaces.Surface`).
+
+    Levels ``start_level`` .. ``max_level`` are solved until the capacitance matrices of two
+    successive levels agree to ``rel_accuracy`` (after at least ``min_levels`` levels), or
+    the next level would exceed ``max_panels``. The finest level is returned. ``method``
+    "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
+    With ``strict``, a final estimate more than :data:`FAR_TOO_COARSE` times the request is
+    a SolverError (the mesh is far too coarse); below that, ``accuracy_met`` says whether the
+    request was met. ``memory_limit_bytes`` defaults to 80 % of the available memory;
+    ``aca_tol`` (compression tolerance of the hierarchical matrix) to 0.3 rel_accuracy.
+    """
+    if not (0.0 < rel_accuracy < 1.0):
+        raise SolverError(f"rel_accuracy must lie in (0, 1), got {rel_accuracy}")
+    if not (0 <= start_level <= max_level):
+        raise SolverError(
+            f"levels must satisfy 0 <= start_level <= max_level, got start_level={start_level}, "
+            f"max_level={max_level}"
+        )
+    if min_levels < 1:
+        raise SolverError(f"min_levels must be >= 1, got {min_levels}")
+    if method not in ("auto", "dense", "fast"):
+        raise SolverError(f"method must be one of auto, dense, fast; got {method!r}")
+    conductor_surfaces(layout)
+    limit = (
+        int(0.8 * available_memory_bytes())
+        if memory_limit_bytes is None
+        else int(memory_limit_bytes)
+    )
+    # Measured on the unit cube: C moves by 0.03-0.06 times the compression tolerance.
+    aca_tol = min(1e-3, 0.3 * rel_accuracy) if aca_tol is None else float(aca_tol)
+    gmres_rtol = min(1e-4, 0.05 * rel_accuracy)
+    history: list[LevelResult3D] = []
+    error = float("inf")
+    n_columns = len(layout.conductors) + 1
+    for level in range(start_level, max_level + 1):
+        if history and 4 * history[-1].panels.n > max_panels:
+            break
+        panels = discretise(layout, level, check=check)
+        if panels.n > max_panels:
+            if not history:
+                raise SolverError(
+                    f"level {level} already has {panels.n} panels, more than max_panels = "
+                    f"{max_panels}; start from a coarser mesh"
+                )
+            break
+        chosen = method
+        if method == "auto":
+            chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
+        _refuse_if_too_large(panels, chosen, n_columns, limit)
+        history.append(
+            solve_level(
+                layout,
+                panels,
+                method=chosen,
+                gmres_rtol=gmres_rtol,
+                aca_tol=aca_tol,
+                previous=history[-1] if history else None,
+            )
+        )
+        if len(history) >= 2:
+            error = relative_change(history[-1].capacitance_F, history[-2].capacitance_F)
+            if error <= rel_accuracy and len(history) >= min_levels:
+                break
+        elif min_levels <= 1 and max_level == start_level:
+            break
+    smooth = history[-1].panels.all_smooth
+    extrapolated, rate = richardson([h.capacitance_F for h in history], smooth)
+    if strict and len(history) >= 2 and error > FAR_TOO_COARSE * rel_accuracy:
+        fine = history[-1].panels
+        raise SolverError(
+            f"the mesh is far too coarse for rel_accuracy = {rel_accuracy:g}: after level "
+            f"{fine.level} ({fine.n} panels) the capacitance still changes by {error:.2g}; give a "
+            "finer mesh, allow more levels (max_level) or panels (max_panels), or ask for less"
+        )
+    return PanelSolution(
+        layout=layout,
+        levels=tuple(history),
+        rel_error_estimate=error,
+        requested_accuracy=rel_accuracy,
+        capacitance_extrapolated_F=extrapolated,
+        convergence_rate=rate,
+    )

@@ -1,0 +1,278 @@
+"""Guarded rectangular pad: a sensor pad inside a rectangular guard frame over a grounded target.
+
+Geometry (parameters in mm, SI inside; the target is the plane z = 0, possibly tilted):
+
+- sensor: a pad a x b (``pad_length_mm`` along x, ``pad_width_mm`` along y), ``thickness_mm``
+  thick, its face at the standoff d (z = d), centred on the z axis;
+- guard: a frame around it, inner opening (a + 2g) x (b + 2g) for the gap g, ``guard_width_mm``
+  wide, as thick as the pad, face also at z = d;
+- every convex edge of pad and frame rounded with ``fillet_mm`` (0: sharp); a thickness of 0
+  makes both thin sheets (knife edges: the peak field is then mesh-dependent);
+- ``target_tilt_deg``: the target tilted by that angle about the line along y through
+  x = ``tilt_axis_x_mm`` on it (positive: the target rises on the -x side).
+
+Sensor and guard are both driven at V; C_sense = C_ss + C_sg. The metrics follow the guarded
+disk (:mod:`physics.electrodes.guarded_disk`) where they apply, with the peak field's (x, y, z)
+and the tilt sensitivity dC_sense/dtheta (Hadamard formula on the plane) added; the 3-D panel
+solver (:mod:`physics.bem3d`) does the solve.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+
+from physics.bem3d import solve_3d
+from physics.bem3d.surfaces import (
+    BoxSurface,
+    FrameSheetSurface,
+    FrameSurface,
+    RectangleSheetSurface,
+)
+from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from physics.electrodes.rules import RuleBook
+from physics.electrodes.target_tilt import (
+    FF_PER_MRAD,
+    FF_PER_UM,
+    sense_capacitance_F,
+    tilted_layout,
+)
+from physics.errors import ElectrodeError, GeometryError
+from physics.layout import Layout, driven
+
+MM = 1e-3
+SENSOR = "sensor"
+GUARD = "guard"
+#: Largest target tilt the family accepts (a small-angle model of a misaligned target).
+MAX_TILT_DEG = 10.0
+
+
+@dataclass(frozen=True)
+class GuardedPadParams:
+    """Guarded rectangular pad parameters; lengths in mm, drive in V, tilt in degrees."""
+
+    pad_length_mm: float
+    pad_width_mm: float
+    guard_gap_mm: float
+    guard_width_mm: float
+    thickness_mm: float
+    fillet_mm: float
+    standoff_mm: float
+    drive_V: float
+    target_tilt_deg: float = 0.0
+    tilt_axis_x_mm: float = 0.0
+
+
+@dataclass(frozen=True)
+class GuardedPadOptions:
+    """How the pad is meshed and solved.
+
+    ``mesh_step_mm``: panel size at the coarsest level (0: a quarter of the pad's shorter
+    side, at most the guard width and twice the standoff); ``max_level``: finest refinement
+    level (each level halves the panel size; two levels give the error estimate).
+    """
+
+    mesh_step_mm: float = 0.0
+    max_level: int = 1
+
+
+def mesh_step_m(p: GuardedPadParams, options: GuardedPadOptions) -> float:
+    if options.mesh_step_mm > 0:
+        return options.mesh_step_mm * MM
+    return MM * min(
+        0.25 * min(p.pad_length_mm, p.pad_width_mm), p.guard_width_mm, 2.0 * p.standoff_mm
+    )
+
+
+def outer_size_mm(p: GuardedPadParams) -> tuple[float, float]:
+    """Outer length (x) and width (y) of the guard frame in mm."""
+    return (
+        p.pad_length_mm + 2 * (p.guard_gap_mm + p.guard_width_mm),
+        p.pad_width_mm + 2 * (p.guard_gap_mm + p.guard_width_mm),
+    )
+
+
+def level_layout(p: GuardedPadParams, h_m: float, *, eps_r: float = 1.0) -> Layout:
+    """The untilted layout: pad and frame above the plane (SI)."""
+    a, b = p.pad_length_mm * MM, p.pad_width_mm * MM
+    g, w, t = p.guard_gap_mm * MM, p.guard_width_mm * MM, p.thickness_mm * MM
+    f, d = p.fillet_mm * MM, p.standoff_mm * MM
+    hole = (a + 2 * g, b + 2 * g)
+    outer = (hole[0] + 2 * w, hole[1] + 2 * w)
+    if t > 0:
+        pad = BoxSurface((a, b, t), h_m, center_m=(0.0, 0.0, d + 0.5 * t), fillet_m=f)
+        guard = FrameSurface(outer, hole, d, t, h_m, fillet_m=f)
+    else:
+        pad = RectangleSheetSurface((a, b), d, h_m)
+        guard = FrameSheetSurface(outer, hole, d, h_m)
+    v = float(p.drive_V)
+    return Layout((driven(SENSOR, pad, v), driven(GUARD, guard, v)), eps_r=eps_r, ground_plane=True)
+
+
+def spot_radius_m(
+    xy: np.ndarray, weights: np.ndarray, density: np.ndarray, fraction: float
+) -> float:
+    """Radius (m) of the disk about the origin holding ``fraction`` of sum(weights * density)."""
+    r = np.hypot(xy[:, 0], xy[:, 1])
+    order = np.argsort(r)
+    cum = np.cumsum((weights * density)[order])
+    total = cum[-1]
+    if not total > 0:
+        return float("nan")
+    k = int(np.searchsorted(cum, fraction * total))
+    return float(r[order][min(k, len(r) - 1)])
+
+
+class GuardedPad(ElectrodeFamily):
+    """Guarded rectangular pad over a grounded, possibly tilted target (module docstring)."""
+
+    name: ClassVar[str] = "guarded_pad"
+    Params: ClassVar[type] = GuardedPadParams
+    Options: ClassVar[type] = GuardedPadOptions
+    metrics: ClassVar[tuple[MetricSpec, ...]] = (
+        MetricSpec("sense_capacitance_fF", "fF", "Q_sensor / V (driven guard)", "maximize"),
+        MetricSpec("total_capacitance_fF", "fF", "(Q_sensor + Q_guard) / V", "either"),
+        MetricSpec("sensor_guard_coupling_fF", "fF", "sensor-guard mutual capacitance", "minimize"),
+        MetricSpec(
+            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
+        ),
+        MetricSpec("peak_field_x_mm", "mm", "x of the peak field", "either"),
+        MetricSpec("peak_field_y_mm", "mm", "y of the peak field", "either"),
+        MetricSpec("peak_field_z_mm", "mm", "height of the peak field", "either"),
+        MetricSpec("sensitivity_fF_per_um", "fF/um", "-dC_sense / d(standoff)", "maximize"),
+        MetricSpec(
+            "tilt_sensitivity_fF_per_mrad", "fF/mrad", "dC_sense / d(target tilt)", "either"
+        ),
+        MetricSpec("spot_radius_90_mm", "mm", "target disk with 90% of it", "minimize"),
+        MetricSpec("effective_radius_mm", "mm", "plate radius giving C_sense", "either"),
+        MetricSpec("effective_area_mm2", "mm^2", "plate area giving C_sense", "either"),
+        MetricSpec("outer_size_mm", "mm", "longer outer side of the guard", "minimize"),
+    )
+
+    def validate(self, params: GuardedPadParams) -> None:
+        rules = RuleBook(self.name, params)
+        if rules.finite():
+            p = params
+            rules.positive(
+                "pad_length_mm", "pad_width_mm", "guard_gap_mm", "guard_width_mm", "standoff_mm"
+            )
+            rules.non_negative("thickness_mm", "fillet_mm")
+            rules.nonzero("drive_V")
+            why = "fillets on one face must not overlap"
+            rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)
+            rules.at_most("fillet_mm", p.guard_width_mm / 2, "guard_width_mm / 2", why)
+            rules.at_most(
+                "fillet_mm",
+                min(p.pad_length_mm, p.pad_width_mm) / 2,
+                "min(pad_length_mm, pad_width_mm) / 2",
+                why,
+            )
+            if abs(p.target_tilt_deg) > MAX_TILT_DEG:
+                rules.broken.append(
+                    f"target_tilt_deg = {p.target_tilt_deg:.6g} must lie in [-{MAX_TILT_DEG:g}, "
+                    f"{MAX_TILT_DEG:g}] (a small misalignment of the target)"
+                )
+            else:
+                # The lowest face corner over the tilted target must stay above it.
+                ox, _ = outer_size_mm(p)
+                reach = max(abs(0.5 * ox - p.tilt_axis_x_mm), abs(-0.5 * ox - p.tilt_axis_x_mm))
+                drop = reach * math.sin(math.radians(abs(p.target_tilt_deg)))
+                if drop >= p.standoff_mm:
+                    rules.broken.append(
+                        f"target_tilt_deg = {p.target_tilt_deg:.6g} with tilt_axis_x_mm = "
+                        f"{p.tilt_axis_x_mm:.6g} brings the target up to the guard's edge (it rises "
+                        f"{drop:.6g} mm at the far edge, standoff_mm = {p.standoff_mm:.6g}); reduce "
+                        "the tilt or move the axis"
+                    )
+        rules.raise_if_broken()
+
+    def validate_options(self, options: GuardedPadOptions) -> None:
+        rules = RuleBook(self.name, options)
+        if rules.finite():
+            if options.mesh_step_mm < 0:
+                rules.broken.append(
+                    f"mesh_step_mm = {options.mesh_step_mm:.6g} must be >= 0 (0: automatic)"
+                )
+            lvl = options.max_level
+            if isinstance(lvl, float) or not 1 <= lvl <= 4:
+                rules.broken.append(f"max_level = {lvl!r} must be a whole number in [1, 4]")
+        rules.raise_if_broken()
+
+    def build(
+        self,
+        params: GuardedPadParams,
+        *,
+        eps_r: float = 1.0,
+        options: GuardedPadOptions | None = None,
+    ) -> Layout:
+        """The 3-D layout as solved: pad and frame turned so that the target is z = 0."""
+        self.validate(params)
+        options = options or GuardedPadOptions()
+        base = level_layout(params, mesh_step_m(params, options), eps_r=eps_r)
+        return tilted_layout(base, math.radians(params.target_tilt_deg), params.tilt_axis_x_mm * MM)
+
+    def evaluate(
+        self,
+        params: GuardedPadParams,
+        *,
+        rel_accuracy: float = 1e-4,
+        eps_r: float = 1.0,
+        options: GuardedPadOptions | None = None,
+    ) -> Evaluation:
+        options = options or GuardedPadOptions()
+        self.validate_options(options)
+        layout = self.build(params, eps_r=eps_r, options=options)
+        try:
+            sol = solve_3d(
+                layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False
+            )
+        except GeometryError as exc:
+            raise ElectrodeError(f"{self.name}: {exc}") from None
+        eps = layout.eps_F_per_m
+        c = sol.capacitance_matrix_F
+        c_sense = sense_capacitance_F(c)
+        d_plane = sol.plane_capacitance_derivative_F_per_m()
+        axis_x = params.tilt_axis_x_mm * MM
+        d_tilt = sol.plane_tilt_derivative_F_per_rad(axis_point_m=(axis_x, 0.0))
+        xy, w = sol.plane_quadrature()
+        unit = sol.plane_unit_charge_densities()
+        density = unit[:, 0] * (unit[:, 0] + unit[:, 1]) / eps
+        peak = sol.peak_field
+        d = params.standoff_mm * MM
+        area = c_sense * d / eps
+        metrics = {
+            "sense_capacitance_fF": c_sense * 1e15,
+            "total_capacitance_fF": float(c.sum()) * 1e15,
+            "sensor_guard_coupling_fF": -float(c[0, 1]) * 1e15,
+            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
+            "peak_field_x_mm": peak.location_m[0] / MM,
+            "peak_field_y_mm": peak.location_m[1] / MM,
+            "peak_field_z_mm": peak.location_m[2] / MM,
+            "sensitivity_fF_per_um": sense_capacitance_F(d_plane) * FF_PER_UM,
+            "tilt_sensitivity_fF_per_mrad": sense_capacitance_F(d_tilt) * FF_PER_MRAD,
+            "spot_radius_90_mm": spot_radius_m(xy, w, density, 0.9) / MM,
+            "effective_radius_mm": math.sqrt(area / math.pi) / MM,
+            "effective_area_mm2": area / MM**2,
+            "outer_size_mm": max(outer_size_mm(params)),
+        }
+        extra: dict[str, Any] = {
+            "layout": layout,
+            "sense_capacitance_F": c_sense,
+            "sense_capacitance_meaning": "Q_sensor / V with the guard driven at V",
+            "peak_conductor": peak.conductor,
+            "peak_singular": bool(peak.singular),
+            "target_xy_m": xy,
+            "target_weights_m2": w,
+            "sensitivity_density_xy_F_per_m3": density,
+        }
+        if sol.capacitance_matrix_extrapolated_F is not None:
+            extra["sense_capacitance_extrapolated_F"] = sense_capacitance_F(
+                sol.capacitance_matrix_extrapolated_F
+            )
+        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+
+
+__all__ = ["GuardedPad", "GuardedPadOptions", "GuardedPadParams", "level_layout", "spot_radius_m"]

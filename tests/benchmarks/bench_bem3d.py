@@ -1,0 +1,152 @@
+"""Benchmark of the 3-D panel solver: time and peak memory versus panel count, and error
+versus time on the unit cube.
+
+    python tests/benchmarks/bench_bem3d.py            # full table (N up to 2e5)
+    python tests/benchmarks/bench_bem3d.py --quick    # N up to 2e4
+
+Part 1 solves one level of the unit cube (graded toward its edges) with the compressed
+operator for N from about 1e3 to 2e5 panels, each in a fresh process so that its peak
+resident memory is its own, and fits time ~ N^p. Targets on a 2-core machine: p <= 1.3,
+2e5 panels in <= 3 min within <= 6 GB. Part 2 refines the cube level by level and compares
+the raw and the Richardson-extrapolated capacitance with the published 0.6606782 (Hwang &
+Mascagni, J. Appl. Phys. 95, 3798 (2004)).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import subprocess
+import sys
+import time
+
+import numpy as np
+
+CUBE = 0.6606782
+SIZES = (9, 18, 37, 73, 129)  # faces split n x n (graded): N = 12 n^2 panels
+
+_CHILD = r"""
+import json, resource, sys, time, warnings
+warnings.filterwarnings("ignore")
+import numpy as np
+from physics.bem3d import BoxSurface
+from physics.bem3d.panels import discretise
+from physics.bem3d.solve import solve_level
+from physics.layout import EPS0_F_PER_M, Layout, driven
+n, method = int(sys.argv[1]), sys.argv[2]
+layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 2.0 / n, grade=2.0), 1.0),))
+t0 = time.perf_counter()
+panels = discretise(layout, 0)
+t1 = time.perf_counter()
+# The tolerances solve_3d picks for rel_accuracy = 1e-4.
+res = solve_level(layout, panels, method=method, gmres_rtol=5e-6, aca_tol=3e-5)
+t2 = time.perf_counter()
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(json.dumps({
+    "n": panels.n, "mesh_s": t1 - t0, "setup_s": res.stats.setup_s, "solve_s": res.stats.solve_s,
+    "total_s": t2 - t0, "iterations": res.stats.iterations, "stored_bytes": res.stats.stored_bytes,
+    "peak_bytes": peak, "c": res.capacitance_F[0, 0] / (4 * np.pi * EPS0_F_PER_M),
+}))
+"""
+
+_WARM = r"""
+import warnings
+warnings.filterwarnings("ignore")
+from physics.bem3d import BoxSurface
+from physics.bem3d.panels import discretise
+from physics.bem3d.solve import solve_level
+from physics.layout import Layout, driven
+layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 0.25), 1.0),))
+for method in ("dense", "fast"):
+    solve_level(layout, discretise(layout, 0), method=method, gmres_rtol=1e-5, aca_tol=1e-5)
+"""
+
+
+def _child(n: int, method: str) -> dict:
+    out = subprocess.run(
+        [sys.executable, "-c", _CHILD, str(n), method], capture_output=True, text=True, check=True
+    )
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def scaling(sizes: tuple[int, ...]) -> list[dict]:
+    subprocess.run([sys.executable, "-c", _WARM], check=True)  # compile the kernels once
+    rows = [_child(n, "fast") for n in sizes]
+    print("\nPart 1: one level of the graded unit cube, compressed operator + GMRES")
+    print(
+        f"{'panels':>8} {'mesh s':>7} {'setup s':>8} {'solve s':>8} {'total s':>8} {'its':>4} "
+        f"{'stored MB':>10} {'peak MB':>8} {'C/(4 pi eps0)':>14}"
+    )
+    for r in rows:
+        print(
+            f"{r['n']:>8} {r['mesh_s']:>7.2f} {r['setup_s']:>8.2f} {r['solve_s']:>8.2f} "
+            f"{r['total_s']:>8.2f} {r['iterations'][0]:>4} {r['stored_bytes'] / 1e6:>10.0f} "
+            f"{r['peak_bytes'] / 1e6:>8.0f} {r['c']:>14.7f}"
+        )
+    n = np.array([r["n"] for r in rows], float)
+    t = np.array([r["total_s"] for r in rows])
+    m = np.array([r["peak_bytes"] for r in rows], float)
+    big = n >= 1e4
+    p_t = np.polyfit(np.log(n[big]), np.log(t[big]), 1)[0] if big.sum() >= 2 else float("nan")
+    p_m = np.polyfit(np.log(n[big]), np.log(m[big]), 1)[0] if big.sum() >= 2 else float("nan")
+    print(
+        f"fitted exponents over N >= 1e4: time ~ N^{p_t:.2f}, peak memory ~ N^{p_m:.2f} "
+        "(target: time exponent <= 1.3)"
+    )
+    last = rows[-1]
+    print(
+        f"largest: {last['n']} panels in {last['total_s']:.0f} s, peak {last['peak_bytes'] / 1e9:.2f} GB "
+        "(target for 2e5: <= 180 s, <= 6 GB)"
+    )
+    return rows
+
+
+def cube_error_vs_time(max_level: int) -> None:
+    import warnings
+
+    warnings.filterwarnings("ignore")
+    from physics.bem3d import BoxSurface, solve_3d
+    from physics.layout import EPS0_F_PER_M, Layout, driven
+
+    print("\nPart 2: unit cube, levels from h = 0.5 (graded), error against 0.6606782")
+    print(
+        f"{'level':>5} {'panels':>8} {'cumul. s':>9} {'C/(4 pi eps0)':>14} {'error':>10} "
+        f"{'Richardson':>12} {'error':>10} {'rate':>6}"
+    )
+    layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 0.5, grade=2.0), 1.0),))
+    t0 = time.perf_counter()
+    caps: list[float] = []
+    for level in range(max_level + 1):
+        sol = solve_3d(
+            layout,
+            rel_accuracy=1e-9,
+            start_level=level,
+            max_level=level,
+            min_levels=1,
+            strict=False,
+        )
+        caps.append(sol.capacitance_matrix_F[0, 0] / (4 * math.pi * EPS0_F_PER_M))
+        elapsed = time.perf_counter() - t0
+        rich, rate = "", ""
+        if len(caps) >= 3:
+            p = math.log2((caps[-2] - caps[-3]) / (caps[-1] - caps[-2]))
+            r = caps[-1] + (caps[-1] - caps[-2]) / (2**p - 1)
+            rich, rate = f"{r:>12.7f} {r - CUBE:>10.1e}", f"{p:>6.2f}"
+        print(
+            f"{level:>5} {sol.n_unknowns:>8} {elapsed:>9.1f} {caps[-1]:>14.7f} {caps[-1] - CUBE:>10.1e} "
+            f"{rich:>23} {rate}"
+        )
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="sizes up to about 2e4 panels only")
+    args = ap.parse_args()
+    sizes = SIZES[:3] if args.quick else SIZES
+    scaling(sizes)
+    cube_error_vs_time(3 if args.quick else 4)
+
+
+if __name__ == "__main__":
+    main()
