@@ -20,6 +20,27 @@ import numpy as np
 from physics.layout import Layout
 
 
+def excitation_potentials(
+    layout: Layout, capacitance_F: np.ndarray, applied_charges_C: np.ndarray
+) -> np.ndarray:
+    """Conductor potentials (n,) V at the layout's excitation.
+
+    Driven conductors keep their potential; floating ones take the potentials at which
+    C V + Q_applied gives their set charges.
+    """
+    n = len(layout.conductors)
+    volts = np.zeros(n)
+    fl = np.array([c.floating for c in layout.conductors])
+    for i, c in enumerate(layout.conductors):
+        if not c.floating:
+            volts[i] = c.potential_V
+    if fl.any():
+        q = np.array([c.charge_C for c in layout.conductors if c.floating])
+        rhs = q - applied_charges_C[fl] - capacitance_F[np.ix_(fl, ~fl)] @ volts[~fl]
+        volts[fl] = np.linalg.solve(capacitance_F[np.ix_(fl, fl)], rhs)
+    return volts
+
+
 @dataclass(frozen=True)
 class PeakField:
     """Largest surface field magnitude |sigma|/eps on one conductor at the actual excitation.

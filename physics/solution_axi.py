@@ -18,7 +18,7 @@ from physics.layout import Layout
 from physics.mesh_axi import AxiMesh, panel_geometry
 from physics.operators_axi import field_matrix, potential_matrix
 from physics.quadrature import gauss_legendre, lagrange_matrix
-from physics.solution import ChargeSolution, PeakField
+from physics.solution import ChargeSolution, PeakField, excitation_potentials
 
 #: Evaluation points per block when building target-by-source matrices.
 _CHUNK = 2048
@@ -37,17 +37,7 @@ class LevelResult:
 
     def excitation(self, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
         """Conductor potentials (n,) V and node densities (N,) at the layout's excitation."""
-        cap = self.capacitance_F
-        n = len(layout.conductors)
-        volts = np.zeros(n)
-        fl = np.array([c.floating for c in layout.conductors])
-        for i, c in enumerate(layout.conductors):
-            if not c.floating:
-                volts[i] = c.potential_V
-        if fl.any():
-            q = np.array([c.charge_C for c in layout.conductors if c.floating])
-            rhs = q - self.applied_charges_C[fl] - cap[np.ix_(fl, ~fl)] @ volts[~fl]
-            volts[fl] = np.linalg.solve(cap[np.ix_(fl, fl)], rhs)
+        volts = excitation_potentials(layout, self.capacitance_F, self.applied_charges_C)
         return volts, self.sigma_unit @ volts + self.sigma_applied
 
 

@@ -20,7 +20,7 @@ from physics.bem3d.panels import PanelSet
 from physics.bem3d.plane_rule import plane_rule
 from physics.errors import SolverError
 from physics.layout import Layout
-from physics.solution import ChargeSolution, PeakField
+from physics.solution import ChargeSolution, PeakField, excitation_potentials
 
 #: Points for the one-sided field of a sheet face sit this many panel sizes off the panel.
 _FACE_OFFSET = 1e-7
@@ -40,17 +40,7 @@ class LevelResult3D:
 
     def excitation(self, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
         """Conductor potentials (n,) V and panel densities (N,) at the layout's excitation."""
-        cap = self.capacitance_F
-        n = len(layout.conductors)
-        volts = np.zeros(n)
-        fl = np.array([c.floating for c in layout.conductors])
-        for i, c in enumerate(layout.conductors):
-            if not c.floating:
-                volts[i] = c.potential_V
-        if fl.any():
-            q = np.array([c.charge_C for c in layout.conductors if c.floating])
-            rhs = q - self.applied_charges_C[fl] - cap[np.ix_(fl, ~fl)] @ volts[~fl]
-            volts[fl] = np.linalg.solve(cap[np.ix_(fl, fl)], rhs)
+        volts = excitation_potentials(layout, self.capacitance_F, self.applied_charges_C)
         return volts, self.sigma_unit @ volts + self.sigma_applied
 
 
