@@ -185,8 +185,26 @@ def _pick(buf, d0, d1, d2, deriv):
 
 
 @njit(cache=True, inline="always")
-def _entry(i, targets, dirs, deriv, j, corners, centroids, areas, diams, gp, image, r3, w3, r7, w7,
-           buf, tri, cen):
+def _entry(
+    i,
+    targets,
+    dirs,
+    deriv,
+    j,
+    corners,
+    centroids,
+    areas,
+    diams,
+    gp,
+    image,
+    r3,
+    w3,
+    r7,
+    w7,
+    buf,
+    tri,
+    cen,
+):
     """(1/4 pi) times the integral over panel j (minus its image) of 1/r at target i, or of its
     derivative along dirs[i] when ``deriv``.
 
@@ -216,7 +234,9 @@ def _entry(i, targets, dirs, deriv, j, corners, centroids, areas, diams, gp, ima
     if dx * dx + dy * dy + dz * dz >= lim:
         v = _rule3(x0, x1, x2, d0, d1, d2, deriv, gp, j, 1.0, areas[j])
     else:
-        pint.panel_integral(targets[i], corners[j], centroids[j], areas[j], diams[j], r3, w3, r7, w7, buf)
+        pint.panel_integral(
+            targets[i], corners[j], centroids[j], areas[j], diams[j], r3, w3, r7, w7, buf
+        )
         v = _pick(buf, d0, d1, d2, deriv)
     if image:
         dz = x2 + centroids[j, 2]
