@@ -569,19 +569,30 @@ def _truncate_to_commit(h5: h5py.File) -> None:
 # ----------------------------------------------------------------------------- readers
 
 
+#: Opens of a study file tried before giving up (a live read may meet a write in progress).
+_OPEN_RETRIES = 40
+
+
 def check_is_study(path: str | Path) -> None:
     """Raise StudyFileError unless ``path`` is an elopt study file of a known format version."""
     path = Path(path)
     if not path.exists():
         raise StudyFileError(f"{path}: no such file")
-    try:
-        with h5py.File(path, "r", locking=False) as h5:
-            fmt = h5.attrs.get("format")
-            version = h5.attrs.get("format_version")
-    except OSError:
+    if not h5py.is_hdf5(path):
         raise StudyFileError(
             f"{path}: not an HDF5 file, so not an elopt study (studies are written by `elopt run`)"
-        ) from None
+        )
+    # An HDF5 file that will not open may be caught mid-write by a running study: retry.
+    for attempt in range(_OPEN_RETRIES):
+        try:
+            with h5py.File(path, "r", locking=False) as h5:
+                fmt = h5.attrs.get("format")
+                version = h5.attrs.get("format_version")
+            break
+        except OSError as exc:
+            if attempt == _OPEN_RETRIES - 1:
+                raise StudyFileError(f"{path}: HDF5 file cannot be opened ({exc})") from None
+            time.sleep(0.05)
     if fmt != FORMAT_NAME:
         raise StudyFileError(
             f"{path}: HDF5 file without the attribute format = '{FORMAT_NAME}', so not an elopt "
