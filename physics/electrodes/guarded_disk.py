@@ -23,6 +23,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from physics.bem_axi import solve_axisymmetric
+from physics.electrodes import probe_metrics as probe
 from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
 from physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from physics.electrodes.rules import RuleBook
@@ -130,18 +131,16 @@ class GuardedDisk(ElectrodeFamily):
     Params: ClassVar[type] = GuardedDiskParams
     Options: ClassVar[type] = GuardedDiskOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        MetricSpec("sense_capacitance_fF", "fF", "Q_sensor / V (driven guard)", "maximize"),
-        MetricSpec("total_capacitance_fF", "fF", "(Q_sensor + Q_guard) / V", "either"),
-        MetricSpec("sensor_guard_coupling_fF", "fF", "sensor-guard mutual capacitance", "minimize"),
-        MetricSpec(
-            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
-        ),
+        probe.SENSE,
+        probe.TOTAL,
+        probe.COUPLING,
+        probe.PEAK_FIELD,
         MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either"),
-        MetricSpec("peak_field_z_mm", "mm", "height of the peak field", "either"),
-        MetricSpec("sensitivity_fF_per_um", "fF/um", "-dC_sense / d(standoff)", "maximize"),
-        MetricSpec("spot_radius_90_mm", "mm", "target disk with 90% of it", "minimize"),
+        probe.PEAK_Z,
+        probe.SENSITIVITY,
+        probe.SPOT,
         MetricSpec("linearity_error_pct_fs", "%FS", "1/C_sense off its best line", "minimize"),
-        MetricSpec("effective_radius_mm", "mm", "plate radius giving C_sense", "either"),
+        probe.EFFECTIVE_RADIUS,
         MetricSpec("outer_radius_mm", "mm", "outer radius of the guard", "minimize"),
     )
 

@@ -32,6 +32,7 @@ from physics.bem3d.surfaces import (
     FrameSurface,
     RectangleSheetSurface,
 )
+from physics.electrodes import probe_metrics as probe
 from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
 from physics.electrodes.rules import RuleBook
 from physics.electrodes.target_tilt import (
@@ -133,21 +134,19 @@ class GuardedPad(ElectrodeFamily):
     Params: ClassVar[type] = GuardedPadParams
     Options: ClassVar[type] = GuardedPadOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        MetricSpec("sense_capacitance_fF", "fF", "Q_sensor / V (driven guard)", "maximize"),
-        MetricSpec("total_capacitance_fF", "fF", "(Q_sensor + Q_guard) / V", "either"),
-        MetricSpec("sensor_guard_coupling_fF", "fF", "sensor-guard mutual capacitance", "minimize"),
-        MetricSpec(
-            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
-        ),
+        probe.SENSE,
+        probe.TOTAL,
+        probe.COUPLING,
+        probe.PEAK_FIELD,
         MetricSpec("peak_field_x_mm", "mm", "x of the peak field", "either"),
         MetricSpec("peak_field_y_mm", "mm", "y of the peak field", "either"),
-        MetricSpec("peak_field_z_mm", "mm", "height of the peak field", "either"),
-        MetricSpec("sensitivity_fF_per_um", "fF/um", "-dC_sense / d(standoff)", "maximize"),
+        probe.PEAK_Z,
+        probe.SENSITIVITY,
         MetricSpec(
             "tilt_sensitivity_fF_per_mrad", "fF/mrad", "dC_sense / d(target tilt)", "either"
         ),
-        MetricSpec("spot_radius_90_mm", "mm", "target disk with 90% of it", "minimize"),
-        MetricSpec("effective_radius_mm", "mm", "plate radius giving C_sense", "either"),
+        probe.SPOT,
+        probe.EFFECTIVE_RADIUS,
         MetricSpec("effective_area_mm2", "mm^2", "plate area giving C_sense", "either"),
         MetricSpec("outer_size_mm", "mm", "longer outer side of the guard", "minimize"),
     )
