@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from physics.errors import ElOptError
+from elopt.physics.errors import ElOptError
 
 
 class ConfigError(ElOptError, ValueError):

@@ -21,7 +21,7 @@ from typing import Literal
 
 import numpy as np
 
-from physics.errors import GeometryError
+from elopt.physics.errors import GeometryError
 
 #: Relative tolerance (of the curve's size) for "these two points are the same point".
 JOIN_TOLERANCE = 1e-9

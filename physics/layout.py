@@ -6,8 +6,9 @@ with relative permittivity ``eps_r``. Optionally a grounded infinite plane z = 0
 half-space z > 0, and a uniform field ``applied_field_V_per_m`` along +z is applied
 (potential -E0 z).
 
-``shape`` is a :class:`physics.geometry.Curve` for bodies of revolution; the 3-D solver takes
-triangle surfaces there instead.
+````shape`` is a :class:`elopt.physics.geometry.Curve` for bodies of revolution; the 3-D solver takes
+triangle surfaces there instead. Insulators other than the medium are ``layers`` (planar, infinite
+in extent) and ``regions`` (bounded bodies), described in :mod:`elopt.physics.media`.
 """
 
 from __future__ import annotations
@@ -19,8 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from physics.errors import GeometryError
-from physics.geometry import Curve, closed_outline, point_in_region, polyline_distance
+from elopt.physics.errors import GeometryError
+from elopt.physics.geometry import Curve, closed_outline, point_in_region, polyline_distance
+from elopt.physics.media import DielectricRegion, LayerStack, PlanarLayer
 
 EPS0_F_PER_M = 8.8541878128e-12
 """Vacuum permittivity in F/m (CODATA 2018)."""
@@ -58,9 +60,13 @@ class Layout:
     eps_r: float = 1.0
     ground_plane: bool = False
     applied_field_V_per_m: float = 0.0
+    layers: tuple[PlanarLayer, ...] = ()
+    regions: tuple[DielectricRegion, ...] = ()
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "conductors", tuple(self.conductors))
+        object.__setattr__(self, "layers", tuple(self.layers))
+        object.__setattr__(self, "regions", tuple(self.regions))
         if not self.conductors:
             raise GeometryError("layout: needs at least one conductor")
         if not (math.isfinite(self.eps_r) and self.eps_r >= 1.0):
@@ -69,6 +75,7 @@ class Layout:
             raise GeometryError(
                 f"layout: applied_field_V_per_m must be finite, got {self.applied_field_V_per_m}"
             )
+        _ = self.layer_stack  # validates the layers against each other and the plane
         names = [c.name for c in self.conductors]
         dup = {n for n in names if names.count(n) > 1}
         if dup:
@@ -78,7 +85,18 @@ class Layout:
 
     @property
     def eps_F_per_m(self) -> float:
+        """Permittivity of the medium (F/m): everything not a conductor, layer or region."""
         return EPS0_F_PER_M * self.eps_r
+
+    @property
+    def layer_stack(self) -> LayerStack:
+        """The planar layers with the medium and the ground plane, validated together."""
+        return LayerStack(self.layers, medium_eps_r=self.eps_r, ground_plane=self.ground_plane)
+
+    @property
+    def homogeneous(self) -> bool:
+        """True when no layer or region is present (one medium everywhere)."""
+        return not self.layers and not self.regions
 
     @property
     def names(self) -> tuple[str, ...]:

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from physics.layout import Layout
+from elopt.physics.layout import Layout
 
 
 def excitation_potentials(

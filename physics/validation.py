@@ -16,15 +16,15 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import elliprf
 
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes.guarded_disk import (
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.guarded_disk import (
     GuardedDisk,
     GuardedDiskParams,
     effective_area_amey_hamburger_m2,
     sense_capacitance_F,
 )
-from physics.geometry import disk, sphere, spheroid
-from physics.layout import EPS0_F_PER_M, Layout, driven, floating
+from elopt.physics.geometry import disk, sphere, spheroid
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven, floating
 
 #: Accuracy asked of the solver in the cases; tolerances sit well above it.
 CASE_ACCURACY = 1e-6

@@ -2,4 +2,6 @@
 
 from __future__ import annotations
 
-import physics  # noqa: F401  (sets one BLAS thread per process before numpy loads)
+from elopt.physics.threads import limit_blas_threads
+
+limit_blas_threads()  # as the CLI and the workers do: one BLAS thread per process

@@ -6,10 +6,10 @@ import math
 
 import pytest
 
-from physics import geometry as geo
-from physics.bem_axi import solve_axisymmetric
-from physics.errors import GeometryError, SolverError
-from physics.layout import Conductor, Layout, driven
+from elopt.physics import geometry as geo
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.layout import Conductor, Layout, driven
 
 
 def _square(r0: float, z0: float, size: float) -> geo.Curve:

@@ -8,9 +8,9 @@ import math
 import numpy as np
 import pytest
 
-from physics import geometry as geo
-from physics.bem_axi import solve_axisymmetric
-from physics.layout import Layout, driven, floating
+from elopt.physics import geometry as geo
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.layout import Layout, driven, floating
 
 
 def _probe(scale: float = 1.0, fillet: float = 0.1e-3) -> Layout:
@@ -141,9 +141,9 @@ def test_observed_convergence_order_on_a_smooth_body():
     # for Gauss-point collocation, no source); demand at least 2p - 1/2 over three halvings.
     from scipy.special import elliprf
 
-    from physics.bem_axi import solve_level
-    from physics.layout import EPS0_F_PER_M
-    from physics.mesh_axi import build_mesh
+    from elopt.physics.bem_axi.mesh import build_mesh
+    from elopt.physics.bem_axi.solve import solve_level
+    from elopt.physics.layout import EPS0_F_PER_M
 
     a, c = 1.0, 0.4
     lay = Layout((driven("body", geo.spheroid(a, c), 1.0),))

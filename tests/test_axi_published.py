@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from scipy.special import elliprf
 
-from physics import geometry as geo
-from physics.bem_axi import solve_axisymmetric
-from physics.layout import EPS0_F_PER_M as EPS0
-from physics.layout import Layout, driven, floating
+from elopt.physics import geometry as geo
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.layout import EPS0_F_PER_M as EPS0
+from elopt.physics.layout import Layout, driven, floating
 
 
 def test_sphere_capacitance_uniform_charge_and_surface_field():

@@ -7,10 +7,10 @@ import math
 import numpy as np
 import pytest
 
-from physics import geometry as geo
-from physics.bem_axi import solve_axisymmetric
-from physics.layout import EPS0_F_PER_M as EPS0
-from physics.layout import Layout, driven
+from elopt.physics import geometry as geo
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.layout import EPS0_F_PER_M as EPS0
+from elopt.physics.layout import Layout, driven
 
 
 def _series(radius: float, height: float) -> float:

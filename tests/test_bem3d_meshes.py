@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import trimesh
 
-from physics.bem3d import (
+from elopt.physics.bem3d import (
     BoxSurface,
     RevolvedSurface,
     TorusSurface,
@@ -16,13 +16,13 @@ from physics.bem3d import (
     solve_3d,
     sphere,
 )
-from physics.bem3d.checks import check_above_plane, check_apart, check_surface, winding_number
-from physics.bem3d.generators import box_mesh, frame_mesh, icosphere, torus_mesh
-from physics.bem3d.mesh import TriangleMesh
-from physics.bem3d.surfaces import MeshSurface
-from physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
-from physics.errors import GeometryError, SolverError
-from physics.layout import Layout, driven
+from elopt.physics.bem3d.checks import check_above_plane, check_apart, check_surface, winding_number
+from elopt.physics.bem3d.generators import box_mesh, frame_mesh, icosphere, torus_mesh
+from elopt.physics.bem3d.mesh import TriangleMesh
+from elopt.physics.bem3d.surfaces import MeshSurface
+from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.layout import Layout, driven
 
 
 def test_generated_surfaces_are_closed_outward_and_measure_right():

@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from physics.bem3d import BoxSurface, solve_3d, sphere
-from physics.bem3d import panel_integrals as pint
-from physics.bem3d.hmatrix import HMatrix
-from physics.bem3d.operators import dense_matrix
-from physics.bem3d.panels import discretise
-from physics.layout import Layout, driven
+from elopt.physics.bem3d import BoxSurface, solve_3d, sphere
+from elopt.physics.bem3d import panel_integrals as pint
+from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.operators import dense_matrix
+from elopt.physics.bem3d.panels import discretise
+from elopt.physics.layout import Layout, driven
 
 TRI = np.array([[0.0, 0.0, 0.0], [1.0, 0.2, 0.1], [0.3, 0.9, -0.2]])
 

@@ -11,10 +11,10 @@ import numpy as np
 import pytest
 from scipy.special import elliprf
 
-from physics.bem3d import BoxSurface, EllipsoidSurface, RevolvedSurface, solve_3d, sphere
-from physics.geometry import disk
-from physics.geometry import sphere as sphere_curve
-from physics.layout import EPS0_F_PER_M, Layout, driven, floating
+from elopt.physics.bem3d import BoxSurface, EllipsoidSurface, RevolvedSurface, solve_3d, sphere
+from elopt.physics.geometry import disk
+from elopt.physics.geometry import sphere as sphere_curve
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven, floating
 
 FOUR_PI_EPS0 = 4.0 * math.pi * EPS0_F_PER_M
 

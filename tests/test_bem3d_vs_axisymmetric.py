@@ -8,13 +8,13 @@ import math
 import numpy as np
 import pytest
 
-from physics.bem3d import RevolvedSurface, revolved_layout, solve_3d
-from physics.bem3d.mesh import rotation_about_axis
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
-from physics.electrodes.target_tilt import tilt_metrics
-from physics.geometry import sphere as sphere_curve
-from physics.layout import Conductor, Layout, driven
+from elopt.physics.bem3d import RevolvedSurface, revolved_layout, solve_3d
+from elopt.physics.bem3d.mesh import rotation_about_axis
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.electrodes.target_tilt import tilt_metrics
+from elopt.physics.geometry import sphere as sphere_curve
+from elopt.physics.layout import Conductor, Layout, driven
 
 PROBE = GuardedDiskParams(
     sensor_radius_mm=2.0,

@@ -9,11 +9,11 @@ from pathlib import Path
 
 import pytest
 
-from optimizer.cli import main
-from optimizer.solve_config import read_solve_config
-from physics.electrodes.registry import FAMILIES, get_family
-from physics.errors import ElectrodeError
-from physics.validation import CheckResult
+from elopt.optimizer.cli.main import main
+from elopt.optimizer.config.solve_config import read_solve_config
+from elopt.physics.electrodes.registry import FAMILIES, get_family
+from elopt.physics.errors import ElectrodeError
+from elopt.physics.validation import CheckResult
 
 ROOT = Path(__file__).resolve().parents[1]
 SPINDLE = ROOT / "configs" / "spindle_runout_probe.toml"
@@ -162,7 +162,7 @@ def test_bad_config_is_one_line_and_exit_2(capsys, tmp_path, text, words):
 def test_missing_file_from_a_real_process_has_no_traceback(tmp_path):
     missing = tmp_path / "nope.toml"
     proc = subprocess.run(
-        [sys.executable, "-m", "optimizer.cli", "solve", str(missing)],
+        [sys.executable, "-m", "elopt.optimizer.cli", "solve", str(missing)],
         capture_output=True,
         text=True,
         cwd=ROOT,
@@ -182,7 +182,7 @@ def test_check_passes_and_prints_sources(capsys):
 
 def test_check_exits_1_when_a_case_fails(capsys, monkeypatch):
     bad = CheckResult("fake", "q", "1", 1.1, 1.0, 1e-3, "nowhere")
-    monkeypatch.setattr("optimizer.cmd_check.run_cases", lambda names: [bad])
+    monkeypatch.setattr("elopt.optimizer.cli.check.run_cases", lambda names: [bad])
     code, out, _ = _run(capsys, "check")
     assert code == 1 and "FAIL" in out
 

@@ -17,8 +17,8 @@ import pytest
 from study_support.cli import reported_complete, run_elopt, start_elopt
 from study_support.configs import guarded_disk_study
 
-from optimizer.cli import main
-from optimizer.store import read_study
+from elopt.optimizer.cli.main import main
+from elopt.optimizer.store.study_file import read_study
 
 
 def _one_error_line(capsys) -> str:
@@ -123,7 +123,7 @@ def test_front_table_scatter_and_exports(finished_study, capsys):
     assert main(["front", str(out), "--csv", str(tmp / "front.csv")]) == 0
     text = capsys.readouterr().out
     snap = read_study(out)
-    from optimizer.report_study import front_numbers
+    from elopt.optimizer.report.study_report import front_numbers
 
     front = front_numbers(snap)
     assert len(front) >= 1
@@ -188,7 +188,7 @@ def test_show_one_trial(finished_study, capsys):
 
 
 def read_trial_arrays_fF(path, i):
-    from optimizer.store import read_trial_arrays
+    from elopt.optimizer.store.study_file import read_trial_arrays
 
     return read_trial_arrays(path, i).capacitance_F * 1e15
 

@@ -21,10 +21,11 @@ from study_support.cli import reported_complete, run_elopt, start_elopt
 from study_support.configs import FIXTURE_FAMILY, fixture_study, guarded_disk_study
 from study_support.dask_cluster import LoopbackCluster, free_port
 
-from optimizer.cli import main
-from optimizer.executor_dask import ClusterError, connect_cluster, parse_cluster_address
-from optimizer.store import read_study
-from optimizer.trial_eval import TrialTask
+from elopt.optimizer import __version__
+from elopt.optimizer.cli.main import main
+from elopt.optimizer.run.dask_pool import ClusterError, connect_cluster, parse_cluster_address
+from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.study.trial_eval import TrialTask
 
 METRICS = ("score_fF", "size_mm", "peak_surface_field_V_per_m")
 DYING_FAMILY = "study_support.dying_family:FAMILY"
@@ -181,7 +182,7 @@ def test_version_mismatch_and_missing_elopt_are_refused(tmp_path):
             "Dask worker tcp://127.0.0.1:" in reason
             and "cannot run elopt (ModuleNotFoundError" in reason
         ), reason
-        assert "No module named 'optimizer" in reason
+        assert "No module named 'elopt" in reason
         ex_missing.close()
 
         c.add_worker(preload="study_support.dask_old_numpy")
@@ -208,8 +209,8 @@ def test_version_mismatch_and_missing_elopt_are_refused(tmp_path):
     err = _one_error_line(proc.stderr)
     assert f"--cluster {c.address}: worker tcp://127.0.0.1:" in err
     assert "has numpy 1.0.0 (coordinator: " in err
-    assert "cannot run elopt (" in err and "No module named 'optimizer" in err
-    assert "install elopt 0.1.0 with the same numpy, scipy, numba and distributed" in err
+    assert "cannot run elopt (" in err and "No module named 'elopt" in err
+    assert f"install elopt {__version__} with the same numpy, scipy, numba and distributed" in err
     assert not out.exists()
 
 

@@ -9,8 +9,8 @@ import time
 import numpy as np
 from study_support.configs import FIXTURE_FAMILY
 
-from optimizer.executors import Executor, LocalProcessPool
-from optimizer.trial_eval import TrialTask, evaluate_task
+from elopt.optimizer.run.local_pool import Executor, LocalProcessPool
+from elopt.optimizer.study.trial_eval import TrialTask, evaluate_task
 
 METRICS = ("score_fF", "size_mm", "peak_surface_field_V_per_m")
 

@@ -8,8 +8,8 @@ import math
 import numpy as np
 import pytest
 
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes.guarded_disk import (
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.guarded_disk import (
     GuardedDisk,
     GuardedDiskOptions,
     GuardedDiskParams,
@@ -20,11 +20,11 @@ from physics.electrodes.guarded_disk import (
     sensor_curve,
     target_grid,
 )
-from physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
-from physics.electrodes.target_spot import cumulative_on_plane, spot_radius
-from physics.errors import ElectrodeError
-from physics.layout import EPS0_F_PER_M, Layout, driven
-from physics.validation import case_guarded_electrode, love_disk_pair_capacitance
+from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
+from elopt.physics.electrodes.target_spot import cumulative_on_plane, spot_radius
+from elopt.physics.errors import ElectrodeError
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.validation import case_guarded_electrode, love_disk_pair_capacitance
 
 FAMILY = GuardedDisk()
 BASE = GuardedDiskParams(
@@ -189,7 +189,7 @@ def test_spot_radius_of_a_uniform_disk_density():
 
 def test_standards_effective_area_for_thin_electrodes_and_a_wide_guard():
     # Amey & Hamburger, Proc. ASTM 49, 1079 (1949), as used by ASTM D150/D257 (formula from
-    # memory, REFERENCES.md item 8); case and tolerance explained in physics.validation.
+    # memory, REFERENCES.md item 8); case and tolerance explained in elopt.physics.validation.
     (row,) = case_guarded_electrode()
     assert row.passed, row
 

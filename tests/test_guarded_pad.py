@@ -8,19 +8,19 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from physics.bem3d import solve_3d
-from physics.bem3d.checks import check_apart, check_surface
-from physics.electrodes.guarded_pad import (
+from elopt.physics.bem3d import solve_3d
+from elopt.physics.bem3d.checks import check_apart, check_surface
+from elopt.physics.electrodes.guarded_pad import (
     GuardedPad,
     GuardedPadOptions,
     GuardedPadParams,
     level_layout,
     spot_radius_m,
 )
-from physics.electrodes.registry import get_family
-from physics.electrodes.target_tilt import sense_capacitance_F, tilted_layout
-from physics.errors import ElectrodeError
-from physics.layout import EPS0_F_PER_M
+from elopt.physics.electrodes.registry import get_family
+from elopt.physics.electrodes.target_tilt import sense_capacitance_F, tilted_layout
+from elopt.physics.errors import ElectrodeError
+from elopt.physics.layout import EPS0_F_PER_M
 
 PAD = GuardedPadParams(
     pad_length_mm=3.0,
@@ -172,7 +172,7 @@ def test_spot_radius_of_a_uniform_disk_density():
 
 
 def test_elopt_solve_reports_a_guarded_pad(tmp_path, capsys):
-    from optimizer.cli import main
+    from elopt.optimizer.cli.main import main
 
     cfg = tmp_path / "pad.toml"
     cfg.write_text(

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 import trimesh
 
-from optimizer.cli import main
-from physics.bem3d.generators import icosphere
-from physics.layout import EPS0_F_PER_M
+from elopt.optimizer.cli.main import main
+from elopt.physics.bem3d.generators import icosphere
+from elopt.physics.layout import EPS0_F_PER_M
 
 
 def _ball(

@@ -9,11 +9,11 @@ import numpy as np
 from rich.console import Console
 from study_support.configs import fixture_study
 
-from optimizer.objectives import pareto_front_mask
-from optimizer.report_study import PlainProgress, RichProgress, summary_line
-from optimizer.search import RunLimits, state_from_snapshot
-from optimizer.store import StudyWriter, read_study
-from optimizer.study_config import load_study_config
+from elopt.optimizer.config.study_config import load_study_config
+from elopt.optimizer.report.study_report import PlainProgress, RichProgress, summary_line
+from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.study.objectives import pareto_front_mask
+from elopt.optimizer.study.search import RunLimits, state_from_snapshot
 
 
 def _brute_front(values: np.ndarray, directions) -> set[int]:
@@ -43,7 +43,7 @@ def test_pareto_mask_matches_the_definition():
 
 def _state(tmp_path, trials=5):
     spec = load_study_config(fixture_study(tmp_path, trials=trials))
-    from optimizer.search import study_header
+    from elopt.optimizer.study.search import study_header
 
     path = tmp_path / "p.h5"
     with StudyWriter.create(path, study_header(spec)):
@@ -95,7 +95,7 @@ def test_rich_progress_renders_budget_and_best(tmp_path):
 def test_high_voltage_caution_on_the_front(tmp_path):
     from study_support.records import record_for, small_header
 
-    from optimizer.report_study import render_front
+    from elopt.optimizer.report.study_report import render_front
 
     path = tmp_path / "hv.h5"
     with StudyWriter.create(path, small_header()) as w:

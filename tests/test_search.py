@@ -15,9 +15,11 @@ import pytest
 from optuna.trial import TrialState
 from study_support.configs import fixture_study
 
-from optimizer.executors import LocalProcessPool
-from optimizer.report_study import front_numbers
-from optimizer.search import (
+from elopt.optimizer.config.study_config import load_study_config
+from elopt.optimizer.report.study_report import front_numbers
+from elopt.optimizer.run.local_pool import LocalProcessPool
+from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.study.search import (
     NSGA2_GENERATION_KEY,
     RunLimits,
     build_optuna_study,
@@ -25,8 +27,6 @@ from optimizer.search import (
     run_search,
     study_header,
 )
-from optimizer.store import StudyWriter, read_study
-from optimizer.study_config import load_study_config
 
 
 @pytest.fixture(scope="module")

@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
-from optimizer.section_picture import FILLS, MARK, section_picture
-from physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
-from physics.electrodes.uniform_field import UniformField, UniformFieldParams
+from elopt.optimizer.report.section_picture import FILLS, MARK, section_picture
+from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.electrodes.uniform_field import UniformField, UniformFieldParams
 
 PROBE = GuardedDisk().build(GuardedDiskParams(4.0, 0.5, 3.0, 1.0, 0.2, 1.0, 10.0))
 CELL = UniformField().build(UniformFieldParams(12.0, 20.0, 60.0, 20.0, 50.0, 30000.0))

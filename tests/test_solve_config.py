@@ -6,9 +6,9 @@ import copy
 
 import pytest
 
-from optimizer.errors import ConfigError
-from optimizer.solve_config import AIR_BREAKDOWN_V_PER_M, parse_solve_config
-from physics.electrodes.guarded_disk import GuardedDiskOptions, GuardedDiskParams
+from elopt.optimizer.config.solve_config import AIR_BREAKDOWN_V_PER_M, parse_solve_config
+from elopt.optimizer.errors import ConfigError
+from elopt.physics.electrodes.guarded_disk import GuardedDiskOptions, GuardedDiskParams
 
 GOOD = {
     "title": "probe",

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from study_support.records import check_matches, record_for, small_header
 
-from optimizer.errors import StudyFileError
-from optimizer.store import (
+from elopt.optimizer.errors import StudyFileError
+from elopt.optimizer.store.study_file import (
     STATES,
     StudyWriter,
     check_is_study,
@@ -100,8 +100,8 @@ def test_second_writer_refused_with_clear_message(tmp_path):
     first = StudyWriter.open(path)
     try:
         code = (
-            "import sys; from optimizer.store import StudyWriter\n"
-            "from optimizer.errors import StudyFileError\n"
+            "import sys; from elopt.optimizer.store.study_file import StudyWriter\n"
+            "from elopt.optimizer.errors import StudyFileError\n"
             f"try:\n    StudyWriter.open({str(path)!r})\n"
             "except StudyFileError as e:\n    print(e); sys.exit(3)\n"
         )
@@ -118,7 +118,7 @@ def test_lock_dies_with_its_holder(tmp_path):
     path = tmp_path / "s.h5"
     _write(path, 1)
     code = (
-        "import time; from optimizer.store import StudyWriter\n"
+        "import time; from elopt.optimizer.store.study_file import StudyWriter\n"
         f"w = StudyWriter.open({str(path)!r}); print('locked', flush=True); time.sleep(60)\n"
     )
     proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
@@ -214,7 +214,7 @@ def test_writer_snapshot_matches_reader(tmp_path):
 
 
 def test_open_salvages_a_file_that_refuses_writes(tmp_path, monkeypatch, capsys):
-    import optimizer.store as store
+    import elopt.optimizer.store.study_file as store
 
     path = tmp_path / "s.h5"
     _write(path, 6)

@@ -2,18 +2,19 @@
 
 from __future__ import annotations
 
-import pytest
 import tomllib
+
+import pytest
 from study_support.configs import FIXTURE_STUDY, GUARDED_DISK_STUDY
 
-from optimizer.errors import ConfigError
-from optimizer.study_config import (
+from elopt.optimizer.config.study_config import (
     identity_differences,
     load_study_config,
     parameter_unit,
     parse_study_config,
     study_identity,
 )
+from elopt.optimizer.errors import ConfigError
 
 
 def _parse(text: str):

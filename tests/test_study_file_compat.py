@@ -8,8 +8,8 @@ from pathlib import Path
 
 import numpy as np
 
-from optimizer.cli import main
-from optimizer.store import StudyWriter, TrialRecord, read_study, read_trial_arrays
+from elopt.optimizer.cli.main import main
+from elopt.optimizer.store.study_file import StudyWriter, TrialRecord, read_study, read_trial_arrays
 
 V1 = Path(__file__).parent / "data" / "study_v1.h5"
 

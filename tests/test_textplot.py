@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from optimizer.textplot import Series, line_plot, scatter
+from elopt.optimizer.report.textplot import Series, line_plot, scatter
 
 
 def _grid(lines: list[str]) -> list[str]:

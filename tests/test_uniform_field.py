@@ -8,17 +8,17 @@ import math
 import numpy as np
 import pytest
 
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m
-from physics.electrodes.uniform_field import (
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m
+from elopt.physics.electrodes.uniform_field import (
     UniformField,
     UniformFieldOptions,
     UniformFieldParams,
     overall_radius_m,
 )
-from physics.errors import ElectrodeError
-from physics.geometry import Arc, Curve, Segment, rounded_polyline
-from physics.layout import Layout, driven
+from elopt.physics.errors import ElectrodeError
+from elopt.physics.geometry import Arc, Curve, Segment, rounded_polyline
+from elopt.physics.layout import Layout, driven
 
 FAMILY = UniformField()
 BASE = UniformFieldParams(

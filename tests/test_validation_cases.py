@@ -6,7 +6,7 @@ import math
 
 import pytest
 
-from physics.validation import (
+from elopt.physics.validation import (
     CheckResult,
     kirchhoff_disk_pair_capacitance,
     love_disk_pair_capacitance,

@@ -5,19 +5,19 @@ Stages, one module each: :mod:`.mesh` (the triangle mesh value), :mod:`.generato
 (mesh and layout validation), :mod:`.surfaces` (shapes meshed at any refinement level),
 :mod:`.panel_integrals` (closed-form and Gauss panel integrals), :mod:`.operators` and
 :mod:`.hmatrix` (dense and compressed collocation operators), :mod:`.solve` (the refinement
-driver) and :mod:`.solution3d` (the result, a :class:`physics.solution.ChargeSolution`).
+driver) and :mod:`.solution3d` (the result, a :class:`elopt.physics.solution.ChargeSolution`).
 
-    from physics.bem3d import solve_3d, sphere
+    from elopt.physics.bem3d import solve_3d, sphere
     layout = Layout((driven("ball", sphere(0.01), 1.0),))
     sol = solve_3d(layout, rel_accuracy=1e-4)
 """
 
-from physics.bem3d.mesh import TriangleMesh
-from physics.bem3d.mesh_io import load_mesh_surface
-from physics.bem3d.revolve import RevolvedSurface, revolved_layout
-from physics.bem3d.solution3d import PanelSolution
-from physics.bem3d.solve import solve_3d
-from physics.bem3d.surfaces import (
+from elopt.physics.bem3d.mesh import TriangleMesh
+from elopt.physics.bem3d.mesh_io import load_mesh_surface
+from elopt.physics.bem3d.revolve import RevolvedSurface, revolved_layout
+from elopt.physics.bem3d.solution import PanelSolution
+from elopt.physics.bem3d.solve import solve_3d
+from elopt.physics.bem3d.surfaces import (
     BoxSurface,
     EllipsoidSurface,
     FrameSheetSurface,

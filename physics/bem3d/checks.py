@@ -18,8 +18,8 @@ import math
 import numpy as np
 from numba import njit
 
-from physics.bem3d.mesh import TriangleMesh
-from physics.errors import GeometryError
+from elopt.physics.bem3d.mesh import TriangleMesh
+from elopt.physics.errors import GeometryError
 
 #: A triangle whose smallest height is below this fraction of its longest edge is degenerate.
 SLIVER_RATIO = 1e-6

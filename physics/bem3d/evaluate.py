@@ -12,10 +12,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from physics.bem3d import panel_integrals as pint
-from physics.bem3d.hmatrix import HMatrix
-from physics.bem3d.operators import FOUR_PI
-from physics.bem3d.panels import PanelSet
+from elopt.physics.bem3d import panel_integrals as pint
+from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.operators import FOUR_PI
+from elopt.physics.bem3d.panels import PanelSet
 
 #: Above this many target-panel pairs the hierarchical matrices are used.
 DIRECT_PAIRS = 30_000_000

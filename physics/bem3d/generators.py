@@ -16,8 +16,8 @@ from collections.abc import Callable, Sequence
 
 import numpy as np
 
-from physics.bem3d.grading import axis_nodes
-from physics.bem3d.mesh import TriangleMesh
+from elopt.physics.bem3d.grading import axis_nodes
+from elopt.physics.bem3d.mesh import TriangleMesh
 
 Box = tuple[tuple[float, float, float], tuple[float, float, float]]
 

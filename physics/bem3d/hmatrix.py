@@ -26,8 +26,8 @@ import numba
 import numpy as np
 from numba import njit, prange
 
-from physics.bem3d import panel_integrals as pint
-from physics.bem3d.panels import PanelSet
+from elopt.physics.bem3d import panel_integrals as pint
+from elopt.physics.bem3d.panels import PanelSet
 
 FOUR_PI = 4.0 * math.pi
 LEAF = 32

@@ -2,7 +2,7 @@
 
 The file is read without any repair (trimesh ``process=False``): vertices that coincide to
 within 1e-9 of the mesh size are welded (an STL stores every triangle's corners apart), and
-then the mesh must pass :func:`physics.bem3d.checks.check_surface` as it is, so a broken file
+then the mesh must pass :func:`elopt.physics.bem3d.checks.check_surface` as it is, so a broken file
 is reported rather than silently patched. Files carry no unit: the caller names it.
 """
 
@@ -12,10 +12,10 @@ from pathlib import Path
 
 import numpy as np
 
-from physics.bem3d.checks import check_surface
-from physics.bem3d.mesh import TriangleMesh, merged_vertices
-from physics.bem3d.surfaces import MeshSurface
-from physics.errors import GeometryError
+from elopt.physics.bem3d.checks import check_surface
+from elopt.physics.bem3d.mesh import TriangleMesh, merged_vertices
+from elopt.physics.bem3d.surfaces import MeshSurface
+from elopt.physics.errors import GeometryError
 
 #: Length units a mesh file may be given in, as metres per unit.
 LENGTH_UNITS: dict[str, float] = {"m": 1.0, "cm": 1e-2, "mm": 1e-3, "um": 1e-6, "in": 0.0254}

@@ -21,11 +21,11 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from physics.bem3d import panel_integrals as pint
-from physics.bem3d.hmatrix import HMatrix
-from physics.bem3d.near_pairs import near_pairs
-from physics.bem3d.panels import PanelSet
-from physics.errors import SolverError
+from elopt.physics.bem3d import panel_integrals as pint
+from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.near_pairs import near_pairs
+from elopt.physics.bem3d.panels import PanelSet
+from elopt.physics.errors import SolverError
 
 FOUR_PI = 4.0 * math.pi
 #: Pairs closer than this many diameters enter the preconditioner's near-field matrix.

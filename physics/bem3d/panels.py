@@ -11,11 +11,11 @@ from functools import cached_property
 
 import numpy as np
 
-from physics.bem3d.checks import check_above_plane, check_apart, check_surface
-from physics.bem3d.mesh import TriangleMesh, concatenated
-from physics.bem3d.surfaces import Surface
-from physics.errors import GeometryError
-from physics.layout import Layout
+from elopt.physics.bem3d.checks import check_above_plane, check_apart, check_surface
+from elopt.physics.bem3d.mesh import TriangleMesh, concatenated
+from elopt.physics.bem3d.surfaces import Surface
+from elopt.physics.errors import GeometryError
+from elopt.physics.layout import Layout
 
 
 @dataclass(frozen=True, eq=False)
@@ -81,9 +81,9 @@ def conductor_surfaces(layout: Layout) -> tuple[Surface, ...]:
     for c in layout.conductors:
         if not isinstance(c.shape, Surface):
             raise GeometryError(
-                f"conductor '{c.name}': the 3-D solver needs a triangle surface (physics.bem3d "
+                f"conductor '{c.name}': the 3-D solver needs a triangle surface (elopt.physics.bem3d "
                 f"Surface), got {type(c.shape).__name__}; revolve a curve with "
-                "physics.bem3d.revolve.revolved_layout first"
+                "elopt.physics.bem3d.revolve.revolved_layout first"
             )
         out.append(c.shape)
     return tuple(out)

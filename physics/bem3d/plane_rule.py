@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.spatial import cKDTree
 
-from physics.bem3d.panels import PanelSet
+from elopt.physics.bem3d.panels import PanelSet
 
 EXTENT = 32.0
 #: A leaf square is at most this fraction of its centre's distance to the surface.

@@ -1,7 +1,7 @@
 """Bodies of revolution as triangle surfaces: a generating curve (r, z) turned about z.
 
 Nodes along each piece of the curve are graded toward the curve's singular corners
-(:meth:`physics.geometry.Curve.corners`); each node becomes a ring of vertices whose count
+(:meth:`elopt.physics.geometry.Curve.corners`); each node becomes a ring of vertices whose count
 follows its radius (one vertex on the axis), and neighbouring rings are zipped into
 triangles. This lets an axisymmetric layout be solved by the 3-D solver (as a cross-check,
 or with a non-axisymmetric target such as a tilted plane).
@@ -14,11 +14,11 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from physics.bem3d.grading import polynomial_grading
-from physics.bem3d.mesh import TriangleMesh
-from physics.bem3d.surfaces import Surface
-from physics.geometry import JOIN_TOLERANCE, Curve
-from physics.layout import Conductor, Layout
+from elopt.physics.bem3d.grading import polynomial_grading
+from elopt.physics.bem3d.mesh import TriangleMesh
+from elopt.physics.bem3d.surfaces import Surface
+from elopt.physics.geometry import JOIN_TOLERANCE, Curve
+from elopt.physics.layout import Conductor, Layout
 
 
 def _one_sided(s: np.ndarray, q: float, at_start: bool) -> np.ndarray:

@@ -26,12 +26,17 @@ import numpy as np
 import scipy.linalg
 from scipy.spatial import cKDTree
 
-from physics.bem3d.near_pairs import near_pairs
-from physics.bem3d.operators import PRECONDITIONER_FACTOR, FastOperator, SolveStats, dense_matrix
-from physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
-from physics.bem3d.solution3d import LevelResult3D, PanelSolution
-from physics.errors import SolverError
-from physics.layout import Layout
+from elopt.physics.bem3d.near_pairs import near_pairs
+from elopt.physics.bem3d.operators import (
+    PRECONDITIONER_FACTOR,
+    FastOperator,
+    SolveStats,
+    dense_matrix,
+)
+from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
+from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
+from elopt.physics.errors import SolverError
+from elopt.physics.layout import Layout
 
 #: Largest level solved by dense LU under method="auto".
 DENSE_MAX_PANELS = 4_000
@@ -202,7 +207,7 @@ def solve_3d(
     check: bool = True,
     strict: bool = True,
 ) -> PanelSolution:
-    """Solve a layout of 3-D surfaces (every shape a :class:`physics.bem3d.surfaces.Surface`).
+    """Solve a layout of 3-D surfaces (every shape a :class:`elopt.physics.bem3d.surfaces.Surface`).
 
     Levels ``start_level`` .. ``max_level`` are solved until the capacitance matrices of two
     successive levels agree to ``rel_accuracy`` (after at least ``min_levels`` levels), or

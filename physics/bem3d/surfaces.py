@@ -1,6 +1,6 @@
 """Conductor shapes for the 3-D solver: surfaces that can be meshed at any refinement level.
 
-A :class:`Surface` is the ``shape`` of a :class:`physics.layout.Conductor` in a 3-D layout.
+A :class:`Surface` is the ``shape`` of a :class:`elopt.physics.layout.Conductor` in a 3-D layout.
 ``mesh(level)`` returns the triangle mesh of that level; level l + 1 halves the panel size
 of level l (four times the panels), which is what the solver's h vs h/2 error estimate
 compares. Generated shapes are re-meshed from their exact description at every level;
@@ -16,8 +16,8 @@ from functools import lru_cache
 
 import numpy as np
 
-from physics.bem3d import generators as gen
-from physics.bem3d.mesh import TriangleMesh
+from elopt.physics.bem3d import generators as gen
+from elopt.physics.bem3d.mesh import TriangleMesh
 
 
 class Surface(ABC):

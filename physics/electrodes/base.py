@@ -15,8 +15,8 @@ from abc import ABC, abstractmethod
 from dataclasses import dataclass, fields
 from typing import Any, ClassVar, Literal
 
-from physics.layout import Layout
-from physics.solution import ChargeSolution
+from elopt.physics.layout import Layout
+from elopt.physics.solution import ChargeSolution
 
 
 @dataclass(frozen=True)

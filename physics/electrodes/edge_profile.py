@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from physics.geometry import Arc, Curve, Piece, Segment
+from elopt.physics.geometry import Arc, Curve, Piece, Segment
 
 #: Arcs approximating the curvature ramp (curvature step 1/(N R_e) between neighbours).
 RAMP_ARCS = 8

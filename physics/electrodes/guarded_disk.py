@@ -22,15 +22,15 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes import probe_metrics as probe
-from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
-from physics.electrodes.rules import RuleBook
-from physics.electrodes.target_spot import radial_grid, spot_radius
-from physics.geometry import Curve, rounded_polyline
-from physics.layout import Layout, driven
-from physics.solution import ChargeSolution
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes import probe_metrics as probe
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
+from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
+from elopt.physics.geometry import Curve, rounded_polyline
+from elopt.physics.layout import Layout, driven
+from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
 SENSOR = "sensor"

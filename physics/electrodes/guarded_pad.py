@@ -12,9 +12,9 @@ Geometry (parameters in mm, SI inside; the target is the plane z = 0, possibly t
   x = ``tilt_axis_x_mm`` on it (positive: the target rises on the -x side).
 
 Sensor and guard are both driven at V; C_sense = C_ss + C_sg. The metrics follow the guarded
-disk (:mod:`physics.electrodes.guarded_disk`) where they apply, with the peak field's (x, y, z)
+disk (:mod:`elopt.physics.electrodes.guarded_disk`) where they apply, with the peak field's (x, y, z)
 and the tilt sensitivity dC_sense/dtheta (Hadamard formula on the plane) added; the 3-D panel
-solver (:mod:`physics.bem3d`) does the solve.
+solver (:mod:`elopt.physics.bem3d`) does the solve.
 """
 
 from __future__ import annotations
@@ -25,24 +25,24 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from physics.bem3d import solve_3d
-from physics.bem3d.surfaces import (
+from elopt.physics.bem3d import solve_3d
+from elopt.physics.bem3d.surfaces import (
     BoxSurface,
     FrameSheetSurface,
     FrameSurface,
     RectangleSheetSurface,
 )
-from physics.electrodes import probe_metrics as probe
-from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from physics.electrodes.rules import RuleBook
-from physics.electrodes.target_tilt import (
+from elopt.physics.electrodes import probe_metrics as probe
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.target_tilt import (
     FF_PER_MRAD,
     FF_PER_UM,
     sense_capacitance_F,
     tilted_layout,
 )
-from physics.errors import ElectrodeError, GeometryError
-from physics.layout import Layout, driven
+from elopt.physics.errors import ElectrodeError, GeometryError
+from elopt.physics.layout import Layout, driven
 
 MM = 1e-3
 SENSOR = "sensor"

@@ -28,13 +28,13 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from physics.bem3d import load_mesh_surface, solve_3d
-from physics.bem3d.mesh_io import LENGTH_UNITS
-from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from physics.electrodes.guarded_pad import spot_radius_m
-from physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
-from physics.errors import ElectrodeError, GeometryError
-from physics.layout import Conductor, Layout
+from elopt.physics.bem3d import load_mesh_surface, solve_3d
+from elopt.physics.bem3d.mesh_io import LENGTH_UNITS
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.guarded_pad import spot_radius_m
+from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
+from elopt.physics.errors import ElectrodeError, GeometryError
+from elopt.physics.layout import Conductor, Layout
 
 MM = 1e-3
 CONDUCTOR_KEYS = ("name", "file", "length_unit", "potential_V", "charge_C", "closed")

@@ -3,7 +3,7 @@ family, config check, study file and table reads the same names, units and sense
 
 from __future__ import annotations
 
-from physics.electrodes.base import MetricSpec
+from elopt.physics.electrodes.base import MetricSpec
 
 SENSE = MetricSpec("sense_capacitance_fF", "fF", "Q_sensor / V (driven guard)", "maximize")
 TOTAL = MetricSpec("total_capacitance_fF", "fF", "(Q_sensor + Q_guard) / V", "either")

@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-from physics.electrodes.base import ElectrodeFamily
-from physics.electrodes.guarded_disk import GuardedDisk
-from physics.electrodes.guarded_pad import GuardedPad
-from physics.electrodes.mesh_file import MeshFile
-from physics.electrodes.uniform_field import UniformField
-from physics.errors import ElectrodeError
+from elopt.physics.electrodes.base import ElectrodeFamily
+from elopt.physics.electrodes.guarded_disk import GuardedDisk
+from elopt.physics.electrodes.guarded_pad import GuardedPad
+from elopt.physics.electrodes.mesh_file import MeshFile
+from elopt.physics.electrodes.uniform_field import UniformField
+from elopt.physics.errors import ElectrodeError
 
 FAMILIES: dict[str, ElectrodeFamily] = {
     GuardedDisk.name: GuardedDisk(),

@@ -11,7 +11,7 @@ import math
 from dataclasses import fields
 from typing import Any
 
-from physics.errors import ElectrodeError
+from elopt.physics.errors import ElectrodeError
 
 
 def _fmt(value: float) -> str:

@@ -21,12 +21,12 @@ from dataclasses import replace
 
 import numpy as np
 
-from physics.bem3d import revolved_layout, solve_3d
-from physics.bem3d.mesh import rotation_about_axis
-from physics.bem3d.solution3d import PanelSolution
-from physics.bem3d.surfaces import Surface
-from physics.geometry import Curve
-from physics.layout import Conductor, Layout
+from elopt.physics.bem3d import revolved_layout, solve_3d
+from elopt.physics.bem3d.mesh import rotation_about_axis
+from elopt.physics.bem3d.solution import PanelSolution
+from elopt.physics.bem3d.surfaces import Surface
+from elopt.physics.geometry import Curve
+from elopt.physics.layout import Conductor, Layout
 
 #: fF per um for a derivative in F/m; fF per mrad for one in F/rad.
 FF_PER_UM = 1e15 * 1e-6

@@ -4,7 +4,7 @@ The electrodes are identical and driven at +V/2 and -V/2, so the mid-plane betwe
 an equipotential at 0: the problem is solved as one electrode at V/2 above the grounded
 plane z = 0 of the solver, its flat face at z = G/2. Each electrode is a flat central face
 of radius R_f that blends into its rim through a curvature ramp and an edge arc (see
-:mod:`physics.edge_profile <physics.electrodes.edge_profile>`):
+:mod:`elopt.physics.edge_profile <elopt.physics.electrodes.edge_profile>`):
 
 - ``gap_mm`` G: face-to-face spacing of the two electrodes;
 - ``flat_radius_mm`` R_f: radius of the flat central face;
@@ -27,12 +27,12 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from physics.bem_axi import solve_axisymmetric
-from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
-from physics.electrodes.rules import RuleBook
-from physics.layout import Layout, driven
-from physics.solution import ChargeSolution
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
+from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.layout import Layout, driven
+from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
 ELECTRODE = "electrode"

@@ -19,11 +19,11 @@ from pathlib import Path
 import numpy as np
 from scipy.special import ellipkm1
 
-from physics import geometry as geo
-from physics.bem_axi import solve_axisymmetric
-from physics.layout import EPS0_F_PER_M as EPS0
-from physics.layout import Layout, driven
-from physics.ring_sums import potential_sum
+from elopt.physics import geometry as geo
+from elopt.physics.bem_axi.ring_sums import potential_sum
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.layout import EPS0_F_PER_M as EPS0
+from elopt.physics.layout import Layout, driven
 
 sys.path.insert(0, str(Path(__file__).parent))
 

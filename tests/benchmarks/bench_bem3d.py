@@ -30,10 +30,10 @@ _CHILD = r"""
 import json, resource, sys, time, warnings
 warnings.filterwarnings("ignore")
 import numpy as np
-from physics.bem3d import BoxSurface
-from physics.bem3d.panels import discretise
-from physics.bem3d.solve import solve_level
-from physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.bem3d import BoxSurface
+from elopt.physics.bem3d.panels import discretise
+from elopt.physics.bem3d.solve import solve_level
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
 n, method = int(sys.argv[1]), sys.argv[2]
 layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 2.0 / n, grade=2.0), 1.0),))
 t0 = time.perf_counter()
@@ -53,10 +53,10 @@ print(json.dumps({
 _WARM = r"""
 import warnings
 warnings.filterwarnings("ignore")
-from physics.bem3d import BoxSurface
-from physics.bem3d.panels import discretise
-from physics.bem3d.solve import solve_level
-from physics.layout import Layout, driven
+from elopt.physics.bem3d import BoxSurface
+from elopt.physics.bem3d.panels import discretise
+from elopt.physics.bem3d.solve import solve_level
+from elopt.physics.layout import Layout, driven
 layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 0.25), 1.0),))
 for method in ("dense", "fast"):
     solve_level(layout, discretise(layout, 0), method=method, gmres_rtol=1e-5, aca_tol=1e-5)
@@ -106,8 +106,8 @@ def cube_error_vs_time(max_level: int) -> None:
     import warnings
 
     warnings.filterwarnings("ignore")
-    from physics.bem3d import BoxSurface, solve_3d
-    from physics.layout import EPS0_F_PER_M, Layout, driven
+    from elopt.physics.bem3d import BoxSurface, solve_3d
+    from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
 
     print("\nPart 2: unit cube, levels from h = 0.5 (graded), error against 0.6606782")
     print(

@@ -37,11 +37,17 @@ sys.path.insert(0, str(TESTS))
 from study_support.configs import fixture_study  # noqa: E402
 from study_support.dask_cluster import LoopbackCluster  # noqa: E402
 
-from optimizer.executor_dask import connect_cluster  # noqa: E402
-from optimizer.executors import Executor, LocalProcessPool  # noqa: E402
-from optimizer.search import RunLimits, SamplerFactory, make_sampler, run_search, study_header  # noqa: E402
-from optimizer.store import StudyWriter, read_study  # noqa: E402
-from optimizer.study_config import StudySpec, load_study_config  # noqa: E402
+from elopt.optimizer.config.study_config import StudySpec, load_study_config  # noqa: E402
+from elopt.optimizer.run.dask_pool import connect_cluster  # noqa: E402
+from elopt.optimizer.run.local_pool import Executor, LocalProcessPool  # noqa: E402
+from elopt.optimizer.store.study_file import StudyWriter, read_study  # noqa: E402
+from elopt.optimizer.study.search import (  # noqa: E402
+    RunLimits,
+    SamplerFactory,
+    make_sampler,
+    run_search,
+    study_header,
+)
 
 DEMO = TESTS.parent / "configs" / "study_spindle_runout.toml"
 

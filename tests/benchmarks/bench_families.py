@@ -14,9 +14,9 @@ import sys
 import time
 from pathlib import Path
 
-from optimizer.solve_config import read_solve_config
-from physics.electrodes.guarded_disk import GuardedDiskOptions
-from physics.electrodes.registry import get_family
+from elopt.optimizer.config.solve_config import read_solve_config
+from elopt.physics.electrodes.guarded_disk import GuardedDiskOptions
+from elopt.physics.electrodes.registry import get_family
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -22,11 +22,11 @@ import tempfile
 import time
 from pathlib import Path
 
-from optimizer.executors import LocalProcessPool
-from optimizer.search import RunLimits, run_search, study_header
-from optimizer.store import StudyWriter, read_study
-from optimizer.study_config import load_study_config
-from optimizer.trial_eval import TrialTask
+from elopt.optimizer.config.study_config import load_study_config
+from elopt.optimizer.run.local_pool import LocalProcessPool
+from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.study.search import RunLimits, run_search, study_header
+from elopt.optimizer.study.trial_eval import TrialTask
 
 DEMO = Path(__file__).resolve().parents[2] / "configs" / "study_spindle_runout.toml"
 
@@ -92,7 +92,7 @@ def replay_speedup(path: Path) -> float:
 
 
 def _bare_eval(params: dict) -> float:
-    from physics.electrodes.registry import get_family
+    from elopt.physics.electrodes.registry import get_family
 
     family = get_family("guarded_disk")
     spec = load_study_config(DEMO)

@@ -14,10 +14,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from physics.errors import ElectrodeError, SolverError
-from physics.layout import Layout, driven
-from physics.solution import ChargeSolution, PeakField
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.errors import ElectrodeError, SolverError
+from elopt.physics.layout import Layout, driven
+from elopt.physics.solution import ChargeSolution, PeakField
 
 
 @dataclass(frozen=True)

@@ -16,7 +16,7 @@ ENV = {
 
 
 def elopt_cmd(*args: str) -> list[str]:
-    return [sys.executable, "-m", "optimizer.cli", *map(str, args)]
+    return [sys.executable, "-m", "elopt.optimizer.cli", *map(str, args)]
 
 
 def start_elopt(*args: str, cwd: Path, **kw) -> subprocess.Popen:

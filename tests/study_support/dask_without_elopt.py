@@ -3,5 +3,4 @@ machine where it was never installed."""
 
 import sys
 
-for _name in ("optimizer", "physics"):
-    sys.modules[_name] = None  # a later `import optimizer` raises ModuleNotFoundError
+sys.modules["elopt"] = None  # a later `import elopt...` raises ModuleNotFoundError

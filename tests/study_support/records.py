@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from optimizer.store import PROFILE_FIELDS, StudyHeader, TrialRecord
+from elopt.optimizer.store.study_file import PROFILE_FIELDS, StudyHeader, TrialRecord
 
 
 def small_header(config_toml: str = "[study]\nname = 'fixture'\n") -> StudyHeader:

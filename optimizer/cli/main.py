@@ -1,0 +1,51 @@
+"""The ``elopt`` command line: one verb per job (solve, check, run, resume, front, show)."""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from elopt.optimizer import __version__
+from elopt.physics.errors import ElOptError
+from elopt.physics.threads import limit_blas_threads
+
+#: Modules that each define ``add_parser(subparsers)``; one verb (or a few) per module.
+VERB_MODULES: list[str] = []
+VERB_MODULES += ["elopt.optimizer.cli.run", "elopt.optimizer.cli.front", "elopt.optimizer.cli.show"]
+VERB_MODULES += ["elopt.optimizer.cli.solve", "elopt.optimizer.cli.check"]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="elopt",
+        description="Design capacitive-sensor electrodes: solve for the surface charge of a "
+        "parameterised electrode and search its shape under a peak-surface-field limit.",
+    )
+    parser.add_argument("--version", action="version", version=f"elopt {__version__}")
+    subparsers = parser.add_subparsers(dest="verb", metavar="VERB")
+    for module_name in VERB_MODULES:
+        importlib.import_module(module_name).add_parser(subparsers)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    limit_blas_threads()
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.verb is None:
+        parser.print_help()
+        return 0
+    try:
+        return int(args.func(args))
+    except ElOptError as exc:
+        print(f"elopt: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("elopt: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

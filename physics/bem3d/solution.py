@@ -1,0 +1,284 @@
+"""Result of a 3-D panel solve: charges, fields, capacitance matrix and shape derivatives.
+
+Points are (x, y, z) in metres. Densities are the panel values of the finest level; the
+coarser levels give the error estimates. On an open thin sheet the unknown is the density
+summed over both faces; :meth:`PanelSolution.surface_samples` splits it into the two faces
+from the normal field just off each face (one sample per face and panel, normals pointing
+out of that face), so a sheet's samples cover both faces.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+
+from elopt.physics.bem3d.evaluate import directional_derivative, potential_and_gradient
+from elopt.physics.bem3d.operators import SolveStats
+from elopt.physics.bem3d.panels import PanelSet
+from elopt.physics.bem3d.plane_rule import plane_rule
+from elopt.physics.errors import SolverError
+from elopt.physics.layout import Layout
+from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+
+#: Points for the one-sided field of a sheet face sit this many panel sizes off the panel.
+_FACE_OFFSET = 1e-7
+
+
+@dataclass(frozen=True, eq=False)
+class LevelResult3D:
+    """One level: panels, unit-potential densities (N, n) C/m^2 per V, applied-field
+    response (N,), capacitance matrix (n, n) F, applied-field charges (n,) C, solve stats."""
+
+    panels: PanelSet
+    sigma_unit: np.ndarray
+    sigma_applied: np.ndarray
+    capacitance_F: np.ndarray
+    applied_charges_C: np.ndarray
+    stats: SolveStats
+
+    def excitation(self, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+        """Conductor potentials (n,) V and panel densities (N,) at the layout's excitation."""
+        volts = excitation_potentials(layout, self.capacitance_F, self.applied_charges_C)
+        return volts, self.sigma_unit @ volts + self.sigma_applied
+
+
+class PanelSolution(ChargeSolution):
+    """See :class:`elopt.physics.solution.ChargeSolution`; ``levels`` holds every level solved.
+
+    Beyond the contract: ``capacitance_matrix_extrapolated_F`` (Richardson, or None),
+    ``convergence_rate`` (observed or assumed order in h, or None), ``level``,
+    :meth:`plane_tilt_derivative_F_per_rad` and :meth:`conductor_capacitance_derivative_F_per_m`.
+    """
+
+    point_dim = 3
+
+    def __init__(
+        self,
+        layout: Layout,
+        levels: tuple[LevelResult3D, ...],
+        rel_error_estimate: float,
+        requested_accuracy: float,
+        capacitance_extrapolated_F: np.ndarray | None,
+        convergence_rate: float | None,
+    ) -> None:
+        self.layout = layout
+        self.levels = levels
+        self.rel_error_estimate = float(rel_error_estimate)
+        self.requested_accuracy = float(requested_accuracy)
+        self.accuracy_met = bool(self.rel_error_estimate <= self.requested_accuracy)
+        self.capacitance_matrix_extrapolated_F = capacitance_extrapolated_F
+        self.convergence_rate = convergence_rate
+        fine = levels[-1]
+        self._fine = fine
+        self.panels = fine.panels
+        self.level = fine.panels.level
+        self.n_unknowns = fine.panels.n
+        self.capacitance_matrix_F = fine.capacitance_F
+        self.potentials_V, self.sigma_C_per_m2 = fine.excitation(layout)
+        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
+
+    @property
+    def eps(self) -> float:
+        return self.layout.eps_F_per_m
+
+    # -- fields anywhere ---------------------------------------------------------------------
+    def _points(self, points_m: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points_m, dtype=float))
+        if pts.ndim != 2 or pts.shape[1] != 3:
+            raise SolverError(f"points must have shape (M, 3) of (x, y, z) in m, got {pts.shape}")
+        if not np.all(np.isfinite(pts)):
+            raise SolverError("points must be finite")
+        return pts
+
+    def _integrals(self, level: LevelResult3D, dens: np.ndarray, pts: np.ndarray):
+        return potential_and_gradient(level.panels, dens, pts)
+
+    def potential_at(self, points_m: np.ndarray) -> np.ndarray:
+        pts = self._points(points_m)
+        pot, _ = self._integrals(self._fine, self.sigma_C_per_m2, pts)
+        return pot[:, 0] / self.eps - self.layout.applied_field_V_per_m * pts[:, 2]
+
+    def field_at(self, points_m: np.ndarray) -> np.ndarray:
+        pts = self._points(points_m)
+        _, grad = self._integrals(self._fine, self.sigma_C_per_m2, pts)
+        e = -grad[:, :, 0] / self.eps
+        e[:, 2] += self.layout.applied_field_V_per_m
+        return e
+
+    # -- surface -----------------------------------------------------------------------------
+    def _face_samples(self, level: LevelResult3D, dens: np.ndarray, applied: bool) -> dict:
+        """Samples of every panel (closed: one; sheet: one per face) for densities (N, K)."""
+        p = level.panels
+        mesh = p.mesh
+        idx = np.arange(p.n)
+        sheet = np.nonzero(p.sheet)[0]
+        points = [mesh.centroids_m]
+        normals = [mesh.normals]
+        panel = [idx]
+        sigma = [dens]
+        area = [mesh.areas_m2]
+        if len(sheet):
+            # Replace each sheet panel by its two faces: sigma_face = eps E . n_face just off it.
+            offset = (_FACE_OFFSET * mesh.diameters_m[sheet])[:, None] * mesh.normals[sheet]
+            c = mesh.centroids_m[sheet]
+            probes = np.concatenate([c + offset, c - offset])
+            n2 = np.concatenate([mesh.normals[sheet], -mesh.normals[sheet]])
+            # eps E . n = -grad(pot integral) . n (the 1/eps of the potential cancels).
+            face = -directional_derivative(level.panels, dens, probes, n2)
+            if applied:
+                face += (self.eps * self.layout.applied_field_V_per_m * n2[:, 2])[:, None]
+            keep = ~p.sheet
+            points = [mesh.centroids_m[keep], c, c]
+            normals = [mesh.normals[keep], mesh.normals[sheet], -mesh.normals[sheet]]
+            panel = [idx[keep], sheet, sheet]
+            sigma = [dens[keep], face[: len(sheet)], face[len(sheet) :]]
+            area = [mesh.areas_m2[keep], mesh.areas_m2[sheet], mesh.areas_m2[sheet]]
+        panel_all = np.concatenate(panel)
+        return {
+            "points_m": np.concatenate(points),
+            "normals": np.concatenate(normals),
+            "panel": panel_all,
+            "owner": p.owner[panel_all],
+            "sigma": np.concatenate(sigma),
+            "area_m2": np.concatenate(area),
+        }
+
+    def _excitation_samples(self, level: LevelResult3D) -> dict:
+        _, sigma = level.excitation(self.layout)
+        return self._face_samples(level, sigma[:, None], applied=True)
+
+    @cached_property
+    def _fine_samples(self) -> dict:
+        return self._excitation_samples(self._fine)
+
+    @cached_property
+    def _unit_samples(self) -> dict:
+        return self._face_samples(self._fine, self._fine.sigma_unit, applied=False)
+
+    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
+        k = self.layout.index(conductor)
+        s = self._fine_samples
+        sel = s["owner"] == k
+        sigma = s["sigma"][sel, 0]
+        return {
+            "points_m": s["points_m"][sel],
+            "normals": s["normals"][sel],
+            "sigma_C_per_m2": sigma,
+            "area_m2": s["area_m2"][sel],
+            "field_V_per_m": np.abs(sigma) / self.eps,
+        }
+
+    def _peaks(self, level: LevelResult3D, samples: dict) -> list[tuple[str, float, tuple, bool]]:
+        out = []
+        for k, cond in enumerate(self.layout.conductors):
+            sel = np.nonzero(samples["owner"] == k)[0]
+            field = np.abs(samples["sigma"][sel, 0]) / self.eps
+            m = int(np.argmax(field))
+            where = samples["points_m"][sel[m]]
+            singular = bool(level.panels.feature[samples["panel"][sel[m]]])
+            out.append((cond.name, float(field[m]), tuple(float(x) for x in where), singular))
+        return out
+
+    def peak_fields(self) -> tuple[PeakField, ...]:
+        fine = self._peaks(self._fine, self._fine_samples)
+        if len(self.levels) < 2:
+            return tuple(PeakField(*f, float("nan")) for f in fine)
+        coarse_level = self.levels[-2]
+        coarse = self._peaks(coarse_level, self._excitation_samples(coarse_level))
+        out = []
+        for f, c in zip(fine, coarse, strict=True):
+            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
+            out.append(PeakField(f[0], f[1], f[2], f[3], float(err)))
+        return tuple(out)
+
+    # -- the ground plane --------------------------------------------------------------------
+    def _require_plane(self) -> None:
+        if not self.layout.ground_plane:
+            raise SolverError("the layout has no ground plane (set ground_plane=True)")
+
+    @cached_property
+    def _plane_rule(self) -> tuple[np.ndarray, np.ndarray]:
+        return plane_rule(self.panels)
+
+    def _plane_unit_density(self, xy_m: np.ndarray, columns: list[int] | None = None) -> np.ndarray:
+        """Plane charge density (M, K) C/m^2 at xy (M, 2) for unit-potential columns."""
+        self._require_plane()
+        xy = np.atleast_2d(np.asarray(xy_m, dtype=float))
+        if xy.ndim != 2 or xy.shape[1] != 2:
+            raise SolverError(f"plane points must have shape (M, 2) of (x, y) in m, got {xy.shape}")
+        pts = np.concatenate([xy, np.zeros((len(xy), 1))], axis=1)
+        dens = self._fine.sigma_unit if columns is None else self._fine.sigma_unit[:, columns]
+        up = np.tile([0.0, 0.0, 1.0], (len(pts), 1))
+        # sigma_plane = eps E_z(z = 0+) = -d/dz of the potential integral (1/eps cancels).
+        return -directional_derivative(self._fine.panels, dens, pts, up)
+
+    @cached_property
+    def _plane_unit_on_rule(self) -> np.ndarray:
+        xy, _ = self._plane_rule
+        return self._plane_unit_density(xy)
+
+    def plane_quadrature(self) -> tuple[np.ndarray, np.ndarray]:
+        """The rule the plane integrals use: points (Q, 2) in m and weights (Q,) in m^2."""
+        self._require_plane()
+        return self._plane_rule
+
+    def plane_unit_charge_densities(self) -> np.ndarray:
+        """(Q, n) C/m^2 per V: the plane's charge density at the rule's points with each
+        conductor in turn at 1 V and the rest at 0."""
+        return self._plane_unit_on_rule
+
+    def plane_charge_density(self, xy_m: np.ndarray) -> np.ndarray:
+        """Induced charge density (M,) C/m^2 on the ground plane at xy (M, 2), excitation."""
+        self._require_plane()
+        xy = np.atleast_2d(np.asarray(xy_m, dtype=float))
+        pts = np.concatenate([xy, np.zeros((len(xy), 1))], axis=1)
+        return self.eps * self.field_at(pts)[:, 2]
+
+    def plane_capacitance_derivative_F_per_m(self) -> np.ndarray:
+        _, w = self._plane_rule
+        s = self._plane_unit_on_rule
+        return np.einsum("q,qi,qj->ij", w, s, s) / self.eps
+
+    def plane_sensitivity_density(self, i: int, j: int, points_m: np.ndarray) -> np.ndarray:
+        s = self._plane_unit_density(points_m, [i, j])
+        return s[:, 0] * s[:, 1] / self.eps
+
+    def plane_tilt_derivative_F_per_rad(
+        self,
+        axis_point_m: tuple[float, float] = (0.0, 0.0),
+        axis_direction: tuple[float, float] = (0.0, 1.0),
+    ) -> np.ndarray:
+        """dC/d(theta), (n, n) in F/rad, for the plane tilted by theta about an axis in it.
+
+        The axis passes through ``axis_point_m`` (x, y) along ``axis_direction`` (x, y);
+        positive theta turns the plane right-handedly about the axis, so a plane point moves
+        by dz = theta * (a_x (y - y0) - a_y (x - x0)) (toward +z where positive). Hadamard:
+        dC_ij/dtheta = (1/eps) integral sigma_i sigma_j dz/dtheta dA.
+        """
+        a = np.asarray(axis_direction, dtype=float)
+        if a.shape != (2,) or not np.linalg.norm(a) > 0:
+            raise SolverError(f"axis_direction must be a nonzero (x, y) pair, got {axis_direction}")
+        a = a / np.linalg.norm(a)
+        xy, w = self._plane_rule
+        s = self._plane_unit_on_rule
+        dz = a[0] * (xy[:, 1] - axis_point_m[1]) - a[1] * (xy[:, 0] - axis_point_m[0])
+        return np.einsum("q,qi,qj->ij", w * dz, s, s) / self.eps
+
+    def conductor_capacitance_derivative_F_per_m(
+        self, name: str, direction: tuple[float, float, float] = (0.0, 0.0, 1.0)
+    ) -> np.ndarray:
+        """dC/d(delta) (n, n) F/m for conductor ``name`` translated by delta along ``direction``.
+
+        Hadamard formula dC_ij = (1/eps) integral sigma_i sigma_j (n . d) dA over its surface
+        (both faces of a sheet).
+        """
+        k = self.layout.index(name)
+        d = np.asarray(direction, dtype=float)
+        d = d / np.linalg.norm(d)
+        s = self._unit_samples
+        sel = s["owner"] == k
+        wts = s["area_m2"][sel] * (s["normals"][sel] @ d)
+        sig = s["sigma"][sel]
+        return np.einsum("q,qi,qj->ij", wts, sig, sig) / self.eps

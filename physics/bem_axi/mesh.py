@@ -1,0 +1,366 @@
+"""Graded boundary discretisation of generating curves into high-order panels.
+
+Every piece of every conductor's curve is cut into panels; each panel carries ``order``
+Gauss-Legendre nodes on which the surface charge density is collocated and interpolated.
+Panels are graded geometrically (ratio 2) towards corners and free sheet edges, neighbours
+along a curve differ in length by at most a factor 2, and panels facing another conductor or
+the ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap.
+
+Refinement level ``level`` halves every level-0 panel ``level`` times and adds
+CORNER_LEVELS_PER_LEVEL grading levels per step at singular corners, so meshes of successive
+levels are nested.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from elopt.physics.geometry import Arc, Curve, EllipseArc, Segment
+from elopt.physics.layout import Layout
+from elopt.physics.quadrature import gauss_legendre
+
+KIND_SEGMENT, KIND_ARC, KIND_ELLIPSE = 0, 1, 2
+
+#: Bulk panels per largest extent of a conductor at level 0.
+BASE_PANELS_PER_SIZE = 2
+#: Largest turning angle of one arc panel at level 0 (radians).
+MAX_ARC_ANGLE = math.pi / 2
+#: Largest tangent turning of one ellipse-arc panel at level 0 (radians).
+ELLIPSE_TURN_ANGLE = math.pi / 8
+#: Grading halvings at a singular corner at level 0 per panel order (more for tighter
+#: requests, which use higher orders), and the halvings added per level.
+CORNER_LEVELS_0 = {4: 6, 6: 9, 8: 12}
+CORNER_LEVELS_PER_LEVEL = 4
+
+
+def corner_levels(order: int) -> int:
+    """Level-0 halvings towards a singular corner for panels of ``order`` nodes."""
+    return CORNER_LEVELS_0.get(order, 3 * order // 2)
+
+
+#: A panel is at most this many times its distance to another conductor or an image.
+GAP_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class AxiMesh:
+    """Panels of all conductors; node arrays have N = P * order rows, panel-major.
+
+    Per panel (P,): ``conductor`` index, ``kind`` (segment/arc/ellipse), ``coef`` (P, 5)
+    sub-piece coefficients, ``length_m``, ``center_m`` (P, 2), ``at_corner`` (touches a
+    singular corner). Per node (N,): ``points_m`` (N, 2), ``tangents`` (N, 2), ``normals``
+    (N, 2) outward (for sheets: the tangent turned clockwise), ``jac_m`` arc length per unit
+    reference parameter, ``weights_m`` arc-length quadrature weight, ``arc_m`` arc-length
+    coordinate from the start of the conductor's curve.
+    """
+
+    order: int
+    level: int
+    conductor: np.ndarray
+    kind: np.ndarray
+    coef: np.ndarray
+    length_m: np.ndarray
+    center_m: np.ndarray
+    at_corner: np.ndarray
+    points_m: np.ndarray
+    tangents: np.ndarray
+    normals: np.ndarray
+    jac_m: np.ndarray
+    weights_m: np.ndarray
+    arc_m: np.ndarray
+
+    @property
+    def n_panels(self) -> int:
+        return len(self.conductor)
+
+    @property
+    def n_nodes(self) -> int:
+        return len(self.points_m)
+
+    @property
+    def node_conductor(self) -> np.ndarray:
+        return np.repeat(self.conductor, self.order)
+
+    @property
+    def ring_area_m2(self) -> np.ndarray:
+        """Surface area of revolution per node (N,): 2 pi r times the arc weight."""
+        return 2 * np.pi * self.points_m[:, 0] * self.weights_m
+
+
+def panel_geometry(kind: np.ndarray, coef: np.ndarray, tau: np.ndarray):
+    """Points (B, Q, 2) and d(point)/d(tau) (B, Q, 2) at reference parameters ``tau`` (B, Q).
+
+    ``kind`` (B,) and ``coef`` (B, 5) select the panels.
+    """
+    kind = np.asarray(kind)
+    tau = np.asarray(tau, dtype=float)
+    pts = np.empty(tau.shape + (2,))
+    der = np.empty(tau.shape + (2,))
+    s = 0.5 * (tau + 1.0)
+    for k in (KIND_SEGMENT, KIND_ARC, KIND_ELLIPSE):
+        sel = np.nonzero(kind == k)[0]
+        if len(sel) == 0:
+            continue
+        c = coef[sel].T[:, :, None]
+        ss = s[sel]
+        if k == KIND_SEGMENT:  # (ar, az, br, bz)
+            pts[sel, :, 0] = c[0] + ss * (c[2] - c[0])
+            pts[sel, :, 1] = c[1] + ss * (c[3] - c[1])
+            der[sel, :, 0] = 0.5 * (c[2] - c[0])
+            der[sel, :, 1] = 0.5 * (c[3] - c[1])
+        elif k == KIND_ARC:  # (cr, cz, R, a0, a1)
+            ang = c[3] + ss * (c[4] - c[3])
+            cos, sin = np.cos(ang), np.sin(ang)
+            da = 0.5 * (c[4] - c[3]) * c[2]
+            pts[sel, :, 0] = c[0] + c[2] * cos
+            pts[sel, :, 1] = c[1] + c[2] * sin
+            der[sel, :, 0] = -da * sin
+            der[sel, :, 1] = da * cos
+        else:  # (cz, a, b, u0, u1)
+            u = c[3] + ss * (c[4] - c[3])
+            cos, sin = np.cos(u), np.sin(u)
+            du = 0.5 * (c[4] - c[3])
+            pts[sel, :, 0] = c[1] * cos
+            pts[sel, :, 1] = c[0] + c[2] * sin
+            der[sel, :, 0] = -du * c[1] * sin
+            der[sel, :, 1] = du * c[2] * cos
+    return pts, der
+
+
+def _piece_coef(piece, t0: float, t1: float) -> tuple[int, tuple[float, ...]]:
+    """Kind and coefficients of the part of ``piece`` between its parameters t0 < t1."""
+    if isinstance(piece, Segment):
+        a = piece.points(np.array([t0, t1]))
+        return KIND_SEGMENT, (a[0, 0], a[0, 1], a[1, 0], a[1, 1], 0.0)
+    if isinstance(piece, Arc):
+        ang = piece.start_angle + 0.5 * (np.array([t0, t1]) + 1) * piece.sweep
+        return KIND_ARC, (piece.center[0], piece.center[1], piece.radius, ang[0], ang[1])
+    if isinstance(piece, EllipseArc):
+        u = piece.start_u + 0.5 * (np.array([t0, t1]) + 1) * (piece.end_u - piece.start_u)
+        return KIND_ELLIPSE, (piece.center_z, piece.semi_axis_r, piece.semi_axis_z, u[0], u[1])
+    raise TypeError(f"unsupported curve piece {type(piece).__name__}")
+
+
+def _orientation(curve: Curve) -> float:
+    """+1 if the closed outline of a body/ring runs counter-clockwise in (r, z), else -1."""
+    pts = curve.sample(16)
+    if curve.kind == "body":
+        pts = np.concatenate([pts, pts[:1]])
+    x, y = pts[:, 0], pts[:, 1]
+    area = 0.5 * np.sum(x[:-1] * y[1:] - x[1:] * y[:-1])
+    return 1.0 if area >= 0 else -1.0
+
+
+def _initial_intervals(curve: Curve, level: int) -> list[list[tuple[float, float]]]:
+    h = curve.size / BASE_PANELS_PER_SIZE
+    out = []
+    for piece in curve.pieces:
+        n = math.ceil(piece.length / h - 1e-9)
+        if isinstance(piece, Arc):
+            n = max(n, math.ceil(abs(piece.sweep) / MAX_ARC_ANGLE - 1e-9))
+        if isinstance(piece, EllipseArc):
+            edges = _equal_turning_edges(piece, max(n, 1), ELLIPSE_TURN_ANGLE, level)
+            out.append([(float(edges[i]), float(edges[i + 1])) for i in range(len(edges) - 1)])
+            continue
+        n = max(n, 1) * 2**level
+        edges = np.linspace(-1.0, 1.0, n + 1)
+        out.append([(float(edges[i]), float(edges[i + 1])) for i in range(n)])
+    return out
+
+
+def _equal_turning_edges(piece: EllipseArc, n_min: int, max_turn: float, level: int) -> np.ndarray:
+    """Panel edges (parameters) of an ellipse arc that turn its tangent by equal angles.
+
+    Curvature concentrates at the tips of an elongated ellipse; equal turning puts panels there.
+    """
+    t = np.linspace(-1.0, 1.0, 4001)
+    tang = piece.tangents(t)
+    turn = np.concatenate(
+        [[0.0], np.cumsum(np.abs(np.diff(np.unwrap(np.arctan2(tang[:, 1], tang[:, 0])))))]
+    )
+    n = max(n_min, math.ceil(turn[-1] / max_turn - 1e-9)) * 2**level
+    return np.interp(np.linspace(0.0, turn[-1], n + 1), turn, t)
+
+
+def _grade_towards(intervals: list[tuple[float, float]], at_end: bool, times: int) -> None:
+    """Halve the interval touching one end of a piece ``times`` times (in place)."""
+    for _ in range(times):
+        if at_end:
+            a, b = intervals[-1]
+            m = 0.5 * (a + b)
+            intervals[-1:] = [(a, m), (m, b)]
+        else:
+            a, b = intervals[0]
+            m = 0.5 * (a + b)
+            intervals[:1] = [(a, m), (m, b)]
+
+
+def _interval_length(piece, a: float, b: float) -> float:
+    if isinstance(piece, EllipseArc):
+        x, w = gauss_legendre(8)
+        t = 0.5 * (a + b) + 0.5 * (b - a) * x
+        return float(0.5 * (b - a) * np.sum(w * np.linalg.norm(piece.derivative(t), axis=-1)))
+    return piece.length * (b - a) / 2
+
+
+def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
+    """Split panels until neighbours along the curve differ by at most a factor 2."""
+    closed = curve.kind == "ring"
+    changed = True
+    while changed:
+        changed = False
+        flat = [(k, j) for k, iv in enumerate(per_piece) for j in range(len(iv))]
+        lengths = [_interval_length(curve.pieces[k], *per_piece[k][j]) for k, j in flat]
+        n = len(flat)
+        split = set()
+        for i in range(n - 1 + int(closed)):
+            a, b = i, (i + 1) % n
+            if lengths[a] > 2.0 * lengths[b] * (1 + 1e-9):
+                split.add(flat[a])
+            elif lengths[b] > 2.0 * lengths[a] * (1 + 1e-9):
+                split.add(flat[b])
+        if split:
+            changed = True
+            for k, j in sorted(split, reverse=True):
+                a0, b0 = per_piece[k][j]
+                m = 0.5 * (a0 + b0)
+                per_piece[k][j : j + 1] = [(a0, m), (m, b0)]
+
+
+def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
+    """Mesh every conductor of ``layout`` at refinement ``level`` with ``order`` nodes/panel.
+
+    Level 0 is graded, balanced and gap-refined once (cached per layout); level L splits every
+    level-0 panel into 2**L and grades singular corners CORNER_LEVELS_PER_LEVEL * L times more.
+    """
+    per_conductor = []
+    for curve, base, corner_ends in _base_intervals(layout, corner_levels(order)):
+        intervals = []
+        for iv in base:
+            parts = []
+            for a, b in iv:
+                edges = np.linspace(a, b, 2**level + 1)
+                parts.extend(zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True))
+            intervals.append(parts)
+        for k, at_end in corner_ends:
+            _grade_towards(intervals[k], at_end, CORNER_LEVELS_PER_LEVEL * level)
+        per_conductor.append((curve, intervals, corner_ends))
+    return _assemble_mesh(layout, per_conductor, level, order)
+
+
+@lru_cache(maxsize=8)
+def _base_intervals(layout: Layout, grading: int):
+    """Level-0 parameter intervals per piece of every conductor, and its singular corner ends."""
+    per_conductor = []
+    for cond in layout.conductors:
+        curve: Curve = cond.shape
+        intervals = _initial_intervals(curve, 0)
+        corner_ends: set[tuple[int, bool]] = set()
+        n_pieces = len(curve.pieces)
+        for corner in curve.corners():
+            times = grading if corner.singular else max(grading // 2, 1)
+            sides = [(corner.piece_index, corner.at_end)]
+            if corner.angle > 0:
+                sides.append(((corner.piece_index + 1) % n_pieces, False))
+            for k, at_end in sides:
+                _grade_towards(intervals[k], at_end, times)
+                if corner.singular:
+                    corner_ends.add((k, at_end))
+        _balance(curve, intervals)
+        per_conductor.append((curve, intervals, frozenset(corner_ends)))
+    _refine_gaps(layout, per_conductor)
+    return tuple(
+        (curve, tuple(tuple(iv) for iv in intervals), ends)
+        for curve, intervals, ends in per_conductor
+    )
+
+
+def _refine_gaps(layout: Layout, per_conductor) -> None:
+    """Split panels longer than GAP_FACTOR times their distance to other surfaces/images."""
+    samples = [cond.shape.sample(24) for cond in layout.conductors]
+    clouds = []
+    for ci in range(len(samples)):
+        others = [samples[j] for j in range(len(samples)) if j != ci]
+        if layout.ground_plane:
+            others += [s * np.array([1.0, -1.0]) for s in samples]
+        clouds.append(np.concatenate(others) if others else None)
+    for ci, (curve, intervals, _) in enumerate(per_conductor):
+        cloud = clouds[ci]
+        if cloud is None:
+            continue
+        for _ in range(40):
+            any_split = False
+            for k, piece in enumerate(curve.pieces):
+                iv = intervals[k]
+                ab = np.array(iv)
+                centres = piece.points(ab.mean(axis=1))
+                dist = np.sqrt(
+                    np.min(np.sum((centres[:, None, :] - cloud[None]) ** 2, axis=-1), axis=1)
+                )
+                lengths = np.array([_interval_length(piece, a, b) for a, b in iv])
+                bad = np.nonzero(lengths > GAP_FACTOR * dist)[0]
+                for j in bad[::-1]:
+                    a, b = iv[j]
+                    m = 0.5 * (a + b)
+                    iv[j : j + 1] = [(a, m), (m, b)]
+                any_split |= len(bad) > 0
+            if not any_split:
+                break
+            _balance(curve, intervals)
+
+
+def _assemble_mesh(layout: Layout, per_conductor, level: int, order: int) -> AxiMesh:
+    xg, wg = gauss_legendre(order)
+    conductor, kind, coef, at_corner = [], [], [], []
+    arc_start = []
+    for ci, (curve, intervals, corner_ends) in enumerate(per_conductor):
+        s0 = 0.0
+        for k, piece in enumerate(curve.pieces):
+            iv = intervals[k]
+            for j, (a, b) in enumerate(iv):
+                kd, cf = _piece_coef(piece, a, b)
+                conductor.append(ci)
+                kind.append(kd)
+                coef.append(cf)
+                touches = ((k, False) in corner_ends and j == 0) or (
+                    (k, True) in corner_ends and j == len(iv) - 1
+                )
+                at_corner.append(touches)
+                arc_start.append(s0)
+                s0 += _interval_length(piece, a, b)
+    conductor_a = np.array(conductor, dtype=np.int64)
+    kind_a = np.array(kind, dtype=np.int64)
+    coef_a = np.array(coef, dtype=float)
+    tau = np.broadcast_to(xg, (len(kind_a), order))
+    pts, der = panel_geometry(kind_a, coef_a, tau)
+    jac = np.linalg.norm(der, axis=-1)
+    tang = der / jac[..., None]
+    signs = np.array(
+        [_orientation(c.shape) if c.shape.kind != "sheet" else 1.0 for c in layout.conductors]
+    )
+    sgn = signs[conductor_a][:, None, None]
+    normals = sgn * np.stack([tang[..., 1], -tang[..., 0]], axis=-1)
+    weights = jac * wg
+    length = weights.sum(axis=1)
+    arc = np.array(arc_start)[:, None] + 0.5 * (xg + 1.0) * length[:, None]
+    center, _ = panel_geometry(kind_a, coef_a, np.zeros((len(kind_a), 1)))
+    return AxiMesh(
+        order=order,
+        level=level,
+        conductor=conductor_a,
+        kind=kind_a,
+        coef=coef_a,
+        length_m=length,
+        center_m=center[:, 0, :],
+        at_corner=np.array(at_corner, dtype=bool),
+        points_m=pts.reshape(-1, 2),
+        tangents=tang.reshape(-1, 2),
+        normals=normals.reshape(-1, 2),
+        jac_m=jac.reshape(-1),
+        weights_m=weights.reshape(-1),
+        arc_m=arc.reshape(-1),
+    )

@@ -1,0 +1,349 @@
+"""Compiled far-field sums of the ring kernels (numba): the hot loops of the solver.
+
+``potential_sum`` and ``field_sum`` fill target-by-source matrices with the ring kernels of
+:mod:`elopt.physics.bem_axi.ring_kernels`, real sources minus their images in z = 0 when asked, times the
+source quadrature weights. The complete elliptic integrals come from the arithmetic-geometric
+K from Moshier's rational-log approximation, E with K from the arithmetic-geometric mean,
+E(m) = K(m) (1 - sum 2^(n-1) c_n^2) (DLMF 19.8.6). Coincident target and source give 0 (the
+caller supplies the singular self terms). The near-field rules loop over graded sub-pieces
+without padded temporaries; ``tests/benchmarks/bench_axi.py`` compares the far sum with the
+vectorised scipy form.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+_SMALL_M = 1e-7
+
+
+# Rational-log approximation K(m) = P(m1) - ln(m1) Q(m1), relative error below 3e-16 on
+# [0, 1] (Moshier, Methods and Programs for Mathematical Functions, 1989, routine ellpk;
+# the same approximation as scipy.special.ellipkm1). Coefficients highest degree first.
+_K_P = np.array(
+    [
+        1.37982864606273237150e-4, 2.28025724005875567385e-3, 7.97404013220415179367e-3,
+        9.85821379021226008714e-3, 6.87489687449949877925e-3, 6.18901033637687613229e-3,
+        8.79078273952743772254e-3, 1.49380448916805252718e-2, 3.08851465246711995998e-2,
+        9.65735902811690126535e-2, 1.38629436111989062502e0,
+    ]
+)  # fmt: skip
+_K_Q = np.array(
+    [
+        2.94078955048598507511e-5, 9.14184723865917226571e-4, 5.94058303753167793257e-3,
+        1.54850516649762399335e-2, 2.39089602715924892727e-2, 3.01204715227604046988e-2,
+        3.73774314173823228969e-2, 4.88280347570998239232e-2, 7.03124996963957469739e-2,
+        1.24999999999870820058e-1, 4.99999999999999999821e-1,
+    ]
+)  # fmt: skip
+_LN4 = 1.3862943611198906188
+
+
+@njit(cache=True)
+def _ellip_k(m1: float) -> float:
+    """K(1 - m1) for 0 < m1 <= 1 (complete elliptic integral, complementary parameter)."""
+    if m1 < 1.1102230246251565e-16:
+        return _LN4 - 0.5 * math.log(m1)
+    p = _K_P[0]
+    q = _K_Q[0]
+    for i in range(1, 11):
+        p = p * m1 + _K_P[i]
+        q = q * m1 + _K_Q[i]
+    return p - math.log(m1) * q
+
+
+@njit(cache=True)
+def _ellip_ke(m1: float) -> tuple[float, float]:
+    """(K, E) at parameter 1 - m1 by the arithmetic-geometric mean (DLMF 19.8.1, 19.8.6)."""
+    a = 1.0
+    b = math.sqrt(m1)
+    s = 0.5 * (1.0 - m1)
+    scale = 0.5
+    for _ in range(60):
+        if a - b <= 1e-15 * a:
+            break
+        c = 0.5 * (a - b)
+        a, b = 0.5 * (a + b), math.sqrt(a * b)
+        scale *= 2.0
+        s += scale * c * c
+    k = math.pi / (a + b)
+    return k, k * (1.0 - s)
+
+
+@njit(cache=True)
+def _ring_phi(r: float, z: float, rs: float, zs: float) -> float:
+    dz = z - zs
+    a = r + rs
+    b = r - rs
+    rp2 = a * a + dz * dz
+    rm2 = b * b + dz * dz
+    if rm2 == 0.0:
+        return 0.0
+    return rs * _ellip_k(rm2 / rp2) / (math.pi * math.sqrt(rp2))
+
+
+@njit(cache=True)
+def _ring_e(r: float, z: float, rs: float, zs: float) -> tuple[float, float]:
+    dz = z - zs
+    rp2 = (r + rs) ** 2 + dz * dz
+    rm2 = (r - rs) ** 2 + dz * dz
+    if rm2 == 0.0:
+        return 0.0, 0.0
+    m1 = rm2 / rp2
+    k, e = _ellip_ke(m1)
+    rp = math.sqrt(rp2)
+    ez = rs * dz * e / (math.pi * rp * rm2)
+    if 1.0 - m1 < _SMALL_M:
+        rho2 = rs * rs + dz * dz
+        er = r * rs * (2 * dz * dz - rs * rs) / (4 * rho2**2.5)
+    else:
+        er = rs * (k - e * (rs * rs - r * r + dz * dz) / rm2) / (2 * math.pi * r * rp)
+    return er, ez
+
+
+@njit(cache=True)
+def potential_sum(
+    tr: np.ndarray, tz: np.ndarray, sr: np.ndarray, sz: np.ndarray, w: np.ndarray, image: bool
+) -> np.ndarray:
+    """(M, N): w_n [G(t_m, s_n) - image * G(t_m, s_n mirrored)], G the ring potential."""
+    out = np.empty((tr.shape[0], sr.shape[0]))
+    for i in range(tr.shape[0]):
+        for j in range(sr.shape[0]):
+            v = _ring_phi(tr[i], tz[i], sr[j], sz[j])
+            if image:
+                v -= _ring_phi(tr[i], tz[i], sr[j], -sz[j])
+            out[i, j] = v * w[j]
+    return out
+
+
+@njit(cache=True)
+def field_sum(
+    tr: np.ndarray, tz: np.ndarray, sr: np.ndarray, sz: np.ndarray, w: np.ndarray, image: bool
+) -> np.ndarray:
+    """(M, N, 2): w_n [(E_r, E_z)(t_m, s_n) - image * same for the mirrored source]."""
+    out = np.empty((tr.shape[0], sr.shape[0], 2))
+    for i in range(tr.shape[0]):
+        for j in range(sr.shape[0]):
+            er, ez = _ring_e(tr[i], tz[i], sr[j], sz[j])
+            if image:
+                er2, ez2 = _ring_e(tr[i], tz[i], sr[j], -sz[j])
+                er -= er2
+                ez -= ez2
+            out[i, j, 0] = er * w[j]
+            out[i, j, 1] = ez * w[j]
+    return out
+
+
+@njit(cache=True)
+def _panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, float]:
+    """(r, z, |d(point)/d(tau)|) of a panel (see elopt.physics.bem_axi.mesh.panel_geometry)."""
+    s = 0.5 * (tau + 1.0)
+    if kind == 0:
+        return (
+            c[0] + s * (c[2] - c[0]),
+            c[1] + s * (c[3] - c[1]),
+            0.5 * math.hypot(c[2] - c[0], c[3] - c[1]),
+        )
+    if kind == 1:
+        ang = c[3] + s * (c[4] - c[3])
+        return (
+            c[0] + c[2] * math.cos(ang),
+            c[1] + c[2] * math.sin(ang),
+            0.5 * abs(c[4] - c[3]) * c[2],
+        )
+    u = c[3] + s * (c[4] - c[3])
+    du = 0.5 * abs(c[4] - c[3])
+    return (
+        c[1] * math.cos(u),
+        c[0] + c[2] * math.sin(u),
+        du * math.hypot(c[1] * math.sin(u), c[2] * math.cos(u)),
+    )
+
+
+@njit(cache=True)
+def _lagrange(tau: float, x: np.ndarray, bary: np.ndarray, out: np.ndarray) -> None:
+    p = x.shape[0]
+    total = 0.0
+    for k in range(p):
+        d = tau - x[k]
+        if d == 0.0:
+            for j in range(p):
+                out[j] = 0.0
+            out[k] = 1.0
+            return
+        out[k] = bary[k] / d
+        total += out[k]
+    for k in range(p):
+        out[k] /= total
+
+
+@njit(cache=True)
+def near_rows(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    kind: np.ndarray,
+    coef: np.ndarray,
+    tau_c: np.ndarray,
+    levels: np.ndarray,
+    mirror: bool,
+    field: bool,
+    x: np.ndarray,
+    bary: np.ndarray,
+    xq: np.ndarray,
+    wq: np.ndarray,
+) -> np.ndarray:
+    """Accurate rows (B, p, ncomp) for near (target, panel) pairs.
+
+    Each panel is cut at ``tau_c[b]`` and graded towards it (ratio 2, ``levels[b]`` pieces per
+    side, the innermost touching the cut); every piece takes the Gauss rule (xq, wq); sigma is
+    the panel's Lagrange interpolant on nodes ``x`` (barycentric weights ``bary``).
+    """
+    n_pairs = tr.shape[0]
+    p = x.shape[0]
+    ncomp = 2 if field else 1
+    out = np.zeros((n_pairs, p, ncomp))
+    lag = np.empty(p)
+    for b in range(n_pairs):
+        tc = tau_c[b]
+        for side in (1.0, -1.0):
+            span = 1.0 - tc if side > 0 else tc + 1.0
+            if span <= 0.0:
+                continue
+            for k in range(levels[b]):
+                hi = 2.0 ** (-k)
+                lo = 0.0 if k == levels[b] - 1 else 2.0 ** (-(k + 1))
+                mid = 0.5 * (hi + lo) * span
+                half = 0.5 * (hi - lo) * span
+                for q in range(xq.shape[0]):
+                    tau = tc + side * (mid + half * xq[q])
+                    rs, zs, jac = _panel_point(kind[b], coef[b], tau)
+                    if mirror:
+                        zs = -zs
+                    wt = wq[q] * half * jac
+                    _lagrange(tau, x, bary, lag)
+                    if field:
+                        er, ez = _ring_e(tr[b], tz[b], rs, zs)
+                        for j in range(p):
+                            out[b, j, 0] += er * wt * lag[j]
+                            out[b, j, 1] += ez * wt * lag[j]
+                    else:
+                        v = _ring_phi(tr[b], tz[b], rs, zs) * wt
+                        for j in range(p):
+                            out[b, j, 0] += v * lag[j]
+    return out
+
+
+@njit(cache=True)
+def self_rows(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    kind: np.ndarray,
+    coef: np.ndarray,
+    tau_t: np.ndarray,
+    levels: np.ndarray,
+    x: np.ndarray,
+    bary: np.ndarray,
+    xq: np.ndarray,
+    wq: np.ndarray,
+    logw_end: np.ndarray,
+) -> np.ndarray:
+    """Self-panel rows (B, p): target on its own panel at parameter ``tau_t[b]``.
+
+    Graded as in :func:`near_rows`; the two innermost pieces use the exact split
+    K(m) = A(m1) - K(m1) ln(m1) / pi with the logarithm integrated by the product weights
+    ``logw_end`` (singularity at the piece's end u = -1).
+    """
+    n_t = tr.shape[0]
+    p = x.shape[0]
+    out = np.zeros((n_t, p))
+    lag = np.empty(p)
+    for b in range(n_t):
+        tc = tau_t[b]
+        r, z = tr[b], tz[b]
+        for side in (1.0, -1.0):
+            span = 1.0 - tc if side > 0 else tc + 1.0
+            if span <= 0.0:
+                continue
+            for k in range(levels[b]):
+                hi = 2.0 ** (-k)
+                inner = k == levels[b] - 1
+                lo = 0.0 if inner else 2.0 ** (-(k + 1))
+                mid = 0.5 * (hi + lo) * span
+                half = 0.5 * (hi - lo) * span
+                for q in range(xq.shape[0]):
+                    dist = mid + half * xq[q]
+                    tau = tc + side * dist
+                    rs, zs, jac = _panel_point(kind[b], coef[b], tau)
+                    _lagrange(tau, x, bary, lag)
+                    if inner:
+                        dz = z - zs
+                        rp2 = (r + rs) ** 2 + dz * dz
+                        rm2 = (r - rs) ** 2 + dz * dz
+                        m1 = rm2 / rp2
+                        pref = rs / (math.pi * math.sqrt(rp2))
+                        k_m = _ellip_k(m1)
+                        k_m1 = _ellip_k(4.0 * r * rs / rp2)
+                        f1 = pref * (k_m + (2.0 / math.pi) * k_m1 * math.log(dist))
+                        f2 = -pref * (2.0 / math.pi) * k_m1
+                        v = half * jac * (wq[q] * f1 + (wq[q] * math.log(half) + logw_end[q]) * f2)
+                    else:
+                        v = _ring_phi(r, z, rs, zs) * wq[q] * half * jac
+                    for j in range(p):
+                        out[b, j] += v * lag[j]
+    return out
+
+
+@njit(cache=True)
+def foot_points(
+    tr: np.ndarray, tz: np.ndarray, kind: np.ndarray, coef: np.ndarray, mirror: bool
+) -> tuple[np.ndarray, np.ndarray]:
+    """Reference parameter (B,) of the panel point nearest each target, and the distance (B,).
+
+    Exact projection for segments and arcs; ellipse arcs by sampling and local refinement.
+    ``mirror`` uses the panel's image in z = 0.
+    """
+    n = tr.shape[0]
+    tau = np.empty(n)
+    dist = np.empty(n)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(n):
+        c = coef[b]
+        r, z = tr[b], sgn * tz[b]
+        if kind[b] == 0:
+            dr, dz = c[2] - c[0], c[3] - c[1]
+            s = ((r - c[0]) * dr + (z - c[1]) * dz) / (dr * dr + dz * dz)
+            s = min(max(s, 0.0), 1.0)
+            tau[b] = 2.0 * s - 1.0
+            dist[b] = math.hypot(r - c[0] - s * dr, z - c[1] - s * dz)
+        elif kind[b] == 1:
+            a0, a1 = c[3], c[4]
+            ang = math.atan2(z - c[1], r - c[0])
+            lo, hi = min(a0, a1), max(a0, a1)
+            mid = 0.5 * (lo + hi)
+            ang = ang + 2 * math.pi * round((mid - ang) / (2 * math.pi))
+            if ang < lo or ang > hi:
+                d_lo = math.hypot(r - c[0] - c[2] * math.cos(lo), z - c[1] - c[2] * math.sin(lo))
+                d_hi = math.hypot(r - c[0] - c[2] * math.cos(hi), z - c[1] - c[2] * math.sin(hi))
+                ang = lo if d_lo < d_hi else hi
+            s = (ang - a0) / (a1 - a0)
+            tau[b] = 2.0 * s - 1.0
+            dist[b] = math.hypot(r - c[0] - c[2] * math.cos(ang), z - c[1] - c[2] * math.sin(ang))
+        else:
+            best, best_d = -1.0, 1e300
+            width = 2.0
+            center = 0.0
+            for _ in range(4):
+                for k in range(33):
+                    t = min(max(center + width * (k / 16.0 - 1.0), -1.0), 1.0)
+                    pr, pz, _ = _panel_point(kind[b], c, t)
+                    d = math.hypot(r - pr, z - pz)
+                    if d < best_d:
+                        best, best_d = t, d
+                center = best
+                width /= 8.0
+            tau[b] = best
+            dist[b] = best_d
+    return tau, dist

@@ -1,0 +1,273 @@
+"""Result of an axisymmetric solve: charges, fields, capacitance matrix and its derivatives.
+
+Points are (r, z) pairs in metres. Surface densities are the node values of the finest
+level; the coarser level supplies error estimates. For an open thin sheet the density is the
+sum over both faces; each face's share comes from the normal field just off it, and the
+reported surface field is that of the more charged face.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import cached_property
+
+import numpy as np
+
+from elopt.physics.bem_axi.mesh import AxiMesh, panel_geometry
+from elopt.physics.bem_axi.operators import field_matrix, potential_matrix
+from elopt.physics.errors import SolverError
+from elopt.physics.layout import Layout
+from elopt.physics.quadrature import gauss_legendre, lagrange_matrix
+from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+
+#: Evaluation points per block when building target-by-source matrices.
+_CHUNK = 2048
+
+
+@dataclass(frozen=True)
+class LevelResult:
+    """One refinement level: mesh, unit-potential densities (N, n) in C/m^2 per V,
+    the applied-field response (N,), the capacitance matrix (n, n) F and applied charges (n,)."""
+
+    mesh: AxiMesh
+    sigma_unit: np.ndarray
+    sigma_applied: np.ndarray
+    capacitance_F: np.ndarray
+    applied_charges_C: np.ndarray
+
+    def excitation(self, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
+        """Conductor potentials (n,) V and node densities (N,) at the layout's excitation."""
+        volts = excitation_potentials(layout, self.capacitance_F, self.applied_charges_C)
+        return volts, self.sigma_unit @ volts + self.sigma_applied
+
+
+class AxisymmetricSolution(ChargeSolution):
+    """See :class:`elopt.physics.solution.ChargeSolution`; ``levels`` holds every level solved."""
+
+    point_dim = 2
+
+    def __init__(
+        self,
+        layout: Layout,
+        levels: tuple[LevelResult, ...],
+        rel_error_estimate: float,
+        requested_accuracy: float,
+    ) -> None:
+        self.layout = layout
+        self.levels = levels
+        self.rel_error_estimate = rel_error_estimate
+        self.requested_accuracy = requested_accuracy
+        self.accuracy_met = rel_error_estimate <= requested_accuracy
+        fine = levels[-1]
+        self._fine = fine
+        self.mesh = fine.mesh
+        self.level = fine.mesh.level
+        self.n_unknowns = fine.mesh.n_nodes
+        self.capacitance_matrix_F = fine.capacitance_F
+        self.potentials_V, self.sigma_C_per_m2 = fine.excitation(layout)
+        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
+
+    @property
+    def eps(self) -> float:
+        return self.layout.eps_F_per_m
+
+    # -- fields anywhere ---------------------------------------------------------------------
+    def _blocks(self, points: np.ndarray, build, sigma: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points, dtype=float))
+        if pts.shape[-1] != 2:
+            raise SolverError(f"points must have shape (M, 2) of (r, z) in m, got {pts.shape}")
+        if np.any(pts[:, 0] < 0):
+            raise SolverError("points must have r >= 0")
+        out = [
+            np.tensordot(
+                build(self.mesh, pts[k : k + _CHUNK], self.layout.ground_plane),
+                sigma,
+                axes=([1], [0]),
+            )
+            for k in range(0, len(pts), _CHUNK)
+        ]
+        return np.concatenate(out) / self.eps
+
+    def potential_at(self, points_m: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points_m, dtype=float))
+        phi = self._blocks(pts, potential_matrix, self.sigma_C_per_m2)
+        return phi - self.layout.applied_field_V_per_m * pts[:, 1]
+
+    def field_at(self, points_m: np.ndarray) -> np.ndarray:
+        e = self._blocks(points_m, field_matrix, self.sigma_C_per_m2)
+        e[:, 1] += self.layout.applied_field_V_per_m
+        return e
+
+    # -- surface -----------------------------------------------------------------------------
+    def _nodes_of(self, name: str) -> np.ndarray:
+        return np.nonzero(self.mesh.node_conductor == self.layout.index(name))[0]
+
+    @cached_property
+    def _faces(self) -> np.ndarray:
+        return face_densities(self._fine, self.layout)
+
+    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
+        """See :class:`ChargeSolution`; adds ``arc_length_m`` and, per node, the density on the
+        face the normal points to (``sigma_front_C_per_m2``) and on the other face
+        (``sigma_back_C_per_m2``, zero for closed bodies). For an open sheet the field is that
+        of the more charged face."""
+        idx = self._nodes_of(conductor)
+        faces = self._faces[idx]
+        return {
+            "points_m": self.mesh.points_m[idx],
+            "arc_length_m": self.mesh.arc_m[idx],
+            "sigma_C_per_m2": self.sigma_C_per_m2[idx],
+            "sigma_front_C_per_m2": faces[:, 0],
+            "sigma_back_C_per_m2": faces[:, 1],
+            "area_m2": self.mesh.ring_area_m2[idx],
+            "field_V_per_m": np.max(np.abs(faces), axis=1) / self.eps,
+        }
+
+    def peak_fields(self) -> tuple[PeakField, ...]:
+        fine = _peaks(self._fine, self.layout)
+        if len(self.levels) < 2:
+            return tuple(PeakField(*f, float("nan")) for f in fine)
+        coarse = _peaks(self.levels[-2], self.layout)
+        out = []
+        for f, c in zip(fine, coarse, strict=True):
+            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
+            out.append(PeakField(f[0], f[1], f[2], f[3], float(err)))
+        return tuple(out)
+
+    # -- sensitivities -----------------------------------------------------------------------
+    @cached_property
+    def _plane_rule(self) -> tuple[np.ndarray, np.ndarray]:
+        return _plane_quadrature(self.mesh)
+
+    @cached_property
+    def _plane_unit_density(self) -> np.ndarray:
+        """Plane charge density (Q, n) on the plane rule for each unit-potential column."""
+        r, _ = self._plane_rule
+        return self._plane_density_columns(r, self._fine.sigma_unit)
+
+    def _plane_density_columns(self, r_m: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+        if not self.layout.ground_plane:
+            raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        pts = np.stack([np.asarray(r_m, float), np.zeros(len(r_m))], axis=1)
+        ez = self._blocks(pts, field_matrix, sigma)[:, 1]
+        return self.eps * ez
+
+    def plane_charge_density(self, r_m: np.ndarray) -> np.ndarray:
+        """Induced charge density (M,) C/m^2 on the ground plane at radii r_m (M,)."""
+        pts = np.stack([np.asarray(r_m, float), np.zeros(len(r_m))], axis=1)
+        return self.eps * self.field_at(pts)[:, 1]
+
+    def plane_capacitance_derivative_F_per_m(self) -> np.ndarray:
+        r, w = self._plane_rule
+        s = self._plane_unit_density
+        return np.einsum("q,qi,qj->ij", 2 * np.pi * r * w, s, s) / self.eps
+
+    def plane_sensitivity_density(self, i: int, j: int, points_m: np.ndarray) -> np.ndarray:
+        s = self._plane_density_columns(
+            np.asarray(points_m, float), self._fine.sigma_unit[:, [i, j]]
+        )
+        return s[:, 0] * s[:, 1] / self.eps
+
+    def conductor_capacitance_derivative_F_per_m(self, name: str) -> np.ndarray:
+        """dC/d(delta) (n, n) F/m for conductor ``name`` translated by delta along +z.
+
+        Hadamard formula dC_ij = (1/eps) integral sigma_i sigma_j n_z dA over its surface.
+        """
+        k = self.layout.index(name)
+        if self.layout.conductors[k].shape.kind == "sheet":
+            raise SolverError(
+                f"conductor '{name}' is an open sheet; its shape derivative needs the density of "
+                "each face, which this solver does not separate"
+            )
+        idx = self._nodes_of(name)
+        s = self._fine.sigma_unit[idx]
+        wts = self.mesh.ring_area_m2[idx] * self.mesh.normals[idx, 1]
+        return np.einsum("q,qi,qj->ij", wts, s, s) / self.eps
+
+
+#: Offset, in panel lengths, of the points where a sheet's face fields are evaluated.
+_FACE_OFFSET = 1e-7
+
+
+def face_densities(level: LevelResult, layout: Layout) -> np.ndarray:
+    """Charge density (N, 2) on the front (normal side) and back face of every node, C/m^2.
+
+    A closed body carries all its charge on the outside: (sigma, 0). For an open sheet the
+    single-layer density is the sum of both faces; each face's share is eps times the normal
+    field just off that face (evaluated 1e-7 panel lengths out).
+    """
+    mesh = level.mesh
+    _, sigma = level.excitation(layout)
+    faces = np.stack([sigma, np.zeros_like(sigma)], axis=1)
+    sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[mesh.node_conductor]
+    idx = np.nonzero(sheet)[0]
+    if len(idx) == 0:
+        return faces
+    n = mesh.normals[idx]
+    delta = _FACE_OFFSET * mesh.length_m[idx // mesh.order][:, None]
+    eps = layout.eps_F_per_m
+    applied = np.array([0.0, layout.applied_field_V_per_m])
+    for col, side in ((0, 1.0), (1, -1.0)):
+        pts = mesh.points_m[idx] + side * delta * n
+        field = (
+            np.tensordot(field_matrix(mesh, pts, layout.ground_plane), sigma, axes=([1], [0])) / eps
+        )
+        faces[idx, col] = eps * side * np.einsum("ij,ij->i", field + applied, n)
+    return faces
+
+
+def _peaks(
+    level: LevelResult, layout: Layout
+) -> list[tuple[str, float, tuple[float, float], bool]]:
+    """Per conductor: name, peak surface field, its (r, z), and whether it sits at a corner."""
+    mesh = level.mesh
+    faces = face_densities(level, layout)
+    p = mesh.order
+    # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
+    tau = np.linspace(-1.0, 1.0, 4 * p + 1)
+    lag = lagrange_matrix(tau, p).T
+    vals = np.maximum(
+        np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
+    )
+    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
+    out = []
+    eps = layout.eps_F_per_m
+    for ci, cond in enumerate(layout.conductors):
+        panels = np.nonzero(mesh.conductor == ci)[0]
+        v = vals[panels]
+        k = np.unravel_index(int(v.argmax()), v.shape)
+        where = pts[panels[k[0]], k[1]]
+        out.append(
+            (
+                cond.name,
+                float(v[k]) / eps,
+                (float(where[0]), float(where[1])),
+                bool(mesh.at_corner[panels[k[0]]]),
+            )
+        )
+    return out
+
+
+def _plane_quadrature(mesh: AxiMesh) -> tuple[np.ndarray, np.ndarray]:
+    """Radii (Q,) and weights (Q,) (of dr) for integrals over the plane z = 0, r in [0, inf).
+
+    Intervals are no longer than 0.75 times the distance from the plane point to the nearest
+    surface node, out to ten times the largest conductor radius; a mapped rule covers the tail.
+    """
+    xg, wg = gauss_legendre(8)
+    nodes = mesh.points_m
+    r_far = 10.0 * float(np.max(nodes[:, 0]) + np.max(nodes[:, 1]))
+    edges = [0.0]
+    while edges[-1] < r_far:
+        r = edges[-1]
+        scale = float(np.min(np.hypot(nodes[:, 0] - r, nodes[:, 1])))
+        edges.append(min(r + 0.75 * scale, r_far))
+    e = np.array(edges)
+    a, b = e[:-1, None], e[1:, None]
+    r = (0.5 * (a + b) + 0.5 * (b - a) * xg).ravel()
+    w = (0.5 * (b - a) * wg).ravel()
+    xt, wt = gauss_legendre(16)
+    s = 0.5 * (xt + 1.0)
+    r_tail = r_far / s
+    w_tail = 0.5 * wt * r_far / s**2
+    return np.concatenate([r, r_tail]), np.concatenate([w, w_tail])
