@@ -9,7 +9,11 @@
 
     [solver]
     rel_accuracy = 1e-3            # requested accuracy of every trial's solve
+
+    [medium]                       # as in a solve config: eps_r, breakdown_field_V_per_m
     eps_r = 1.0
+
+    [evaluation]                   # as in a solve config: the family's evaluation options
 
     [fixed]                        # parameters held at one value
     drive_V = 10.0
@@ -39,6 +43,10 @@
 
 Every key is checked; unknown keys get the nearest valid key suggested. ``[budget]`` and
 ``[run]`` may change between run and resume; everything else is the study's identity.
+``[medium]`` and ``[evaluation]`` are read exactly as ``elopt solve`` reads them
+(:mod:`elopt.optimizer.config.shared_tables`), so a trial evaluates a design as ``solve``
+does. Studies written before ``[medium]`` existed gave ``eps_r`` in ``[solver]``; that
+spelling is still read.
 """
 
 from __future__ import annotations
@@ -55,6 +63,7 @@ from typing import Any, Literal
 
 import numpy as np
 
+from elopt.optimizer.config.shared_tables import MediumSpec, parse_medium, parse_options
 from elopt.optimizer.config.toml_tools import (
     as_choice,
     as_float,
@@ -65,7 +74,6 @@ from elopt.optimizer.config.toml_tools import (
     require,
 )
 from elopt.optimizer.errors import ConfigError
-from elopt.optimizer.study.objectives import metric_catalog
 from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec
 from elopt.physics.errors import ElOptError
 
@@ -74,6 +82,8 @@ DIRECTIONS = ("maximize", "minimize")
 _TOP_KEYS = (
     "study",
     "solver",
+    "medium",
+    "evaluation",
     "fixed",
     "search",
     "objectives",
@@ -84,24 +94,6 @@ _TOP_KEYS = (
 )
 _RUNTIME_TABLES = ("budget", "run")
 _RANGE_PROBES = 256
-_UNIT_SUFFIXES = (
-    "V_per_m",
-    "kV_per_mm",
-    "fF_per_um",
-    "F_per_m",
-    "pF",
-    "fF",
-    "mm",
-    "um",
-    "nm",
-    "m",
-    "kV",
-    "V",
-    "deg",
-    "rad",
-    "Hz",
-    "s",
-)
 
 
 @dataclass(frozen=True)
@@ -177,10 +169,15 @@ class StudySpec:
     budget: Budget
     workers: int
     rel_accuracy: float
-    eps_r: float
+    medium: MediumSpec
+    options: Any
     metrics: tuple[MetricSpec, ...]
     config_text: str
     identity: dict[str, Any]
+
+    @property
+    def eps_r(self) -> float:
+        return self.medium.eps_r
 
     @property
     def parameter_names(self) -> tuple[str, ...]:
@@ -219,14 +216,15 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
     rel_accuracy = as_float(
         solver.get("rel_accuracy", 1e-3), "solver.rel_accuracy", low=1e-8, high=0.5
     )
-    eps_r = as_float(solver.get("eps_r", 1.0), "solver.eps_r", low=1.0)
+    medium = parse_medium(_medium_table(table, solver))
+    options = parse_options(family, as_table(table.get("evaluation", {}), "evaluation"))
 
     types = _parameter_types(family)
     fixed = _parse_fixed(as_table(table.get("fixed", {}), "fixed"), types)
     search = _parse_search(as_table(require(table, "search", ""), "search"), types, fixed)
     _check_all_parameters_given(family, fixed, search)
 
-    metrics = metric_catalog(family)
+    metrics = family.metric_catalog()
     objectives = _parse_objectives(
         as_table(require(table, "objectives", ""), "objectives"), metrics
     )
@@ -250,13 +248,24 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
         budget=budget,
         workers=workers,
         rel_accuracy=rel_accuracy,
-        eps_r=eps_r,
+        medium=medium,
+        options=options,
         metrics=metrics,
         config_text=text,
         identity=study_identity(table),
     )
     _check_ranges_against_family(spec)
     return spec
+
+
+def _medium_table(table: dict[str, Any], solver: dict[str, Any]) -> dict[str, Any]:
+    """``[medium]``, with the older ``solver.eps_r`` folded in (never both)."""
+    medium = as_table(table.get("medium", {}), "medium")
+    if "eps_r" not in solver:
+        return medium
+    if "eps_r" in medium:
+        raise ConfigError("solver.eps_r: also given as medium.eps_r; give it in [medium] only")
+    return {**medium, "eps_r": as_float(solver["eps_r"], "solver.eps_r", low=1.0)}
 
 
 def default_workers() -> int:
@@ -328,14 +337,6 @@ def identity_differences(stored: dict[str, Any], given: dict[str, Any]) -> list[
         elif stored[key] != given[key]:
             out.append(f"{key}: stored {stored[key]!r}, given {given[key]!r}")
     return out
-
-
-def parameter_unit(name: str) -> str:
-    """The unit spelled by a unit-suffixed name (``gap_mm`` -> ``mm``), or ``""``."""
-    for suffix in _UNIT_SUFFIXES:
-        if name.endswith("_" + suffix):
-            return suffix.replace("_per_", "/")
-    return ""
 
 
 # ----------------------------------------------------------------------------- parts

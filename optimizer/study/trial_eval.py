@@ -1,9 +1,10 @@
 """One trial's evaluation, as a worker runs it: a task in, plain numbers and arrays out.
 
 Stateless by design: a :class:`TrialTask` carries everything (family reference, every
-parameter value, solver settings), and a :class:`TrialOutcome` carries only picklable plain
+parameter value, solver settings, medium and evaluation options), and a :class:`TrialOutcome` carries only picklable plain
 data (floats, lists, numpy arrays) — never a solution object — so any executor (a local
-process, a Dask worker on another machine) can run it. A design that breaks the family's rules
+process, a Dask worker on another machine) can run it. The design is evaluated by the same
+pipeline as ``elopt solve`` (:func:`elopt.physics.electrodes.pipeline.evaluate_design`). A design that breaks the family's rules
 or a solve that fails becomes an outcome with ``ok = False`` and the reason; nothing raises.
 """
 
@@ -19,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from elopt.physics.electrodes.base import ElectrodeFamily
+from elopt.physics.electrodes.pipeline import evaluate_design
 from elopt.physics.errors import ElOptError
 
 _FAMILIES: dict[str, ElectrodeFamily] = {}
@@ -27,7 +29,8 @@ _FAMILIES: dict[str, ElectrodeFamily] = {}
 @dataclass(frozen=True)
 class TrialTask:
     """``key`` is the coordinator's handle; ``params`` holds every parameter (unit-suffixed
-    names); ``metric_names`` are the metrics the outcome must carry (values may be NaN)."""
+    names); ``metric_names`` are the metrics the outcome must carry (values may be NaN);
+    ``options`` the family's evaluation options by name (missing ones take their defaults)."""
 
     key: int
     family_ref: str
@@ -35,6 +38,7 @@ class TrialTask:
     metric_names: tuple[str, ...]
     rel_accuracy: float
     eps_r: float
+    options: dict[str, Any] = field(default_factory=dict)
 
 
 @dataclass
@@ -70,9 +74,11 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
     try:
         family = _family(task.family_ref)
         params = family.Params(**task.params)
-        family.validate(params)
+        options = family.Options(**task.options)
         t0 = time.perf_counter()
-        evaluation = family.evaluate(params, rel_accuracy=task.rel_accuracy, eps_r=task.eps_r)
+        evaluation = evaluate_design(
+            family, params, rel_accuracy=task.rel_accuracy, eps_r=task.eps_r, options=options
+        )
         out.solve_s = time.perf_counter() - t0
         _fill(out, evaluation, task.metric_names)
     except ElOptError as exc:
@@ -86,7 +92,7 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
 
 def _family(ref: str) -> ElectrodeFamily:
     if ref not in _FAMILIES:
-        from elopt.optimizer.config.study_config import resolve_family
+        from elopt.optimizer.config import resolve_family
 
         _FAMILIES[ref] = resolve_family(ref)
     return _FAMILIES[ref]
@@ -97,7 +103,6 @@ def _fill(out: TrialOutcome, evaluation: Any, metric_names: tuple[str, ...]) -> 
     names = list(sol.layout.names)
     peak = sol.peak_field
     metrics = {k: float(v) for k, v in evaluation.metrics.items()}
-    metrics.setdefault("peak_surface_field_V_per_m", float(peak.field_V_per_m))
     for name in metric_names:
         if name not in metrics:
             out.failure = f"the family returned no metric '{name}'"
