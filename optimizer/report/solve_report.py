@@ -171,7 +171,7 @@ def render_solve_report(
     console.print(_metrics_table(family, evaluation))
     console.print()
     console.print(_capacitance_table(evaluation))
-    if getattr(family, "mirror_pair", False):
+    if family.mirror_pair:
         note = "one electrode against the mid-plane; the pair's capacitance is half of it"
     elif evaluation.solution.layout.ground_plane:
         note = "Maxwell matrix; the grounded plane is the reference conductor"
@@ -184,7 +184,7 @@ def render_solve_report(
     console.print()
     peak = evaluation.solution.peak_field
     # A pair solved above its mid-plane says so; its picture shows the mirror electrode too.
-    mirror = bool(getattr(family, "mirror_pair", False))
+    mirror = bool(family.mirror_pair)
     if evaluation.solution.point_dim == 2:  # a 3-D layout has no (r, z) cross-section
         picture = section_picture(
             evaluation.solution.layout,
