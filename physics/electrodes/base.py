@@ -9,7 +9,8 @@ frozen options dataclass declared the same way, the metrics it measures (declare
 1. ``validate(params)`` / ``validate_options(options)``: every broken rule in one
    :class:`ElectrodeError` line, before anything is built;
 2. ``build(params, eps_r=, options=)``: the :class:`Layout` in SI units;
-3. ``solve(layout, rel_accuracy=, options=)``: the discretisation that solves it;
+3. ``solve(layout, rel_accuracy=, options=)``: the discretisation that solves it (the mixins
+   of :mod:`elopt.physics.electrodes.solvers` supply it for the existing solvers);
 4. ``companion_designs(params, options)``: further designs whose solves the metrics need
    (e.g. the standoffs of a linearity sweep); the pipeline solves them, never the family;
 5. ``measure(params, options, solution, companions)``: the metrics and report data.

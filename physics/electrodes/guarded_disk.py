@@ -27,7 +27,7 @@ from elopt.physics.electrodes import metrics as m
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
-from elopt.physics.electrodes.solvers import solve_profiles
+from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
 from elopt.physics.geometry import Curve, rounded_polyline
 from elopt.physics.layout import Layout, driven
@@ -135,7 +135,7 @@ def parallel_plate_radius_m(c_sense_F: float, standoff_m: float, eps_F_per_m: fl
     return math.sqrt(c_sense_F * standoff_m / (math.pi * eps_F_per_m))
 
 
-class GuardedDisk(ElectrodeFamily):
+class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
     """Guarded disk probe over a grounded target (see the module docstring)."""
 
     name: ClassVar[str] = "guarded_disk"
@@ -201,9 +201,6 @@ class GuardedDisk(ElectrodeFamily):
             eps_r=eps_r,
             ground_plane=True,
         )
-
-    def solve(self, layout: Layout, *, rel_accuracy: float, options: Any) -> ChargeSolution:
-        return solve_profiles(layout, rel_accuracy=rel_accuracy)
 
     def companion_designs(
         self, params: GuardedDiskParams, options: GuardedDiskOptions

@@ -35,7 +35,7 @@ from elopt.physics.bem3d.surfaces import (
 from elopt.physics.electrodes import metrics as m
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
-from elopt.physics.electrodes.solvers import solve_panels
+from elopt.physics.electrodes.solvers import SolvedByPanels
 from elopt.physics.electrodes.target_tilt import (
     FF_PER_MRAD,
     FF_PER_UM,
@@ -131,7 +131,7 @@ def spot_radius_m(
     return float(r[order][min(k, len(r) - 1)])
 
 
-class GuardedPad(ElectrodeFamily):
+class GuardedPad(SolvedByPanels, ElectrodeFamily):
     """Guarded rectangular pad over a grounded, possibly tilted target (module docstring)."""
 
     name: ClassVar[str] = "guarded_pad"
@@ -193,13 +193,6 @@ class GuardedPad(ElectrodeFamily):
         options = options or GuardedPadOptions()
         base = level_layout(params, mesh_step_m(params, options), eps_r=eps_r)
         return tilted_layout(base, math.radians(params.target_tilt_deg), params.tilt_axis_x_mm * MM)
-
-    def solve(
-        self, layout: Layout, *, rel_accuracy: float, options: GuardedPadOptions
-    ) -> ChargeSolution:
-        return solve_panels(
-            self.name, layout, rel_accuracy=rel_accuracy, max_level=options.max_level
-        )
 
     def measure(
         self,

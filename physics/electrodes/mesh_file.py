@@ -34,7 +34,7 @@ from elopt.physics.bem3d.mesh_io import LENGTH_UNITS
 from elopt.physics.electrodes import metrics as m
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.guarded_pad import spot_radius_m
-from elopt.physics.electrodes.solvers import solve_panels
+from elopt.physics.electrodes.solvers import SolvedByPanels
 from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Conductor, Layout
@@ -87,7 +87,7 @@ def _unknown(table: dict, allowed: tuple[str, ...], where: str) -> None:
             raise ElectrodeError(f"{where}.{key}: unknown key; allowed keys: {', '.join(allowed)}")
 
 
-class MeshFile(ElectrodeFamily):
+class MeshFile(SolvedByPanels, ElectrodeFamily):
     """Any conductors given as triangle meshes (module docstring)."""
 
     name: ClassVar[str] = "mesh_file"
@@ -171,13 +171,6 @@ class MeshFile(ElectrodeFamily):
                 raise ElectrodeError(f"{self.name}: {exc}") from None
             conductors.append(Conductor(s.name, surface, s.potential_V, s.charge_C))
         return Layout(tuple(conductors), eps_r=eps_r, ground_plane=params.ground_plane)
-
-    def solve(
-        self, layout: Layout, *, rel_accuracy: float, options: MeshFileOptions
-    ) -> ChargeSolution:
-        return solve_panels(
-            self.name, layout, rel_accuracy=rel_accuracy, max_level=options.max_level
-        )
 
     def measure(
         self,

@@ -6,6 +6,8 @@ limit) and turns a mesh that fails its checks into the family's :class:`Electrod
 
 from __future__ import annotations
 
+from typing import Any
+
 from elopt.physics.bem3d import solve_3d
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.errors import ElectrodeError, GeometryError
@@ -27,3 +29,21 @@ def solve_panels(
         return solve_3d(layout, rel_accuracy=rel_accuracy, max_level=max_level, strict=False)
     except GeometryError as exc:
         raise ElectrodeError(f"{family}: {exc}") from None
+
+
+class SolvedByProfiles:
+    """Mixin for families whose layouts are bodies of revolution (before ElectrodeFamily)."""
+
+    def solve(self, layout: Layout, *, rel_accuracy: float, options: Any) -> ChargeSolution:
+        return solve_profiles(layout, rel_accuracy=rel_accuracy)
+
+
+class SolvedByPanels:
+    """Mixin for families of 3-D surfaces whose Options carry ``max_level``."""
+
+    name: str
+
+    def solve(self, layout: Layout, *, rel_accuracy: float, options: Any) -> ChargeSolution:
+        return solve_panels(
+            self.name, layout, rel_accuracy=rel_accuracy, max_level=options.max_level
+        )

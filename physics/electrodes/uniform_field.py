@@ -32,7 +32,7 @@ from elopt.physics.electrodes import metrics as m
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from elopt.physics.electrodes.rules import RuleBook
-from elopt.physics.electrodes.solvers import solve_profiles
+from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution
 
@@ -101,7 +101,7 @@ def uniform_radius_m(
     return float(fine[j - 1] + w * (fine[j] - fine[j - 1])), r, e
 
 
-class UniformField(ElectrodeFamily):
+class UniformField(SolvedByProfiles, ElectrodeFamily):
     """Profiled uniform-field electrode pair, solved above its mirror plane."""
 
     name: ClassVar[str] = "uniform_field"
@@ -159,9 +159,6 @@ class UniformField(ElectrodeFamily):
             eps_r=eps_r,
             ground_plane=True,
         )
-
-    def solve(self, layout: Layout, *, rel_accuracy: float, options: Any) -> ChargeSolution:
-        return solve_profiles(layout, rel_accuracy=rel_accuracy)
 
     def measure(
         self,
