@@ -9,6 +9,7 @@ import math
 import tomllib
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from elopt.optimizer.cli.main import main
@@ -17,7 +18,7 @@ from elopt.optimizer.study import evaluate_task, trial_task
 from elopt.physics.electrodes import metrics
 from elopt.physics.electrodes.base import ParameterInfo, parameter_specs
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskOptions
-from elopt.physics.electrodes.pipeline import evaluate_design
+from elopt.physics.electrodes.pipeline import design_metrics, evaluate_design
 from elopt.physics.electrodes.registry import FAMILIES, family_listing
 
 DESIGN = {
@@ -141,6 +142,12 @@ def test_family_listing_shows_parameters_units_and_ranges():
     pad = {p.name: p for p in listing["guarded_pad"].parameters}
     assert pad["target_tilt_deg"].unit == "deg" and pad["target_tilt_deg"].allowed == "[-10, 10]"
     assert listing["uniform_field"].mirror_pair is True
+    assert by_name["standoff_mm"]["mounting"] and not by_name["guard_gap_mm"]["mounting"]
+    assert FAMILIES["guarded_pad"].mounting_parameters() == (
+        "standoff_mm",
+        "target_tilt_deg",
+        "tilt_axis_x_mm",
+    )
     assert "peak_surface_field_V_per_m" in [m["name"] for m in disk["metrics"]]
 
 
@@ -173,6 +180,17 @@ def test_parameter_specs_of_a_dataclass_without_declarations():
         ("width_mm", "", "any", True),
         ("count", "", "any", False),
     ]
+
+
+def test_design_metrics_is_the_pipeline_at_fixed_settings():
+    family = FAMILIES["guarded_disk"]
+    options = GuardedDiskOptions(linearity_points=0)
+    metrics_at = design_metrics(family, rel_accuracy=0.05, eps_r=2.0, options=options)
+    direct = evaluate_design(
+        family, family.Params(**DESIGN), rel_accuracy=0.05, eps_r=2.0, options=options
+    )
+    # Bit-identical, NaN (no linearity sweep) included.
+    np.testing.assert_equal(metrics_at(DESIGN), direct.metrics)
 
 
 def test_repository_configs_still_parse():

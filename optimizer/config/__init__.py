@@ -3,8 +3,8 @@
 Both are TOML files read into frozen specs; every problem is one :class:`ConfigError` line
 naming the key, the value and the rule. ``[medium]`` and ``[evaluation]`` mean the same in
 both, so a study trial evaluates a design exactly as ``elopt solve`` does. Import from here;
-the modules behind it (``solve_config``, ``study_config``, ``shared_tables``, ``toml_tools``)
-are implementation.
+the modules behind it (``solve_config``, ``study_config``, ``shared_tables``,
+``tolerance_config``, ``toml_tools``) are implementation.
 """
 
 from elopt.optimizer.config.shared_tables import AIR_BREAKDOWN_V_PER_M, MediumSpec
@@ -24,6 +24,7 @@ from elopt.optimizer.config.study_config import (
     resolve_family,
     study_identity,
 )
+from elopt.optimizer.config.tolerance_config import parse_tolerances
 from elopt.optimizer.config.toml_tools import as_choice, as_float, as_int, load_toml
 
 __all__ = [
@@ -46,6 +47,7 @@ __all__ = [
     "parse_budget",
     "parse_solve_config",
     "parse_study_config",
+    "parse_tolerances",
     "read_solve_config",
     "resolve_family",
     "study_identity",

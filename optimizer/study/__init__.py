@@ -1,8 +1,8 @@
-"""Studies: the search (optuna ask/tell, budgets, stops), one trial's evaluation, and the
-objectives, constraints and Pareto front.
+"""Studies: the search (optuna ask/tell, budgets, stops), one trial's evaluation, the
+objectives, constraints and Pareto front, and values taken across manufacturing tolerances.
 
-Import from here; the modules behind it (``search``, ``trial_eval``, ``objectives``) are
-implementation. The search names load on first use, so a worker process that only evaluates
+Import from here; the modules behind it (``search``, ``trial_eval``, ``objectives``,
+``tolerances``) are implementation. The search names load on first use, so a worker process that only evaluates
 trials never imports optuna.
 """
 
@@ -16,6 +16,13 @@ from elopt.optimizer.study.objectives import (
     objective_values,
     pareto_front_mask,
     sampler_constraints,
+)
+from elopt.optimizer.study.tolerances import (
+    Tolerance,
+    TolerancedValues,
+    ToleranceSpec,
+    Treatment,
+    evaluate_toleranced,
 )
 from elopt.optimizer.study.trial_eval import TrialOutcome, TrialTask, evaluate_task
 
@@ -35,10 +42,15 @@ _SEARCH_NAMES = (
 )
 
 __all__ = [
+    "Tolerance",
+    "ToleranceSpec",
+    "TolerancedValues",
+    "Treatment",
     "TrialOutcome",
     "TrialTask",
     "constraint_violations",
     "evaluate_task",
+    "evaluate_toleranced",
     "objective_values",
     "pareto_front_mask",
     "sampler_constraints",

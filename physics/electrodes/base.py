@@ -42,7 +42,8 @@ class ParameterInfo:
 
     ``low``/``high`` bound the value (None: unbounded), ``*_open`` excludes the bound itself;
     ``nonzero`` refuses 0; ``whole`` asks for an integer. Relations between parameters are the
-    family's ``validate``; this is what holds for one parameter alone.
+    family's ``validate``; this is what holds for one parameter alone. ``mounting`` marks a
+    quantity of how the part is mounted (standoff, tilt) rather than how it is made.
     """
 
     unit: str
@@ -53,6 +54,7 @@ class ParameterInfo:
     high_open: bool = False
     nonzero: bool = False
     whole: bool = False
+    mounting: bool = False
 
     def range_text(self) -> str:
         """The allowed range as text: ``(0, inf)``, ``[-10, 10]``, ``!= 0``, ``any``."""
@@ -107,9 +109,10 @@ def parameter(
     high_open: bool = False,
     nonzero: bool = False,
     whole: bool = False,
+    mounting: bool = False,
 ) -> Any:
     """A dataclass field carrying its :class:`ParameterInfo` (use in Params and Options)."""
-    info = ParameterInfo(unit, meaning, low, high, low_open, high_open, nonzero, whole)
+    info = ParameterInfo(unit, meaning, low, high, low_open, high_open, nonzero, whole, mounting)
     return dataclasses.field(default=default, metadata={PARAMETER_INFO: info})
 
 
@@ -213,6 +216,11 @@ class ElectrodeFamily(ABC):
     @classmethod
     def parameter_names(cls) -> tuple[str, ...]:
         return tuple(s.name for s in cls.parameters())
+
+    @classmethod
+    def mounting_parameters(cls) -> tuple[str, ...]:
+        """Parameters that describe how the part is mounted (declared ``mounting=True``)."""
+        return tuple(s.name for s in cls.parameters() if s.info.mounting)
 
     @classmethod
     def options(cls) -> tuple[ParameterSpec, ...]:

@@ -51,9 +51,11 @@ class GuardedDiskParams:
     guard_width_mm: float = parameter("mm", "guard ring width w", low=0, low_open=True)
     thickness_mm: float = parameter("mm", "sensor and guard thickness t", low=0, low_open=True)
     fillet_mm: float = parameter("mm", "corner radius rho (0: sharp)", low=0)
-    standoff_mm: float = parameter("mm", "guard face to target d", low=0, low_open=True)
+    standoff_mm: float = parameter(
+        "mm", "guard face to target d", low=0, low_open=True, mounting=True
+    )
     drive_V: float = parameter("V", "sensor and guard potential", nonzero=True)
-    recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0)
+    recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0, mounting=True)
 
 
 @dataclass(frozen=True)

@@ -62,12 +62,19 @@ class GuardedPadParams:
     guard_width_mm: float = parameter("mm", "guard frame width", low=0, low_open=True)
     thickness_mm: float = parameter("mm", "pad and frame thickness (0: sheets)", low=0)
     fillet_mm: float = parameter("mm", "convex edge radius (0: sharp)", low=0)
-    standoff_mm: float = parameter("mm", "faces to target d", low=0, low_open=True)
+    standoff_mm: float = parameter("mm", "faces to target d", low=0, low_open=True, mounting=True)
     drive_V: float = parameter("V", "pad and guard potential", nonzero=True)
     target_tilt_deg: float = parameter(
-        "deg", "target tilt about y", default=0.0, low=-MAX_TILT_DEG, high=MAX_TILT_DEG
+        "deg",
+        "target tilt about y",
+        default=0.0,
+        low=-MAX_TILT_DEG,
+        high=MAX_TILT_DEG,
+        mounting=True,
     )
-    tilt_axis_x_mm: float = parameter("mm", "x of the tilt axis on the target", default=0.0)
+    tilt_axis_x_mm: float = parameter(
+        "mm", "x of the tilt axis on the target", default=0.0, mounting=True
+    )
 
 
 @dataclass(frozen=True)

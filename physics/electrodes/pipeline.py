@@ -10,6 +10,7 @@ adds the metrics every solve yields (:data:`~elopt.physics.electrodes.metrics.ST
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from typing import Any
 
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
@@ -80,3 +81,23 @@ def evaluate_design(
         **measured.extra,
     }
     return Evaluation(metrics=metrics, solution=solution, extra=extra)
+
+
+def design_metrics(
+    family: ElectrodeFamily,
+    *,
+    rel_accuracy: float = 1e-4,
+    eps_r: float = 1.0,
+    options: Any | None = None,
+) -> Callable[[Mapping[str, Any]], dict[str, float]]:
+    """``parameters by name -> metrics`` at fixed settings: what a sweep or a tolerance study
+    calls once per design (each call is one :func:`evaluate_design`)."""
+    resolved = resolved_options(family, options)
+
+    def metrics_at(values: Mapping[str, Any]) -> dict[str, float]:
+        params = family.Params(**values)
+        return evaluate_design(
+            family, params, rel_accuracy=rel_accuracy, eps_r=eps_r, options=resolved
+        ).metrics
+
+    return metrics_at

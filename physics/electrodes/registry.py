@@ -61,6 +61,7 @@ class FamilyInfo:
                 "meaning": s.meaning,
                 "allowed": s.allowed,
                 "required": s.required,
+                "mounting": s.info.mounting,
                 "default": default,
             }
 
