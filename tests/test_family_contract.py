@@ -91,9 +91,9 @@ class _CountingDisk(GuardedDisk):
     def __init__(self) -> None:
         self.solves = 0
 
-    def solve(self, layout, *, rel_accuracy, options):
+    def solve(self, layout, *, solve_options, options):
         self.solves += 1
-        return super().solve(layout, rel_accuracy=rel_accuracy, options=options)
+        return super().solve(layout, solve_options=solve_options, options=options)
 
 
 @pytest.mark.parametrize(("points", "solves"), [(0, 1), (3, 3), (4, 5)])

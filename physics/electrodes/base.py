@@ -9,7 +9,7 @@ frozen options dataclass declared the same way, the metrics it measures (declare
 1. ``validate(params)`` / ``validate_options(options)``: every broken rule in one
    :class:`ElectrodeError` line, before anything is built;
 2. ``build(params, eps_r=, options=)``: the :class:`Layout` in SI units;
-3. ``solve(layout, rel_accuracy=, options=)``: the discretisation that solves it (the mixins
+3. ``solve(layout, solve_options=, options=)``: the discretisation that solves it (the mixins
    of :mod:`elopt.physics.electrodes.solvers` supply it for the existing solvers);
 4. ``companion_designs(params, options)``: further designs whose solves the metrics need
    (e.g. the standoffs of a linearity sweep); the pipeline solves them, never the family;
@@ -30,6 +30,7 @@ from pathlib import Path
 from typing import Any, ClassVar, Literal
 
 from elopt.physics.layout import Layout
+from elopt.physics.refinement import SolveOptions
 from elopt.physics.solution import ChargeSolution
 
 #: Key of a parameter's :class:`ParameterInfo` in its dataclass field metadata.
@@ -266,8 +267,9 @@ class ElectrodeFamily(ABC):
         """The layout for ``params`` (SI units); calls :meth:`validate` first."""
 
     @abstractmethod
-    def solve(self, layout: Layout, *, rel_accuracy: float, options: Any) -> ChargeSolution:
-        """Solve a layout this family built (the family picks the discretisation)."""
+    def solve(self, layout: Layout, *, solve_options: SolveOptions, options: Any) -> ChargeSolution:
+        """Solve a layout this family built (the family picks the discretisation; the
+        requested accuracy and refinement limits are in ``solve_options``)."""
 
     def companion_designs(self, params: Any, options: Any) -> dict[str, Any]:
         """Further designs (key -> Params) whose solutions :meth:`measure` needs; none here."""

@@ -16,6 +16,7 @@ from typing import Any
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
 from elopt.physics.electrodes.metrics import PEAK_FIELD
 from elopt.physics.errors import ElectrodeError
+from elopt.physics.refinement import SolveOptions
 from elopt.physics.solution import ChargeSolution
 
 
@@ -32,11 +33,16 @@ def resolved_options(family: ElectrodeFamily, options: Any | None) -> Any:
 
 
 def solve_design(
-    family: ElectrodeFamily, params: Any, *, rel_accuracy: float, eps_r: float, options: Any
+    family: ElectrodeFamily,
+    params: Any,
+    *,
+    solve_options: SolveOptions,
+    eps_r: float,
+    options: Any,
 ) -> ChargeSolution:
     """Build and solve one design (``options`` already resolved)."""
     layout = family.build(params, eps_r=eps_r, options=options)
-    return family.solve(layout, rel_accuracy=rel_accuracy, options=options)
+    return family.solve(layout, solve_options=solve_options, options=options)
 
 
 def standard_metrics(solution: ChargeSolution) -> dict[str, float]:
@@ -55,15 +61,17 @@ def evaluate_design(
     """Every metric of ``family.metric_catalog()`` for one design.
 
     ``params``: the family's Params; ``rel_accuracy``: requested relative accuracy of the
-    capacitance matrix; ``eps_r``: relative permittivity of the medium; ``options``: the
+    capacitance matrix (the solver contract's defaults otherwise, not strict: the solution
+    says whether the request was met); ``eps_r``: relative permittivity of the medium; ``options``: the
     family's Options (None: the declared defaults). Raises ElectrodeError for a design or
     options that break the family's rules, SolverError when a solve fails.
     """
     options = resolved_options(family, options)
     family.validate(params)
-    solution = solve_design(family, params, rel_accuracy=rel_accuracy, eps_r=eps_r, options=options)
+    settings = SolveOptions(rel_accuracy=rel_accuracy)
+    solution = solve_design(family, params, solve_options=settings, eps_r=eps_r, options=options)
     companions = {
-        key: solve_design(family, p, rel_accuracy=rel_accuracy, eps_r=eps_r, options=options)
+        key: solve_design(family, p, solve_options=settings, eps_r=eps_r, options=options)
         for key, p in family.companion_designs(params, options).items()
     }
     measured = family.measure(params, options, solution, companions)

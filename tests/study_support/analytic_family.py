@@ -109,7 +109,7 @@ class AnalyticFamily(ElectrodeFamily):
         self.validate(params)
         return _FixtureSolution(params).layout
 
-    def solve(self, layout: Layout, *, rel_accuracy: float, options) -> ChargeSolution:
+    def solve(self, layout: Layout, *, solve_options, options) -> ChargeSolution:
         params = layout.params
         if params.delay_s:
             time.sleep(params.delay_s)

@@ -11,10 +11,10 @@ from study_support.analytic_family import AnalyticFamily
 class DyingFamily(AnalyticFamily):
     name = "dying_fixture"
 
-    def solve(self, layout, *, rel_accuracy: float, options):
+    def solve(self, layout, *, solve_options, options):
         if layout.params.width_mm > 5:
             os.kill(os.getpid(), signal.SIGKILL)
-        return super().solve(layout, rel_accuracy=rel_accuracy, options=options)
+        return super().solve(layout, solve_options=solve_options, options=options)
 
 
 FAMILY = DyingFamily()
