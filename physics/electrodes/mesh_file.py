@@ -96,10 +96,7 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
         m.SENSE,
         m.TOTAL,
-        m.PEAK_FIELD,
-        m.PEAK_X,
-        m.PEAK_Y,
-        m.PEAK_Z,
+        *m.PEAK_3D,
         m.SENSITIVITY,
         m.TILT_SENSITIVITY,
         m.SPOT,

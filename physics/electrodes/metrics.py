@@ -27,6 +27,9 @@ PEAK_R = MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either
 PEAK_X = MetricSpec("peak_field_x_mm", "mm", "x of the peak field", "either")
 PEAK_Y = MetricSpec("peak_field_y_mm", "mm", "y of the peak field", "either")
 PEAK_Z = MetricSpec("peak_field_z_mm", "mm", "height of the peak field above z = 0", "either")
+#: The peak field and where it sits, for profiles (r, z) and for 3-D layouts (x, y, z).
+PEAK_PROFILE = (PEAK_FIELD, PEAK_R, PEAK_Z)
+PEAK_3D = (PEAK_FIELD, PEAK_X, PEAK_Y, PEAK_Z)
 
 # ---------------------------------------------------------------- capacitances
 SENSE = MetricSpec(
