@@ -238,3 +238,17 @@ def test_bad_medium_or_evaluation_is_one_line(table, message):
     with pytest.raises(ConfigError, match=message) as info:
         _parse(GUARDED_DISK_STUDY.format(trials=5, workers=1) + table)
     assert "\n" not in str(info.value)
+
+
+def test_config_and_study_packages_import_light():
+    # Worker processes import these; the solvers (numba kernels) and optuna load only where
+    # a config is read or a search runs, so a worker reports version problems cleanly.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, elopt.optimizer.config, elopt.optimizer.study; "
+        "print(sorted(m for m in ('numba', 'optuna') if m in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"

@@ -33,7 +33,6 @@ from elopt.optimizer.config.shared_tables import (
 from elopt.optimizer.config.toml_tools import as_float, as_table, check_keys, load_toml, require
 from elopt.optimizer.errors import ConfigError
 from elopt.physics.electrodes.base import ElectrodeFamily
-from elopt.physics.electrodes.registry import FAMILIES
 from elopt.physics.errors import ElectrodeError
 
 DEFAULT_REL_ACCURACY = 1e-4
@@ -68,6 +67,10 @@ class SolveSpec:
 
 
 def _family(geometry: dict[str, Any], path: str) -> ElectrodeFamily:
+    # The registry loads every family and its solver (numba kernels): only when a config is
+    # read, so that importing the config package stays light for worker processes.
+    from elopt.physics.electrodes.registry import FAMILIES
+
     name = require(geometry, "family", "geometry")
     if not isinstance(name, str) or name not in FAMILIES:
         near = difflib.get_close_matches(str(name), list(FAMILIES), n=1, cutoff=0.5)
