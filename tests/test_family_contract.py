@@ -30,11 +30,12 @@ DESIGN = {
     "standoff_mm": 0.5,
     "drive_V": 10.0,
 }
-# Shared by the solve config and the study config below: a medium other than air and a
-# linearity sweep other than the default, so that a trial ignoring either would differ.
+# Shared by the solve config and the study config below: a peak-field request, a medium other
+# than air and a linearity sweep other than the default, so that a trial ignoring one differs.
 SHARED_TABLES = """
 [solver]
 rel_accuracy = 0.05
+peak_rel_accuracy = 0.05
 
 [medium]
 eps_r = 2.0

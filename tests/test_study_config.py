@@ -213,6 +213,9 @@ def test_medium_and_evaluation_tables_read_as_in_a_solve_config():
     assert spec.options == GuardedDiskOptions(linearity_range_fraction=0.2, linearity_points=3)
     default = _parse(GUARDED_DISK_STUDY.format(trials=5, workers=1))
     assert default.options == GuardedDiskOptions() and default.eps_r == 1.0
+    assert default.peak_rel_accuracy is None
+    peak = text.replace("rel_accuracy = 0.05\n", "rel_accuracy = 0.05\npeak_rel_accuracy = 0.01\n")
+    assert _parse(peak).peak_rel_accuracy == 0.01
 
 
 def test_older_solver_eps_r_still_reads_but_not_twice():

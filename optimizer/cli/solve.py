@@ -31,7 +31,12 @@ def run(args: argparse.Namespace) -> int:
     spec = read_solve_config(args.config)
     family = get_family(spec.family)
     evaluation = evaluate_design(
-        family, spec.params, rel_accuracy=spec.rel_accuracy, eps_r=spec.eps_r, options=spec.options
+        family,
+        spec.params,
+        rel_accuracy=spec.rel_accuracy,
+        peak_rel_accuracy=spec.peak_rel_accuracy,
+        eps_r=spec.eps_r,
+        options=spec.options,
     )
     if args.json:
         print(json.dumps(solve_record(spec, family, evaluation), indent=2))

@@ -3,6 +3,9 @@ study trial evaluate one design identically.
 
 ::
 
+    [solver]
+    peak_rel_accuracy = 1e-3           # optional: a request on the peak surface field
+
     [medium]                           # optional
     eps_r = 1.0                        # relative permittivity around the conductors
     breakdown_field_V_per_m = 3e6      # field limit the reports compare the peak with
@@ -56,6 +59,14 @@ def parse_medium(table: dict[str, Any], *, where: str = "medium") -> MediumSpec:
     if eps_r == 1.0:
         return MediumSpec(eps_r)
     return MediumSpec(eps_r, None, f"no [{where}] breakdown_field_V_per_m given")
+
+
+def parse_peak_accuracy(solver: dict[str, Any], *, where: str = "solver") -> float | None:
+    """``peak_rel_accuracy`` of the ``[solver]`` table: a separate request on the peak surface
+    field (None when not given)."""
+    if "peak_rel_accuracy" not in solver:
+        return None
+    return as_float(solver["peak_rel_accuracy"], f"{where}.peak_rel_accuracy", low=1e-8, high=0.1)
 
 
 def read_dataclass(cls: type, table: dict[str, Any], where: str, skip: tuple[str, ...] = ()):

@@ -6,12 +6,14 @@
     sensor_radius_mm = 4.0 ...
     [solver]                           # optional
     rel_accuracy = 1e-4
+    peak_rel_accuracy = 1e-3           # optional: a request on the peak surface field
     [medium]                           # optional (shared with study configs)
     eps_r = 1.0
     breakdown_field_V_per_m = 3e6
     [evaluation]                       # optional: the family's evaluation options
 
-``[medium]`` and ``[evaluation]`` are read exactly as a study reads them
+``[medium]``, ``[evaluation]`` and ``solver.peak_rel_accuracy`` are read exactly as a study
+reads them
 (:mod:`elopt.optimizer.config.shared_tables`). Every problem is one :class:`ConfigError` line
 that starts with the config's path.
 """
@@ -28,6 +30,7 @@ from elopt.optimizer.config.shared_tables import (
     MediumSpec,
     parse_medium,
     parse_options,
+    parse_peak_accuracy,
     read_params,
 )
 from elopt.optimizer.config.toml_tools import as_float, as_table, check_keys, load_toml, require
@@ -52,6 +55,7 @@ class SolveSpec:
     options: Any
     rel_accuracy: float
     medium: MediumSpec
+    peak_rel_accuracy: float | None = None
 
     @property
     def eps_r(self) -> float:
@@ -93,13 +97,14 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
         params = read_params(family, geometry, "geometry", Path(path).parent)
         options = parse_options(family, as_table(table.get("evaluation", {}), "evaluation"))
         solver = as_table(table.get("solver", {}), "solver")
-        check_keys(solver, ("rel_accuracy",), "solver")
+        check_keys(solver, ("rel_accuracy", "peak_rel_accuracy"), "solver")
         rel_accuracy = as_float(
             solver.get("rel_accuracy", DEFAULT_REL_ACCURACY),
             "solver.rel_accuracy",
             low=1e-8,
             high=0.1,
         )
+        peak_rel_accuracy = parse_peak_accuracy(solver)
         medium = parse_medium(as_table(table.get("medium", {}), "medium"))
         try:
             family.validate(params)
@@ -116,6 +121,7 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
         options=options,
         rel_accuracy=rel_accuracy,
         medium=medium,
+        peak_rel_accuracy=peak_rel_accuracy,
     )
 
 

@@ -9,6 +9,7 @@
 
     [solver]
     rel_accuracy = 1e-3            # requested accuracy of every trial's solve
+    peak_rel_accuracy = 1e-2       # optional: a request on the peak surface field
 
     [medium]                       # as in a solve config: eps_r, breakdown_field_V_per_m
     eps_r = 1.0
@@ -43,7 +44,8 @@
 
 Every key is checked; unknown keys get the nearest valid key suggested. ``[budget]`` and
 ``[run]`` may change between run and resume; everything else is the study's identity.
-``[medium]`` and ``[evaluation]`` are read exactly as ``elopt solve`` reads them
+``[medium]``, ``[evaluation]`` and ``solver.peak_rel_accuracy`` are read exactly as
+``elopt solve`` reads them
 (:mod:`elopt.optimizer.config.shared_tables`), so a trial evaluates a design as ``solve``
 does. Studies written before ``[medium]`` existed gave ``eps_r`` in ``[solver]``; that
 spelling is still read.
@@ -63,7 +65,12 @@ from typing import Any, Literal
 
 import numpy as np
 
-from elopt.optimizer.config.shared_tables import MediumSpec, parse_medium, parse_options
+from elopt.optimizer.config.shared_tables import (
+    MediumSpec,
+    parse_medium,
+    parse_options,
+    parse_peak_accuracy,
+)
 from elopt.optimizer.config.toml_tools import (
     as_choice,
     as_float,
@@ -169,6 +176,7 @@ class StudySpec:
     budget: Budget
     workers: int
     rel_accuracy: float
+    peak_rel_accuracy: float | None
     medium: MediumSpec
     options: Any
     metrics: tuple[MetricSpec, ...]
@@ -212,10 +220,11 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
     seed = as_int(study.get("seed", 0), "study.seed", low=0, high=2**31 - 1)
 
     solver = as_table(table.get("solver", {}), "solver")
-    check_keys(solver, ("rel_accuracy", "eps_r"), "solver")
+    check_keys(solver, ("rel_accuracy", "peak_rel_accuracy", "eps_r"), "solver")
     rel_accuracy = as_float(
         solver.get("rel_accuracy", 1e-3), "solver.rel_accuracy", low=1e-8, high=0.5
     )
+    peak_rel_accuracy = parse_peak_accuracy(solver)
     medium = parse_medium(_medium_table(table, solver))
     options = parse_options(family, as_table(table.get("evaluation", {}), "evaluation"))
 
@@ -248,6 +257,7 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
         budget=budget,
         workers=workers,
         rel_accuracy=rel_accuracy,
+        peak_rel_accuracy=peak_rel_accuracy,
         medium=medium,
         options=options,
         metrics=metrics,

@@ -495,6 +495,7 @@ def trial_task(spec: StudySpec, key: int, searched: dict[str, Any]) -> TrialTask
         rel_accuracy=spec.rel_accuracy,
         eps_r=spec.eps_r,
         options=dataclasses.asdict(spec.options),
+        peak_rel_accuracy=spec.peak_rel_accuracy,
     )
 
 

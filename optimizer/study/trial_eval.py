@@ -30,7 +30,8 @@ _FAMILIES: dict[str, ElectrodeFamily] = {}
 class TrialTask:
     """``key`` is the coordinator's handle; ``params`` holds every parameter (unit-suffixed
     names); ``metric_names`` are the metrics the outcome must carry (values may be NaN);
-    ``options`` the family's evaluation options by name (missing ones take their defaults)."""
+    ``options`` the family's evaluation options by name (missing ones take their defaults);
+    ``peak_rel_accuracy`` a separate accuracy request on the peak surface field."""
 
     key: int
     family_ref: str
@@ -39,6 +40,7 @@ class TrialTask:
     rel_accuracy: float
     eps_r: float
     options: dict[str, Any] = field(default_factory=dict)
+    peak_rel_accuracy: float | None = None
 
 
 @dataclass
@@ -77,7 +79,12 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
         options = family.Options(**task.options)
         t0 = time.perf_counter()
         evaluation = evaluate_design(
-            family, params, rel_accuracy=task.rel_accuracy, eps_r=task.eps_r, options=options
+            family,
+            params,
+            rel_accuracy=task.rel_accuracy,
+            peak_rel_accuracy=task.peak_rel_accuracy,
+            eps_r=task.eps_r,
+            options=options,
         )
         out.solve_s = time.perf_counter() - t0
         _fill(out, evaluation, task.metric_names)

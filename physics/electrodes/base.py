@@ -292,6 +292,7 @@ class ElectrodeFamily(ABC):
         params: Any,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: Any = None,
     ) -> Evaluation:
@@ -299,5 +300,10 @@ class ElectrodeFamily(ABC):
         from elopt.physics.electrodes.pipeline import evaluate_design
 
         return evaluate_design(
-            self, params, rel_accuracy=rel_accuracy, eps_r=eps_r, options=options
+            self,
+            params,
+            rel_accuracy=rel_accuracy,
+            peak_rel_accuracy=peak_rel_accuracy,
+            eps_r=eps_r,
+            options=options,
         )

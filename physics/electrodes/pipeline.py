@@ -55,20 +55,22 @@ def evaluate_design(
     params: Any,
     *,
     rel_accuracy: float = 1e-4,
+    peak_rel_accuracy: float | None = None,
     eps_r: float = 1.0,
     options: Any | None = None,
 ) -> Evaluation:
     """Every metric of ``family.metric_catalog()`` for one design.
 
     ``params``: the family's Params; ``rel_accuracy``: requested relative accuracy of the
-    capacitance matrix (the solver contract's defaults otherwise, not strict: the solution
-    says whether the request was met); ``eps_r``: relative permittivity of the medium; ``options``: the
+    capacitance matrix; ``peak_rel_accuracy``: a separate request on the peak surface field
+    (None: none) (the solver contract's defaults otherwise, not strict: the solution says
+    whether the requests were met); ``eps_r``: relative permittivity of the medium; ``options``: the
     family's Options (None: the declared defaults). Raises ElectrodeError for a design or
     options that break the family's rules, SolverError when a solve fails.
     """
     options = resolved_options(family, options)
     family.validate(params)
-    settings = SolveOptions(rel_accuracy=rel_accuracy)
+    settings = SolveOptions(rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy)
     solution = solve_design(family, params, solve_options=settings, eps_r=eps_r, options=options)
     companions = {
         key: solve_design(family, p, solve_options=settings, eps_r=eps_r, options=options)
@@ -95,6 +97,7 @@ def design_metrics(
     family: ElectrodeFamily,
     *,
     rel_accuracy: float = 1e-4,
+    peak_rel_accuracy: float | None = None,
     eps_r: float = 1.0,
     options: Any | None = None,
 ) -> Callable[[Mapping[str, Any]], dict[str, float]]:
@@ -105,7 +108,12 @@ def design_metrics(
     def metrics_at(values: Mapping[str, Any]) -> dict[str, float]:
         params = family.Params(**values)
         return evaluate_design(
-            family, params, rel_accuracy=rel_accuracy, eps_r=eps_r, options=resolved
+            family,
+            params,
+            rel_accuracy=rel_accuracy,
+            peak_rel_accuracy=peak_rel_accuracy,
+            eps_r=eps_r,
+            options=resolved,
         ).metrics
 
     return metrics_at

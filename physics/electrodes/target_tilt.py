@@ -10,7 +10,7 @@ target, which the image method solves exactly; the 3-D solver does so. From one 
 - the tilt sensitivity dC_sense/dtheta (the Hadamard formula with the plane displacement
   dz = -theta (x - x_a), :meth:`PanelSolution.plane_tilt_derivative_F_per_rad`).
 
-Works for any 3-D layout whose first conductor is the sensor and second the guard.
+Works for any layout of 3-D surfaces whose first conductor is the sensor and second the guard.
 """
 
 from __future__ import annotations
