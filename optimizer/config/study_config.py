@@ -42,6 +42,11 @@
     [run]
     workers = 2                    # default: one per core
 
+    [tolerance.parameters]         # optional: judge designs across manufacturing and
+    guard_gap_mm = 0.010           # mounting deviations (see tolerance_config for the table)
+    [tolerance.apply]
+    sensitivity_fF_per_um = "worst"
+
 Every key is checked; unknown keys get the nearest valid key suggested. ``[budget]`` and
 ``[run]`` may change between run and resume; everything else is the study's identity.
 ``[medium]``, ``[evaluation]`` and ``solver.peak_rel_accuracy`` are read exactly as
@@ -71,6 +76,7 @@ from elopt.optimizer.config.shared_tables import (
     parse_options,
     parse_peak_accuracy,
 )
+from elopt.optimizer.config.tolerance_config import parse_tolerances
 from elopt.optimizer.config.toml_tools import (
     as_choice,
     as_float,
@@ -81,6 +87,7 @@ from elopt.optimizer.config.toml_tools import (
     require,
 )
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.study.tolerances import ToleranceSpec
 from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec
 from elopt.physics.errors import ElOptError
 
@@ -98,6 +105,7 @@ _TOP_KEYS = (
     "sampler",
     "budget",
     "run",
+    "tolerance",
 )
 _RUNTIME_TABLES = ("budget", "run")
 _RANGE_PROBES = 256
@@ -182,6 +190,7 @@ class StudySpec:
     metrics: tuple[MetricSpec, ...]
     config_text: str
     identity: dict[str, Any]
+    tolerance: ToleranceSpec | None = None
 
     @property
     def eps_r(self) -> float:
@@ -244,6 +253,8 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
     check_keys(run, ("workers",), "run")
     workers = as_int(run.get("workers", default_workers()), "run.workers", low=1, high=256)
 
+    tolerance = _parse_tolerance(table, family, objectives, constraints)
+
     spec = StudySpec(
         name=name,
         family_ref=family_ref,
@@ -263,9 +274,32 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
         metrics=metrics,
         config_text=text,
         identity=study_identity(table),
+        tolerance=tolerance,
     )
     _check_ranges_against_family(spec)
     return spec
+
+
+def _parse_tolerance(
+    table: dict[str, Any],
+    family: ElectrodeFamily,
+    objectives: tuple[Objective, ...],
+    constraints: tuple[Constraint, ...],
+) -> ToleranceSpec | None:
+    """``[tolerance]`` with each treated metric's worse side from its objective/constraint."""
+    if "tolerance" not in table:
+        return None
+    sides: dict[str, set[str]] = {}
+    for o in objectives:
+        sides.setdefault(o.metric, set()).add("low" if o.direction == "maximize" else "high")
+    for c in constraints:
+        sides.setdefault(c.metric, set()).add("high" if c.kind == "max" else "low")
+    directions = {m: s.pop() if len(s) == 1 else "both" for m, s in sides.items()}
+    return parse_tolerances(
+        as_table(table["tolerance"], "tolerance"),
+        parameter_names=family.parameter_names(),
+        directions=directions,
+    )
 
 
 def _medium_table(table: dict[str, Any], solver: dict[str, Any]) -> dict[str, Any]:

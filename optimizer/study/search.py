@@ -409,10 +409,12 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
         info["failure"] = outcome.failure or "unknown failure"
         rec.info = info
         return rec
+    # Objectives and constraints judge the toleranced value where the study asks for one.
+    judged = {**outcome.metrics, **outcome.toleranced}
     for name in dict.fromkeys(
         [o.metric for o in spec.objectives] + [c.metric for c in spec.constraints]
     ):
-        value = outcome.metrics.get(name, math.nan)
+        value = judged.get(name, math.nan)
         if not math.isfinite(value):
             rec.state = "failed"
             info["failure"] = (
@@ -421,8 +423,8 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
             rec.info = info
             return rec
     rec.metrics = np.array([outcome.metrics.get(m.name, np.nan) for m in spec.metrics])
-    rec.objectives = objective_values(spec, outcome.metrics)
-    rec.constraints = constraint_violations(spec, outcome.metrics)
+    rec.objectives = objective_values(spec, judged)
+    rec.constraints = constraint_violations(spec, judged)
     rec.feasible = bool(np.all(rec.constraints <= 0))
     rec.rel_error_estimate = outcome.rel_error_estimate
     rec.accuracy_met = outcome.accuracy_met
@@ -436,6 +438,8 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
     info["conductors"] = outcome.conductor_names
     if outcome.extra:
         info["extra"] = outcome.extra
+    if outcome.toleranced:
+        info["tolerance"] = {"values": outcome.toleranced, **outcome.tolerance_info}
     rec.info = info
     return rec
 
@@ -496,6 +500,7 @@ def trial_task(spec: StudySpec, key: int, searched: dict[str, Any]) -> TrialTask
         eps_r=spec.eps_r,
         options=dataclasses.asdict(spec.options),
         peak_rel_accuracy=spec.peak_rel_accuracy,
+        tolerance=spec.tolerance,
     )
 
 

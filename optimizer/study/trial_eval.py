@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from elopt.optimizer.study.tolerances import ToleranceSpec, evaluate_toleranced
 from elopt.physics.electrodes.base import ElectrodeFamily
 from elopt.physics.electrodes.pipeline import evaluate_design
 from elopt.physics.errors import ElOptError
@@ -41,6 +42,7 @@ class TrialTask:
     eps_r: float
     options: dict[str, Any] = field(default_factory=dict)
     peak_rel_accuracy: float | None = None
+    tolerance: ToleranceSpec | None = None
 
 
 @dataclass
@@ -67,6 +69,8 @@ class TrialOutcome:
     worker: int = -1
     worker_pid: int = -1
     extra: dict[str, Any] = field(default_factory=dict)
+    toleranced: dict[str, float] = field(default_factory=dict)
+    tolerance_info: dict[str, Any] = field(default_factory=dict)
 
 
 def evaluate_task(task: TrialTask) -> TrialOutcome:
@@ -86,8 +90,10 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
             eps_r=task.eps_r,
             options=options,
         )
-        out.solve_s = time.perf_counter() - t0
         _fill(out, evaluation, task.metric_names)
+        if out.ok and task.tolerance is not None:
+            _tolerance(out, task, family)
+        out.solve_s = time.perf_counter() - t0
     except ElOptError as exc:
         out.failure = f"{type(exc).__name__}: {exc}"
     except Exception as exc:  # a bug in a family must not end an overnight study
@@ -95,6 +101,41 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
         out.failure = f"unexpected {type(exc).__name__}: {exc} (at {tb.filename}:{tb.lineno})"
     out.finished_unix = time.time()
     return out
+
+
+def _tolerance(out: TrialOutcome, task: TrialTask, family: ElectrodeFamily) -> None:
+    """Toleranced values of the treated metrics; every deviation runs the same pipeline."""
+    options = family.Options(**task.options)
+
+    def evaluate(values: dict[str, float]) -> dict[str, float]:
+        params = family.Params(**values)
+        try:
+            evaluation = evaluate_design(
+                family,
+                params,
+                rel_accuracy=task.rel_accuracy,
+                peak_rel_accuracy=task.peak_rel_accuracy,
+                eps_r=task.eps_r,
+                options=options,
+            )
+        except ElOptError as exc:
+            moved = {k: v for k, v in values.items() if v != task.params.get(k)}
+            shown = ", ".join(f"{k} = {v:.6g}" for k, v in moved.items())
+            raise type(exc)(f"within tolerance ({shown}): {exc}") from None
+        return {k: float(v) for k, v in evaluation.metrics.items()}
+
+    result = evaluate_toleranced(
+        task.tolerance, task.params, evaluate, nominal=out.metrics, rel_floor=task.rel_accuracy
+    )
+    out.toleranced = dict(result.value)
+    out.tolerance_info = {
+        "method": result.method,
+        "reason": result.reason,
+        "evaluations": result.evaluations,
+        "seconds": result.seconds,
+        "driver": dict(result.driver),
+        "error": {k: (v if math.isfinite(v) else None) for k, v in result.error.items()},
+    }
 
 
 def _family(ref: str) -> ElectrodeFamily:
