@@ -37,6 +37,7 @@ from elopt.physics.bem_axi import mesh as axi_mesh
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
 from elopt.physics.layout import EPS0_F_PER_M
+from elopt.physics.threads import limit_blas_threads
 
 REQUEST = 1e-4
 SCALES = (4.0, 2.8, 2.0, 1.4, 1.0, 0.7, 0.5)
@@ -162,6 +163,7 @@ def median_time(fn, repeats: int) -> tuple[float, object]:
 
 
 def main() -> None:
+    limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=9)
     args = parser.parse_args()
