@@ -1,0 +1,321 @@
+"""Result of an axisymmetric solve with dielectrics: free charge, fields, C and derivatives.
+
+Points are (r, z) in metres. Densities on conductors are free charge (C/m^2); the surface
+field of a face is sigma_free / (eps0 eps_r of the medium touching that face). Potentials and
+fields are available anywhere in the gap that holds the conductors, inside regions included.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from functools import cached_property
+
+import numpy as np
+
+from elopt.physics.bem_axi.dielectric_solve import (
+    DielectricLevel,
+    DielectricModel,
+    solve_dielectric_level,
+)
+from elopt.physics.bem_axi.mesh import panel_geometry
+from elopt.physics.bem_axi.solution import _plane_quadrature
+from elopt.physics.errors import SolverError
+from elopt.physics.layout import EPS0_F_PER_M, Layout
+from elopt.physics.quadrature import lagrange_matrix
+from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+
+_CHUNK = 1024
+
+
+@dataclass(frozen=True)
+class FiniteDifference:
+    """A derivative by central differences: value, the step used, and an error estimate
+    (|D(h) - D(2h)| / 3, the Richardson estimate of the O(h^2) truncation error, plus the
+    discretisation noise of the two solves, which share one mesh level)."""
+
+    value: np.ndarray
+    step: float
+    rel_error_estimate: float
+
+
+class DielectricSolution(ChargeSolution):
+    """See :class:`elopt.physics.solution.ChargeSolution`; ``levels`` holds every level."""
+
+    point_dim = 2
+
+    def __init__(
+        self,
+        layout: Layout,
+        model: DielectricModel,
+        levels: tuple[DielectricLevel, ...],
+        rel_error_estimate: float,
+        requested_accuracy: float,
+        order: int,
+    ) -> None:
+        self.layout = layout
+        self.model = model
+        self.levels = levels
+        self.order = order
+        self.rel_error_estimate = rel_error_estimate
+        self.requested_accuracy = requested_accuracy
+        self.accuracy_met = rel_error_estimate <= requested_accuracy
+        fine = levels[-1]
+        self._fine = fine
+        self.mesh = fine.mesh
+        self.level = fine.mesh.level
+        self.n_unknowns = fine.mesh.n_nodes
+        self.capacitance_matrix_F = fine.capacitance_F
+        self.potentials_V = excitation_potentials(
+            layout, fine.capacitance_F, fine.applied_charges_C
+        )
+        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
+        n = len(layout.conductors)
+        self._u = fine.u[:, :n] @ self.potentials_V + fine.u[:, n]
+        self.sigma_C_per_m2 = fine.sigma_free[:, :n] @ self.potentials_V + fine.sigma_free[:, n]
+
+    # -- fields anywhere ---------------------------------------------------------------------
+    def _points(self, points_m: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points_m, dtype=float))
+        if pts.shape[-1] != 2:
+            raise SolverError(f"points must have shape (M, 2) of (r, z) in m, got {pts.shape}")
+        if np.any(pts[:, 0] < 0):
+            raise SolverError("points must have r >= 0")
+        self._fine.kernel.check_targets(pts)
+        return pts
+
+    def potential_at(self, points_m: np.ndarray) -> np.ndarray:
+        pts = self._points(points_m)
+        k = self._fine.kernel
+        phi = np.concatenate(
+            [
+                k.potential(self.mesh, pts[i : i + _CHUNK]) @ self._u
+                for i in range(0, len(pts), _CHUNK)
+            ]
+        )
+        return phi - self.layout.applied_field_V_per_m * pts[:, 1]
+
+    def field_at(self, points_m: np.ndarray) -> np.ndarray:
+        pts = self._points(points_m)
+        k = self._fine.kernel
+        e = np.concatenate(
+            [
+                np.tensordot(k.field(self.mesh, pts[i : i + _CHUNK]), self._u, axes=([1], [0]))
+                for i in range(0, len(pts), _CHUNK)
+            ]
+        )
+        e[:, 1] += self.layout.applied_field_V_per_m
+        return e
+
+    def eps_r_at(self, points_m: np.ndarray) -> np.ndarray:
+        """Relative permittivity (M,) at points (M, 2)."""
+        return self.model.geom.eps_r_at(np.atleast_2d(np.asarray(points_m, float)))
+
+    def displacement_at(self, points_m: np.ndarray) -> np.ndarray:
+        """D = eps0 eps_r E (M, 2) in C/m^2."""
+        pts = np.atleast_2d(np.asarray(points_m, float))
+        return EPS0_F_PER_M * self.eps_r_at(pts)[:, None] * self.field_at(pts)
+
+    def bound_charge_C(self, region: str) -> float:
+        """Total polarisation charge (C) on the interfaces of ``region`` that border the
+        background (at the layout's excitation); zero for a neutral body in one medium."""
+        fine = self._fine
+        nc = fine.n_conductor_nodes
+        names = [r.name for r in self.layout.regions]
+        if region not in names:
+            raise KeyError(f"no region '{region}'; regions are {names}")
+        chains = self.model.geom.chains
+        owner = fine.mesh.node_conductor[nc:] - len(self.layout.conductors)
+        sel = np.array([chains[int(c)].region == region for c in owner], bool)
+        q = EPS0_F_PER_M * self._u[nc:][sel]
+        return float(np.sum(q * fine.mesh.ring_area_m2[nc:][sel]))
+
+    # -- surface -----------------------------------------------------------------------------
+    def _nodes_of(self, name: str) -> np.ndarray:
+        nc = self._fine.n_conductor_nodes
+        return np.nonzero(self.mesh.node_conductor[:nc] == self.layout.index(name))[0]
+
+    def _faces_at_excitation(self, level: DielectricLevel) -> np.ndarray:
+        """Free density (Nc, 2) on front / back faces at the excitation; for a sheet in one
+        medium the total is split by the normal field just off each face."""
+        volts = excitation_potentials(self.layout, level.capacitance_F, level.applied_charges_C)
+        n = len(volts)
+        faces = level.sigma_faces[:, :, :n] @ volts + level.sigma_faces[:, :, n]
+        nc = level.n_conductor_nodes
+        owner = level.mesh.node_conductor[:nc]
+        sheet = np.array([c.shape.kind == "sheet" for c in self.layout.conductors])[owner]
+        same = sheet & (level.eps_face[:, 0] == level.eps_face[:, 1])
+        idx = np.nonzero(same)[0]
+        if len(idx):
+            mesh = level.mesh
+            u = level.u[:, :n] @ volts + level.u[:, n]
+            nrm = mesh.normals[idx]
+            delta = 1e-7 * mesh.length_m[idx // mesh.order][:, None]
+            for col, side in ((0, 1.0), (1, -1.0)):
+                f = level.kernel.field(mesh, mesh.points_m[idx] + side * delta * nrm)
+                en = np.einsum("mnc,mc->m", np.tensordot(f, u, axes=([1], [0]))[:, None, :], nrm)
+                en = en + self.layout.applied_field_V_per_m * nrm[:, 1]
+                faces[idx, col] = EPS0_F_PER_M * side * level.eps_face[idx, col] * en
+        return faces
+
+    @cached_property
+    def _faces(self) -> np.ndarray:
+        return self._faces_at_excitation(self._fine)
+
+    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
+        """Per node of ``conductor``: points, arc length, free density (both faces summed),
+        front / back face densities, the media permittivity on each face, ring area and the
+        surface field max over faces of |sigma_face| / (eps0 eps_face)."""
+        idx = self._nodes_of(conductor)
+        faces = self._faces[idx]
+        eps = self._fine.eps_face[idx]
+        field = np.max(np.abs(faces) / (EPS0_F_PER_M * eps), axis=1)
+        return {
+            "points_m": self.mesh.points_m[idx],
+            "arc_length_m": self.mesh.arc_m[idx],
+            "sigma_C_per_m2": self.sigma_C_per_m2[idx],
+            "sigma_front_C_per_m2": faces[:, 0],
+            "sigma_back_C_per_m2": faces[:, 1],
+            "eps_r_front": eps[:, 0],
+            "eps_r_back": eps[:, 1],
+            "area_m2": self.mesh.ring_area_m2[idx],
+            "field_V_per_m": field,
+        }
+
+    def _peaks(self, level: DielectricLevel, faces: np.ndarray):
+        mesh = level.mesh
+        p = mesh.order
+        nc = level.n_conductor_nodes
+        npan = nc // p
+        tau = np.linspace(-1.0, 1.0, 4 * p + 1)
+        lag = lagrange_matrix(tau, p).T
+        e = np.abs(faces) / (EPS0_F_PER_M * level.eps_face)
+        vals = np.maximum(e[:, 0].reshape(-1, p) @ lag, e[:, 1].reshape(-1, p) @ lag)
+        pts, _ = panel_geometry(
+            mesh.kind[:npan], mesh.coef[:npan], np.broadcast_to(tau, (npan, len(tau)))
+        )
+        junctions = self.model.geom.junctions
+        out = []
+        for ci, cond in enumerate(self.layout.conductors):
+            panels = np.nonzero(mesh.conductor[:npan] == ci)[0]
+            v = vals[panels]
+            k = np.unravel_index(int(v.argmax()), v.shape)
+            pan = panels[k[0]]
+            where = pts[pan, k[1]]
+            singular = bool(mesh.at_corner[pan])
+            if len(junctions):
+                reach = 1.01 * mesh.length_m[pan]
+                singular |= bool(np.min(np.linalg.norm(junctions - where, axis=1)) <= reach)
+            out.append((cond.name, float(v[k]), (float(where[0]), float(where[1])), singular))
+        return out
+
+    def peak_fields(self) -> tuple[PeakField, ...]:
+        """Peak surface field per conductor; ``singular`` at corners and at junctions where an
+        interface meets the conductor (the field there is unbounded)."""
+        fine = self._peaks(self._fine, self._faces)
+        if len(self.levels) < 2:
+            return tuple(PeakField(*f, float("nan")) for f in fine)
+        prev = self.levels[-2]
+        coarse = self._peaks(prev, self._faces_at_excitation(prev))
+        out = []
+        for f, c in zip(fine, coarse, strict=True):
+            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
+            out.append(PeakField(*f, float(err)))
+        return tuple(out)
+
+    # -- sensitivities -----------------------------------------------------------------------
+    def _plane_density_columns(self, r_m: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        if not self.layout.ground_plane:
+            raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        fine = self._fine
+        pts = np.stack([np.asarray(r_m, float), np.full(len(r_m), 0.0)], axis=1)
+        eps = self.model.geom.eps_r_at(pts + np.array([0.0, 1e-9 * self.model.size]))
+        f = np.concatenate(
+            [
+                fine.kernel.field(self.mesh, pts[i : i + _CHUNK])[..., 1]
+                for i in range(0, len(pts), _CHUNK)
+            ]
+        )
+        return EPS0_F_PER_M * eps[:, None] * (f @ cols), eps
+
+    def _require_bare_plane(self) -> None:
+        if self.layout.layers:
+            raise SolverError(
+                "with a layer on the target the one-solve plane derivative does not hold; use "
+                "standoff_derivative_fd()"
+            )
+
+    def plane_capacitance_derivative_F_per_m(self) -> np.ndarray:
+        """Hadamard formula dC_ij = int sigma_i sigma_j / (eps0 eps_r) dA over the bare plane
+        (eps_r of the medium touching the plane); one solve."""
+        self._require_bare_plane()
+        r, w = _plane_quadrature(self.mesh)
+        n = len(self.layout.conductors)
+        s, eps = self._plane_density_columns(r, self._fine.u[:, :n])
+        return np.einsum("q,qi,qj->ij", 2 * np.pi * r * w / (EPS0_F_PER_M * eps), s, s)
+
+    def plane_sensitivity_density(self, i: int, j: int, points_m: np.ndarray) -> np.ndarray:
+        self._require_bare_plane()
+        s, eps = self._plane_density_columns(np.asarray(points_m, float), self._fine.u[:, [i, j]])
+        return s[:, 0] * s[:, 1] / (EPS0_F_PER_M * eps)
+
+    def _solve_variant(self, layout: Layout) -> np.ndarray:
+        """C (n, n) of a perturbed layout at this solution's finest level and order."""
+        from elopt.physics.bem_axi.dielectric_solve import dielectric_model
+
+        level = solve_dielectric_level(dielectric_model(layout), self.level, self.order)
+        return level.capacitance_F
+
+    def central_difference(self, make_layout, step: float) -> FiniteDifference:
+        """dC/dp by central differences of ``make_layout(p_offset)`` at offsets -+h and -+2h,
+        h = ``step``, with the Richardson estimate of the truncation error."""
+        c = {s: self._solve_variant(make_layout(s * step)) for s in (-2, -1, 1, 2)}
+        d1 = (c[1] - c[-1]) / (2 * step)
+        d2 = (c[2] - c[-2]) / (4 * step)
+        value = d1 + (d1 - d2) / 3.0
+        scale = np.sqrt(np.abs(np.outer(np.diag(d1), np.diag(d1)))) + 1e-300
+        err = float(np.max(np.abs(d1 - d2) / 3.0 / scale))
+        return FiniteDifference(value, step, err)
+
+    def eps_derivative(self, name: str, rel_step: float = 1e-2) -> FiniteDifference:
+        """dC/d(eps_r) (n, n) F per unit eps_r of the region or layer ``name``."""
+        regions = {r.name: k for k, r in enumerate(self.layout.regions)}
+        layers = {ly.name: k for k, ly in enumerate(self.layout.layers)}
+        if name in regions:
+            k = regions[name]
+            base = self.layout.regions[k]
+            h = rel_step * base.eps_r
+
+            def make(dv: float) -> Layout:
+                regs = list(self.layout.regions)
+                regs[k] = replace(base, eps_r=base.eps_r + dv)
+                return replace(self.layout, regions=tuple(regs))
+
+        elif name in layers:
+            k = layers[name]
+            base = self.layout.layers[k]
+            h = rel_step * base.eps_r
+
+            def make(dv: float) -> Layout:
+                lys = list(self.layout.layers)
+                lys[k] = replace(base, eps_r=base.eps_r + dv)
+                return replace(self.layout, layers=tuple(lys))
+
+        else:
+            raise KeyError(f"no region or layer '{name}'")
+        return self.central_difference(make, h)
+
+    def layer_thickness_derivative(self, name: str, rel_step: float = 1e-2) -> FiniteDifference:
+        """dC/d(thickness) (n, n) F/m of layer ``name``, its top face moving (bottom fixed)."""
+        layers = {ly.name: k for k, ly in enumerate(self.layout.layers)}
+        if name not in layers:
+            raise KeyError(f"no layer '{name}'; layers are {list(layers)}")
+        k = layers[name]
+        base = self.layout.layers[k]
+        h = rel_step * base.thickness_m
+
+        def make(dt: float) -> Layout:
+            lys = list(self.layout.layers)
+            lys[k] = replace(base, z_top_m=base.z_top_m + dt)
+            return replace(self.layout, layers=tuple(lys))
+
+        return self.central_difference(make, h)
