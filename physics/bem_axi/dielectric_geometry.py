@@ -15,7 +15,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from elopt.physics.errors import GeometryError
-from elopt.physics.geometry import Arc, Curve, Segment, point_in_region
+from elopt.physics.geometry import (
+    Arc,
+    Curve,
+    Segment,
+    _first_self_intersection,
+    point_in_region,
+)
 from elopt.physics.layout import Layout
 from elopt.physics.media import DielectricRegion
 
@@ -53,6 +59,48 @@ def distance_to_curve(points: np.ndarray, curve: Curve) -> np.ndarray:
     return best
 
 
+def _nearest_on_piece(points: np.ndarray, piece) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Distance (M,), foot point (M, 2) and unit tangent there (M, 2) on one piece."""
+    if isinstance(piece, Segment):
+        a, b = np.asarray(piece.start), np.asarray(piece.end)
+        d = b - a
+        t = np.clip((points - a) @ d / max(d @ d, 1e-300), 0.0, 1.0)
+        foot = a + t[:, None] * d
+        tan = np.broadcast_to(d / np.linalg.norm(d), points.shape)
+    else:
+        grid = np.linspace(-1.0, 1.0, 2001)
+        poly = piece.points(grid)
+        k = np.argmin(np.linalg.norm(points[:, None, :] - poly[None], axis=2), axis=1)
+        t = grid[k]
+        for _ in range(3):  # Newton on (x(t) - p) . x'(t) = 0, with x'' by differences
+            x = piece.points(t)
+            dx = piece.derivative(t)
+            h = 1e-6
+            ddx = (
+                piece.derivative(np.clip(t + h, -1, 1)) - piece.derivative(np.clip(t - h, -1, 1))
+            ) / (2 * h)
+            g = np.sum((x - points) * dx, axis=1)
+            gp = np.sum(dx * dx, axis=1) + np.sum((x - points) * ddx, axis=1)
+            t = np.clip(t - g / np.where(np.abs(gp) > 0, gp, 1.0), -1.0, 1.0)
+        foot = piece.points(t)
+        tan = piece.tangents(t)
+    return np.linalg.norm(points - foot, axis=1), foot, tan
+
+
+def nearest_side(points: np.ndarray, curve: Curve) -> tuple[np.ndarray, np.ndarray]:
+    """Distance (M,) to ``curve`` and the side (M,): +1 left of its direction, -1 right."""
+    best = np.full(len(points), np.inf)
+    side = np.zeros(len(points))
+    for piece in curve.pieces:
+        dist, foot, tan = _nearest_on_piece(points, piece)
+        rel = points - foot
+        cross = tan[:, 0] * rel[:, 1] - tan[:, 1] * rel[:, 0]
+        better = dist < best
+        best = np.where(better, dist, best)
+        side = np.where(better, np.sign(cross), side)
+    return best, side
+
+
 def region_outline(curve: Curve) -> np.ndarray:
     """Closed polygon (K, 2) of the area a region's curve encloses in the (r, z) half-plane."""
     pts = curve.sample(256)
@@ -87,10 +135,18 @@ class DielectricGeometry:
     junctions: np.ndarray  # (J, 2) points where an interface ends on a conductor or the plane
 
     def region_index_at(self, points: np.ndarray) -> np.ndarray:
-        """Index (M,) of the region containing each point, -1 outside every region."""
+        """Index (M,) of the region containing each point, -1 outside every region.
+
+        A polygon test, except within 1e-3 of the size of a boundary, where the side of the
+        nearest boundary point decides (the polygon's chords would be too coarse there).
+        """
         out = np.full(len(points), -1)
-        for k, outline in enumerate(self.outlines):
-            out[point_in_region(points, outline) & (out < 0)] = k
+        for k, (outline, reg) in enumerate(zip(self.outlines, self.layout.regions, strict=True)):
+            inside = point_in_region(points, outline)
+            dist, side = nearest_side(points, reg.shape)
+            near = dist <= 1e-3 * reg.shape.size
+            inside[near] = (side[near] * _orientation(outline)) > 0
+            out[inside & (out < 0)] = k
         return out
 
     def eps_r_at(self, points: np.ndarray) -> np.ndarray:
@@ -137,29 +193,11 @@ def _check_region_curve(region: DielectricRegion, size: float) -> Curve:
 
 
 def _self_intersection(curve: Curve) -> tuple[float, float] | None:
-    """A point where two non-adjacent chords of the boundary cross properly, else None."""
+    """A point where two non-adjacent chords of the closed boundary cross or touch, else None."""
     pts = curve.sample(32)
     if curve.kind == "body":
         pts = np.concatenate([pts, pts[:1]])
-    a0, a1 = pts[:-1], pts[1:]
-    m = len(a0)
-
-    def orient(u, v, w):
-        return (v[..., 0] - u[..., 0]) * (w[..., 1] - u[..., 1]) - (v[..., 1] - u[..., 1]) * (
-            w[..., 0] - u[..., 0]
-        )
-
-    p, q = a0[:, None], a1[:, None]
-    c, d = a0[None], a1[None]
-    cross = (orient(p, q, c) * orient(p, q, d) < 0) & (orient(c, d, p) * orient(c, d, q) < 0)
-    i, j = np.triu_indices(m, k=2)
-    keep = ~((i == 0) & (j == m - 1))
-    i, j = i[keep], j[keep]
-    bad = cross[i, j]
-    if not np.any(bad):
-        return None
-    k = int(np.argmax(bad))
-    return tuple(0.5 * (a0[i[k]] + a1[i[k]]))
+    return _first_self_intersection(pts, closed=True)
 
 
 def _on(points: np.ndarray, curve: Curve, tol: float) -> np.ndarray:

@@ -20,6 +20,7 @@ from elopt.physics.bem_axi.dielectric_solve import (
 from elopt.physics.bem_axi.mesh import panel_geometry
 from elopt.physics.bem_axi.solution import _plane_quadrature
 from elopt.physics.errors import SolverError
+from elopt.physics.geometry import Arc, Curve, EllipseArc, Segment
 from elopt.physics.layout import EPS0_F_PER_M, Layout
 from elopt.physics.quadrature import lagrange_matrix
 from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
@@ -29,9 +30,11 @@ _CHUNK = 1024
 
 @dataclass(frozen=True)
 class FiniteDifference:
-    """A derivative by central differences: value, the step used, and an error estimate
-    (|D(h) - D(2h)| / 3, the Richardson estimate of the O(h^2) truncation error, plus the
-    discretisation noise of the two solves, which share one mesh level)."""
+    """A derivative by central differences at one mesh level (so discretisation errors largely
+    cancel between the solves): ``value`` is the Richardson combination D(h) + (D(h) - D(2h))/3
+    of the steps h and 2h; ``rel_error_estimate`` = max |D(h) - D(2h)| / 3, entry (i, j) scaled
+    by sqrt(|D_ii D_jj|), is the truncation error of the plain D(h) and so an upper estimate
+    for ``value``."""
 
     value: np.ndarray
     step: float
@@ -304,6 +307,27 @@ class DielectricSolution(ChargeSolution):
             raise KeyError(f"no region or layer '{name}'")
         return self.central_difference(make, h)
 
+    def standoff_derivative_fd(self, rel_step: float = 1e-2) -> FiniteDifference:
+        """dC/d(delta) (n, n) F/m for the grounded plane and every layer moving up by delta (the
+        standoff shrinking), by central differences: conductors and regions move down instead.
+        The step is ``rel_step`` times the smallest height of a conductor above the top layer."""
+        if not self.layout.ground_plane:
+            raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        top = max([0.0] + [ly.z_top_m for ly in self.layout.layers])
+        low = min(float(c.shape.sample(8)[:, 1].min()) for c in self.layout.conductors)
+        h = rel_step * (low - top)
+
+        def make(dz: float) -> Layout:
+            conds = tuple(
+                replace(c, shape=translate_curve(c.shape, -dz)) for c in self.layout.conductors
+            )
+            regs = tuple(
+                replace(r, shape=translate_curve(r.shape, -dz)) for r in self.layout.regions
+            )
+            return replace(self.layout, conductors=conds, regions=regs)
+
+        return self.central_difference(make, h)
+
     def layer_thickness_derivative(self, name: str, rel_step: float = 1e-2) -> FiniteDifference:
         """dC/d(thickness) (n, n) F/m of layer ``name``, its top face moving (bottom fixed)."""
         layers = {ly.name: k for k, ly in enumerate(self.layout.layers)}
@@ -319,3 +343,18 @@ class DielectricSolution(ChargeSolution):
             return replace(self.layout, layers=tuple(lys))
 
         return self.central_difference(make, h)
+
+
+def translate_curve(curve: Curve, dz: float) -> Curve:
+    """``curve`` moved by ``dz`` metres along z."""
+    pieces = []
+    for p in curve.pieces:
+        if isinstance(p, Segment):
+            pieces.append(Segment((p.start[0], p.start[1] + dz), (p.end[0], p.end[1] + dz)))
+        elif isinstance(p, Arc):
+            pieces.append(replace(p, center=(p.center[0], p.center[1] + dz)))
+        elif isinstance(p, EllipseArc):
+            pieces.append(replace(p, center_z=p.center_z + dz))
+        else:
+            raise TypeError(f"unsupported curve piece {type(p).__name__}")
+    return Curve(tuple(pieces))

@@ -365,6 +365,8 @@ def solve_dielectric(
         )
     if order is None:
         order = default_order(rel_accuracy)
+    if not 2 <= order <= 16:
+        raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
     model = dielectric_model(layout)
     history: list[DielectricLevel] = []
     error = float("inf")

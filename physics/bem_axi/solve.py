@@ -87,6 +87,17 @@ def solve_axisymmetric(
         raise SolverError(
             f"max_level must be >= 1 (two levels give the error estimate), got {max_level}"
         )
+    if not layout.homogeneous:
+        # dielectric regions / planar layers: their own module (hook kept to these lines)
+        from elopt.physics.bem_axi.dielectric_solve import solve_dielectric
+
+        return solve_dielectric(
+            layout,
+            rel_accuracy=rel_accuracy,
+            max_level=max_level,
+            order=order,
+            max_unknowns=max_unknowns,
+        )
     if order is None:
         order = default_order(rel_accuracy)
     if not 2 <= order <= 16:
