@@ -61,9 +61,9 @@ def test_sphere_with_concentric_dielectric_shell(shape):
     assert sol.capacitance_matrix_F[0, 0] == pytest.approx(exact, rel=1e-8)
     # free charge uniform, sigma_f = Q / (4 pi a^2); field in the shell = sigma_f / (eps0 eps_r)
     s = sol.surface_samples("ball")
-    np.testing.assert_allclose(s["sigma_C_per_m2"], exact / (4 * math.pi * a**2), rtol=1e-8)
+    np.testing.assert_allclose(s.sigma_C_per_m2, exact / (4 * math.pi * a**2), rtol=1e-8)
     np.testing.assert_allclose(
-        s["field_V_per_m"], exact / (4 * math.pi * a**2 * EPS0 * eps_r), rtol=1e-8
+        s.field_V_per_m, exact / (4 * math.pi * a**2 * EPS0 * eps_r), rtol=1e-8
     )
     # potential inside the shell and outside (Gauss's law)
     q = exact
@@ -90,11 +90,11 @@ def test_sphere_centred_on_interface_of_two_half_spaces():
     c = sol.capacitance_matrix_F[0, 0]
     assert c == pytest.approx(2 * math.pi * (1.0 + eps_lo) * radius * EPS0, rel=1e-9)
     s = sol.surface_samples("ball")
-    z = s["points_m"][:, 1]
-    np.testing.assert_allclose(s["sigma_C_per_m2"][z > 0], EPS0 * 1.0 / radius, rtol=1e-9)
-    np.testing.assert_allclose(s["sigma_C_per_m2"][z < 0], EPS0 * eps_lo / radius, rtol=1e-9)
+    z = s.points_m[:, 1]
+    np.testing.assert_allclose(s.sigma_C_per_m2[z > 0], EPS0 * 1.0 / radius, rtol=1e-9)
+    np.testing.assert_allclose(s.sigma_C_per_m2[z < 0], EPS0 * eps_lo / radius, rtol=1e-9)
     # the field stays that of a point charge in both media (same magnitude V/R on the ball)
-    np.testing.assert_allclose(s["field_V_per_m"], 1.0 / radius, rtol=1e-9)
+    np.testing.assert_allclose(s.field_V_per_m, 1.0 / radius, rtol=1e-9)
 
 
 def test_thin_disk_in_interface_plane():
@@ -109,14 +109,17 @@ def test_thin_disk_in_interface_plane():
     assert sol.capacitance_matrix_F[0, 0] == pytest.approx(
         4 * (1.0 + eps_lo) * radius * EPS0, rel=1e-6
     )
-    # the two faces share the charge in the ratio eps1 : eps2 (same field on both faces)
+    # the two faces share the charge in the ratio eps1 : eps2 (same field on both faces);
+    # the front face's normal (the segment's tangent turned clockwise) points down, into eps2
     s = sol.surface_samples("disk")
-    inner = s["points_m"][:, 0] < 0.9 * radius
-    assert sorted({s["eps_r_front"][0], s["eps_r_back"][0]}) == [1.0, eps_lo]
+    front, back = s.face == 1, s.face == -1
+    assert np.all(s.normal[front, 1] < 0)
+    inner = s.points_m[front, 0] < 0.9 * radius
     np.testing.assert_allclose(
-        s["sigma_back_C_per_m2"][inner] / s["eps_r_back"][inner],
-        s["sigma_front_C_per_m2"][inner] / s["eps_r_front"][inner],
-        rtol=1e-5,
+        s.sigma_C_per_m2[front][inner], eps_lo * s.sigma_C_per_m2[back][inner], rtol=1e-5
+    )
+    np.testing.assert_allclose(
+        s.field_V_per_m[front][inner], s.field_V_per_m[back][inner], rtol=1e-5
     )
 
 

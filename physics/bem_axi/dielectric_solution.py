@@ -8,22 +8,19 @@ fields are available anywhere in the gap that holds the conductors, inside regio
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
-from functools import cached_property
 
 import numpy as np
 
 from elopt.physics.bem_axi.dielectric_solve import (
-    DielectricLevel,
     DielectricModel,
     solve_dielectric_level,
 )
-from elopt.physics.bem_axi.mesh import panel_geometry
 from elopt.physics.bem_axi.solution import _plane_quadrature
 from elopt.physics.errors import SolverError
 from elopt.physics.geometry import Arc, Curve, EllipseArc, Segment
 from elopt.physics.layout import EPS0_F_PER_M, Layout
-from elopt.physics.quadrature import lagrange_matrix
-from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+from elopt.physics.refinement import Refinement
+from elopt.physics.solution import ChargeSolution, SurfaceSamples
 
 _CHUNK = 1024
 
@@ -47,33 +44,21 @@ class DielectricSolution(ChargeSolution):
     point_dim = 2
 
     def __init__(
-        self,
-        layout: Layout,
-        model: DielectricModel,
-        levels: tuple[DielectricLevel, ...],
-        rel_error_estimate: float,
-        requested_accuracy: float,
-        order: int,
+        self, layout: Layout, model: DielectricModel, refinement: Refinement, order: int
     ) -> None:
         self.layout = layout
         self.model = model
-        self.levels = levels
         self.order = order
-        self.rel_error_estimate = rel_error_estimate
-        self.requested_accuracy = requested_accuracy
-        self.accuracy_met = rel_error_estimate <= requested_accuracy
-        fine = levels[-1]
+        self._adopt(refinement)
+        fine = self.levels[-1]
         self._fine = fine
         self.mesh = fine.mesh
         self.level = fine.mesh.level
         self.n_unknowns = fine.mesh.n_nodes
         self.capacitance_matrix_F = fine.capacitance_F
-        self.potentials_V = excitation_potentials(
-            layout, fine.capacitance_F, fine.applied_charges_C
-        )
+        self.potentials_V, self._u = fine.excitation()
         self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
         n = len(layout.conductors)
-        self._u = fine.u[:, :n] @ self.potentials_V + fine.u[:, n]
         self.sigma_C_per_m2 = fine.sigma_free[:, :n] @ self.potentials_V + fine.sigma_free[:, n]
 
     # -- fields anywhere ---------------------------------------------------------------------
@@ -134,96 +119,40 @@ class DielectricSolution(ChargeSolution):
 
     # -- surface -----------------------------------------------------------------------------
     def _nodes_of(self, name: str) -> np.ndarray:
+        """Conductor nodes (indices into the joined mesh) of conductor ``name``."""
         nc = self._fine.n_conductor_nodes
         return np.nonzero(self.mesh.node_conductor[:nc] == self.layout.index(name))[0]
 
-    def _faces_at_excitation(self, level: DielectricLevel) -> np.ndarray:
-        """Free density (Nc, 2) on front / back faces at the excitation; for a sheet in one
-        medium the total is split by the normal field just off each face."""
-        volts = excitation_potentials(self.layout, level.capacitance_F, level.applied_charges_C)
-        n = len(volts)
-        faces = level.sigma_faces[:, :, :n] @ volts + level.sigma_faces[:, :, n]
-        nc = level.n_conductor_nodes
-        owner = level.mesh.node_conductor[:nc]
-        sheet = np.array([c.shape.kind == "sheet" for c in self.layout.conductors])[owner]
-        same = sheet & (level.eps_face[:, 0] == level.eps_face[:, 1])
-        idx = np.nonzero(same)[0]
-        if len(idx):
-            mesh = level.mesh
-            u = level.u[:, :n] @ volts + level.u[:, n]
-            nrm = mesh.normals[idx]
-            delta = 1e-7 * mesh.length_m[idx // mesh.order][:, None]
-            for col, side in ((0, 1.0), (1, -1.0)):
-                f = level.kernel.field(mesh, mesh.points_m[idx] + side * delta * nrm)
-                en = np.einsum("mnc,mc->m", np.tensordot(f, u, axes=([1], [0]))[:, None, :], nrm)
-                en = en + self.layout.applied_field_V_per_m * nrm[:, 1]
-                faces[idx, col] = EPS0_F_PER_M * side * level.eps_face[idx, col] * en
-        return faces
-
-    @cached_property
-    def _faces(self) -> np.ndarray:
-        return self._faces_at_excitation(self._fine)
-
-    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
-        """Per node of ``conductor``: points, arc length, free density (both faces summed),
-        front / back face densities, the media permittivity on each face, ring area and the
-        surface field max over faces of |sigma_face| / (eps0 eps_face)."""
+    def surface_samples(self, conductor: str) -> SurfaceSamples:
+        """See :class:`SurfaceSamples`: free charge per node (closed body), or per face (front
+        +1, then back -1) on an open sheet; the field is |sigma| / (eps0 eps_r) of the medium
+        touching that face."""
+        k = self.layout.index(conductor)
         idx = self._nodes_of(conductor)
-        faces = self._faces[idx]
+        idx = idx[np.argsort(self.mesh.arc_m[idx], kind="stable")]
+        faces = self._fine.faces[idx]
         eps = self._fine.eps_face[idx]
-        field = np.max(np.abs(faces) / (EPS0_F_PER_M * eps), axis=1)
-        return {
-            "points_m": self.mesh.points_m[idx],
-            "arc_length_m": self.mesh.arc_m[idx],
-            "sigma_C_per_m2": self.sigma_C_per_m2[idx],
-            "sigma_front_C_per_m2": faces[:, 0],
-            "sigma_back_C_per_m2": faces[:, 1],
-            "eps_r_front": eps[:, 0],
-            "eps_r_back": eps[:, 1],
-            "area_m2": self.mesh.ring_area_m2[idx],
-            "field_V_per_m": field,
-        }
-
-    def _peaks(self, level: DielectricLevel, faces: np.ndarray):
-        mesh = level.mesh
-        p = mesh.order
-        nc = level.n_conductor_nodes
-        npan = nc // p
-        tau = np.linspace(-1.0, 1.0, 4 * p + 1)
-        lag = lagrange_matrix(tau, p).T
-        e = np.abs(faces) / (EPS0_F_PER_M * level.eps_face)
-        vals = np.maximum(e[:, 0].reshape(-1, p) @ lag, e[:, 1].reshape(-1, p) @ lag)
-        pts, _ = panel_geometry(
-            mesh.kind[:npan], mesh.coef[:npan], np.broadcast_to(tau, (npan, len(tau)))
+        normal = self.mesh.normals[idx]
+        if self.layout.conductors[k].shape.kind == "sheet":
+            face = np.repeat(np.array([1, -1], dtype=np.int8), len(idx))
+            sigma = np.concatenate([faces[:, 0], faces[:, 1]])
+            eps_s = np.concatenate([eps[:, 0], eps[:, 1]])
+            idx2 = np.concatenate([idx, idx])
+            normal = np.concatenate([normal, -normal])
+        else:
+            face = np.zeros(len(idx), dtype=np.int8)
+            sigma, eps_s, idx2 = faces[:, 0], eps[:, 0], idx
+        return SurfaceSamples(
+            conductor=conductor,
+            kind="profile",
+            points_m=self.mesh.points_m[idx2],
+            sigma_C_per_m2=sigma,
+            field_V_per_m=np.abs(sigma) / (EPS0_F_PER_M * eps_s),
+            area_m2=self.mesh.ring_area_m2[idx2],
+            face=face,
+            normal=normal,
+            arc_length_m=self.mesh.arc_m[idx2],
         )
-        junctions = self.model.geom.junctions
-        out = []
-        for ci, cond in enumerate(self.layout.conductors):
-            panels = np.nonzero(mesh.conductor[:npan] == ci)[0]
-            v = vals[panels]
-            k = np.unravel_index(int(v.argmax()), v.shape)
-            pan = panels[k[0]]
-            where = pts[pan, k[1]]
-            singular = bool(mesh.at_corner[pan])
-            if len(junctions):
-                reach = 1.01 * mesh.length_m[pan]
-                singular |= bool(np.min(np.linalg.norm(junctions - where, axis=1)) <= reach)
-            out.append((cond.name, float(v[k]), (float(where[0]), float(where[1])), singular))
-        return out
-
-    def peak_fields(self) -> tuple[PeakField, ...]:
-        """Peak surface field per conductor; ``singular`` at corners and at junctions where an
-        interface meets the conductor (the field there is unbounded)."""
-        fine = self._peaks(self._fine, self._faces)
-        if len(self.levels) < 2:
-            return tuple(PeakField(*f, float("nan")) for f in fine)
-        prev = self.levels[-2]
-        coarse = self._peaks(prev, self._faces_at_excitation(prev))
-        out = []
-        for f, c in zip(fine, coarse, strict=True):
-            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
-            out.append(PeakField(*f, float(err)))
-        return tuple(out)
 
     # -- sensitivities -----------------------------------------------------------------------
     def _plane_density_columns(self, r_m: np.ndarray, cols: np.ndarray) -> np.ndarray:

@@ -33,7 +33,8 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from functools import lru_cache
+from functools import cached_property, lru_cache
+from typing import Any
 
 import numpy as np
 import scipy.linalg
@@ -46,14 +47,34 @@ from elopt.physics.bem_axi.dielectric_geometry import (
     region_outline,
 )
 from elopt.physics.bem_axi.layered_kernel import LayeredKernel
-from elopt.physics.bem_axi.mesh import AxiMesh, build_mesh
-from elopt.physics.bem_axi.solve import MAX_UNKNOWNS, default_order, relative_change
+from elopt.physics.bem_axi.mesh import AxiMesh, build_mesh, panel_geometry
+from elopt.physics.bem_axi.solve import DENSE_BYTES_PER_ENTRY, default_order
 from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.geometry import Corner, Curve
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.quadrature import lagrange_matrix
+from elopt.physics.refinement import (
+    Convergence,
+    LevelPeak,
+    LevelPlan,
+    SolveOptions,
+    make_options,
+    peaks_per_conductor,
+    refine,
+)
+from elopt.physics.solution import excitation_potentials
 
 #: Offset (in panel lengths) of the points whose mean normal field gives the principal value.
 PV_OFFSET = 1e-5
+#: Offset (in panel lengths) of the points whose normal field splits a sheet's two faces.
+FACE_OFFSET = 1e-7
+#: Ratio of successive changes of C assumed with two levels: measured 0.01 (bare) to 0.08
+#: (a spacer with metal-dielectric junctions) on the test layouts, taken as 0.1.
+PRIOR_RATIO = 0.1
+#: Relative errors refinement does not reduce (capacitance, peak) per nodes per panel: the
+#: principal-value extrapolation (measured 5e-11 on docs/references.md item 11 with 4 nodes)
+#: and the truncated Hankel remainder (1e-13); the peak floors are those of the bare solver.
+NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-10, 1e-9), 8: (1e-10, 1e-9)}
 
 
 @dataclass(frozen=True)
@@ -186,12 +207,14 @@ def _concat(meshes: list[AxiMesh]) -> AxiMesh:
     )
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class DielectricLevel:
     """One refinement level: the joined mesh (conductor nodes first), the kernel, the
     solutions u = q / eps0 (N, n + 1) per unit potential column and the applied field, the
     free charge density on conductor nodes (Nc, n + 1), per-node media, and C."""
 
+    layout: Layout
+    junctions: np.ndarray  # (J, 2) interface junction points (singular like corners)
     mesh: AxiMesh
     n_conductor_nodes: int
     kernel: LayeredKernel
@@ -206,6 +229,69 @@ class DielectricLevel:
     @property
     def n_unknowns(self) -> int:
         return self.mesh.n_nodes
+
+    def excitation(self) -> tuple[np.ndarray, np.ndarray]:
+        """Conductor potentials (n,) V and the node solution u (N,) at the excitation."""
+        volts = excitation_potentials(self.layout, self.capacitance_F, self.applied_charges_C)
+        n = len(volts)
+        return volts, self.u[:, :n] @ volts + self.u[:, n]
+
+    @cached_property
+    def faces(self) -> np.ndarray:
+        """Free density (Nc, 2) on the front / back face of conductor nodes at the excitation;
+        for a sheet in one medium the total is split by the normal field just off each face."""
+        volts, u = self.excitation()
+        n = len(volts)
+        faces = self.sigma_faces[:, :, :n] @ volts + self.sigma_faces[:, :, n]
+        nc = self.n_conductor_nodes
+        owner = self.mesh.node_conductor[:nc]
+        sheet = np.array([c.shape.kind == "sheet" for c in self.layout.conductors])[owner]
+        idx = np.nonzero(sheet & (self.eps_face[:, 0] == self.eps_face[:, 1]))[0]
+        if len(idx):
+            mesh = self.mesh
+            nrm = mesh.normals[idx]
+            delta = FACE_OFFSET * mesh.length_m[idx // mesh.order][:, None]
+            for col, side in ((0, 1.0), (1, -1.0)):
+                f = np.tensordot(
+                    self.kernel.field(mesh, mesh.points_m[idx] + side * delta * nrm),
+                    u,
+                    axes=([1], [0]),
+                )
+                en = np.sum(f * nrm, axis=1) + self.layout.applied_field_V_per_m * nrm[:, 1]
+                faces[idx, col] = EPS0_F_PER_M * side * self.eps_face[idx, col] * en
+        return faces
+
+    def peaks(self) -> tuple[LevelPeak, ...]:
+        return self._peaks
+
+    @cached_property
+    def _peaks(self) -> tuple[LevelPeak, ...]:
+        """Per conductor: the peak of |sigma_face| / (eps0 eps_face) over the interpolated
+        densities (4p + 1 samples per panel); singular at corners and interface junctions."""
+        mesh = self.mesh
+        p = mesh.order
+        nc = self.n_conductor_nodes
+        npan = nc // p
+        tau = np.linspace(-1.0, 1.0, 4 * p + 1)
+        lag = lagrange_matrix(tau, p).T
+        e = np.abs(self.faces) / (EPS0_F_PER_M * self.eps_face)
+        vals = np.maximum(e[:, 0].reshape(-1, p) @ lag, e[:, 1].reshape(-1, p) @ lag)
+        pts, _ = panel_geometry(
+            mesh.kind[:npan], mesh.coef[:npan], np.broadcast_to(tau, (npan, len(tau)))
+        )
+        singular = np.repeat(mesh.at_corner[:npan], len(tau))
+        flat = pts.reshape(-1, 2)
+        if len(self.junctions):
+            reach = np.repeat(1.01 * mesh.length_m[:npan], len(tau))
+            dist = np.min(np.linalg.norm(flat[:, None, :] - self.junctions[None], axis=2), axis=1)
+            singular = singular | (dist <= reach)
+        return peaks_per_conductor(
+            self.layout.names,
+            np.repeat(mesh.conductor[:npan], len(tau)),
+            vals.ravel(),
+            flat,
+            singular,
+        )
 
 
 def build_level_mesh(model: DielectricModel, level: int, order: int):
@@ -332,6 +418,8 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
     charges = np.zeros((n, n + 1))
     np.add.at(charges, owner[:nc], sigma_free * area[:, None])
     return DielectricLevel(
+        layout=layout,
+        junctions=model.geom.junctions,
         mesh=mesh,
         n_conductor_nodes=nc,
         kernel=kernel,
@@ -345,46 +433,33 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
     )
 
 
-def solve_dielectric(
-    layout: Layout,
-    *,
-    rel_accuracy: float = 1e-4,
-    max_level: int = 6,
-    order: int | None = None,
-    max_unknowns: int = MAX_UNKNOWNS,
-):
-    """Solve a layout with regions and/or layers to ``rel_accuracy`` on C (same loop and
-    stopping rule as :func:`elopt.physics.bem_axi.solve.solve_axisymmetric`)."""
+def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **overrides: Any):
+    """Solve a layout with regions and/or layers through the shared refinement loop
+    (:func:`elopt.physics.refinement.refine`; options as for
+    :func:`elopt.physics.bem_axi.solve.solve_axisymmetric`)."""
     from elopt.physics.bem_axi.dielectric_solution import DielectricSolution
 
-    if not (0.0 < rel_accuracy < 1.0):
-        raise SolverError(f"rel_accuracy must lie in (0, 1), got {rel_accuracy}")
-    if max_level < 1:
-        raise SolverError(
-            f"max_level must be >= 1 (two levels give the error estimate), got {max_level}"
-        )
+    opts = make_options(options, overrides)
+    order = opts.order
     if order is None:
-        order = default_order(rel_accuracy)
+        order = default_order(min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
     if not 2 <= order <= 16:
         raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
     model = dielectric_model(layout)
-    history: list[DielectricLevel] = []
-    error = float("inf")
-    for level in range(max_level + 1):
-        est = _count_nodes(model, level, order)
-        if est > max_unknowns:
-            if len(history) < 2:
-                raise SolverError(
-                    f"level {level} needs {est} unknowns, more than max_unknowns = "
-                    f"{max_unknowns}, before an error estimate exists; simplify the geometry"
-                )
-            break
-        history.append(solve_dielectric_level(model, level, order))
-        if len(history) >= 2:
-            error = relative_change(history[-1].capacitance_F, history[-2].capacitance_F)
-            if error <= rel_accuracy:
-                break
-    return DielectricSolution(layout, model, tuple(history), error, rel_accuracy, order)
+
+    def plan(level: int) -> LevelPlan:
+        n = _count_nodes(model, level, order)
+        return LevelPlan(
+            level,
+            n,
+            DENSE_BYTES_PER_ENTRY * n * n,
+            "dense solve",
+            lambda _: solve_dielectric_level(model, level, order),
+        )
+
+    floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
+    refinement = refine(plan, opts, Convergence(PRIOR_RATIO, *floors))
+    return DielectricSolution(layout, model, refinement, order)
 
 
 def _count_nodes(model: DielectricModel, level: int, order: int) -> int:
