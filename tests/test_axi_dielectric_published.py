@@ -239,3 +239,29 @@ def test_large_parallel_plates_with_two_layer_dielectric():
     )
     assert np.all(np.diff(excess) < 0)
     assert abs(fit[0]) < 2e-3
+
+
+@pytest.mark.parametrize("request_", [1e-4, 1e-6])
+def test_error_estimate_is_honest_on_published_cases(request_):
+    # Items 11, 12, 13 and 16-like film of docs/references.md at the default and a tight
+    # request: the true error of C is below the reported estimate, which meets the request.
+    half = (PlanarLayer("lower", 4.0, -math.inf, 0.0),)
+    cases = [
+        (
+            Layout(
+                (driven("ball", geo.sphere(1.0), 1.0),),
+                regions=(DielectricRegion("shell", geo.sphere(2.0), 4.0),),
+            ),
+            4 * math.pi * EPS0 / ((1 - 0.5) / 4.0 + 0.5),
+        ),
+        (
+            Layout((driven("ball", _split_sphere(1.0), 1.0),), layers=half),
+            2 * math.pi * 5.0 * EPS0,
+        ),
+        (Layout((driven("disk", geo.disk(1.0, 0.0), 1.0),), layers=half), 4 * 5.0 * EPS0),
+    ]
+    for layout, exact in cases:
+        sol = solve_axisymmetric(layout, rel_accuracy=request_)
+        assert sol.accuracy_met
+        err = abs(sol.capacitance_matrix_F[0, 0] / exact - 1)
+        assert err <= sol.rel_error_estimate <= request_

@@ -66,15 +66,14 @@ from elopt.physics.solution import excitation_potentials
 
 #: Offset (in panel lengths) of the points whose mean normal field gives the principal value.
 PV_OFFSET = 1e-5
-#: Offset (in panel lengths) of the points whose normal field splits a sheet's two faces.
-FACE_OFFSET = 1e-7
 #: Ratio of successive changes of C assumed with two levels: measured 0.01 (bare) to 0.08
 #: (a spacer with metal-dielectric junctions) on the test layouts, taken as 0.1.
 PRIOR_RATIO = 0.1
 #: Relative errors refinement does not reduce (capacitance, peak) per nodes per panel: the
-#: principal-value extrapolation (measured 5e-11 on docs/references.md item 11 with 4 nodes)
-#: and the truncated Hankel remainder (1e-13); the peak floors are those of the bare solver.
-NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-10, 1e-9), 8: (1e-10, 1e-9)}
+#: principal-value extrapolation (measured 5e-11 with 4 and 1.5e-10 with 6 nodes on
+#: docs/references.md item 11) and the truncated Hankel remainder (1e-13); the peak floors
+#: are those of the bare solver.
+NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (3e-10, 1e-9), 8: (3e-10, 1e-9)}
 
 
 @dataclass(frozen=True)
@@ -248,17 +247,17 @@ class DielectricLevel:
         sheet = np.array([c.shape.kind == "sheet" for c in self.layout.conductors])[owner]
         idx = np.nonzero(sheet & (self.eps_face[:, 0] == self.eps_face[:, 1]))[0]
         if len(idx):
-            mesh = self.mesh
-            nrm = mesh.normals[idx]
-            delta = FACE_OFFSET * mesh.length_m[idx // mesh.order][:, None]
-            for col, side in ((0, 1.0), (1, -1.0)):
-                f = np.tensordot(
-                    self.kernel.field(mesh, mesh.points_m[idx] + side * delta * nrm),
-                    u,
-                    axes=([1], [0]),
-                )
-                en = np.sum(f * nrm, axis=1) + self.layout.applied_field_V_per_m * nrm[:, 1]
-                faces[idx, col] = EPS0_F_PER_M * side * self.eps_face[idx, col] * en
+            # one column, the excitation: sheet_face_fields adds E0 n_z to it
+            e_front, e_back = sheet_face_fields(
+                self.kernel,
+                self.mesh,
+                idx,
+                u[:, None],
+                self.eps_b,
+                self.layout.applied_field_V_per_m,
+            )
+            faces[idx, 0] = EPS0_F_PER_M * self.eps_face[idx, 0] * e_front[:, 0]
+            faces[idx, 1] = EPS0_F_PER_M * self.eps_face[idx, 1] * e_back[:, 0]
         return faces
 
     def peaks(self) -> tuple[LevelPeak, ...]:
@@ -344,6 +343,26 @@ def principal_value_normal_field(
     return 2 * means[0] - means[1]
 
 
+def sheet_face_fields(
+    kernel: LayeredKernel,
+    mesh: AxiMesh,
+    rows: np.ndarray,
+    u: np.ndarray,
+    eps_b: np.ndarray,
+    applied: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Outward normal field (R, cols) on the front and back face of sheet nodes ``rows``.
+
+    From the jump and the principal value: E_front = u/(2 eps_b) + PV, E_back = u/(2 eps_b) -
+    PV (u = q / eps0 per column; the last column, the applied-field one, adds E0 n_z to PV).
+    """
+    delta = PV_OFFSET * mesh.length_m[rows // mesh.order][:, None]
+    pv = principal_value_normal_field(kernel, mesh, rows, delta) @ u
+    pv[:, -1] += applied * mesh.normals[rows, 1]
+    half = u[rows] / (2.0 * eps_b[rows])[:, None]
+    return half + pv, half - pv
+
+
 def _face_sigma(
     kernel: LayeredKernel,
     mesh: AxiMesh,
@@ -367,14 +386,9 @@ def _face_sigma(
         out[same, 0, :] = (eps_face[same, 0] / eps_b[:nc][same])[:, None] * u[:nc][same]
     idx = np.nonzero(split)[0]
     if len(idx):
-        n = mesh.normals[idx]
-        delta = PV_OFFSET * mesh.length_m[idx // mesh.order][:, None]
-        for col, side in ((0, 1.0), (1, -1.0)):
-            pts = mesh.points_m[idx] + side * delta * n
-            f = kernel.field(mesh, pts)
-            en = np.einsum("mnc,mc->mn", f, n) @ u
-            en[:, -1] += applied * n[:, 1]
-            out[idx, col, :] = side * eps_face[idx, col][:, None] * en
+        e_front, e_back = sheet_face_fields(kernel, mesh, idx, u, eps_b, applied)
+        out[idx, 0, :] = eps_face[idx, 0][:, None] * e_front
+        out[idx, 1, :] = eps_face[idx, 1][:, None] * e_back
     return out * EPS0_F_PER_M
 
 
