@@ -224,3 +224,29 @@ def test_standoff_finite_difference_matches_one_solve_hadamard_formula():
     fd = sol.standoff_derivative_fd()
     assert fd.value[0, 0] == pytest.approx(hadamard[0, 0], rel=1e-4)
     assert fd.rel_error_estimate < 1e-3
+
+
+@pytest.mark.parametrize("eps_film", [4.0, 80.0])
+def test_continuity_across_a_film_on_the_grounded_plane(eps_film):
+    # common practice, no source: phi, tangential E and normal D are continuous across the
+    # face of a film (points 1e-9 m either side), and phi = 0 on the grounded plane under it.
+    d = 0.1
+    layout = Layout(
+        (driven("ball", geo.sphere(0.3, 0.6), 1.0),),
+        ground_plane=True,
+        layers=(PlanarLayer("film", eps_film, 0.0, d),),
+    )
+    sol = solve_axisymmetric(layout, rel_accuracy=1e-7)
+    r = np.array([0.0, 0.2, 0.5, 1.0])
+    up = np.stack([r, np.full(4, d + 1e-9)], axis=1)
+    down = np.stack([r, np.full(4, d - 1e-9)], axis=1)
+    phi = sol.potential_at(up)
+    e_up, e_down = sol.field_at(up), sol.field_at(down)
+    # phi may differ by the field times the 2e-9 m between the points
+    np.testing.assert_allclose(sol.potential_at(down), phi, atol=4e-9 * np.abs(e_up).max())
+    np.testing.assert_allclose(e_down[:, 0], e_up[:, 0], atol=1e-6 * np.abs(e_up).max())
+    np.testing.assert_allclose(
+        eps_film * e_down[:, 1], e_up[:, 1], atol=1e-6 * np.abs(e_up[:, 1]).max()
+    )
+    plane = np.stack([r, np.zeros(4)], axis=1)
+    np.testing.assert_allclose(sol.potential_at(plane), 0.0, atol=1e-12)

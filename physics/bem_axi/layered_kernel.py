@@ -26,13 +26,19 @@ static reflection coefficient (e_near - e_far) / (e_near + e_far) of one interfa
 grounded plane, d the thickness of the layer behind it). The large-k limits Gd -> r_lo,
 Gu -> r_hi are taken out as two exact image rings (mirrored in z_lo and z_hi, handled by the
 ordinary near-field rules); the remainder S(k) = g - e^{-k|z-z'|} - r_lo e^{..} - r_hi e^{..}
-is smooth, decays at least like e^{-k s} with s = 2 x (smallest distance of a source or target
-to z_lo or z_hi), and is bounded by |S| <= 6 e^{-k s} / (1 - e^{-2kt}) because every reflection
-function and coefficient has modulus <= 1 (passive media). The integral is cut at K where
-that bound leaves a tail below 1e-13 of the kernel scale (a proven bound, independent of the
-permittivity contrast: eps_r = 80 costs nothing extra), and integrated by composite 16-point
-Gauss-Legendre panels no wider than 5 / r_max, 8 / s and 4 / (thinnest layer or gap). Every term is
+is smooth, decays at least like e^{-k s} with s the smallest of (z - z_lo) + (z' - z_lo),
+(z_hi - z) + (z_hi - z') and t over targets z and sources z', and is bounded by
+|S| <= 6 e^{-k s} / (1 - e^{-2kt}) because every reflection function and coefficient has
+modulus <= 1 (passive media). The integral is cut at K where that bound leaves a tail below
+1e-13 of the kernel scale (a proven bound, independent of the permittivity contrast:
+eps_r = 80 costs nothing extra), and integrated by composite 16-point Gauss-Legendre panels
+no wider than 5 / r_max, 8 / s and 4 / (thinnest layer or gap). Every term is
 a product of a target factor and a source factor, so the remainder matrix is U diag(w) V^T.
+
+Targets in the first medium past either face of the gap (inside a film, a slab, a half-space)
+take the transmitted form of :func:`transmitted_matrix`, the same kind of separable integral;
+its integrand obeys the same bound within a factor 8 / (6 (1 - e^{-2Kd})), d the thickness of
+that medium, which the same K covers for any d above 0.1 s (a factor below 1.4).
 """
 
 from __future__ import annotations
@@ -91,35 +97,47 @@ class Gap:
     z_hi: float
     eps_r: float
 
-    def _side_reflection(self, k: np.ndarray, below: bool) -> tuple[np.ndarray, float]:
-        """Reflection function (Q,) seen from the gap looking down (below) or up, and its
-        large-k limit (the static coefficient of the first interface, -1 for the ground)."""
+    def _beyond(self, below: bool) -> tuple[list[tuple[float, float]], bool]:
+        """Media (eps, thickness) beyond the gap face, nearest first, and whether the last
+        finite one ends on the ground plane."""
         z0 = self.z_lo if below else self.z_hi
-        if not math.isfinite(z0):
-            return np.zeros_like(k), 0.0
-        if below and self.stack.ground_plane and z0 == 0.0:
-            return -np.ones_like(k), -1.0
-        media = []  # (eps, thickness) going away from the gap
-        grounded = False
+        media: list[tuple[float, float]] = []
         z = z0
         while True:
             eps = self.stack.eps_r_below(z) if below else self.stack.eps_r_above(z)
             nxt = _next_interface(self.stack, z, below)
             media.append((eps, math.inf if nxt is None else abs(z - nxt)))
             if nxt is None:
-                break
+                return media, False
             if below and self.stack.ground_plane and nxt == 0.0:
-                grounded = True
-                break
+                return media, True
             z = nxt
+
+    def _reflections(self, k: np.ndarray, below: bool) -> tuple[np.ndarray, np.ndarray, float]:
+        """Reflection functions (Q,) seen from the gap at its face (Gamma) and from the first
+        medium beyond at its far side (Gamma'), and the large-k limit of Gamma."""
+        z0 = self.z_lo if below else self.z_hi
+        if not math.isfinite(z0):
+            return np.zeros_like(k), np.zeros_like(k), 0.0
+        if below and self.stack.ground_plane and z0 == 0.0:
+            return -np.ones_like(k), np.zeros_like(k), -1.0
+        media, grounded = self._beyond(below)
         gam = np.full_like(k, -1.0 if grounded else 0.0)
         eps_list = [self.eps_r] + [e for e, _ in media]
+        inner = gam
         for j in range(len(media), 0, -1):
+            inner = gam
             r = _reflection(eps_list[j - 1], eps_list[j])
             thick = media[j - 1][1]
             e = np.exp(-2 * k * thick) if math.isfinite(thick) else np.zeros_like(k)
             gam = (r + gam * e) / (1 + r * gam * e)
-        return gam, _reflection(self.eps_r, eps_list[1])
+        return gam, inner, _reflection(self.eps_r, eps_list[1])
+
+    def _side_reflection(self, k: np.ndarray, below: bool) -> tuple[np.ndarray, float]:
+        """Reflection function (Q,) seen from the gap looking down (below) or up, and its
+        large-k limit (the static coefficient of the first interface, -1 for the ground)."""
+        gam, _, r0 = self._reflections(k, below)
+        return gam, r0
 
     @property
     def images(self) -> tuple[tuple[float, float], ...]:
@@ -176,17 +194,24 @@ class HankelRule:
     w: np.ndarray
 
 
-def hankel_rule(gap: Gap, z_all: np.ndarray, r_max: float, size: float) -> HankelRule:
-    """Quadrature for the spectral remainder with sources/targets at heights ``z_all``."""
-    dist = []
-    if math.isfinite(gap.z_lo):
-        dist.append(np.min(z_all - gap.z_lo))
-    if math.isfinite(gap.z_hi):
-        dist.append(np.min(gap.z_hi - z_all))
-    s = 2.0 * float(min(dist))
+def decay_length(gap: Gap, z_targets: np.ndarray | None, z_sources: np.ndarray) -> float:
+    """Smallest exponent length s of the remainder's terms: (z - z_lo) + (z' - z_lo),
+    (z_hi - z) + (z_hi - z') and the gap thickness; targets beyond the gap (None) count 0."""
+    cands = []
+    for face, sign in ((gap.z_lo, 1.0), (gap.z_hi, -1.0)):
+        if math.isfinite(face):
+            dt = 0.0 if z_targets is None else float(np.min(sign * (z_targets - face)))
+            cands.append(dt + float(np.min(sign * (z_sources - face))))
+    if math.isfinite(gap.z_lo) and math.isfinite(gap.z_hi):
+        cands.append(gap.z_hi - gap.z_lo)
+    return min(cands)
+
+
+def hankel_rule(gap: Gap, s: float, r_max: float, size: float) -> HankelRule:
+    """Quadrature for a spectral integrand bounded by 6 e^{-k s} / (1 - e^{-2kt})."""
     if s <= 0:
         raise GeometryError(
-            f"a source or target lies on a layer interface (distance {s / 2:.3g} m); keep them off"
+            f"a source lies on a layer interface (decay length {s:.3g} m); keep sources off"
         )
     t = gap.z_hi - gap.z_lo
     scale = max(size, s)
@@ -265,6 +290,52 @@ def remainder_matrix(
     return out
 
 
+def transmitted_matrix(
+    gap: Gap, rule: HankelRule, targets: np.ndarray, mesh: AxiMesh, field: bool, below: bool
+) -> np.ndarray:
+    """Potential (M, N) or field (M, N, 2) per q ds'/eps0 at targets in the first medium beyond
+    the gap face (below: z_lo - d < z < z_lo; above: z_hi < z < z_hi + d).
+
+    With X(k; z') the wave arriving at the face (direct plus the multiple reflections in the
+    gap), continuity of phi and of eps dphi/dz at the face give, w the distance past the face,
+    phi = X (1 + Gamma) / (1 + Gamma' e^{-2kd}) [e^{-kw} + Gamma' e^{-k(2d - w)}].
+    """
+    k, w = rule.k, rule.w
+    gd, gd_in, _ = gap._reflections(k, True)
+    gu, gu_in, _ = gap._reflections(k, False)
+    gam, gam_in = (gd, gd_in) if below else (gu, gu_in)
+    face = gap.z_lo if below else gap.z_hi
+    media, _ = gap._beyond(below)
+    thick = media[0][1]
+    src = mesh.points_m
+    src_fac = j0(np.outer(src[:, 0], k)) * (0.5 * src[:, 0] * mesh.weights_m)[:, None]
+    near_side, far_side = ("lo", "hi") if below else ("hi", "lo")
+    x_src = _u(gap, near_side, k, src[:, 1])
+    if math.isfinite(gap.z_lo) and math.isfinite(gap.z_hi):
+        et = np.exp(-k * (gap.z_hi - gap.z_lo))
+        other = gu if below else gd
+        x_src = (x_src + (other * et) * _u(gap, far_side, k, src[:, 1])) / (1 - gu * gd * et * et)
+    e2d = np.exp(-2 * k * thick) if math.isfinite(thick) else np.zeros_like(k)
+    coef = (w * (1 + gam) / (1 + gam_in * e2d)) / gap.eps_r
+    dist = (face - targets[:, 1]) if below else (targets[:, 1] - face)
+    a = np.exp(-np.outer(dist, k))
+    b = (
+        gam_in * np.exp(-np.outer(2 * thick - dist, k))
+        if math.isfinite(thick)
+        else np.zeros_like(a)
+    )
+    vb = src_fac * x_src
+    kr = np.outer(targets[:, 0], k)
+    if not field:
+        return (j0(kr) * (a + b) * coef) @ vb.T
+    out = np.empty((len(targets), mesh.n_nodes, 2))
+    out[..., 0] = (j1(kr) * k * (a + b) * coef) @ vb.T
+    # E_z = -dphi/dz, dw/dz = -1 below, +1 above; dphi/dw = k (-a + b)
+    sign = 1.0 if below else -1.0
+    out[..., 1] = (sign * j0(kr) * k * (b - a) * coef) @ vb.T
+    return out
+
+
 class LayeredKernel:
     """Potential and field operators of conductors/interfaces in a layered background.
 
@@ -334,9 +405,9 @@ class LayeredKernel:
             if ground and z0 == 0.0:
                 continue  # the ground image is inside direct_mat already
             out += coef * build(mirror_mesh(mesh, z0), targets, False)
-        z_all = np.concatenate([targets[:, 1], mesh.points_m[:, 1]])
         r_max = float(max(np.max(targets[:, 0]), np.max(mesh.points_m[:, 0])))
-        rule = hankel_rule(gap, z_all, r_max, self.size)
+        s = decay_length(gap, targets[:, 1], mesh.points_m[:, 1])
+        rule = hankel_rule(gap, s, r_max, self.size)
         return out / gap.eps_r + remainder_matrix(gap, rule, targets, mesh, field)
 
     def _ground_in_direct(self) -> bool:
@@ -355,31 +426,53 @@ class LayeredKernel:
 
     def potential(self, mesh: AxiMesh, targets: np.ndarray) -> np.ndarray:
         """(M, N) potential at targets off the surfaces per q ds'/eps0."""
-        t = np.ascontiguousarray(targets, float)
-        direct = potential_matrix(mesh, t, self._ground_in_direct())
-        return self._combine(mesh, t, direct, False)
+        return self._evaluate(mesh, targets, False)
 
     def field(self, mesh: AxiMesh, targets: np.ndarray) -> np.ndarray:
         """(M, N, 2) field (E_r, E_z) at targets off the surfaces per q ds'/eps0."""
+        return self._evaluate(mesh, targets, True)
+
+    def _evaluate(self, mesh: AxiMesh, targets: np.ndarray, field: bool) -> np.ndarray:
         t = np.ascontiguousarray(targets, float)
-        direct = field_matrix(mesh, t, self._ground_in_direct())
-        return self._combine(mesh, t, direct, True)
+        build = field_matrix if field else potential_matrix
+        if self.kind != "gap":
+            return self._combine(mesh, t, build(mesh, t, self._ground_in_direct()), field)
+        self.check_targets(t)
+        gap = self.gap
+        below = t[:, 1] <= gap.z_lo
+        above = t[:, 1] >= gap.z_hi
+        inside = ~(below | above)
+        out = np.zeros((len(t), mesh.n_nodes, 2) if field else (len(t), mesh.n_nodes))
+        if np.any(inside):
+            ti = t[inside]
+            out[inside] = self._combine(mesh, ti, build(mesh, ti, self._ground_in_direct()), field)
+        for sel, is_below in ((below, True), (above, False)):
+            if np.any(sel):
+                r_max = float(max(np.max(t[sel, 0]), np.max(mesh.points_m[:, 0])))
+                s = decay_length(gap, None, mesh.points_m[:, 1])
+                rule = hankel_rule(gap, s, r_max, self.size)
+                out[sel] = transmitted_matrix(gap, rule, t[sel], mesh, field, is_below)
+        return out
 
     def target_eps_r(self, z: np.ndarray) -> np.ndarray:
         """Permittivity of the background at target heights (M,), for D = eps E."""
         return self.stack.eps_r_at(np.asarray(z, float))
 
     def check_targets(self, targets: np.ndarray) -> None:
-        """Raise GeometryError for targets outside the source gap (fields there need the
-        transmitted kernel, not implemented)."""
+        """Raise GeometryError for targets beyond the first layer on either side of the gap
+        that holds the conductors (deeper layers are not evaluated)."""
         if self.kind != "gap":
             return
         z = targets[:, 1]
-        bad = (z <= self.gap.z_lo) | (z >= self.gap.z_hi)
+        gap = self.gap
+        lo = gap.z_lo - (self.gap._beyond(True)[0][0][1] if math.isfinite(gap.z_lo) else 0.0)
+        hi = gap.z_hi + (self.gap._beyond(False)[0][0][1] if math.isfinite(gap.z_hi) else 0.0)
+        if gap.z_lo == 0.0 and self.stack.ground_plane:
+            lo = 0.0
+        bad = (z < lo) | (z > hi)
         if np.any(bad):
             zb = float(z[np.argmax(bad)])
             raise GeometryError(
-                f"point at z = {zb:.6g} m lies outside the gap {self.gap.z_lo:.6g} < z < "
-                f"{self.gap.z_hi:.6g} m that holds the conductors; fields inside other layers "
-                "are not available with this layer stack"
+                f"point at z = {zb:.6g} m lies beyond the layers next to the conductors' gap "
+                f"({lo:.6g} <= z <= {hi:.6g} m); fields in deeper layers are not available"
             )
