@@ -3,29 +3,32 @@
 Unknowns: a ring density q (C/m^2) on every conductor node and on every dielectric interface
 node, all radiating through the Green's function G_b of the planar background (layers,
 ground plane; :mod:`elopt.physics.bem_axi.layered_kernel`), so phi(x) = (1/eps0) int G_b q ds'
-(G_b includes 1/eps_b, eps_b the background permittivity at the source). Regions are
+(G_b includes 1/eps of the background at the source). Regions are
 accounted for by q on their boundaries: the polarisation charge relative to the background.
 
 Conductor node x on conductor k (first kind):
 
     (1/eps0) int G_b(x, x') q(x') ds' = V_k + E0 z.
 
-Interface node x between eps_- (inside the region) and eps_+ (outside), normal n from - to +,
-in background eps_b. The normal field on either side is E_n^{+-} = E_n^PV -+ ... precisely
-E_n^{+-} = E_n^PV +- q / (2 eps0 eps_b) (jump of a single layer), E_n^PV the principal value
-(the normal derivative of the ring kernel, K(m) and E(m) terms, plus the applied field). No
-free charge on a dielectric: eps_+ E_n^+ = eps_- E_n^-, i.e. the second-kind equation
+Interface node x between eps_- (inside the region) and eps_+ (outside), normal n from - to +.
+With E^{+-} the normal fields on either side, the principal value E^PV = (E^+ + E^-)/2 (the
+normal derivative of the ring kernel, K(m) and E(m) terms, plus the applied field) and the
+jump of the background displacement eps_b+ E^+ - eps_b- E^- = q / eps0 (eps_b+- the
+background just off either side; equal except on a layer face), no free charge on a
+dielectric, eps_+ E^+ = eps_- E^-, is the second-kind equation
 
-    q(x) + 2 eps0 eps_b lambda(x) E_n^PV[q](x) = -2 eps0 eps_b lambda(x) E0 n_z,
-    lambda = (eps_+ - eps_-) / (eps_+ + eps_-).
+    q(x) + 2 eps0 kappa(x) E^PV[q](x) = -2 eps0 kappa(x) E0 n_z,
+    kappa = (eps_+ eps_b- - eps_- eps_b+) / (eps_+ + eps_-)   (= eps_b lambda off faces,
+    lambda = (eps_+ - eps_-) / (eps_+ + eps_-)).
 
-E_n^PV is taken from the means M(d) of the normal fields a distance d off both sides
+E^PV is taken from the means M(d) of the normal fields a distance d off both sides
 (computed with the graded near-field rules; the mean cancels the jump exactly), extrapolated
-as 2 M(d) - M(2d) with d = 1e-5 panel lengths, which leaves an O(d^2) error. Free charge on a conductor face touching medium eps_f: sigma_f = (eps_f/eps_b) q
-(D_n = eps_f E_n, E_n = q / (eps0 eps_b)); the field there is sigma_f / (eps0 eps_f). For an
-open sheet the two faces are split by the normal field just off each face. C_ij is the free
-charge on conductor i with conductor j at 1 V, the others at 0. Where an interface ends on a
-conductor (a junction of metal and two media) the density is singular like at a sharp corner:
+as 2 M(d) - M(2d) with d = 1e-5 panel lengths, which leaves an O(d^2) error. Free charge on a
+closed conductor's face touching medium eps_f: sigma_f = (eps_f / eps_b+) q (only the outside
+carries field: eps_b+ E = q / eps0, D_n = eps_f E); the field there is sigma_f / (eps0 eps_f).
+An open sheet's faces follow from E_front - E_back = 2 E^PV and the same displacement jump.
+C_ij is the free charge on conductor i with conductor j at 1 V, the others at 0. Where an
+interface ends on a conductor (a junction of metal and two media) the density is singular like at a sharp corner:
 the conductor's curve is graded there, and a peak field found there is flagged singular.
 """
 
@@ -221,7 +224,7 @@ class DielectricLevel:
     sigma_free: np.ndarray
     sigma_faces: np.ndarray  # (Nc, 2, n + 1) free density on front / back face
     eps_face: np.ndarray  # (Nc, 2) medium on the front / back face of conductor nodes
-    eps_b: np.ndarray  # (N,) background permittivity at every node
+    eps_bg: np.ndarray  # (N, 2) background permittivity on the normal side / other side
     capacitance_F: np.ndarray
     applied_charges_C: np.ndarray
 
@@ -245,7 +248,9 @@ class DielectricLevel:
         nc = self.n_conductor_nodes
         owner = self.mesh.node_conductor[:nc]
         sheet = np.array([c.shape.kind == "sheet" for c in self.layout.conductors])[owner]
-        idx = np.nonzero(sheet & (self.eps_face[:, 0] == self.eps_face[:, 1]))[0]
+        bg = self.eps_bg[:nc]
+        uniform = (self.eps_face[:, 0] == self.eps_face[:, 1]) & (bg[:, 0] == bg[:, 1])
+        idx = np.nonzero(sheet & uniform)[0]
         if len(idx):
             # one column, the excitation: sheet_face_fields adds E0 n_z to it
             e_front, e_back = sheet_face_fields(
@@ -253,7 +258,7 @@ class DielectricLevel:
                 self.mesh,
                 idx,
                 u[:, None],
-                self.eps_b,
+                self.eps_bg,
                 self.layout.applied_field_V_per_m,
             )
             faces[idx, 0] = EPS0_F_PER_M * self.eps_face[idx, 0] * e_front[:, 0]
@@ -348,19 +353,22 @@ def sheet_face_fields(
     mesh: AxiMesh,
     rows: np.ndarray,
     u: np.ndarray,
-    eps_b: np.ndarray,
+    eps_bg: np.ndarray,
     applied: float,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Outward normal field (R, cols) on the front and back face of sheet nodes ``rows``.
 
-    From the jump and the principal value: E_front = u/(2 eps_b) + PV, E_back = u/(2 eps_b) -
-    PV (u = q / eps0 per column; the last column, the applied-field one, adds E0 n_z to PV).
+    The principal value (the mean over both sides) gives E_front - E_back = 2 PV; the jump of
+    the background displacement gives eps_bg+ E_front + eps_bg- E_back = u (u = q / eps0 per
+    column, eps_bg (N, 2) the background on the normal side and the other; they differ only for
+    a sheet resting on a layer face). The last column, the applied-field one, adds E0 n_z to PV.
     """
     delta = PV_OFFSET * mesh.length_m[rows // mesh.order][:, None]
     pv = principal_value_normal_field(kernel, mesh, rows, delta) @ u
     pv[:, -1] += applied * mesh.normals[rows, 1]
-    half = u[rows] / (2.0 * eps_b[rows])[:, None]
-    return half + pv, half - pv
+    bp, bm = eps_bg[rows, 0][:, None], eps_bg[rows, 1][:, None]
+    e_back = (u[rows] - 2.0 * bp * pv) / (bp + bm)
+    return e_back + 2.0 * pv, e_back
 
 
 def _face_sigma(
@@ -369,24 +377,24 @@ def _face_sigma(
     u: np.ndarray,
     nc: int,
     eps_face: np.ndarray,
-    eps_b: np.ndarray,
+    eps_bg: np.ndarray,
     sheet: np.ndarray,
     applied: float,
 ) -> np.ndarray:
     """Free density (Nc, 2, cols) on the front and back face of every conductor node."""
     cols = u.shape[1]
     out = np.zeros((nc, 2, cols))
+    # a closed conductor has field on its outside only: q = eps0 eps_bg+ E there
     closed = ~sheet
-    out[closed, 0, :] = (eps_face[closed, 0] / eps_b[:nc][closed])[:, None] * u[:nc][closed]
-    same = sheet & (eps_face[:, 0] == eps_face[:, 1])
-    split = sheet & ~same
-    if np.any(same):
-        # both faces in one medium: the split only matters for the field, done in
-        # face_fields; here the total is all that C needs
-        out[same, 0, :] = (eps_face[same, 0] / eps_b[:nc][same])[:, None] * u[:nc][same]
-    idx = np.nonzero(split)[0]
+    out[closed, 0, :] = (eps_face[closed, 0] / eps_bg[:nc][closed, 0])[:, None] * u[:nc][closed]
+    uniform = (eps_face[:, 0] == eps_face[:, 1]) & (eps_bg[:nc, 0] == eps_bg[:nc, 1])
+    same = sheet & uniform
+    # one medium on both faces: the total is (eps_f / eps_bg) q; the split matters only for
+    # the field and is done at the excitation (DielectricLevel.faces)
+    out[same, 0, :] = (eps_face[same, 0] / eps_bg[:nc][same, 0])[:, None] * u[:nc][same]
+    idx = np.nonzero(sheet & ~uniform)[0]
     if len(idx):
-        e_front, e_back = sheet_face_fields(kernel, mesh, idx, u, eps_b, applied)
+        e_front, e_back = sheet_face_fields(kernel, mesh, idx, u, eps_bg, applied)
         out[idx, 0, :] = eps_face[idx, 0][:, None] * e_front
         out[idx, 1, :] = eps_face[idx, 1][:, None] * e_back
     return out * EPS0_F_PER_M
@@ -404,10 +412,19 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
     )
     n = len(layout.conductors)
     e0 = layout.applied_field_V_per_m
-    eps_b = kernel.background_eps_r(mesh.points_m[:, 1])
+    owner = mesh.node_conductor
+    sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[owner[:nc]]
+    # background permittivity just off each node on the normal side and the other
+    step = 1e-9 * model.size * mesh.normals[:, 1]
+    eps_bg = np.stack(
+        [
+            layout.layer_stack.eps_r_at(mesh.points_m[:, 1] + step),
+            layout.layer_stack.eps_r_at(mesh.points_m[:, 1] - step),
+        ],
+        axis=1,
+    )
     a = kernel.collocation(mesh)
     rhs = np.zeros((mesh.n_nodes, n + 1))
-    owner = mesh.node_conductor
     rhs[np.arange(nc), owner[:nc]] = 1.0
     rhs[:nc, n] = e0 * mesh.points_m[:nc, 1]
     if mesh.n_nodes > nc:
@@ -415,8 +432,9 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
         nrm = mesh.normals[ii]
         delta = PV_OFFSET * mesh.length_m[ii // mesh.order][:, None]
         pv = principal_value_normal_field(kernel, mesh, ii, delta)
-        lam = (eps_out - eps_in) / (eps_out + eps_in)
-        scale = 2.0 * eps_b[ii] * lam
+        # eps_+ E+ = eps_- E-, E+ + E- = 2 PV, eps_bg+ E+ - eps_bg- E- = u (module text)
+        bp, bm = eps_bg[ii, 0], eps_bg[ii, 1]
+        scale = 2.0 * (eps_out * bm - eps_in * bp) / (eps_out + eps_in)
         rows = scale[:, None] * pv
         rows[np.arange(len(ii)), ii] += 1.0
         a[ii] = rows
@@ -425,8 +443,7 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
         raise SolverError("dielectric system matrix has non-finite entries; check the geometry")
     lu = scipy.linalg.lu_factor(a, check_finite=False)
     u = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
-    sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[owner[:nc]]
-    faces = _face_sigma(kernel, mesh, u, nc, eps_face, eps_b, sheet, e0)
+    faces = _face_sigma(kernel, mesh, u, nc, eps_face, eps_bg, sheet, e0)
     sigma_free = faces.sum(axis=1)
     area = mesh.ring_area_m2[:nc]
     charges = np.zeros((n, n + 1))
@@ -441,7 +458,7 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
         sigma_free=sigma_free,
         sigma_faces=faces,
         eps_face=eps_face,
-        eps_b=eps_b,
+        eps_bg=eps_bg,
         capacitance_F=charges[:, :n],
         applied_charges_C=charges[:, n],
     )

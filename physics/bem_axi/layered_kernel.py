@@ -164,24 +164,23 @@ def _next_interface(stack: LayerStack, z: float, below: bool) -> float | None:
 
 def find_gap(stack: LayerStack, z_min: float, z_max: float, what: str) -> Gap:
     """The gap of ``stack`` containing the height range [z_min, z_max] of every source."""
-    below = [v for v in stack.interfaces_m if v <= z_min]
-    above = [v for v in stack.interfaces_m if v >= z_max]
-    inside = [v for v in stack.interfaces_m if z_min < v < z_max]
+    ifaces = [float(v) for v in stack.interfaces_m]
+    below = [v for v in ifaces if v <= z_min]
+    # sources all in one plane that is an interface: the gap above it holds them
+    above = [v for v in ifaces if v > z_max or (v == z_max and z_max > z_min)]
+    inside = [v for v in ifaces if z_min < v < z_max]
     if inside:
         raise GeometryError(
             f"{what}: spans heights {z_min:.6g} .. {z_max:.6g} m across the layer interface at "
             f"z = {inside[0]:.6g} m; every conductor and region must lie in one gap between "
-            "layer interfaces (or straddle the single interface of two half-spaces)"
-        )
-    touching = [v for v in stack.interfaces_m if v in (z_min, z_max)]
-    if touching:
-        raise GeometryError(
-            f"{what}: touches the layer interface at z = {touching[0]:.6g} m; keep conductors and "
-            "regions strictly off layer interfaces"
+            "layer interfaces (they may rest on a face; or straddle the single interface of "
+            "two half-spaces)"
         )
     z_lo = max(below) if below else (0.0 if stack.ground_plane else -math.inf)
     z_hi = min(above) if above else math.inf
-    mid = 0.5 * (z_min + z_max)
+    mid = 0.5 * (z_lo + z_hi) if math.isfinite(z_lo + z_hi) else 0.5 * (z_min + z_max)
+    if not math.isfinite(mid) or not (z_lo < mid < z_hi):
+        mid = z_hi - 1.0 if math.isfinite(z_hi) else max(z_lo, z_max) + 1.0
     eps = float(stack.eps_r_at(np.array([mid]))[0])
     return Gap(stack, float(z_lo), float(z_hi), eps)
 
@@ -194,21 +193,38 @@ class HankelRule:
     w: np.ndarray
 
 
-def decay_length(gap: Gap, z_targets: np.ndarray | None, z_sources: np.ndarray) -> float:
-    """Smallest exponent length s of the remainder's terms: (z - z_lo) + (z' - z_lo),
-    (z_hi - z) + (z_hi - z') and the gap thickness; targets beyond the gap (None) count 0."""
-    cands = []
-    for face, sign in ((gap.z_lo, 1.0), (gap.z_hi, -1.0)):
-        if math.isfinite(face):
-            dt = 0.0 if z_targets is None else float(np.min(sign * (z_targets - face)))
-            cands.append(dt + float(np.min(sign * (z_sources - face))))
+def decay_length(gap: Gap, z_targets: np.ndarray, z_sources: np.ndarray) -> float:
+    """Smallest exponent length s of the remainder's terms (targets in the gap): for a face,
+    target and source distances to it plus twice the thickness of the medium behind it (the
+    reflection function minus its limit falls like e^{-2kd}; no term when it is exact), and
+    the gap thickness t for the multiple reflections."""
+    cands = [math.inf]
+    for face, sign, below in ((gap.z_lo, 1.0, True), (gap.z_hi, -1.0, False)):
+        if not math.isfinite(face):
+            continue
+        behind = gap._beyond(below)[0][0][1] if not _exact_face(gap, below) else math.inf
+        extra = min(2.0 * behind, 2.0 * (gap.z_hi - gap.z_lo))
+        dt = float(np.min(sign * (z_targets - face)))
+        cands.append(dt + float(np.min(sign * (z_sources - face))) + extra)
     if math.isfinite(gap.z_lo) and math.isfinite(gap.z_hi):
         cands.append(gap.z_hi - gap.z_lo)
     return min(cands)
 
 
-def hankel_rule(gap: Gap, s: float, r_max: float, size: float) -> HankelRule:
-    """Quadrature for a spectral integrand bounded by 6 e^{-k s} / (1 - e^{-2kt})."""
+def _exact_face(gap: Gap, below: bool) -> bool:
+    """Whether the face's reflection function equals its limit for every k (the ground plane
+    right at the face, or one half-space behind it)."""
+    if below and gap.stack.ground_plane and gap.z_lo == 0.0:
+        return True
+    media, grounded = gap._beyond(below)
+    return len(media) == 1 and not grounded and not math.isfinite(media[0][1])
+
+
+def hankel_rule(gap: Gap, s: float, r_max: float, size: float) -> HankelRule | None:
+    """Quadrature for a spectral integrand bounded by 6 e^{-k s} / (1 - e^{-2kt}); None when
+    the integrand vanishes (s infinite)."""
+    if not math.isfinite(s):
+        return None
     if s <= 0:
         raise GeometryError(
             f"a source lies on a layer interface (decay length {s:.3g} m); keep sources off"
@@ -290,11 +306,26 @@ def remainder_matrix(
     return out
 
 
+def transmitted_decay(gap: Gap, w_targets: np.ndarray, z_sources: np.ndarray, below: bool) -> float:
+    """Decay length of the transmitted remainder: distances of targets past the face and of
+    sources to it, plus the smaller of the medium's and the gap's thickness (inf: none)."""
+    face = gap.z_lo if below else gap.z_hi
+    d = gap._beyond(below)[0][0][1]
+    t = gap.z_hi - gap.z_lo
+    extra = min(d, t)
+    if not math.isfinite(extra):
+        return math.inf
+    ds = float(np.min(np.abs(z_sources - face)))
+    return float(np.min(w_targets)) + ds + extra
+
+
 def transmitted_matrix(
     gap: Gap, rule: HankelRule, targets: np.ndarray, mesh: AxiMesh, field: bool, below: bool
 ) -> np.ndarray:
-    """Potential (M, N) or field (M, N, 2) per q ds'/eps0 at targets in the first medium beyond
-    the gap face (below: z_lo - d < z < z_lo; above: z_hi < z < z_hi + d).
+    """Remainder (M, N) of the potential, or (M, N, 2) of the field, per q ds'/eps0 at targets
+    in the first medium past a gap face (below: z_lo - d <= z <= z_lo; above: z_hi <= z <=
+    z_hi + d), after the exact part (1 + r_face) G / eps_s (the transmitted image of
+    docs/references.md item 15) is taken out.
 
     With X(k; z') the wave arriving at the face (direct plus the multiple reflections in the
     gap), continuity of phi and of eps dphi/dz at the face give, w the distance past the face,
@@ -303,20 +334,25 @@ def transmitted_matrix(
     k, w = rule.k, rule.w
     gd, gd_in, _ = gap._reflections(k, True)
     gu, gu_in, _ = gap._reflections(k, False)
-    gam, gam_in = (gd, gd_in) if below else (gu, gu_in)
+    gam, gam_in, r_face = gap._reflections(k, below)
     face = gap.z_lo if below else gap.z_hi
-    media, _ = gap._beyond(below)
-    thick = media[0][1]
+    thick = gap._beyond(below)[0][0][1]
     src = mesh.points_m
     src_fac = j0(np.outer(src[:, 0], k)) * (0.5 * src[:, 0] * mesh.weights_m)[:, None]
     near_side, far_side = ("lo", "hi") if below else ("hi", "lo")
-    x_src = _u(gap, near_side, k, src[:, 1])
+    e2d = np.exp(-2 * k * thick) if math.isfinite(thick) else np.zeros_like(k)
+    c1 = (1 + gam) / (1 + gam_in * e2d)
+    terms_src = []  # (coefficient of e^{-kw} (Q,), of the reflected wave (Q,), source factor)
+    near = src_fac * _u(gap, near_side, k, src[:, 1])
     if math.isfinite(gap.z_lo) and math.isfinite(gap.z_hi):
         et = np.exp(-k * (gap.z_hi - gap.z_lo))
+        dn = 1 - gu * gd * et * et
         other = gu if below else gd
-        x_src = (x_src + (other * et) * _u(gap, far_side, k, src[:, 1])) / (1 - gu * gd * et * et)
-    e2d = np.exp(-2 * k * thick) if math.isfinite(thick) else np.zeros_like(k)
-    coef = (w * (1 + gam) / (1 + gam_in * e2d)) / gap.eps_r
+        terms_src.append((c1 / dn - (1 + r_face), c1 / dn, near))
+        far = src_fac * _u(gap, far_side, k, src[:, 1])
+        terms_src.append((c1 * other * et / dn, c1 * other * et / dn, far))
+    else:
+        terms_src.append((c1 - (1 + r_face), c1, near))
     dist = (face - targets[:, 1]) if below else (targets[:, 1] - face)
     a = np.exp(-np.outer(dist, k))
     b = (
@@ -324,15 +360,19 @@ def transmitted_matrix(
         if math.isfinite(thick)
         else np.zeros_like(a)
     )
-    vb = src_fac * x_src
     kr = np.outer(targets[:, 0], k)
-    if not field:
-        return (j0(kr) * (a + b) * coef) @ vb.T
-    out = np.empty((len(targets), mesh.n_nodes, 2))
-    out[..., 0] = (j1(kr) * k * (a + b) * coef) @ vb.T
-    # E_z = -dphi/dz, dw/dz = -1 below, +1 above; dphi/dw = k (-a + b)
+    tj0 = j0(kr)
+    out = np.zeros((len(targets), mesh.n_nodes, 2) if field else (len(targets), mesh.n_nodes))
+    # E_z = -dphi/dz, dw/dz = -1 below, +1 above; dphi/dw = k (-a ca + b cb)
     sign = 1.0 if below else -1.0
-    out[..., 1] = (sign * j0(kr) * k * (b - a) * coef) @ vb.T
+    for ca, cb, vb in terms_src:
+        wa, wb = w * ca / gap.eps_r, w * cb / gap.eps_r
+        wave = a * wa + b * wb
+        if not field:
+            out += (tj0 * wave) @ vb.T
+        else:
+            out[..., 0] += (j1(kr) * k * wave) @ vb.T
+            out[..., 1] += (sign * tj0 * k * (b * wb - a * wa)) @ vb.T
     return out
 
 
@@ -364,17 +404,6 @@ class LayeredKernel:
         tol = 1e-12 * self.size
         return np.where(z > self.z_i + tol, 1, np.where(z < self.z_i - tol, -1, 0))
 
-    def background_eps_r(self, z: np.ndarray) -> np.ndarray:
-        """Background permittivity at heights z (M,); on the interface of two half-spaces the
-        mean of both sides (the weight of a sheet lying in it)."""
-        z = np.asarray(z, float)
-        if self.kind == "homogeneous":
-            return np.full(z.shape, self.eps_default)
-        if self.kind == "gap":
-            return np.full(z.shape, self.gap.eps_r)
-        s = self.side(z)
-        return np.where(s > 0, self.e_hi, np.where(s < 0, self.e_lo, 0.5 * (self.e_lo + self.e_hi)))
-
     def _weights(self, zt: np.ndarray, zs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         st, ss = self.side(zt)[:, None], self.side(zs)[None, :]
         e_lo, e_hi = self.e_lo, self.e_hi
@@ -401,13 +430,25 @@ class LayeredKernel:
             return direct_mat * wd + img * wi
         gap = self.gap
         out = direct_mat.copy()
+        real = None
         for z0, coef in gap.images:
             if ground and z0 == 0.0:
                 continue  # the ground image is inside direct_mat already
-            out += coef * build(mirror_mesh(mesh, z0), targets, False)
+            img = build(mirror_mesh(mesh, z0), targets, False)
+            on = np.abs(mesh.points_m[:, 1] - z0) <= 1e-12 * self.size
+            if np.any(on):
+                # a source resting on the face is its own mirror image: reuse the real columns
+                if self._ground_in_direct():
+                    real = build(mesh, targets, False) if real is None else real
+                    img[:, on] = real[:, on]
+                else:
+                    img[:, on] = direct_mat[:, on]
+            out += coef * img
         r_max = float(max(np.max(targets[:, 0]), np.max(mesh.points_m[:, 0])))
         s = decay_length(gap, targets[:, 1], mesh.points_m[:, 1])
         rule = hankel_rule(gap, s, r_max, self.size)
+        if rule is None:
+            return out / gap.eps_r
         return out / gap.eps_r + remainder_matrix(gap, rule, targets, mesh, field)
 
     def _ground_in_direct(self) -> bool:
@@ -447,11 +488,19 @@ class LayeredKernel:
             ti = t[inside]
             out[inside] = self._combine(mesh, ti, build(mesh, ti, self._ground_in_direct()), field)
         for sel, is_below in ((below, True), (above, False)):
-            if np.any(sel):
-                r_max = float(max(np.max(t[sel, 0]), np.max(mesh.points_m[:, 0])))
-                s = decay_length(gap, None, mesh.points_m[:, 1])
-                rule = hankel_rule(gap, s, r_max, self.size)
-                out[sel] = transmitted_matrix(gap, rule, t[sel], mesh, field, is_below)
+            if not np.any(sel):
+                continue
+            ts = t[sel]
+            r_face = gap._reflections(np.array([1e300]), is_below)[2]
+            part = (1 + r_face) / gap.eps_r * build(mesh, ts, False)
+            face = gap.z_lo if is_below else gap.z_hi
+            w_t = np.abs(ts[:, 1] - face)
+            s = transmitted_decay(gap, w_t, mesh.points_m[:, 1], is_below)
+            r_max = float(max(np.max(ts[:, 0]), np.max(mesh.points_m[:, 0])))
+            rule = hankel_rule(gap, s, r_max, self.size)
+            if rule is not None:
+                part = part + transmitted_matrix(gap, rule, ts, mesh, field, is_below)
+            out[sel] = part
         return out
 
     def target_eps_r(self, z: np.ndarray) -> np.ndarray:
