@@ -85,6 +85,11 @@ def solve_axisymmetric(
     defaults to :func:`default_order` of the tighter request.
     """
     opts = make_options(options, overrides)
+    if not layout.homogeneous:
+        # dielectric regions / planar layers: their own module (hook kept to these lines)
+        from elopt.physics.bem_axi.dielectric_solve import solve_dielectric
+
+        return solve_dielectric(layout, opts)
     order = opts.order
     if order is None:
         order = default_order(min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
