@@ -61,7 +61,7 @@ MEMORY_SHARE = 0.8
 StopReason = Literal["met", "max_level", "max_unknowns", "memory"]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class Convergence:
     """How a solver's levels converge, measured by tests/benchmarks/measure_error_estimate.py.
 
