@@ -1,24 +1,26 @@
-"""The design record: dimension-aware surface samples from both solvers, strict JSON with a
-reason for every null, and a JSON round trip."""
+"""The design record: both solvers' surface samples survive the study file, strict JSON with
+a reason for every null, and a JSON round trip."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 
 import numpy as np
 import pytest
-from study_support.records import assert_same_design, design_for
+from study_support.records import assert_same_design, design_for, record_for, small_header
 
 from elopt.optimizer.record import (
+    ConductorRecord,
     JsonWarnings,
     design_from_json,
     design_json,
     strict_dumps,
-    surface_of,
 )
+from elopt.optimizer.store import StudyWriter, read_design
 from elopt.physics import geometry as geo
-from elopt.physics.bem3d import RevolvedSurface, solve_3d, sphere
+from elopt.physics.bem3d import solve_3d, sphere
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
 
@@ -27,9 +29,32 @@ def _refuse_constants(name: str) -> None:
     raise AssertionError(f"non-strict JSON token {name}")
 
 
-def test_3d_samples_are_panels_spread_over_the_body():
-    """Before the record, 3-D samples were stored as (r, z) with arc length 0, so every
-    sample of a sphere drew at one point. The record keeps (x, y, z), normal and area."""
+def _through_a_study(tmp_path, surface) -> tuple:
+    """Store a design with these samples in a study file and read the record back."""
+    base = design_for(0)
+    names = tuple(s.conductor for s in surface)
+    design = dataclasses.replace(
+        base,
+        conductors=tuple(ConductorRecord(n, 1.0, None) for n in names),
+        capacitance_matrix_F=np.eye(len(names)),
+        charges_C=np.ones(len(names)),
+        potentials_V=np.ones(len(names)),
+        peak=dataclasses.replace(
+            base.peak, conductor=names[0], location_m=(0.0,) * surface[0].points_m.shape[1]
+        ),
+        surface=tuple(surface),
+    )
+    rec = record_for(0)
+    rec.design = design
+    path = tmp_path / "s.h5"
+    with StudyWriter.create(path, small_header()) as w:
+        w.append(rec)
+    return read_design(path, 0).surface
+
+
+def test_3d_samples_keep_their_place_in_the_study_file(tmp_path):
+    """Format 1 stored 3-D samples as (r, z) with arc length 0, so every sample of a sphere
+    drew at one point. The record keeps (x, y, z), normal and area through the file."""
     r = 0.01
     sol = solve_3d(
         Layout((driven("ball", sphere(r, subdivisions=1), 5.0),)),
@@ -37,7 +62,7 @@ def test_3d_samples_are_panels_spread_over_the_body():
         max_level=1,
         strict=False,
     )
-    s = surface_of(sol, "ball")
+    (s,) = _through_a_study(tmp_path, [sol.surface_samples("ball")])
     assert s.kind == "panels" and s.arc_length_m is None
     assert s.points_m.shape == (len(s.sigma_C_per_m2), 3)
     # Centroids of a sphere's panels lie just inside radius r, spread in every direction.
@@ -51,52 +76,20 @@ def test_3d_samples_are_panels_spread_over_the_body():
     # Electrodynamics, 3rd ed., 1999; docs/references.md entry 1).
     assert s.area_m2.sum() == pytest.approx(4 * math.pi * r**2, rel=0.05)
     np.testing.assert_allclose(s.sigma_C_per_m2, EPS0_F_PER_M * 5.0 / r, rtol=0.05)
-    np.testing.assert_allclose(s.field_V_per_m, np.abs(s.sigma_C_per_m2) / EPS0_F_PER_M)
 
 
-def test_3d_open_sheet_keeps_its_two_faces_apart():
-    r = 0.05
-    sol = solve_3d(
-        Layout((driven("disk", RevolvedSurface(geo.disk(r), 0.01), 1.0),)),
-        rel_accuracy=1e-2,
-        max_level=0,
-        strict=False,
-    )
-    s = surface_of(sol, "disk")
-    front, back = s.face == 1, s.face == -1
-    assert front.sum() == back.sum() > 0 and not (s.face == 0).any()
-    np.testing.assert_allclose(s.normal[front], -s.normal[back])
-    # Each face covers the disk once: pi r^2 (geometry).
-    assert s.area_m2[front].sum() == pytest.approx(math.pi * r**2, rel=1e-2)
-    # An isolated thin disk carries half its charge on each face by symmetry (common
-    # practice, no source).
-    np.testing.assert_allclose(s.sigma_C_per_m2[front], s.sigma_C_per_m2[back], rtol=0.05)
-
-
-def test_axisymmetric_sheet_faces_share_the_arc_length_and_sum_to_the_total():
+def test_sheet_faces_stay_apart_in_the_study_file(tmp_path):
     sol = solve_axisymmetric(
         Layout((driven("disk", geo.disk(1e-2, 2e-3), 1.0),), ground_plane=True), rel_accuracy=1e-4
     )
-    raw = sol.surface_samples("disk")
-    s = surface_of(sol, "disk")
+    given = sol.surface_samples("disk")
+    (s,) = _through_a_study(tmp_path, [given])
     assert s.kind == "profile" and s.points_m.shape[1] == 2
-    k = len(raw["sigma_C_per_m2"])
+    for name in ("face", "points_m", "normal", "arc_length_m", "sigma_C_per_m2", "area_m2"):
+        np.testing.assert_array_equal(getattr(s, name), getattr(given, name), err_msg=name)
+    k = len(s.face) // 2
     assert list(s.face) == [1] * k + [-1] * k, "ordered by face, then along the curve"
     np.testing.assert_array_equal(s.arc_length_m[:k], s.arc_length_m[k:])
-    # The two faces of a charged sheet sum to its total density (jump of the normal field
-    # across a charged sheet: common practice, no source).
-    np.testing.assert_allclose(
-        s.sigma_C_per_m2[:k] + s.sigma_C_per_m2[k:], raw["sigma_C_per_m2"], rtol=1e-4
-    )
-
-
-def test_axisymmetric_closed_body_is_one_face():
-    sol = solve_axisymmetric(Layout((driven("ball", geo.sphere(1e-2), 1.0),)), rel_accuracy=1e-4)
-    s = surface_of(sol, "ball")
-    assert set(s.face.tolist()) == {0} and s.kind == "profile"
-    assert np.all(np.diff(s.arc_length_m) > 0)
-    # Ring areas of a sphere sum to 4 pi r^2 (geometry).
-    assert s.area_m2.sum() == pytest.approx(4 * math.pi * 1e-4, rel=1e-6)
 
 
 def test_json_is_strict_and_every_null_says_why():

@@ -15,7 +15,7 @@ from elopt.optimizer.record.schema import (
     DesignRecord,
     PeakRecord,
     SurfaceKind,
-    SurfaceRecord,
+    SurfaceSamples,
     design_from_json,
     design_json,
 )
@@ -23,7 +23,6 @@ from elopt.optimizer.record.strict_json import JsonWarnings, finite_or_none, jso
 
 _LAZY = {
     "design_record": "from_solution",
-    "surface_of": "from_solution",
     "MARGIN_FRACTION": "solve_json",
     "drive_of": "solve_json",
     "solve_record": "solve_json",
@@ -48,7 +47,7 @@ __all__ = [
     "JsonWarnings",
     "PeakRecord",
     "SurfaceKind",
-    "SurfaceRecord",
+    "SurfaceSamples",
     "design_from_json",
     "design_json",
     "design_record",
@@ -58,5 +57,4 @@ __all__ = [
     "solve_record",
     "solve_warnings",
     "strict_dumps",
-    "surface_of",
 ]

@@ -8,15 +8,8 @@ from typing import Any
 
 import numpy as np
 
-from elopt.optimizer.record.schema import (
-    POINT_DIM,
-    ConductorRecord,
-    DesignRecord,
-    PeakRecord,
-    SurfaceRecord,
-)
+from elopt.optimizer.record.schema import ConductorRecord, DesignRecord, PeakRecord
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
-from elopt.physics.solution import ChargeSolution
 
 #: Extras the record carries in its own fields (the families also report them in ``extra``).
 _OWN_FIELDS = (
@@ -72,73 +65,10 @@ def design_record(
         n_unknowns=int(sol.n_unknowns),
         metrics=metrics,
         metric_units=units,
-        surface=tuple(surface_of(sol, name) for name in layout.names) if keep_surface else (),
+        surface=tuple(sol.surface_samples(name) for name in layout.names) if keep_surface else (),
         extra={
             k: v
             for k, v in extra.items()
             if isinstance(v, (str, int, float, bool)) and k not in _OWN_FIELDS
         },
-    )
-
-
-def surface_of(sol: ChargeSolution, conductor: str) -> SurfaceRecord:
-    """The surface samples of one conductor in the record's form."""
-    samples = sol.surface_samples(conductor)
-    if isinstance(samples, dict):
-        return _from_solver_dict(sol, conductor, samples)
-    return SurfaceRecord(
-        conductor=samples.conductor,
-        kind=samples.kind,
-        points_m=np.asarray(samples.points_m, dtype=float),
-        sigma_C_per_m2=np.asarray(samples.sigma_C_per_m2, dtype=float),
-        field_V_per_m=np.asarray(samples.field_V_per_m, dtype=float),
-        area_m2=np.asarray(samples.area_m2, dtype=float),
-        face=np.asarray(samples.face, dtype=np.int8),
-        normal=np.asarray(samples.normal, dtype=float),
-        arc_length_m=None
-        if samples.arc_length_m is None
-        else np.asarray(samples.arc_length_m, dtype=float),
-    )
-
-
-def _from_solver_dict(
-    sol: ChargeSolution, conductor: str, s: dict[str, np.ndarray]
-) -> SurfaceRecord:
-    """Adapter for the solvers' dict samples until ``physics.solution.SurfaceSamples`` lands
-    (then this function goes): reads faces and normals the way each solver lays them out."""
-    pts = np.asarray(s["points_m"], dtype=float)
-    k = len(pts)
-    kind = "panels" if pts.shape[1] == 3 else "profile"
-    d = POINT_DIM[kind]
-    shape = sol.layout.conductors[sol.layout.index(conductor)].shape
-    sigma = np.asarray(s["sigma_C_per_m2"], dtype=float)
-    area = np.asarray(s.get("area_m2", np.full(k, np.nan)), dtype=float)
-    eps = sol.layout.eps_F_per_m
-    if kind == "panels":
-        normal = np.asarray(s.get("normals", np.full((k, d), np.nan)), dtype=float)
-        face = np.zeros(k, dtype=np.int8)
-        if not getattr(shape, "closed", True):  # the 3-D solver lists front faces, then back
-            face[: k // 2], face[k // 2 :] = 1, -1
-        field = np.asarray(s.get("field_V_per_m", np.abs(sigma) / eps), dtype=float)
-        return SurfaceRecord(conductor, kind, pts, sigma, field, area, face, normal, None)
-    arc = np.asarray(s.get("arc_length_m", np.full(k, np.nan)), dtype=float)
-    normal = np.full((k, d), np.nan)  # the axisymmetric dict carries no normals
-    if getattr(shape, "kind", None) == "sheet" and "sigma_back_C_per_m2" in s:
-        front = np.asarray(s["sigma_front_C_per_m2"], dtype=float)
-        back = np.asarray(s["sigma_back_C_per_m2"], dtype=float)
-        both = np.concatenate([front, back])
-        return SurfaceRecord(
-            conductor,
-            kind,
-            np.concatenate([pts, pts]),
-            both,
-            np.abs(both) / eps,
-            np.concatenate([area, area]),
-            np.concatenate([np.ones(k, np.int8), -np.ones(k, np.int8)]),
-            np.concatenate([normal, -normal]),
-            np.concatenate([arc, arc]),
-        )
-    field = np.asarray(s.get("field_V_per_m", np.abs(sigma) / eps), dtype=float)
-    return SurfaceRecord(
-        conductor, kind, pts, sigma, field, area, np.zeros(k, np.int8), normal, arc
     )

@@ -3,9 +3,10 @@
 Everything is SI. A design travels as a :class:`DesignRecord` (plain numbers and numpy arrays,
 picklable, so a worker can send it back); :func:`design_json` turns it into the strict-JSON
 object documented in ``docs/design_record.md`` and :func:`design_from_json` reads it back.
-Surface samples are dimension-aware: ``profile`` samples lie on the generating curve of a
-cross-section ((r, z) for a body of revolution, (x, z) for a 2-D cross-section) and carry an
-arc length; ``panels`` samples are 3-D panel centroids (x, y, z) with no arc length.
+Surface samples are the solvers' own :class:`~elopt.physics.solution.SurfaceSamples`
+(dimension-aware: ``profile`` samples lie on the generating curve of a cross-section, (r, z)
+for a body of revolution or (x, z) in 2-D, and carry an arc length; ``panels`` samples are 3-D
+panel centroids (x, y, z) with no arc length; open sheets list each face apart).
 """
 
 from __future__ import annotations
@@ -16,51 +17,12 @@ from typing import Any, Literal
 import numpy as np
 
 from elopt.optimizer.record.strict_json import JsonWarnings, finite_or_none
+from elopt.physics.solution import SurfaceSamples
 
 SurfaceKind = Literal["profile", "panels"]
 SURFACE_KINDS: tuple[SurfaceKind, ...] = ("profile", "panels")
 POINT_DIM: dict[str, int] = {"profile": 2, "panels": 3}
 """Coordinates per sample point: (r, z) or (x, z) for profiles, (x, y, z) for panels."""
-
-
-@dataclass(frozen=True)
-class SurfaceRecord:
-    """Surface charge on one conductor at the design's excitation; K samples.
-
-    ``points_m`` (K, d) and ``normal`` (K, d) with d = :data:`POINT_DIM` [kind];
-    ``sigma_C_per_m2``, ``field_V_per_m`` (= |sigma| / eps of the touching medium) and
-    ``area_m2`` (quadrature area; axisymmetric: includes 2 pi r) are (K,); ``face`` (K,) int8 is
-    0 on a closed surface and +1 / -1 on the two faces of an open sheet (+1: the face the
-    sheet's normal points out of); ``arc_length_m`` (K,) along the generating curve for
-    profiles, None for panels. Samples are ordered by face, then along the curve.
-    """
-
-    conductor: str
-    kind: SurfaceKind
-    points_m: np.ndarray
-    sigma_C_per_m2: np.ndarray
-    field_V_per_m: np.ndarray
-    area_m2: np.ndarray
-    face: np.ndarray
-    normal: np.ndarray
-    arc_length_m: np.ndarray | None
-
-    def __post_init__(self) -> None:
-        if self.kind not in SURFACE_KINDS:
-            raise ValueError(f"surface kind must be one of {SURFACE_KINDS}, got {self.kind!r}")
-        k, d = len(self.sigma_C_per_m2), POINT_DIM[self.kind]
-        for name in ("points_m", "normal"):
-            if np.shape(getattr(self, name)) != (k, d):
-                raise ValueError(
-                    f"{name}: expected shape ({k}, {d}), got {np.shape(getattr(self, name))}"
-                )
-        for name in ("field_V_per_m", "area_m2", "face"):
-            if np.shape(getattr(self, name)) != (k,):
-                raise ValueError(
-                    f"{name}: expected shape ({k},), got {np.shape(getattr(self, name))}"
-                )
-        if (self.arc_length_m is None) != (self.kind == "panels"):
-            raise ValueError("arc_length_m is given for profiles and only for profiles")
 
 
 @dataclass(frozen=True)
@@ -111,7 +73,7 @@ class DesignRecord:
     n_unknowns: int
     metrics: dict[str, float]
     metric_units: dict[str, str]
-    surface: tuple[SurfaceRecord, ...] = ()
+    surface: tuple[SurfaceSamples, ...] = ()
     extra: dict[str, str | int | float | bool] = field(default_factory=dict)
 
     @property
@@ -133,7 +95,7 @@ def _floats(values: np.ndarray, key: str, warnings: JsonWarnings, why: str) -> A
     return [_floats(v, key, warnings, why) for v in a]
 
 
-def surface_json(s: SurfaceRecord, warnings: JsonWarnings) -> dict[str, Any]:
+def surface_json(s: SurfaceSamples, warnings: JsonWarnings) -> dict[str, Any]:
     why = "the solver returned a non-finite surface value"
     key = f"surface[{s.conductor}]"
     return {
@@ -228,7 +190,7 @@ def design_from_json(obj: dict[str, Any]) -> DesignRecord:
     for s in obj.get("surface", []):
         d = POINT_DIM[s["kind"]]
         surface.append(
-            SurfaceRecord(
+            SurfaceSamples(
                 conductor=s["conductor"],
                 kind=s["kind"],
                 points_m=_array(s["points_m"]).reshape(-1, d),

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from elopt.optimizer.record import DesignRecord, SurfaceRecord
+from elopt.optimizer.record import DesignRecord, SurfaceSamples
 from elopt.optimizer.store.layout import STATES, StudyHeader
 
 
@@ -76,4 +76,4 @@ class TrialArrays:
     """Per-trial arrays: capacitance (n, n) F and the surface samples, one per conductor."""
 
     capacitance_F: np.ndarray
-    surface: tuple[SurfaceRecord, ...]
+    surface: tuple[SurfaceSamples, ...]

@@ -23,7 +23,7 @@ from elopt.optimizer.record import (
     ConductorRecord,
     DesignRecord,
     PeakRecord,
-    SurfaceRecord,
+    SurfaceSamples,
 )
 from elopt.optimizer.store import compat_v1
 from elopt.optimizer.store.layout import (
@@ -322,7 +322,7 @@ def trial_arrays(h5: h5py.File, snap: StudySnapshot, number: int) -> TrialArrays
             continue
         d = POINT_DIM[kind]
         surface.append(
-            SurfaceRecord(
+            SurfaceSamples(
                 conductor=name,
                 kind=kind,
                 points_m=rows["points_m"][sel, :d],

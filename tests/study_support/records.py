@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from elopt.optimizer.record import ConductorRecord, DesignRecord, PeakRecord, SurfaceRecord
+from elopt.optimizer.record import ConductorRecord, DesignRecord, PeakRecord, SurfaceSamples
 from elopt.optimizer.store import StudyHeader, TrialRecord
 
 
@@ -33,7 +33,7 @@ def small_header(config_toml: str = "[study]\nname = 'fixture'\n") -> StudyHeade
     )
 
 
-def _surface(name: str, index: int, number: int) -> SurfaceRecord:
+def _surface(name: str, index: int, number: int) -> SurfaceSamples:
     """Profiles for most trials, 3-D panels (no arc length) for every fifth."""
     k = float(number)
     n_samples = 25 + (number * 37 + index) % 100
@@ -46,7 +46,7 @@ def _surface(name: str, index: int, number: int) -> SurfaceRecord:
     face = np.zeros(n_samples, dtype=np.int8)
     if index == 1 and not panels:  # the second conductor is an open sheet: two faces
         face[: n_samples // 2], face[n_samples // 2 :] = 1, -1
-    return SurfaceRecord(
+    return SurfaceSamples(
         conductor=name,
         kind="panels" if panels else "profile",
         points_m=points,
