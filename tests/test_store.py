@@ -268,3 +268,18 @@ def test_design_record_round_trips_through_the_file(tmp_path):
     assert read_design(path, 4).surface[0].arc_length_m is None
     faces = read_design(path, 0).surface[1].face
     assert set(faces.tolist()) == {1, -1}
+
+
+def test_show_draws_3d_samples_along_their_height(tmp_path, capsys):
+    """3-D panels have no arc length: `show` plots them against z, not all at one point."""
+    from elopt.optimizer.cli.main import main
+
+    path = tmp_path / "s.h5"
+    _write(path, 5)
+    assert main(["show", str(path), "4"]) == 0
+    out = " ".join(capsys.readouterr().out.split())  # the console wraps long lines
+    assert "height z of the panel [mm]" in out
+    assert "x = 4000 mm, y = 1000 mm, z = 2000 mm" in out
+    assert main(["show", str(path), "0"]) == 0
+    out = capsys.readouterr().out
+    assert "arc length along the electrode [mm]" in out and "b (+ face)" in out

@@ -79,6 +79,13 @@ def _set(dataset, index, value):
     return tamper
 
 
+def _set_metric(name, value):
+    def tamper(f):
+        f["trials/metrics"][(-1, list(f.attrs["metric_names"]).index(name))] = value
+
+    return tamper
+
+
 def _delete(dataset):
     def tamper(f):
         del f[dataset]
@@ -98,7 +105,14 @@ CASES = {
         _del_attr("metric_units"),
         ["the study header lacks the attribute metric_units"],
     ),
-    "NaN metric": (_set("trials/metrics", (-1, 1), np.nan), ["objective size_mm differs"]),
+    "NaN objective metric": (
+        _set_metric("size_mm", np.nan),
+        ["objective size_mm differs from the metric of that name"],
+    ),
+    "NaN constraint metric": (
+        _set_metric("peak_surface_field_V_per_m", np.nan),
+        ["but metric peak_surface_field_V_per_m gives nan"],
+    ),
     "infinite objective": (
         _set("trials/objectives", (-1, 0), np.inf),
         ["objectives score_fF is inf; stored numbers are finite or NaN"],
@@ -187,7 +201,13 @@ def test_salvage_recovers_the_committed_trials_that_read(study, tmp_path, capsys
 def _skipped(case: str, study: Path) -> set[int]:
     if case == "unknown state code":
         return {2}
-    if case in ("NaN metric", "infinite objective", "negative offset", "negative length"):
+    if case in (
+        "NaN objective metric",
+        "NaN constraint metric",
+        "infinite objective",
+        "negative offset",
+        "negative length",
+    ):
         return {_first_complete(study)}
     if case == "deleted dataset":  # every trial needs its metrics
         return set(range(N_TRIALS))

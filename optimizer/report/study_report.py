@@ -430,17 +430,17 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     met = "met" if c["accuracy_met"][number] else "NOT met"
     console.print(f"solve error estimate {err:.2g} (requested accuracy {met})")
     console.print()
-    for text in sigma_plot(arrays, conductors):
+    for text in sigma_plot(arrays):
         console.print(Text(text))
     caution = study_caution(snap)
     if caution:
         console.print(Text(caution, style="yellow"))
 
 
-def sigma_plot(arrays: TrialArrays, conductors: list[str]) -> list[str]:
-    """sigma (uC/m^2) on each conductor (names as in ``conductors``): a trace against arc length
-    (mm) for profiles, one per face of an open sheet; a scatter against height z (mm) for 3-D
-    panels, which have no arc length."""
+def sigma_plot(arrays: TrialArrays) -> list[str]:
+    """sigma (uC/m^2) on each conductor: a trace against arc length (mm) for profiles, one per
+    face of an open sheet; a scatter against height z (mm) for 3-D panels, which have no arc
+    length."""
     if not arrays.surface:
         return ["(no surface-charge profile stored)"]
     series = []

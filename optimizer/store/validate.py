@@ -183,6 +183,21 @@ def _check_numbers(columns: dict[str, np.ndarray], h: StudyHeader) -> None:
         if not np.array_equal(stored, metric):
             i = int(np.flatnonzero(complete)[_first_bad(stored != metric)])
             raise Damaged(f"trial {i}: objective {name} differs from the metric of that name")
+    for j, (name, kind, limit) in enumerate(
+        zip(h.constraint_metrics, h.constraint_kinds, h.constraint_limits, strict=True)
+    ):
+        if name not in h.metric_names:
+            continue
+        value = columns["metrics"][complete, h.metric_names.index(name)]
+        expected = value - limit if kind == "max" else limit - value
+        stored = columns["constraints"][complete, j]
+        off = ~(np.abs(stored - expected) <= 1e-12 * np.maximum(abs(limit), np.abs(value)))
+        if off.any():
+            i = int(np.flatnonzero(complete)[_first_bad(off)])
+            raise Damaged(
+                f"trial {i}: constraint {h.constraint_names[j]} holds {stored[_first_bad(off)]}, "
+                f"but metric {name} gives {expected[_first_bad(off)]}"
+            )
     feasible = complete & np.all(columns["constraints"] <= 0, axis=1)
     if not np.array_equal(feasible, columns["feasible"] == 1):
         i = _first_bad(feasible != (columns["feasible"] == 1))

@@ -2,8 +2,8 @@
 
 Stateless by design: a :class:`TrialTask` carries everything (family reference, every
 parameter value, solver settings), and a :class:`TrialOutcome` carries only picklable plain
-data (floats, the design record of numpy arrays) — never a solution object — so any executor (a local
-process, a Dask worker on another machine) can run it. A design that breaks the family's rules
+data (floats and the design record, numpy arrays inside) — never a solution object — so any
+executor (a local process, a Dask worker on another machine) can run it. A design that breaks the family's rules
 or a solve that fails becomes an outcome with ``ok = False`` and the reason; nothing raises.
 """
 
