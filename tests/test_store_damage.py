@@ -278,18 +278,6 @@ def test_writer_refuses_a_record_a_reader_would_refuse(tmp_path):
     assert read_study(path).n_trials == 1
 
 
-def test_undefined_metrics_are_stored_as_nan(tmp_path):
-    """A non-objective metric that is not finite is stored as NaN (undefined), never inf."""
-    path = tmp_path / "s.h5"
-    rec = record_for(0)
-    header = small_header()
-    rec.metrics = np.array([0.0, 0.0, 1e6])
-    rec.objectives = np.array([0.0, 0.0])
-    with StudyWriter.create(path, header) as w:
-        w.append(rec)
-    assert read_study(path).n_trials == 1
-
-
 def test_damage_in_the_arrays_refuses_show_and_resume_but_not_front(study, tmp_path, capsys):
     """`front` needs no per-trial arrays; `show` of that trial and every writer do."""
     path = _copy(study, tmp_path)
@@ -306,3 +294,27 @@ def test_damage_in_the_arrays_refuses_show_and_resume_but_not_front(study, tmp_p
     err = _one_error_line(capsys)
     assert "infinite value" in err and "nothing was changed" in err
     assert _digest(path) == before
+
+
+def test_infinite_values_of_a_design_are_stored_as_undefined(tmp_path):
+    """The writer never writes a value its readers would refuse: infinities become NaN."""
+    import dataclasses
+
+    path = tmp_path / "s.h5"
+    rec = record_for(0)
+    d = rec.design
+    rec.design = dataclasses.replace(
+        d,
+        relative_error_estimate=np.inf,
+        peak=dataclasses.replace(d.peak, rel_error_estimate=np.inf),
+        capacitance_matrix_F=np.array([[np.inf, -1.0], [-1.0, 1.0]]),
+    )
+    rec.design.surface[0].sigma_C_per_m2[2] = -np.inf
+    with StudyWriter.create(path, small_header()) as w:
+        w.append(rec)
+    snap = read_study(path)
+    assert np.isnan(snap.columns["relative_error_estimate"][0])
+    assert np.isnan(snap.columns["peak_rel_error_estimate"][0])
+    arrays = read_trial_arrays(path, 0)
+    assert np.isnan(arrays.capacitance_F[0, 0]) and arrays.capacitance_F[1, 1] == 1.0
+    assert np.isnan(arrays.surface[0].sigma_C_per_m2[2])

@@ -253,7 +253,7 @@ def check_arrays(
 ) -> None:
     """Capacitance and surface rows obey the layout. ``owner`` (S,) and ``cap_owner`` (C,) give
     the trial of each surface / capacitance row, ``n_conductors`` (S,) that trial's count."""
-    bad = ~np.isfinite(cap)
+    bad = np.isinf(cap)
     if bad.any():
         raise Damaged(f"trial {int(cap_owner[_first_bad(bad)])}: capacitance_F holds {cap[bad][0]}")
     cond = surface["conductor"]

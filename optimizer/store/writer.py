@@ -207,12 +207,17 @@ class StudyWriter:
                 peak_at_sharp_corner=int(d.peak.at_sharp_corner),
                 peak_rel_error_estimate=d.peak.rel_error_estimate,
             )
-        for name, _, fill in SCALAR_COLUMNS:
+        for name, dtype, fill in SCALAR_COLUMNS:
             scalars.setdefault(name, fill)
+            if dtype == "f8" and np.isinf(scalars[name]):
+                scalars[name] = np.nan  # undefined: a reader refuses infinities
+        cap = _undefined_as_nan(cap)
+        surface = {
+            k: _undefined_as_nan(v) if v.dtype.kind == "f" else v for k, v in surface.items()
+        }
         matrices = {
             "params": record.params,
-            # Not finite = undefined: stored as NaN (a reader refuses infinities).
-            "metrics": np.where(np.isfinite(metrics), metrics, np.nan),
+            "metrics": _undefined_as_nan(metrics),
             "objectives": record.objectives,
             "constraints": record.constraints,
             "peak_location_m": location,
@@ -278,6 +283,11 @@ class StudyWriter:
         self._h5.flush()
         if self._fsync:
             os.fsync(self._h5.id.get_vfd_handle())
+
+
+def _undefined_as_nan(values: np.ndarray) -> np.ndarray:
+    """Not finite = undefined: stored as NaN (a reader refuses infinities)."""
+    return np.where(np.isinf(values), np.nan, values)
 
 
 def _design_text(d: DesignRecord) -> dict[str, Any]:
