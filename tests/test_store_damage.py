@@ -101,6 +101,10 @@ CASES = {
     ),
     "unknown state code": (_set("trials/state", 2, 9), ["trial 2: state code 9 is unknown"]),
     "deleted dataset": (_delete("trials/metrics"), ["dataset /trials/metrics is missing"]),
+    "deleted bookkeeping dataset": (
+        _delete("trials/worker_pid"),
+        ["dataset /trials/worker_pid is missing"],
+    ),
     "missing attribute": (
         _del_attr("metric_units"),
         ["the study header lacks the attribute metric_units"],
@@ -194,6 +198,8 @@ def test_salvage_recovers_the_committed_trials_that_read(study, tmp_path, capsys
     original = read_study(study)
     if expected:
         np.testing.assert_array_equal(snap.columns["params"], original.columns["params"][kept])
+    if case == "deleted bookkeeping dataset":  # recovered with its default
+        assert set(snap.columns["worker_pid"].tolist()) == {-1}
     assert main(["front", str(new)]) == 0
     capsys.readouterr()
 

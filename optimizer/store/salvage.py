@@ -22,6 +22,7 @@ from elopt.optimizer.store import compat_v1
 from elopt.optimizer.store.layout import (
     FORMAT_NAME,
     MATRIX_COLUMNS,
+    POINT_COLUMNS,
     SCALAR_COLUMNS,
     SESSION_FIELDS,
     STATES,
@@ -32,6 +33,37 @@ from elopt.optimizer.store.model import StudySnapshot, TrialRecord
 from elopt.optimizer.store.reader import design_of, read_header, trial_arrays
 from elopt.optimizer.store.validate import Damaged, check_columns, format_version_of
 from elopt.optimizer.store.writer import StudyWriter
+
+#: Trial columns without which a trial cannot be recovered (either format's names).
+_NEEDED = frozenset(
+    (
+        "number",
+        "state",
+        "feasible",
+        "params",
+        "metrics",
+        "objectives",
+        "constraints",
+        "n_conductors",
+        "capacitance_offset",
+        "surface_offset",
+        "surface_length",
+        "surface_kind",
+        "profile_offset",
+        "profile_length",
+        "text_offset",
+        "text_length",
+    )
+)
+#: Fill values of the other columns when they do not read (either format's names).
+_FILL: dict[str, float] = {
+    **{name: fill for name, _, fill in SCALAR_COLUMNS},
+    "rel_error_estimate": np.nan,
+    "peak_field_V_per_m": np.nan,
+    "peak_singular": 0,
+    "peak_r_m": np.nan,
+    "peak_z_m": np.nan,
+}
 
 #: Keys of a trial's text that the writer derives from its design (re-derived on the copy).
 _DESIGN_TEXT = ("conductors", "conductor_drive", "potentials_V", "charges_C", "ground_plane")
@@ -218,10 +250,12 @@ def _recover(
     new_number: dict[int, int] = {}
     for i in range(n):
         broken = [k for k, (v, ok) in raw.items() if v is None or not ok[i]]
-        if broken:
-            report.skipped.append(f"trial {i}: /trials/{broken[0]} does not read")
+        needed = [k for k in broken if k in _NEEDED]
+        if needed:
+            report.skipped.append(f"trial {i}: /trials/{needed[0]} does not read")
             continue
-        row = {k: v[i : i + 1] for k, (v, _) in raw.items()}
+        row = {k: v[i : i + 1] for k, (v, _) in raw.items() if k not in broken}
+        row.update({k: _fill_row(k) for k in broken})  # bookkeeping only: defaults
         if version == 1:
             row = compat_v1.v2_columns(row)
         try:
@@ -245,6 +279,12 @@ def _recover(
                 rec.info.pop("rerun_of")
     report.recovered = len(records)
     return header, sessions, records, report
+
+
+def _fill_row(name: str) -> np.ndarray:
+    if name == "peak_location_m":
+        return np.full((1, POINT_COLUMNS), np.nan)
+    return np.array([_FILL[name]])
 
 
 def _sessions(h5: h5py.File, n: int) -> list[tuple]:
