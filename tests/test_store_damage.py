@@ -324,3 +324,29 @@ def test_infinite_values_of_a_design_are_stored_as_undefined(tmp_path):
     arrays = read_trial_arrays(path, 0)
     assert np.isnan(arrays.capacitance_F[0, 0]) and arrays.capacitance_F[1, 1] == 1.0
     assert np.isnan(arrays.surface[0].sigma_C_per_m2[2])
+
+
+def test_a_toleranced_study_validates_and_its_judged_values_are_checked(tmp_path, capsys):
+    """Where a study judges designs across tolerances, the objectives are the toleranced
+    values kept in each trial's text: the reader checks them against those, not the nominal."""
+    cfg = fixture_study(tmp_path, trials=6)
+    text = cfg.read_text().replace("[constraints]\n", "[constraints]\nsize_mm = { max = 6.0 }\n")
+    text += '\n[tolerance.parameters]\nwidth_mm = 0.5\n\n[tolerance.apply]\nscore_fF = "worst"\n'
+    cfg.write_text(text)
+    out = tmp_path / "tol.h5"
+    assert main(["run", str(cfg), "--out", str(out), "--workers", "1"]) == 0
+    capsys.readouterr()
+    snap = read_study(out)
+    row = next(i for i in range(snap.n_trials) if "tolerance" in snap.info(i))
+    h = snap.header
+    judged = snap.info(row)["tolerance"]["values"]["score_fF"]
+    nominal = snap.columns["metrics"][row, h.metric_names.index("score_fF")]
+    assert snap.columns["objectives"][row, h.objective_names.index("score_fF")] == judged
+    assert judged < nominal
+    assert main(["front", str(out)]) == 0
+    capsys.readouterr()
+    with h5py.File(out, "r+") as f:  # the judged value no longer matches its objective
+        k = list(f.attrs["objective_names"]).index("score_fF")
+        f["trials/objectives"][row, k] = nominal
+    assert main(["front", str(out)]) == 2
+    assert f"trial {row}: objective score_fF differs" in _one_error_line(capsys)

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from elopt.optimizer.record.schema import ConductorRecord, DesignRecord, PeakRecord
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, parameter_units
 
 #: Extras the record carries in its own fields (the families also report them in ``extra``).
 _OWN_FIELDS = (
@@ -43,6 +43,7 @@ def design_record(
     return DesignRecord(
         family=family_name or family.name,
         parameters=dataclasses.asdict(params),
+        parameter_units=parameter_units(params),
         conductors=tuple(
             ConductorRecord(c.name, c.potential_V, c.charge_C) for c in layout.conductors
         ),

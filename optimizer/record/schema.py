@@ -59,6 +59,7 @@ class DesignRecord:
 
     family: str
     parameters: dict[str, Any]
+    parameter_units: dict[str, str]
     conductors: tuple[ConductorRecord, ...]
     ground_plane: bool
     capacitance_matrix_F: np.ndarray
@@ -120,6 +121,7 @@ def design_json(d: DesignRecord, warnings: JsonWarnings) -> dict[str, Any]:
     out: dict[str, Any] = {
         "family": d.family,
         "parameters": dict(d.parameters),
+        "parameter_units": dict(d.parameter_units),
         "conductors": [
             {"name": c.name, "potential_V": c.potential_V, "charge_C": c.charge_C}
             for c in d.conductors
@@ -206,6 +208,7 @@ def design_from_json(obj: dict[str, Any]) -> DesignRecord:
     return DesignRecord(
         family=obj["family"],
         parameters=dict(obj["parameters"]),
+        parameter_units=dict(obj.get("parameter_units", {})),
         conductors=tuple(
             ConductorRecord(c["name"], c["potential_V"], c["charge_C"]) for c in obj["conductors"]
         ),

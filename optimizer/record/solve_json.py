@@ -12,12 +12,13 @@ import dataclasses
 from typing import Any
 
 from elopt.optimizer import __version__
-from elopt.optimizer.config.solve_config import SolveSpec
+from elopt.optimizer.config import SolveSpec
 from elopt.optimizer.record.from_solution import design_record
 from elopt.optimizer.record.schema import design_json
 from elopt.optimizer.record.strict_json import JsonWarnings, finite_or_none
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
+from elopt.physics.electrodes.registry import get_family
 
 #: Above this fraction of the breakdown field the report reminds of design margins:
 #: design practice caps the peak well below breakdown (REFERENCES 10, from memory).
@@ -61,11 +62,8 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
 
 
 def drive_of(spec: SolveSpec) -> float:
-    """The design's drive voltage (V): the parameter ending in ``_V``, 0 if none."""
-    for f in dataclasses.fields(spec.params):
-        if f.name.endswith("_V"):
-            return float(getattr(spec.params, f.name))
-    return 0.0
+    """The design's drive voltage (V), as its family declares it."""
+    return get_family(spec.family).drive_V(spec.params)
 
 
 def solve_record(
@@ -82,6 +80,7 @@ def solve_record(
     body = design_json(design, warnings)
     record["family"] = body.pop("family")
     record["parameters"] = body.pop("parameters")
+    record["parameter_units"] = body.pop("parameter_units")
     record["evaluation_options"] = (
         dataclasses.asdict(spec.options) if spec.options is not None else {}
     )

@@ -45,8 +45,10 @@ from elopt.optimizer.store.validate import (
     check_columns,
     check_counts,
     check_header,
+    check_judged,
     check_sessions,
     format_version_of,
+    judged_metrics,
 )
 
 T = TypeVar("T")
@@ -271,7 +273,7 @@ def read_snapshot(h5: h5py.File, path: Path, version: int) -> StudySnapshot:
             raise Definite(f"dataset /trials/{name} has {columns[name].shape[1:]} columns, not {w}")
     check_columns(columns, header, counts)
     raw = _rows(h5, "text", counts[3]).tobytes()
-    texts = []
+    texts, infos = [], []
     for i, (o, k) in enumerate(zip(columns["text_offset"], columns["text_length"], strict=True)):
         try:
             text = raw[o : o + k].decode("utf-8")
@@ -281,6 +283,8 @@ def read_snapshot(h5: h5py.File, path: Path, version: int) -> StudySnapshot:
         if not isinstance(info, dict):
             raise Damaged(f"trial {i}: its text is not a JSON object")
         texts.append(text)
+        infos.append(info)
+    check_judged(columns, header, judged_metrics(columns["metrics"], header, infos))
     sessions = {k: _rows(h5, f"sessions/{k}", counts[4]) for k in SESSION_FIELDS}
     check_sessions(sessions)
     return StudySnapshot(
@@ -367,6 +371,7 @@ def design_of(snap: StudySnapshot, arrays: TrialArrays, number: int) -> DesignRe
         parameters={
             k: float(v) for k, v in zip(h.parameter_names, c["params"][number], strict=True)
         },
+        parameter_units=dict(zip(h.parameter_names, h.parameter_units, strict=True)),
         conductors=tuple(
             ConductorRecord(name, d_["potential_V"], d_["charge_C"])
             for name, d_ in zip(names, drive, strict=True)

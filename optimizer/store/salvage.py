@@ -31,7 +31,13 @@ from elopt.optimizer.store.layout import (
 from elopt.optimizer.store.lock import WriterLock
 from elopt.optimizer.store.model import StudySnapshot, TrialRecord
 from elopt.optimizer.store.reader import design_of, read_header, trial_arrays
-from elopt.optimizer.store.validate import Damaged, check_columns, format_version_of
+from elopt.optimizer.store.validate import (
+    Damaged,
+    check_columns,
+    check_judged,
+    format_version_of,
+    judged_metrics,
+)
 from elopt.optimizer.store.writer import StudyWriter
 
 #: Trial columns without which a trial cannot be recovered (either format's names).
@@ -342,6 +348,7 @@ def _trial(
         format_version=version,
     )
     info = snap.info(0)
+    check_judged(row, header, judged_metrics(row["metrics"], header, [info]))
     design = design_of(snap, trial_arrays(h5, snap, 0), 0)
     for key in _DESIGN_TEXT if design is not None else ():
         info.pop(key, None)

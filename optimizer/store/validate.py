@@ -175,11 +175,43 @@ def _check_numbers(columns: dict[str, np.ndarray], h: StudyHeader) -> None:
             raise Damaged(
                 f"trial {i}: {_label(name, j, h)} is {v[i, j]}; a complete trial's are finite"
             )
+    for name in (
+        "relative_error_estimate",
+        "requested_accuracy",
+        "peak_surface_field_V_per_m",
+        "peak_rel_error_estimate",
+        "solve_s",
+    ):
+        v = columns[name]
+        bad = np.isinf(v) | (v < 0)
+        if bad.any():
+            i = _first_bad(bad)
+            raise Damaged(f"trial {i}: {name} is {v[i]}; it must be >= 0 and finite (or NaN)")
+
+
+def judged_metrics(metrics: np.ndarray, h: StudyHeader, infos: list[dict[str, Any]]) -> np.ndarray:
+    """The values objectives and constraints judge: each trial's metrics (N, M), where the
+    study asked for tolerances replaced by the toleranced values kept in the trial's text."""
+    judged = np.array(metrics, dtype=float, copy=True)
+    for i, info in enumerate(infos):
+        tolerance = info.get("tolerance")
+        values = tolerance.get("values") if isinstance(tolerance, dict) else None
+        for name, value in (values or {}).items():
+            if name in h.metric_names:
+                v = value if isinstance(value, (int, float)) else np.nan
+                judged[i, h.metric_names.index(name)] = v
+    return judged
+
+
+def check_judged(columns: dict[str, np.ndarray], h: StudyHeader, judged: np.ndarray) -> None:
+    """A complete trial's objectives are the judged values of their metrics, its constraints
+    their violations, and ``feasible`` is 1 exactly when every constraint holds."""
+    complete = columns["state"] == 0
     for k, name in enumerate(h.objective_names):
         if name not in h.metric_names:
             continue  # a header whose family changed: `resume` names that, not this rule
         stored = columns["objectives"][complete, k]
-        metric = columns["metrics"][complete, h.metric_names.index(name)]
+        metric = judged[complete, h.metric_names.index(name)]
         if not np.array_equal(stored, metric):
             i = int(np.flatnonzero(complete)[_first_bad(stored != metric)])
             raise Damaged(f"trial {i}: objective {name} differs from the metric of that name")
@@ -188,7 +220,7 @@ def _check_numbers(columns: dict[str, np.ndarray], h: StudyHeader) -> None:
     ):
         if name not in h.metric_names:
             continue
-        value = columns["metrics"][complete, h.metric_names.index(name)]
+        value = judged[complete, h.metric_names.index(name)]
         expected = value - limit if kind == "max" else limit - value
         stored = columns["constraints"][complete, j]
         off = ~(np.abs(stored - expected) <= 1e-12 * np.maximum(abs(limit), np.abs(value)))
@@ -204,18 +236,6 @@ def _check_numbers(columns: dict[str, np.ndarray], h: StudyHeader) -> None:
         raise Damaged(
             f"trial {i}: feasible is {int(columns['feasible'][i])}, the constraints say otherwise"
         )
-    for name in (
-        "relative_error_estimate",
-        "requested_accuracy",
-        "peak_surface_field_V_per_m",
-        "peak_rel_error_estimate",
-        "solve_s",
-    ):
-        v = columns[name]
-        bad = np.isinf(v) | (v < 0)
-        if bad.any():
-            i = _first_bad(bad)
-            raise Damaged(f"trial {i}: {name} is {v[i]}; it must be >= 0 and finite (or NaN)")
 
 
 def _label(name: str, j: int, h: StudyHeader) -> str:

@@ -39,7 +39,7 @@ from elopt.optimizer.store.layout import (
 from elopt.optimizer.store.lock import WriterLock
 from elopt.optimizer.store.model import StudySnapshot, TrialRecord
 from elopt.optimizer.store.reader import read_header, read_snapshot, read_study, validate_file
-from elopt.optimizer.store.validate import Damaged, check_columns
+from elopt.optimizer.store.validate import Damaged, check_columns, check_judged, judged_metrics
 
 
 class StudyWriter:
@@ -235,6 +235,8 @@ class StudyWriter:
             columns[name] = np.zeros(1, dtype=np.int64)
         try:
             check_columns(columns, self.header, [1, cap.size, length, len(text), self._counts[4]])
+            judged = judged_metrics(columns["metrics"], self.header, [json_safe(info)])
+            check_judged(columns, self.header, judged)
         except Damaged as exc:
             raise ValueError(f"trial {n} breaks the study file's rules: {exc}") from None
         return scalars, matrices, cap.reshape(-1), surface, text

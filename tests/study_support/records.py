@@ -65,6 +65,7 @@ def design_for(number: int) -> DesignRecord:
     return DesignRecord(
         family="fixture_family",
         parameters={"width_mm": 1.0 + k, "gap_mm": 0.5 + k / 10, "drive_V": 100.0},
+        parameter_units={"width_mm": "mm", "gap_mm": "mm", "drive_V": "V"},
         conductors=(ConductorRecord("a", 100.0, None), ConductorRecord("b", None, 0.0)),
         ground_plane=True,
         capacitance_matrix_F=np.array([[k, -1.0], [-1.0, k + 1]]),
@@ -121,6 +122,7 @@ def assert_same_design(stored: DesignRecord, given: DesignRecord) -> None:
         "extra",
         "family",
         "parameters",
+        "parameter_units",
     ):
         assert getattr(stored, name) == getattr(given, name), name
     for name in ("capacitance_matrix_F", "charges_C", "potentials_V"):
