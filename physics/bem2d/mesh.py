@@ -2,7 +2,7 @@
 
 Every piece of a shape (line or arc, :mod:`elopt.physics.bem2d.shapes`) is cut into panels;
 near a singular end (sharp corner, free sheet edge) the panels shrink geometrically by halves
-(``depth`` halvings, ``2 * level`` more per refinement level); elsewhere they are at most
+(by ``GRADING``, one more panel per refinement level); elsewhere they are at most
 ``h_max``; level L splits every level-0 panel into 2^L. Each panel carries ``order``
 Gauss-Legendre nodes; the charge density is collocated at the nodes and interpolated between.
 """
@@ -16,9 +16,11 @@ import numpy as np
 
 from elopt.physics.bem2d.shapes import Piece
 
-#: Halvings toward a singular end at level 0, and toward a fillet's end.
-SINGULAR_DEPTH = 8
+#: Panels toward a singular end at level 0 (each GRADING times the next), and toward a
+#: fillet's end; the ratio balances the edge panel's error against the panel count.
+SINGULAR_DEPTH = 4
 MILD_DEPTH = 2
+GRADING = 0.25
 
 
 @dataclass(frozen=True, eq=False)
@@ -77,14 +79,14 @@ class Panels:
 
 
 def _graded(zone: float, depth: int) -> list[float]:
-    """Break points (distances from a singular end) 0 < zone 2^-depth < ... < zone."""
-    return [zone * 0.5**m for m in range(depth, -1, -1)]
+    """Break points (distances from a singular end) 0 < zone g^depth < ... < zone."""
+    return [zone * GRADING**m for m in range(depth, -1, -1)]
 
 
 def breakpoints(piece: Piece, h_max: float, level: int) -> np.ndarray:
     """Fractions (K+1,) in [0, 1] cutting ``piece`` into its level-``level`` panels."""
     length = piece.length_m
-    depth = {2: SINGULAR_DEPTH + 2 * level, 1: MILD_DEPTH + level, 0: 0}
+    depth = {2: SINGULAR_DEPTH + level, 1: MILD_DEPTH + level, 0: 0}
     graded = [g for g in (piece.grade_start, piece.grade_end) if g]
     zone = min(h_max, length / max(len(graded), 1))
     cuts = [0.0]
@@ -108,7 +110,9 @@ def build_panels(
 ) -> Panels:
     """Panels of every conductor (list of (pieces, is_sheet) in layout order)."""
     x, w = np.polynomial.legendre.leggauss(order)
-    rows: dict[str, list] = {k: [] for k in Panels.__dataclass_fields__ if k not in ("order", "level")}
+    rows: dict[str, list] = {
+        k: [] for k in Panels.__dataclass_fields__ if k not in ("order", "level")
+    }
     for ci, (pieces, sheet) in enumerate(pieces_per_conductor):
         arc0 = 0.0
         for piece in pieces:

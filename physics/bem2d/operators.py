@@ -20,7 +20,7 @@ from functools import lru_cache
 import numpy as np
 
 from elopt.physics.bem2d.mesh import Panels
-from elopt.physics.bem2d.periodic import periodic_log, periodic_log_smooth, wrap
+from elopt.physics.bem2d.periodic import periodic_log_matrix, periodic_log_smooth, wrap
 
 #: Targets closer than this many half-lengths to a panel's centre get the exact split.
 NEAR = 3.5
@@ -65,9 +65,7 @@ def preimage(panels: Panels, idx: np.ndarray, x: np.ndarray) -> np.ndarray:
     return out
 
 
-def single_layer(
-    panels: Panels, targets: np.ndarray, period: float | None = None
-) -> np.ndarray:
+def single_layer(panels: Panels, targets: np.ndarray, period: float | None = None) -> np.ndarray:
     """A (T, N): potential at ``targets`` (T,) complex of unit nodal densities (times eps)."""
     x = np.asarray(targets, dtype=complex)
     y = panels.points
@@ -78,7 +76,7 @@ def single_layer(
         with np.errstate(divide="ignore"):
             a = -_INV_2PI * np.log(np.abs(d)) * w[None, :]
     else:
-        a = periodic_log(wrap(d.real, period), d.imag, period) * w[None, :]
+        a = periodic_log_matrix(x, y, w, period)
     # Near pairs: exact split of the logarithm.
     c = panels.center.copy()
     c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly

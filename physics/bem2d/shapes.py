@@ -70,7 +70,9 @@ class Strip:
         return self.x_left_m, self.x_right_m, self.z_m, self.z_m
 
     def pieces(self) -> list[Piece]:
-        return [Piece(complex(self.x_left_m, self.z_m), complex(self.x_right_m, self.z_m), None, 2, 2)]
+        return [
+            Piece(complex(self.x_left_m, self.z_m), complex(self.x_right_m, self.z_m), None, 2, 2)
+        ]
 
 
 @dataclass(frozen=True)

@@ -83,7 +83,9 @@ class Solution2D(ChargeSolution):
         return a @ sigma - offset
 
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
-        return self._potential(self._fine, self.sigma_C_per_m2, self._offset_V, _as_complex(points_m))
+        return self._potential(
+            self._fine, self.sigma_C_per_m2, self._offset_V, _as_complex(points_m)
+        )
 
     def field_at(self, points_m: np.ndarray) -> np.ndarray:
         """-grad(potential) (M, 2) by central differences (step 1e-6 of the layout's extent)."""
@@ -212,7 +214,10 @@ class Solution2D(ChargeSolution):
         h = 1e-7 * self.problem.extent_m
         pts = np.concatenate([x + 1j * h, x + 2j * h])
         a = potential_matrix(
-            self._fine.panels, self.problem.slabs, pts, period=self.period_m,
+            self._fine.panels,
+            self.problem.slabs,
+            pts,
+            period=self.period_m,
             extent_m=self.problem.extent_m,
         )
         v = a @ self._fine.sigma_unit

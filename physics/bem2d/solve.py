@@ -122,7 +122,9 @@ def prepare(layout: Layout, period_m: float | None) -> Problem2D:
 
 def default_order(rel_accuracy: float) -> int:
     """Gauss nodes per panel for a requested accuracy."""
-    return 6 if rel_accuracy >= 1e-6 else 8
+    if rel_accuracy >= 1e-5:
+        return 4
+    return 6 if rel_accuracy >= 1e-8 else 8
 
 
 @dataclass(frozen=True, eq=False)
