@@ -111,11 +111,11 @@ def check_stack_params(rules: RuleBook, p, metal_key: str = "metal_thickness_um"
 
 
 def check_numbers(rules: RuleBook, params) -> bool:
-    """Every numeric field finite (booleans are checked by their own rule)."""
+    """Every numeric field finite (booleans and strings are checked by their own rules)."""
     ok = True
     for f in dataclasses.fields(params):
         v = getattr(params, f.name)
-        if isinstance(v, bool):
+        if isinstance(v, (bool, str)):
             continue
         if not isinstance(v, (int, float)) or not math.isfinite(v):
             rules.broken.append(f"{f.name} = {v!r} must be a finite number")
@@ -210,7 +210,7 @@ def common_metrics(
         "penetration_depth_50_um": sens.depth50_m / ps.UM,
         "penetration_depth_90_um": sens.depth90_m / ps.UM,
         "peak_surface_field_V_per_m": peak,
-        "cell_constant_per_m": EPS0_F_PER_M / d_mut if d_mut > 0 else float("inf"),
+        "cell_constant_per_m": EPS0_F_PER_M / d_mut if d_mut > 0 else float("nan"),
     }
 
 

@@ -15,7 +15,26 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numpy as np
+
 from elopt.physics.errors import GeometryError
+
+
+def sample_pieces(pieces: list[Piece], n: int) -> np.ndarray:
+    """About n points (K, 2) as (x, z) along the pieces, spaced by arc length."""
+    total = sum(p.length_m for p in pieces)
+    out = []
+    for p in pieces:
+        k = max(2, int(round(n * p.length_m / total)))
+        u = np.linspace(0.0, 1.0, k, endpoint=False)
+        if p.center is None:
+            z = p.start + (p.end - p.start) * u
+        else:
+            z = p.center + (p.start - p.center) * np.exp(1j * p.sweep * u)
+        out.append(np.stack([z.real, z.imag], axis=1))
+    last = pieces[-1].end
+    out.append(np.array([[last.real, last.imag]]))
+    return np.concatenate(out)
 
 
 @dataclass(frozen=True)
@@ -54,6 +73,10 @@ class Strip:
     z_m: float
 
     closed = False
+    kind = "sheet"
+
+    def sample(self, n: int) -> np.ndarray:
+        return sample_pieces(self.pieces(), n)
 
     def validate(self, name: str) -> None:
         vals = (self.x_left_m, self.x_right_m, self.z_m)
@@ -86,6 +109,10 @@ class Bar:
     corner_radius_m: float = 0.0
 
     closed = True
+    kind = "ring"
+
+    def sample(self, n: int) -> np.ndarray:
+        return sample_pieces(self.pieces(), n)[:-1]
 
     def validate(self, name: str) -> None:
         vals = (self.x_left_m, self.x_right_m, self.z_bottom_m, self.z_top_m, self.corner_radius_m)

@@ -60,6 +60,7 @@ class Solution2D(ChargeSolution):
         self._fine = fine
         self.panels = fine.panels
         self.n_unknowns = fine.n_unknowns
+        self.level = fine.panels.level
         self.capacitance_matrix_F = fine.capacitance_F
         self.potentials_V = excitation_potentials(
             self.layout, fine.capacitance_F, fine.applied_charges_C

@@ -65,11 +65,12 @@ class InterdigitatedParams:
 class InterdigitatedOptions:
     """``end_cells``: outer cells from a 4-finger cross-section (True) or left out (False:
     C = L (N - 1)/2 C_I); ``full_cross_section``: also solve all N fingers (a check);
-    ``penetration``: compute the penetration depths (14 extra solves of the cell)."""
+    ``penetration``: compute the penetration depths (14 extra solves of the cell; off by
+    default so that studies stay fast, NaN then)."""
 
     end_cells: bool = True
     full_cross_section: bool = False
-    penetration: bool = True
+    penetration: bool = False
 
 
 def period_m(p: InterdigitatedParams) -> float:
@@ -204,7 +205,8 @@ class Interdigitated(ElectrodeFamily):
             {
                 "peak_conductor": peak.conductor,
                 "peak_singular": bool(peak.singular),
-                "capacitance_meaning": "charge on the driven comb / drive_V, other comb at 0 V",
+                "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
+            "sense_capacitance_meaning": "charge on the driven comb / drive_V, other comb at 0 V (whole length)",
             }
         )
         return Evaluation(metrics=metrics, solution=sol, extra=extra)
