@@ -22,13 +22,13 @@ def test_long_plate_over_plane_matches_3d_per_length():
     ).capacitance_matrix_F[0, 0]
 
     def c3(length: float) -> float:
-        sheet = RectangleSheetSurface((length, w), h, 0.25)
+        sheet = RectangleSheetSurface((length, w), h, 0.35)
         lay = Layout((driven("plate", sheet, 1.0),), ground_plane=True)
         sol = solve_3d(lay, rel_accuracy=1e-3, max_level=1, strict=False)
         c = sol.capacitance_matrix_extrapolated_F
         return float((c if c is not None else sol.capacitance_matrix_F)[0, 0])
 
-    l1, l2 = 4.0, 8.0
+    l1, l2 = 3.0, 6.0
     c1, c2 = c3(l1), c3(l2)
     per_length = (c2 - c1) / (l2 - l1)
     ends = c1 - two_d * l1
