@@ -12,9 +12,10 @@ import math
 from typing import Any
 
 from elopt.optimizer import __version__
-from elopt.optimizer.config.solve_config import SolveSpec
+from elopt.optimizer.config import SolveSpec
 from elopt.optimizer.report.safety import high_voltage_caution
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, parameter_units
+from elopt.physics.electrodes.registry import get_family
 
 #: Above this fraction of the breakdown field the report reminds of design margins:
 #: design practice caps the peak well below breakdown (REFERENCES 10, from memory).
@@ -62,11 +63,8 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
 
 
 def drive_of(spec: SolveSpec) -> float:
-    """The design's drive voltage (V): the parameter ending in ``_V``, 0 if none."""
-    for f in dataclasses.fields(spec.params):
-        if f.name.endswith("_V"):
-            return float(getattr(spec.params, f.name))
-    return 0.0
+    """The design's drive voltage (V), as its family declares it."""
+    return get_family(spec.family).drive_V(spec.params)
 
 
 def solve_record(
@@ -82,6 +80,7 @@ def solve_record(
         "title": spec.title,
         "family": spec.family,
         "parameters": dataclasses.asdict(spec.params),
+        "parameter_units": parameter_units(spec.params),
         "evaluation_options": dataclasses.asdict(spec.options) if spec.options is not None else {},
         "medium": {
             "eps_r": spec.eps_r,

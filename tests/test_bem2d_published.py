@@ -60,8 +60,8 @@ def test_coplanar_strips_on_interface(eps_below):
     # Faces of a strip on the interface of two half-spaces carry charge in the ratio of the
     # permittivities (the field is the homogeneous one; common practice, no source).
     smp = sol.surface_samples("a")
-    top = smp["sigma_C_per_m2"][smp["face"] == 1] @ smp["area_m2"][smp["face"] == 1]
-    bot = smp["sigma_C_per_m2"][smp["face"] == -1] @ smp["area_m2"][smp["face"] == -1]
+    top = smp.sigma_C_per_m2[smp.face == 1] @ smp.area_m2[smp.face == 1]
+    bot = smp.sigma_C_per_m2[smp.face == -1] @ smp.area_m2[smp.face == -1]
     assert bot / top == pytest.approx(eps_below, rel=1e-3)
     assert top + bot == pytest.approx(sol.charges_C[0], rel=1e-12)
 
@@ -185,5 +185,5 @@ def test_rounded_bar_field_is_finite_and_converges():
     assert pb.singular
     for name, q in zip(("a", "b"), sol.charges_C, strict=True):
         smp = sol.surface_samples(name)
-        assert smp["sigma_C_per_m2"] @ smp["area_m2"] == pytest.approx(q, rel=1e-12)
-        assert np.all(smp["face"] == 0)
+        assert smp.sigma_C_per_m2 @ smp.area_m2 == pytest.approx(q, rel=1e-12)
+        assert np.all(smp.face == 0)

@@ -25,8 +25,7 @@ from rich.text import Text
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store.study_file import StudySnapshot, TrialArrays
-from elopt.optimizer.study.objectives import pareto_front_mask
-from elopt.optimizer.study.search import RunState
+from elopt.optimizer.study import RunState, pareto_front_mask
 
 ARROW = {"maximize": "max", "minimize": "min"}
 

@@ -1,9 +1,10 @@
 """One trial's evaluation, as a worker runs it: a task in, plain numbers and arrays out.
 
 Stateless by design: a :class:`TrialTask` carries everything (family reference, every
-parameter value, solver settings), and a :class:`TrialOutcome` carries only picklable plain
+parameter value, solver settings, medium and evaluation options), and a :class:`TrialOutcome` carries only picklable plain
 data (floats, lists, numpy arrays) — never a solution object — so any executor (a local
-process, a Dask worker on another machine) can run it. A design that breaks the family's rules
+process, a Dask worker on another machine) can run it. The design is evaluated by the same
+pipeline as ``elopt solve`` (:func:`elopt.physics.electrodes.pipeline.evaluate_design`). A design that breaks the family's rules
 or a solve that fails becomes an outcome with ``ok = False`` and the reason; nothing raises.
 """
 
@@ -18,7 +19,9 @@ from typing import Any
 
 import numpy as np
 
+from elopt.optimizer.study.tolerances import ToleranceSpec, evaluate_toleranced
 from elopt.physics.electrodes.base import ElectrodeFamily
+from elopt.physics.electrodes.pipeline import evaluate_design
 from elopt.physics.errors import ElOptError
 
 _FAMILIES: dict[str, ElectrodeFamily] = {}
@@ -27,7 +30,9 @@ _FAMILIES: dict[str, ElectrodeFamily] = {}
 @dataclass(frozen=True)
 class TrialTask:
     """``key`` is the coordinator's handle; ``params`` holds every parameter (unit-suffixed
-    names); ``metric_names`` are the metrics the outcome must carry (values may be NaN)."""
+    names); ``metric_names`` are the metrics the outcome must carry (values may be NaN);
+    ``options`` the family's evaluation options by name (missing ones take their defaults);
+    ``peak_rel_accuracy`` a separate accuracy request on the peak surface field."""
 
     key: int
     family_ref: str
@@ -35,6 +40,9 @@ class TrialTask:
     metric_names: tuple[str, ...]
     rel_accuracy: float
     eps_r: float
+    options: dict[str, Any] = field(default_factory=dict)
+    peak_rel_accuracy: float | None = None
+    tolerance: ToleranceSpec | None = None
 
 
 @dataclass
@@ -61,6 +69,8 @@ class TrialOutcome:
     worker: int = -1
     worker_pid: int = -1
     extra: dict[str, Any] = field(default_factory=dict)
+    toleranced: dict[str, float] = field(default_factory=dict)
+    tolerance_info: dict[str, Any] = field(default_factory=dict)
 
 
 def evaluate_task(task: TrialTask) -> TrialOutcome:
@@ -70,11 +80,20 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
     try:
         family = _family(task.family_ref)
         params = family.Params(**task.params)
-        family.validate(params)
+        options = family.Options(**task.options)
         t0 = time.perf_counter()
-        evaluation = family.evaluate(params, rel_accuracy=task.rel_accuracy, eps_r=task.eps_r)
-        out.solve_s = time.perf_counter() - t0
+        evaluation = evaluate_design(
+            family,
+            params,
+            rel_accuracy=task.rel_accuracy,
+            peak_rel_accuracy=task.peak_rel_accuracy,
+            eps_r=task.eps_r,
+            options=options,
+        )
         _fill(out, evaluation, task.metric_names)
+        if out.ok and task.tolerance is not None:
+            _tolerance(out, task, family)
+        out.solve_s = time.perf_counter() - t0
     except ElOptError as exc:
         out.failure = f"{type(exc).__name__}: {exc}"
     except Exception as exc:  # a bug in a family must not end an overnight study
@@ -84,9 +103,44 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
     return out
 
 
+def _tolerance(out: TrialOutcome, task: TrialTask, family: ElectrodeFamily) -> None:
+    """Toleranced values of the treated metrics; every deviation runs the same pipeline."""
+    options = family.Options(**task.options)
+
+    def evaluate(values: dict[str, float]) -> dict[str, float]:
+        params = family.Params(**values)
+        try:
+            evaluation = evaluate_design(
+                family,
+                params,
+                rel_accuracy=task.rel_accuracy,
+                peak_rel_accuracy=task.peak_rel_accuracy,
+                eps_r=task.eps_r,
+                options=options,
+            )
+        except ElOptError as exc:
+            moved = {k: v for k, v in values.items() if v != task.params.get(k)}
+            shown = ", ".join(f"{k} = {v:.6g}" for k, v in moved.items())
+            raise type(exc)(f"within tolerance ({shown}): {exc}") from None
+        return {k: float(v) for k, v in evaluation.metrics.items()}
+
+    result = evaluate_toleranced(
+        task.tolerance, task.params, evaluate, nominal=out.metrics, rel_floor=task.rel_accuracy
+    )
+    out.toleranced = dict(result.value)
+    out.tolerance_info = {
+        "method": result.method,
+        "reason": result.reason,
+        "evaluations": result.evaluations,
+        "seconds": result.seconds,
+        "driver": dict(result.driver),
+        "error": {k: (v if math.isfinite(v) else None) for k, v in result.error.items()},
+    }
+
+
 def _family(ref: str) -> ElectrodeFamily:
     if ref not in _FAMILIES:
-        from elopt.optimizer.config.study_config import resolve_family
+        from elopt.optimizer.config import resolve_family
 
         _FAMILIES[ref] = resolve_family(ref)
     return _FAMILIES[ref]
@@ -97,7 +151,6 @@ def _fill(out: TrialOutcome, evaluation: Any, metric_names: tuple[str, ...]) -> 
     names = list(sol.layout.names)
     peak = sol.peak_field
     metrics = {k: float(v) for k, v in evaluation.metrics.items()}
-    metrics.setdefault("peak_surface_field_V_per_m", float(peak.field_V_per_m))
     for name in metric_names:
         if name not in metrics:
             out.failure = f"the family returned no metric '{name}'"
@@ -107,13 +160,14 @@ def _fill(out: TrialOutcome, evaluation: Any, metric_names: tuple[str, ...]) -> 
     }
     for i, name in enumerate(names):
         s = sol.surface_samples(name)
-        pts = np.asarray(s["points_m"], dtype=float)
+        pts = np.asarray(s.points_m, dtype=float)
         k = len(pts)
+        arc = np.zeros(k) if s.arc_length_m is None else s.arc_length_m
         columns["conductor"].append(np.full(k, i, dtype=np.int16))
-        columns["arc_length_m"].append(np.asarray(s.get("arc_length_m", np.zeros(k)), dtype=float))
+        columns["arc_length_m"].append(np.asarray(arc, dtype=float))
         columns["r_m"].append(pts[:, 0])
         columns["z_m"].append(pts[:, -1])
-        columns["sigma_C_per_m2"].append(np.asarray(s["sigma_C_per_m2"], dtype=float))
+        columns["sigma_C_per_m2"].append(np.asarray(s.sigma_C_per_m2, dtype=float))
     out.profile = {k: np.concatenate(v) if v else np.zeros(0) for k, v in columns.items()}
     out.metrics = metrics
     out.conductor_names = names

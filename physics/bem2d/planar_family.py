@@ -17,7 +17,7 @@ import numpy as np
 
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solution import Solution2D
-from elopt.physics.electrodes.base import MetricSpec
+from elopt.physics.electrodes.base import MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
@@ -73,14 +73,7 @@ def sensitivities(
 
 
 def check_stack_params(rules: RuleBook, p, metal_key: str = "metal_thickness_um") -> None:
-    """Rules every planar family shares for its stack and metal."""
-    for key in ("substrate_eps_r", "passivation_eps_r", "film_eps_r"):
-        v = float(getattr(p, key))
-        if not 0 < v <= 1e6:
-            rules.broken.append(f"{key} = {v:.6g} must lie in (0, 1e6]")
-    rules.non_negative(
-        "substrate_thickness_um", "passivation_thickness_um", "film_thickness_um", metal_key
-    )
+    """Relations every planar family shares for its stack and metal (ranges are declared)."""
     if not isinstance(p.back_plane, bool):
         rules.broken.append(f"back_plane = {p.back_plane!r} must be true or false")
     elif p.back_plane and not p.substrate_thickness_um > 0:
@@ -101,9 +94,7 @@ def check_stack_params(rules: RuleBook, p, metal_key: str = "metal_thickness_um"
             "(electrodes buried across the film's top face)"
         )
     r = float(p.corner_radius_um)
-    if r < 0:
-        rules.broken.append(f"corner_radius_um = {r:.6g} must be >= 0")
-    elif r > 0.5 * t * (1 + 1e-12):
+    if r > 0.5 * t * (1 + 1e-12):
         rules.broken.append(
             f"corner_radius_um = {r:.6g} must be <= {metal_key} / 2 = {0.5 * t:.6g} (0 for "
             "sharp corners or a zero-thickness metal)"
@@ -121,6 +112,51 @@ def check_numbers(rules: RuleBook, params) -> bool:
             rules.broken.append(f"{f.name} = {v!r} must be a finite number")
             ok = False
     return ok
+
+
+def stack_parameters():
+    """Declared fields of the stack and metal, shared by the planar Params (in this order)."""
+    return {
+        "metal_thickness_um": parameter(
+            "um", "electrode metal thickness (0: zero-thickness strips)", default=0.0, low=0.0
+        ),
+        "corner_radius_um": parameter(
+            "um", "radius of the metal's rounded corners (0: sharp)", default=0.0, low=0.0
+        ),
+        "substrate_eps_r": parameter(
+            "", "substrate relative permittivity", default=4.6, low=0.0, low_open=True, high=1e6
+        ),
+        "substrate_thickness_um": parameter(
+            "um", "substrate thickness (0: a half-space)", default=0.0, low=0.0
+        ),
+        "back_plane": parameter("", "grounded plane under the substrate", default=False),
+        "passivation_eps_r": parameter(
+            "", "passivation relative permittivity", default=3.9, low=0.0, low_open=True, high=1e6
+        ),
+        "passivation_thickness_um": parameter(
+            "um", "passivation over the electrodes (0: none)", default=0.0, low=0.0
+        ),
+        "film_eps_r": parameter(
+            "", "sensing film relative permittivity", default=1.0, low=0.0, low_open=True, high=1e6
+        ),
+        "film_thickness_um": parameter(
+            "um", "sensing film thickness (0: none)", default=0.0, low=0.0
+        ),
+    }
+
+
+def validate_flags(rules: RuleBook, options) -> None:
+    """Options of the planar families are flags: each must be true or false."""
+    for f in dataclasses.fields(options):
+        v = getattr(options, f.name)
+        if not isinstance(v, bool):
+            rules.broken.append(f"{f.name} = {v!r} must be true or false")
+
+
+def period_from_cell(layout: Layout) -> float:
+    """The period of a two-finger cell: twice the distance between the fingers' centres."""
+    a, b = (c.shape.bounds for c in layout.conductors[:2])
+    return abs((b[0] + b[1]) - (a[0] + a[1]))
 
 
 def stack_of(p) -> ps.Stack:
@@ -173,12 +209,6 @@ COMMON_METRICS = (
         "either",
     ),
     MetricSpec("penetration_depth_90_um", "um", "the same for 90%", "either"),
-    MetricSpec(
-        "peak_surface_field_V_per_m",
-        "V/m",
-        "largest surface field on the electrodes at drive",
-        "minimize",
-    ),
     MetricSpec(
         "cell_constant_per_m", "1/m", "eps0 / (dC/d eps_r of the medium above): C = eps/K", "either"
     ),

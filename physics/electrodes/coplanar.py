@@ -18,35 +18,38 @@ from typing import Any, ClassVar
 from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
+from elopt.physics.refinement import SolveOptions
+from elopt.physics.solution import ChargeSolution
 
 UM = ps.UM
 MM = 1e-3
 MAX_STRIPS = 200
+_STACK = pf.stack_parameters()
 
 
 @dataclass(frozen=True)
 class CoplanarParams:
     """Strip geometry (um, mm), drive (V), drive pattern and the layer stack."""
 
-    strip_count: int
-    strip_width_um: float
-    gap_um: float
-    length_mm: float
-    drive_V: float
-    centre_drive: bool = False
-    metal_thickness_um: float = 0.0
-    corner_radius_um: float = 0.0
-    substrate_eps_r: float = 4.6
-    substrate_thickness_um: float = 0.0
-    back_plane: bool = False
-    passivation_eps_r: float = 3.9
-    passivation_thickness_um: float = 0.0
-    film_eps_r: float = 1.0
-    film_thickness_um: float = 0.0
+    strip_count: int = parameter("", "number of strips", low=2, high=MAX_STRIPS, whole=True)
+    strip_width_um: float = parameter("um", "strip width", low=0.0, low_open=True)
+    gap_um: float = parameter("um", "gap between neighbouring strips", low=0.0, low_open=True)
+    length_mm: float = parameter("mm", "strip length", low=0.0, low_open=True)
+    drive_V: float = parameter("V", "voltage of the driven strips (others at 0 V)", nonzero=True)
+    centre_drive: bool = parameter("", "drive only the middle strip(s)", default=False)
+    metal_thickness_um: float = _STACK["metal_thickness_um"]
+    corner_radius_um: float = _STACK["corner_radius_um"]
+    substrate_eps_r: float = _STACK["substrate_eps_r"]
+    substrate_thickness_um: float = _STACK["substrate_thickness_um"]
+    back_plane: bool = _STACK["back_plane"]
+    passivation_eps_r: float = _STACK["passivation_eps_r"]
+    passivation_thickness_um: float = _STACK["passivation_thickness_um"]
+    film_eps_r: float = _STACK["film_eps_r"]
+    film_thickness_um: float = _STACK["film_thickness_um"]
 
 
 @dataclass(frozen=True)
@@ -54,7 +57,7 @@ class CoplanarOptions:
     """``penetration``: compute the penetration depths (14 extra solves; off by default so
     that studies stay fast, NaN then)."""
 
-    penetration: bool = False
+    penetration: bool = parameter("", "compute the penetration depths", default=False)
 
 
 def driven_indices(p: CoplanarParams) -> list[int]:
@@ -97,15 +100,11 @@ class Coplanar(ElectrodeFamily):
             rules.broken.append(f"centre_drive = {params.centre_drive!r} must be true or false")
         if pf.check_numbers(rules, params):
             p = params
-            rules.positive("strip_width_um", "gap_um", "length_mm")
-            rules.nonzero("drive_V")
-            n = p.strip_count
-            if isinstance(n, bool) or int(n) != n or not 2 <= n <= MAX_STRIPS:
+            rules.declared()
+            if p.centre_drive is True and int(p.strip_count) < 3:
                 rules.broken.append(
-                    f"strip_count = {n!r} must be a whole number in [2, {MAX_STRIPS}]"
+                    f"centre_drive = true needs strip_count >= 3, got {p.strip_count!r}"
                 )
-            if p.centre_drive is True and int(n) < 3:
-                rules.broken.append(f"centre_drive = true needs strip_count >= 3, got {n!r}")
             pf.check_stack_params(rules, p)
             if p.corner_radius_um > 0.5 * p.strip_width_um:
                 rules.broken.append(
@@ -114,21 +113,26 @@ class Coplanar(ElectrodeFamily):
                 )
         rules.raise_if_broken()
 
-    def build(self, params: CoplanarParams, *, eps_r: float = 1.0) -> Layout:
+    def validate_options(self, options: CoplanarOptions) -> None:
+        rules = RuleBook(self.name, options)
+        pf.validate_flags(rules, options)
+        rules.raise_if_broken()
+
+    def build(self, params: CoplanarParams, *, eps_r: float = 1.0, options: Any = None) -> Layout:
         self.validate(params)
         return strips_layout(params, eps_r)
 
-    def evaluate(
-        self,
-        params: CoplanarParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        eps_r: float = 1.0,
-        options: CoplanarOptions | None = None,
-    ) -> Evaluation:
-        options = options or CoplanarOptions()
+    def solve(self, layout: Layout, *, solve_options: SolveOptions, options: Any) -> ChargeSolution:
+        try:
+            return solve_2d(layout, rel_accuracy=solve_options.rel_accuracy)
+        except GeometryError as exc:
+            raise ElectrodeError(f"{self.name}: {exc}") from None
+
+    def measure(
+        self, params: CoplanarParams, options: CoplanarOptions, solution: ChargeSolution, companions
+    ) -> Measured:
         p = params
-        layout = self.build(p, eps_r=eps_r)
+        sol = solution
         on = driven_indices(p)
         off = [k for k in range(int(p.strip_count)) if k not in on]
         stack = pf.stack_of(p)
@@ -138,23 +142,23 @@ class Coplanar(ElectrodeFamily):
             return pf.mutual(c, on, off)
 
         try:
-            sol = solve_2d(layout, rel_accuracy=rel_accuracy)
             sens = pf.sensitivities(sol, stack, value, width, options.penetration)
         except GeometryError as exc:
             raise ElectrodeError(f"{self.name}: {exc}") from None
         length = p.length_mm * MM
         c_line = value(sol.capacitance_matrix_F)
         peak = sol.peak_field
-        metrics = pf.common_metrics(c_line * length, length, sens, eps_r, stack, peak.field_V_per_m)
+        metrics = pf.common_metrics(
+            c_line * length, length, sens, sol.layout.eps_r, stack, peak.field_V_per_m
+        )
         metrics["footprint_width_mm"] = width / MM
         extra: dict[str, Any] = {
-            "layout": layout,
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
             "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
-            "sense_capacitance_meaning": "charge on the driven strips / drive_V, others at 0 V (whole length)",
+            "sense_capacitance_meaning": (
+                "charge on the driven strips / drive_V, others at 0 V (whole length)"
+            ),
         }
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        return Measured(metrics=metrics, extra=extra)
 
 
 __all__ = ["Coplanar", "CoplanarOptions", "CoplanarParams", "strips_layout"]

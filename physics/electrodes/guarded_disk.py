@@ -17,16 +17,17 @@ sensitivity density; the radius holding 90 % of it is the probe's spot radius.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.electrodes import probe_metrics as probe
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes import metrics as m
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
 from elopt.physics.geometry import Curve, rounded_polyline
 from elopt.physics.layout import Layout, driven
@@ -37,32 +38,44 @@ SENSOR = "sensor"
 GUARD = "guard"
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
+#: Key prefix of the linearity sweep's companion designs.
+SWEEP = "linearity_standoff_"
 
 
 @dataclass(frozen=True)
 class GuardedDiskParams:
-    """Guarded disk probe parameters; lengths in mm, drive in V."""
+    """Guarded disk probe parameters (module docstring for the symbols)."""
 
-    sensor_radius_mm: float
-    guard_gap_mm: float
-    guard_width_mm: float
-    thickness_mm: float
-    fillet_mm: float
-    standoff_mm: float
-    drive_V: float
-    recess_mm: float = 0.0
+    sensor_radius_mm: float = parameter("mm", "sensor disk radius a", low=0, low_open=True)
+    guard_gap_mm: float = parameter("mm", "sensor-guard gap g", low=0, low_open=True)
+    guard_width_mm: float = parameter("mm", "guard ring width w", low=0, low_open=True)
+    thickness_mm: float = parameter("mm", "sensor and guard thickness t", low=0, low_open=True)
+    fillet_mm: float = parameter("mm", "corner radius rho (0: sharp)", low=0)
+    standoff_mm: float = parameter(
+        "mm", "guard face to target d", low=0, low_open=True, mounting=True
+    )
+    drive_V: float = parameter("V", "sensor and guard potential", nonzero=True)
+    recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0, mounting=True)
 
 
 @dataclass(frozen=True)
 class GuardedDiskOptions:
-    """How :meth:`GuardedDisk.evaluate` measures linearity.
+    """How the linearity is measured: ``linearity_points`` standoffs evenly spaced over
+    d * (1 -+ ``linearity_range_fraction``) (odd counts reuse the nominal solve); 0 points
+    skips linearity (NaN)."""
 
-    The standoffs are d * (1 -+ ``linearity_range_fraction``), ``linearity_points`` of them
-    evenly spaced (odd counts reuse the nominal solve); 0 points skips linearity (NaN).
-    """
-
-    linearity_range_fraction: float = 0.5
-    linearity_points: int = 5
+    linearity_range_fraction: float = parameter(
+        "1",
+        "half-width of the standoff sweep / d",
+        default=0.5,
+        low=0,
+        high=1,
+        low_open=True,
+        high_open=True,
+    )
+    linearity_points: int = parameter(
+        "", "standoffs in the sweep (0: skip)", default=5, low=0, high=25, whole=True
+    )
 
 
 def sensor_curve(p: GuardedDiskParams) -> Curve:
@@ -124,34 +137,28 @@ def parallel_plate_radius_m(c_sense_F: float, standoff_m: float, eps_F_per_m: fl
     return math.sqrt(c_sense_F * standoff_m / (math.pi * eps_F_per_m))
 
 
-class GuardedDisk(ElectrodeFamily):
+class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
     """Guarded disk probe over a grounded target (see the module docstring)."""
 
     name: ClassVar[str] = "guarded_disk"
     Params: ClassVar[type] = GuardedDiskParams
     Options: ClassVar[type] = GuardedDiskOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        probe.SENSE,
-        probe.TOTAL,
-        probe.COUPLING,
-        probe.PEAK_FIELD,
-        MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either"),
-        probe.PEAK_Z,
-        probe.SENSITIVITY,
-        probe.SPOT,
-        MetricSpec("linearity_error_pct_fs", "%FS", "1/C_sense off its best line", "minimize"),
-        probe.EFFECTIVE_RADIUS,
-        MetricSpec("outer_radius_mm", "mm", "outer radius of the guard", "minimize"),
+        m.SENSE,
+        m.TOTAL,
+        m.COUPLING,
+        *m.PEAK_PROFILE,
+        m.SENSITIVITY,
+        m.SPOT,
+        m.LINEARITY,
+        m.EFFECTIVE_RADIUS,
+        m.OUTER_RADIUS,
     )
 
     def validate(self, params: GuardedDiskParams) -> None:
         rules = RuleBook(self.name, params)
         if rules.finite():
-            rules.positive(
-                "sensor_radius_mm", "guard_gap_mm", "guard_width_mm", "thickness_mm", "standoff_mm"
-            )
-            rules.non_negative("fillet_mm", "recess_mm")
-            rules.nonzero("drive_V")
+            rules.declared()
             p = params
             why = "fillets on one face must not overlap"
             rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)
@@ -173,19 +180,17 @@ class GuardedDisk(ElectrodeFamily):
     def validate_options(self, options: GuardedDiskOptions) -> None:
         rules = RuleBook(self.name, options)
         if rules.finite():
-            f = options.linearity_range_fraction
-            if not 0 < f < 1:
-                rules.broken.append(
-                    f"linearity_range_fraction = {f:.6g} must be in (0, 1) (standoffs d (1 -+ f))"
-                )
+            rules.declared()
             n = options.linearity_points
-            if isinstance(n, float) or not (n == 0 or 3 <= n <= 25):
+            if n in (1, 2) and not isinstance(n, float):
                 rules.broken.append(
                     f"linearity_points = {n!r} must be 0 (skip) or a whole number in [3, 25]"
                 )
         rules.raise_if_broken()
 
-    def build(self, params: GuardedDiskParams, *, eps_r: float = 1.0) -> Layout:
+    def build(
+        self, params: GuardedDiskParams, *, eps_r: float = 1.0, options: Any = None
+    ) -> Layout:
         self.validate(params)
         v = float(params.drive_V)
         return Layout(
@@ -197,77 +202,68 @@ class GuardedDisk(ElectrodeFamily):
             ground_plane=True,
         )
 
-    def evaluate(
+    def companion_designs(
+        self, params: GuardedDiskParams, options: GuardedDiskOptions
+    ) -> dict[str, GuardedDiskParams]:
+        """The linearity standoffs other than the nominal one (its solve is reused)."""
+        d = params.standoff_mm * MM
+        return {
+            f"{SWEEP}{k}": replace(params, standoff_mm=dk / MM)
+            for k, dk in enumerate(linearity_standoffs_m(params, options))
+            if not math.isclose(dk, d, rel_tol=1e-12)
+        }
+
+    def measure(
         self,
         params: GuardedDiskParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        eps_r: float = 1.0,
-        options: GuardedDiskOptions | None = None,
-    ) -> Evaluation:
-        options = options or GuardedDiskOptions()
-        self.validate_options(options)
-        layout = self.build(params, eps_r=eps_r)
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
-        eps = layout.eps_F_per_m
+        options: GuardedDiskOptions,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
+        sol = solution
+        eps = sol.layout.eps_F_per_m
         d = params.standoff_mm * MM
         c_sense = sense_capacitance_F(sol)
         c = sol.capacitance_matrix_F
         r_grid = target_grid(params)
         density = sensitivity_density_F_per_m3(sol, r_grid)
         peak = sol.peak_field
-        standoffs, c_curve = self._standoff_sweep(params, options, sol, rel_accuracy, eps_r)
+        standoffs = linearity_standoffs_m(params, options)
+        c_curve = np.array(
+            [sense_capacitance_F(companions.get(f"{SWEEP}{k}", sol)) for k in range(len(standoffs))]
+        )
         linearity = (
             linearity_error_pct_fs(standoffs, c_curve) if len(standoffs) >= 3 else float("nan")
         )
         metrics = {
-            "sense_capacitance_fF": c_sense * 1e15,
-            "total_capacitance_fF": float(c.sum()) * 1e15,
-            "sensor_guard_coupling_fF": -float(c[0, 1]) * 1e15,
-            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-            "peak_field_r_mm": float(peak.location_m[0]) / MM,
-            "peak_field_z_mm": float(peak.location_m[1]) / MM,
-            "sensitivity_fF_per_um": sensitivity_F_per_m(sol) * FF_PER_UM,
-            "spot_radius_90_mm": spot_radius(r_grid, density, 0.9) / MM,
-            "linearity_error_pct_fs": linearity,
-            "effective_radius_mm": parallel_plate_radius_m(c_sense, d, eps) / MM,
-            "outer_radius_mm": outer_radius_mm(params),
+            m.SENSE.name: c_sense * 1e15,
+            m.TOTAL.name: float(c.sum()) * 1e15,
+            m.COUPLING.name: -float(c[0, 1]) * 1e15,
+            m.PEAK_R.name: float(peak.location_m[0]) / MM,
+            m.PEAK_Z.name: float(peak.location_m[1]) / MM,
+            m.SENSITIVITY.name: sensitivity_F_per_m(sol) * FF_PER_UM,
+            m.SPOT.name: spot_radius(r_grid, density, 0.9) / MM,
+            m.LINEARITY.name: linearity,
+            m.EFFECTIVE_RADIUS.name: parallel_plate_radius_m(c_sense, d, eps) / MM,
+            m.OUTER_RADIUS.name: outer_radius_mm(params),
         }
         extra: dict[str, Any] = {
-            "layout": layout,
             "sense_capacitance_F": c_sense,
             "sense_capacitance_meaning": "Q_sensor / V with the guard driven at V",
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
             "target_r_m": r_grid,
             "sensitivity_density_F_per_m3": density,
             "linearity_standoff_m": standoffs,
             "linearity_sense_capacitance_F": c_curve,
         }
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        return Measured(metrics, extra)
 
-    def _standoff_sweep(
-        self,
-        params: GuardedDiskParams,
-        options: GuardedDiskOptions,
-        nominal: ChargeSolution,
-        rel_accuracy: float,
-        eps_r: float,
-    ) -> tuple[np.ndarray, np.ndarray]:
-        """C_sense (F) at the linearity standoffs (m); the nominal solve is reused."""
-        if options.linearity_points == 0:
-            return np.empty(0), np.empty(0)
-        d = params.standoff_mm * MM
-        standoffs = standoff_range(d, options.linearity_range_fraction, options.linearity_points)
-        c_values = np.empty_like(standoffs)
-        for k, dk in enumerate(standoffs):
-            if math.isclose(dk, d, rel_tol=1e-12):
-                c_values[k] = sense_capacitance_F(nominal)
-                continue
-            shifted = replace(params, standoff_mm=dk / MM)
-            sol = solve_axisymmetric(self.build(shifted, eps_r=eps_r), rel_accuracy=rel_accuracy)
-            c_values[k] = sense_capacitance_F(sol)
-        return standoffs, c_values
+
+def linearity_standoffs_m(params: GuardedDiskParams, options: GuardedDiskOptions) -> np.ndarray:
+    """The standoffs (m) of the linearity sweep, (points,); empty when it is skipped."""
+    if options.linearity_points == 0:
+        return np.empty(0)
+    d = params.standoff_mm * MM
+    return standoff_range(d, options.linearity_range_fraction, options.linearity_points)
 
 
 def effective_area_amey_hamburger_m2(

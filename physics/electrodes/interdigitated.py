@@ -31,34 +31,39 @@ from typing import Any, ClassVar
 from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
+from elopt.physics.refinement import SolveOptions
+from elopt.physics.solution import ChargeSolution
 
 UM = ps.UM
 MM = 1e-3
 MAX_FINGERS = 10_000
+_STACK = pf.stack_parameters()
 
 
 @dataclass(frozen=True)
 class InterdigitatedParams:
     """Comb geometry (um, mm), drive (V) and the layer stack (um, relative permittivities)."""
 
-    finger_width_um: float
-    gap_um: float
-    finger_count: int
-    finger_length_mm: float
-    drive_V: float
-    metal_thickness_um: float = 0.0
-    corner_radius_um: float = 0.0
-    substrate_eps_r: float = 4.6
-    substrate_thickness_um: float = 0.0
-    back_plane: bool = False
-    passivation_eps_r: float = 3.9
-    passivation_thickness_um: float = 0.0
-    film_eps_r: float = 1.0
-    film_thickness_um: float = 0.0
+    finger_width_um: float = parameter("um", "finger width", low=0.0, low_open=True)
+    gap_um: float = parameter("um", "gap between neighbouring fingers", low=0.0, low_open=True)
+    finger_count: int = parameter(
+        "", "number of fingers (both combs)", low=2, high=MAX_FINGERS, whole=True
+    )
+    finger_length_mm: float = parameter("mm", "finger length", low=0.0, low_open=True)
+    drive_V: float = parameter("V", "voltage of the driven comb (the other at 0 V)", nonzero=True)
+    metal_thickness_um: float = _STACK["metal_thickness_um"]
+    corner_radius_um: float = _STACK["corner_radius_um"]
+    substrate_eps_r: float = _STACK["substrate_eps_r"]
+    substrate_thickness_um: float = _STACK["substrate_thickness_um"]
+    back_plane: bool = _STACK["back_plane"]
+    passivation_eps_r: float = _STACK["passivation_eps_r"]
+    passivation_thickness_um: float = _STACK["passivation_thickness_um"]
+    film_eps_r: float = _STACK["film_eps_r"]
+    film_thickness_um: float = _STACK["film_thickness_um"]
 
 
 @dataclass(frozen=True)
@@ -68,9 +73,9 @@ class InterdigitatedOptions:
     ``penetration``: compute the penetration depths (14 extra solves of the cell; off by
     default so that studies stay fast, NaN then)."""
 
-    end_cells: bool = True
-    full_cross_section: bool = False
-    penetration: bool = False
+    end_cells: bool = parameter("", "outer cells from a 4-finger cross-section", default=True)
+    full_cross_section: bool = parameter("", "also solve all fingers (a check)", default=False)
+    penetration: bool = parameter("", "compute the penetration depths", default=False)
 
 
 def period_m(p: InterdigitatedParams) -> float:
@@ -126,54 +131,66 @@ class Interdigitated(ElectrodeFamily):
     def validate(self, params: InterdigitatedParams) -> None:
         rules = RuleBook(self.name, params)
         if pf.check_numbers(rules, params):
-            p = params
-            rules.positive("finger_width_um", "gap_um", "finger_length_mm")
-            rules.nonzero("drive_V")
-            n = p.finger_count
-            if isinstance(n, bool) or int(n) != n or not 2 <= n <= MAX_FINGERS:
+            rules.declared()
+            pf.check_stack_params(rules, params)
+            if params.corner_radius_um > 0.5 * params.finger_width_um:
                 rules.broken.append(
-                    f"finger_count = {n!r} must be a whole number in [2, {MAX_FINGERS}]"
-                )
-            pf.check_stack_params(rules, p)
-            if p.corner_radius_um > 0.5 * p.finger_width_um:
-                rules.broken.append(
-                    f"corner_radius_um = {p.corner_radius_um:.6g} must be <= finger_width_um / 2 "
-                    f"= {0.5 * p.finger_width_um:.6g}"
+                    f"corner_radius_um = {params.corner_radius_um:.6g} must be <= "
+                    f"finger_width_um / 2 = {0.5 * params.finger_width_um:.6g}"
                 )
         rules.raise_if_broken()
 
-    def build(self, params: InterdigitatedParams, *, eps_r: float = 1.0) -> Layout:
+    def validate_options(self, options: InterdigitatedOptions) -> None:
+        rules = RuleBook(self.name, options)
+        pf.validate_flags(rules, options)
+        rules.raise_if_broken()
+
+    def build(
+        self, params: InterdigitatedParams, *, eps_r: float = 1.0, options: Any = None
+    ) -> Layout:
         """The interior periodic cell (two fingers; period :func:`period_m`)."""
         self.validate(params)
         return fingers_layout(params, 2, eps_r)
 
-    def evaluate(
+    def solve(self, layout: Layout, *, solve_options: SolveOptions, options: Any) -> ChargeSolution:
+        """The periodic 2-D solve of the cell (period from the fingers' spacing)."""
+        try:
+            return solve_2d(
+                layout,
+                period_m=pf.period_from_cell(layout),
+                rel_accuracy=solve_options.rel_accuracy,
+            )
+        except GeometryError as exc:
+            raise ElectrodeError(f"{self.name}: {exc}") from None
+
+    def measure(
         self,
         params: InterdigitatedParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        eps_r: float = 1.0,
-        options: InterdigitatedOptions | None = None,
-    ) -> Evaluation:
-        options = options or InterdigitatedOptions()
+        options: InterdigitatedOptions,
+        solution: ChargeSolution,
+        companions,
+    ) -> Measured:
+        """Metrics; the finite cross-sections (outer cells, the check) are solved here, at the
+        cell's requested accuracy, because they are not designs of this family."""
         p = params
-        cell = self.build(p, eps_r=eps_r)
+        sol = solution
+        eps_r = sol.layout.eps_r
+        rel = sol.requested_accuracy
         lam = period_m(p)
         n = int(p.finger_count)
         length = p.finger_length_mm * MM
         stack = pf.stack_of(p)
+        c_i = comb_capacitance(sol.capacitance_matrix_F, 2)
+        peaks = [sol.peak_field]
+        extra: dict[str, Any] = {"period_m": lam}
+        c_end = float("nan")
         try:
-            sol = solve_2d(cell, period_m=lam, rel_accuracy=rel_accuracy)
-            c_i = comb_capacitance(sol.capacitance_matrix_F, 2)
-            peaks = [sol.peak_field]
-            extra: dict[str, Any] = {"layout": cell, "period_m": lam, "cell_solution": sol}
-            c_end = float("nan")
             if n < 4:
-                fin = solve_2d(fingers_layout(p, n, eps_r), rel_accuracy=rel_accuracy)
+                fin = solve_2d(fingers_layout(p, n, eps_r), rel_accuracy=rel)
                 c_line = comb_capacitance(fin.capacitance_matrix_F, n)
                 peaks.append(fin.peak_field)
             elif options.end_cells:
-                fin = solve_2d(fingers_layout(p, 4, eps_r), rel_accuracy=rel_accuracy)
+                fin = solve_2d(fingers_layout(p, 4, eps_r), rel_accuracy=rel)
                 c4 = comb_capacitance(fin.capacitance_matrix_F, 4)
                 c_end = 0.5 * (c4 - 0.5 * c_i)
                 c_line = 0.5 * (n - 3) * c_i + 2.0 * c_end
@@ -182,7 +199,7 @@ class Interdigitated(ElectrodeFamily):
             else:
                 c_line = 0.5 * (n - 1) * c_i
             if options.full_cross_section and n >= 4:
-                full = solve_2d(fingers_layout(p, n, eps_r), rel_accuracy=rel_accuracy)
+                full = solve_2d(fingers_layout(p, n, eps_r), rel_accuracy=rel)
                 extra["full_cross_section_pF_per_m"] = (
                     comb_capacitance(full.capacitance_matrix_F, n) * 1e12
                 )
@@ -203,13 +220,14 @@ class Interdigitated(ElectrodeFamily):
         )
         extra.update(
             {
-                "peak_conductor": peak.conductor,
-                "peak_singular": bool(peak.singular),
+                "peak_on_outer_fingers": peak is not peaks[0],
                 "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
-            "sense_capacitance_meaning": "charge on the driven comb / drive_V, other comb at 0 V (whole length)",
+                "sense_capacitance_meaning": (
+                    "charge on the driven comb / drive_V, other comb at 0 V (whole length)"
+                ),
             }
         )
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        return Measured(metrics=metrics, extra=extra)
 
 
 __all__ = ["Interdigitated", "InterdigitatedOptions", "InterdigitatedParams", "fingers_layout"]

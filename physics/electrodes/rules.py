@@ -11,6 +11,7 @@ import math
 from dataclasses import fields
 from typing import Any
 
+from elopt.physics.electrodes.base import PARAMETER_INFO
 from elopt.physics.errors import ElectrodeError
 
 
@@ -42,22 +43,14 @@ class RuleBook:
                 ok = False
         return ok
 
-    def positive(self, *names: str) -> None:
-        for name in names:
-            v = self.value(name)
-            if not v > 0:
-                self.broken.append(f"{name} = {_fmt(v)} must be > 0")
-
-    def non_negative(self, *names: str) -> None:
-        for name in names:
-            v = self.value(name)
-            if v < 0:
-                self.broken.append(f"{name} = {_fmt(v)} must be >= 0")
-
-    def nonzero(self, name: str) -> None:
-        v = self.value(name)
-        if v == 0:
-            self.broken.append(f"{name} = {_fmt(v)} must be nonzero")
+    def declared(self) -> None:
+        """Check every field against the range declared in its metadata (:func:`parameter`)."""
+        for f in fields(self.params):
+            info = f.metadata.get(PARAMETER_INFO)
+            if info is not None:
+                broken = info.broken_rule(f.name, getattr(self.params, f.name))
+                if broken:
+                    self.broken.append(broken)
 
     def at_most(self, name: str, limit: float, limit_text: str, why: str) -> None:
         """Record ``name <= limit`` broken; ``limit_text`` says how the limit is formed."""

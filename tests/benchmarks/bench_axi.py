@@ -24,6 +24,7 @@ from elopt.physics.bem_axi.ring_sums import potential_sum
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.layout import EPS0_F_PER_M as EPS0
 from elopt.physics.layout import Layout, driven
+from elopt.physics.threads import limit_blas_threads
 
 sys.path.insert(0, str(Path(__file__).parent))
 
@@ -96,6 +97,7 @@ def kernel_speed() -> tuple[float, float]:
 
 
 def main() -> None:
+    limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     sphere, sphere_ref = sphere_layout()
     probe = probe_layout()
     probe_ref_sol = solve_axisymmetric(probe, rel_accuracy=1e-11, order=8)
