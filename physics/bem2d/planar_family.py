@@ -114,35 +114,35 @@ def check_numbers(rules: RuleBook, params) -> bool:
     return ok
 
 
-def stack_parameters():
-    """Declared fields of the stack and metal, shared by the planar Params (in this order)."""
-    return {
-        "metal_thickness_um": parameter(
-            "um", "electrode metal thickness (0: zero-thickness strips)", default=0.0, low=0.0
-        ),
-        "corner_radius_um": parameter(
-            "um", "radius of the metal's rounded corners (0: sharp)", default=0.0, low=0.0
-        ),
-        "substrate_eps_r": parameter(
-            "", "substrate relative permittivity", default=4.6, low=0.0, low_open=True, high=1e6
-        ),
-        "substrate_thickness_um": parameter(
-            "um", "substrate thickness (0: a half-space)", default=0.0, low=0.0
-        ),
-        "back_plane": parameter("", "grounded plane under the substrate", default=False),
-        "passivation_eps_r": parameter(
-            "", "passivation relative permittivity", default=3.9, low=0.0, low_open=True, high=1e6
-        ),
-        "passivation_thickness_um": parameter(
-            "um", "passivation over the electrodes (0: none)", default=0.0, low=0.0
-        ),
-        "film_eps_r": parameter(
-            "", "sensing film relative permittivity", default=1.0, low=0.0, low_open=True, high=1e6
-        ),
-        "film_thickness_um": parameter(
-            "um", "sensing film thickness (0: none)", default=0.0, low=0.0
-        ),
-    }
+@dataclass(frozen=True, kw_only=True)
+class StackParams:
+    """Declared fields of the metal and the layer stack, shared by the planar Params."""
+
+    metal_thickness_um: float = parameter(
+        "um", "electrode metal thickness (0: zero-thickness strips)", default=0.0, low=0.0
+    )
+    corner_radius_um: float = parameter(
+        "um", "radius of the metal's rounded corners (0: sharp)", default=0.0, low=0.0
+    )
+    substrate_eps_r: float = parameter(
+        "", "substrate relative permittivity", default=4.6, low=0.0, low_open=True, high=1e6
+    )
+    substrate_thickness_um: float = parameter(
+        "um", "substrate thickness (0: a half-space)", default=0.0, low=0.0
+    )
+    back_plane: bool = parameter("", "grounded plane under the substrate", default=False)
+    passivation_eps_r: float = parameter(
+        "", "passivation relative permittivity", default=3.9, low=0.0, low_open=True, high=1e6
+    )
+    passivation_thickness_um: float = parameter(
+        "um", "passivation over the electrodes (0: none)", default=0.0, low=0.0
+    )
+    film_eps_r: float = parameter(
+        "", "sensing film relative permittivity", default=1.0, low=0.0, low_open=True, high=1e6
+    )
+    film_thickness_um: float = parameter(
+        "um", "sensing film thickness (0: none)", default=0.0, low=0.0
+    )
 
 
 def validate_flags(rules: RuleBook, options) -> None:

@@ -21,7 +21,7 @@ import numpy as np
 
 from elopt.physics.bem2d.shapes import Bar, Strip
 from elopt.physics.bem2d.solve import Problem2D, prepare, solve_level
-from elopt.physics.layout import EPS0_F_PER_M, Conductor, Layout
+from elopt.physics.layout import Conductor, Layout
 from elopt.physics.media import PlanarLayer
 
 UM = 1e-6
@@ -159,7 +159,3 @@ def _crossing(heights: np.ndarray, frac: np.ndarray, target: float) -> float:
     f0, f1 = frac[k - 1], frac[k]
     t = (target - f0) / (f1 - f0) if f1 != f0 else 0.0
     return float(heights[k - 1] * (heights[k] / heights[k - 1]) ** t)
-
-
-def eps0() -> float:
-    return EPS0_F_PER_M

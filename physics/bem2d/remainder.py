@@ -24,14 +24,23 @@ def _rho(slabs: Slabs, k: np.ndarray, i: int, j: int) -> np.ndarray:
     return km - slabs.m_inf[j, i][None]
 
 
+def _periodic_spectrum(slabs: Slabs, period: float, i: int, j: int):
+    """k_n (n,) and rho_pq(k_n) (n, 2, 2), cached on ``slabs`` (one solve per k_n)."""
+    cache = slabs.__dict__.setdefault("_spectra", {})
+    key = ("periodic", period, i, j)
+    if key not in cache:
+        d_min = slabs.min_thickness_m
+        n_max = max(1, math.ceil(-math.log(TAIL) * period / (2 * math.pi * d_min)))
+        k = 2 * math.pi * np.arange(1, n_max + 1) / period
+        cache[key] = (k, _rho(slabs, k.astype(complex), i, j) / k[:, None, None])
+    return cache[key]
+
+
 def periodic_remainder(
     slabs: Slabs, period: float, i: int, j: int, xt, zt, xs, zs, extracted
 ) -> np.ndarray:
     """Remainder of the periodic kernel; ``extracted`` lists the (c, s, t0) terms taken out."""
-    d_min = slabs.min_thickness_m
-    n_max = max(1, math.ceil(-math.log(TAIL) * period / (2 * math.pi * d_min)))
-    k = 2 * math.pi * np.arange(1, n_max + 1) / period
-    rho = _rho(slabs, k.astype(complex), i, j) / k[:, None, None]
+    k, rho = _periodic_spectrum(slabs, period, i, j)
     it = np.full(len(zt), i)
     js = np.full(len(zs), j)
     ht = slabs.heights(zt, it)
@@ -85,7 +94,16 @@ TABLE_NODES = 8
 
 
 def _ray_setup(slabs: Slabs, i: int, j: int, extent_m: float):
-    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); m0 - M_inf; L."""
+    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); m0 - M_inf; L.
+    Cached on ``slabs``."""
+    cache = slabs.__dict__.setdefault("_spectra", {})
+    key = ("open", extent_m, i, j)
+    if key not in cache:
+        cache[key] = _ray_setup_uncached(slabs, i, j, extent_m)
+    return cache[key]
+
+
+def _ray_setup_uncached(slabs: Slabs, i: int, j: int, extent_m: float):
     d_min = slabs.min_thickness_m
     fin = np.isfinite(slabs.thickness_m)
     big_l = float(slabs.thickness_m[fin].sum())

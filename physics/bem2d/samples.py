@@ -36,9 +36,10 @@ def potential(level, sigma: np.ndarray, offset: float, x: np.ndarray) -> np.ndar
     return a @ sigma - offset
 
 
-def level_samples(level) -> dict[str, np.ndarray]:
+def level_samples(level, split: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Every node's samples (sheet nodes as two faces): points (complex), sigma, eps of the
-    touching medium, area per metre, face, normal (complex), arc length, owner."""
+    touching medium, area per metre, face, normal (complex), arc length, owner. ``split``
+    (N,) bool limits the sheet nodes split into faces (others are left out)."""
     volts, sigma, offset = excitation(level)
     p = level.panels
     slabs = level.problem.slabs
@@ -46,7 +47,8 @@ def level_samples(level) -> dict[str, np.ndarray]:
     nrm = p.normals.ravel()
     w = p.node_weights
     owner = p.node_conductor
-    sheet = np.repeat(p.sheet, p.order)
+    closed = ~np.repeat(p.sheet, p.order)
+    sheet = ~closed if split is None else (~closed & split)
     arc = p.node_arc_length
     half = np.repeat(p.half, p.order)
     out: dict[str, list] = {
@@ -63,7 +65,7 @@ def level_samples(level) -> dict[str, np.ndarray]:
         out["arc"].append(arc[sel])
         out["owner"].append(owner[sel])
 
-    add(~sheet, sigma[~sheet], 0, nrm[~sheet])
+    add(closed, sigma[closed], 0, nrm[closed])
     if sheet.any():
         x, n, hh = pts[sheet], nrm[sheet], half[sheet]
         v = volts[owner[sheet]]
@@ -82,3 +84,31 @@ def level_samples(level) -> dict[str, np.ndarray]:
         add(sheet, s_top * scale, 1, n)
         add(sheet, s_bot * scale, -1, -n)
     return {k: np.concatenate(v) for k, v in out.items()}
+
+
+def sheet_peak_candidates(level) -> np.ndarray:
+    """Sheet nodes (N,) bool that may hold a conductor's largest face field.
+
+    A face carries at most the total density, so |sigma_face| / eps_face <= |sigma| / eps_min
+    (eps_min: the smaller permittivity at the node). The node with the largest total is split
+    first; every node whose bound reaches its face field stays a candidate.
+    """
+    _, sigma, _ = excitation(level)
+    p = level.panels
+    sheet = np.repeat(p.sheet, p.order)
+    owner = p.node_conductor
+    slabs = level.problem.slabs
+    pts, nrm = xy(p.points), xy(p.normals.ravel())
+    eps_min = np.minimum(slabs.eps_touching(pts, nrm), slabs.eps_touching(pts, -nrm))
+    bound = np.abs(sigma) / eps_min
+    first = np.zeros(p.n, dtype=bool)
+    for k in np.unique(owner[sheet]):
+        sel = np.nonzero(sheet & (owner == k))[0]
+        first[sel[np.argmax(bound[sel])]] = True
+    s = level_samples(level, first)
+    field = np.abs(s["sigma"]) / s["eps"]
+    keep = np.zeros(p.n, dtype=bool)
+    for k in np.unique(owner[sheet]):
+        best = field[(s["owner"] == k) & (s["face"] != 0)].max()
+        keep |= sheet & (owner == k) & (bound >= best * (1 - 1e-12))
+    return keep

@@ -36,8 +36,6 @@ from elopt.physics.refinement import (
     refine,
 )
 
-MAX_UNKNOWNS = 6000
-
 
 @dataclass(frozen=True)
 class Problem2D:
@@ -156,8 +154,17 @@ class LevelResult2D:
 
         return level_samples(self)
 
+    @cached_property
+    def peak_samples(self) -> dict:
+        """Samples of the closed conductors and of the sheet nodes that may hold a peak."""
+        from elopt.physics.bem2d.samples import level_samples, sheet_peak_candidates
+
+        if not self.panels.sheet.any():
+            return self.samples
+        return level_samples(self, sheet_peak_candidates(self))
+
     def peaks(self) -> tuple[LevelPeak, ...]:
-        s = self.samples
+        s = self.peak_samples
         field = np.abs(s["sigma"]) / s["eps"]
         pts = np.stack([s["points"].real, s["points"].imag], axis=1)
         shapes = [c.shape for c in self.problem.layout.conductors]

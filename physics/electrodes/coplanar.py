@@ -28,11 +28,10 @@ from elopt.physics.solution import ChargeSolution
 UM = ps.UM
 MM = 1e-3
 MAX_STRIPS = 200
-_STACK = pf.stack_parameters()
 
 
-@dataclass(frozen=True)
-class CoplanarParams:
+@dataclass(frozen=True, kw_only=True)
+class CoplanarParams(pf.StackParams):
     """Strip geometry (um, mm), drive (V), drive pattern and the layer stack."""
 
     strip_count: int = parameter("", "number of strips", low=2, high=MAX_STRIPS, whole=True)
@@ -41,15 +40,6 @@ class CoplanarParams:
     length_mm: float = parameter("mm", "strip length", low=0.0, low_open=True)
     drive_V: float = parameter("V", "voltage of the driven strips (others at 0 V)", nonzero=True)
     centre_drive: bool = parameter("", "drive only the middle strip(s)", default=False)
-    metal_thickness_um: float = _STACK["metal_thickness_um"]
-    corner_radius_um: float = _STACK["corner_radius_um"]
-    substrate_eps_r: float = _STACK["substrate_eps_r"]
-    substrate_thickness_um: float = _STACK["substrate_thickness_um"]
-    back_plane: bool = _STACK["back_plane"]
-    passivation_eps_r: float = _STACK["passivation_eps_r"]
-    passivation_thickness_um: float = _STACK["passivation_thickness_um"]
-    film_eps_r: float = _STACK["film_eps_r"]
-    film_thickness_um: float = _STACK["film_thickness_um"]
 
 
 @dataclass(frozen=True)

@@ -41,11 +41,10 @@ from elopt.physics.solution import ChargeSolution
 UM = ps.UM
 MM = 1e-3
 MAX_FINGERS = 10_000
-_STACK = pf.stack_parameters()
 
 
-@dataclass(frozen=True)
-class InterdigitatedParams:
+@dataclass(frozen=True, kw_only=True)
+class InterdigitatedParams(pf.StackParams):
     """Comb geometry (um, mm), drive (V) and the layer stack (um, relative permittivities)."""
 
     finger_width_um: float = parameter("um", "finger width", low=0.0, low_open=True)
@@ -55,15 +54,6 @@ class InterdigitatedParams:
     )
     finger_length_mm: float = parameter("mm", "finger length", low=0.0, low_open=True)
     drive_V: float = parameter("V", "voltage of the driven comb (the other at 0 V)", nonzero=True)
-    metal_thickness_um: float = _STACK["metal_thickness_um"]
-    corner_radius_um: float = _STACK["corner_radius_um"]
-    substrate_eps_r: float = _STACK["substrate_eps_r"]
-    substrate_thickness_um: float = _STACK["substrate_thickness_um"]
-    back_plane: bool = _STACK["back_plane"]
-    passivation_eps_r: float = _STACK["passivation_eps_r"]
-    passivation_thickness_um: float = _STACK["passivation_thickness_um"]
-    film_eps_r: float = _STACK["film_eps_r"]
-    film_thickness_um: float = _STACK["film_thickness_um"]
 
 
 @dataclass(frozen=True)
