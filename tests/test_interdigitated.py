@@ -37,6 +37,7 @@ def test_registered():
     assert get_family("coplanar").name == "coplanar"
 
 
+@pytest.mark.slow
 def test_decomposition_matches_full_cross_section():
     # Igreja & Dias 2004 (docs/references.md item 19) split N fingers into N - 3 half interior
     # cells and two outer cells; the outer cells come here from a 4-finger cross-section. The
@@ -45,7 +46,7 @@ def test_decomposition_matches_full_cross_section():
     p = InterdigitatedParams(**BASE)
     ev = Interdigitated().evaluate(
         p,
-        rel_accuracy=1e-5,
+        rel_accuracy=1e-4,
         options=InterdigitatedOptions(full_cross_section=True, penetration=False),
     )
     split = ev.metrics["capacitance_per_length_pF_per_m"]
@@ -89,7 +90,9 @@ def test_sensitivities_against_resolves():
     rel = (c2 - c0) / (2 * math.log(1.005) * c1)
     assert ev.metrics["film_relative_sensitivity"] == pytest.approx(rel, rel=2e-3)
     # Penetration depth (module definition): more of the sensitivity is held below 90 % than 50 %.
-    ev = fam.evaluate(p, rel_accuracy=1e-4, options=InterdigitatedOptions(end_cells=False))
+    ev = fam.evaluate(
+        p, rel_accuracy=1e-4, options=InterdigitatedOptions(end_cells=False, penetration=True)
+    )
     assert 0 < ev.metrics["penetration_depth_50_um"] < ev.metrics["penetration_depth_90_um"]
 
 
@@ -119,8 +122,8 @@ def test_coplanar_family_runs_with_back_plane():
     [
         ({"gap_um": 0.0}, "gap_um = 0 must be > 0"),
         ({"finger_width_um": -1.0}, "finger_width_um = -1 must be > 0"),
-        ({"film_eps_r": 0.0}, "film_eps_r = 0 must lie in (0, 1e6]"),
-        ({"substrate_eps_r": -2.0}, "substrate_eps_r = -2 must lie in (0, 1e6]"),
+        ({"film_eps_r": 0.0}, "film_eps_r = 0 must lie in (0, 1e+06]"),
+        ({"substrate_eps_r": -2.0}, "substrate_eps_r = -2 must lie in (0, 1e+06]"),
         ({"film_thickness_um": -1.0}, "film_thickness_um = -1 must be >= 0"),
         ({"finger_count": 1}, "finger_count = 1 must be a whole number"),
         (

@@ -96,7 +96,7 @@ class Coplanar(ElectrodeFamily):
                     f"centre_drive = true needs strip_count >= 3, got {p.strip_count!r}"
                 )
             pf.check_stack_params(rules, p)
-            if p.corner_radius_um > 0.5 * p.strip_width_um:
+            if 0 < p.strip_width_um < 2 * p.corner_radius_um:
                 rules.broken.append(
                     f"corner_radius_um = {p.corner_radius_um:.6g} must be <= strip_width_um / 2 "
                     f"= {0.5 * p.strip_width_um:.6g}"

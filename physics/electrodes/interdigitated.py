@@ -123,7 +123,7 @@ class Interdigitated(ElectrodeFamily):
         if pf.check_numbers(rules, params):
             rules.declared()
             pf.check_stack_params(rules, params)
-            if params.corner_radius_um > 0.5 * params.finger_width_um:
+            if 0 < params.finger_width_um < 2 * params.corner_radius_um:
                 rules.broken.append(
                     f"corner_radius_um = {params.corner_radius_um:.6g} must be <= "
                     f"finger_width_um / 2 = {0.5 * params.finger_width_um:.6g}"
