@@ -17,7 +17,8 @@ import numpy as np
 
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solution import Solution2D
-from elopt.physics.electrodes.base import MetricSpec, parameter
+from elopt.physics.electrodes import metrics
+from elopt.physics.electrodes.base import parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
@@ -177,41 +178,18 @@ def mutual(c: np.ndarray, a: list[int], b: list[int]) -> float:
     return -float(c[np.ix_(a, b)].sum())
 
 
-#: Metrics both planar families report (units in the names).
+#: Metrics both planar families report (declared in the metric registry).
 COMMON_METRICS = (
-    MetricSpec(
-        "capacitance_pF", "pF", "driven-to-sense capacitance of the whole device", "maximize"
-    ),
-    MetricSpec(
-        "capacitance_per_length_pF_per_m",
-        "pF/m",
-        "the same per metre of electrode length",
-        "either",
-    ),
-    MetricSpec(
-        "mut_sensitivity_fF_per_eps",
-        "fF",
-        "dC / d eps_r of the medium above (material under test)",
-        "maximize",
-    ),
-    MetricSpec(
-        "mut_relative_sensitivity", "1", "d ln C / d ln eps_r of the medium above", "maximize"
-    ),
-    MetricSpec("film_sensitivity_fF_per_eps", "fF", "dC / d eps_r of the sensing film", "maximize"),
-    MetricSpec(
-        "film_relative_sensitivity", "1", "d ln C / d ln eps_r of the sensing film", "maximize"
-    ),
-    MetricSpec("film_thickness_sensitivity_fF_per_um", "fF/um", "dC / d(film thickness)", "either"),
-    MetricSpec(
-        "penetration_depth_50_um",
-        "um",
-        "height above the electrode tops holding 50% of the sensitivity above them",
-        "either",
-    ),
-    MetricSpec("penetration_depth_90_um", "um", "the same for 90%", "either"),
-    MetricSpec(
-        "cell_constant_per_m", "1/m", "eps0 / (dC/d eps_r of the medium above): C = eps/K", "either"
-    ),
+    metrics.PLANAR_CAPACITANCE,
+    metrics.PLANAR_CAPACITANCE_PER_LENGTH,
+    metrics.PLANAR_MUT_SENSITIVITY,
+    metrics.PLANAR_MUT_RELATIVE_SENSITIVITY,
+    metrics.PLANAR_FILM_SENSITIVITY,
+    metrics.PLANAR_FILM_RELATIVE_SENSITIVITY,
+    metrics.PLANAR_FILM_THICKNESS_SENSITIVITY,
+    metrics.PLANAR_PENETRATION_DEPTH_50,
+    metrics.PLANAR_PENETRATION_DEPTH_90,
+    metrics.PLANAR_CELL_CONSTANT,
 )
 
 

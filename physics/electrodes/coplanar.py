@@ -18,6 +18,7 @@ from typing import Any, ClassVar
 from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
+from elopt.physics.electrodes import metrics
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
@@ -81,7 +82,7 @@ class Coplanar(ElectrodeFamily):
     Options: ClassVar[type] = CoplanarOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
         *pf.COMMON_METRICS,
-        MetricSpec("footprint_width_mm", "mm", "width of the strip set", "minimize"),
+        metrics.PLANAR_FOOTPRINT,
     )
 
     def validate(self, params: CoplanarParams) -> None:

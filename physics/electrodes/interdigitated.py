@@ -31,6 +31,7 @@ from typing import Any, ClassVar
 from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
+from elopt.physics.electrodes import metrics
 from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
@@ -104,18 +105,9 @@ class Interdigitated(ElectrodeFamily):
     Options: ClassVar[type] = InterdigitatedOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
         *pf.COMMON_METRICS,
-        MetricSpec(
-            "interior_cell_pF_per_m",
-            "pF/m",
-            "charge per finger / volt between neighbours, periodic interior",
-            "either",
-        ),
-        MetricSpec(
-            "end_cell_pF_per_m", "pF/m", "contribution of each outer cell per metre", "either"
-        ),
-        MetricSpec(
-            "footprint_width_mm", "mm", "width of the comb pair across the fingers", "minimize"
-        ),
+        metrics.PLANAR_INTERIOR_CELL,
+        metrics.PLANAR_END_CELL,
+        metrics.PLANAR_FOOTPRINT,
     )
 
     def validate(self, params: InterdigitatedParams) -> None:
