@@ -298,6 +298,7 @@ def _parse_tolerance(
     return parse_tolerances(
         as_table(table["tolerance"], "tolerance"),
         parameter_names=family.parameter_names(),
+        mounting_names=family.mounting_parameters(),
         directions=directions,
     )
 

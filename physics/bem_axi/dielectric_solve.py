@@ -489,7 +489,10 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
         )
 
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
-    refinement = refine(plan, opts, Convergence(PRIOR_RATIO, *floors))
+    convergence = Convergence(
+        capacitance_floor=floors[0], peak_floor=floors[1], prior_ratio=PRIOR_RATIO
+    )
+    refinement = refine(plan, opts, convergence)
     return DielectricSolution(layout, model, refinement, order)
 
 
