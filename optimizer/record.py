@@ -53,6 +53,11 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
             f"the peak field sits at a sharp corner of '{peak.conductor}': it is infinite in the "
             "exact solution and the value shown depends on the mesh; give the edges a fillet"
         )
+    notes = evaluation.extra.get("metric_notes", {})
+    for name, value in evaluation.metrics.items():
+        if not math.isfinite(value):
+            why = notes.get(name, "it is not a finite number for this design")
+            out.append(f"{name} is undefined (null): {why}")
     if not sol.accuracy_met:
         out.append(
             f"the solver stopped at an estimated relative error of {sol.rel_error_estimate:.2g}, "
@@ -95,7 +100,7 @@ def solve_record(
         "ground_plane": bool(layout.ground_plane),
         "capacitance_matrix_F": [[float(x) for x in row] for row in sol.capacitance_matrix_F],
         "charges_C": [float(q) for q in sol.charges_C],
-        "sense_capacitance_F": float(evaluation.extra["sense_capacitance_F"]),
+        "sense_capacitance_F": _json_number(evaluation.extra["sense_capacitance_F"]),
         "sense_capacitance_meaning": evaluation.extra.get("sense_capacitance_meaning", ""),
         "peak_surface_field_V_per_m": float(peak.field_V_per_m),
         "peak_location_m": [float(x) for x in peak.location_m],
@@ -112,4 +117,16 @@ def solve_record(
     record["metric_units"] = {m.name: m.unit for m in family.metrics}
     record["warnings"] = solve_warnings(spec, evaluation)
     record["caution"] = high_voltage_caution(drive_of(spec))
-    return record
+    return finite_only(record)
+
+
+def finite_only(value: Any) -> Any:
+    """``value`` with every non-finite float (in nested dicts and lists) replaced by None, so
+    that the record is strict JSON."""
+    if isinstance(value, float):
+        return _json_number(value)
+    if isinstance(value, dict):
+        return {k: finite_only(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [finite_only(v) for v in value]
+    return value

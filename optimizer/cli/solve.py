@@ -11,6 +11,7 @@ from elopt.optimizer.config.solve_config import read_solve_config
 from elopt.optimizer.record import solve_record
 from elopt.optimizer.report.solve_report import render_solve_report
 from elopt.physics.electrodes.registry import get_family
+from elopt.physics.errors import ElOptError
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -30,11 +31,14 @@ def run(args: argparse.Namespace) -> int:
     spec = read_solve_config(args.config)
     family = get_family(spec.family)
     kwargs = {} if spec.options is None else {"options": spec.options}
-    evaluation = family.evaluate(
-        spec.params, rel_accuracy=spec.rel_accuracy, eps_r=spec.eps_r, **kwargs
-    )
+    try:
+        evaluation = family.evaluate(
+            spec.params, rel_accuracy=spec.rel_accuracy, eps_r=spec.eps_r, **kwargs
+        )
+    except ElOptError as exc:  # refusals during the solve name the config too
+        raise type(exc)(f"{spec.path}: {exc}") from None
     if args.json:
-        print(json.dumps(solve_record(spec, family, evaluation), indent=2))
+        print(json.dumps(solve_record(spec, family, evaluation), indent=2, allow_nan=False))
     else:
         render_solve_report(Console(), spec, family, evaluation)
     return 0

@@ -42,6 +42,12 @@ from elopt.physics.errors import ElectrodeError
 #: about 3 kV/mm for centimetre gaps at 1 atm (common practice, no source).
 AIR_BREAKDOWN_V_PER_M = 3.0e6
 DEFAULT_REL_ACCURACY = 1e-4
+#: Largest relative permittivity of a medium: ferroelectric ceramics reach about 1e4
+#: (common practice, no source); beyond 1e5 the field values under- and overflow.
+MAX_EPS_R = 1e5
+#: Largest breakdown field a medium may be given (V/m): above any solid or vacuum gap
+#: (common practice, no source).
+MAX_BREAKDOWN_V_PER_M = 1e10
 TOP_KEYS = ("title", "geometry", "solver", "medium", "evaluation")
 
 
@@ -138,7 +144,7 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
         )
         medium = as_table(table.get("medium", {}), "medium")
         check_keys(medium, ("eps_r", "breakdown_field_V_per_m"), "medium")
-        eps_r = as_float(medium.get("eps_r", 1.0), "medium.eps_r", low=1.0)
+        eps_r = as_float(medium.get("eps_r", 1.0), "medium.eps_r", low=1.0, high=MAX_EPS_R)
     except ConfigError as exc:
         msg = str(exc)
         raise ConfigError(msg if msg.startswith(path) else f"{path}: {msg}") from None
@@ -148,6 +154,7 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
             f"{path}: medium.breakdown_field_V_per_m",
             low=0,
             low_open=True,
+            high=MAX_BREAKDOWN_V_PER_M,
         )
         source = "from [medium]"
     elif eps_r == 1.0:

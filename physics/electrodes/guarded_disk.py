@@ -22,12 +22,15 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.bem_axi.mesh import build_mesh
+from elopt.physics.bem_axi.solve import MAX_UNKNOWNS as AXI_MAX_UNKNOWNS
+from elopt.physics.bem_axi.solve import default_order, solve_axisymmetric
 from elopt.physics.electrodes import probe_metrics as probe
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
-from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
+from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
+from elopt.physics.errors import ElectrodeError
 from elopt.physics.geometry import Curve, rounded_polyline
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution
@@ -35,6 +38,9 @@ from elopt.physics.solution import ChargeSolution
 MM = 1e-3
 SENSOR = "sensor"
 GUARD = "guard"
+#: Most points of the target grid: ample for any probe whose standoff and size are within a
+#: factor of about a thousand of each other; beyond, the grid alone costs gigabytes.
+MAX_TARGET_POINTS = 100_000
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
 
@@ -103,15 +109,57 @@ def sensitivity_density_F_per_m3(solution: ChargeSolution, r_m: np.ndarray) -> n
     )
 
 
-def target_grid(p: GuardedDiskParams) -> np.ndarray:
-    """Radii (M,) in m on the target resolving the density (step d/8) and its far tail."""
+def _target_grid_args(p: GuardedDiskParams) -> tuple[float, float, float]:
+    """(fine step, fine extent, outer extent) in m of the target grid of ``p``."""
     d = p.standoff_mm * MM
     outer = outer_radius_mm(p) * MM
     fine_extent = outer + 6.0 * (d + p.recess_mm * MM)
     step = min(d, p.sensor_radius_mm * MM) / 8.0
     # Beyond the guard the density decays like r**-6 (two dipole-like factors): 50x the
     # fine extent leaves far less than 1e-6 of the integral out.
-    return radial_grid(step, fine_extent, 50.0 * fine_extent)
+    return step, fine_extent, 50.0 * fine_extent
+
+
+def target_grid(p: GuardedDiskParams) -> np.ndarray:
+    """Radii (M,) in m on the target resolving the density (step d/8) and its far tail."""
+    return radial_grid(*_target_grid_args(p))
+
+
+def _check_target_grid(rules: RuleBook, p: GuardedDiskParams) -> None:
+    """Refuse a design whose target grid (see :func:`target_grid`) would be too large."""
+    step, fine_extent, outer_extent = _target_grid_args(p)
+    n = radial_grid_size(step, fine_extent, outer_extent)
+    if n > MAX_TARGET_POINTS:
+        rules.broken.append(
+            f"standoff_mm = {p.standoff_mm:.6g} with sensor_radius_mm = {p.sensor_radius_mm:.6g} "
+            f"needs a target grid of {n:.3g} points (step min(standoff_mm, sensor_radius_mm) / 8 "
+            f"= {step / MM:.3g} mm out to {fine_extent / MM:.3g} mm); at most "
+            f"{MAX_TARGET_POINTS:g}: bring the standoff and the probe's size closer together"
+        )
+
+
+def _check_mesh_size(
+    p: GuardedDiskParams, layout: Layout, rel_accuracy: float, where: str = ""
+) -> None:
+    """Refuse before any solve a design whose coarsest mesh leaves the solver no room to refine.
+
+    Every solve (the nominal one and each linearity standoff) refines from level 0, doubling
+    the unknowns per level; when four times the level-0 count passes the solver's limit, each
+    would end at the limit after two levels, costing most of an hour for no error estimate
+    worth the name. The responsible parameter is the clearance smallest against the probe.
+    """
+    n0 = build_mesh(layout, 0, default_order(rel_accuracy)).n_nodes
+    if 4 * n0 <= AXI_MAX_UNKNOWNS:
+        return
+    outer = outer_radius_mm(p)
+    name = min(("guard_gap_mm", "standoff_mm"), key=lambda k: getattr(p, k))
+    value = getattr(p, name)
+    raise ElectrodeError(
+        f"guarded_disk: {name} = {value:.6g}{where} is {value / outer:.3g} of the outer radius "
+        f"{outer:.6g} mm; the coarsest mesh resolving it has {n0} unknowns and two refinements "
+        f"would need {4 * n0}, more than the solver's {AXI_MAX_UNKNOWNS}: widen {name} or shrink "
+        "the probe"
+    )
 
 
 def outer_radius_mm(p: GuardedDiskParams) -> float:
@@ -168,6 +216,7 @@ class GuardedDisk(ElectrodeFamily):
                 "thickness_mm",
                 "the sensor face must stay within the guard",
             )
+            _check_target_grid(rules, p)
         rules.raise_if_broken()
 
     def validate_options(self, options: GuardedDiskOptions) -> None:
@@ -187,6 +236,10 @@ class GuardedDisk(ElectrodeFamily):
 
     def build(self, params: GuardedDiskParams, *, eps_r: float = 1.0) -> Layout:
         self.validate(params)
+        return self._layout(params, eps_r)
+
+    @staticmethod
+    def _layout(params: GuardedDiskParams, eps_r: float) -> Layout:
         v = float(params.drive_V)
         return Layout(
             conductors=(
@@ -208,6 +261,15 @@ class GuardedDisk(ElectrodeFamily):
         options = options or GuardedDiskOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
+        _check_mesh_size(params, layout, rel_accuracy)
+        if options.linearity_points:
+            nearest = replace(
+                params, standoff_mm=params.standoff_mm * (1 - options.linearity_range_fraction)
+            )
+            where = (
+                " (the nearest linearity standoff, standoff_mm x (1 - linearity_range_fraction))"
+            )
+            _check_mesh_size(nearest, self._layout(nearest, eps_r), rel_accuracy, where)
         sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
         eps = layout.eps_F_per_m
         d = params.standoff_mm * MM
@@ -244,6 +306,10 @@ class GuardedDisk(ElectrodeFamily):
             "linearity_standoff_m": standoffs,
             "linearity_sense_capacitance_F": c_curve,
         }
+        if options.linearity_points == 0:
+            extra["metric_notes"] = {
+                "linearity_error_pct_fs": "evaluation.linearity_points = 0 skips the sweep"
+            }
         return Evaluation(metrics=metrics, solution=sol, extra=extra)
 
     def _standoff_sweep(
@@ -265,7 +331,7 @@ class GuardedDisk(ElectrodeFamily):
                 c_values[k] = sense_capacitance_F(nominal)
                 continue
             shifted = replace(params, standoff_mm=dk / MM)
-            sol = solve_axisymmetric(self.build(shifted, eps_r=eps_r), rel_accuracy=rel_accuracy)
+            sol = solve_axisymmetric(self._layout(shifted, eps_r), rel_accuracy=rel_accuracy)
             c_values[k] = sense_capacitance_F(sol)
         return standoffs, c_values
 

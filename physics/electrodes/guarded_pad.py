@@ -26,6 +26,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from elopt.physics.bem3d import solve_3d
+from elopt.physics.bem3d.solve import MAX_PANELS
 from elopt.physics.bem3d.surfaces import (
     BoxSurface,
     FrameSheetSurface,
@@ -85,6 +86,35 @@ def mesh_step_m(p: GuardedPadParams, options: GuardedPadOptions) -> float:
         return options.mesh_step_mm * MM
     return MM * min(
         0.25 * min(p.pad_length_mm, p.pad_width_mm), p.guard_width_mm, 2.0 * p.standoff_mm
+    )
+
+
+def panel_size_source(p: GuardedPadParams, options: GuardedPadOptions) -> str:
+    """Which input sets the level-0 panel size (see :func:`mesh_step_m`), as text."""
+    if options.mesh_step_mm > 0:
+        return f"evaluation.mesh_step_mm = {options.mesh_step_mm:.6g}"
+    candidates = (
+        ("min(pad_length_mm, pad_width_mm) / 4", 0.25 * min(p.pad_length_mm, p.pad_width_mm)),
+        ("guard_width_mm", p.guard_width_mm),
+        ("2 x standoff_mm", 2.0 * p.standoff_mm),
+    )
+    formula, value = min(candidates, key=lambda c: c[1])
+    return f"the automatic panel size {formula} = {value:.6g} mm"
+
+
+def check_mesh_size(layout: Layout, p: GuardedPadParams, options: GuardedPadOptions) -> None:
+    """Refuse, before any meshing, a layout whose coarsest mesh the 3-D solver cannot take."""
+    panels = sum(c.shape.estimated_panels(0) for c in layout.conductors)
+    if panels <= MAX_PANELS:
+        return
+    ox, oy = outer_size_mm(p)
+    h_mm = mesh_step_m(p, options) / MM
+    need_mm = h_mm * math.sqrt(panels / MAX_PANELS) if math.isfinite(panels) else math.inf
+    raise ElectrodeError(
+        f"guarded_pad: {panel_size_source(p, options)} over an outer size of {ox:.6g} x "
+        f"{oy:.6g} mm makes about {panels:.3g} panels at the coarsest level; the 3-D solver "
+        f"takes at most {MAX_PANELS:g}: give evaluation.mesh_step_mm >= {need_mm:.3g} or "
+        "bring the sizes closer together"
     )
 
 
@@ -224,6 +254,7 @@ class GuardedPad(ElectrodeFamily):
         options = options or GuardedPadOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r, options=options)
+        check_mesh_size(layout, params, options)
         try:
             sol = solve_3d(
                 layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False

@@ -201,8 +201,8 @@ class MeshFile(ElectrodeFamily):
         peak = sol.peak_field
         nan = float("nan")
         sens = tilt = spot = nan
-        driven_all = not any(cd.floating for cd in layout.conductors)
-        if layout.ground_plane and driven_all and layout.applied_field_V_per_m == 0 and v0 != 0:
+        notes = _undefined_metric_notes(layout, v0)
+        if not notes.get("sensitivity_fF_per_um"):
             volts = sol.potentials_V / v0
             sens = float(sol.plane_capacitance_derivative_F_per_m()[0] @ volts) * FF_PER_UM
             tilt = float(sol.plane_tilt_derivative_F_per_rad()[0] @ volts) * FF_PER_MRAD
@@ -227,8 +227,40 @@ class MeshFile(ElectrodeFamily):
             "sense_capacitance_meaning": f"Q / V of the first conductor '{first.name}' at the drive",
             "peak_conductor": peak.conductor,
             "peak_singular": bool(peak.singular),
+            "metric_notes": {k: v for k, v in notes.items() if v},
         }
         return Evaluation(metrics=metrics, solution=sol, extra=extra)
+
+
+def _undefined_metric_notes(layout: Layout, v0: float) -> dict[str, str]:
+    """Why a metric is undefined for ``layout`` (metric name -> reason; "" when defined).
+
+    ``v0`` is the first conductor's potential (V), solved for when it floats.
+    """
+    first = layout.conductors[0]
+    if first.floating:
+        sense = (
+            f"the first conductor '{first.name}' floats: its charge is fixed, so Q / V is no "
+            "sense capacitance; give it a potential_V"
+        )
+    elif v0 == 0:
+        sense = f"the first conductor '{first.name}' is at 0 V: Q / V is undefined"
+    else:
+        sense = ""
+    if not layout.ground_plane:
+        plane = "the layout has no ground plane (ground_plane = true) to move or tilt"
+    elif any(c.floating for c in layout.conductors):
+        plane = "a floating conductor's potential changes with the plane; drive every conductor"
+    elif layout.applied_field_V_per_m != 0:
+        plane = "an applied field is present"
+    else:
+        plane = sense
+    return {
+        "sense_capacitance_fF": sense,
+        "sensitivity_fF_per_um": plane,
+        "tilt_sensitivity_fF_per_mrad": plane,
+        "spot_radius_90_mm": plane,
+    }
 
 
 __all__ = ["MeshConductorSpec", "MeshFile", "MeshFileOptions", "MeshFileParams"]
