@@ -216,7 +216,8 @@ class GuardedDisk(ElectrodeFamily):
                 "thickness_mm",
                 "the sensor face must stay within the guard",
             )
-            _check_target_grid(rules, p)
+            if not rules.broken:  # the grid's size needs the lengths to be valid
+                _check_target_grid(rules, p)
         rules.raise_if_broken()
 
     def validate_options(self, options: GuardedDiskOptions) -> None:
