@@ -281,7 +281,7 @@ def resolve_family(ref: str, *, key: str = "family") -> ElectrodeFamily:
         module_name, _, attr = ref.partition(":")
         try:
             obj = getattr(importlib.import_module(module_name), attr)
-        except (ImportError, AttributeError) as exc:
+        except (ImportError, AttributeError, ValueError) as exc:
             raise ConfigError(f"{key}: cannot load {ref!r} ({exc})") from None
         if isinstance(obj, type):
             if not issubclass(obj, ElectrodeFamily):
