@@ -26,7 +26,6 @@ from typing import Any, ClassVar
 import numpy as np
 
 from elopt.physics.bem3d import solve_3d
-from elopt.physics.bem3d.solve import MAX_PANELS
 from elopt.physics.bem3d.surfaces import (
     BoxSurface,
     FrameSheetSurface,
@@ -44,6 +43,7 @@ from elopt.physics.electrodes.target_tilt import (
 )
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
+from elopt.physics.refinement import SolveOptions
 
 MM = 1e-3
 SENSOR = "sensor"
@@ -104,16 +104,17 @@ def panel_size_source(p: GuardedPadParams, options: GuardedPadOptions) -> str:
 
 def check_mesh_size(layout: Layout, p: GuardedPadParams, options: GuardedPadOptions) -> None:
     """Refuse, before any meshing, a layout whose coarsest mesh the 3-D solver cannot take."""
+    max_panels = SolveOptions().max_unknowns
     panels = sum(c.shape.estimated_panels(0) for c in layout.conductors)
-    if panels <= MAX_PANELS:
+    if panels <= max_panels:
         return
     ox, oy = outer_size_mm(p)
     h_mm = mesh_step_m(p, options) / MM
-    need_mm = h_mm * math.sqrt(panels / MAX_PANELS) if math.isfinite(panels) else math.inf
+    need_mm = h_mm * math.sqrt(panels / max_panels) if math.isfinite(panels) else math.inf
     raise ElectrodeError(
         f"guarded_pad: {panel_size_source(p, options)} over an outer size of {ox:.6g} x "
         f"{oy:.6g} mm makes about {panels:.3g} panels at the coarsest level; the 3-D solver "
-        f"takes at most {MAX_PANELS:g}: give evaluation.mesh_step_mm >= {need_mm:.3g} or "
+        f"takes at most {max_panels:g}: give evaluation.mesh_step_mm >= {need_mm:.3g} or "
         "bring the sizes closer together"
     )
 
