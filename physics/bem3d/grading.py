@@ -82,7 +82,9 @@ def interval_node_count(
     if fillet <= 0:
         return float(_sharp_steps(length, h, grade) * steps + 1)
     _, n_arc, n_mid, _ = _fillet_plan(length, h, fillet)
-    return float(2 * (n_arc * steps + 1) + (n_mid * steps + 1 if n_mid else 0))
+    strips = 2 * (n_arc * steps + 1)
+    # The strips share their inner ends with the middle part (or with each other).
+    return float(strips + n_mid * steps - 1 if n_mid else strips - 1)
 
 
 def axis_node_count(
