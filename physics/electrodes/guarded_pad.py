@@ -103,19 +103,20 @@ def panel_size_source(p: GuardedPadParams, options: GuardedPadOptions) -> str:
 
 
 def check_mesh_size(layout: Layout, p: GuardedPadParams, options: GuardedPadOptions) -> None:
-    """Refuse, before any meshing, a layout whose coarsest mesh the 3-D solver cannot take."""
+    """Refuse, before any meshing, a layout whose first error estimate the 3-D solver cannot
+    reach: it needs level 1, four times the (estimated, slightly high) level-0 panels."""
     max_panels = SolveOptions().max_unknowns
-    panels = sum(c.shape.estimated_panels(0) for c in layout.conductors)
-    if panels <= max_panels:
+    level1 = 4.0 * sum(c.shape.estimated_panels(0) for c in layout.conductors)
+    if level1 <= max_panels:
         return
     ox, oy = outer_size_mm(p)
     h_mm = mesh_step_m(p, options) / MM
-    need_mm = h_mm * math.sqrt(panels / max_panels) if math.isfinite(panels) else math.inf
+    need_mm = h_mm * math.sqrt(level1 / max_panels) if math.isfinite(level1) else math.inf
     raise ElectrodeError(
         f"guarded_pad: {panel_size_source(p, options)} over an outer size of {ox:.6g} x "
-        f"{oy:.6g} mm makes about {panels:.3g} panels at the coarsest level; the 3-D solver "
-        f"takes at most {max_panels:g}: give evaluation.mesh_step_mm >= {need_mm:.3g} or "
-        "bring the sizes closer together"
+        f"{oy:.6g} mm makes about {level1:.3g} panels at level 1, which the error estimate "
+        f"needs; the 3-D solver takes at most {max_panels:g}: give evaluation.mesh_step_mm >= "
+        f"{need_mm:.3g} or bring the sizes closer together"
     )
 
 

@@ -26,8 +26,11 @@ def _grid_counts(
 
 def radial_grid_size(
     fine_step_m: float, fine_extent_m: float, outer_extent_m: float, growth: float = 1.08
-) -> int:
-    """Number of radii :func:`radial_grid` returns for these arguments (nothing allocated)."""
+) -> float:
+    """Number of radii :func:`radial_grid` returns for these arguments (nothing allocated);
+    inf when the steps under- or overflow."""
+    if not (fine_step_m > 0 and fine_extent_m / fine_step_m < 1e15):
+        return math.inf
     n_fine, n_outer = _grid_counts(fine_step_m, fine_extent_m, outer_extent_m, growth)
     return n_fine + 1 + n_outer
 
