@@ -35,6 +35,7 @@ from elopt.physics.electrodes.guarded_disk import (
 )
 from elopt.physics.electrodes.guarded_pad import GuardedPad, GuardedPadParams
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size
+from elopt.physics.electrodes.uniform_field import UniformField, UniformFieldParams
 from elopt.physics.errors import ElectrodeError, GeometryError, SolverError
 
 DISK = base_solve_configs()["guarded_disk"]
@@ -219,7 +220,7 @@ def test_a_nanometre_guard_gap_is_refused_before_any_solve():
         GuardedDisk().evaluate(p, rel_accuracy=1e-3)
     assert time.perf_counter() - t0 < 20.0  # one level-0 mesh, no solve
     msg = str(info.value)
-    assert "guard_gap_mm = 1e-06" in msg and "unknowns" in msg and "3000" in msg
+    assert "guard_gap_mm = 1e-06" in msg and "5576 unknowns, more than 3000" in msg
 
 
 def test_the_nearest_linearity_standoff_is_checked_too():
@@ -359,3 +360,9 @@ def test_warnings_before_a_refusal_stay_off_the_error_line(capsys, monkeypatch, 
     monkeypatch.setattr(solve_cli, "run", noisy)
     code, _, err = _cli(capsys, "solve", str(tmp_path / "x.toml"))
     assert _one_line_refusal(code, err) == f"elopt: error: {tmp_path / 'x.toml'}: refused"
+
+
+def test_a_uniform_field_gap_far_below_the_electrode_size_is_refused_before_any_solve():
+    p = UniformFieldParams(1e-6, 20.0, 60.0, 20.0, 50.0, 300.0)
+    with pytest.raises(ElectrodeError, match=r"gap_mm = 1e-06 is .* more than 3000"):
+        UniformField().evaluate(p, rel_accuracy=1e-2)

@@ -22,14 +22,13 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import build_mesh
-from elopt.physics.bem_axi.solve import default_order, solve_axisymmetric
+from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.electrodes import probe_metrics as probe
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.cost import check_coarse_mesh
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
-from elopt.physics.errors import ElectrodeError
 from elopt.physics.geometry import Curve, rounded_polyline
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution
@@ -40,8 +39,6 @@ GUARD = "guard"
 #: Most points of the target grid: ample for any probe whose standoff and size are within a
 #: factor of about a thousand of each other; beyond, the grid alone costs gigabytes.
 MAX_TARGET_POINTS = 100_000
-#: Most unknowns of the coarsest mesh of one solve (see :func:`_check_mesh_size`).
-MAX_COARSE_UNKNOWNS = 3_000
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
 
@@ -142,25 +139,17 @@ def _check_target_grid(rules: RuleBook, p: GuardedDiskParams) -> None:
 def _check_mesh_size(
     p: GuardedDiskParams, layout: Layout, rel_accuracy: float, where: str = ""
 ) -> None:
-    """Refuse before any solve a design whose coarsest mesh is already too large.
-
-    Every solve (the nominal one and each linearity standoff) refines from level 0, doubling
-    the unknowns per level; the error estimate needs at least level 1 and usually level 2.
-    Above :data:`MAX_COARSE_UNKNOWNS` at level 0, level 2 passes 4 x 3,000 = 12,000 unknowns,
-    a dense solve of minutes and several GB, once per standoff. The clearance smallest
-    against the probe is what forces the fine mesh: it is named.
-    """
-    n0 = build_mesh(layout, 0, default_order(rel_accuracy)).n_nodes
-    if n0 <= MAX_COARSE_UNKNOWNS:
-        return
+    """Refuse before any solve a design whose coarsest mesh is too large (see
+    :mod:`.cost`); the clearance smallest against the probe is what forces it."""
     outer = outer_radius_mm(p)
     name = min(("guard_gap_mm", "standoff_mm"), key=lambda k: getattr(p, k))
     value = getattr(p, name)
-    raise ElectrodeError(
-        f"guarded_disk: {name} = {value:.6g}{where} is {value / outer:.3g} of the outer radius "
-        f"{outer:.6g} mm; the coarsest mesh resolving it has {n0} unknowns, more than "
-        f"{MAX_COARSE_UNKNOWNS} (each refinement doubles them, for every linearity standoff): "
-        f"widen {name} or shrink the probe"
+    check_coarse_mesh(
+        layout,
+        rel_accuracy,
+        "guarded_disk",
+        f"{name} = {value:.6g}{where} is {value / outer:.3g} of the outer radius {outer:.6g} mm",
+        f"widen {name} or shrink the probe",
     )
 
 

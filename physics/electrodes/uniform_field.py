@@ -29,6 +29,7 @@ import numpy as np
 
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.cost import check_coarse_mesh
 from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.layout import Layout, driven
@@ -172,8 +173,17 @@ class UniformField(ElectrodeFamily):
         options = options or UniformFieldOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
         r_out = overall_radius_m(params)
+        gap = params.gap_mm
+        check_coarse_mesh(
+            layout,
+            rel_accuracy,
+            self.name,
+            f"gap_mm = {gap:.6g} is {gap * MM / r_out:.3g} of the overall radius "
+            f"{r_out / MM:.6g} mm",
+            "widen gap_mm or shrink flat_radius_mm",
+        )
+        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
         radius, r_profile, e_profile = uniform_radius_m(
             sol, 1.5 * r_out, options.uniform_tolerance_pct / 100.0
         )
