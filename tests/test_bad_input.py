@@ -12,6 +12,7 @@ import os
 import time
 import warnings
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -366,3 +367,16 @@ def test_a_uniform_field_gap_far_below_the_electrode_size_is_refused_before_any_
     p = UniformFieldParams(1e-6, 20.0, 60.0, 20.0, 50.0, 300.0)
     with pytest.raises(ElectrodeError, match=r"gap_mm = 1e-06 is .* more than 3000"):
         UniformField().evaluate(p, rel_accuracy=1e-2)
+
+
+def test_mesh_files_too_fine_for_an_error_estimate_are_refused_naming_the_file(
+    tmp_path, monkeypatch
+):
+    import elopt.physics.electrodes.mesh_file as mesh_file
+
+    # the solver's limit made small for the 32-triangle octahedron of the fixture
+    monkeypatch.setattr(mesh_file, "SolveOptions", lambda: SimpleNamespace(max_unknowns=100))
+    cfg = _mesh_file_config(tmp_path, "potential_V = 1.0")
+    spec = read_solve_config(cfg)
+    with pytest.raises(ElectrodeError, match=r"'tip' \(tip.stl\) has 32 triangles.* 128 panels"):
+        mesh_file.MeshFile().evaluate(spec.params, rel_accuracy=1e-2, options=spec.options)

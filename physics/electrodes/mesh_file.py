@@ -35,6 +35,7 @@ from elopt.physics.electrodes.guarded_pad import spot_radius_m
 from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Conductor, Layout
+from elopt.physics.refinement import SolveOptions
 
 MM = 1e-3
 CONDUCTOR_KEYS = ("name", "file", "length_unit", "potential_V", "charge_C", "closed")
@@ -188,6 +189,7 @@ class MeshFile(ElectrodeFamily):
         options = options or MeshFileOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
+        _check_mesh_size(layout, params)
         try:
             sol = solve_3d(
                 layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False
@@ -230,6 +232,23 @@ class MeshFile(ElectrodeFamily):
             "metric_notes": {k: v for k, v in notes.items() if v},
         }
         return Evaluation(metrics=metrics, solution=sol, extra=extra)
+
+
+def _check_mesh_size(layout: Layout, params: MeshFileParams) -> None:
+    """Refuse meshes whose level 1 (needed for the error estimate: each triangle split in
+    four) passes the 3-D solver's limit, naming the largest file."""
+    max_panels = SolveOptions().max_unknowns
+    counts = [c.shape.estimated_panels(0) for c in layout.conductors]
+    if 4 * sum(counts) <= max_panels:
+        return
+    k = int(np.argmax(counts))
+    spec = params.conductors[k]
+    raise ElectrodeError(
+        f"mesh_file: conductors[{k}] '{spec.name}' ({Path(spec.file).name}) has "
+        f"{counts[k]:.0f} triangles; all conductors make {4 * sum(counts):.0f} panels at level 1, "
+        f"which the error estimate needs, and the 3-D solver takes at most {max_panels}: "
+        "export coarser meshes"
+    )
 
 
 def _undefined_metric_notes(layout: Layout, v0: float) -> dict[str, str]:
