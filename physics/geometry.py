@@ -170,7 +170,7 @@ class Curve:
             raise GeometryError("curve: needs at least one piece")
         size = self.size
         tol = JOIN_TOLERANCE * max(size, 1e-300)
-        for i, p in enumerate(self.pieces):
+        for p in self.pieces:
             if p.length <= tol:
                 raise GeometryError(
                     f"curve: a {type(p).__name__.lower()} near {format_point(p.start)} is "

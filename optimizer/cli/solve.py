@@ -31,6 +31,8 @@ def run(args: argparse.Namespace) -> int:
     spec = read_solve_config(args.config)
     family = get_family(spec.family)
     kwargs = {} if spec.options is None else {"options": spec.options}
+    if spec.peak_rel_accuracy is not None:
+        kwargs["peak_rel_accuracy"] = spec.peak_rel_accuracy
     try:
         evaluation = family.evaluate(
             spec.params, rel_accuracy=spec.rel_accuracy, eps_r=spec.eps_r, **kwargs

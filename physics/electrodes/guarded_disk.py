@@ -247,13 +247,15 @@ class GuardedDisk(ElectrodeFamily):
         params: GuardedDiskParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: GuardedDiskOptions | None = None,
     ) -> Evaluation:
         options = options or GuardedDiskOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
-        _check_mesh_size(params, layout, rel_accuracy)
+        tightest = min(rel_accuracy, peak_rel_accuracy or 1.0)
+        _check_mesh_size(params, layout, tightest)
         if options.linearity_points:
             nearest = replace(
                 params, standoff_mm=params.standoff_mm * (1 - options.linearity_range_fraction)
@@ -261,8 +263,10 @@ class GuardedDisk(ElectrodeFamily):
             where = (
                 " (the nearest linearity standoff, standoff_mm x (1 - linearity_range_fraction))"
             )
-            _check_mesh_size(nearest, self._layout(nearest, eps_r), rel_accuracy, where)
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
+            _check_mesh_size(nearest, self._layout(nearest, eps_r), tightest, where)
+        sol = solve_axisymmetric(
+            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
+        )
         eps = layout.eps_F_per_m
         d = params.standoff_mm * MM
         c_sense = sense_capacitance_F(sol)

@@ -250,6 +250,7 @@ class GuardedPad(ElectrodeFamily):
         params: GuardedPadParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: GuardedPadOptions | None = None,
     ) -> Evaluation:
@@ -259,7 +260,11 @@ class GuardedPad(ElectrodeFamily):
         check_mesh_size(layout, params, options)
         try:
             sol = solve_3d(
-                layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False
+                layout,
+                rel_accuracy=rel_accuracy,
+                peak_rel_accuracy=peak_rel_accuracy,
+                max_level=options.max_level,
+                strict=False,
             )
         except GeometryError as exc:
             raise ElectrodeError(f"{self.name}: {exc}") from None

@@ -167,6 +167,7 @@ class UniformField(ElectrodeFamily):
         params: UniformFieldParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: UniformFieldOptions | None = None,
     ) -> Evaluation:
@@ -177,13 +178,15 @@ class UniformField(ElectrodeFamily):
         gap = params.gap_mm
         check_coarse_mesh(
             layout,
-            rel_accuracy,
+            min(rel_accuracy, peak_rel_accuracy or 1.0),
             self.name,
             f"gap_mm = {gap:.6g} is {gap * MM / r_out:.3g} of the overall radius "
             f"{r_out / MM:.6g} mm",
             "widen gap_mm or shrink flat_radius_mm",
         )
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
+        sol = solve_axisymmetric(
+            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
+        )
         radius, r_profile, e_profile = uniform_radius_m(
             sol, 1.5 * r_out, options.uniform_tolerance_pct / 100.0
         )
