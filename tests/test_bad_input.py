@@ -380,3 +380,17 @@ def test_mesh_files_too_fine_for_an_error_estimate_are_refused_naming_the_file(
     spec = read_solve_config(cfg)
     with pytest.raises(ElectrodeError, match=r"'tip' \(tip.stl\) has 32 triangles.* 128 panels"):
         mesh_file.MeshFile().evaluate(spec.params, rel_accuracy=1e-2, options=spec.options)
+
+
+def test_a_geometry_error_the_rules_missed_names_the_family_parameters(monkeypatch):
+    import elopt.physics.electrodes.guarded_disk as guarded_disk
+
+    def broken(p):
+        raise GeometryError("sensor: fillets of radius 0.001 m overlap on the edge ...")
+
+    monkeypatch.setattr(guarded_disk, "sensor_curve", broken)
+    with pytest.raises(ElectrodeError) as info:
+        GuardedDisk().build(DISK_PARAMS)
+    msg = str(info.value)
+    assert msg.startswith("guarded_disk: sensor_radius_mm = 2, guard_gap_mm = 0.2,")
+    assert msg.endswith("fillets of radius 0.001 m overlap on the edge ...")

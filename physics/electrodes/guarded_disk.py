@@ -16,6 +16,7 @@ sensitivity density; the radius holding 90 % of it is the probe's spot radius.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, replace
 from typing import Any, ClassVar
@@ -29,6 +30,7 @@ from elopt.physics.electrodes.cost import check_coarse_mesh
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
+from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.geometry import Curve, rounded_polyline
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution
@@ -228,7 +230,11 @@ class GuardedDisk(ElectrodeFamily):
 
     def build(self, params: GuardedDiskParams, *, eps_r: float = 1.0) -> Layout:
         self.validate(params)
-        return self._layout(params, eps_r)
+        try:
+            return self._layout(params, eps_r)
+        except GeometryError as exc:  # a relation the rules missed: name the parameters
+            given = ", ".join(f"{k} = {v:.6g}" for k, v in dataclasses.asdict(params).items())
+            raise ElectrodeError(f"{self.name}: {given}: {exc}") from None
 
     @staticmethod
     def _layout(params: GuardedDiskParams, eps_r: float) -> Layout:

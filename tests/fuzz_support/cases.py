@@ -370,6 +370,14 @@ def solve_mutation(c: Chooser) -> Case:
     return _solve_case("solve-mutation", f"{family}: " + "; ".join(done), table)
 
 
+def _flipped(c: Chooser, raw: bytes, most: int) -> bytes:
+    """``raw`` with one to ``most`` bytes overwritten at random places."""
+    b = bytearray(raw)
+    for _ in range(c.integer(1, most)):
+        b[c.integer(0, len(b) - 1)] = c.integer(0, 255)
+    return bytes(b)
+
+
 def damaged_bytes(c: Chooser) -> Case:
     """A config file damaged on disk, saved in a foreign encoding, or not a file at all."""
     table = base_solve_configs()["guarded_disk"]
@@ -404,10 +412,7 @@ def damaged_bytes(c: Chooser) -> Case:
     elif how == "truncated":
         data = raw[: c.integer(0, len(raw) - 1)]
     elif how == "flipped":
-        b = bytearray(raw)
-        for _ in range(c.integer(1, 4)):
-            b[c.integer(0, len(b) - 1)] = c.integer(0, 255)
-        data = bytes(b)
+        data = _flipped(c, raw, 4)
     elif how == "nul":
         k = c.integer(0, len(raw))
         data = raw[:k] + b"\0" + raw[k:]
@@ -453,10 +458,7 @@ def damaged_mesh(c: Chooser) -> Case:
     elif how == "truncated":
         data = good[: c.integer(0, len(good) - 1)]
     elif how == "flipped":
-        b = bytearray(good)
-        for _ in range(c.integer(1, 6)):
-            b[c.integer(0, len(b) - 1)] = c.integer(0, 255)
-        data = bytes(b)
+        data = _flipped(c, good, 6)
     elif how == "header-count":
         data = good[:80] + struct.pack("<I", c.choice((0, 1, 31, 33, 2**31))) + good[84:]
     elif how == "ascii-bad":
