@@ -221,7 +221,7 @@ def test_a_nanometre_guard_gap_is_refused_before_any_solve():
         GuardedDisk().evaluate(p, rel_accuracy=1e-3)
     assert time.perf_counter() - t0 < 20.0  # one level-0 mesh, no solve
     msg = str(info.value)
-    assert "guard_gap_mm = 1e-06" in msg and "5576 unknowns, more than 3000" in msg
+    assert "guard_gap_mm = 1e-06" in msg and "5576 unknowns, more than 2000" in msg
 
 
 def test_the_nearest_linearity_standoff_is_checked_too():
@@ -365,7 +365,7 @@ def test_warnings_before_a_refusal_stay_off_the_error_line(capsys, monkeypatch, 
 
 def test_a_uniform_field_gap_far_below_the_electrode_size_is_refused_before_any_solve():
     p = UniformFieldParams(1e-6, 20.0, 60.0, 20.0, 50.0, 300.0)
-    with pytest.raises(ElectrodeError, match=r"gap_mm = 1e-06 is .* more than 3000"):
+    with pytest.raises(ElectrodeError, match=r"gap_mm = 1e-06 is .* more than 2000"):
         UniformField().evaluate(p, rel_accuracy=1e-2)
 
 
@@ -394,3 +394,12 @@ def test_a_geometry_error_the_rules_missed_names_the_family_parameters(monkeypat
     msg = str(info.value)
     assert msg.startswith("guarded_disk: sensor_radius_mm = 2, guard_gap_mm = 0.2,")
     assert msg.endswith("fillets of radius 0.001 m overlap on the edge ...")
+
+
+@pytest.mark.parametrize("drive_V", [5e-324, 1e-9, -2e7, 1e300])
+def test_a_drive_voltage_outside_its_range_is_refused(drive_V):
+    p = UniformFieldParams(12.0, 20.0, 60.0, 20.0, 50.0, drive_V)
+    with pytest.raises(
+        ElectrodeError, match=r"drive_V = .* must have a magnitude in \[1e-06, 1e\+07\] V"
+    ):
+        UniformField().validate(p)

@@ -192,7 +192,7 @@ class GuardedDisk(ElectrodeFamily):
                 "sensor_radius_mm", "guard_gap_mm", "guard_width_mm", "thickness_mm", "standoff_mm"
             )
             rules.non_negative("fillet_mm", "recess_mm")
-            rules.nonzero("drive_V")
+            rules.drive("drive_V")
             p = params
             why = "fillets on one face must not overlap"
             rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)

@@ -191,7 +191,7 @@ class GuardedPad(ElectrodeFamily):
                 "pad_length_mm", "pad_width_mm", "guard_gap_mm", "guard_width_mm", "standoff_mm"
             )
             rules.non_negative("thickness_mm", "fillet_mm")
-            rules.nonzero("drive_V")
+            rules.drive("drive_V")
             why = "fillets on one face must not overlap"
             rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)
             rules.at_most("fillet_mm", p.guard_width_mm / 2, "guard_width_mm / 2", why)

@@ -13,6 +13,11 @@ from typing import Any
 
 from elopt.physics.errors import ElectrodeError
 
+#: Magnitudes a drive voltage may have (V): from a microvolt, below which the fields leave
+#: the range of the arithmetic, to 10 MV, beyond any electrode elopt designs (common
+#: practice, no source).
+DRIVE_RANGE_V = (1e-6, 1e7)
+
 
 def _fmt(value: float) -> str:
     return f"{value:.6g}"
@@ -58,6 +63,15 @@ class RuleBook:
         v = self.value(name)
         if v == 0:
             self.broken.append(f"{name} = {_fmt(v)} must be nonzero")
+
+    def drive(self, name: str) -> None:
+        """A drive voltage: nonzero, its magnitude within :data:`DRIVE_RANGE_V`."""
+        v = self.value(name)
+        low, high = DRIVE_RANGE_V
+        if v == 0:
+            self.nonzero(name)
+        elif not low <= abs(v) <= high:
+            self.broken.append(f"{name} = {_fmt(v)} must have a magnitude in [{low:g}, {high:g}] V")
 
     def at_most(self, name: str, limit: float, limit_text: str, why: str) -> None:
         """Record ``name <= limit`` broken; ``limit_text`` says how the limit is formed."""

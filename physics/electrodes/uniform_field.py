@@ -119,7 +119,7 @@ class UniformField(ElectrodeFamily):
         if rules.finite():
             rules.positive("gap_mm", "flat_radius_mm", "edge_radius_mm", "back_thickness_mm")
             rules.non_negative("blend_length_mm")
-            rules.nonzero("drive_V")
+            rules.drive("drive_V")
             if not rules.broken:
                 p = params
                 rules.below(
