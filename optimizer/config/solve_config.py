@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from elopt.optimizer.config.toml_tools import (
+    MAX_EPS_R,
     as_float,
     as_int,
     as_table,
@@ -43,9 +44,6 @@ from elopt.physics.errors import ElectrodeError
 #: about 3 kV/mm for centimetre gaps at 1 atm (common practice, no source).
 AIR_BREAKDOWN_V_PER_M = 3.0e6
 DEFAULT_REL_ACCURACY = 1e-4
-#: Largest relative permittivity of a medium: ferroelectric ceramics reach about 1e4
-#: (common practice, no source); beyond 1e5 the field values under- and overflow.
-MAX_EPS_R = 1e5
 #: Largest breakdown field a medium may be given (V/m): above any solid or vacuum gap
 #: (common practice, no source).
 MAX_BREAKDOWN_V_PER_M = 1e10

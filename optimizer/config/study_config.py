@@ -55,8 +55,8 @@ from typing import Any, Literal
 
 import numpy as np
 
-from elopt.optimizer.config.solve_config import MAX_EPS_R
 from elopt.optimizer.config.toml_tools import (
+    MAX_EPS_R,
     as_choice,
     as_float,
     as_int,

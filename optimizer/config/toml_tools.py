@@ -16,6 +16,10 @@ from typing import Any
 
 from elopt.optimizer.errors import ConfigError
 
+#: Largest relative permittivity of a medium (solve and study configs): ferroelectric
+#: ceramics reach about 1e4 (common practice, no source); beyond 1e5 the field values under-
+#: and overflow.
+MAX_EPS_R = 1e5
 #: Largest config file read (bytes): a config is a page of text; anything bigger is a mistake.
 MAX_CONFIG_BYTES = 1_000_000
 #: Deepest nesting of tables and arrays a config may use (the formats need three or four).
