@@ -1,5 +1,5 @@
 """Reference quadrature on [-1, 1]: Gauss-Legendre nodes, logarithmic product weights,
-Lagrange interpolation, and geometrically graded sub-rules for near-singular integrands.
+and Lagrange interpolation.
 
 The boundary-element panels all map to the reference interval, so everything here is computed
 once per panel order ``p`` and cached.
@@ -81,39 +81,3 @@ def barycentric_weights(p: int) -> np.ndarray:
     d = x[:, None] - x[None, :]
     np.fill_diagonal(d, 1.0)
     return 1.0 / d.prod(axis=1)
-
-
-def graded_rule(
-    t_near: np.ndarray, levels: np.ndarray, q: int, max_levels: int, open_inner: bool = False
-):
-    """Sub-rules on [-1, 1] graded geometrically (ratio 2) towards a point on each side.
-
-    For each of B cases, ``t_near[b]`` in [-1, 1] is the parameter nearest a singular point
-    and ``levels[b] <= max_levels`` the number of sub-intervals per side; the innermost one
-    runs to the point itself. Returns nodes and weights of shape (B, 2 * (max_levels + 1) * q);
-    unused sub-intervals have zero length, hence zero weight, so all cases share one shape.
-    With ``open_inner`` the two innermost sub-intervals are left out and their lengths are
-    returned as a third array (B, 2): [towards +1, towards -1].
-    """
-    xg, wg = gauss_legendre(q)
-    k = np.arange(max_levels + 1)[None, :]
-    lv = np.asarray(levels)[:, None]
-    inner = k == lv - 1
-    frac_hi = np.where(k < lv, 2.0 ** (-k), 0.0)
-    frac_lo = np.where(k < lv - 1, 2.0 ** (-(k + 1)), 0.0)
-    if open_inner:
-        frac_hi = np.where(inner, 0.0, frac_hi)
-    tc = np.asarray(t_near, dtype=float)[:, None]
-    nodes, weights, inner_len = [], [], []
-    for side, span in ((1.0, 1.0 - tc), (-1.0, tc + 1.0)):
-        a = tc + side * span * frac_lo
-        b = tc + side * span * frac_hi
-        mid, half = 0.5 * (a + b), 0.5 * (b - a)
-        nodes.append(mid[..., None] + half[..., None] * xg)
-        weights.append(np.abs(half)[..., None] * wg)
-        inner_len.append(span[:, 0] * 2.0 ** (-(lv[:, 0] - 1.0)))
-    n = np.concatenate(nodes, axis=1).reshape(len(tc), -1)
-    w = np.concatenate(weights, axis=1).reshape(len(tc), -1)
-    if open_inner:
-        return n, w, np.stack(inner_len, axis=1)
-    return n, w

@@ -342,7 +342,7 @@ def case_sphere_above_plane_3d() -> list[CheckResult]:
     """3-D panels: sphere R = 1 m, centre 1.5 m above a grounded plane."""
     src = "image series, Smythe, Static and Dynamic Electricity ch. 5 (docs/references.md item 6)"
     curve = sphere(1.0, 1.5)
-    layout = Layout((driven("sphere", RevolvedSurface(curve, 0.3), 1.0),), ground_plane=True)
+    layout = Layout((driven("sphere", RevolvedSurface(curve, 0.45), 1.0),), ground_plane=True)
     ref = sphere_above_plane_series(1.5)
     case = "sphere above plane, h/R = 1.5, 3-D"
     return [_c_3d(case, "C / (4 pi eps0 R)", layout, FOUR_PI_EPS0, ref, src)[0]]
@@ -353,7 +353,7 @@ def case_thin_disk_3d() -> list[CheckResult]:
     src = (
         "Landau & Lifshitz, Electrodynamics of Continuous Media, sec. 4 (docs/references.md item 2)"
     )
-    layout = Layout((driven("disk", RevolvedSurface(disk(1.0), 0.25), 1.0),))
+    layout = Layout((driven("disk", RevolvedSurface(disk(1.0), 0.35), 1.0),))
     return [_c_3d("thin disk, 3-D", "C / (8 eps0 R)", layout, 8 * EPS0_F_PER_M, 1.0, src)[0]]
 
 

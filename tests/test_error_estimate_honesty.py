@@ -23,7 +23,7 @@ from elopt.physics.refinement import LevelPlan, SolveOptions, refine
 #: Requests per solver: the axisymmetric default order changes at 1e-5, so each order is
 #: solved once at its tightest request and replayed at the looser ones.
 AXI_REQUESTS = ((1e-3, 1e-4, 1e-5), (1e-6, 1e-7, 1e-8))
-REQUESTS_3D = (3e-2, 1e-2, 3e-3)
+REQUESTS_3D = (3e-2, 1e-2)
 
 
 @dataclass(frozen=True)

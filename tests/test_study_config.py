@@ -7,14 +7,15 @@ import tomllib
 import pytest
 from study_support.configs import FIXTURE_STUDY, GUARDED_DISK_STUDY
 
-from elopt.optimizer.config.study_config import (
+from elopt.optimizer.config import (
     identity_differences,
     load_study_config,
-    parameter_unit,
     parse_study_config,
     study_identity,
 )
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.study import study_header
+from elopt.physics.electrodes.guarded_disk import GuardedDiskOptions
 
 
 def _parse(text: str):
@@ -175,8 +176,82 @@ def test_identity_ignores_budget_and_workers_and_names_differences():
     ]
 
 
-def test_parameter_units_from_names():
-    assert parameter_unit("guard_gap_mm") == "mm"
-    assert parameter_unit("drive_V") == "V"
-    assert parameter_unit("peak_surface_field_V_per_m") == "V/m"
-    assert parameter_unit("count") == ""
+def test_parameter_units_come_from_the_family_declarations():
+    header = study_header(_parse(GUARDED_DISK_STUDY.format(trials=5, workers=1)))
+    units = dict(zip(header.parameter_names, header.parameter_units, strict=True))
+    assert units == {
+        "sensor_radius_mm": "mm",
+        "guard_gap_mm": "mm",
+        "guard_width_mm": "mm",
+        "thickness_mm": "mm",
+        "fillet_mm": "mm",
+        "standoff_mm": "mm",
+        "drive_V": "V",
+        "recess_mm": "mm",
+    }
+    # The fixture declares its delay in seconds: a unit no name suffix list knew.
+    fixture = study_header(_parse(_fixture_text()))
+    assert fixture.parameter_units[fixture.parameter_names.index("delay_s")] == "s"
+
+
+MEDIUM_AND_EVALUATION = """
+[medium]
+eps_r = 2.5
+breakdown_field_V_per_m = 1.0e7
+
+[evaluation]
+linearity_points = 3
+linearity_range_fraction = 0.2
+"""
+
+
+def test_medium_and_evaluation_tables_read_as_in_a_solve_config():
+    text = GUARDED_DISK_STUDY.format(trials=5, workers=1) + MEDIUM_AND_EVALUATION
+    spec = _parse(text)
+    assert spec.eps_r == 2.5
+    assert spec.medium.breakdown_field_V_per_m == 1.0e7
+    assert spec.options == GuardedDiskOptions(linearity_range_fraction=0.2, linearity_points=3)
+    default = _parse(GUARDED_DISK_STUDY.format(trials=5, workers=1))
+    assert default.options == GuardedDiskOptions() and default.eps_r == 1.0
+    assert default.peak_rel_accuracy is None
+    peak = text.replace("rel_accuracy = 0.05\n", "rel_accuracy = 0.05\npeak_rel_accuracy = 0.01\n")
+    assert _parse(peak).peak_rel_accuracy == 0.01
+
+
+def test_older_solver_eps_r_still_reads_but_not_twice():
+    base = GUARDED_DISK_STUDY.format(trials=5, workers=1)
+    old = base.replace("rel_accuracy = 0.05\n", "rel_accuracy = 0.05\neps_r = 2.0\n")
+    assert _parse(old).eps_r == 2.0
+    with pytest.raises(ConfigError, match=r"solver\.eps_r: also given as medium\.eps_r"):
+        _parse(old + MEDIUM_AND_EVALUATION)
+
+
+@pytest.mark.parametrize(
+    ("table", "message"),
+    [
+        ("[evaluation]\nlinearity_point = 3\n", r"evaluation\.linearity_point: unknown key"),
+        (
+            "[evaluation]\nlinearity_points = 2\n",
+            r"evaluation: guarded_disk: linearity_points = 2 must be 0 \(skip\)",
+        ),
+        ("[medium]\neps_r = 0.5\n", r"medium\.eps_r: 0\.5 is outside the allowed range"),
+    ],
+)
+def test_bad_medium_or_evaluation_is_one_line(table, message):
+    with pytest.raises(ConfigError, match=message) as info:
+        _parse(GUARDED_DISK_STUDY.format(trials=5, workers=1) + table)
+    assert "\n" not in str(info.value)
+
+
+def test_config_and_study_packages_import_light():
+    # Worker processes import these; the solvers (numba kernels) and optuna load only where
+    # a config is read or a search runs, so a worker reports version problems cleanly.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, elopt.optimizer.config, elopt.optimizer.study; "
+        "print(sorted(m for m in ('numba', 'optuna') if m in sys.modules))"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"

@@ -120,7 +120,10 @@ def test_config_table_is_parsed_and_refuses_bad_keys():
     }
     names = ("guard_gap_mm", "fillet_mm", "standoff_mm", "sensor_radius_mm")
     directions = {"sensitivity_fF_per_um": "low", "peak_surface_field_V_per_m": "high"}
-    spec = parse_tolerances(table, parameter_names=names, directions=directions)
+    mounting = ("standoff_mm",)
+    spec = parse_tolerances(
+        table, parameter_names=names, mounting_names=mounting, directions=directions
+    )
     assert [(t.name, t.minus, t.plus) for t in spec.tolerances] == [
         ("guard_gap_mm", 0.01, 0.01),
         ("fillet_mm", 0.01, 0.005),
@@ -146,7 +149,9 @@ def test_config_table_is_parsed_and_refuses_bad_keys():
     ]
     for t, message in bad:
         with pytest.raises(ConfigError, match=message.replace("(", r"\(").replace(")", r"\)")):
-            parse_tolerances(t, parameter_names=names, directions=directions)
+            parse_tolerances(
+                t, parameter_names=names, mounting_names=mounting, directions=directions
+            )
 
 
 @pytest.mark.slow
@@ -205,3 +210,46 @@ def test_guarded_probe_first_order_worst_case_agrees_with_corners():
         assert abs(first.value[metric] - brute) <= allowed, (metric, first.value[metric], brute)
     # standoff drives the sensitivity (it moves 1/d^2), so it must be named as the driver
     assert first.driver["sensitivity_fF_per_um"].startswith("standoff_mm +")
+
+
+def _tolerant_fixture_spec(limit_mm: float):
+    """The fixture study with size_mm <= limit and width_mm known to +-0.5 mm, judged worst."""
+    import tomllib
+
+    from study_support.configs import FIXTURE_STUDY
+
+    from elopt.optimizer.config import parse_study_config
+
+    text = FIXTURE_STUDY.format(trials=4, delay_s=0.0, sampler="tpe", handover=100000)
+    text = text.replace("[constraints]\n", f"[constraints]\nsize_mm = {{ max = {limit_mm} }}\n") + (
+        "\n[tolerance.parameters]\nwidth_mm = 0.5\n"
+        '\n[tolerance.apply]\nsize_mm = "worst"\nscore_fF = "worst"\n'
+    )
+    return parse_study_config(tomllib.loads(text), text, source="tolerant.toml")
+
+
+def test_a_constraint_that_fails_within_tolerance_makes_the_trial_infeasible():
+    """size_mm = width + gap: at nominal 3.0 + 0.6 = 3.6 <= 3.8, but width 3.5 gives 4.1."""
+    from elopt.optimizer.study.search import _Pending, _record, trial_task
+    from elopt.optimizer.study.trial_eval import evaluate_task
+
+    spec = _tolerant_fixture_spec(3.8)
+    searched = {"width_mm": 3.0, "gap_mm": 0.6}
+    outcome = evaluate_task(trial_task(spec, 0, searched))
+    assert outcome.ok, outcome.failure
+    assert outcome.metrics["size_mm"] == pytest.approx(3.6)
+    assert outcome.toleranced["size_mm"] == pytest.approx(4.1)
+    # score = 10 - (w - 3)^2 - ...: both ends of the width range cost 0.25
+    assert outcome.toleranced["score_fF"] == pytest.approx(outcome.metrics["score_fF"] - 0.25)
+    pend = _Pending(trial=None, study=None, searched=searched, generation=0, rerun_of=None)
+    rec = _record(spec, outcome, pend, session=0)
+    assert not rec.feasible
+    size = [c.metric for c in spec.constraints].index("size_mm")
+    assert rec.constraints[size] == pytest.approx(4.1 - 3.8)
+    stored = rec.info["tolerance"]
+    assert stored["values"]["size_mm"] == pytest.approx(4.1)
+    assert stored["driver"]["size_mm"] == "width_mm +0.5"
+    assert stored["evaluations"] >= 2
+    # reproducible from the stored parameters alone (common practice: deterministic solves)
+    again = evaluate_task(trial_task(spec, 1, searched))
+    assert again.toleranced == outcome.toleranced

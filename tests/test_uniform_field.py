@@ -143,7 +143,7 @@ def test_bad_parameters_are_refused_with_name_value_and_rule(change, words):
 
 
 def test_bad_tolerance_is_refused():
-    with pytest.raises(ElectrodeError, match="uniform_tolerance_pct = 0 must be in"):
+    with pytest.raises(ElectrodeError, match=r"uniform_tolerance_pct = 0 must lie in \(0, 50\)"):
         FAMILY.validate_options(UniformFieldOptions(uniform_tolerance_pct=0.0))
 
 

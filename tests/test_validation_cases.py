@@ -7,6 +7,7 @@ import math
 import pytest
 
 from elopt.physics.validation import (
+    CASES,
     CheckResult,
     kirchhoff_disk_pair_capacitance,
     love_disk_pair_capacitance,
@@ -43,3 +44,12 @@ def test_sphere_above_plane_series_limits():
 def test_check_result_pass_and_fail():
     assert CheckResult("c", "q", "1", 1.0005, 1.0, 1e-3, "s").passed
     assert not CheckResult("c", "q", "1", 1.002, 1.0, 1e-3, "s").passed
+
+
+@pytest.mark.parametrize("name", [n for n in CASES if n.endswith("_3d")])
+def test_cheap_3d_check_cases_pass_and_cite_the_references_sheet(name):
+    rows = CASES[name]()
+    assert rows
+    for r in rows:
+        assert r.passed, (r.case, r.quantity, r.error, r.tolerance)
+        assert "docs/references.md item" in r.source

@@ -6,7 +6,7 @@ import argparse
 from pathlib import Path
 from typing import Any
 
-from elopt.optimizer.config.study_config import StudySpec
+from elopt.optimizer.config import StudySpec
 from elopt.optimizer.run.dask_pool import ClusterError, DaskExecutor, connect_cluster
 
 

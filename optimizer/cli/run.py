@@ -13,21 +13,23 @@ from typing import Any
 from rich.console import Console
 
 from elopt.optimizer.cli.cluster_args import add_cluster_arg, cluster_lost_error, open_cluster
-from elopt.optimizer.config.study_config import (
+from elopt.optimizer.config import (
     StudySpec,
+    as_float,
+    as_int,
     identity_differences,
     load_study_config,
+    load_toml,
     parse_study_config,
     study_identity,
 )
-from elopt.optimizer.config.toml_tools import as_float, as_int, load_toml
 from elopt.optimizer.errors import ConfigError, StudyFileError
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.study_report import PlainProgress, RichProgress
 from elopt.optimizer.run.dask_pool import DaskExecutor
 from elopt.optimizer.run.local_pool import LocalProcessPool
-from elopt.optimizer.store.study_file import StudySnapshot, StudyWriter, read_study
-from elopt.optimizer.study.search import RunLimits, run_search, study_header
+from elopt.optimizer.store import StudySnapshot, StudyWriter, read_study
+from elopt.optimizer.study import RunLimits, run_search, study_header
 
 
 def add_parser(subparsers: Any) -> None:

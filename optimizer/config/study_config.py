@@ -9,7 +9,12 @@
 
     [solver]
     rel_accuracy = 1e-3            # requested accuracy of every trial's solve
+    peak_rel_accuracy = 1e-2       # optional: a request on the peak surface field
+
+    [medium]                       # as in a solve config: eps_r, breakdown_field_V_per_m
     eps_r = 1.0
+
+    [evaluation]                   # as in a solve config: the family's evaluation options
 
     [fixed]                        # parameters held at one value
     drive_V = 10.0
@@ -37,8 +42,18 @@
     [run]
     workers = 2                    # default: one per core
 
+    [tolerance.parameters]         # optional: judge designs across manufacturing and
+    guard_gap_mm = 0.010           # mounting deviations (see tolerance_config for the table)
+    [tolerance.apply]
+    sensitivity_fF_per_um = "worst"
+
 Every key is checked; unknown keys get the nearest valid key suggested. ``[budget]`` and
 ``[run]`` may change between run and resume; everything else is the study's identity.
+``[medium]``, ``[evaluation]`` and ``solver.peak_rel_accuracy`` are read exactly as
+``elopt solve`` reads them
+(:mod:`elopt.optimizer.config.shared_tables`), so a trial evaluates a design as ``solve``
+does. Studies written before ``[medium]`` existed gave ``eps_r`` in ``[solver]``; that
+spelling is still read.
 """
 
 from __future__ import annotations
@@ -55,8 +70,14 @@ from typing import Any, Literal
 
 import numpy as np
 
+from elopt.optimizer.config.shared_tables import (
+    MediumSpec,
+    parse_medium,
+    parse_options,
+    parse_peak_accuracy,
+)
+from elopt.optimizer.config.tolerance_config import parse_tolerances
 from elopt.optimizer.config.toml_tools import (
-    MAX_EPS_R,
     as_choice,
     as_float,
     as_int,
@@ -66,7 +87,7 @@ from elopt.optimizer.config.toml_tools import (
     require,
 )
 from elopt.optimizer.errors import ConfigError
-from elopt.optimizer.study.objectives import metric_catalog
+from elopt.optimizer.study.tolerances import ToleranceSpec
 from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec
 from elopt.physics.errors import ElOptError
 
@@ -75,6 +96,8 @@ DIRECTIONS = ("maximize", "minimize")
 _TOP_KEYS = (
     "study",
     "solver",
+    "medium",
+    "evaluation",
     "fixed",
     "search",
     "objectives",
@@ -82,30 +105,13 @@ _TOP_KEYS = (
     "sampler",
     "budget",
     "run",
+    "tolerance",
 )
 _RUNTIME_TABLES = ("budget", "run")
 _RANGE_PROBES = 256
 #: Finest grid a search range's ``step`` may make: finer is a continuous range in all but
 #: name, and optuna's exact decimal grid arithmetic fails on ratios near 1e28.
 MAX_GRID_STEPS = 1e6
-_UNIT_SUFFIXES = (
-    "V_per_m",
-    "kV_per_mm",
-    "fF_per_um",
-    "F_per_m",
-    "pF",
-    "fF",
-    "mm",
-    "um",
-    "nm",
-    "m",
-    "kV",
-    "V",
-    "deg",
-    "rad",
-    "Hz",
-    "s",
-)
 
 
 @dataclass(frozen=True)
@@ -181,10 +187,17 @@ class StudySpec:
     budget: Budget
     workers: int
     rel_accuracy: float
-    eps_r: float
+    peak_rel_accuracy: float | None
+    medium: MediumSpec
+    options: Any
     metrics: tuple[MetricSpec, ...]
     config_text: str
     identity: dict[str, Any]
+    tolerance: ToleranceSpec | None = None
+
+    @property
+    def eps_r(self) -> float:
+        return self.medium.eps_r
 
     @property
     def parameter_names(self) -> tuple[str, ...]:
@@ -225,18 +238,20 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
     seed = as_int(study.get("seed", 0), "study.seed", low=0, high=2**31 - 1)
 
     solver = as_table(table.get("solver", {}), "solver")
-    check_keys(solver, ("rel_accuracy", "eps_r"), "solver")
+    check_keys(solver, ("rel_accuracy", "peak_rel_accuracy", "eps_r"), "solver")
     rel_accuracy = as_float(
         solver.get("rel_accuracy", 1e-3), "solver.rel_accuracy", low=1e-8, high=0.5
     )
-    eps_r = as_float(solver.get("eps_r", 1.0), "solver.eps_r", low=1.0, high=MAX_EPS_R)
+    peak_rel_accuracy = parse_peak_accuracy(solver)
+    medium = parse_medium(_medium_table(table, solver))
+    options = parse_options(family, as_table(table.get("evaluation", {}), "evaluation"))
 
     types = _parameter_types(family)
     fixed = _parse_fixed(as_table(table.get("fixed", {}), "fixed"), types)
     search = _parse_search(as_table(require(table, "search", ""), "search"), types, fixed)
     _check_all_parameters_given(family, fixed, search)
 
-    metrics = metric_catalog(family)
+    metrics = family.metric_catalog()
     objectives = _parse_objectives(
         as_table(require(table, "objectives", ""), "objectives"), metrics
     )
@@ -246,6 +261,8 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
     run = as_table(table.get("run", {}), "run")
     check_keys(run, ("workers",), "run")
     workers = as_int(run.get("workers", default_workers()), "run.workers", low=1, high=256)
+
+    tolerance = _parse_tolerance(table, family, objectives, constraints)
 
     spec = StudySpec(
         name=name,
@@ -260,13 +277,49 @@ def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") ->
         budget=budget,
         workers=workers,
         rel_accuracy=rel_accuracy,
-        eps_r=eps_r,
+        peak_rel_accuracy=peak_rel_accuracy,
+        medium=medium,
+        options=options,
         metrics=metrics,
         config_text=text,
         identity=study_identity(table),
+        tolerance=tolerance,
     )
     _check_ranges_against_family(spec)
     return spec
+
+
+def _parse_tolerance(
+    table: dict[str, Any],
+    family: ElectrodeFamily,
+    objectives: tuple[Objective, ...],
+    constraints: tuple[Constraint, ...],
+) -> ToleranceSpec | None:
+    """``[tolerance]`` with each treated metric's worse side from its objective/constraint."""
+    if "tolerance" not in table:
+        return None
+    sides: dict[str, set[str]] = {}
+    for o in objectives:
+        sides.setdefault(o.metric, set()).add("low" if o.direction == "maximize" else "high")
+    for c in constraints:
+        sides.setdefault(c.metric, set()).add("high" if c.kind == "max" else "low")
+    directions = {m: s.pop() if len(s) == 1 else "both" for m, s in sides.items()}
+    return parse_tolerances(
+        as_table(table["tolerance"], "tolerance"),
+        parameter_names=family.parameter_names(),
+        mounting_names=family.mounting_parameters(),
+        directions=directions,
+    )
+
+
+def _medium_table(table: dict[str, Any], solver: dict[str, Any]) -> dict[str, Any]:
+    """``[medium]``, with the older ``solver.eps_r`` folded in (never both)."""
+    medium = as_table(table.get("medium", {}), "medium")
+    if "eps_r" not in solver:
+        return medium
+    if "eps_r" in medium:
+        raise ConfigError("solver.eps_r: also given as medium.eps_r; give it in [medium] only")
+    return {**medium, "eps_r": as_float(solver["eps_r"], "solver.eps_r", low=1.0)}
 
 
 def default_workers() -> int:
@@ -348,14 +401,6 @@ def identity_differences(stored: dict[str, Any], given: dict[str, Any]) -> list[
         elif stored[key] != given[key]:
             out.append(f"{key}: stored {stored[key]!r}, given {given[key]!r}")
     return out
-
-
-def parameter_unit(name: str) -> str:
-    """The unit spelled by a unit-suffixed name (``gap_mm`` -> ``mm``), or ``""``."""
-    for suffix in _UNIT_SUFFIXES:
-        if name.endswith("_" + suffix):
-            return suffix.replace("_per_", "/")
-    return ""
 
 
 # ----------------------------------------------------------------------------- parts

@@ -14,23 +14,13 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from elopt.optimizer.config.solve_config import SolveSpec
+from elopt.optimizer.config import SolveSpec
 from elopt.optimizer.record import drive_of, solve_warnings
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.section_picture import section_picture
 from elopt.optimizer.report.textplot import Series, line_plot
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, parameter_units
 from elopt.physics.electrodes.target_spot import cumulative_on_plane
-
-UNIT_SUFFIXES = (("_mm", "mm"), ("_V", "V"), ("_pct", "%"))
-
-
-def parameter_unit(name: str) -> str:
-    """Unit of a parameter from its suffix (``gap_mm`` -> mm); '' when unitless."""
-    for suffix, unit in UNIT_SUFFIXES:
-        if name.endswith(suffix):
-            return unit
-    return ""
 
 
 def _num(v: float) -> str:
@@ -46,6 +36,7 @@ def _design_table(spec: SolveSpec) -> Table:
     table.add_column("parameter")
     table.add_column("value", justify="right")
     table.add_column("unit")
+    units = parameter_units(spec.params)
     for f in dataclasses.fields(spec.params):
         value = getattr(spec.params, f.name)
         if isinstance(value, tuple):
@@ -55,7 +46,7 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        table.add_row(f.name, _num(float(value)), parameter_unit(f.name))
+        table.add_row(f.name, _num(float(value)), units[f.name])
     table.add_row("eps_r (medium)", _num(spec.eps_r), "")
     return table
 
@@ -180,7 +171,7 @@ def render_solve_report(
     console.print(_metrics_table(family, evaluation))
     console.print()
     console.print(_capacitance_table(evaluation))
-    if getattr(family, "mirror_pair", False):
+    if family.mirror_pair:
         note = "one electrode against the mid-plane; the pair's capacitance is half of it"
     elif evaluation.solution.layout.ground_plane:
         note = "Maxwell matrix; the grounded plane is the reference conductor"
@@ -193,7 +184,7 @@ def render_solve_report(
     console.print()
     peak = evaluation.solution.peak_field
     # A pair solved above its mid-plane says so; its picture shows the mirror electrode too.
-    mirror = bool(getattr(family, "mirror_pair", False))
+    mirror = bool(family.mirror_pair)
     if evaluation.solution.point_dim == 2:  # a 3-D layout has no (r, z) cross-section
         picture = section_picture(
             evaluation.solution.layout,

@@ -19,7 +19,7 @@ import threading
 from dataclasses import dataclass
 from typing import Any
 
-from elopt.optimizer.study.trial_eval import TrialOutcome, TrialTask, evaluate_task
+from elopt.optimizer.study import TrialOutcome, TrialTask, evaluate_task
 from elopt.physics.threads import limit_blas_threads
 
 #: Distributions whose versions must agree between the coordinator and every worker, by the
@@ -75,7 +75,7 @@ def probe_worker(family_ref: str | None = None) -> dict[str, Any]:
     """Versions of this worker and, with ``family_ref``, whether the family loads here."""
     report: dict[str, Any] = {"versions": local_versions(), "family_error": None}
     if family_ref is not None:
-        from elopt.optimizer.config.study_config import resolve_family
+        from elopt.optimizer.config import resolve_family
 
         try:
             resolve_family(family_ref)

@@ -39,7 +39,7 @@ from elopt.optimizer.run.cluster_worker import (
     version_differences,
 )
 from elopt.optimizer.run.local_pool import Executor
-from elopt.optimizer.study.trial_eval import TrialOutcome, TrialTask
+from elopt.optimizer.study import TrialOutcome, TrialTask
 from elopt.physics.errors import ElOptError
 
 INSTALL_HINT = "pip install 'elopt[cluster]' (or pip install 'dask[distributed]>=2024.1')"

@@ -9,7 +9,7 @@ import signal
 from abc import ABC, abstractmethod
 from multiprocessing.connection import Connection, wait
 
-from elopt.optimizer.study.trial_eval import TrialOutcome, TrialTask, evaluate_task
+from elopt.optimizer.study import TrialOutcome, TrialTask, evaluate_task
 from elopt.physics.threads import limit_blas_threads
 
 # Each worker process solves one trial at a time on one core; BLAS/numba threads would only

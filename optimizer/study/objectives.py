@@ -1,9 +1,8 @@
-"""Metrics of a study: the family's metrics plus the peak surface field; objective values,
-constraint violations and the feasible Pareto front.
+"""Objective values, constraint violations and the feasible Pareto front of a study.
 
-The peak surface field is read from the solve itself (``ChargeSolution.peak_field``: the
-largest |sigma|/eps on any conductor at the layout's excitation, i.e. at the drive voltage the
-family builds the layout with), so every family gets the standard constraint
+A study's metrics are its family's metric catalogue
+(:meth:`~elopt.physics.electrodes.base.ElectrodeFamily.metric_catalog`), which always holds
+the peak surface field the solve yields, so every family gets the standard constraint
 ``peak_surface_field_V_per_m <= limit`` without declaring it. A field limit is a design aid,
 not a safety rating.
 """
@@ -15,25 +14,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec
-
 if TYPE_CHECKING:
     from elopt.optimizer.config.study_config import StudySpec
-
-PEAK_FIELD_METRIC = MetricSpec(
-    name="peak_surface_field_V_per_m",
-    unit="V/m",
-    description="largest surface field |sigma|/eps on any conductor at the drive voltage",
-    sense="minimize",
-)
-DERIVED_METRICS = (PEAK_FIELD_METRIC,)
-
-
-def metric_catalog(family: ElectrodeFamily) -> tuple[MetricSpec, ...]:
-    """The family's metrics, then the derived ones it does not already define."""
-    own = tuple(family.metrics)
-    names = {m.name for m in own}
-    return own + tuple(m for m in DERIVED_METRICS if m.name not in names)
 
 
 def objective_values(spec: StudySpec, metrics: dict[str, float]) -> np.ndarray:

@@ -14,6 +14,7 @@ trials once a typical trial would no longer finish before the deadline.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import threading
 import time
@@ -27,9 +28,9 @@ import optuna
 from optuna.distributions import BaseDistribution, FloatDistribution, IntDistribution
 from optuna.trial import TrialState
 
-from elopt.optimizer.config.study_config import StudySpec
+from elopt.optimizer.config import StudySpec
 from elopt.optimizer.run.local_pool import Executor
-from elopt.optimizer.store.study_file import StudyHeader, StudySnapshot, StudyWriter, TrialRecord
+from elopt.optimizer.store import StudyHeader, StudySnapshot, StudyWriter, TrialRecord
 from elopt.optimizer.study.objectives import (
     constraint_violations,
     objective_values,
@@ -298,7 +299,6 @@ def run_search(
     study = build_optuna_study(spec, snap, state.sampler_kind, sampler_factory)
     _enqueue_reruns(spec, study, snap, skip=set())
     dists = distributions(spec)
-    metric_names = tuple(m.name for m in spec.metrics)
     pending: dict[int, _Pending] = {}
     next_key = 0
     reason = "budget"
@@ -337,14 +337,7 @@ def run_search(
                 generation=int(attrs.get(NSGA2_GENERATION_KEY, -1)),
                 rerun_of=trial.user_attrs.get("rerun_of"),
             )
-            task = TrialTask(
-                key=next_key,
-                family_ref=spec.family_ref,
-                params=spec.params_of(pend.searched),
-                metric_names=metric_names,
-                rel_accuracy=spec.rel_accuracy,
-                eps_r=spec.eps_r,
-            )
+            task = trial_task(spec, next_key, pend.searched)
             pending[next_key] = pend
             next_key += 1
             executor.submit(task)
@@ -416,10 +409,12 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
         info["failure"] = outcome.failure or "unknown failure"
         rec.info = info
         return rec
+    # Objectives and constraints judge the toleranced value where the study asks for one.
+    judged = {**outcome.metrics, **outcome.toleranced}
     for name in dict.fromkeys(
         [o.metric for o in spec.objectives] + [c.metric for c in spec.constraints]
     ):
-        value = outcome.metrics.get(name, math.nan)
+        value = judged.get(name, math.nan)
         if not math.isfinite(value):
             rec.state = "failed"
             info["failure"] = (
@@ -428,21 +423,12 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
             rec.info = info
             return rec
     rec.metrics = np.array([outcome.metrics.get(m.name, np.nan) for m in spec.metrics])
-    rec.objectives = objective_values(spec, outcome.metrics)
-    rec.constraints = constraint_violations(spec, outcome.metrics)
+    rec.objectives = objective_values(spec, judged)
+    rec.constraints = constraint_violations(spec, judged)
     rec.feasible = bool(np.all(rec.constraints <= 0))
-    rec.rel_error_estimate = outcome.rel_error_estimate
-    rec.accuracy_met = outcome.accuracy_met
-    rec.peak_field_V_per_m = outcome.peak_field_V_per_m
-    rec.peak_conductor = outcome.peak_conductor
-    rec.peak_r_m = outcome.peak_r_m
-    rec.peak_z_m = outcome.peak_z_m
-    rec.peak_singular = outcome.peak_singular
-    rec.capacitance_F = outcome.capacitance_F
-    rec.profile = outcome.profile
-    info["conductors"] = outcome.conductor_names
-    if outcome.extra:
-        info["extra"] = outcome.extra
+    rec.design = outcome.design
+    if outcome.toleranced:
+        info["tolerance"] = {"values": outcome.toleranced, **outcome.tolerance_info}
     rec.info = info
     return rec
 
@@ -491,19 +477,34 @@ def _tell(spec: StudySpec, study: optuna.Study, pend: _Pending, record: TrialRec
     study.add_trial(frozen)
 
 
+def trial_task(spec: StudySpec, key: int, searched: dict[str, Any]) -> TrialTask:
+    """The task that evaluates the design ``searched`` (plus the fixed parameters) with the
+    study's accuracy, medium and evaluation options."""
+    return TrialTask(
+        key=key,
+        family_ref=spec.family_ref,
+        params=spec.params_of(searched),
+        metric_names=tuple(m.name for m in spec.metrics),
+        rel_accuracy=spec.rel_accuracy,
+        eps_r=spec.eps_r,
+        options=dataclasses.asdict(spec.options),
+        peak_rel_accuracy=spec.peak_rel_accuracy,
+        tolerance=spec.tolerance,
+    )
+
+
 def study_header(spec: StudySpec) -> StudyHeader:
     """The self-description a new study file gets, read from the spec and the family."""
-    from elopt.optimizer.config.study_config import parameter_unit
-
     ranges = {s.name: s for s in spec.search}
     names = spec.parameter_names
+    units = {p.name: p.unit for p in spec.family.parameters()}
     nan = math.nan
     return StudyHeader(
         study_name=spec.name,
         family=spec.family_ref,
         config_toml=spec.config_text,
         parameter_names=names,
-        parameter_units=tuple(parameter_unit(n) for n in names),
+        parameter_units=tuple(units[n] for n in names),
         parameter_searched=tuple(n in ranges for n in names),
         search_low=tuple(ranges[n].low if n in ranges else nan for n in names),
         search_high=tuple(ranges[n].high if n in ranges else nan for n in names),

@@ -222,7 +222,6 @@ def solve_3d(
     # 0.15-0.25 per level; the compressed matrix moves C by up to 0.06 aca; the peak is the
     # largest panel value, its panel moves between levels, so it converges irregularly.
     convergence = Convergence(
-        prior_ratio=0.5,
         capacitance_floor=max(1e-12, 0.1 * aca),
         peak_floor=max(1e-12, 0.1 * aca),
         peak_regular=False,

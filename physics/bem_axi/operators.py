@@ -11,16 +11,15 @@ The grounded plane z = 0 enters through image panels at (r, -z) carrying -sigma.
 
 from __future__ import annotations
 
-from collections.abc import Callable
-
 import numpy as np
 
 from elopt.physics.bem_axi.mesh import AxiMesh
-from elopt.physics.bem_axi.ring_kernels import ring_field, ring_potential
 from elopt.physics.bem_axi.ring_sums import (
+    collocation_sum,
     field_sum,
     foot_points,
     near_rows,
+    node_rows,
     potential_sum,
     self_rows,
 )
@@ -32,16 +31,27 @@ NEAR_FACTOR = 1.0
 _MAX_LEVELS = 44
 _MIRROR = np.array([1.0, -1.0])
 
-Kernel = Callable[..., np.ndarray | tuple[np.ndarray, np.ndarray]]
+
+def entry_tolerance(p: int) -> float:
+    """Relative error allowed in a far-rule entry for panels of p nodes.
+
+    Up to 4 nodes serve requests >= 1e-5 (``solve.default_order``): 1e-8 keeps three orders of
+    margin (measured on the guarded probes: C moves by at most 5e-8 against 1e-10) and halves
+    the near pairs; higher orders serve tight requests and keep 1e-10.
+    """
+    return 1e-8 if p <= 4 else 1e-10
 
 
-def near_factor(p: int, rel_error: float = 1e-10) -> float:
-    """Distance, in panel lengths, beyond which a panel's own p-point Gauss rule is accurate.
+def near_factor(p: int, rel_error: float | None = None) -> float:
+    """Distance, in panel lengths, beyond which a panel's own p-point Gauss rule is accurate
+    to ``rel_error`` (default :func:`entry_tolerance`).
 
     The rule's error on a kernel singular at distance d past a panel end of length L falls like
     rho^(-2p), rho = x0 + sqrt(x0^2 - 1), x0 = 1 + 2 d / L (Bernstein ellipse); closer panels
     take the graded near-field rule instead.
     """
+    if rel_error is None:
+        rel_error = entry_tolerance(p)
     rho = rel_error ** (-1.0 / (2 * p))
     x0 = 0.5 * (rho + 1.0 / rho)
     return max(0.5 * (x0 - 1.0), NEAR_FACTOR)
@@ -94,30 +104,28 @@ def _near_rows(
     )
 
 
-def _far_pairs(
-    mesh: AxiMesh, pts: np.ndarray, cols: np.ndarray, mirror: bool, kernel: Kernel
-) -> np.ndarray:
+def _far_pairs(mesh: AxiMesh, pts: np.ndarray, cols: np.ndarray, mirror: bool, field: bool):
     """Direct node-rule values (B, p, ncomp) already in the far sums for these pairs."""
-    src = mesh.points_m[cols]
-    zs = -src[..., 1] if mirror else src[..., 1]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        vals = kernel(pts[:, 0][:, None], pts[:, 1][:, None], src[..., 0], zs)
-    vals = vals if isinstance(vals, tuple) else (vals,)
-    w = mesh.weights_m[cols]
-    return np.stack([np.where(np.isfinite(v), v, 0.0) * w for v in vals], axis=-1)
+    src = mesh.points_m
+    return node_rows(
+        np.ascontiguousarray(pts[:, 0]),
+        np.ascontiguousarray(pts[:, 1]),
+        np.ascontiguousarray(src[:, 0]),
+        np.ascontiguousarray(src[:, 1]),
+        mesh.weights_m,
+        np.ascontiguousarray(cols, dtype=np.int64),
+        mirror,
+        field,
+    )
 
 
 def _correct_near(
-    mat: np.ndarray,
-    mesh: AxiMesh,
-    targets: np.ndarray,
-    mirror: bool,
-    kernel: Kernel,
-    exclude_self: bool,
+    mat: np.ndarray, mesh: AxiMesh, targets: np.ndarray, mirror: bool, exclude_self: bool
 ) -> None:
     """Replace the direct-rule value of near (target, panel) pairs by accurate rows (in place).
 
     ``mat`` (M, N, ncomp) holds real-minus-image sums; image corrections enter with a minus.
+    Each (target, node) pair occurs once, so a plain indexed add is exact.
     """
     ti, pj = _near_pairs(mesh, targets, mirror)
     if exclude_self:
@@ -127,10 +135,9 @@ def _correct_near(
         return
     pts = targets[ti]
     cols = pj[:, None] * mesh.order + np.arange(mesh.order)
-    delta = _near_rows(mesh, pts, pj, mirror, mat.shape[2] == 2) - _far_pairs(
-        mesh, pts, cols, mirror, kernel
-    )
-    np.add.at(mat, (ti[:, None], cols), -delta if mirror else delta)
+    field = mat.shape[2] == 2
+    delta = _near_rows(mesh, pts, pj, mirror, field) - _far_pairs(mesh, pts, cols, mirror, field)
+    mat[ti[:, None], cols] += -delta if mirror else delta
 
 
 def _operator(
@@ -142,13 +149,11 @@ def _operator(
     args = (t[:, 0].copy(), t[:, 1].copy(), src[:, 0].copy(), src[:, 1].copy(), mesh.weights_m)
     if kind == "phi":
         mat = potential_sum(*args, ground_plane)[..., None]
-        kernel = ring_potential
     else:
         mat = field_sum(*args, ground_plane)
-        kernel = ring_field
-    _correct_near(mat, mesh, t, False, kernel, exclude_self)
+    _correct_near(mat, mesh, t, False, exclude_self)
     if ground_plane:
-        _correct_near(mat, mesh, t, True, kernel, False)
+        _correct_near(mat, mesh, t, True, False)
     return mat
 
 
@@ -164,13 +169,17 @@ def field_matrix(mesh: AxiMesh, targets_m: np.ndarray, ground_plane: bool) -> np
 
 def collocation_matrix(mesh: AxiMesh, ground_plane: bool) -> np.ndarray:
     """A (N, N): potential at each node, with exact log-singular self-panel integration."""
-    mat = _operator(mesh, mesh.points_m, ground_plane, "phi", exclude_self=True)[..., 0]
+    src = mesh.points_m
+    r, z = np.ascontiguousarray(src[:, 0]), np.ascontiguousarray(src[:, 1])
+    mat = collocation_sum(r, z, mesh.weights_m, ground_plane)[..., None]
+    _correct_near(mat, mesh, src, False, True)
+    if ground_plane:
+        _correct_near(mat, mesh, src, True, False)
+    mat = mat[..., 0]
     p = mesh.order
     idx = np.arange(mesh.n_panels)[:, None] * p + np.arange(p)
-    rows = mesh.points_m.reshape(-1, p, 2)
-    far_self = np.stack(
-        [_far_pairs(mesh, rows[:, i], idx, False, ring_potential)[..., 0] for i in range(p)], axis=1
-    )
+    own = np.repeat(idx, p, axis=0)
+    far_self = _far_pairs(mesh, src, own, False, False).reshape(mesh.n_panels, p, p)
     mat[idx[:, :, None], idx[:, None, :]] += _self_blocks(mesh) - far_self
     return mat
 

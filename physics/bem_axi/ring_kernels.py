@@ -17,7 +17,7 @@ analytic, A(0) = ln 4 (DLMF 19.12.1); the self-panel quadrature uses that split.
 from __future__ import annotations
 
 import numpy as np
-from scipy.special import ellipe, ellipk, ellipkm1
+from scipy.special import ellipe, ellipkm1
 
 #: Below this parameter m the radial field uses its small-radius expansion (error O(m)).
 _SMALL_M = 1e-7
@@ -31,19 +31,6 @@ def ring_potential(r: np.ndarray, z: np.ndarray, rs: np.ndarray, zs: np.ndarray)
     with np.errstate(divide="ignore"):
         k = ellipkm1(rm2 / rp2)
     return rs * k / (np.pi * np.sqrt(rp2))
-
-
-def ring_potential_split(
-    r: np.ndarray, z: np.ndarray, rs: np.ndarray, zs: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pieces of the kernel for the exact log split: (r'/(pi rho_plus), K(m), K(m1))."""
-    dz2 = (z - zs) ** 2
-    rp2 = (r + rs) ** 2 + dz2
-    rm2 = (r - rs) ** 2 + dz2
-    m1 = rm2 / rp2
-    with np.errstate(divide="ignore"):
-        k = ellipkm1(m1)
-    return rs / (np.pi * np.sqrt(rp2)), k, ellipk(m1)
 
 
 def ring_field(

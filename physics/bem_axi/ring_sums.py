@@ -120,6 +120,70 @@ def potential_sum(
 
 
 @njit(cache=True)
+def _ring_sym(r: float, z: float, rs: float, zs: float) -> float:
+    """K(m) / (pi rho_plus): the ring potential without its factor r', symmetric in the
+    target and the source (and so for a source and its image)."""
+    dz = z - zs
+    a = r + rs
+    b = r - rs
+    rp2 = a * a + dz * dz
+    rm2 = b * b + dz * dz
+    if rm2 == 0.0:
+        return 0.0
+    return _ellip_k(rm2 / rp2) / (math.pi * math.sqrt(rp2))
+
+
+@njit(cache=True)
+def collocation_sum(r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool) -> np.ndarray:
+    """(N, N): :func:`potential_sum` with the nodes as both targets and sources.
+
+    The kernel divided by r' is symmetric, so each pair is evaluated once: half the work.
+    """
+    n = r.shape[0]
+    out = np.empty((n, n))
+    for i in range(n):
+        ri = r[i]
+        zi = z[i]
+        out[i, i] = -_ring_sym(ri, zi, ri, -zi) * ri * w[i] if image else 0.0
+        for j in range(i + 1, n):
+            v = _ring_sym(ri, zi, r[j], z[j])
+            if image:
+                v -= _ring_sym(ri, zi, r[j], -z[j])
+            out[i, j] = v * r[j] * w[j]
+            out[j, i] = v * ri * w[i]
+    return out
+
+
+@njit(cache=True)
+def node_rows(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    w: np.ndarray,
+    cols: np.ndarray,
+    mirror: bool,
+    field: bool,
+) -> np.ndarray:
+    """(B, p, ncomp): the node rule's values of target b against nodes cols[b] (B, p), as the
+    far sums hold them (source mirrored in z = 0 when ``mirror``; no image subtracted)."""
+    n_pairs, p = cols.shape
+    ncomp = 2 if field else 1
+    out = np.empty((n_pairs, p, ncomp))
+    sgn = -1.0 if mirror else 1.0
+    for b in range(n_pairs):
+        for k in range(p):
+            j = cols[b, k]
+            if field:
+                er, ez = _ring_e(tr[b], tz[b], sr[j], sgn * sz[j])
+                out[b, k, 0] = er * w[j]
+                out[b, k, 1] = ez * w[j]
+            else:
+                out[b, k, 0] = _ring_phi(tr[b], tz[b], sr[j], sgn * sz[j]) * w[j]
+    return out
+
+
+@njit(cache=True)
 def field_sum(
     tr: np.ndarray, tz: np.ndarray, sr: np.ndarray, sz: np.ndarray, w: np.ndarray, image: bool
 ) -> np.ndarray:

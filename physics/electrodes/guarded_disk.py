@@ -4,71 +4,109 @@ Geometry (parameters in mm, SI inside), in the (r, z) half-plane above the targe
 
 - sensor: solid cylinder r <= a, d + s <= z <= d + s + t (face recessed by s >= 0);
 - guard: solid annulus a + g <= r <= a + g + w, d <= z <= d + t (face at the standoff d);
-- every off-axis corner of both cross-sections rounded with radius rho (rho = 0: sharp).
+- every off-axis corner of both cross-sections rounded with radius rho (rho = 0: sharp);
+- optional insulators: a spacer of ``spacer_eps_r`` filling the sensor-guard gap between the
+  fillets (a <= r <= a + g, d + rho <= z <= d + t - rho; needs no recess), a housing sleeve of
+  ``housing_width_mm`` and ``housing_eps_r`` on the guard's outer wall between the fillets, and
+  a layer of ``target_layer_um`` and ``target_layer_eps_r`` on the target (a coating, a film).
 
 Sensor and guard are both driven at V (driven guard); the target plane is at 0. The sense
 capacitance is C_sense = Q_sensor / V = C_ss + C_sg of the Maxwell matrix. Its sensitivity
 to the standoff comes from one solve through the Hadamard shape derivative of the target:
 -dC_sense/dd = (1/eps) * integral over the plane of sigma_s (sigma_s + sigma_g), with sigma_i
 the plane's charge density with conductor i at 1 V and the other at 0. The integrand is the
-sensitivity density; the radius holding 90 % of it is the probe's spot radius.
+sensitivity density; the radius holding 90 % of it is the probe's spot radius. With a layer on
+the target that formula does not hold: the standoff sensitivity and the layer's thickness and
+permittivity sensitivities are central differences at the solution's mesh level (Richardson
+error estimate in ``extra``), and the spot uses the plane's density under the layer.
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.electrodes import probe_metrics as probe
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from elopt.physics.electrodes.cost import check_coarse_mesh
+from elopt.physics.electrodes import metrics as m
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
-from elopt.physics.errors import ElectrodeError, GeometryError
-from elopt.physics.geometry import Curve, rounded_polyline
+from elopt.physics.geometry import Curve, Segment, rounded_polyline
 from elopt.physics.layout import Layout, driven
+from elopt.physics.media import DielectricRegion, PlanarLayer
 from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
+UM = 1e-6
 SENSOR = "sensor"
 GUARD = "guard"
+SPACER = "spacer"
+HOUSING = "housing"
+TARGET_LAYER = "target layer"
 #: Most points of the target grid: ample for any probe whose standoff and size are within a
 #: factor of about a thousand of each other; beyond, the grid alone costs gigabytes.
 MAX_TARGET_POINTS = 100_000
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
+#: Key prefix of the linearity sweep's companion designs.
+SWEEP = "linearity_standoff_"
 
 
 @dataclass(frozen=True)
 class GuardedDiskParams:
-    """Guarded disk probe parameters; lengths in mm, drive in V."""
+    """Guarded disk probe parameters (module docstring for the symbols)."""
 
-    sensor_radius_mm: float
-    guard_gap_mm: float
-    guard_width_mm: float
-    thickness_mm: float
-    fillet_mm: float
-    standoff_mm: float
-    drive_V: float
-    recess_mm: float = 0.0
+    sensor_radius_mm: float = parameter("mm", "sensor disk radius a", low=0, low_open=True)
+    guard_gap_mm: float = parameter("mm", "sensor-guard gap g", low=0, low_open=True)
+    guard_width_mm: float = parameter("mm", "guard ring width w", low=0, low_open=True)
+    thickness_mm: float = parameter("mm", "sensor and guard thickness t", low=0, low_open=True)
+    fillet_mm: float = parameter("mm", "corner radius rho (0: sharp)", low=0)
+    standoff_mm: float = parameter(
+        "mm", "guard face to target d", low=0, low_open=True, mounting=True
+    )
+    drive_V: float = parameter("V", "sensor and guard potential", nonzero=True)
+    recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0, mounting=True)
+    spacer_eps_r: float = parameter(
+        "1", "eps_r of a spacer filling the sensor-guard gap (1: none)", default=1.0, low=1
+    )
+    housing_width_mm: float = parameter(
+        "mm",
+        "width of an insulating sleeve on the guard's outer wall (0: none)",
+        default=0.0,
+        low=0,
+    )
+    housing_eps_r: float = parameter("1", "eps_r of the sleeve", default=3.0, low=1)
+    target_layer_um: float = parameter(
+        "um", "thickness of a layer on the target (0: bare)", default=0.0, low=0, mounting=True
+    )
+    target_layer_eps_r: float = parameter(
+        "1", "eps_r of the layer on the target", default=4.0, low=1, mounting=True
+    )
 
 
 @dataclass(frozen=True)
 class GuardedDiskOptions:
-    """How :meth:`GuardedDisk.evaluate` measures linearity.
+    """How the linearity is measured: ``linearity_points`` standoffs evenly spaced over
+    d * (1 -+ ``linearity_range_fraction``) (odd counts reuse the nominal solve); 0 points
+    skips linearity (NaN)."""
 
-    The standoffs are d * (1 -+ ``linearity_range_fraction``), ``linearity_points`` of them
-    evenly spaced (odd counts reuse the nominal solve); 0 points skips linearity (NaN).
-    """
-
-    linearity_range_fraction: float = 0.5
-    linearity_points: int = 5
+    linearity_range_fraction: float = parameter(
+        "1",
+        "half-width of the standoff sweep / d",
+        default=0.5,
+        low=0,
+        high=1,
+        low_open=True,
+        high_open=True,
+    )
+    linearity_points: int = parameter(
+        "", "standoffs in the sweep (0: skip)", default=5, low=0, high=25, whole=True
+    )
 
 
 def sensor_curve(p: GuardedDiskParams) -> Curve:
@@ -138,23 +176,6 @@ def _check_target_grid(rules: RuleBook, p: GuardedDiskParams) -> None:
         )
 
 
-def _check_mesh_size(
-    p: GuardedDiskParams, layout: Layout, rel_accuracy: float, where: str = ""
-) -> None:
-    """Refuse before any solve a design whose coarsest mesh is too large (see
-    :mod:`.cost`); the clearance smallest against the probe is what forces it."""
-    outer = outer_radius_mm(p)
-    name = min(("guard_gap_mm", "standoff_mm"), key=lambda k: getattr(p, k))
-    value = getattr(p, name)
-    check_coarse_mesh(
-        layout,
-        rel_accuracy,
-        "guarded_disk",
-        f"{name} = {value:.6g}{where} is {value / outer:.3g} of the outer radius {outer:.6g} mm",
-        f"widen {name} or shrink the probe",
-    )
-
-
 def outer_radius_mm(p: GuardedDiskParams) -> float:
     """Outer radius of the guard, a + g + w (mm)."""
     return p.sensor_radius_mm + p.guard_gap_mm + p.guard_width_mm
@@ -165,34 +186,30 @@ def parallel_plate_radius_m(c_sense_F: float, standoff_m: float, eps_F_per_m: fl
     return math.sqrt(c_sense_F * standoff_m / (math.pi * eps_F_per_m))
 
 
-class GuardedDisk(ElectrodeFamily):
+class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
     """Guarded disk probe over a grounded target (see the module docstring)."""
 
     name: ClassVar[str] = "guarded_disk"
     Params: ClassVar[type] = GuardedDiskParams
     Options: ClassVar[type] = GuardedDiskOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        probe.SENSE,
-        probe.TOTAL,
-        probe.COUPLING,
-        probe.PEAK_FIELD,
-        MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either"),
-        probe.PEAK_Z,
-        probe.SENSITIVITY,
-        probe.SPOT,
-        MetricSpec("linearity_error_pct_fs", "%FS", "1/C_sense off its best line", "minimize"),
-        probe.EFFECTIVE_RADIUS,
-        MetricSpec("outer_radius_mm", "mm", "outer radius of the guard", "minimize"),
+        m.SENSE,
+        m.TOTAL,
+        m.COUPLING,
+        *m.PEAK_PROFILE,
+        m.SENSITIVITY,
+        m.SPOT,
+        m.LINEARITY,
+        m.EFFECTIVE_RADIUS,
+        m.OUTER_RADIUS,
+        m.LAYER_THICKNESS_SENSITIVITY,
+        m.LAYER_EPS_SENSITIVITY,
     )
 
     def validate(self, params: GuardedDiskParams) -> None:
         rules = RuleBook(self.name, params)
         if rules.finite():
-            rules.positive(
-                "sensor_radius_mm", "guard_gap_mm", "guard_width_mm", "thickness_mm", "standoff_mm"
-            )
-            rules.non_negative("fillet_mm", "recess_mm")
-            rules.drive("drive_V")
+            rules.declared()
             p = params
             why = "fillets on one face must not overlap"
             rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)
@@ -209,6 +226,23 @@ class GuardedDisk(ElectrodeFamily):
                 "thickness_mm",
                 "the sensor face must stay within the guard",
             )
+            if p.target_layer_um > 0 and p.target_layer_um * 1e-3 >= p.standoff_mm:
+                rules.broken.append(
+                    f"target_layer_um = {p.target_layer_um:g} must be below standoff_mm * 1000 = "
+                    f"{p.standoff_mm * 1e3:g} (a layer that thick would bury the probe face)"
+                )
+            if p.spacer_eps_r != 1.0 and p.recess_mm > 0:
+                rules.broken.append(
+                    f"spacer_eps_r = {p.spacer_eps_r:g} needs recess_mm = 0 (got "
+                    f"{p.recess_mm:g}): the spacer fills the gap between flush walls"
+                )
+            if (p.spacer_eps_r != 1.0 or p.housing_width_mm > 0) and not (
+                p.thickness_mm > 2 * p.fillet_mm
+            ):
+                rules.broken.append(
+                    f"a spacer or sleeve needs thickness_mm = {p.thickness_mm:g} > 2 fillet_mm = "
+                    f"{2 * p.fillet_mm:g} (it sits on the straight walls between the fillets)"
+                )
             if not rules.broken:  # the grid's size needs the lengths to be valid
                 _check_target_grid(rules, p)
         rules.raise_if_broken()
@@ -216,28 +250,18 @@ class GuardedDisk(ElectrodeFamily):
     def validate_options(self, options: GuardedDiskOptions) -> None:
         rules = RuleBook(self.name, options)
         if rules.finite():
-            f = options.linearity_range_fraction
-            if not 0 < f < 1:
-                rules.broken.append(
-                    f"linearity_range_fraction = {f:.6g} must be in (0, 1) (standoffs d (1 -+ f))"
-                )
+            rules.declared()
             n = options.linearity_points
-            if isinstance(n, float) or not (n == 0 or 3 <= n <= 25):
+            if n in (1, 2) and not isinstance(n, float):
                 rules.broken.append(
                     f"linearity_points = {n!r} must be 0 (skip) or a whole number in [3, 25]"
                 )
         rules.raise_if_broken()
 
-    def build(self, params: GuardedDiskParams, *, eps_r: float = 1.0) -> Layout:
+    def build(
+        self, params: GuardedDiskParams, *, eps_r: float = 1.0, options: Any = None
+    ) -> Layout:
         self.validate(params)
-        try:
-            return self._layout(params, eps_r)
-        except GeometryError as exc:  # a relation the rules missed: name the parameters
-            given = ", ".join(f"{k} = {v:.6g}" for k, v in dataclasses.asdict(params).items())
-            raise ElectrodeError(f"{self.name}: {given}: {exc}") from None
-
-    @staticmethod
-    def _layout(params: GuardedDiskParams, eps_r: float) -> Layout:
         v = float(params.drive_V)
         return Layout(
             conductors=(
@@ -246,96 +270,139 @@ class GuardedDisk(ElectrodeFamily):
             ),
             eps_r=eps_r,
             ground_plane=True,
+            layers=target_layers(params),
+            regions=insulators(params),
         )
 
-    def evaluate(
+    def companion_designs(
+        self, params: GuardedDiskParams, options: GuardedDiskOptions
+    ) -> dict[str, GuardedDiskParams]:
+        """The linearity standoffs other than the nominal one (its solve is reused)."""
+        d = params.standoff_mm * MM
+        return {
+            f"{SWEEP}{k}": replace(params, standoff_mm=dk / MM)
+            for k, dk in enumerate(linearity_standoffs_m(params, options))
+            if not math.isclose(dk, d, rel_tol=1e-12)
+        }
+
+    def measure(
         self,
         params: GuardedDiskParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        peak_rel_accuracy: float | None = None,
-        eps_r: float = 1.0,
-        options: GuardedDiskOptions | None = None,
-    ) -> Evaluation:
-        options = options or GuardedDiskOptions()
-        self.validate_options(options)
-        layout = self.build(params, eps_r=eps_r)
-        tightest = min(rel_accuracy, peak_rel_accuracy or 1.0)
-        _check_mesh_size(params, layout, tightest)
-        if options.linearity_points:
-            nearest = replace(
-                params, standoff_mm=params.standoff_mm * (1 - options.linearity_range_fraction)
-            )
-            where = (
-                " (the nearest linearity standoff, standoff_mm x (1 - linearity_range_fraction))"
-            )
-            _check_mesh_size(nearest, self._layout(nearest, eps_r), tightest, where)
-        sol = solve_axisymmetric(
-            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
-        )
-        eps = layout.eps_F_per_m
+        options: GuardedDiskOptions,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
+        sol = solution
+        eps = sol.layout.eps_F_per_m
         d = params.standoff_mm * MM
         c_sense = sense_capacitance_F(sol)
         c = sol.capacitance_matrix_F
         r_grid = target_grid(params)
         density = sensitivity_density_F_per_m3(sol, r_grid)
+        layer = layer_sensitivities(sol) if params.target_layer_um > 0 else None
         peak = sol.peak_field
-        standoffs, c_curve = self._standoff_sweep(params, options, sol, rel_accuracy, eps_r)
+        standoffs = linearity_standoffs_m(params, options)
+        c_curve = np.array(
+            [sense_capacitance_F(companions.get(f"{SWEEP}{k}", sol)) for k in range(len(standoffs))]
+        )
         linearity = (
             linearity_error_pct_fs(standoffs, c_curve) if len(standoffs) >= 3 else float("nan")
         )
         metrics = {
-            "sense_capacitance_fF": c_sense * 1e15,
-            "total_capacitance_fF": float(c.sum()) * 1e15,
-            "sensor_guard_coupling_fF": -float(c[0, 1]) * 1e15,
-            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-            "peak_field_r_mm": float(peak.location_m[0]) / MM,
-            "peak_field_z_mm": float(peak.location_m[1]) / MM,
-            "sensitivity_fF_per_um": sensitivity_F_per_m(sol) * FF_PER_UM,
-            "spot_radius_90_mm": spot_radius(r_grid, density, 0.9) / MM,
-            "linearity_error_pct_fs": linearity,
-            "effective_radius_mm": parallel_plate_radius_m(c_sense, d, eps) / MM,
-            "outer_radius_mm": outer_radius_mm(params),
+            m.SENSE.name: c_sense * 1e15,
+            m.TOTAL.name: float(c.sum()) * 1e15,
+            m.COUPLING.name: -float(c[0, 1]) * 1e15,
+            m.PEAK_R.name: float(peak.location_m[0]) / MM,
+            m.PEAK_Z.name: float(peak.location_m[1]) / MM,
+            m.SENSITIVITY.name: (layer["standoff_F_per_m"] if layer else sensitivity_F_per_m(sol))
+            * FF_PER_UM,
+            m.SPOT.name: spot_radius(r_grid, density, 0.9) / MM,
+            m.LINEARITY.name: linearity,
+            m.EFFECTIVE_RADIUS.name: parallel_plate_radius_m(c_sense, d, eps) / MM,
+            m.OUTER_RADIUS.name: outer_radius_mm(params),
+            # bare target: the onset of a layer of target_layer_eps_r (a thin sheet of the
+            # field-normal gap turning dielectric: (1 - eps_medium/eps_layer) x sensitivity;
+            # a layer of no thickness has no permittivity sensitivity)
+            m.LAYER_THICKNESS_SENSITIVITY.name: (
+                layer["thickness_F_per_m"]
+                if layer
+                else (1 - sol.layout.eps_r / params.target_layer_eps_r) * sensitivity_F_per_m(sol)
+            )
+            * FF_PER_UM,
+            m.LAYER_EPS_SENSITIVITY.name: layer["eps_F"] * 1e15 if layer else 0.0,
         }
         extra: dict[str, Any] = {
-            "layout": layout,
             "sense_capacitance_F": c_sense,
             "sense_capacitance_meaning": "Q_sensor / V with the guard driven at V",
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
             "target_r_m": r_grid,
             "sensitivity_density_F_per_m3": density,
             "linearity_standoff_m": standoffs,
             "linearity_sense_capacitance_F": c_curve,
         }
-        if options.linearity_points == 0:
-            extra["metric_notes"] = {
-                "linearity_error_pct_fs": "evaluation.linearity_points = 0 skips the sweep"
-            }
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        if layer:
+            extra["layer_derivative_rel_error_estimates"] = layer["rel_errors"]
+        return Measured(metrics, extra)
 
-    def _standoff_sweep(
-        self,
-        params: GuardedDiskParams,
-        options: GuardedDiskOptions,
-        nominal: ChargeSolution,
-        rel_accuracy: float,
-        eps_r: float,
-    ) -> tuple[np.ndarray, np.ndarray]:
-        """C_sense (F) at the linearity standoffs (m); the nominal solve is reused."""
-        if options.linearity_points == 0:
-            return np.empty(0), np.empty(0)
-        d = params.standoff_mm * MM
-        standoffs = standoff_range(d, options.linearity_range_fraction, options.linearity_points)
-        c_values = np.empty_like(standoffs)
-        for k, dk in enumerate(standoffs):
-            if math.isclose(dk, d, rel_tol=1e-12):
-                c_values[k] = sense_capacitance_F(nominal)
-                continue
-            shifted = replace(params, standoff_mm=dk / MM)
-            sol = solve_axisymmetric(self._layout(shifted, eps_r), rel_accuracy=rel_accuracy)
-            c_values[k] = sense_capacitance_F(sol)
-        return standoffs, c_values
+
+def target_layers(p: GuardedDiskParams) -> tuple[PlanarLayer, ...]:
+    """The layer on the target (a coating, a film), if any."""
+    if p.target_layer_um <= 0:
+        return ()
+    return (PlanarLayer(TARGET_LAYER, p.target_layer_eps_r, 0.0, p.target_layer_um * UM),)
+
+
+def insulators(p: GuardedDiskParams) -> tuple[DielectricRegion, ...]:
+    """The spacer in the sensor-guard gap and the sleeve on the guard, if any: rectangles on
+    the straight walls between the fillets (their corners meet the walls at the fillets' ends,
+    where the conductor curves have joints)."""
+    a = p.sensor_radius_mm * MM
+    r_in = a + p.guard_gap_mm * MM
+    r_out = r_in + p.guard_width_mm * MM
+    z0 = (p.standoff_mm + p.fillet_mm) * MM
+    z1 = (p.standoff_mm + p.thickness_mm - p.fillet_mm) * MM
+    out = []
+    if p.spacer_eps_r != 1.0:
+        out.append(DielectricRegion(SPACER, _box(a, r_in, z0, z1), p.spacer_eps_r))
+    if p.housing_width_mm > 0:
+        sleeve = _box(r_out, r_out + p.housing_width_mm * MM, z0, z1)
+        out.append(DielectricRegion(HOUSING, sleeve, p.housing_eps_r))
+    return tuple(out)
+
+
+def _box(r0: float, r1: float, z0: float, z1: float) -> Curve:
+    pts = [(r0, z0), (r1, z0), (r1, z1), (r0, z1), (r0, z0)]
+    return Curve(tuple(Segment(s, e) for s, e in zip(pts[:-1], pts[1:], strict=True)))
+
+
+def layer_sensitivities(solution: ChargeSolution) -> dict[str, Any]:
+    """-dC_sense/d(standoff), dC_sense/d(layer thickness) (F/m) and dC_sense/d(layer eps_r)
+    (F) by central differences at the solution's mesh level, with their Richardson errors."""
+    std = solution.standoff_derivative_fd()
+    thick = solution.layer_thickness_derivative(TARGET_LAYER)
+    eps = solution.eps_derivative(TARGET_LAYER)
+
+    def sense(fd) -> float:
+        return float(fd.value[0, 0] + fd.value[0, 1])
+
+    return {
+        # the plane and its layer moving up by delta is the standoff shrinking by delta
+        "standoff_F_per_m": sense(std),
+        "thickness_F_per_m": sense(thick),
+        "eps_F": sense(eps),
+        "rel_errors": {
+            "standoff": std.rel_error_estimate,
+            "thickness": thick.rel_error_estimate,
+            "eps_r": eps.rel_error_estimate,
+        },
+    }
+
+
+def linearity_standoffs_m(params: GuardedDiskParams, options: GuardedDiskOptions) -> np.ndarray:
+    """The standoffs (m) of the linearity sweep, (points,); empty when it is skipped."""
+    if options.linearity_points == 0:
+        return np.empty(0)
+    d = params.standoff_mm * MM
+    return standoff_range(d, options.linearity_range_fraction, options.linearity_points)
 
 
 def effective_area_amey_hamburger_m2(

@@ -20,30 +20,30 @@ solver (:mod:`elopt.physics.bem3d`) does the solve.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem3d import solve_3d
 from elopt.physics.bem3d.surfaces import (
     BoxSurface,
     FrameSheetSurface,
     FrameSurface,
     RectangleSheetSurface,
 )
-from elopt.physics.electrodes import probe_metrics as probe
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes import metrics as m
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.solvers import SolvedByPanels
 from elopt.physics.electrodes.target_tilt import (
     FF_PER_MRAD,
     FF_PER_UM,
     sense_capacitance_F,
     tilted_layout,
 )
-from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
-from elopt.physics.refinement import SolveOptions
+from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
 SENSOR = "sensor"
@@ -54,31 +54,41 @@ MAX_TILT_DEG = 10.0
 
 @dataclass(frozen=True)
 class GuardedPadParams:
-    """Guarded rectangular pad parameters; lengths in mm, drive in V, tilt in degrees."""
+    """Guarded rectangular pad parameters (module docstring for the geometry)."""
 
-    pad_length_mm: float
-    pad_width_mm: float
-    guard_gap_mm: float
-    guard_width_mm: float
-    thickness_mm: float
-    fillet_mm: float
-    standoff_mm: float
-    drive_V: float
-    target_tilt_deg: float = 0.0
-    tilt_axis_x_mm: float = 0.0
+    pad_length_mm: float = parameter("mm", "pad side along x", low=0, low_open=True)
+    pad_width_mm: float = parameter("mm", "pad side along y", low=0, low_open=True)
+    guard_gap_mm: float = parameter("mm", "pad-frame gap g", low=0, low_open=True)
+    guard_width_mm: float = parameter("mm", "guard frame width", low=0, low_open=True)
+    thickness_mm: float = parameter("mm", "pad and frame thickness (0: sheets)", low=0)
+    fillet_mm: float = parameter("mm", "convex edge radius (0: sharp)", low=0)
+    standoff_mm: float = parameter("mm", "faces to target d", low=0, low_open=True, mounting=True)
+    drive_V: float = parameter("V", "pad and guard potential", nonzero=True)
+    target_tilt_deg: float = parameter(
+        "deg",
+        "target tilt about y",
+        default=0.0,
+        low=-MAX_TILT_DEG,
+        high=MAX_TILT_DEG,
+        mounting=True,
+    )
+    tilt_axis_x_mm: float = parameter(
+        "mm", "x of the tilt axis on the target", default=0.0, mounting=True
+    )
 
 
 @dataclass(frozen=True)
 class GuardedPadOptions:
-    """How the pad is meshed and solved.
+    """How the pad is meshed and solved (each refinement level halves the panel size; two
+    levels give the error estimate)."""
 
-    ``mesh_step_mm``: panel size at the coarsest level (0: a quarter of the pad's shorter
-    side, at most the guard width and twice the standoff); ``max_level``: finest refinement
-    level (each level halves the panel size; two levels give the error estimate).
-    """
-
-    mesh_step_mm: float = 0.0
-    max_level: int = 1
+    mesh_step_mm: float = parameter(
+        "mm",
+        "coarsest panel size (0: pad's shorter side / 4, at most guard width, 2 standoffs)",
+        default=0.0,
+        low=0,
+    )
+    max_level: int = parameter("", "finest refinement level", default=1, low=1, high=4, whole=True)
 
 
 def mesh_step_m(p: GuardedPadParams, options: GuardedPadOptions) -> float:
@@ -86,37 +96,6 @@ def mesh_step_m(p: GuardedPadParams, options: GuardedPadOptions) -> float:
         return options.mesh_step_mm * MM
     return MM * min(
         0.25 * min(p.pad_length_mm, p.pad_width_mm), p.guard_width_mm, 2.0 * p.standoff_mm
-    )
-
-
-def panel_size_source(p: GuardedPadParams, options: GuardedPadOptions) -> str:
-    """Which input sets the level-0 panel size (see :func:`mesh_step_m`), as text."""
-    if options.mesh_step_mm > 0:
-        return f"evaluation.mesh_step_mm = {options.mesh_step_mm:.6g}"
-    candidates = (
-        ("min(pad_length_mm, pad_width_mm) / 4", 0.25 * min(p.pad_length_mm, p.pad_width_mm)),
-        ("guard_width_mm", p.guard_width_mm),
-        ("2 x standoff_mm", 2.0 * p.standoff_mm),
-    )
-    formula, value = min(candidates, key=lambda c: c[1])
-    return f"the automatic panel size {formula} = {value:.6g} mm"
-
-
-def check_mesh_size(layout: Layout, p: GuardedPadParams, options: GuardedPadOptions) -> None:
-    """Refuse, before any meshing, a layout whose first error estimate the 3-D solver cannot
-    reach: it needs level 1, four times the (estimated, slightly high) level-0 panels."""
-    max_panels = SolveOptions().max_unknowns
-    level1 = 4.0 * sum(c.shape.estimated_panels(0) for c in layout.conductors)
-    if level1 <= max_panels:
-        return
-    ox, oy = outer_size_mm(p)
-    h_mm = mesh_step_m(p, options) / MM
-    need_mm = h_mm * math.sqrt(level1 / max_panels) if math.isfinite(level1) else math.inf
-    raise ElectrodeError(
-        f"guarded_pad: {panel_size_source(p, options)} over an outer size of {ox:.6g} x "
-        f"{oy:.6g} mm makes about {level1:.3g} panels at level 1, which the error estimate "
-        f"needs; the 3-D solver takes at most {max_panels:g}: give evaluation.mesh_step_mm >= "
-        f"{need_mm:.3g} or bring the sizes closer together"
     )
 
 
@@ -159,39 +138,30 @@ def spot_radius_m(
     return float(r[order][min(k, len(r) - 1)])
 
 
-class GuardedPad(ElectrodeFamily):
+class GuardedPad(SolvedByPanels, ElectrodeFamily):
     """Guarded rectangular pad over a grounded, possibly tilted target (module docstring)."""
 
     name: ClassVar[str] = "guarded_pad"
     Params: ClassVar[type] = GuardedPadParams
     Options: ClassVar[type] = GuardedPadOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        probe.SENSE,
-        probe.TOTAL,
-        probe.COUPLING,
-        probe.PEAK_FIELD,
-        MetricSpec("peak_field_x_mm", "mm", "x of the peak field", "either"),
-        MetricSpec("peak_field_y_mm", "mm", "y of the peak field", "either"),
-        probe.PEAK_Z,
-        probe.SENSITIVITY,
-        MetricSpec(
-            "tilt_sensitivity_fF_per_mrad", "fF/mrad", "dC_sense / d(target tilt)", "either"
-        ),
-        probe.SPOT,
-        probe.EFFECTIVE_RADIUS,
-        MetricSpec("effective_area_mm2", "mm^2", "plate area giving C_sense", "either"),
-        MetricSpec("outer_size_mm", "mm", "longer outer side of the guard", "minimize"),
+        m.SENSE,
+        m.TOTAL,
+        m.COUPLING,
+        *m.PEAK_3D,
+        m.SENSITIVITY,
+        m.TILT_SENSITIVITY,
+        m.SPOT,
+        m.EFFECTIVE_RADIUS,
+        m.EFFECTIVE_AREA,
+        m.OUTER_SIZE,
     )
 
     def validate(self, params: GuardedPadParams) -> None:
         rules = RuleBook(self.name, params)
         if rules.finite():
             p = params
-            rules.positive(
-                "pad_length_mm", "pad_width_mm", "guard_gap_mm", "guard_width_mm", "standoff_mm"
-            )
-            rules.non_negative("thickness_mm", "fillet_mm")
-            rules.drive("drive_V")
+            rules.declared()
             why = "fillets on one face must not overlap"
             rules.at_most("fillet_mm", p.thickness_mm / 2, "thickness_mm / 2", why)
             rules.at_most("fillet_mm", p.guard_width_mm / 2, "guard_width_mm / 2", why)
@@ -201,12 +171,7 @@ class GuardedPad(ElectrodeFamily):
                 "min(pad_length_mm, pad_width_mm) / 2",
                 why,
             )
-            if abs(p.target_tilt_deg) > MAX_TILT_DEG:
-                rules.broken.append(
-                    f"target_tilt_deg = {p.target_tilt_deg:.6g} must lie in [-{MAX_TILT_DEG:g}, "
-                    f"{MAX_TILT_DEG:g}] (a small misalignment of the target)"
-                )
-            else:
+            if abs(p.target_tilt_deg) <= MAX_TILT_DEG:
                 # The lowest face corner over the tilted target must stay above it.
                 ox, _ = outer_size_mm(p)
                 reach = max(abs(0.5 * ox - p.tilt_axis_x_mm), abs(-0.5 * ox - p.tilt_axis_x_mm))
@@ -218,18 +183,6 @@ class GuardedPad(ElectrodeFamily):
                         f"{drop:.6g} mm at the far edge, standoff_mm = {p.standoff_mm:.6g}); reduce "
                         "the tilt or move the axis"
                     )
-        rules.raise_if_broken()
-
-    def validate_options(self, options: GuardedPadOptions) -> None:
-        rules = RuleBook(self.name, options)
-        if rules.finite():
-            if options.mesh_step_mm < 0:
-                rules.broken.append(
-                    f"mesh_step_mm = {options.mesh_step_mm:.6g} must be >= 0 (0: automatic)"
-                )
-            lvl = options.max_level
-            if isinstance(lvl, float) or not 1 <= lvl <= 4:
-                rules.broken.append(f"max_level = {lvl!r} must be a whole number in [1, 4]")
         rules.raise_if_broken()
 
     def build(
@@ -245,30 +198,15 @@ class GuardedPad(ElectrodeFamily):
         base = level_layout(params, mesh_step_m(params, options), eps_r=eps_r)
         return tilted_layout(base, math.radians(params.target_tilt_deg), params.tilt_axis_x_mm * MM)
 
-    def evaluate(
+    def measure(
         self,
         params: GuardedPadParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        peak_rel_accuracy: float | None = None,
-        eps_r: float = 1.0,
-        options: GuardedPadOptions | None = None,
-    ) -> Evaluation:
-        options = options or GuardedPadOptions()
-        self.validate_options(options)
-        layout = self.build(params, eps_r=eps_r, options=options)
-        check_mesh_size(layout, params, options)
-        try:
-            sol = solve_3d(
-                layout,
-                rel_accuracy=rel_accuracy,
-                peak_rel_accuracy=peak_rel_accuracy,
-                max_level=options.max_level,
-                strict=False,
-            )
-        except GeometryError as exc:
-            raise ElectrodeError(f"{self.name}: {exc}") from None
-        eps = layout.eps_F_per_m
+        options: GuardedPadOptions,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
+        sol = solution
+        eps = sol.layout.eps_F_per_m
         c = sol.capacitance_matrix_F
         c_sense = sense_capacitance_F(c)
         d_plane = sol.plane_capacitance_derivative_F_per_m()
@@ -281,26 +219,22 @@ class GuardedPad(ElectrodeFamily):
         d = params.standoff_mm * MM
         area = c_sense * d / eps
         metrics = {
-            "sense_capacitance_fF": c_sense * 1e15,
-            "total_capacitance_fF": float(c.sum()) * 1e15,
-            "sensor_guard_coupling_fF": -float(c[0, 1]) * 1e15,
-            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-            "peak_field_x_mm": peak.location_m[0] / MM,
-            "peak_field_y_mm": peak.location_m[1] / MM,
-            "peak_field_z_mm": peak.location_m[2] / MM,
-            "sensitivity_fF_per_um": sense_capacitance_F(d_plane) * FF_PER_UM,
-            "tilt_sensitivity_fF_per_mrad": sense_capacitance_F(d_tilt) * FF_PER_MRAD,
-            "spot_radius_90_mm": spot_radius_m(xy, w, density, 0.9) / MM,
-            "effective_radius_mm": math.sqrt(area / math.pi) / MM,
-            "effective_area_mm2": area / MM**2,
-            "outer_size_mm": max(outer_size_mm(params)),
+            m.SENSE.name: c_sense * 1e15,
+            m.TOTAL.name: float(c.sum()) * 1e15,
+            m.COUPLING.name: -float(c[0, 1]) * 1e15,
+            m.PEAK_X.name: peak.location_m[0] / MM,
+            m.PEAK_Y.name: peak.location_m[1] / MM,
+            m.PEAK_Z.name: peak.location_m[2] / MM,
+            m.SENSITIVITY.name: sense_capacitance_F(d_plane) * FF_PER_UM,
+            m.TILT_SENSITIVITY.name: sense_capacitance_F(d_tilt) * FF_PER_MRAD,
+            m.SPOT.name: spot_radius_m(xy, w, density, 0.9) / MM,
+            m.EFFECTIVE_RADIUS.name: math.sqrt(area / math.pi) / MM,
+            m.EFFECTIVE_AREA.name: area / MM**2,
+            m.OUTER_SIZE.name: max(outer_size_mm(params)),
         }
         extra: dict[str, Any] = {
-            "layout": layout,
             "sense_capacitance_F": c_sense,
             "sense_capacitance_meaning": "Q_sensor / V with the guard driven at V",
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
             "target_xy_m": xy,
             "target_weights_m2": w,
             "sensitivity_density_xy_F_per_m3": density,
@@ -309,7 +243,7 @@ class GuardedPad(ElectrodeFamily):
             extra["sense_capacitance_extrapolated_F"] = sense_capacitance_F(
                 sol.capacitance_matrix_extrapolated_F
             )
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        return Measured(metrics, extra)
 
 
 __all__ = ["GuardedPad", "GuardedPadOptions", "GuardedPadParams", "level_layout", "spot_radius_m"]

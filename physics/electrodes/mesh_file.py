@@ -22,20 +22,23 @@ along +z and tilted about the y axis through the origin.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem3d import load_mesh_surface, solve_3d
+from elopt.physics.bem3d import load_mesh_surface
 from elopt.physics.bem3d.mesh_io import LENGTH_UNITS
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes import metrics as m
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.guarded_pad import spot_radius_m
+from elopt.physics.electrodes.solvers import SolvedByPanels
 from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Conductor, Layout
-from elopt.physics.refinement import SolveOptions
+from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
 CONDUCTOR_KEYS = ("name", "file", "length_unit", "potential_V", "charge_C", "closed")
@@ -58,16 +61,18 @@ class MeshConductorSpec:
 class MeshFileParams:
     """Conductors from mesh files. ``drive_V`` is derived: the largest |potential_V|."""
 
-    conductors: tuple[MeshConductorSpec, ...]
-    ground_plane: bool = False
-    drive_V: float = 0.0
+    conductors: tuple[MeshConductorSpec, ...] = parameter(
+        "", "one mesh file per conductor, with its unit and drive"
+    )
+    ground_plane: bool = parameter("", "grounded plane z = 0 below everything", default=False)
+    drive_V: float = parameter("V", "largest |potential_V| (derived)", default=0.0)
 
 
 @dataclass(frozen=True)
 class MeshFileOptions:
-    """``max_level``: finest refinement level (each splits every triangle in four)."""
+    """How the meshes are refined (each level splits every triangle in four)."""
 
-    max_level: int = 2
+    max_level: int = parameter("", "finest refinement level", default=2, low=1, high=5, whole=True)
 
 
 def _number(value: Any, key: str) -> float:
@@ -82,26 +87,19 @@ def _unknown(table: dict, allowed: tuple[str, ...], where: str) -> None:
             raise ElectrodeError(f"{where}.{key}: unknown key; allowed keys: {', '.join(allowed)}")
 
 
-class MeshFile(ElectrodeFamily):
+class MeshFile(SolvedByPanels, ElectrodeFamily):
     """Any conductors given as triangle meshes (module docstring)."""
 
     name: ClassVar[str] = "mesh_file"
     Params: ClassVar[type] = MeshFileParams
     Options: ClassVar[type] = MeshFileOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        MetricSpec("sense_capacitance_fF", "fF", "Q_0 / V_0 of the first conductor", "maximize"),
-        MetricSpec("total_capacitance_fF", "fF", "sum of the capacitance matrix", "either"),
-        MetricSpec(
-            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
-        ),
-        MetricSpec("peak_field_x_mm", "mm", "x of the peak field", "either"),
-        MetricSpec("peak_field_y_mm", "mm", "y of the peak field", "either"),
-        MetricSpec("peak_field_z_mm", "mm", "z of the peak field", "either"),
-        MetricSpec("sensitivity_fF_per_um", "fF/um", "-dQ_0/dd / V_0 (plane moved)", "maximize"),
-        MetricSpec(
-            "tilt_sensitivity_fF_per_mrad", "fF/mrad", "dQ_0/dtheta / V_0 (plane tilted)", "either"
-        ),
-        MetricSpec("spot_radius_90_mm", "mm", "target disk with 90% of it", "minimize"),
+        m.SENSE,
+        m.TOTAL,
+        *m.PEAK_3D,
+        m.SENSITIVITY,
+        m.TILT_SENSITIVITY,
+        m.SPOT,
     )
 
     def params_from_table(self, geometry: dict, where: str, base_dir: Path) -> MeshFileParams:
@@ -158,14 +156,7 @@ class MeshFile(ElectrodeFamily):
         if problems:
             raise ElectrodeError(f"{self.name}: " + "; ".join(problems))
 
-    def validate_options(self, options: MeshFileOptions) -> None:
-        lvl = options.max_level
-        if isinstance(lvl, bool) or not isinstance(lvl, int) or not 1 <= lvl <= 5:
-            raise ElectrodeError(
-                f"{self.name}: max_level = {lvl!r} must be a whole number in [1, 5]"
-            )
-
-    def build(self, params: MeshFileParams, *, eps_r: float = 1.0) -> Layout:
+    def build(self, params: MeshFileParams, *, eps_r: float = 1.0, options: Any = None) -> Layout:
         self.validate(params)
         conductors = []
         for s in params.conductors:
@@ -178,29 +169,15 @@ class MeshFile(ElectrodeFamily):
             conductors.append(Conductor(s.name, surface, s.potential_V, s.charge_C))
         return Layout(tuple(conductors), eps_r=eps_r, ground_plane=params.ground_plane)
 
-    def evaluate(
+    def measure(
         self,
         params: MeshFileParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        peak_rel_accuracy: float | None = None,
-        eps_r: float = 1.0,
-        options: MeshFileOptions | None = None,
-    ) -> Evaluation:
-        options = options or MeshFileOptions()
-        self.validate_options(options)
-        layout = self.build(params, eps_r=eps_r)
-        _check_mesh_size(layout, params)
-        try:
-            sol = solve_3d(
-                layout,
-                rel_accuracy=rel_accuracy,
-                peak_rel_accuracy=peak_rel_accuracy,
-                max_level=options.max_level,
-                strict=False,
-            )
-        except GeometryError as exc:
-            raise ElectrodeError(f"{self.name}: {exc}") from None
+        options: MeshFileOptions,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
+        sol = solution
+        layout = sol.layout
         c = sol.capacitance_matrix_F
         v0 = float(sol.potentials_V[0])
         first = layout.conductors[0]
@@ -208,8 +185,8 @@ class MeshFile(ElectrodeFamily):
         peak = sol.peak_field
         nan = float("nan")
         sens = tilt = spot = nan
-        notes = _undefined_metric_notes(layout, v0)
-        if not notes.get("sensitivity_fF_per_um"):
+        driven_all = not any(cd.floating for cd in layout.conductors)
+        if layout.ground_plane and driven_all and layout.applied_field_V_per_m == 0 and v0 != 0:
             volts = sol.potentials_V / v0
             sens = float(sol.plane_capacitance_derivative_F_per_m()[0] @ volts) * FF_PER_UM
             tilt = float(sol.plane_tilt_derivative_F_per_rad()[0] @ volts) * FF_PER_MRAD
@@ -218,73 +195,20 @@ class MeshFile(ElectrodeFamily):
             density = unit[:, 0] * (unit @ volts) / layout.eps_F_per_m
             spot = spot_radius_m(xy, w, density, 0.9) / MM
         metrics = {
-            "sense_capacitance_fF": sense * 1e15,
-            "total_capacitance_fF": float(np.sum(c)) * 1e15,
-            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-            "peak_field_x_mm": peak.location_m[0] / MM,
-            "peak_field_y_mm": peak.location_m[1] / MM,
-            "peak_field_z_mm": peak.location_m[2] / MM,
-            "sensitivity_fF_per_um": sens,
-            "tilt_sensitivity_fF_per_mrad": tilt,
-            "spot_radius_90_mm": spot,
+            m.SENSE.name: sense * 1e15,
+            m.TOTAL.name: float(np.sum(c)) * 1e15,
+            m.PEAK_X.name: peak.location_m[0] / MM,
+            m.PEAK_Y.name: peak.location_m[1] / MM,
+            m.PEAK_Z.name: peak.location_m[2] / MM,
+            m.SENSITIVITY.name: sens,
+            m.TILT_SENSITIVITY.name: tilt,
+            m.SPOT.name: spot,
         }
         extra = {
-            "layout": layout,
             "sense_capacitance_F": sense,
             "sense_capacitance_meaning": f"Q / V of the first conductor '{first.name}' at the drive",
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
-            "metric_notes": {k: v for k, v in notes.items() if v},
         }
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
-
-
-def _check_mesh_size(layout: Layout, params: MeshFileParams) -> None:
-    """Refuse meshes whose level 1 (needed for the error estimate: each triangle split in
-    four) passes the 3-D solver's limit, naming the largest file."""
-    max_panels = SolveOptions().max_unknowns
-    counts = [c.shape.estimated_panels(0) for c in layout.conductors]
-    if 4 * sum(counts) <= max_panels:
-        return
-    k = int(np.argmax(counts))
-    spec = params.conductors[k]
-    raise ElectrodeError(
-        f"mesh_file: conductors[{k}] '{spec.name}' ({Path(spec.file).name}) has "
-        f"{counts[k]:.0f} triangles; all conductors make {4 * sum(counts):.0f} panels at level 1, "
-        f"which the error estimate needs, and the 3-D solver takes at most {max_panels}: "
-        "export coarser meshes"
-    )
-
-
-def _undefined_metric_notes(layout: Layout, v0: float) -> dict[str, str]:
-    """Why a metric is undefined for ``layout`` (metric name -> reason; "" when defined).
-
-    ``v0`` is the first conductor's potential (V), solved for when it floats.
-    """
-    first = layout.conductors[0]
-    if first.floating:
-        sense = (
-            f"the first conductor '{first.name}' floats: its charge is fixed, so Q / V is no "
-            "sense capacitance; give it a potential_V"
-        )
-    elif v0 == 0:
-        sense = f"the first conductor '{first.name}' is at 0 V: Q / V is undefined"
-    else:
-        sense = ""
-    if not layout.ground_plane:
-        plane = "the layout has no ground plane (ground_plane = true) to move or tilt"
-    elif any(c.floating for c in layout.conductors):
-        plane = "a floating conductor's potential changes with the plane; drive every conductor"
-    elif layout.applied_field_V_per_m != 0:
-        plane = "an applied field is present"
-    else:
-        plane = sense
-    return {
-        "sense_capacitance_fF": sense,
-        "sensitivity_fF_per_um": plane,
-        "tilt_sensitivity_fF_per_mrad": plane,
-        "spot_radius_90_mm": plane,
-    }
+        return Measured(metrics, extra)
 
 
 __all__ = ["MeshConductorSpec", "MeshFile", "MeshFileOptions", "MeshFileParams"]

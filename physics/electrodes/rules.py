@@ -11,12 +11,8 @@ import math
 from dataclasses import fields
 from typing import Any
 
+from elopt.physics.electrodes.base import PARAMETER_INFO
 from elopt.physics.errors import ElectrodeError
-
-#: Magnitudes a drive voltage may have (V): from a microvolt, below which the fields leave
-#: the range of the arithmetic, to 10 MV, beyond any electrode elopt designs (common
-#: practice, no source).
-DRIVE_RANGE_V = (1e-6, 1e7)
 
 
 def _fmt(value: float) -> str:
@@ -47,31 +43,14 @@ class RuleBook:
                 ok = False
         return ok
 
-    def positive(self, *names: str) -> None:
-        for name in names:
-            v = self.value(name)
-            if not v > 0:
-                self.broken.append(f"{name} = {_fmt(v)} must be > 0")
-
-    def non_negative(self, *names: str) -> None:
-        for name in names:
-            v = self.value(name)
-            if v < 0:
-                self.broken.append(f"{name} = {_fmt(v)} must be >= 0")
-
-    def nonzero(self, name: str) -> None:
-        v = self.value(name)
-        if v == 0:
-            self.broken.append(f"{name} = {_fmt(v)} must be nonzero")
-
-    def drive(self, name: str) -> None:
-        """A drive voltage: nonzero, its magnitude within :data:`DRIVE_RANGE_V`."""
-        v = self.value(name)
-        low, high = DRIVE_RANGE_V
-        if v == 0:
-            self.nonzero(name)
-        elif not low <= abs(v) <= high:
-            self.broken.append(f"{name} = {_fmt(v)} must have a magnitude in [{low:g}, {high:g}] V")
+    def declared(self) -> None:
+        """Check every field against the range declared in its metadata (:func:`parameter`)."""
+        for f in fields(self.params):
+            info = f.metadata.get(PARAMETER_INFO)
+            if info is not None:
+                broken = info.broken_rule(f.name, getattr(self.params, f.name))
+                if broken:
+                    self.broken.append(broken)
 
     def at_most(self, name: str, limit: float, limit_text: str, why: str) -> None:
         """Record ``name <= limit`` broken; ``limit_text`` says how the limit is formed."""

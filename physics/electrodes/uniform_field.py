@@ -22,16 +22,17 @@ a tolerance of it, peak surface field with its ratio to the centre field and whe
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
 
-from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
-from elopt.physics.electrodes.cost import check_coarse_mesh
+from elopt.physics.electrodes import metrics as m
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from elopt.physics.electrodes.rules import RuleBook
+from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution
 
@@ -41,21 +42,29 @@ ELECTRODE = "electrode"
 
 @dataclass(frozen=True)
 class UniformFieldParams:
-    """Uniform-field electrode pair; lengths in mm, drive (between the electrodes) in V."""
+    """Uniform-field electrode pair (module docstring for the symbols)."""
 
-    gap_mm: float
-    flat_radius_mm: float
-    blend_length_mm: float
-    edge_radius_mm: float
-    back_thickness_mm: float
-    drive_V: float
+    gap_mm: float = parameter("mm", "face-to-face gap G", low=0, low_open=True)
+    flat_radius_mm: float = parameter("mm", "flat face radius R_f", low=0, low_open=True)
+    blend_length_mm: float = parameter("mm", "curvature ramp length L_b", low=0)
+    edge_radius_mm: float = parameter("mm", "edge arc radius R_e", low=0, low_open=True)
+    back_thickness_mm: float = parameter("mm", "face-to-back thickness T", low=0, low_open=True)
+    drive_V: float = parameter("V", "voltage between the electrodes", nonzero=True)
 
 
 @dataclass(frozen=True)
 class UniformFieldOptions:
-    """``uniform_tolerance_pct``: |E| on the mid-plane counts as uniform within this band."""
+    """How the uniform radius is measured."""
 
-    uniform_tolerance_pct: float = 1.0
+    uniform_tolerance_pct: float = parameter(
+        "%",
+        "band of |E| on the mid-plane counted uniform",
+        default=1.0,
+        low=0,
+        high=50,
+        low_open=True,
+        high_open=True,
+    )
 
 
 def overall_radius_m(p: UniformFieldParams) -> float:
@@ -92,34 +101,29 @@ def uniform_radius_m(
     return float(fine[j - 1] + w * (fine[j] - fine[j - 1])), r, e
 
 
-class UniformField(ElectrodeFamily):
+class UniformField(SolvedByProfiles, ElectrodeFamily):
     """Profiled uniform-field electrode pair, solved above its mirror plane."""
 
     name: ClassVar[str] = "uniform_field"
     Params: ClassVar[type] = UniformFieldParams
     Options: ClassVar[type] = UniformFieldOptions
-    #: The layout is one electrode above the mid-plane of a symmetric pair.
     mirror_pair: ClassVar[bool] = True
     metrics: ClassVar[tuple[MetricSpec, ...]] = (
-        MetricSpec("centre_field_V_per_m", "V/m", "|E| at the mid-plane centre", "either"),
-        MetricSpec("uniform_field_radius_mm", "mm", "mid-plane radius of uniform |E|", "maximize"),
-        MetricSpec("uniform_radius_fraction", "1", "uniform radius / overall radius", "maximize"),
-        MetricSpec(
-            "peak_surface_field_V_per_m", "V/m", "largest surface field at drive", "minimize"
-        ),
-        MetricSpec("peak_to_centre_field_ratio", "1", "peak surface / centre field", "minimize"),
-        MetricSpec("peak_field_r_mm", "mm", "radius of the peak field", "either"),
-        MetricSpec("peak_field_z_mm", "mm", "peak height above the mid-plane", "either"),
-        MetricSpec("overall_radius_mm", "mm", "outer radius of one electrode", "minimize"),
-        MetricSpec("pair_capacitance_pF", "pF", "capacitance between electrodes", "either"),
+        m.CENTRE_FIELD,
+        m.UNIFORM_RADIUS,
+        m.UNIFORM_FRACTION,
+        m.PEAK_FIELD,
+        m.PEAK_TO_CENTRE,
+        m.PEAK_R,
+        m.PEAK_Z,
+        m.OVERALL_RADIUS,
+        m.PAIR_CAPACITANCE,
     )
 
     def validate(self, params: UniformFieldParams) -> None:
         rules = RuleBook(self.name, params)
         if rules.finite():
-            rules.positive("gap_mm", "flat_radius_mm", "edge_radius_mm", "back_thickness_mm")
-            rules.non_negative("blend_length_mm")
-            rules.drive("drive_V")
+            rules.declared()
             if not rules.broken:
                 p = params
                 rules.below(
@@ -139,15 +143,9 @@ class UniformField(ElectrodeFamily):
                 )
         rules.raise_if_broken()
 
-    def validate_options(self, options: UniformFieldOptions) -> None:
-        rules = RuleBook(self.name, options)
-        if rules.finite():
-            tol = options.uniform_tolerance_pct
-            if not 0 < tol < 50:
-                rules.broken.append(f"uniform_tolerance_pct = {tol:.6g} must be in (0, 50)")
-        rules.raise_if_broken()
-
-    def build(self, params: UniformFieldParams, *, eps_r: float = 1.0) -> Layout:
+    def build(
+        self, params: UniformFieldParams, *, eps_r: float = 1.0, options: Any = None
+    ) -> Layout:
         self.validate(params)
         curve = profile_curve(
             params.flat_radius_mm * MM,
@@ -162,31 +160,15 @@ class UniformField(ElectrodeFamily):
             ground_plane=True,
         )
 
-    def evaluate(
+    def measure(
         self,
         params: UniformFieldParams,
-        *,
-        rel_accuracy: float = 1e-4,
-        peak_rel_accuracy: float | None = None,
-        eps_r: float = 1.0,
-        options: UniformFieldOptions | None = None,
-    ) -> Evaluation:
-        options = options or UniformFieldOptions()
-        self.validate_options(options)
-        layout = self.build(params, eps_r=eps_r)
+        options: UniformFieldOptions,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
+        sol = solution
         r_out = overall_radius_m(params)
-        gap = params.gap_mm
-        check_coarse_mesh(
-            layout,
-            min(rel_accuracy, peak_rel_accuracy or 1.0),
-            self.name,
-            f"gap_mm = {gap:.6g} is {gap * MM / r_out:.3g} of the overall radius "
-            f"{r_out / MM:.6g} mm",
-            "widen gap_mm or shrink flat_radius_mm",
-        )
-        sol = solve_axisymmetric(
-            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
-        )
         radius, r_profile, e_profile = uniform_radius_m(
             sol, 1.5 * r_out, options.uniform_tolerance_pct / 100.0
         )
@@ -195,23 +177,19 @@ class UniformField(ElectrodeFamily):
         # Each electrode holds Q = C_half V/2 against the mid-plane; Q/V is the pair's C.
         c_pair = 0.5 * float(sol.capacitance_matrix_F[0, 0])
         metrics = {
-            "centre_field_V_per_m": centre,
-            "uniform_field_radius_mm": radius / MM,
-            "uniform_radius_fraction": radius / r_out,
-            "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-            "peak_to_centre_field_ratio": float(peak.field_V_per_m) / centre,
-            "peak_field_r_mm": float(peak.location_m[0]) / MM,
-            "peak_field_z_mm": float(peak.location_m[1]) / MM,
-            "overall_radius_mm": r_out / MM,
-            "pair_capacitance_pF": c_pair * 1e12,
+            m.CENTRE_FIELD.name: centre,
+            m.UNIFORM_RADIUS.name: radius / MM,
+            m.UNIFORM_FRACTION.name: radius / r_out,
+            m.PEAK_TO_CENTRE.name: float(peak.field_V_per_m) / centre,
+            m.PEAK_R.name: float(peak.location_m[0]) / MM,
+            m.PEAK_Z.name: float(peak.location_m[1]) / MM,
+            m.OVERALL_RADIUS.name: r_out / MM,
+            m.PAIR_CAPACITANCE.name: c_pair * 1e12,
         }
         extra: dict[str, Any] = {
-            "layout": layout,
             "sense_capacitance_F": c_pair,
             "sense_capacitance_meaning": "capacitance between the two electrodes (Q / V)",
-            "peak_conductor": peak.conductor,
-            "peak_singular": bool(peak.singular),
             "midplane_r_m": r_profile,
             "midplane_field_V_per_m": e_profile,
         }
-        return Evaluation(metrics=metrics, solution=sol, extra=extra)
+        return Measured(metrics, extra)

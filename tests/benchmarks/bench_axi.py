@@ -24,6 +24,7 @@ from elopt.physics.bem_axi.ring_sums import potential_sum
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.layout import EPS0_F_PER_M as EPS0
 from elopt.physics.layout import Layout, driven
+from elopt.physics.threads import limit_blas_threads
 
 sys.path.insert(0, str(Path(__file__).parent))
 
@@ -96,6 +97,12 @@ def kernel_speed() -> tuple[float, float]:
 
 
 def main() -> None:
+    import argparse
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeats", type=int, default=21)
+    args = ap.parse_args()
+    limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     sphere, sphere_ref = sphere_layout()
     probe = probe_layout()
     probe_ref_sol = solve_axisymmetric(probe, rel_accuracy=1e-11, order=8)
@@ -106,7 +113,7 @@ def main() -> None:
         ("guarded disk probe", probe, probe_ref),
     ):
         for tol in (1e-3, 1e-4, 1e-5):
-            median, sol = time_solves(layout, tol, repeats=21)
+            median, sol = time_solves(layout, tol, repeats=args.repeats)
             err = abs(sense(sol) / ref - 1)
             rows.append(
                 (

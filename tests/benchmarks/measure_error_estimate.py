@@ -5,7 +5,7 @@ per panel; 3-D: flat triangles), and at every level from the third on compares t
 error (against docs/references.md) with the bare geometric-tail estimate d r / (1 - r) of
 elopt.physics.refinement (safety factor 1, no noise floor; 3-D peaks: the larger of the last two
 changes). Prints, per quantity, the ratios true / bare and
-their quantiles, leaving out errors below the solver's noise floor; SAFETY must exceed the
+their quantiles, leaving out errors within 3x of the solver's noise floor; SAFETY must exceed the
 largest ratio, and the honesty test then checks the solver's final estimates. The two-level
 estimate (the prior ratio) is measured the same way (rows C2, peak2). The noise floors are the
 levels where the true error stops falling while the changes go on shrinking.
@@ -28,17 +28,14 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from published_cases import cases_for  # noqa: E402
+from test_axi_conductor_facts import _probe  # noqa: E402
 
 from elopt.physics import refinement  # noqa: E402
 from elopt.physics.bem3d import solve_3d  # noqa: E402
 from elopt.physics.bem_axi.solve import (  # noqa: E402
     NOISE_FLOORS,
-    PRIOR_RATIO,
     solve_axisymmetric,
 )
-
-#: The two-level prior ratios of the solvers (3-D: see elopt.physics.bem3d.solve).
-PRIOR = {"axi": PRIOR_RATIO, "3d": 0.5}
 
 
 def _levels(solver: str, case, order: int | None):
@@ -53,10 +50,20 @@ def _levels(solver: str, case, order: int | None):
 
 
 def _bare(changes: list[float], solver: str, peak: bool = False) -> float:
-    """The loop's estimate without safety factor and floor (3-D peaks: the last changes)."""
-    if solver == "3d" and peak:
-        return max(changes[-2:])
-    return refinement.tail_estimate(changes[-2:], PRIOR[solver])[0]
+    """The loop's estimate without safety factor and noise floor."""
+    if peak:
+        return refinement.bare_peak_estimate(changes, regular=solver == "axi")
+    return refinement.tail_estimate(changes[-2:], refinement.PRIOR_RATIO)[0]
+
+
+class _OwnReference:
+    """A layout without a published value, for :func:`_levels`."""
+
+    def __init__(self, layout):
+        self._layout = layout
+
+    def layout(self, solver: str):
+        return self._layout
 
 
 def main() -> None:
@@ -66,6 +73,10 @@ def main() -> None:
         "peak": [],
         "C2": [],
         "peak2": [],
+        "C probe": [],
+        "peak probe": [],
+        "C2 probe": [],
+        "peak2 probe": [],
     }
     runs = [("axi", o) for o in (4, 6, 8)] + [("3d", None)]
     print(
@@ -105,19 +116,51 @@ def main() -> None:
                     f"{true_c[k]:>9.2e} {bare_c:>9.2e} {true_c[k] / bare_c if bare_c else math.inf:>6.2f}"
                 )
                 key = "C" if k >= 2 else "C2"
-                # Below the noise floor quadrature and round-off decide: not a measurement.
+                # Near the noise floor quadrature and round-off decide: not a measurement.
                 floor_c, floor_p = NOISE_FLOORS[order] if solver == "axi" else (1e-12, 1e-12)
-                if true_c[k] > floor_c:
+                if true_c[k] > 3 * floor_c:
                     rows[key].append((f"{tag} {case.name}", k, true_c[k], bare_c))
                 if true_p is not None:
                     bare_p = _bare(dp[:k], solver, peak=True)
                     line += f" {true_p[k]:>9.2e} {bare_p:>9.2e} {true_p[k] / bare_p if bare_p else math.inf:>6.2f}"
-                    if true_p[k] > floor_p:
+                    if true_p[k] > 3 * floor_p:
                         rows["peak" if k >= 2 else "peak2"].append(
                             (f"{tag} {case.name}", k, true_p[k], bare_p)
                         )
                 print(line)
             print(f"{'':>6} ({time.perf_counter() - t0:.1f} s)")
+    print("\nguarded probes, against the solver's own order-8 solve at 1e-11 (not published)")
+    for fillet in (0.1e-3, 0.05e-3):
+        probe = _probe(fillet=fillet)
+        ref = solve_axisymmetric(probe, rel_accuracy=1e-11, order=8)
+        c_ref = ref.capacitance_matrix_F
+        scale = np.sqrt(np.outer(np.diag(c_ref), np.diag(c_ref)))
+        p_ref = ref.peak_field.field_V_per_m
+        for order in (4, 6):
+            levels = _levels("axi", _OwnReference(probe), order)
+            caps = [lv.capacitance_F for lv in levels]
+            dc = [refinement.relative_change(b, a) for a, b in zip(caps, caps[1:], strict=False)]
+            peaks = [max(p.field_V_per_m for p in lv.peaks()) for lv in levels]
+            dp = [abs(b - a) / b for a, b in zip(peaks, peaks[1:], strict=False)]
+            tag = f"axi{order}"
+            name = f"probe fillet {fillet * 1e3:g} mm"
+            for k in range(1, len(levels)):
+                true_c = float(np.max(np.abs(caps[k] - c_ref) / scale))
+                true_p = abs(peaks[k] / p_ref - 1)
+                bare_c, bare_p = _bare(dc[:k], "axi"), _bare(dp[:k], "axi", peak=True)
+                print(
+                    f"{tag:>6} {name:<30.30} {k:>3} {levels[k].n_unknowns:>6} {true_c:>9.2e} "
+                    f"{bare_c:>9.2e} {true_c / bare_c:>6.2f} {true_p:>9.2e} {bare_p:>9.2e} "
+                    f"{true_p / bare_p:>6.2f}"
+                )
+                key = " probe" if k >= 2 else "2 probe"
+                if true_c > 3 * NOISE_FLOORS[order][0]:
+                    rows["C" + key].append((f"{tag} {name}", k, true_c, bare_c))
+                # Against this reference both orders level off at 1.2-1.4e-7 in the peak (the
+                # fillets meet the flats with a jump in curvature): below 3e-7, the reference
+                # decides, not the level.
+                if true_p > 3e-7:
+                    rows["peak" + key].append((f"{tag} {name}", k, true_p, bare_p))
     if len(sys.argv) > 1:
         Path(sys.argv[1]).write_text(json.dumps(series))
     print("\nratio true / bare estimate (bare: safety 1)")

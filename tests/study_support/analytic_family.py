@@ -10,11 +10,12 @@ break a rule), and designs with 4.0 < width_mm < 4.2 make the "solve" fail (Solv
 from __future__ import annotations
 
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
 
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
+from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
 from elopt.physics.errors import ElectrodeError, SolverError
 from elopt.physics.layout import Layout, driven
 from elopt.physics.solution import ChargeSolution, PeakField, SurfaceSamples
@@ -22,15 +23,24 @@ from elopt.physics.solution import ChargeSolution, PeakField, SurfaceSamples
 
 @dataclass(frozen=True)
 class AnalyticParams:
-    width_mm: float
-    gap_mm: float
-    drive_V: float = 10.0
-    delay_s: float = 0.0
+    width_mm: float = parameter("mm", "fixture width", low=0, low_open=True)
+    gap_mm: float = parameter("mm", "fixture gap", low=0, low_open=True)
+    drive_V: float = parameter("V", "fixture drive", default=10.0)
+    delay_s: float = parameter("s", "time the fixture solve sleeps", default=0.0, low=0)
+
+
+@dataclass(frozen=True)
+class _FixtureLayout(Layout):
+    """The fixture's layout carries its parameters, from which its "solve" computes."""
+
+    params: AnalyticParams | None = None
 
 
 class _FixtureSolution(ChargeSolution):
     def __init__(self, p: AnalyticParams) -> None:
-        self.layout = Layout((driven("sensor", None, p.drive_V), driven("guard", None, p.drive_V)))
+        self.layout = _FixtureLayout(
+            (driven("sensor", None, p.drive_V), driven("guard", None, p.drive_V)), params=p
+        )
         w, g = p.width_mm, p.gap_mm
         self.capacitance_matrix_F = np.array([[w, -g], [-g, w + g]]) * 1e-12
         self.charges_C = self.capacitance_matrix_F.sum(axis=1) * p.drive_V
@@ -95,22 +105,29 @@ class AnalyticFamily(ElectrodeFamily):
                 f"width_mm + gap_mm <= 9 must hold, got {params.width_mm + params.gap_mm:g}"
             )
 
-    def build(self, params: AnalyticParams) -> Layout:
+    def build(self, params: AnalyticParams, *, eps_r: float = 1.0, options=None) -> Layout:
         self.validate(params)
         return _FixtureSolution(params).layout
 
-    def evaluate(self, params: AnalyticParams, *, rel_accuracy: float = 1e-4, eps_r: float = 1.0):
-        self.validate(params)
+    def solve(self, layout: Layout, *, solve_options, options) -> ChargeSolution:
+        params = layout.params
         if params.delay_s:
             time.sleep(params.delay_s)
         if 4.0 < params.width_mm < 4.2:
             raise SolverError(f"fixture solve fails for width_mm={params.width_mm:g} in (4, 4.2)")
+        return _FixtureSolution(params)
+
+    def measure(
+        self,
+        params: AnalyticParams,
+        options,
+        solution: ChargeSolution,
+        companions: Mapping[str, ChargeSolution],
+    ) -> Measured:
         w, g = params.width_mm, params.gap_mm
         score = 10.0 - (w - 3.0) ** 2 - 4.0 * (np.log(g) - np.log(0.5)) ** 2
-        return Evaluation(
-            metrics={"score_fF": float(score), "size_mm": w + g},
-            solution=_FixtureSolution(params),
-            extra={"note": "fixture"},
+        return Measured(
+            metrics={"score_fF": float(score), "size_mm": w + g}, extra={"note": "fixture"}
         )
 
 

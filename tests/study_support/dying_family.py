@@ -1,4 +1,4 @@
-"""Test-only family whose evaluate kills its own process (to test worker-death handling)."""
+"""Test-only family whose solve kills its own process (to test worker-death handling)."""
 
 from __future__ import annotations
 
@@ -11,10 +11,10 @@ from study_support.analytic_family import AnalyticFamily
 class DyingFamily(AnalyticFamily):
     name = "dying_fixture"
 
-    def evaluate(self, params, *, rel_accuracy: float = 1e-4, eps_r: float = 1.0):
-        if params.width_mm > 5:
+    def solve(self, layout, *, solve_options, options):
+        if layout.params.width_mm > 5:
             os.kill(os.getpid(), signal.SIGKILL)
-        return super().evaluate(params, rel_accuracy=rel_accuracy, eps_r=eps_r)
+        return super().solve(layout, solve_options=solve_options, options=options)
 
 
 FAMILY = DyingFamily()

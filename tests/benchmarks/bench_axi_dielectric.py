@@ -1,0 +1,106 @@
+"""Benchmark: the demo spindle probe (configs/spindle_runout_probe.toml) bare, with an
+eps_r = 3 spacer filling the sensor-guard gap, and with a 50 um eps_r = 4 film on the target,
+each solved to 1e-4 on C. Prints median time per solve, unknowns, estimated and achieved error
+against a tight self-reference (1e-7 request). Goal: dielectrics cost at most 3x the bare probe.
+
+    python3 tests/benchmarks/bench_axi_dielectric.py [repeats]
+"""
+
+from __future__ import annotations
+
+import statistics
+import sys
+import time
+import tomllib
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.guarded_disk import GuardedDiskParams, guard_curve, sensor_curve
+from elopt.physics.geometry import Curve, Segment
+from elopt.physics.layout import Layout, driven
+from elopt.physics.media import DielectricRegion, PlanarLayer
+
+MM = 1e-3
+CONFIG = Path(__file__).resolve().parents[2] / "configs" / "spindle_runout_probe.toml"
+
+
+def probe_params() -> GuardedDiskParams:
+    geom = tomllib.loads(CONFIG.read_text())["geometry"]
+    fields = {k: v for k, v in geom.items() if k != "family"}
+    return GuardedDiskParams(**fields)
+
+
+def bare_layout(p: GuardedDiskParams) -> Layout:
+    v = float(p.drive_V)
+    return Layout(
+        (driven("sensor", sensor_curve(p), v), driven("guard", guard_curve(p), v)),
+        ground_plane=True,
+    )
+
+
+def spacer_region(p: GuardedDiskParams, eps_r: float) -> DielectricRegion:
+    """The gap between the straight walls of sensor and guard (between the fillets)."""
+    a = p.sensor_radius_mm * MM
+    r_in = a + p.guard_gap_mm * MM
+    z0 = (p.standoff_mm + p.fillet_mm) * MM
+    z1 = (p.standoff_mm + p.thickness_mm - p.fillet_mm) * MM
+    pts = [(a, z0), (r_in, z0), (r_in, z1), (a, z1), (a, z0)]
+    curve = Curve(tuple(Segment(s, e) for s, e in zip(pts[:-1], pts[1:], strict=True)))
+    return DielectricRegion("spacer", curve, eps_r)
+
+
+def cases(p: GuardedDiskParams) -> dict[str, Layout]:
+    bare = bare_layout(p)
+    return {
+        "bare": bare,
+        "spacer eps_r 3": replace(bare, regions=(spacer_region(p, 3.0),)),
+        "film 50 um eps_r 4": replace(bare, layers=(PlanarLayer("film", 4.0, 0.0, 50e-6),)),
+    }
+
+
+def c_sense(sol) -> float:
+    c = sol.capacitance_matrix_F
+    return float(c[0, 0] + c[0, 1])
+
+
+def main() -> None:
+    repeats = int(sys.argv[1]) if len(sys.argv) > 1 else 3
+    p = probe_params()
+    rows = []
+    for name, layout in cases(p).items():
+        times, sol = [], None
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            sol = solve_axisymmetric(layout, rel_accuracy=1e-4)
+            times.append(time.perf_counter() - t0)
+        ref = solve_axisymmetric(layout, rel_accuracy=1e-7)
+        cref = ref.capacitance_matrix_F
+        scale = np.sqrt(np.abs(np.outer(np.diag(cref), np.diag(cref))))
+        err = float(np.max(np.abs(sol.capacitance_matrix_F - cref) / scale))
+        rows.append(
+            (
+                name,
+                statistics.median(times),
+                sol.n_unknowns,
+                sol.rel_error_estimate,
+                err,
+                c_sense(sol) * 1e12,
+                ref.n_unknowns,
+            )
+        )
+    base = rows[0][1]
+    print(
+        f"{'case':<20} {'median s':>9} {'x bare':>7} {'unknowns':>9} {'est. err':>9} "
+        f"{'true err':>9} {'C_sense pF':>11} {'ref N':>7}"
+    )
+    for name, t, n, est, err, c, nref in rows:
+        print(
+            f"{name:<20} {t:9.3f} {t / base:7.2f} {n:9d} {est:9.2e} {err:9.2e} {c:11.6f} {nref:7d}"
+        )
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,238 @@
+"""The axisymmetric BEM against a general P2 finite-element solve of the same guarded probes.
+
+Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9]`` (needs the ``bench``
+extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their ratio.
+
+Probes (guarded_disk family): sensor radius 2 mm, gap 0.1 mm, guard to 4 mm, thickness
+0.5 mm; (a) filleted 0.05 mm at 0.2 mm standoff, (b) sharp-cornered at 0.5 mm standoff. The
+quantity is the sense capacitance C_sense = Q_sensor / V with the guard driven at V.
+Reference: our BEM at rel_accuracy 1e-9 (its own estimate is printed).
+
+BEM: ``solve_axisymmetric`` at rel_accuracy 1e-4, with its meshing (the per-layout mesh cache
+is cleared before every run, as for a new trial), median of the repeats.
+
+FEM: the Laplace equation in the (r, z) half-plane, weak form integral grad u . grad v r dr dz
+(axisymmetric, r-weighted), isoparametric P2 triangles (gmsh, second-order nodes on the
+fillets), u = 1 V on sensor and guard, 0 on the plane z = 0 and on a quarter circle of radius
+R_out = 25 x the guard's outer radius (truncation); natural condition on the axis. C_sense is the
+Galerkin reaction 2 pi eps sum over the sensor's degrees of freedom of (K u), as accurate as
+the energy. The mesh size grows linearly with the distance from the conductors (slope 0.25)
+and from the corners (slope 0.3), from sizes proportional to a scale s. The scales 8, 5.6, 4,
+2.8, 2, 1.4, 1, 0.7, 0.5 are tried in turn and the first whose error against the reference is at most
+1e-4 is timed (meshing, assembly, solve and charge; median of the repeats): this favours the
+FEM, which is not charged for the search nor for an error estimate of its own. The truncation
+error is stated as the change of C_sense when R_out doubles on that mesh size.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import statistics
+import time
+
+import numpy as np
+
+from elopt.physics.bem_axi import mesh as axi_mesh
+from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.layout import EPS0_F_PER_M
+from elopt.physics.threads import limit_blas_threads
+
+REQUEST = 1e-4
+SCALES = (8.0, 5.6, 4.0, 2.8, 2.0, 1.4, 1.0, 0.7, 0.5)
+TARGET_RATIO = 30.0
+MM = 1e-3
+
+
+def probe_params(fillet_mm: float, standoff_mm: float) -> GuardedDiskParams:
+    return GuardedDiskParams(
+        sensor_radius_mm=2.0,
+        guard_gap_mm=0.1,
+        guard_width_mm=1.9,
+        thickness_mm=0.5,
+        fillet_mm=fillet_mm,
+        standoff_mm=standoff_mm,
+        drive_V=1.0,
+    )
+
+
+def sense_F(c: np.ndarray) -> float:
+    return float(c[0, 0] + c[0, 1])
+
+
+def bem_run(params: GuardedDiskParams, rel_accuracy: float):
+    """One solve as a study trial runs it: a new layout, meshed from scratch."""
+    axi_mesh.clear_mesh_cache()
+    return solve_axisymmetric(GuardedDisk().build(params), rel_accuracy=rel_accuracy)
+
+
+def fem_sense_F(p: GuardedDiskParams, scale: float, r_out_m: float) -> tuple[float, int]:
+    """C_sense (F) and the number of P2 degrees of freedom of one FEM solve (module docs)."""
+    import gmsh
+    from skfem import Basis, BilinearForm, ElementTriP2, MeshTri2, asm, condense, solve
+    from skfem.helpers import dot, grad
+
+    a, g, w = p.sensor_radius_mm * MM, p.guard_gap_mm * MM, p.guard_width_mm * MM
+    t, rho, d = p.thickness_mm * MM, p.fillet_mm * MM, p.standoff_mm * MM
+    gmsh.initialize(readConfigFiles=False)
+    try:
+        gmsh.option.setNumber("General.Terminal", 0)
+        occ = gmsh.model.occ
+        quarter, _ = occ.intersect(
+            [(2, occ.addDisk(0, 0, 0, r_out_m, r_out_m))],
+            [(2, occ.addRectangle(0, 0, 0, r_out_m, r_out_m))],
+        )
+        # The sensor drawn mirrored about the axis: only its off-axis corners get rounded.
+        sensor = occ.addRectangle(-a, d, 0, 2 * a, t, roundedRadius=rho)
+        guard = occ.addRectangle(a + g, d, 0, w, t, roundedRadius=rho)
+        domain, _ = occ.cut(quarter, [(2, sensor), (2, guard)])
+        occ.synchronize()
+        reach = 2.0 * (a + g + w + t)
+        conductor_curves, corner_points = [], set()
+        for _, c in gmsh.model.getBoundary(domain, oriented=False):
+            _, z0, _, r1, z1, _ = gmsh.model.getBoundingBox(1, c)
+            if z0 > 0.5 * d and max(r1, z1) < reach:
+                conductor_curves.append(c)
+                for _, pt in gmsh.model.getBoundary([(1, c)], oriented=False):
+                    if gmsh.model.getValue(0, pt, [])[0] > 1e-12:
+                        corner_points.add(pt)
+        h_face = 0.15 * scale * min(d, t)
+        h_corner = 0.4 * scale * rho if rho > 0 else 0.02 * scale * h_face
+        f = gmsh.model.mesh.field
+        dist = f.add("Distance")
+        f.setNumbers(dist, "CurvesList", conductor_curves)
+        f.setNumber(dist, "Sampling", 200)
+        by_surface = f.add("MathEval")
+        f.setString(by_surface, "F", f"{h_face} + 0.25 * F{dist}")
+        dist_c = f.add("Distance")
+        f.setNumbers(dist_c, "PointsList", sorted(corner_points))
+        by_corner = f.add("MathEval")
+        f.setString(by_corner, "F", f"{h_corner} + 0.3 * F{dist_c}")
+        size = f.add("Min")
+        f.setNumbers(size, "FieldsList", [by_surface, by_corner])
+        f.setAsBackgroundMesh(size)
+        for name, value in (
+            ("Mesh.MeshSizeExtendFromBoundary", 0),
+            ("Mesh.MeshSizeFromPoints", 0),
+            ("Mesh.MeshSizeFromCurvature", 0),
+            ("Mesh.Algorithm", 6),
+        ):
+            gmsh.option.setNumber(name, value)
+        gmsh.model.mesh.generate(2)
+        gmsh.model.mesh.setOrder(2)
+        tags, coords, _ = gmsh.model.mesh.getNodes()
+        _, nodes = gmsh.model.mesh.getElementsByType(9)  # 6-node triangles
+    finally:
+        gmsh.finalize()
+    index = np.empty(int(tags.max()) + 1, np.int64)
+    index[tags.astype(np.int64)] = np.arange(len(tags))
+    mesh = MeshTri2(coords.reshape(-1, 3)[:, :2].T, index[nodes.astype(np.int64)].reshape(-1, 6).T)
+    basis = Basis(mesh, ElementTriP2())
+
+    @BilinearForm
+    def laplace_r(u, v, wp):
+        return dot(grad(u), grad(v)) * wp.x[0]
+
+    k = asm(laplace_r, basis)
+    facets = mesh.boundary_facets()
+    mid = mesh.p[:, mesh.facets[:, facets]].mean(axis=1)
+    tol = 1e-9
+    in_slab = (mid[1] > d - tol) & (mid[1] < d + t + tol)
+    on_sensor = facets[in_slab & (mid[0] < a + tol)]
+    on_guard = facets[in_slab & (mid[0] > a + g - tol) & (mid[0] < a + g + w + tol)]
+    grounded = facets[(mid[1] < tol) | (np.hypot(mid[0], mid[1]) > 0.9 * r_out_m)]
+    dof_s = basis.get_dofs(on_sensor).flatten()
+    dof_g = basis.get_dofs(on_guard).flatten()
+    fixed = np.unique(np.concatenate([dof_s, dof_g, basis.get_dofs(grounded).flatten()]))
+    u = np.zeros(basis.N)
+    u[dof_s] = 1.0
+    u[dof_g] = 1.0
+    u = solve(*condense(k, np.zeros(basis.N), x=u, D=fixed))
+    return 2.0 * math.pi * EPS0_F_PER_M * float((k @ u)[dof_s].sum()), basis.N
+
+
+def median_time(fn, repeats: int) -> tuple[float, float, object]:
+    """Median wall and CPU seconds of ``repeats`` calls after one warm-up, and the last result.
+
+    CPU time (this process) is the steadier figure on a machine shared with other work."""
+    out = fn()
+    walls, cpus = [], []
+    for _ in range(repeats):
+        t0, c0 = time.perf_counter(), time.process_time()
+        out = fn()
+        walls.append(time.perf_counter() - t0)
+        cpus.append(time.process_time() - c0)
+    return statistics.median(walls), statistics.median(cpus), out
+
+
+def main() -> None:
+    limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeats", type=int, default=9)
+    args = parser.parse_args()
+    rows = []
+    for label, fillet_mm, standoff_mm in (
+        ("filleted 0.05 mm, d 0.2 mm", 0.05, 0.2),
+        ("sharp, d 0.5 mm", 0.0, 0.5),
+    ):
+        params = probe_params(fillet_mm, standoff_mm)
+        ref_sol = solve_axisymmetric(GuardedDisk().build(params), rel_accuracy=1e-9)
+        ref = sense_F(ref_sol.capacitance_matrix_F)
+        t_bem, c_bem, sol = median_time(lambda p=params: bem_run(p, REQUEST), args.repeats)
+        bem_err = abs(sense_F(sol.capacitance_matrix_F) / ref - 1.0)
+        r_out = 25.0 * (2.0 + 0.1 + 1.9) * MM
+        chosen = None
+        for scale in SCALES:
+            c, n_dofs = fem_sense_F(params, scale, r_out)
+            if abs(c / ref - 1.0) <= REQUEST:
+                chosen = scale
+                break
+        if chosen is None:
+            raise SystemExit(f"{label}: the FEM did not reach {REQUEST:g} down to scale {scale}")
+        t_fem, cpu_fem, (c_fem, n_dofs) = median_time(
+            lambda p=params, s=chosen, r=r_out: fem_sense_F(p, s, r), max(3, args.repeats // 3)
+        )
+        c_wide, _ = fem_sense_F(params, chosen, 2.0 * r_out)
+        rows.append(
+            (
+                label,
+                t_bem,
+                c_bem,
+                bem_err,
+                sol.rel_error_estimate,
+                sol.n_unknowns,
+                t_fem,
+                cpu_fem,
+                abs(c_fem / ref - 1.0),
+                abs(c_wide / c_fem - 1.0),
+                chosen,
+                n_dofs,
+                ref_sol.rel_error_estimate,
+            )
+        )
+    print(
+        f"request {REQUEST:g} on C_sense; BEM median of {args.repeats}, FEM median of "
+        f"{max(3, args.repeats // 3)} (meshing included in both)"
+    )
+    print(
+        f"{'probe':28s} {'BEM ms':>8s} {'cpu ms':>7s} {'BEM err':>8s} {'estim.':>8s} {'N':>5s} "
+        f"{'FEM ms':>8s} {'cpu ms':>7s} {'FEM err':>8s} {'trunc.':>8s} {'scale':>5s} "
+        f"{'DOFs':>6s} {'FEM/BEM wall':>12s} {'cpu':>6s}"
+    )
+    for label, tb, cb, eb, est, n, tf, cf, ef, trunc, scale, dofs, _ in rows:
+        print(
+            f"{label:28s} {tb * 1e3:8.2f} {cb * 1e3:7.2f} {eb:8.1e} {est:8.1e} {n:5d} "
+            f"{tf * 1e3:8.1f} {cf * 1e3:7.1f} {ef:8.1e} {trunc:8.1e} {scale:5.1f} {dofs:6d} "
+            f"{tf / tb:11.1f}x {cf / cb:5.1f}x"
+        )
+    print(
+        "references: BEM at 1e-9 (estimates "
+        + ", ".join(f"{r[-1]:.0e}" for r in rows)
+        + f"); target FEM/BEM >= {TARGET_RATIO:g}x (long-term 100x); trunc. = change of "
+        "the FEM's C_sense when R_out doubles"
+    )
+
+
+if __name__ == "__main__":
+    main()
