@@ -6,6 +6,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 from collections.abc import Sequence
 
 from elopt.optimizer import __version__
@@ -39,14 +40,20 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.verb is None:
         parser.print_help()
         return 0
-    try:
-        return int(args.func(args))
-    except ElOptError as exc:
-        print(f"elopt: error: {exc}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("elopt: interrupted", file=sys.stderr)
-        return 130
+    # Library warnings are held back: a refusal is one line, and on success they follow the
+    # output instead of interleaving with it.
+    with warnings.catch_warnings(record=True) as caught:
+        try:
+            status = int(args.func(args))
+        except ElOptError as exc:
+            print(f"elopt: error: {exc}", file=sys.stderr)
+            return 2
+        except KeyboardInterrupt:
+            print("elopt: interrupted", file=sys.stderr)
+            return 130
+    for w in caught:
+        warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    return status
 
 
 if __name__ == "__main__":
