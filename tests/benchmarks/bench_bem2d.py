@@ -64,7 +64,7 @@ def bench_cell(repeats: int) -> None:
 def bench_study(trials: int, workers: int) -> None:
     from elopt.optimizer.config.study_config import load_study_config
     from elopt.optimizer.run.local_pool import LocalProcessPool
-    from elopt.optimizer.store.study_file import StudyWriter, read_study
+    from elopt.optimizer.store import StudyWriter, read_study
     from elopt.optimizer.study.search import RunLimits, run_search, study_header
 
     spec = load_study_config(DEMO)
