@@ -18,7 +18,7 @@ from study_support.cli import reported_complete, run_elopt, start_elopt
 from study_support.configs import guarded_disk_study
 
 from elopt.optimizer.cli.main import main
-from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.store import read_study
 
 
 def _one_error_line(capsys) -> str:
@@ -188,7 +188,7 @@ def test_show_one_trial(finished_study, capsys):
 
 
 def read_trial_arrays_fF(path, i):
-    from elopt.optimizer.store.study_file import read_trial_arrays
+    from elopt.optimizer.store import read_trial_arrays
 
     return read_trial_arrays(path, i).capacitance_F * 1e15
 

@@ -1,4 +1,5 @@
-"""The ``elopt`` command line: one verb per job (solve, check, run, resume, front, show)."""
+"""The ``elopt`` command line: one verb per job (solve, check, run, resume, front, show,
+salvage)."""
 
 from __future__ import annotations
 
@@ -15,6 +16,7 @@ from elopt.physics.threads import limit_blas_threads
 VERB_MODULES: list[str] = []
 VERB_MODULES += ["elopt.optimizer.cli.run", "elopt.optimizer.cli.front", "elopt.optimizer.cli.show"]
 VERB_MODULES += ["elopt.optimizer.cli.solve", "elopt.optimizer.cli.check"]
+VERB_MODULES += ["elopt.optimizer.cli.salvage"]
 
 
 def build_parser() -> argparse.ArgumentParser:

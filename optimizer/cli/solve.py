@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import argparse
-import json
 
 from rich.console import Console
 
 from elopt.optimizer.config import read_solve_config
-from elopt.optimizer.record import solve_record
+from elopt.optimizer.record import solve_record, strict_dumps
 from elopt.optimizer.report.solve_report import render_solve_report
 from elopt.physics.electrodes.pipeline import evaluate_design
 from elopt.physics.electrodes.registry import get_family
@@ -39,7 +38,7 @@ def run(args: argparse.Namespace) -> int:
         options=spec.options,
     )
     if args.json:
-        print(json.dumps(solve_record(spec, family, evaluation), indent=2))
+        print(strict_dumps(solve_record(spec, family, evaluation), indent=2))
     else:
         render_solve_report(Console(), spec, family, evaluation)
     return 0

@@ -186,7 +186,9 @@ class DielectricSolution(ChargeSolution):
         return np.einsum("q,qi,qj->ij", 2 * np.pi * r * w / (EPS0_F_PER_M * eps), s, s)
 
     def plane_sensitivity_density(self, i: int, j: int, points_m: np.ndarray) -> np.ndarray:
-        self._require_bare_plane()
+        """sigma_i sigma_j / (eps0 eps_r) on the plane (F/m^3), eps_r of the medium touching it.
+        Bare plane: the integrand of :meth:`plane_capacitance_derivative_F_per_m`; under a layer,
+        that of the plane moving up into the layer (the layer thinning), a spot indicator."""
         s, eps = self._plane_density_columns(np.asarray(points_m, float), self._fine.u[:, [i, j]])
         return s[:, 0] * s[:, 1] / (EPS0_F_PER_M * eps)
 

@@ -4,14 +4,21 @@ Geometry (parameters in mm, SI inside), in the (r, z) half-plane above the targe
 
 - sensor: solid cylinder r <= a, d + s <= z <= d + s + t (face recessed by s >= 0);
 - guard: solid annulus a + g <= r <= a + g + w, d <= z <= d + t (face at the standoff d);
-- every off-axis corner of both cross-sections rounded with radius rho (rho = 0: sharp).
+- every off-axis corner of both cross-sections rounded with radius rho (rho = 0: sharp);
+- optional insulators: a spacer of ``spacer_eps_r`` filling the sensor-guard gap between the
+  fillets (a <= r <= a + g, d + rho <= z <= d + t - rho; needs no recess), a housing sleeve of
+  ``housing_width_mm`` and ``housing_eps_r`` on the guard's outer wall between the fillets, and
+  a layer of ``target_layer_um`` and ``target_layer_eps_r`` on the target (a coating, a film).
 
 Sensor and guard are both driven at V (driven guard); the target plane is at 0. The sense
 capacitance is C_sense = Q_sensor / V = C_ss + C_sg of the Maxwell matrix. Its sensitivity
 to the standoff comes from one solve through the Hadamard shape derivative of the target:
 -dC_sense/dd = (1/eps) * integral over the plane of sigma_s (sigma_s + sigma_g), with sigma_i
 the plane's charge density with conductor i at 1 V and the other at 0. The integrand is the
-sensitivity density; the radius holding 90 % of it is the probe's spot radius.
+sensitivity density; the radius holding 90 % of it is the probe's spot radius. With a layer on
+the target that formula does not hold: the standoff sensitivity and the layer's thickness and
+permittivity sensitivities are central differences at the solution's mesh level (Richardson
+error estimate in ``extra``), and the spot uses the plane's density under the layer.
 """
 
 from __future__ import annotations
@@ -29,13 +36,18 @@ from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
-from elopt.physics.geometry import Curve, rounded_polyline
+from elopt.physics.geometry import Curve, Segment, rounded_polyline
 from elopt.physics.layout import Layout, driven
+from elopt.physics.media import DielectricRegion, PlanarLayer
 from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
+UM = 1e-6
 SENSOR = "sensor"
 GUARD = "guard"
+SPACER = "spacer"
+HOUSING = "housing"
+TARGET_LAYER = "target layer"
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
 #: Key prefix of the linearity sweep's companion designs.
@@ -56,6 +68,22 @@ class GuardedDiskParams:
     )
     drive_V: float = parameter("V", "sensor and guard potential", nonzero=True)
     recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0, mounting=True)
+    spacer_eps_r: float = parameter(
+        "1", "eps_r of a spacer filling the sensor-guard gap (1: none)", default=1.0, low=1
+    )
+    housing_width_mm: float = parameter(
+        "mm",
+        "width of an insulating sleeve on the guard's outer wall (0: none)",
+        default=0.0,
+        low=0,
+    )
+    housing_eps_r: float = parameter("1", "eps_r of the sleeve", default=3.0, low=1)
+    target_layer_um: float = parameter(
+        "um", "thickness of a layer on the target (0: bare)", default=0.0, low=0, mounting=True
+    )
+    target_layer_eps_r: float = parameter(
+        "1", "eps_r of the layer on the target", default=4.0, low=1, mounting=True
+    )
 
 
 @dataclass(frozen=True)
@@ -153,6 +181,8 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
         m.LINEARITY,
         m.EFFECTIVE_RADIUS,
         m.OUTER_RADIUS,
+        m.LAYER_THICKNESS_SENSITIVITY,
+        m.LAYER_EPS_SENSITIVITY,
     )
 
     def validate(self, params: GuardedDiskParams) -> None:
@@ -175,6 +205,23 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
                 "thickness_mm",
                 "the sensor face must stay within the guard",
             )
+            if p.target_layer_um > 0 and p.target_layer_um * 1e-3 >= p.standoff_mm:
+                rules.broken.append(
+                    f"target_layer_um = {p.target_layer_um:g} must be below standoff_mm * 1000 = "
+                    f"{p.standoff_mm * 1e3:g} (a layer that thick would bury the probe face)"
+                )
+            if p.spacer_eps_r != 1.0 and p.recess_mm > 0:
+                rules.broken.append(
+                    f"spacer_eps_r = {p.spacer_eps_r:g} needs recess_mm = 0 (got "
+                    f"{p.recess_mm:g}): the spacer fills the gap between flush walls"
+                )
+            if (p.spacer_eps_r != 1.0 or p.housing_width_mm > 0) and not (
+                p.thickness_mm > 2 * p.fillet_mm
+            ):
+                rules.broken.append(
+                    f"a spacer or sleeve needs thickness_mm = {p.thickness_mm:g} > 2 fillet_mm = "
+                    f"{2 * p.fillet_mm:g} (it sits on the straight walls between the fillets)"
+                )
         rules.raise_if_broken()
 
     def validate_options(self, options: GuardedDiskOptions) -> None:
@@ -200,6 +247,8 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
             ),
             eps_r=eps_r,
             ground_plane=True,
+            layers=target_layers(params),
+            regions=insulators(params),
         )
 
     def companion_designs(
@@ -227,6 +276,7 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
         c = sol.capacitance_matrix_F
         r_grid = target_grid(params)
         density = sensitivity_density_F_per_m3(sol, r_grid)
+        layer = layer_sensitivities(sol) if params.target_layer_um > 0 else None
         peak = sol.peak_field
         standoffs = linearity_standoffs_m(params, options)
         c_curve = np.array(
@@ -241,11 +291,22 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
             m.COUPLING.name: -float(c[0, 1]) * 1e15,
             m.PEAK_R.name: float(peak.location_m[0]) / MM,
             m.PEAK_Z.name: float(peak.location_m[1]) / MM,
-            m.SENSITIVITY.name: sensitivity_F_per_m(sol) * FF_PER_UM,
+            m.SENSITIVITY.name: (layer["standoff_F_per_m"] if layer else sensitivity_F_per_m(sol))
+            * FF_PER_UM,
             m.SPOT.name: spot_radius(r_grid, density, 0.9) / MM,
             m.LINEARITY.name: linearity,
             m.EFFECTIVE_RADIUS.name: parallel_plate_radius_m(c_sense, d, eps) / MM,
             m.OUTER_RADIUS.name: outer_radius_mm(params),
+            # bare target: the onset of a layer of target_layer_eps_r (a thin sheet of the
+            # field-normal gap turning dielectric: (1 - eps_medium/eps_layer) x sensitivity;
+            # a layer of no thickness has no permittivity sensitivity)
+            m.LAYER_THICKNESS_SENSITIVITY.name: (
+                layer["thickness_F_per_m"]
+                if layer
+                else (1 - sol.layout.eps_r / params.target_layer_eps_r) * sensitivity_F_per_m(sol)
+            )
+            * FF_PER_UM,
+            m.LAYER_EPS_SENSITIVITY.name: layer["eps_F"] * 1e15 if layer else 0.0,
         }
         extra: dict[str, Any] = {
             "sense_capacitance_F": c_sense,
@@ -255,7 +316,62 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
             "linearity_standoff_m": standoffs,
             "linearity_sense_capacitance_F": c_curve,
         }
+        if layer:
+            extra["layer_derivative_rel_error_estimates"] = layer["rel_errors"]
         return Measured(metrics, extra)
+
+
+def target_layers(p: GuardedDiskParams) -> tuple[PlanarLayer, ...]:
+    """The layer on the target (a coating, a film), if any."""
+    if p.target_layer_um <= 0:
+        return ()
+    return (PlanarLayer(TARGET_LAYER, p.target_layer_eps_r, 0.0, p.target_layer_um * UM),)
+
+
+def insulators(p: GuardedDiskParams) -> tuple[DielectricRegion, ...]:
+    """The spacer in the sensor-guard gap and the sleeve on the guard, if any: rectangles on
+    the straight walls between the fillets (their corners meet the walls at the fillets' ends,
+    where the conductor curves have joints)."""
+    a = p.sensor_radius_mm * MM
+    r_in = a + p.guard_gap_mm * MM
+    r_out = r_in + p.guard_width_mm * MM
+    z0 = (p.standoff_mm + p.fillet_mm) * MM
+    z1 = (p.standoff_mm + p.thickness_mm - p.fillet_mm) * MM
+    out = []
+    if p.spacer_eps_r != 1.0:
+        out.append(DielectricRegion(SPACER, _box(a, r_in, z0, z1), p.spacer_eps_r))
+    if p.housing_width_mm > 0:
+        sleeve = _box(r_out, r_out + p.housing_width_mm * MM, z0, z1)
+        out.append(DielectricRegion(HOUSING, sleeve, p.housing_eps_r))
+    return tuple(out)
+
+
+def _box(r0: float, r1: float, z0: float, z1: float) -> Curve:
+    pts = [(r0, z0), (r1, z0), (r1, z1), (r0, z1), (r0, z0)]
+    return Curve(tuple(Segment(s, e) for s, e in zip(pts[:-1], pts[1:], strict=True)))
+
+
+def layer_sensitivities(solution: ChargeSolution) -> dict[str, Any]:
+    """-dC_sense/d(standoff), dC_sense/d(layer thickness) (F/m) and dC_sense/d(layer eps_r)
+    (F) by central differences at the solution's mesh level, with their Richardson errors."""
+    std = solution.standoff_derivative_fd()
+    thick = solution.layer_thickness_derivative(TARGET_LAYER)
+    eps = solution.eps_derivative(TARGET_LAYER)
+
+    def sense(fd) -> float:
+        return float(fd.value[0, 0] + fd.value[0, 1])
+
+    return {
+        # the plane and its layer moving up by delta is the standoff shrinking by delta
+        "standoff_F_per_m": sense(std),
+        "thickness_F_per_m": sense(thick),
+        "eps_F": sense(eps),
+        "rel_errors": {
+            "standoff": std.rel_error_estimate,
+            "thickness": thick.rel_error_estimate,
+            "eps_r": eps.rel_error_estimate,
+        },
+    }
 
 
 def linearity_standoffs_m(params: GuardedDiskParams, options: GuardedDiskOptions) -> np.ndarray:

@@ -63,6 +63,19 @@ EFFECTIVE_AREA = MetricSpec(
     "effective_area_mm2", "mm^2", "parallel-plate area giving the sense capacitance", "either"
 )
 
+LAYER_THICKNESS_SENSITIVITY = MetricSpec(
+    "layer_thickness_sensitivity_fF_per_um",
+    "fF/um",
+    "d(sense capacitance)/d(thickness of the layer on the target) (bare: layer onset)",
+    "either",
+)
+LAYER_EPS_SENSITIVITY = MetricSpec(
+    "layer_eps_sensitivity_fF",
+    "fF",
+    "d(sense capacitance)/d(eps_r of the layer on the target) (bare: 0)",
+    "either",
+)
+
 # ---------------------------------------------------------------- size
 OUTER_RADIUS = MetricSpec("outer_radius_mm", "mm", "outer radius of the guard", "minimize")
 OUTER_SIZE = MetricSpec("outer_size_mm", "mm", "longer outer side of the guard", "minimize")
