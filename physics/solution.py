@@ -6,18 +6,22 @@ positions in m. Points are (r, z) pairs for the axisymmetric solver and (x, y, z
 the 3-D solver; ``point_dim`` says which.
 
 The Maxwell capacitance matrix ``C`` gives the conductor charges for conductor potentials with
-no applied field: ``Q = C @ V``. It is symmetric with a positive diagonal and a non-positive
-off-diagonal. The ground plane (when present) is the reference conductor and is not a row.
+no applied field: ``Q = C @ V``, column j being the charges with conductor j at 1 V and the rest
+at 0, each the integral of the solved density. It is not symmetrised: its asymmetry is a
+discretisation error, measured and folded into ``rel_error_estimate``. The ground plane (when
+present) is the reference conductor and is not a row.
 """
 
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
+from typing import Literal
 
 import numpy as np
 
 from elopt.physics.layout import Layout
+from elopt.physics.refinement import ErrorEstimate, Refinement, SolveOptions, StopReason
 
 
 def excitation_potentials(
@@ -42,12 +46,44 @@ def excitation_potentials(
 
 
 @dataclass(frozen=True)
+class SurfaceSamples:
+    """Free surface charge on one conductor at the excitation, sample by sample.
+
+    ``kind`` "profile": points on the generating curve of a cross-section, (K, 2) as (r, z)
+    for bodies of revolution or (x, z) in 2-D; "panels": (K, 3) panel centroids. Per sample:
+    ``sigma_C_per_m2`` the density on that face, ``field_V_per_m`` = |sigma| / eps of the
+    medium touching that face, ``area_m2`` the quadrature area (axisymmetric: including 2 pi r;
+    2-D: per metre of length), ``face`` 0 on a closed surface, +1 / -1 on the two faces of an
+    open sheet (+1: the face its normal points out of), ``normal`` (K, d) the unit outward
+    normal of that face, ``arc_length_m`` for profiles the distance along the generating curve
+    from its start (both faces of a sheet share it), None for panels. Samples are ordered by
+    face (+1 before -1), then along the curve.
+    """
+
+    conductor: str
+    kind: Literal["profile", "panels"]
+    points_m: np.ndarray
+    sigma_C_per_m2: np.ndarray
+    field_V_per_m: np.ndarray
+    area_m2: np.ndarray
+    face: np.ndarray
+    normal: np.ndarray
+    arc_length_m: np.ndarray | None
+
+    @property
+    def charge_C(self) -> float:
+        """Total charge of the samples (both faces of a sheet), C."""
+        return float(np.sum(self.sigma_C_per_m2 * self.area_m2))
+
+
+@dataclass(frozen=True)
 class PeakField:
     """Largest surface field magnitude |sigma|/eps on one conductor at the actual excitation.
 
     ``singular`` is True when the peak sits at a sharp edge or corner: the field there is
     infinite in the exact solution, so the reported value depends on the mesh and is no
-    design number (round the edge). ``rel_error_estimate`` compares the two finest meshes.
+    design number (round the edge). ``rel_error_estimate``: estimated relative error of
+    ``field_V_per_m`` from the last levels (see :mod:`elopt.physics.refinement`), NaN after one.
     """
 
     conductor: str
@@ -62,9 +98,10 @@ class ChargeSolution(ABC):
 
     Guarantees: ``capacitance_matrix_F`` is (n, n) for n conductors in layout order;
     ``charges_C`` and ``potentials_V`` are (n,) at the layout's excitation (floating
-    conductors' potentials solved for); ``rel_error_estimate`` is the largest entry-wise change
-    of C between the last two refinement levels, each entry scaled by sqrt(C_ii C_jj);
-    ``accuracy_met`` says whether it reached ``requested_accuracy``.
+    conductors' potentials solved for); ``rel_error_estimate`` estimates the largest error
+    of an entry (i, j) of C relative to sqrt(C_ii C_jj) (see :mod:`elopt.physics.refinement`);
+    ``accuracy_met`` says whether every request of ``options`` was met (``requested_accuracy``
+    is ``options.rel_accuracy``); ``stop_reason`` why refinement stopped.
     """
 
     layout: Layout
@@ -76,6 +113,20 @@ class ChargeSolution(ABC):
     accuracy_met: bool
     n_unknowns: int
     point_dim: int
+    options: SolveOptions
+    stop_reason: StopReason
+    error_estimate: ErrorEstimate
+    levels: tuple
+
+    def _adopt(self, refinement: Refinement) -> None:
+        """Take the refinement's verdict (solver constructors call this)."""
+        self.levels = refinement.levels
+        self.options = refinement.options
+        self.error_estimate = refinement.estimate
+        self.stop_reason = refinement.stop_reason
+        self.rel_error_estimate = float(refinement.estimate.capacitance)
+        self.requested_accuracy = float(refinement.options.rel_accuracy)
+        self.accuracy_met = bool(refinement.accuracy_met)
 
     @abstractmethod
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
@@ -86,17 +137,17 @@ class ChargeSolution(ABC):
         """Electric field in V/m at points (M, point_dim) -> (M, point_dim)."""
 
     @abstractmethod
-    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
-        """Surface charge along one conductor at the excitation.
+    def surface_samples(self, conductor: str) -> SurfaceSamples:
+        """Surface charge on one conductor at the excitation (see :class:`SurfaceSamples`)."""
 
-        Returns arrays of one length K: ``points_m`` (K, point_dim), ``sigma_C_per_m2`` (K,),
-        ``area_m2`` (K,) quadrature area per sample (sums to the surface area), and
-        ``field_V_per_m`` (K,) = |sigma|/eps. The axisymmetric solver adds ``arc_length_m``.
-        """
-
-    @abstractmethod
     def peak_fields(self) -> tuple[PeakField, ...]:
-        """One :class:`PeakField` per conductor, layout order."""
+        """One :class:`PeakField` per conductor, layout order, on the finest level."""
+        errors = self.error_estimate.peaks if len(self.levels) >= 2 else ()
+        out = []
+        for k, p in enumerate(self.levels[-1].peaks()):
+            err = float(errors[k]) if k < len(errors) else float("nan")
+            out.append(PeakField(p.conductor, p.field_V_per_m, p.location_m, p.singular, err))
+        return tuple(out)
 
     @abstractmethod
     def plane_capacitance_derivative_F_per_m(self) -> np.ndarray:

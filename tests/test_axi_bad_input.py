@@ -110,8 +110,10 @@ def test_solver_options_out_of_range_are_refused():
     lay = Layout((driven("ball", geo.sphere(1.0), 1.0),))
     with pytest.raises(SolverError, match=r"rel_accuracy must lie in \(0, 1\), got 2"):
         solve_axisymmetric(lay, rel_accuracy=2.0)
-    with pytest.raises(SolverError, match="max_level must be >= 1"):
-        solve_axisymmetric(lay, max_level=0)
+    with pytest.raises(SolverError, match="max_level must be a whole number >= 0, got -1"):
+        solve_axisymmetric(lay, max_level=-1)
+    with pytest.raises(SolverError, match="unknown solve option 'max_panels'"):
+        solve_axisymmetric(lay, max_panels=10)
 
 
 def test_problem_too_large_before_an_estimate_is_refused_with_the_numbers():

@@ -97,10 +97,8 @@ def test_compressed_matrix_reproduces_the_dense_one(ground_plane):
 
 def test_fast_and_dense_solves_agree():
     layout = Layout((driven("ball", sphere(1.0, subdivisions=3), 1.0),))
-    dense = solve_3d(layout, method="dense", max_level=0, min_levels=1, strict=False)
-    fast = solve_3d(
-        layout, method="fast", max_level=0, min_levels=1, strict=False, rel_accuracy=1e-5
-    )
+    dense = solve_3d(layout, method="dense", max_level=0, strict=False)
+    fast = solve_3d(layout, method="fast", max_level=0, strict=False, rel_accuracy=1e-5)
     assert fast.levels[0].stats.method == "fast" and dense.levels[0].stats.method == "dense"
     assert fast.capacitance_matrix_F[0, 0] == pytest.approx(
         dense.capacitance_matrix_F[0, 0], rel=1e-6

@@ -99,18 +99,14 @@ def test_tilt_derivative_matches_finite_differences_of_rotated_layouts():
     # central difference of rotated layouts checks the Hadamard tilt formula.
     layout = revolved_layout(GuardedDisk().build(PROBE), h_m=0.8e-3)
     x0 = -1.5e-3
-    sol = solve_3d(
-        layout, rel_accuracy=1e-2, start_level=0, max_level=0, min_levels=1, strict=False
-    )
+    sol = solve_3d(layout, rel_accuracy=1e-2, start_level=0, max_level=0, strict=False)
     d_tilt = sol.plane_tilt_derivative_F_per_rad(axis_point_m=(x0, 0.0), axis_direction=(0.0, 1.0))
     theta = 2e-3
     axis_point = np.array([x0, 0.0, 0.0])
     caps = []
     for sign in (+1, -1):
         turned = _rotated(layout, -sign * theta, axis_point)
-        s = solve_3d(
-            turned, rel_accuracy=1e-2, start_level=0, max_level=0, min_levels=1, strict=False
-        )
+        s = solve_3d(turned, rel_accuracy=1e-2, start_level=0, max_level=0, strict=False)
         caps.append(s.capacitance_matrix_F)
     fd = (caps[0] - caps[1]) / (2 * theta)
     # A nonzero check: with the axis off-centre the plane under the probe moves.

@@ -107,13 +107,14 @@ def _fill(out: TrialOutcome, evaluation: Any, metric_names: tuple[str, ...]) -> 
     }
     for i, name in enumerate(names):
         s = sol.surface_samples(name)
-        pts = np.asarray(s["points_m"], dtype=float)
+        pts = np.asarray(s.points_m, dtype=float)
         k = len(pts)
+        arc = np.zeros(k) if s.arc_length_m is None else s.arc_length_m
         columns["conductor"].append(np.full(k, i, dtype=np.int16))
-        columns["arc_length_m"].append(np.asarray(s.get("arc_length_m", np.zeros(k)), dtype=float))
+        columns["arc_length_m"].append(np.asarray(arc, dtype=float))
         columns["r_m"].append(pts[:, 0])
         columns["z_m"].append(pts[:, -1])
-        columns["sigma_C_per_m2"].append(np.asarray(s["sigma_C_per_m2"], dtype=float))
+        columns["sigma_C_per_m2"].append(np.asarray(s.sigma_C_per_m2, dtype=float))
     out.profile = {k: np.concatenate(v) if v else np.zeros(0) for k, v in columns.items()}
     out.metrics = metrics
     out.conductor_names = names

@@ -26,12 +26,9 @@ EVAL_TOL = 1e-6
 
 
 def potential_and_gradient(
-    panels: PanelSet, density: np.ndarray, points_m: np.ndarray, *, gradient_only: bool = False
-) -> tuple[np.ndarray | None, np.ndarray]:
-    """Potential integrals (M, K) and gradients (M, 3, K) of ``density`` (N, K) at points.
-
-    With ``gradient_only`` the potential is not computed (None).
-    """
+    panels: PanelSet, density: np.ndarray, points_m: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Potential integrals (M, K) and gradients (M, 3, K) of ``density`` (N, K) at points."""
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
     dens = _columns(density)
     m, k = len(pts), dens.shape[1]
@@ -42,8 +39,6 @@ def potential_and_gradient(
     grad = np.stack(
         [directional_derivative(panels, dens, pts, np.tile(e, (m, 1))) for e in np.eye(3)], axis=1
     )
-    if gradient_only:
-        return None, grad
     h = HMatrix(panels, tol=EVAL_TOL, targets=pts)
     pot = np.stack([h.matvec(dens[:, c]) for c in range(k)], axis=1)
     return pot, grad

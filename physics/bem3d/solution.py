@@ -20,7 +20,8 @@ from elopt.physics.bem3d.panels import PanelSet
 from elopt.physics.bem3d.plane_rule import plane_rule
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
-from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
+from elopt.physics.solution import ChargeSolution, SurfaceSamples, excitation_potentials
 
 #: Points for the one-sided field of a sheet face sit this many panel sizes off the panel.
 _FACE_OFFSET = 1e-7
@@ -31,6 +32,7 @@ class LevelResult3D:
     """One level: panels, unit-potential densities (N, n) C/m^2 per V, applied-field
     response (N,), capacitance matrix (n, n) F, applied-field charges (n,) C, solve stats."""
 
+    layout: Layout
     panels: PanelSet
     sigma_unit: np.ndarray
     sigma_applied: np.ndarray
@@ -42,6 +44,76 @@ class LevelResult3D:
         """Conductor potentials (n,) V and panel densities (N,) at the layout's excitation."""
         volts = excitation_potentials(layout, self.capacitance_F, self.applied_charges_C)
         return volts, self.sigma_unit @ volts + self.sigma_applied
+
+    @property
+    def n_unknowns(self) -> int:
+        return self.panels.n
+
+    @cached_property
+    def excitation_samples(self) -> dict:
+        """Face samples (see :func:`face_samples`) of the density at the excitation."""
+        _, sigma = self.excitation(self.layout)
+        return face_samples(self, self.layout, sigma[:, None], applied=True)
+
+    def peaks(self) -> tuple[LevelPeak, ...]:
+        """Peak surface field per conductor at the excitation: the largest face sample."""
+        return self._peaks
+
+    @cached_property
+    def _peaks(self) -> tuple[LevelPeak, ...]:
+        s = self.excitation_samples
+        field = np.abs(s["sigma"][:, 0]) / self.layout.eps_F_per_m
+        singular = self.panels.feature[s["panel"]]
+        return peaks_per_conductor(self.layout.names, s["owner"], field, s["points_m"], singular)
+
+
+def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied: bool) -> dict:
+    """Samples of every panel (closed: one; sheet: one per face) for densities (N, K).
+
+    Keys: ``points_m`` (S, 3), ``normals`` (S, 3), ``panel`` (S,) panel index, ``owner`` (S,),
+    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the density on that face, ``area_m2`` (S,).
+    """
+    p = level.panels
+    mesh = p.mesh
+    idx = np.arange(p.n)
+    sheet = np.nonzero(p.sheet)[0]
+    points = [mesh.centroids_m]
+    normals = [mesh.normals]
+    panel = [idx]
+    face = [np.zeros(p.n, dtype=np.int8)]
+    sigma = [dens]
+    area = [mesh.areas_m2]
+    if len(sheet):
+        # Replace each sheet panel by its two faces: sigma_face = eps E . n_face just off it.
+        offset = (_FACE_OFFSET * mesh.diameters_m[sheet])[:, None] * mesh.normals[sheet]
+        c = mesh.centroids_m[sheet]
+        probes = np.concatenate([c + offset, c - offset])
+        n2 = np.concatenate([mesh.normals[sheet], -mesh.normals[sheet]])
+        # eps E . n = -grad(pot integral) . n (the 1/eps of the potential cancels).
+        on_face = -directional_derivative(p, dens, probes, n2)
+        if applied:
+            on_face += (layout.eps_F_per_m * layout.applied_field_V_per_m * n2[:, 2])[:, None]
+        keep = ~p.sheet
+        points = [mesh.centroids_m[keep], c, c]
+        normals = [mesh.normals[keep], mesh.normals[sheet], -mesh.normals[sheet]]
+        panel = [idx[keep], sheet, sheet]
+        face = [
+            np.zeros(int(keep.sum()), dtype=np.int8),
+            np.ones(len(sheet), dtype=np.int8),
+            -np.ones(len(sheet), dtype=np.int8),
+        ]
+        sigma = [dens[keep], on_face[: len(sheet)], on_face[len(sheet) :]]
+        area = [mesh.areas_m2[keep], mesh.areas_m2[sheet], mesh.areas_m2[sheet]]
+    panel_all = np.concatenate(panel)
+    return {
+        "points_m": np.concatenate(points),
+        "normals": np.concatenate(normals),
+        "panel": panel_all,
+        "owner": p.owner[panel_all],
+        "face": np.concatenate(face),
+        "sigma": np.concatenate(sigma),
+        "area_m2": np.concatenate(area),
+    }
 
 
 class PanelSolution(ChargeSolution):
@@ -57,19 +129,15 @@ class PanelSolution(ChargeSolution):
     def __init__(
         self,
         layout: Layout,
-        levels: tuple[LevelResult3D, ...],
-        rel_error_estimate: float,
-        requested_accuracy: float,
+        refinement: Refinement,
         capacitance_extrapolated_F: np.ndarray | None,
         convergence_rate: float | None,
     ) -> None:
         self.layout = layout
-        self.levels = levels
-        self.rel_error_estimate = float(rel_error_estimate)
-        self.requested_accuracy = float(requested_accuracy)
-        self.accuracy_met = bool(self.rel_error_estimate <= self.requested_accuracy)
+        self._adopt(refinement)
         self.capacitance_matrix_extrapolated_F = capacitance_extrapolated_F
         self.convergence_rate = convergence_rate
+        levels = self.levels
         fine = levels[-1]
         self._fine = fine
         self.panels = fine.panels
@@ -108,90 +176,29 @@ class PanelSolution(ChargeSolution):
         return e
 
     # -- surface -----------------------------------------------------------------------------
-    def _face_samples(self, level: LevelResult3D, dens: np.ndarray, applied: bool) -> dict:
-        """Samples of every panel (closed: one; sheet: one per face) for densities (N, K)."""
-        p = level.panels
-        mesh = p.mesh
-        idx = np.arange(p.n)
-        sheet = np.nonzero(p.sheet)[0]
-        points = [mesh.centroids_m]
-        normals = [mesh.normals]
-        panel = [idx]
-        sigma = [dens]
-        area = [mesh.areas_m2]
-        if len(sheet):
-            # Replace each sheet panel by its two faces: sigma_face = eps E . n_face just off it.
-            offset = (_FACE_OFFSET * mesh.diameters_m[sheet])[:, None] * mesh.normals[sheet]
-            c = mesh.centroids_m[sheet]
-            probes = np.concatenate([c + offset, c - offset])
-            n2 = np.concatenate([mesh.normals[sheet], -mesh.normals[sheet]])
-            # eps E . n = -grad(pot integral) . n (the 1/eps of the potential cancels).
-            face = -directional_derivative(level.panels, dens, probes, n2)
-            if applied:
-                face += (self.eps * self.layout.applied_field_V_per_m * n2[:, 2])[:, None]
-            keep = ~p.sheet
-            points = [mesh.centroids_m[keep], c, c]
-            normals = [mesh.normals[keep], mesh.normals[sheet], -mesh.normals[sheet]]
-            panel = [idx[keep], sheet, sheet]
-            sigma = [dens[keep], face[: len(sheet)], face[len(sheet) :]]
-            area = [mesh.areas_m2[keep], mesh.areas_m2[sheet], mesh.areas_m2[sheet]]
-        panel_all = np.concatenate(panel)
-        return {
-            "points_m": np.concatenate(points),
-            "normals": np.concatenate(normals),
-            "panel": panel_all,
-            "owner": p.owner[panel_all],
-            "sigma": np.concatenate(sigma),
-            "area_m2": np.concatenate(area),
-        }
-
-    def _excitation_samples(self, level: LevelResult3D) -> dict:
-        _, sigma = level.excitation(self.layout)
-        return self._face_samples(level, sigma[:, None], applied=True)
-
-    @cached_property
-    def _fine_samples(self) -> dict:
-        return self._excitation_samples(self._fine)
-
     @cached_property
     def _unit_samples(self) -> dict:
-        return self._face_samples(self._fine, self._fine.sigma_unit, applied=False)
+        return face_samples(self._fine, self.layout, self._fine.sigma_unit, applied=False)
 
-    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
+    def surface_samples(self, conductor: str) -> SurfaceSamples:
+        """See :class:`SurfaceSamples`: one sample per panel of a closed surface; on an open
+        sheet one per panel and face, the +1 faces first."""
         k = self.layout.index(conductor)
-        s = self._fine_samples
-        sel = s["owner"] == k
+        s = self._fine.excitation_samples
+        sel = np.nonzero(s["owner"] == k)[0]
+        sel = sel[np.argsort(-s["face"][sel], kind="stable")]
         sigma = s["sigma"][sel, 0]
-        return {
-            "points_m": s["points_m"][sel],
-            "normals": s["normals"][sel],
-            "sigma_C_per_m2": sigma,
-            "area_m2": s["area_m2"][sel],
-            "field_V_per_m": np.abs(sigma) / self.eps,
-        }
-
-    def _peaks(self, level: LevelResult3D, samples: dict) -> list[tuple[str, float, tuple, bool]]:
-        out = []
-        for k, cond in enumerate(self.layout.conductors):
-            sel = np.nonzero(samples["owner"] == k)[0]
-            field = np.abs(samples["sigma"][sel, 0]) / self.eps
-            m = int(np.argmax(field))
-            where = samples["points_m"][sel[m]]
-            singular = bool(level.panels.feature[samples["panel"][sel[m]]])
-            out.append((cond.name, float(field[m]), tuple(float(x) for x in where), singular))
-        return out
-
-    def peak_fields(self) -> tuple[PeakField, ...]:
-        fine = self._peaks(self._fine, self._fine_samples)
-        if len(self.levels) < 2:
-            return tuple(PeakField(*f, float("nan")) for f in fine)
-        coarse_level = self.levels[-2]
-        coarse = self._peaks(coarse_level, self._excitation_samples(coarse_level))
-        out = []
-        for f, c in zip(fine, coarse, strict=True):
-            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
-            out.append(PeakField(f[0], f[1], f[2], f[3], float(err)))
-        return tuple(out)
+        return SurfaceSamples(
+            conductor=conductor,
+            kind="panels",
+            points_m=s["points_m"][sel],
+            sigma_C_per_m2=sigma,
+            field_V_per_m=np.abs(sigma) / self.eps,
+            area_m2=s["area_m2"][sel],
+            face=s["face"][sel],
+            normal=s["normals"][sel],
+            arc_length_m=None,
+        )
 
     # -- the ground plane --------------------------------------------------------------------
     def _require_plane(self) -> None:

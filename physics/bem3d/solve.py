@@ -8,7 +8,7 @@ holds (minus the image panels' share over a grounded plane z = 0), with one cons
 per flat triangle. Columns of the Maxwell capacitance matrix come from unit potentials on each
 conductor in turn; the applied field adds one more column; floating conductors are then
 solved on that small matrix. Levels start, ..., are solved in turn (each halving the panel
-size) until two successive capacitance matrices agree to the requested accuracy.
+size) by the shared loop of :mod:`elopt.physics.refinement` until its estimate meets the request.
 
 Small levels are solved by dense LU; large ones by GMRES on the hierarchical matrix, started
 from the previous level's densities and preconditioned by an incomplete LU of the near field. The
@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import math
 import time
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 import scipy.linalg
@@ -37,27 +37,12 @@ from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
+from elopt.physics.refinement import LevelPlan, SolveOptions, make_options, refine
 
 #: Largest level solved by dense LU under method="auto".
 DENSE_MAX_PANELS = 4_000
-#: Largest level the solver attempts at all (unless asked for more).
-MAX_PANELS = 1_200_000
-#: A final error estimate above this multiple of the requested accuracy is refused.
-FAR_TOO_COARSE = 10.0
 
 Method = Literal["auto", "dense", "fast"]
-
-
-def available_memory_bytes() -> int:
-    """Memory the OS can give now (MemAvailable), or 4 GiB when it cannot say."""
-    try:
-        with open("/proc/meminfo", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) * 1024
-    except OSError:
-        pass
-    return 4 * 1024**3
 
 
 def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
@@ -79,16 +64,6 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     pre = images * len(ti) * n / len(sample)
     levels = max(1.0, math.log2(max(n, 64) / 32.0))
     return int(base + n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
-
-
-def _refuse_if_too_large(panels: PanelSet, method: str, n_columns: int, limit: int) -> None:
-    need = estimate_memory_bytes(panels, method, n_columns)
-    if need > limit:
-        raise SolverError(
-            f"level {panels.level} has {panels.n} panels and would need about {need / 1e9:.2f} GB "
-            f"({method} solve) but only {limit / 1e9:.2f} GB may be used; ask for a coarser "
-            "mesh, fewer levels (max_level) or fewer panels (max_panels)"
-        )
 
 
 def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
@@ -152,21 +127,15 @@ def solve_level(
     n = len(layout.conductors)
     charges = np.zeros((n, n + 1))
     np.add.at(charges, panels.owner, sigma * panels.mesh.areas_m2[:, None])
-    cap = 0.5 * (charges[:, :n] + charges[:, :n].T)
     return LevelResult3D(
+        layout=layout,
         panels=panels,
         sigma_unit=sigma[:, :n],
         sigma_applied=sigma[:, n],
-        capacitance_F=cap,
+        capacitance_F=charges[:, :n],
         applied_charges_C=charges[:, n],
         stats=stats,
     )
-
-
-def relative_change(c_new: np.ndarray, c_old: np.ndarray) -> float:
-    """Largest |change| of a capacitance matrix, entry (i, j) scaled by sqrt(C_ii C_jj)."""
-    d = np.sqrt(np.abs(np.outer(np.diag(c_new), np.diag(c_new))))
-    return float(np.max(np.abs(c_new - c_old) / d))
 
 
 def richardson(caps: list[np.ndarray], smooth: bool) -> tuple[np.ndarray | None, float | None]:
@@ -195,97 +164,60 @@ def richardson(caps: list[np.ndarray], smooth: bool) -> tuple[np.ndarray | None,
 
 def solve_3d(
     layout: Layout,
+    options: SolveOptions | None = None,
     *,
-    rel_accuracy: float = 1e-3,
     start_level: int = 0,
-    max_level: int = 4,
-    min_levels: int = 2,
     method: Method = "auto",
-    max_panels: int = MAX_PANELS,
     memory_limit_bytes: int | None = None,
     aca_tol: float | None = None,
     check: bool = True,
-    strict: bool = True,
+    **overrides: Any,
 ) -> PanelSolution:
     """Solve a layout of 3-D surfaces (every shape a :class:`elopt.physics.bem3d.surfaces.Surface`).
 
-    Levels ``start_level`` .. ``max_level`` are solved until the capacitance matrices of two
-    successive levels agree to ``rel_accuracy`` (after at least ``min_levels`` levels), or
-    the next level would exceed ``max_panels``. The finest level is returned. ``method``
+    ``options`` (default :class:`SolveOptions`), with any of its fields given as keywords
+    instead (``rel_accuracy=1e-3``, ``max_level=2``), drive
+    :func:`elopt.physics.refinement.refine` over levels ``start_level``, ... (each halves the
+    panel size); ``order`` is not used (one constant density per flat triangle). ``method``
     "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
-    With ``strict``, a final estimate more than :data:`FAR_TOO_COARSE` times the request is
-    a SolverError (the mesh is far too coarse); below that, ``accuracy_met`` says whether the
-    request was met. ``memory_limit_bytes`` defaults to 80 % of the available memory;
-    ``aca_tol`` (compression tolerance of the hierarchical matrix) to 0.3 rel_accuracy.
+    ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
+    tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh.
     """
-    if not (0.0 < rel_accuracy < 1.0):
-        raise SolverError(f"rel_accuracy must lie in (0, 1), got {rel_accuracy}")
-    if not (0 <= start_level <= max_level):
-        raise SolverError(
-            f"levels must satisfy 0 <= start_level <= max_level, got start_level={start_level}, "
-            f"max_level={max_level}"
-        )
-    if min_levels < 1:
-        raise SolverError(f"min_levels must be >= 1, got {min_levels}")
+    opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
         raise SolverError(f"method must be one of auto, dense, fast; got {method!r}")
     conductor_surfaces(layout)
-    limit = (
-        int(0.8 * available_memory_bytes())
-        if memory_limit_bytes is None
-        else int(memory_limit_bytes)
-    )
+    tol = min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0)
     # Measured on the unit cube: C moves by 0.03-0.06 times the compression tolerance.
-    aca_tol = min(1e-3, 0.3 * rel_accuracy) if aca_tol is None else float(aca_tol)
-    gmres_rtol = min(1e-4, 0.05 * rel_accuracy)
-    history: list[LevelResult3D] = []
-    error = float("inf")
+    aca = min(1e-3, 0.3 * tol) if aca_tol is None else float(aca_tol)
+    gmres_rtol = min(1e-4, 0.05 * tol)
     n_columns = len(layout.conductors) + 1
-    for level in range(start_level, max_level + 1):
-        if history and 4 * history[-1].panels.n > max_panels:
-            break
+
+    def plan(level: int) -> LevelPlan:
         panels = discretise(layout, level, check=check)
-        if panels.n > max_panels:
-            if not history:
-                raise SolverError(
-                    f"level {level} already has {panels.n} panels, more than max_panels = "
-                    f"{max_panels}; start from a coarser mesh"
-                )
-            break
         chosen = method
         if method == "auto":
             chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
-        _refuse_if_too_large(panels, chosen, n_columns, limit)
-        history.append(
-            solve_level(
+
+        def run(previous: LevelResult3D | None) -> LevelResult3D:
+            return solve_level(
                 layout,
                 panels,
                 method=chosen,
                 gmres_rtol=gmres_rtol,
-                aca_tol=aca_tol,
-                previous=history[-1] if history else None,
+                aca_tol=aca,
+                previous=previous,
             )
-        )
-        if len(history) >= 2:
-            error = relative_change(history[-1].capacitance_F, history[-2].capacitance_F)
-            if error <= rel_accuracy and len(history) >= min_levels:
-                break
-        elif min_levels <= 1 and max_level == start_level:
-            break
-    smooth = history[-1].panels.all_smooth
-    extrapolated, rate = richardson([h.capacitance_F for h in history], smooth)
-    if strict and len(history) >= 2 and error > FAR_TOO_COARSE * rel_accuracy:
-        fine = history[-1].panels
-        raise SolverError(
-            f"the mesh is far too coarse for rel_accuracy = {rel_accuracy:g}: after level "
-            f"{fine.level} ({fine.n} panels) the capacitance still changes by {error:.2g}; give a "
-            "finer mesh, allow more levels (max_level) or panels (max_panels), or ask for less"
-        )
+
+        need = estimate_memory_bytes(panels, chosen, n_columns)
+        return LevelPlan(level, panels.n, need, f"{chosen} solve", run)
+
+    refinement = refine(plan, opts, start_level=start_level, memory_limit_bytes=memory_limit_bytes)
+    caps = [lv.capacitance_F for lv in refinement.levels]
+    extrapolated, rate = richardson(caps, refinement.levels[-1].panels.all_smooth)
     return PanelSolution(
         layout=layout,
-        levels=tuple(history),
-        rel_error_estimate=error,
-        requested_accuracy=rel_accuracy,
+        refinement=refinement,
         capacitance_extrapolated_F=extrapolated,
         convergence_rate=rate,
     )

@@ -18,22 +18,41 @@ from elopt.physics.bem_axi.operators import field_matrix, potential_matrix
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
 from elopt.physics.quadrature import gauss_legendre, lagrange_matrix
-from elopt.physics.solution import ChargeSolution, PeakField, excitation_potentials
+from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
+from elopt.physics.solution import ChargeSolution, SurfaceSamples, excitation_potentials
 
 #: Evaluation points per block when building target-by-source matrices.
 _CHUNK = 2048
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class LevelResult:
     """One refinement level: mesh, unit-potential densities (N, n) in C/m^2 per V,
     the applied-field response (N,), the capacitance matrix (n, n) F and applied charges (n,)."""
 
+    layout: Layout
     mesh: AxiMesh
     sigma_unit: np.ndarray
     sigma_applied: np.ndarray
     capacitance_F: np.ndarray
     applied_charges_C: np.ndarray
+
+    @property
+    def n_unknowns(self) -> int:
+        return self.mesh.n_nodes
+
+    def peaks(self) -> tuple[LevelPeak, ...]:
+        """Peak surface field per conductor at the excitation (see :func:`_peaks`)."""
+        return self._peaks
+
+    @cached_property
+    def _peaks(self) -> tuple[LevelPeak, ...]:
+        return _peaks(self, self.layout)
+
+    @cached_property
+    def faces(self) -> np.ndarray:
+        """(N, 2) density on the front and back face of every node (:func:`face_densities`)."""
+        return face_densities(self, self.layout)
 
     def excitation(self, layout: Layout) -> tuple[np.ndarray, np.ndarray]:
         """Conductor potentials (n,) V and node densities (N,) at the layout's excitation."""
@@ -46,19 +65,10 @@ class AxisymmetricSolution(ChargeSolution):
 
     point_dim = 2
 
-    def __init__(
-        self,
-        layout: Layout,
-        levels: tuple[LevelResult, ...],
-        rel_error_estimate: float,
-        requested_accuracy: float,
-    ) -> None:
+    def __init__(self, layout: Layout, refinement: Refinement) -> None:
         self.layout = layout
-        self.levels = levels
-        self.rel_error_estimate = rel_error_estimate
-        self.requested_accuracy = requested_accuracy
-        self.accuracy_met = rel_error_estimate <= requested_accuracy
-        fine = levels[-1]
+        self._adopt(refinement)
+        fine = self.levels[-1]
         self._fine = fine
         self.mesh = fine.mesh
         self.level = fine.mesh.level
@@ -102,37 +112,34 @@ class AxisymmetricSolution(ChargeSolution):
     def _nodes_of(self, name: str) -> np.ndarray:
         return np.nonzero(self.mesh.node_conductor == self.layout.index(name))[0]
 
-    @cached_property
-    def _faces(self) -> np.ndarray:
-        return face_densities(self._fine, self.layout)
-
-    def surface_samples(self, conductor: str) -> dict[str, np.ndarray]:
-        """See :class:`ChargeSolution`; adds ``arc_length_m`` and, per node, the density on the
-        face the normal points to (``sigma_front_C_per_m2``) and on the other face
-        (``sigma_back_C_per_m2``, zero for closed bodies). For an open sheet the field is that
-        of the more charged face."""
+    def surface_samples(self, conductor: str) -> SurfaceSamples:
+        """See :class:`SurfaceSamples`: one profile sample per node (closed body), or two
+        (front face +1, then back face -1) on an open sheet."""
+        k = self.layout.index(conductor)
         idx = self._nodes_of(conductor)
-        faces = self._faces[idx]
-        return {
-            "points_m": self.mesh.points_m[idx],
-            "arc_length_m": self.mesh.arc_m[idx],
-            "sigma_C_per_m2": self.sigma_C_per_m2[idx],
-            "sigma_front_C_per_m2": faces[:, 0],
-            "sigma_back_C_per_m2": faces[:, 1],
-            "area_m2": self.mesh.ring_area_m2[idx],
-            "field_V_per_m": np.max(np.abs(faces), axis=1) / self.eps,
-        }
-
-    def peak_fields(self) -> tuple[PeakField, ...]:
-        fine = _peaks(self._fine, self.layout)
-        if len(self.levels) < 2:
-            return tuple(PeakField(*f, float("nan")) for f in fine)
-        coarse = _peaks(self.levels[-2], self.layout)
-        out = []
-        for f, c in zip(fine, coarse, strict=True):
-            err = abs(f[1] - c[1]) / f[1] if f[1] > 0 else 0.0
-            out.append(PeakField(f[0], f[1], f[2], f[3], float(err)))
-        return tuple(out)
+        idx = idx[np.argsort(self.mesh.arc_m[idx], kind="stable")]
+        faces = self._fine.faces[idx]
+        normal = self.mesh.normals[idx]
+        if self.layout.conductors[k].shape.kind == "sheet":
+            face = np.repeat(np.array([1, -1], dtype=np.int8), len(idx))
+            sigma = np.concatenate([faces[:, 0], faces[:, 1]])
+            idx2 = np.concatenate([idx, idx])
+            normal = np.concatenate([normal, -normal])
+        else:
+            face = np.zeros(len(idx), dtype=np.int8)
+            sigma = faces[:, 0]
+            idx2 = idx
+        return SurfaceSamples(
+            conductor=conductor,
+            kind="profile",
+            points_m=self.mesh.points_m[idx2],
+            sigma_C_per_m2=sigma,
+            field_V_per_m=np.abs(sigma) / self.eps,
+            area_m2=self.mesh.ring_area_m2[idx2],
+            face=face,
+            normal=normal,
+            arc_length_m=self.mesh.arc_m[idx2],
+        )
 
     # -- sensitivities -----------------------------------------------------------------------
     @cached_property
@@ -216,12 +223,10 @@ def face_densities(level: LevelResult, layout: Layout) -> np.ndarray:
     return faces
 
 
-def _peaks(
-    level: LevelResult, layout: Layout
-) -> list[tuple[str, float, tuple[float, float], bool]]:
-    """Per conductor: name, peak surface field, its (r, z), and whether it sits at a corner."""
+def _peaks(level: LevelResult, layout: Layout) -> tuple[LevelPeak, ...]:
+    """Per conductor: the peak surface field, its (r, z), and whether it sits at a corner."""
     mesh = level.mesh
-    faces = face_densities(level, layout)
+    faces = level.faces
     p = mesh.order
     # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
     tau = np.linspace(-1.0, 1.0, 4 * p + 1)
@@ -230,22 +235,11 @@ def _peaks(
         np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
     )
     pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
-    out = []
-    eps = layout.eps_F_per_m
-    for ci, cond in enumerate(layout.conductors):
-        panels = np.nonzero(mesh.conductor == ci)[0]
-        v = vals[panels]
-        k = np.unravel_index(int(v.argmax()), v.shape)
-        where = pts[panels[k[0]], k[1]]
-        out.append(
-            (
-                cond.name,
-                float(v[k]) / eps,
-                (float(where[0]), float(where[1])),
-                bool(mesh.at_corner[panels[k[0]]]),
-            )
-        )
-    return out
+    owner = np.repeat(mesh.conductor, len(tau))
+    singular = np.repeat(mesh.at_corner, len(tau))
+    return peaks_per_conductor(
+        layout.names, owner, vals.ravel() / layout.eps_F_per_m, pts.reshape(-1, 2), singular
+    )
 
 
 def _plane_quadrature(mesh: AxiMesh) -> tuple[np.ndarray, np.ndarray]:

@@ -123,7 +123,6 @@ def cube_error_vs_time(max_level: int) -> None:
             rel_accuracy=1e-9,
             start_level=level,
             max_level=level,
-            min_levels=1,
             strict=False,
         )
         caps.append(sol.capacitance_matrix_F[0, 0] / (4 * math.pi * EPS0_F_PER_M))

@@ -17,7 +17,7 @@ import numpy as np
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, MetricSpec
 from elopt.physics.errors import ElectrodeError, SolverError
 from elopt.physics.layout import Layout, driven
-from elopt.physics.solution import ChargeSolution, PeakField
+from elopt.physics.solution import ChargeSolution, PeakField, SurfaceSamples
 
 
 @dataclass(frozen=True)
@@ -52,13 +52,17 @@ class _FixtureSolution(ChargeSolution):
         s = np.linspace(0.0, self._p.width_mm * 1e-3, 20)
         k = 1.0 if conductor == "sensor" else 0.5
         sigma = k * 1e-6 / np.sqrt(1e-4 + (s - s[-1]) ** 2)
-        return {
-            "points_m": np.column_stack([s, np.full_like(s, 1e-3)]),
-            "arc_length_m": s,
-            "sigma_C_per_m2": sigma,
-            "area_m2": np.full_like(s, 1e-6),
-            "field_V_per_m": sigma / 8.854e-12,
-        }
+        return SurfaceSamples(
+            conductor=conductor,
+            kind="profile",
+            points_m=np.column_stack([s, np.full_like(s, 1e-3)]),
+            sigma_C_per_m2=sigma,
+            field_V_per_m=sigma / 8.854e-12,
+            area_m2=np.full_like(s, 1e-6),
+            face=np.zeros(len(s), dtype=np.int8),
+            normal=np.tile([0.0, 1.0], (len(s), 1)),
+            arc_length_m=s,
+        )
 
     def peak_fields(self):
         e = self._p.drive_V / (self._p.gap_mm * 1e-3)

@@ -1,0 +1,345 @@
+"""The one refinement loop every solver runs, with its error estimate and stop reasons.
+
+A solver hands :func:`refine` a callable that plans one refinement level (how many unknowns,
+how much memory, and a thunk that solves it). The loop here decides which levels are solved,
+estimates the error of the finest one, says why it stopped, and raises in strict mode.
+
+Error estimate. For a quantity X solved on levels 0..L (the capacitance matrix, or the peak
+surface field), let d_k be the scaled change between levels k-1 and k (capacitance entry
+(i, j) scaled by sqrt(C_ii C_jj), the peak by its own value). With the observed ratio
+r = d_L / d_(L-1) < 1 the remaining error of level L is, as in Richardson extrapolation with
+the observed order, the geometric tail d_L r / (1 - r); it is multiplied by the safety factor
+:data:`SAFETY`, measured on the published cases of the test suite (tests/test_error_honesty.py).
+The ratio used is never below :data:`RATIO_FLOOR` (a lucky cancellation must not make the
+estimate vanish). With two levels only, or when the changes do not shrink, the estimate is the
+last change itself times :data:`TWO_LEVEL_FACTOR` (or the last change, if it grew). The
+capacitance matrix is not symmetrised: half its largest scaled asymmetry |C_ij - C_ji| is
+added, since the exact matrix is symmetric and one of the two entries is off by at least that.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import Any, Literal, Protocol
+
+import numpy as np
+
+from elopt.physics.errors import SolverError
+
+#: Multiplier of the geometric-tail estimate, measured (see the module docstring).
+SAFETY = 3.0
+#: Smallest ratio of successive changes the tail estimate uses.
+RATIO_FLOOR = 0.1
+#: Ratio above which the changes are taken as not (yet) converging geometrically.
+RATIO_CEILING = 0.8
+#: Multiplier of the last change when no ratio can be observed (two levels).
+TWO_LEVEL_FACTOR = 1.0
+#: Share of the memory the OS reports available that a level may use.
+MEMORY_SHARE = 0.8
+
+StopReason = Literal["met", "max_level", "max_unknowns", "memory"]
+
+
+@dataclass(frozen=True)
+class SolveOptions:
+    """What a solve is asked for; the same names and defaults in every solver.
+
+    ``rel_accuracy``: estimated relative error of the capacitance matrix (entry (i, j)
+    relative to sqrt(C_ii C_jj)) at which refinement stops. ``peak_rel_accuracy``: a separate
+    request on the peak surface field (None: none; a peak at a sharp edge, which has no limit,
+    is exempt). ``max_level``: finest level solved (levels from 0). ``max_unknowns``: largest
+    system solved. ``order``: solver-specific discretisation order (axisymmetric: nodes per
+    panel), None = chosen from the accuracy. ``strict``: raise :class:`SolverError` when a
+    request is not met instead of returning with ``accuracy_met`` False.
+    """
+
+    rel_accuracy: float = 1e-4
+    peak_rel_accuracy: float | None = None
+    max_level: int = 6
+    max_unknowns: int = 1_200_000
+    order: int | None = None
+    strict: bool = False
+
+    def __post_init__(self) -> None:
+        if not (0.0 < self.rel_accuracy < 1.0):
+            raise SolverError(f"rel_accuracy must lie in (0, 1), got {self.rel_accuracy}")
+        if self.peak_rel_accuracy is not None and not (0.0 < self.peak_rel_accuracy < 1.0):
+            raise SolverError(
+                f"peak_rel_accuracy must lie in (0, 1) or be None, got {self.peak_rel_accuracy}"
+            )
+        if not isinstance(self.max_level, int) or self.max_level < 0:
+            raise SolverError(f"max_level must be a whole number >= 0, got {self.max_level}")
+        if not isinstance(self.max_unknowns, int) or self.max_unknowns < 1:
+            raise SolverError(f"max_unknowns must be a whole number >= 1, got {self.max_unknowns}")
+
+
+def make_options(options: SolveOptions | None, overrides: dict[str, Any]) -> SolveOptions:
+    """``options`` (default :class:`SolveOptions`) with keyword ``overrides`` of its fields."""
+    base = SolveOptions() if options is None else options
+    names = {f.name for f in dataclasses.fields(SolveOptions)}
+    unknown = sorted(set(overrides) - names)
+    if unknown:
+        raise SolverError(
+            f"unknown solve option {unknown[0]!r}; the options are {', '.join(sorted(names))}"
+        )
+    return dataclasses.replace(base, **overrides) if overrides else base
+
+
+@dataclass(frozen=True)
+class LevelPeak:
+    """The largest surface field (V/m) on one conductor at the excitation, where it is
+    (a point of the solver's dimension, m), and whether it sits at a sharp edge."""
+
+    conductor: str
+    field_V_per_m: float
+    location_m: tuple[float, ...]
+    singular: bool
+
+
+def peaks_per_conductor(
+    names: Sequence[str],
+    owner: np.ndarray,
+    field_V_per_m: np.ndarray,
+    points_m: np.ndarray,
+    singular: np.ndarray,
+) -> tuple[LevelPeak, ...]:
+    """The largest of candidate surface fields per conductor.
+
+    ``owner`` (K,) conductor index of each candidate, ``field_V_per_m`` (K,), ``points_m``
+    (K, d), ``singular`` (K,) bool: the candidate lies at a sharp edge or corner.
+    """
+    out = []
+    for k, name in enumerate(names):
+        sel = np.nonzero(owner == k)[0]
+        m = sel[int(np.argmax(field_V_per_m[sel]))]
+        out.append(
+            LevelPeak(
+                name,
+                float(field_V_per_m[m]),
+                tuple(float(x) for x in points_m[m]),
+                bool(singular[m]),
+            )
+        )
+    return tuple(out)
+
+
+class SolvedLevel(Protocol):
+    """What the loop needs of one solved level (solvers' level results carry more)."""
+
+    capacitance_F: np.ndarray  # (n, n); column j: charges with conductor j at 1 V
+
+    @property
+    def n_unknowns(self) -> int: ...
+
+    def peaks(self) -> tuple[LevelPeak, ...]:
+        """Per conductor, layout order; the solver caches it."""
+        ...
+
+
+@dataclass(frozen=True)
+class LevelPlan:
+    """One level before it is solved: its size, its memory need (bytes, with a short note
+    such as "dense solve") and the thunk that solves it given the previous level (or None)."""
+
+    level: int
+    n_unknowns: int
+    memory_bytes: int
+    memory_note: str
+    solve: Callable[[Any], Any]
+
+
+@dataclass(frozen=True)
+class ErrorEstimate:
+    """Relative error estimates of the finest level.
+
+    ``capacitance``: of the capacitance matrix (tail estimate plus half the asymmetry);
+    ``asymmetry``: largest |C_ij - C_ji| / sqrt(C_ii C_jj); ``ratio``: observed ratio of the
+    last two changes of C (None below three levels); ``peaks``: per conductor;
+    ``peak``: of the largest peak over all conductors (the design number).
+    """
+
+    capacitance: float
+    asymmetry: float
+    ratio: float | None
+    peaks: tuple[float, ...]
+    peak: float
+
+
+@dataclass(frozen=True)
+class Refinement:
+    """What the loop did: the levels solved (coarse to fine), the estimate of the finest,
+    whether every request was met, and why it stopped."""
+
+    levels: tuple[Any, ...]
+    estimate: ErrorEstimate
+    options: SolveOptions
+    accuracy_met: bool
+    stop_reason: StopReason
+
+
+def available_memory_bytes() -> int:
+    """Memory the OS can give now (MemAvailable), or 4 GiB when it cannot say."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    return 4 * 1024**3
+
+
+def scaled_asymmetry(capacitance_F: np.ndarray) -> float:
+    """Largest |C_ij - C_ji| / sqrt(C_ii C_jj) of a capacitance matrix (n, n)."""
+    c = np.asarray(capacitance_F, dtype=float)
+    d = np.sqrt(np.abs(np.outer(np.diag(c), np.diag(c))))
+    return float(np.max(np.abs(c - c.T) / d))
+
+
+def relative_change(c_new: np.ndarray, c_old: np.ndarray) -> float:
+    """Largest |change| of a capacitance matrix, entry (i, j) scaled by sqrt(C_ii C_jj)."""
+    d = np.sqrt(np.abs(np.outer(np.diag(c_new), np.diag(c_new))))
+    return float(np.max(np.abs(c_new - c_old) / d))
+
+
+def tail_estimate(changes: Sequence[float]) -> tuple[float, float | None]:
+    """Error estimate of the last level from the scaled changes d_1..d_L between levels,
+    and the ratio it used (None with fewer than two changes). See the module docstring."""
+    if not changes:
+        return math.inf, None
+    d = float(changes[-1])
+    if len(changes) == 1:
+        return TWO_LEVEL_FACTOR * d, None
+    prev = float(changes[-2])
+    ratio = d / prev if prev > 0 else (0.0 if d == 0 else math.inf)
+    if ratio > RATIO_CEILING:
+        return max(d, TWO_LEVEL_FACTOR * d), ratio
+    r = max(ratio, RATIO_FLOOR)
+    return SAFETY * d * r / (1.0 - r), ratio
+
+
+def estimate_error(levels: Sequence[SolvedLevel], *, with_peaks: bool) -> ErrorEstimate:
+    """The :class:`ErrorEstimate` of the finest of ``levels`` (coarse to fine)."""
+    caps = [np.asarray(lv.capacitance_F, dtype=float) for lv in levels]
+    fine = caps[-1]
+    changes = [relative_change(b, a) for a, b in zip(caps, caps[1:], strict=False)]
+    tail, ratio = tail_estimate(changes)
+    asym = scaled_asymmetry(fine)
+    cap_est = tail + 0.5 * asym
+    n = fine.shape[0]
+    if not with_peaks:
+        return ErrorEstimate(cap_est, asym, ratio, (math.nan,) * n, math.nan)
+    last = levels[-3:]
+    fields = np.array([[p.field_V_per_m for p in lv.peaks()] for lv in last])  # (k, n)
+    peaks = []
+    for c in range(n):
+        ref = fields[-1, c]
+        if not ref > 0:
+            peaks.append(0.0)
+            continue
+        d = np.abs(np.diff(fields[:, c])) / ref
+        peaks.append(tail_estimate(list(d))[0])
+    top = fields.max(axis=1)
+    d_top = np.abs(np.diff(top)) / top[-1] if top[-1] > 0 else np.zeros(len(top) - 1)
+    return ErrorEstimate(cap_est, asym, ratio, tuple(peaks), tail_estimate(list(d_top))[0])
+
+
+def peak_request_met(level: SolvedLevel, estimate: ErrorEstimate, request: float | None) -> bool:
+    """Whether the largest peak is within ``request`` (a peak at a sharp edge is exempt)."""
+    if request is None:
+        return True
+    peaks = level.peaks()
+    top = max(peaks, key=lambda p: p.field_V_per_m)
+    return top.singular or estimate.peak <= request
+
+
+def refine(
+    plan_level: Callable[[int], LevelPlan],
+    options: SolveOptions,
+    *,
+    start_level: int = 0,
+    memory_limit_bytes: int | None = None,
+) -> Refinement:
+    """Solve levels ``start_level``, ... until the estimate meets the requests.
+
+    Stops before a level whose unknowns exceed ``options.max_unknowns`` or whose memory need
+    exceeds ``memory_limit_bytes`` (default :data:`MEMORY_SHARE` of the available memory);
+    when that happens to the first level, raises :class:`SolverError` with the numbers.
+    With ``options.strict``, a request not met is a SolverError too.
+    """
+    if start_level < 0 or start_level > options.max_level:
+        raise SolverError(
+            f"levels must satisfy 0 <= start_level <= max_level, got start_level={start_level}, "
+            f"max_level={options.max_level}"
+        )
+    limit = (
+        int(MEMORY_SHARE * available_memory_bytes())
+        if memory_limit_bytes is None
+        else int(memory_limit_bytes)
+    )
+    with_peaks = options.peak_rel_accuracy is not None
+    levels: list[Any] = []
+    estimate = ErrorEstimate(math.inf, 0.0, None, (), math.inf)
+    stop: StopReason = "max_level"
+    for level in range(start_level, options.max_level + 1):
+        plan = plan_level(level)
+        if plan.n_unknowns > options.max_unknowns:
+            if not levels:
+                raise SolverError(
+                    f"level {level} needs {plan.n_unknowns} unknowns, more than max_unknowns = "
+                    f"{options.max_unknowns}, before an error estimate exists; simplify the "
+                    "geometry or start from a coarser mesh"
+                )
+            stop = "max_unknowns"
+            break
+        if plan.memory_bytes > limit:
+            if not levels:
+                raise SolverError(
+                    f"level {level} has {plan.n_unknowns} unknowns and would need about "
+                    f"{plan.memory_bytes / 1e9:.2f} GB ({plan.memory_note}) but only "
+                    f"{limit / 1e9:.2f} GB may be used; ask for a coarser mesh, fewer levels "
+                    "(max_level) or fewer unknowns (max_unknowns)"
+                )
+            stop = "memory"
+            break
+        levels.append(plan.solve(levels[-1] if levels else None))
+        if len(levels) >= 2:
+            estimate = estimate_error(levels, with_peaks=with_peaks)
+            if estimate.capacitance <= options.rel_accuracy and peak_request_met(
+                levels[-1], estimate, options.peak_rel_accuracy
+            ):
+                stop = "met"
+                break
+    if len(levels) >= 2:
+        estimate = estimate_error(levels, with_peaks=True)
+    met = (
+        len(levels) >= 2
+        and estimate.capacitance <= options.rel_accuracy
+        and peak_request_met(levels[-1], estimate, options.peak_rel_accuracy)
+    )
+    if options.strict and not met:
+        raise SolverError(_not_met_message(levels, estimate, options, stop))
+    return Refinement(tuple(levels), estimate, options, met, stop)
+
+
+def _not_met_message(
+    levels: list[Any], estimate: ErrorEstimate, options: SolveOptions, stop: StopReason
+) -> str:
+    fine = levels[-1]
+    what = (
+        f"rel_accuracy = {options.rel_accuracy:g} was not met: the capacitance's estimated "
+        f"error is {estimate.capacitance:.2g}"
+    )
+    if estimate.capacitance <= options.rel_accuracy:
+        what = (
+            f"peak_rel_accuracy = {options.peak_rel_accuracy:g} was not met: the peak field's "
+            f"estimated error is {estimate.peak:.2g}"
+        )
+    return (
+        f"{what} after {len(levels)} level(s), the finest with {fine.n_unknowns} unknowns "
+        f"(stopped: {stop}); allow more levels (max_level) or unknowns (max_unknowns), give a "
+        "finer mesh, or ask for less"
+    )
