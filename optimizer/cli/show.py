@@ -34,11 +34,8 @@ def add_parser(subparsers: Any) -> None:
 
 
 def show_command(args: argparse.Namespace) -> int:
-    import tomllib
-
     from rich.console import Console
 
-    from elopt.optimizer.config.solve_config import parse_solve_config
     from elopt.optimizer.errors import StudyFileError
     from elopt.optimizer.report.front_export import checked_output
     from elopt.optimizer.report.trial_view import render_trial
@@ -64,7 +61,10 @@ def show_command(args: argparse.Namespace) -> int:
     render_trial(Console(highlight=False, markup=False), snap, arrays, number)
     if not (config_out or args.figure or args.geometry):
         return 0
+    import tomllib
+
     from elopt.optimizer.cli.solve import _say, design_outputs, draw_design
+    from elopt.optimizer.config.solve_config import parse_solve_config
     from elopt.optimizer.export import trial_solve_config
     from elopt.physics.electrodes.registry import get_family
 

@@ -39,28 +39,6 @@ def volts_text(v: float) -> str:
     return f"{v / 1e3:.3g} kV" if abs(v) >= 1e3 else f"{v:.3g} V"
 
 
-def sample_arrays(solution: Any, conductor: str) -> dict[str, np.ndarray | None]:
-    """A conductor's surface samples as plain arrays, whichever form the solver returns
-    (a mapping, or an object with attributes): points_m, field_V_per_m, sigma_C_per_m2,
-    arc_length_m (None for panels), normal (None when not given)."""
-    s = solution.surface_samples(conductor)
-
-    def get(*names: str) -> Any:
-        for n in names:
-            v = s.get(n) if isinstance(s, dict) else getattr(s, n, None)
-            if v is not None:
-                return np.asarray(v)
-        return None
-
-    return {
-        "points_m": get("points_m"),
-        "field_V_per_m": get("field_V_per_m"),
-        "sigma_C_per_m2": get("sigma_C_per_m2"),
-        "arc_length_m": get("arc_length_m"),
-        "normal": get("normal", "normals"),
-    }
-
-
 def design_figure(
     evaluation: Evaluation,
     target: Path | list[Path],
@@ -283,16 +261,31 @@ def _draw_surface_field(ax: Any, evaluation: Evaluation, breakdown: float | None
     scale, unit = field_unit(peak.field_V_per_m)
     top = 0.0
     for k, c in enumerate(sol.layout.conductors):
-        s = sample_arrays(sol, c.name)
-        if s["arc_length_m"] is None or s["field_V_per_m"] is None:
+        s = sol.surface_samples(c.name)
+        if s.arc_length_m is None:
             continue
-        order = np.argsort(s["arc_length_m"], kind="stable")
-        e = s["field_V_per_m"][order] * scale
-        top = max(top, float(np.max(e, initial=0.0)))
         colour = ff.CONDUCTOR_COLOURS[k % len(ff.CONDUCTOR_COLOURS)]
-        ax.plot(
-            s["arc_length_m"][order] / MM, e, color=colour, lw=1.4, marker=".", ms=3, label=c.name
-        )
+        for face, style, label in (
+            (0, "-", c.name),
+            (1, "-", f"{c.name}, + face"),
+            (-1, ":", f"{c.name}, - face"),
+        ):
+            sel = s.face == face
+            if not sel.any():
+                continue
+            order = np.argsort(s.arc_length_m[sel], kind="stable")
+            e = s.field_V_per_m[sel][order] * scale
+            top = max(top, float(np.max(e, initial=0.0)))
+            ax.plot(
+                s.arc_length_m[sel][order] / MM,
+                e,
+                color=colour,
+                ls=style,
+                lw=1.4,
+                marker=".",
+                ms=3,
+                label=label,
+            )
     if breakdown is not None and breakdown * scale < 3.0 * max(top, 1e-300):
         ax.axhline(
             breakdown * scale,
@@ -364,10 +357,10 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
     sol = evaluation.solution
     panels = panel_fields(sol)
     if panels is None:  # no mesh to draw: the surface samples as points
-        samples = [sample_arrays(sol, c.name) for c in sol.layout.conductors]
-        pts = np.concatenate([s["points_m"] for s in samples]) / MM
+        samples = [sol.surface_samples(c.name) for c in sol.layout.conductors]
+        pts = np.concatenate([s.points_m for s in samples]) / MM
         corners = np.repeat(pts[:, None, :], 3, axis=1)
-        field = np.concatenate([s["field_V_per_m"] for s in samples])
+        field = np.concatenate([s.field_V_per_m for s in samples])
     else:
         corners, field, _ = panels
     positive = field[field > 0]

@@ -44,9 +44,8 @@ class FrontView:
     reverse: bool = False
 
 
-def sorted_front(snap: StudySnapshot, view: FrontView) -> np.ndarray:
-    """The front's trial numbers in the order ``view`` asks for (all of them)."""
-    front = front_numbers(snap)
+def sorted_front(snap: StudySnapshot, view: FrontView, front: np.ndarray) -> np.ndarray:
+    """The ``front`` trial numbers (best first) in the order ``view`` asks for."""
     if view.sort is not None and front.size:
         h = snap.header
         values = value_of(snap, view.sort)[front]
@@ -78,7 +77,8 @@ def render_front(
         + (f" ({counts['rerun']} re-run)" if counts["rerun"] else "")
         + (f" — {status}, this is a live read" if status else "")
     )
-    front = sorted_front(snap, view)
+    best_first = front_numbers(snap)
+    front = sorted_front(snap, view, best_first)
     if front.size == 0:
         console.print("no feasible trial yet, so no Pareto front")
     else:
@@ -107,7 +107,7 @@ def render_front(
     _print_failures(console, snap)
     xd, yd = default_axes(snap)
     console.print()
-    for line in front_scatter(snap, x or xd, y or yd, front_numbers(snap)):
+    for line in front_scatter(snap, x or xd, y or yd, best_first):
         console.print(Text(line), no_wrap=True, overflow="crop")
     caution = study_caution(snap)
     if caution:

@@ -45,6 +45,7 @@ figure img { max-width: 100%; height: auto; border: 1px solid #dcdcdc; }
 figcaption { color: #5a6270; font-size: 0.9em; }
 table { border-collapse: collapse; font-size: 0.88em; margin: 6px 0 10px; }
 th, td { padding: 3px 9px; text-align: right; border-bottom: 1px solid #e3e3e3; }
+.wide { overflow-x: auto; }
 th { background: #14213d; color: #fff; vertical-align: bottom; }
 th small { font-weight: normal; opacity: 0.8; }
 td:first-child, th:first-child { text-align: left; }
@@ -67,6 +68,11 @@ def _e(text: Any) -> str:
     return html.escape(str(text))
 
 
+def _name(text: str) -> str:
+    """A snake_case name that may break after its underscores."""
+    return _e(text).replace("_", "_<wbr>")
+
+
 def _front_table(snap: StudySnapshot) -> str:
     h = snap.header
     c = snap.columns
@@ -77,17 +83,17 @@ def _front_table(snap: StudySnapshot) -> str:
     searched = [k for k, s in enumerate(h.parameter_searched) if s]
     head = ["<th>trial</th>"]
     head += [
-        f"<th>{_e(n)}<br><small>{ARROW[d]} ({_e(u)})</small></th>"
+        f"<th>{_name(n)}<br><small>{ARROW[d]} ({_e(u)})</small></th>"
         for n, d, u in zip(
             h.objective_names, h.objective_directions, h.objective_units, strict=True
         )
     ]
     head += [
-        f"<th>{_e(m)}<br><small>({_e(h.metric_units[h.metric_names.index(m)])})</small></th>"
+        f"<th>{_name(m)}<br><small>({_e(h.metric_units[h.metric_names.index(m)])})</small></th>"
         for m in constrained
     ]
     head += [
-        f"<th>{_e(h.parameter_names[k])}<br><small>({_e(h.parameter_units[k])})</small></th>"
+        f"<th>{_name(h.parameter_names[k])}<br><small>({_e(h.parameter_units[k])})</small></th>"
         for k in searched
     ]
     rows = []
@@ -106,7 +112,12 @@ def _front_table(snap: StudySnapshot) -> str:
     return (
         f"<p>{front.size} feasible non-dominated trials, best first by "
         f"{_e(h.objective_names[0])}. <code>elopt show {_e(snap.path)} TRIAL</code> gives one "
-        "in full.</p><table><tr>" + "".join(head) + "</tr>" + "".join(rows) + "</table>" + more
+        'in full.</p><div class="wide"><table><tr>'
+        + "".join(head)
+        + "</tr>"
+        + "".join(rows)
+        + "</table></div>"
+        + more
     )
 
 

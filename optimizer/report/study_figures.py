@@ -69,7 +69,7 @@ def _scatter_groups(ax: Any, snap: StudySnapshot, x: str, y: str) -> None:
                 limit,
                 color=ff.LIMIT_COLOUR,
                 ls="--",
-                lw=1.1,
+                lw=1.8,
                 label=f"{name} {'<=' if kind == 'max' else '>='} {limit:g}",
             )
     ax.set_xlabel(axis_label(snap, x))

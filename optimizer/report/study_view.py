@@ -13,7 +13,27 @@ from elopt.optimizer.errors import StudyFileError
 from elopt.optimizer.report.numbers import ARROW
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.store.study_file import StudySnapshot
-from elopt.optimizer.study.objectives import pareto_front_mask
+
+
+def nondominated_two(values: np.ndarray, directions: tuple[str, ...]) -> np.ndarray:
+    """Non-dominated rows of ``values`` (N, 2) as an (N,) mask, by one sort: O(N log N).
+
+    Minimising both columns, a row survives when its second value is the least among the rows
+    with its first value and below every row with a smaller first value (equal rows survive
+    together: neither dominates the other).
+    """
+    sign = np.array([-1.0 if d == "maximize" else 1.0 for d in directions])
+    cost = np.asarray(values, dtype=float) * sign
+    order = np.lexsort((cost[:, 1], cost[:, 0]))
+    a, b = cost[order, 0], cost[order, 1]
+    starts = np.flatnonzero(np.r_[True, a[1:] != a[:-1]])
+    group = np.cumsum(np.r_[True, a[1:] != a[:-1]]) - 1
+    group_min = b[starts]  # sorted by the second column within a group
+    before = np.r_[np.inf, np.minimum.accumulate(group_min)[:-1]]
+    keep_sorted = (b == group_min[group]) & (b < before[group])
+    mask = np.zeros(len(cost), dtype=bool)
+    mask[order] = keep_sorted
+    return mask
 
 
 def front_numbers(snap: StudySnapshot) -> np.ndarray:
@@ -22,7 +42,13 @@ def front_numbers(snap: StudySnapshot) -> np.ndarray:
     ok = np.flatnonzero((snap.state_names() == "complete") & (c["feasible"] == 1))
     if ok.size == 0:
         return ok
-    mask = pareto_front_mask(c["objectives"][ok], snap.header.objective_directions)
+    directions = tuple(snap.header.objective_directions)
+    if len(directions) == 2:
+        mask = nondominated_two(c["objectives"][ok], directions)
+    else:
+        from elopt.optimizer.study.objectives import pareto_front_mask
+
+        mask = pareto_front_mask(c["objectives"][ok], directions)
     front = ok[mask]
     first = c["objectives"][front, 0]
     order = np.argsort(
