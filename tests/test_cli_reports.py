@@ -303,3 +303,32 @@ def test_calibration_sweep(tmp_path, capsys):
     assert "--param nope: not a number parameter of guarded_disk" in _error_line(capsys)
     assert main(["calibrate", str(cfg), "--points", "2"]) == 2
     assert "--points: 2 is outside" in _error_line(capsys)
+
+
+def test_what_a_seed_reproduces(tmp_path):
+    """As --help and docs/study-config.md say: one worker, the same trials in the same order;
+    several workers, at least TPE's random start (startup_trials = 6 here) the same."""
+    from study_support.configs import fixture_study
+
+    cfg = fixture_study(tmp_path, trials=10, delay_s=0.02)
+
+    def params(workers: int, name: str) -> np.ndarray:
+        out = tmp_path / name
+        proc = run_elopt("run", cfg, "--out", out, "--workers", str(workers), cwd=tmp_path)
+        assert proc.returncode == 0, proc.stderr
+        return read_study(out).columns["params"]
+
+    one_a, one_b = params(1, "a.h5"), params(1, "b.h5")
+    np.testing.assert_array_equal(one_a, one_b)
+    two_a, two_b = params(2, "c.h5"), params(2, "d.h5")
+    common = {tuple(r) for r in two_a} & {tuple(r) for r in two_b}
+    assert len(common) >= 6
+
+
+@pytest.mark.slow
+def test_the_3d_demo_meets_its_own_accuracy_request(capsys):
+    """configs/pad_wafer_gap_gauge.toml asks for what its refinement levels reach."""
+    assert main(["solve", str(ROOT / "configs" / "pad_wafer_gap_gauge.toml"), "--json"]) == 0
+    record = json.loads(capsys.readouterr().out)
+    assert record["accuracy_met"], record["relative_error_estimate"]
+    assert "warnings" in record and not any("stopped at" in w for w in record["warnings"])
