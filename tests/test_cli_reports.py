@@ -14,8 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from rich.console import Console
-from study_support.cli import run_elopt
-from study_support.configs import guarded_disk_study
+from study_support.cli import run_elopt, run_study
 from study_support.records import record_for, small_header
 
 from elopt.optimizer.cli.main import main
@@ -159,10 +158,7 @@ def test_families_lists_every_family_with_units(capsys):
 @pytest.fixture(scope="module")
 def study(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("reports")
-    cfg = guarded_disk_study(tmp, trials=8)
-    out = tmp / "probe.h5"
-    proc = run_elopt("run", cfg, "--out", out, cwd=tmp, timeout=300)
-    assert proc.returncode == 0, proc.stderr
+    cfg, out = run_study(tmp, trials=8)
     return tmp, cfg, out
 
 

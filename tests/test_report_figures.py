@@ -19,8 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from study_support.cli import run_elopt
-from study_support.configs import guarded_disk_study
+from study_support.cli import run_elopt, run_study
 
 from elopt.optimizer.cli.main import main
 
@@ -141,10 +140,7 @@ def test_3d_figure(tmp_path):
 @pytest.fixture(scope="module")
 def small_study(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("study_fig")
-    cfg = guarded_disk_study(tmp, trials=12)
-    out = tmp / "probe.h5"
-    proc = run_elopt("run", cfg, "--out", out, cwd=tmp, timeout=300)
-    assert proc.returncode == 0, proc.stderr
+    _, out = run_study(tmp, trials=12)
     return tmp, out
 
 

@@ -20,6 +20,7 @@ import numpy as np
 
 from elopt.optimizer.config.solve_config import SolveSpec
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.report.numbers import unit_from_name
 from elopt.physics.electrodes.base import ElectrodeFamily
 from elopt.physics.errors import ElectrodeError
 
@@ -112,7 +113,7 @@ def calibration_sweep(
     standoff = parameter == "standoff_mm" and np.all(np.isfinite(solver_sens))
     return Calibration(
         parameter=parameter,
-        unit=parameter_unit(parameter),
+        unit=unit_from_name(parameter),
         values=x,
         capacitance_F=c,
         sensitivity_F_per_unit=np.gradient(c, x),
@@ -122,13 +123,6 @@ def calibration_sweep(
         rel_error_estimate=np.asarray(errs),
         accuracy_met=np.asarray(met),
     )
-
-
-def parameter_unit(name: str) -> str:
-    for suffix, unit in (("_mm", "mm"), ("_deg", "deg"), ("_V", "V"), ("_pct", "%")):
-        if name.endswith(suffix):
-            return unit
-    return ""
 
 
 def calibration_rows(cal: Calibration) -> tuple[list[str], list[list[float | str]]]:

@@ -39,6 +39,22 @@ def volts_text(v: float) -> str:
     return f"{v / 1e3:.3g} kV" if abs(v) >= 1e3 else f"{v:.3g} V"
 
 
+def mark_peak(ax: Any, x_mm: float, y_mm: float, label: str) -> None:
+    """The peak-surface-field point: a star in the peak colour, on top of everything."""
+    ax.plot(
+        [x_mm],
+        [y_mm],
+        marker="*",
+        ms=14,
+        mfc=ff.PEAK_COLOUR,
+        mec="white",
+        mew=0.8,
+        zorder=6,
+        ls="none",
+        label=label,
+    )
+
+
 def design_figure(
     evaluation: Evaluation,
     target: Path | list[Path],
@@ -215,18 +231,7 @@ def _draw_section(ax: Any, evaluation: Evaluation, frame, mirror: bool) -> None:
     peak = sol.peak_field
     scale, unit = field_unit(peak.field_V_per_m)
     pr, pz = peak.location_m[0] / MM, peak.location_m[1] / MM
-    ax.plot(
-        [pr],
-        [pz],
-        marker="*",
-        ms=14,
-        mfc=ff.PEAK_COLOUR,
-        mec="white",
-        mew=0.8,
-        zorder=6,
-        ls="none",
-        label=f"peak |E| {peak.field_V_per_m * scale:.3g} {unit} on {peak.conductor}",
-    )
+    mark_peak(ax, pr, pz, f"peak |E| {peak.field_V_per_m * scale:.3g} {unit} on {peak.conductor}")
     ax.set_xlim(r0 / MM, r1 / MM)
     ax.set_ylim(z0 / MM, z1 / MM)
     ax.set_aspect("equal")
@@ -411,15 +416,11 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
         )
     )
     ax.autoscale_view()
-    ax.plot(
-        [px],
-        [py],
-        marker="*",
-        ms=14,
-        mfc=ff.PEAK_COLOUR,
-        mec="white",
-        ls="none",
-        label=f"peak {peak.field_V_per_m * scale:.3g} {unit} on {peak.conductor} (z = {pz:.3g} mm)",
+    mark_peak(
+        ax,
+        px,
+        py,
+        f"peak {peak.field_V_per_m * scale:.3g} {unit} on {peak.conductor} (z = {pz:.3g} mm)",
     )
     ax.set_aspect("equal")
     ax.set_xlabel("x (mm)")

@@ -14,10 +14,8 @@ from rich.table import Table
 from rich.text import Text
 
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.report.numbers import unit_from_name
 from elopt.optimizer.study.objectives import metric_catalog
-
-#: Unit suffixes of parameter names, for fields that carry no ``unit`` metadata.
-NAME_SUFFIX_UNITS = (("_mm2", "mm^2"), ("_mm", "mm"), ("_deg", "deg"), ("_V", "V"), ("_pct", "%"))
 
 
 @dataclass(frozen=True)
@@ -41,10 +39,7 @@ class FamilyDescription:
 def _unit(f: dataclasses.Field) -> str:
     if "unit" in f.metadata:
         return str(f.metadata["unit"])
-    for suffix, unit in NAME_SUFFIX_UNITS:
-        if f.name.endswith(suffix):
-            return unit
-    return ""
+    return unit_from_name(f.name)
 
 
 def _allowed(f: dataclasses.Field) -> str:

@@ -16,21 +16,12 @@ from rich.text import Text
 
 from elopt.optimizer.config.solve_config import SolveSpec
 from elopt.optimizer.record import drive_of, solve_warnings
+from elopt.optimizer.report.numbers import unit_from_name
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.section_picture import section_picture
 from elopt.optimizer.report.textplot import Series, line_plot
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
 from elopt.physics.electrodes.target_spot import cumulative_on_plane
-
-UNIT_SUFFIXES = (("_mm", "mm"), ("_V", "V"), ("_pct", "%"))
-
-
-def parameter_unit(name: str) -> str:
-    """Unit of a parameter from its suffix (``gap_mm`` -> mm); '' when unitless."""
-    for suffix, unit in UNIT_SUFFIXES:
-        if name.endswith(suffix):
-            return unit
-    return ""
 
 
 def _num(v: float) -> str:
@@ -55,7 +46,7 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        table.add_row(f.name, _num(float(value)), parameter_unit(f.name))
+        table.add_row(f.name, _num(float(value)), unit_from_name(f.name))
     table.add_row("eps_r (medium)", _num(spec.eps_r), "")
     return table
 
