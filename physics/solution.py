@@ -21,7 +21,13 @@ from typing import Literal
 import numpy as np
 
 from elopt.physics.layout import Layout
-from elopt.physics.refinement import ErrorEstimate, Refinement, SolveOptions, StopReason
+from elopt.physics.refinement import (
+    Convergence,
+    ErrorEstimate,
+    Refinement,
+    SolveOptions,
+    StopReason,
+)
 
 
 def excitation_potentials(
@@ -114,6 +120,7 @@ class ChargeSolution(ABC):
     n_unknowns: int
     point_dim: int
     options: SolveOptions
+    convergence: Convergence
     stop_reason: StopReason
     error_estimate: ErrorEstimate
     levels: tuple
@@ -122,6 +129,7 @@ class ChargeSolution(ABC):
         """Take the refinement's verdict (solver constructors call this)."""
         self.levels = refinement.levels
         self.options = refinement.options
+        self.convergence = refinement.convergence
         self.error_estimate = refinement.estimate
         self.stop_reason = refinement.stop_reason
         self.rel_error_estimate = float(refinement.estimate.capacitance)

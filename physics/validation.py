@@ -1,10 +1,12 @@
-"""Published validation cases for the axisymmetric solver and the electrode families.
+"""Published validation cases for both solvers and the electrode families.
 
 Each case solves a layout whose answer is known from outside the project (closed forms,
 series, an independent integral-equation solve, a standard's formula) and returns
 :class:`CheckResult` rows: measured vs reference, relative error, tolerance, and the source.
-``elopt check`` prints them; the tests run them too. Sources are those of
-/work/shared/REFERENCES.md (the item number is given in each source string).
+``elopt check`` prints them; the tests run them too. Sources are those of the project's
+published-values sheet, docs/references.md (the item number is given in each source string).
+The 3-D cases are kept cheap (a few seconds each): coarse requests, tolerance three times the
+request (the honesty bound of the error estimate, see elopt.physics.refinement).
 """
 
 from __future__ import annotations
@@ -16,6 +18,14 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import elliprf
 
+from elopt.physics.bem3d import (
+    BoxSurface,
+    EllipsoidSurface,
+    PanelSolution,
+    RevolvedSurface,
+    solve_3d,
+)
+from elopt.physics.bem3d import sphere as sphere_surface
 from elopt.physics.bem_axi.solve import solve_axisymmetric
 from elopt.physics.electrodes.guarded_disk import (
     GuardedDisk,
@@ -25,6 +35,8 @@ from elopt.physics.electrodes.guarded_disk import (
 )
 from elopt.physics.geometry import disk, sphere, spheroid
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven, floating
+
+FOUR_PI_EPS0 = 4 * math.pi * EPS0_F_PER_M
 
 #: Accuracy asked of the solver in the cases; tolerances sit well above it.
 CASE_ACCURACY = 1e-6
@@ -62,7 +74,7 @@ def _c_over_4pi_eps0(layout: Layout) -> float:
 
 def case_sphere() -> list[CheckResult]:
     """Sphere of radius 1 m at 1 V: C = 4 pi eps0 R, sigma = eps0 V / R uniform."""
-    src = "Jackson, Classical Electrodynamics 3rd ed. (REFERENCES 1)"
+    src = "Jackson, Classical Electrodynamics 3rd ed. (docs/references.md item 1)"
     layout = Layout((driven("sphere", sphere(1.0), 1.0),))
     sol = solve_axisymmetric(layout, rel_accuracy=CASE_ACCURACY)
     c = float(sol.capacitance_matrix_F[0, 0]) / (4 * math.pi * EPS0_F_PER_M)
@@ -76,7 +88,9 @@ def case_sphere() -> list[CheckResult]:
 
 def case_thin_disk() -> list[CheckResult]:
     """Thin disk R = 1 m: C = 8 eps0 R; sigma(r) = 4 eps0 V / (pi sqrt(R^2 - r^2)), both faces."""
-    src = "Landau & Lifshitz, Electrodynamics of Continuous Media, sec. 4 (REFERENCES 2)"
+    src = (
+        "Landau & Lifshitz, Electrodynamics of Continuous Media, sec. 4 (docs/references.md item 2)"
+    )
     layout = Layout((driven("disk", disk(1.0), 1.0),))
     sol = solve_axisymmetric(layout, rel_accuracy=CASE_ACCURACY)
     c = float(sol.capacitance_matrix_F[0, 0]) / (8 * EPS0_F_PER_M)
@@ -96,7 +110,7 @@ def case_thin_disk() -> list[CheckResult]:
 
 def case_spheroids() -> list[CheckResult]:
     """Prolate (a/b = 2) and oblate (c/a = 0.5) spheroids: C = 4 pi eps0 / R_F(a^2, b^2, c^2)."""
-    src = "Carlson R_F, scipy.special.elliprf, DLMF 19.16.1 (REFERENCES 3)"
+    src = "Carlson R_F, scipy.special.elliprf, DLMF 19.16.1 (docs/references.md item 3)"
     prolate = _c_over_4pi_eps0(Layout((driven("prolate", spheroid(1.0, 2.0), 1.0),)))
     oblate = _c_over_4pi_eps0(Layout((driven("oblate", spheroid(1.0, 0.5), 1.0),)))
     return [
@@ -131,7 +145,7 @@ def sphere_above_plane_series(cosh_alpha: float, terms: int = 400) -> float:
 
 def case_sphere_above_plane() -> list[CheckResult]:
     """Sphere R = 1 m, centre 1.5 m above a grounded plane (cosh alpha = 1.5)."""
-    src = "image series, Smythe, Static and Dynamic Electricity ch. 5 (REFERENCES 6)"
+    src = "image series, Smythe, Static and Dynamic Electricity ch. 5 (docs/references.md item 6)"
     layout = Layout((driven("sphere", sphere(1.0, 1.5), 1.0),), ground_plane=True)
     c = _c_over_4pi_eps0(layout)
     ref = sphere_above_plane_series(1.5)
@@ -146,7 +160,7 @@ def love_disk_pair_capacitance(k: float, nodes: int = 400) -> float:
     """C / (eps0 R) of two coaxial disks at +-V/2, spacing k R, from Love's equation.
 
     f(x) - (1/pi) int_{-1}^{1} k / (k^2 + (x - t)^2) f(t) dt = 1, C = 4 eps0 R int_0^1 f dt,
-    solved by Gauss-Legendre Nystrom (Love 1949; REFERENCES 7).
+    solved by Gauss-Legendre Nystrom (Love 1949; docs/references.md item 7).
     """
     x, w = np.polynomial.legendre.leggauss(nodes)
     kernel = (k / np.pi) / (k**2 + (x[:, None] - x[None, :]) ** 2) * w[None, :]
@@ -155,7 +169,7 @@ def love_disk_pair_capacitance(k: float, nodes: int = 400) -> float:
 
 
 def kirchhoff_disk_pair_capacitance(k: float) -> tuple[float, float]:
-    """Kirchhoff's C / (eps0 R) with Shaw's next term, and that last term alone (REFERENCES 7)."""
+    """Kirchhoff's C / (eps0 R) with Shaw's next term, and that last term alone (docs/references.md item 7)."""
     last = (k / (4 * math.pi)) * math.log(k / (16 * math.pi)) ** 2
     return math.pi / k + math.log(16 * math.pi / k) - 1.0 + last, last
 
@@ -180,7 +194,7 @@ def case_coaxial_disks() -> list[CheckResult]:
                 _disk_pair(k),
                 love_disk_pair_capacitance(k),
                 TOL_CAPACITANCE,
-                "Love's integral equation, Nystrom solve (Love 1949; REFERENCES 7)",
+                "Love's integral equation, Nystrom solve (Love 1949; docs/references.md item 7)",
             )
         )
     k = 0.05
@@ -194,7 +208,7 @@ def case_coaxial_disks() -> list[CheckResult]:
             _disk_pair(k),
             ref,
             last / ref,
-            "Kirchhoff 1877 with Shaw's term (Shaw 1970; REFERENCES 7)",
+            "Kirchhoff 1877 with Shaw's term (Shaw 1970; docs/references.md item 7)",
         )
     )
     return out
@@ -202,7 +216,7 @@ def case_coaxial_disks() -> list[CheckResult]:
 
 def case_sphere_in_field() -> list[CheckResult]:
     """Uncharged floating sphere in a uniform field E0: peak 3 E0, sigma = 3 eps0 E0 cos(theta)."""
-    src = "Jackson sec. 2.5 (REFERENCES 9)"
+    src = "Jackson sec. 2.5 (docs/references.md item 9)"
     layout = Layout((floating("sphere", sphere(1.0), 0.0),), applied_field_V_per_m=1.0)
     sol = solve_axisymmetric(layout, rel_accuracy=CASE_ACCURACY)
     s = sol.surface_samples("sphere")
@@ -287,9 +301,68 @@ def case_guarded_electrode() -> list[CheckResult]:
             measured,
             ref,
             TOL_GUARD_FRINGE,
-            "Amey & Hamburger 1949 as in ASTM D150/D257 (REFERENCES 8, from memory)",
+            "Amey & Hamburger 1949 as in ASTM D150/D257 (docs/references.md item 8, from memory)",
         )
     ]
+
+
+#: Request of the 3-D cases; their tolerance is three times it (the estimate's honesty bound).
+ACCURACY_3D = 1e-2
+TOL_3D = 3 * ACCURACY_3D
+
+
+def _solve_3d(layout: Layout) -> PanelSolution:
+    return solve_3d(layout, rel_accuracy=ACCURACY_3D, max_level=3)
+
+
+def _c_3d(case: str, quantity: str, layout: Layout, length: float, ref: float, src: str):
+    sol = _solve_3d(layout)
+    c = float(sol.capacitance_matrix_F[0, 0]) / length
+    return CheckResult(case, quantity, "1", c, ref, TOL_3D, src), sol
+
+
+def case_sphere_3d() -> list[CheckResult]:
+    """3-D panels: sphere R = 1 m at 1 V, C = 4 pi eps0 R and surface field V / R."""
+    src = "Jackson, Classical Electrodynamics 3rd ed. (docs/references.md item 1)"
+    layout = Layout((driven("sphere", sphere_surface(1.0, subdivisions=1), 1.0),))
+    row, sol = _c_3d("sphere, 3-D", "C / (4 pi eps0 R)", layout, FOUR_PI_EPS0, 1.0, src)
+    peak = float(sol.peak_field.field_V_per_m)
+    return [row, CheckResult("sphere, 3-D", "peak field R / V", "1", peak, 1.0, TOL_3D, src)]
+
+
+def case_ellipsoid_3d() -> list[CheckResult]:
+    """3-D panels: triaxial ellipsoid (3, 2, 1) m, C = 4 pi eps0 / R_F(9, 4, 1)."""
+    src = "Carlson R_F, scipy.special.elliprf, DLMF 19.16.1 (docs/references.md item 3)"
+    layout = Layout((driven("e", EllipsoidSurface((3.0, 2.0, 1.0), subdivisions=1), 1.0),))
+    ref = float(1.0 / elliprf(9.0, 4.0, 1.0))
+    return [_c_3d("ellipsoid 3:2:1, 3-D", "C / (4 pi eps0)", layout, FOUR_PI_EPS0, ref, src)[0]]
+
+
+def case_sphere_above_plane_3d() -> list[CheckResult]:
+    """3-D panels: sphere R = 1 m, centre 1.5 m above a grounded plane."""
+    src = "image series, Smythe, Static and Dynamic Electricity ch. 5 (docs/references.md item 6)"
+    curve = sphere(1.0, 1.5)
+    layout = Layout((driven("sphere", RevolvedSurface(curve, 0.3), 1.0),), ground_plane=True)
+    ref = sphere_above_plane_series(1.5)
+    case = "sphere above plane, h/R = 1.5, 3-D"
+    return [_c_3d(case, "C / (4 pi eps0 R)", layout, FOUR_PI_EPS0, ref, src)[0]]
+
+
+def case_thin_disk_3d() -> list[CheckResult]:
+    """3-D panels: thin disk R = 1 m, C = 8 eps0 R."""
+    src = (
+        "Landau & Lifshitz, Electrodynamics of Continuous Media, sec. 4 (docs/references.md item 2)"
+    )
+    layout = Layout((driven("disk", RevolvedSurface(disk(1.0), 0.25), 1.0),))
+    return [_c_3d("thin disk, 3-D", "C / (8 eps0 R)", layout, 8 * EPS0_F_PER_M, 1.0, src)[0]]
+
+
+def case_cube_3d() -> list[CheckResult]:
+    """3-D panels: unit cube, C / (4 pi eps0 a) = 0.6606782."""
+    src = "Hwang & Mascagni, J. Appl. Phys. 95, 3798 (2004) (docs/references.md item 4)"
+    layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 0.5, grade=2.0), 1.0),))
+    row = _c_3d("unit cube, 3-D", "C / (4 pi eps0 a)", layout, FOUR_PI_EPS0, 0.6606782, src)
+    return [row[0]]
 
 
 CASES: dict[str, Callable[[], list[CheckResult]]] = {
@@ -300,6 +373,11 @@ CASES: dict[str, Callable[[], list[CheckResult]]] = {
     "coaxial_disks": case_coaxial_disks,
     "sphere_in_field": case_sphere_in_field,
     "guarded_electrode": case_guarded_electrode,
+    "sphere_3d": case_sphere_3d,
+    "ellipsoid_3d": case_ellipsoid_3d,
+    "sphere_above_plane_3d": case_sphere_above_plane_3d,
+    "thin_disk_3d": case_thin_disk_3d,
+    "cube_3d": case_cube_3d,
 }
 
 

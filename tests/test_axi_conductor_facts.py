@@ -137,15 +137,15 @@ def test_observed_convergence_order_on_a_smooth_body():
     # A smooth body (oblate spheroid) with p Gauss nodes per panel: the capacitance, a smooth
     # functional of the density, converges like the 2p-order Gauss rule, h^(2p) (common practice
     # for Gauss-point collocation, no source); demand at least 2p - 1/2 over three halvings.
-    from scipy.special import elliprf
+    from reference_values import ellipsoid_capacitance_F
 
     from elopt.physics.bem_axi.mesh import build_mesh
     from elopt.physics.bem_axi.solve import solve_level
-    from elopt.physics.layout import EPS0_F_PER_M
 
     a, c = 1.0, 0.4
     lay = Layout((driven("body", geo.spheroid(a, c), 1.0),))
-    exact = 4 * math.pi * EPS0_F_PER_M / float(elliprf(a * a, a * a, c * c))
+    # Carlson's R_F (docs/references.md item 3).
+    exact = ellipsoid_capacitance_F(a, a, c)
     p = 2
     hs, errs = [], []
     for level in range(4):

@@ -1,4 +1,7 @@
-"""Axisymmetric solver against published closed forms and series (../shared/REFERENCES.md)."""
+"""Axisymmetric solver against published closed forms and series (docs/references.md).
+
+Reference formulas come from tests/reference_values.py.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +9,14 @@ import math
 
 import numpy as np
 import pytest
-from scipy.special import elliprf
+from reference_values import (
+    disk_capacitance_F,
+    ellipsoid_capacitance_F,
+    kirchhoff_disk_pair_capacitance,
+    love_disk_pair_capacitance,
+    sphere_above_plane_capacitance_F,
+    sphere_capacitance_F,
+)
 
 from elopt.physics import geometry as geo
 from elopt.physics.bem_axi.solve import solve_axisymmetric
@@ -22,7 +32,7 @@ def test_sphere_capacitance_uniform_charge_and_surface_field():
         Layout((driven("ball", geo.sphere(radius, 0.1), volts),)), rel_accuracy=1e-8
     )
     assert sol.accuracy_met
-    assert sol.capacitance_matrix_F[0, 0] == pytest.approx(4 * math.pi * EPS0 * radius, rel=1e-9)
+    assert sol.capacitance_matrix_F[0, 0] == pytest.approx(sphere_capacitance_F(radius), rel=1e-9)
     s = sol.surface_samples("ball")
     np.testing.assert_allclose(s.sigma_C_per_m2, EPS0 * volts / radius, rtol=1e-8)
     assert sol.peak_field.field_V_per_m == pytest.approx(volts / radius, rel=1e-8)
@@ -35,7 +45,7 @@ def test_thin_disk_capacitance_and_edge_singular_density():
     radius = 0.01
     sol = solve_axisymmetric(Layout((driven("disk", geo.disk(radius), 1.0),)), rel_accuracy=1e-7)
     assert sol.accuracy_met
-    assert sol.capacitance_matrix_F[0, 0] == pytest.approx(8 * EPS0 * radius, rel=1e-7)
+    assert sol.capacitance_matrix_F[0, 0] == pytest.approx(disk_capacitance_F(radius), rel=1e-7)
     s = sol.surface_samples("disk")
     front, back = s.face == 1, s.face == -1
     r = s.points_m[front, 0]
@@ -48,8 +58,8 @@ def test_thin_disk_capacitance_and_edge_singular_density():
 
 
 def _spheroid_capacitance(a_r: float, c_z: float) -> float:
-    # Ellipsoid: C = 4 pi eps0 / R_F(a^2, b^2, c^2), Carlson's R_F (DLMF 19.16.1); spheroid b = a.
-    return 4 * math.pi * EPS0 / float(elliprf(a_r**2, a_r**2, c_z**2))
+    # Ellipsoid: C = 4 pi eps0 / R_F(a^2, b^2, c^2), Carlson's R_F (docs/references.md item 3).
+    return ellipsoid_capacitance_F(a_r, a_r, c_z)
 
 
 @pytest.mark.parametrize(
@@ -58,7 +68,7 @@ def _spheroid_capacitance(a_r: float, c_z: float) -> float:
     ids=["prolate-2", "prolate-10", "oblate-0.5"],
 )
 def test_spheroid_capacitance_and_density_vs_carlson(a_r, c_z):
-    # C from Carlson's R_F; the closed forms give the spot values of REFERENCES.md item 3
+    # C from Carlson's R_F; the closed forms give the spot values of docs/references.md item 3
     # (prolate a/b = 2 -> 1.315190722204 b, oblate c/a = 0.5 -> 0.826993343133 a).
     # Density for total charge Q: sigma = Q / (4 pi a b c) (x^2/a^4 + y^2/b^4 + z^2/c^4)^(-1/2)
     # (Landau & Lifshitz sec. 4, from memory).
@@ -74,21 +84,13 @@ def test_spheroid_capacitance_and_density_vs_carlson(a_r, c_z):
 
 
 def test_spheroid_spot_values_from_references():
-    # REFERENCES.md item 3 spot values (verified there against R_F to 12 digits).
+    # docs/references.md item 3 spot values (verified there against R_F to 12 digits).
     assert _spheroid_capacitance(1.0, 2.0) / (4 * math.pi * EPS0) == pytest.approx(
         1.315190722204, rel=1e-11
     )
     assert _spheroid_capacitance(1.0, 0.5) / (4 * math.pi * EPS0) == pytest.approx(
         0.826993343133, rel=1e-11
     )
-
-
-def _sphere_plane_series(radius: float, height: float) -> float:
-    # C = 4 pi eps0 R sinh(alpha) sum_{n>=1} 1/sinh(n alpha), cosh(alpha) = h/R (image method;
-    # Smythe, Static and Dynamic Electricity, 3rd ed. (1968), ch. 5, from memory).
-    alpha = math.acosh(height / radius)
-    terms = [1.0 / math.sinh(n * alpha) for n in range(1, 100_000) if n * alpha < 700]
-    return 4 * math.pi * EPS0 * radius * math.sinh(alpha) * math.fsum(terms)
 
 
 @pytest.mark.parametrize("h_over_r", [5.0, 2.0, 1.5, 1.2, 1.1])
@@ -98,27 +100,20 @@ def test_sphere_above_grounded_plane_vs_image_series(h_over_r):
     sol = solve_axisymmetric(lay, rel_accuracy=1e-8)
     assert sol.accuracy_met
     assert sol.capacitance_matrix_F[0, 0] == pytest.approx(
-        _sphere_plane_series(radius, h_over_r * radius), rel=1e-8
+        # Image series (Smythe, ch. 5, from memory; docs/references.md item 6).
+        sphere_above_plane_capacitance_F(radius, h_over_r * radius),
+        rel=1e-8,
     )
 
 
 def _love_capacitance(radius: float, gap: float, n: int = 400) -> float:
-    # Love (1949): f(x) - (1/pi) int_{-1}^{1} k / (k^2 + (x - t)^2) f(t) dt = 1, k = d / R,
-    # C = 4 eps0 R int_0^1 f dt, solved here by Gauss-Legendre Nystrom (REFERENCES.md item 7).
-    k = gap / radius
-    x, w = np.polynomial.legendre.leggauss(n)
-    kernel = (k / math.pi) / (k**2 + (x[:, None] - x[None, :]) ** 2)
-    f = np.linalg.solve(np.eye(n) - kernel * w[None, :], np.ones(n))
-    return 4 * EPS0 * radius * 0.5 * float(np.sum(w * f))
+    # Love's equation, Nystrom solve (Love 1949; docs/references.md item 7): the pair's C.
+    return love_disk_pair_capacitance(gap / radius, n) * EPS0 * radius
 
 
 def _kirchhoff_capacitance(radius: float, gap: float) -> float:
-    # Kirchhoff (1877) with the next term of Shaw (1970) / Chew & Kong (1981), REFERENCES.md item 7.
-    return (
-        EPS0 * math.pi * radius**2 / gap
-        + EPS0 * radius * (math.log(16 * math.pi * radius / gap) - 1)
-        + EPS0 * (gap / (4 * math.pi)) * math.log(gap / (16 * math.pi * radius)) ** 2
-    )
+    # Kirchhoff (1877) with Shaw's next term (docs/references.md item 7).
+    return kirchhoff_disk_pair_capacitance(gap / radius)[0] * EPS0 * radius
 
 
 def _disk_pair_capacitance(radius: float, gap: float) -> tuple[float, object]:

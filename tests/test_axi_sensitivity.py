@@ -6,18 +6,17 @@ import math
 
 import numpy as np
 import pytest
+from reference_values import sphere_above_plane_capacitance_F
 
 from elopt.physics import geometry as geo
 from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.layout import EPS0_F_PER_M as EPS0
 from elopt.physics.layout import Layout, driven
 
 
 def _series(radius: float, height: float) -> float:
-    # Sphere above a grounded plane, image series (Smythe, 3rd ed., ch. 5, from memory).
-    alpha = math.acosh(height / radius)
-    terms = [1.0 / math.sinh(n * alpha) for n in range(1, 100_000) if n * alpha < 700]
-    return 4 * math.pi * EPS0 * radius * math.sinh(alpha) * math.fsum(terms)
+    # Sphere above a grounded plane, image series (Smythe, 3rd ed., ch. 5, from memory;
+    # docs/references.md item 6).
+    return sphere_above_plane_capacitance_F(radius, height)
 
 
 def _sphere(height: float, radius: float = 1e-3) -> Layout:

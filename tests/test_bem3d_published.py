@@ -1,6 +1,7 @@
 """3-D panel solver against published closed forms and facts of electrostatics.
 
-Sources are named beside each check (see /work/shared/REFERENCES.md).
+Sources are named beside each check (see docs/references.md); reference formulas come from
+tests/reference_values.py.
 """
 
 from __future__ import annotations
@@ -9,14 +10,18 @@ import math
 
 import numpy as np
 import pytest
-from scipy.special import elliprf
+from reference_values import (
+    CUBE_C_OVER_4PI_EPS0_A,
+    FOUR_PI_EPS0,
+    disk_capacitance_F,
+    ellipsoid_capacitance_F,
+    sphere_above_plane_series,
+)
 
 from elopt.physics.bem3d import BoxSurface, EllipsoidSurface, RevolvedSurface, solve_3d, sphere
 from elopt.physics.geometry import disk
 from elopt.physics.geometry import sphere as sphere_curve
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven, floating
-
-FOUR_PI_EPS0 = 4.0 * math.pi * EPS0_F_PER_M
 
 
 @pytest.fixture(scope="module")
@@ -27,7 +32,7 @@ def sphere_solution():
 
 
 def test_sphere_capacitance_converges_at_second_order_to_4_pi_eps_r(sphere_solution):
-    # Jackson, Classical Electrodynamics, 3rd ed. (1999): C = 4 pi eps0 R (REFERENCES 1).
+    # Jackson, Classical Electrodynamics, 3rd ed. (1999): C = 4 pi eps0 R (docs/references.md item 1).
     r, sol = sphere_solution
     exact = FOUR_PI_EPS0 * r
     errors = [abs(lv.capacitance_F[0, 0] - exact) / exact for lv in sol.levels]
@@ -42,7 +47,7 @@ def test_sphere_capacitance_converges_at_second_order_to_4_pi_eps_r(sphere_solut
 
 
 def test_sphere_charge_is_uniform_and_field_is_v_over_r(sphere_solution):
-    # Jackson (1999): sigma = eps0 V / R everywhere, surface field V / R (REFERENCES 1).
+    # Jackson (1999): sigma = eps0 V / R everywhere, surface field V / R (docs/references.md item 1).
     r, sol = sphere_solution
     s = sol.surface_samples("ball")
     expected = EPS0_F_PER_M * 5.0 / r
@@ -67,11 +72,11 @@ def test_sphere_potential_inside_is_constant_and_outside_falls_as_one_over_r(sph
 
 
 def test_triaxial_ellipsoid_capacitance_and_charge_density():
-    # C = 4 pi eps0 / R_F(a^2, b^2, c^2) (Carlson R_F, DLMF 19.16.1; REFERENCES 3), spot
+    # C = 4 pi eps0 / R_F(a^2, b^2, c^2) (Carlson R_F, DLMF 19.16.1; docs/references.md item 3), spot
     # value 1.96600920070939 for (3, 2, 1); sigma = Q / (4 pi a b c) (x^2/a^4 + y^2/b^4 +
     # z^2/c^4)^(-1/2) (Landau & Lifshitz sec. 4, from memory).
     a, b, c = 3.0, 2.0, 1.0
-    exact = 1.0 / elliprf(a * a, b * b, c * c)
+    exact = ellipsoid_capacitance_F(a, b, c) / FOUR_PI_EPS0
     assert exact == pytest.approx(1.96600920070939, rel=1e-12)
     layout = Layout((driven("e", EllipsoidSurface((a, b, c), subdivisions=2), 1.0),))
     sol = solve_3d(layout, rel_accuracy=1e-5, max_level=2, strict=False)
@@ -93,25 +98,24 @@ def test_triaxial_ellipsoid_capacitance_and_charge_density():
 
 def test_unit_cube_richardson_estimate_within_1e4_of_published_value():
     # C/(4 pi eps0 a) = 0.6606782 (Hwang & Mascagni, J. Appl. Phys. 95, 3798 (2004);
-    # REFERENCES 4). Sharp edges: graded meshes, three levels, Richardson with the observed
+    # docs/references.md item 4). Sharp edges: graded meshes, three levels, Richardson with the observed
     # rate (about 2.7 here).
     layout = Layout((driven("cube", BoxSurface((1.0, 1.0, 1.0), 0.5, grade=2.0), 1.0),))
     sol = solve_3d(layout, rel_accuracy=1e-7, max_level=2, strict=False)
     assert [lv.panels.n for lv in sol.levels] == [192, 768, 3072]
     c_fine = sol.capacitance_matrix_F[0, 0] / FOUR_PI_EPS0
     c_rich = sol.capacitance_matrix_extrapolated_F[0, 0] / FOUR_PI_EPS0
-    assert abs(c_fine - 0.6606782) < 2e-4
-    assert abs(c_rich - 0.6606782) < 1e-5
+    assert abs(c_fine - CUBE_C_OVER_4PI_EPS0_A) < 2e-4
+    assert abs(c_rich - CUBE_C_OVER_4PI_EPS0_A) < 1e-5
     assert 2.0 < sol.convergence_rate < 3.5
     assert sol.peak_field.singular
 
 
 def test_sphere_above_grounded_plane_matches_image_series():
     # C = 4 pi eps0 R sinh(alpha) sum 1/sinh(n alpha), cosh(alpha) = h/R (Smythe, Static and
-    # Dynamic Electricity, 3rd ed. (1968), ch. 5, from memory; REFERENCES 6).
+    # Dynamic Electricity, 3rd ed. (1968), ch. 5, from memory; docs/references.md item 6).
     r, h = 1.0, 1.5
-    alpha = math.acosh(h / r)
-    exact = r * math.sinh(alpha) * sum(1.0 / math.sinh(n * alpha) for n in range(1, 400))
+    exact = r * sphere_above_plane_series(h / r)
     layout = Layout(
         (driven("s", RevolvedSurface(sphere_curve(r, center_z=h), 0.3), 1.0),), ground_plane=True
     )
@@ -125,7 +129,7 @@ def test_sphere_above_grounded_plane_matches_image_series():
 
 def test_neutral_sphere_in_uniform_field_has_cosine_charge_and_peak_three_e0():
     # sigma = 3 eps0 E0 cos(theta), peak field 3 E0 (Jackson sec. 2.5 and 3rd ed. (1999);
-    # REFERENCES 9). A floating neutral sphere keeps zero charge.
+    # docs/references.md item 9). A floating neutral sphere keeps zero charge.
     e0 = 1.0e5
     layout = Layout(
         (floating("ball", sphere(0.02, subdivisions=3), 0.0),), applied_field_V_per_m=e0
@@ -142,11 +146,11 @@ def test_neutral_sphere_in_uniform_field_has_cosine_charge_and_peak_three_e0():
 
 def test_thin_disk_capacitance_and_both_faces():
     # C = 8 eps0 R; summed density 4 eps0 V / (pi sqrt(R^2 - r^2)), half on each face
-    # (Landau & Lifshitz, sec. 4, section from memory; REFERENCES 2).
+    # (Landau & Lifshitz, sec. 4, section from memory; docs/references.md item 2).
     r = 0.05
     layout = Layout((driven("disk", RevolvedSurface(disk(r), 0.01), 1.0),))
     sol = solve_3d(layout, rel_accuracy=1e-4, max_level=2, strict=False)
-    exact = 8 * EPS0_F_PER_M * r
+    exact = disk_capacitance_F(r)
     assert sol.capacitance_matrix_F[0, 0] == pytest.approx(exact, rel=3e-3)
     assert sol.capacitance_matrix_extrapolated_F[0, 0] == pytest.approx(exact, rel=5e-4)
     s = sol.surface_samples("disk")

@@ -127,3 +127,10 @@ def test_required_parameter_missing():
     table = copy.deepcopy(GOOD)
     del table["geometry"]["standoff_mm"]
     assert "geometry.standoff_mm: required key is missing" in _error(table)
+
+
+def test_peak_accuracy_is_its_own_optional_request():
+    assert parse_solve_config(copy.deepcopy(GOOD), "cfg.toml").peak_rel_accuracy is None
+    spec = parse_solve_config(_with(solver={"peak_rel_accuracy": 1e-3}), "cfg.toml")
+    assert spec.peak_rel_accuracy == 1e-3 and spec.rel_accuracy == 1e-4
+    assert "solver.peak_rel_accuracy" in _error(_with(solver={"peak_rel_accuracy": 0.5}))

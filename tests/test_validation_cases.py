@@ -21,7 +21,7 @@ def test_love_nystrom_is_converged_and_has_the_right_limits():
             love_disk_pair_capacitance(k, 400), rel=1e-11
         )
     # Far apart, each disk is an isolated disk of capacitance 8 eps0 R (Landau & Lifshitz
-    # sec. 4, REFERENCES.md item 2) and the pair is the two in series: 4 eps0 R.
+    # sec. 4, docs/references.md item 2) and the pair is the two in series: 4 eps0 R.
     assert love_disk_pair_capacitance(1e4, 100) == pytest.approx(4.0, rel=1e-3)
     # Close together, Love and Kirchhoff's series agree to within Kirchhoff's last term.
     for k in (0.05, 0.1):
@@ -31,7 +31,7 @@ def test_love_nystrom_is_converged_and_has_the_right_limits():
 
 def test_sphere_above_plane_series_limits():
     # Far from the plane the image series tends to the isolated sphere, C = 4 pi eps0 R
-    # (REFERENCES.md items 1 and 6); the first correction is +R/(2h).
+    # (docs/references.md items 1 and 6); the first correction is +R/(2h).
     h = 100.0
     assert sphere_above_plane_series(h) == pytest.approx(1 + 1 / (2 * h), rel=1e-4)
     # The vectorised sum equals a plain compensated sum of the same series.

@@ -49,6 +49,8 @@ def run(args: argparse.Namespace) -> int:
     family = get_family(spec.family)
     figure_paths = design_outputs(args, lambda: family.build(spec.params))
     kwargs = {} if spec.options is None else {"options": spec.options}
+    if spec.peak_rel_accuracy is not None:
+        kwargs["peak_rel_accuracy"] = spec.peak_rel_accuracy
     evaluation = family.evaluate(
         spec.params, rel_accuracy=spec.rel_accuracy, eps_r=spec.eps_r, **kwargs
     )

@@ -6,6 +6,7 @@
     sensor_radius_mm = 4.0 ...
     [solver]                           # optional
     rel_accuracy = 1e-4
+    peak_rel_accuracy = 1e-3           # optional: a request on the peak surface field
     [medium]                           # optional
     eps_r = 1.0
     breakdown_field_V_per_m = 3e6
@@ -58,6 +59,7 @@ class SolveSpec:
     eps_r: float
     breakdown_field_V_per_m: float | None
     breakdown_source: str
+    peak_rel_accuracy: float | None = None
 
 
 def read_dataclass(cls: type, table: dict[str, Any], where: str, skip: tuple[str, ...] = ()):
@@ -129,13 +131,18 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
         else:
             options = read_dataclass(options_cls, evaluation, "evaluation")
         solver = as_table(table.get("solver", {}), "solver")
-        check_keys(solver, ("rel_accuracy",), "solver")
+        check_keys(solver, ("rel_accuracy", "peak_rel_accuracy"), "solver")
         rel_accuracy = as_float(
             solver.get("rel_accuracy", DEFAULT_REL_ACCURACY),
             "solver.rel_accuracy",
             low=1e-8,
             high=0.1,
         )
+        peak_rel_accuracy = None
+        if "peak_rel_accuracy" in solver:
+            peak_rel_accuracy = as_float(
+                solver["peak_rel_accuracy"], "solver.peak_rel_accuracy", low=1e-8, high=0.1
+            )
         medium = as_table(table.get("medium", {}), "medium")
         check_keys(medium, ("eps_r", "breakdown_field_V_per_m"), "medium")
         eps_r = as_float(medium.get("eps_r", 1.0), "medium.eps_r", low=1.0)
@@ -171,6 +178,7 @@ def parse_solve_config(table: dict[str, Any], path: str = "<config>") -> SolveSp
         rel_accuracy=rel_accuracy,
         eps_r=eps_r,
         breakdown_field_V_per_m=breakdown,
+        peak_rel_accuracy=peak_rel_accuracy,
         breakdown_source=source,
     )
 

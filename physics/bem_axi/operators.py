@@ -30,7 +30,6 @@ from elopt.physics.quadrature import barycentric_weights, gauss_legendre, log_pr
 NEAR_FACTOR = 1.0
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
 _MAX_LEVELS = 44
-_SAMPLE_TAU = np.linspace(-1.0, 1.0, 33)
 _MIRROR = np.array([1.0, -1.0])
 
 Kernel = Callable[..., np.ndarray | tuple[np.ndarray, np.ndarray]]

@@ -23,10 +23,23 @@ from elopt.physics.bem_axi.operators import collocation_matrix
 from elopt.physics.bem_axi.solution import AxisymmetricSolution, LevelResult
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
-from elopt.physics.refinement import LevelPlan, SolveOptions, make_options, refine
+from elopt.physics.refinement import (
+    Convergence,
+    LevelPlan,
+    SolveOptions,
+    make_options,
+    refine,
+)
 
 #: Bytes per matrix entry a dense level needs: the matrix, its LU and assembly temporaries.
 DENSE_BYTES_PER_ENTRY = 32
+#: Ratio of successive changes assumed with two levels: measured 0.02-0.05 on the published
+#: cases (tests/benchmarks/measure_error_estimate.py), taken as 0.1.
+PRIOR_RATIO = 0.1
+#: Relative errors refinement does not reduce, per nodes per panel (quadrature tolerances):
+#: (capacitance, peak field). Measured floors: 1.9e-10 / 4.6e-9 (4 nodes), 5e-13 / 2.8e-11
+#: (6), 2.4e-13 / 1.2e-13 (8).
+NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-12, 1e-10), 8: (1e-12, 1e-12)}
 
 
 def solve_level(layout: Layout, mesh: AxiMesh) -> LevelResult:
@@ -92,4 +105,7 @@ def solve_axisymmetric(
             lambda _: solve_level(layout, mesh),
         )
 
-    return AxisymmetricSolution(layout, refine(plan, opts))
+    # Orders between (or below) the measured ones take the floors of the next lower (or 4).
+    floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
+    convergence = Convergence(PRIOR_RATIO, *floors)
+    return AxisymmetricSolution(layout, refine(plan, opts, convergence))

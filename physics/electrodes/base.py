@@ -59,6 +59,12 @@ class ElectrodeFamily(ABC):
 
     @abstractmethod
     def evaluate(
-        self, params: Any, *, rel_accuracy: float = 1e-4, eps_r: float = 1.0
+        self,
+        params: Any,
+        *,
+        rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
+        eps_r: float = 1.0,
     ) -> Evaluation:
-        """Solve and return every metric of :attr:`metrics`."""
+        """Solve and return every metric of :attr:`metrics`; ``peak_rel_accuracy`` is a
+        separate accuracy request on the peak surface field (None: none)."""

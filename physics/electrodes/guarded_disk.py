@@ -202,13 +202,16 @@ class GuardedDisk(ElectrodeFamily):
         params: GuardedDiskParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: GuardedDiskOptions | None = None,
     ) -> Evaluation:
         options = options or GuardedDiskOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
+        sol = solve_axisymmetric(
+            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
+        )
         eps = layout.eps_F_per_m
         d = params.standoff_mm * MM
         c_sense = sense_capacitance_F(sol)

@@ -218,6 +218,7 @@ class GuardedPad(ElectrodeFamily):
         params: GuardedPadParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: GuardedPadOptions | None = None,
     ) -> Evaluation:
@@ -226,7 +227,11 @@ class GuardedPad(ElectrodeFamily):
         layout = self.build(params, eps_r=eps_r, options=options)
         try:
             sol = solve_3d(
-                layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False
+                layout,
+                rel_accuracy=rel_accuracy,
+                peak_rel_accuracy=peak_rel_accuracy,
+                max_level=options.max_level,
+                strict=False,
             )
         except GeometryError as exc:
             raise ElectrodeError(f"{self.name}: {exc}") from None

@@ -182,6 +182,7 @@ class MeshFile(ElectrodeFamily):
         params: MeshFileParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: MeshFileOptions | None = None,
     ) -> Evaluation:
@@ -190,7 +191,11 @@ class MeshFile(ElectrodeFamily):
         layout = self.build(params, eps_r=eps_r)
         try:
             sol = solve_3d(
-                layout, rel_accuracy=rel_accuracy, max_level=options.max_level, strict=False
+                layout,
+                rel_accuracy=rel_accuracy,
+                peak_rel_accuracy=peak_rel_accuracy,
+                max_level=options.max_level,
+                strict=False,
             )
         except GeometryError as exc:
             raise ElectrodeError(f"{self.name}: {exc}") from None

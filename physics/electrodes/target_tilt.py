@@ -10,22 +10,17 @@ target, which the image method solves exactly; the 3-D solver does so. From one 
 - the tilt sensitivity dC_sense/dtheta (the Hadamard formula with the plane displacement
   dz = -theta (x - x_a), :meth:`PanelSolution.plane_tilt_derivative_F_per_rad`).
 
-Works for any layout whose first conductor is the sensor and second the guard, including an
-axisymmetric one (its curves are revolved first): this is how the guarded disk gets its tilt.
+Works for any layout of 3-D surfaces whose first conductor is the sensor and second the guard.
 """
 
 from __future__ import annotations
 
-import math
 from dataclasses import replace
 
 import numpy as np
 
-from elopt.physics.bem3d import revolved_layout, solve_3d
 from elopt.physics.bem3d.mesh import rotation_about_axis
 from elopt.physics.bem3d.solution import PanelSolution
-from elopt.physics.bem3d.surfaces import Surface
-from elopt.physics.geometry import Curve
 from elopt.physics.layout import Conductor, Layout
 
 #: fF per um for a derivative in F/m; fF per mrad for one in F/rad.
@@ -50,15 +45,6 @@ def tilted_layout(layout: Layout, tilt_rad: float, axis_x_m: float) -> Layout:
     )
 
 
-def as_3d(layout: Layout, h_m: float | None = None) -> Layout:
-    """The layout with generating curves revolved into surfaces (3-D layouts unchanged)."""
-    if all(isinstance(c.shape, Surface) for c in layout.conductors):
-        return layout
-    if all(isinstance(c.shape, Curve) for c in layout.conductors):
-        return revolved_layout(layout, h_m=h_m)
-    raise TypeError("layout mixes generating curves and 3-D surfaces")
-
-
 def sense_capacitance_F(c: np.ndarray) -> float:
     """C_sense = C_ss + C_sg for sensor index 0, guard index 1 (driven guard)."""
     return float(c[0, 0] + c[0, 1])
@@ -73,18 +59,3 @@ def tilt_metrics(solution: PanelSolution, axis_x_m: float) -> dict[str, float]:
         "sensitivity_fF_per_um": sense_capacitance_F(d_plane) * FF_PER_UM,
         "tilt_sensitivity_fF_per_mrad": sense_capacitance_F(d_tilt) * FF_PER_MRAD,
     }
-
-
-def solve_tilted(
-    layout: Layout,
-    tilt_deg: float,
-    axis_x_m: float = 0.0,
-    *,
-    rel_accuracy: float = 1e-3,
-    max_level: int = 2,
-    h_m: float | None = None,
-) -> tuple[PanelSolution, dict[str, float]]:
-    """Solve ``layout`` (sensor, guard, ...; curves or surfaces) over the tilted target."""
-    turned = tilted_layout(as_3d(layout, h_m), math.radians(tilt_deg), axis_x_m)
-    sol = solve_3d(turned, rel_accuracy=rel_accuracy, max_level=max_level, strict=False)
-    return sol, tilt_metrics(sol, axis_x_m)

@@ -166,13 +166,16 @@ class UniformField(ElectrodeFamily):
         params: UniformFieldParams,
         *,
         rel_accuracy: float = 1e-4,
+        peak_rel_accuracy: float | None = None,
         eps_r: float = 1.0,
         options: UniformFieldOptions | None = None,
     ) -> Evaluation:
         options = options or UniformFieldOptions()
         self.validate_options(options)
         layout = self.build(params, eps_r=eps_r)
-        sol = solve_axisymmetric(layout, rel_accuracy=rel_accuracy)
+        sol = solve_axisymmetric(
+            layout, rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy
+        )
         r_out = overall_radius_m(params)
         radius, r_profile, e_profile = uniform_radius_m(
             sol, 1.5 * r_out, options.uniform_tolerance_pct / 100.0
