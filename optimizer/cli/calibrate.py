@@ -15,7 +15,7 @@ def add_parser(subparsers: Any) -> None:
         "sensitivity and deviation from a straight line, as a table, CSV and figure",
         description="Solve the design of CONFIG.toml at evenly spaced values of one parameter "
         "and print, per point, C, 1/C, dC/d(parameter) and the deviation from the best "
-        "straight line through 1/C (or C, --straight direct) in %% of full scale.",
+        "straight line through 1/C (or C, --straight direct) in per cent of full scale.",
     )
     p.add_argument("config", metavar="CONFIG.toml", help="the design (as for elopt solve)")
     p.add_argument(
