@@ -75,6 +75,12 @@ def test_solve_figure_png_and_svg(solved_figure, capsys):
     assert "file exists; add --force" in _error_line(capsys)
 
 
+def test_high_voltage_figure_carries_the_caution(tmp_path):
+    out = tmp_path / "cell.svg"
+    assert main(["solve", str(ROOT / "configs" / "hv_test_cell.toml"), "--figure", str(out)]) == 0
+    assert "High voltage (30 kV): a design aid, not a safety rating" in out.read_text()
+
+
 def test_figure_option_rules(tmp_path, capsys):
     assert main(["solve", str(SPINDLE), "--figure", str(tmp_path / "x.jpg")]) == 2
     assert "a figure ends in .png or .svg" in _error_line(capsys)

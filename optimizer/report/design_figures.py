@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from elopt.optimizer.report import figure_files as ff
+from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.physics.electrodes.base import Evaluation
 from elopt.physics.geometry import Curve, closed_outline, point_in_region
 from elopt.physics.layout import Layout
@@ -70,6 +71,16 @@ def design_figure(
         fig = _figure_3d(evaluation, title, breakdown_V_per_m)
     else:
         fig = _figure_section(evaluation, title, breakdown_V_per_m, mirror)
+    top_V = float(np.max(np.abs(sol.potentials_V), initial=0.0))
+    top_V *= 2.0 if mirror else 1.0  # a mirror pair is driven at +V and -V: 2 V between them
+    if high_voltage_caution(top_V):  # the picture may travel without the terminal's caution
+        # A figure-level x label: the constrained layout makes room for it.
+        fig.supxlabel(
+            f"High voltage ({volts_text(top_V)}): a design aid, not a safety rating; build and "
+            "test only under local electrical codes and licensed practice.",
+            fontsize=8,
+            color="#8a5a00",
+        )
     return ff.save_figure(fig, paths)
 
 
