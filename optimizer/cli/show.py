@@ -62,16 +62,19 @@ def show_command(args: argparse.Namespace) -> int:
     if not (config_out or args.figure or args.geometry):
         return 0
     import tomllib
+    import typing
 
     from elopt.optimizer.cli.solve import _say, design_outputs, draw_design
     from elopt.optimizer.config.solve_config import parse_solve_config
     from elopt.optimizer.export import trial_solve_config
     from elopt.physics.electrodes.registry import get_family
 
-    text = trial_solve_config(snap, number)
+    family = get_family(snap.header.family)
+    hints = typing.get_type_hints(family.Params)
+    whole = {name for name, hint in hints.items() if hint is int}
+    text = trial_solve_config(snap, number, integer_names=whole)
     where = str(config_out) if config_out else f"trial {number} of {args.study_file}"
     spec = parse_solve_config(tomllib.loads(text), where)
-    family = get_family(spec.family)
     if config_out:
         config_out.write_text(text, encoding="utf-8")
         _say(f"elopt: wrote {config_out}; reproduce the trial with: elopt solve {config_out}")

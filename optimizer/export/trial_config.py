@@ -70,14 +70,15 @@ def trial_solve_config(
     lines = [
         f"# Trial {number} of study {h.study_name} ({snap.path}), written by `elopt show`.",
         "# It reproduces the trial: elopt solve THIS_FILE.toml",
-        note.rstrip("\n"),
+        *([note.rstrip()] if note else []),
         f'title = "study {h.study_name}, trial {number}"',
         "",
     ]
-    lines = [x for x in lines[:2] if x] + ([note.rstrip()] if note else []) + lines[3:]
     lines += _table("geometry", geometry)
-    accuracy = solver.get("rel_accuracy", STUDY_DEFAULT_REL_ACCURACY)
-    lines += _table("solver", {"rel_accuracy": accuracy})
+    # Every solver setting of the study but the medium's permittivity (in [medium] here).
+    settings = {k: v for k, v in solver.items() if k != "eps_r"}
+    settings.setdefault("rel_accuracy", STUDY_DEFAULT_REL_ACCURACY)
+    lines += _table("solver", settings)
     if medium:
         lines += _table("medium", medium)
     if study.get("evaluation"):
