@@ -123,7 +123,7 @@ def test_front_table_scatter_and_exports(finished_study, capsys):
     assert main(["front", str(out), "--csv", str(tmp / "front.csv")]) == 0
     text = capsys.readouterr().out
     snap = read_study(out)
-    from elopt.optimizer.report.study_report import front_numbers
+    from elopt.optimizer.report.study_view import front_numbers
 
     front = front_numbers(snap)
     assert len(front) >= 1
@@ -224,7 +224,9 @@ def test_stop_by_signal_records_in_flight_and_resume_finishes(tmp_path):
             seen += " stored (" in line
         os.killpg(proc.pid, sig)
         out_text, err = proc.communicate(timeout=60)
-        assert proc.returncode == 0, err
+        # A run stopped by a signal says so in its exit status: 128 + the signal's number, as
+        # shells report a process ended by that signal (common practice, no source).
+        assert proc.returncode == 128 + sig, err
         assert f"Continue with: elopt resume {out}" in out_text
         assert f"{sig.name}: stopping" in out_text
     snap = read_study(out)
@@ -237,6 +239,13 @@ def test_stop_by_signal_records_in_flight_and_resume_finishes(tmp_path):
     assert int((snap.state_names() != "interrupted").sum()) == 30
     rerun = {snap.info(i).get("rerun_of") for i in range(snap.n_trials)} - {None}
     assert rerun == set(np.flatnonzero(names == "interrupted").tolist())
+    # Once re-run, an interrupted trial no longer counts as interrupted.
+    front = run_elopt("front", out, cwd=tmp_path)
+    assert f"0 interrupted ({len(rerun)} re-run)" in front.stdout, front.stdout
+    first = min(rerun)
+    shown = run_elopt("show", out, str(first), cwd=tmp_path)
+    assert f"trial {first} of study" in shown.stdout
+    assert "interrupted, then re-run as trial" in shown.stdout
 
 
 def test_live_front_and_show_while_running_and_second_writer_refused(tmp_path, capsys):
