@@ -82,9 +82,10 @@ def _fixture_study(tmp_path, n=60) -> Path:
     with StudyWriter.create(path, small_header()) as w:
         for i in range(n):
             rec = record_for(i)
-            rec.objectives = (
-                np.array([math.sin(i) * 10, math.cos(i) * 5]) if rec.feasible else rec.objectives
-            )
+            if rec.feasible:
+                # objectives (score_fF, size_mm) are metrics 1 and 0: the file keeps them equal
+                rec.objectives = np.array([math.sin(i) * 10, math.cos(i) * 5])
+                rec.metrics[1], rec.metrics[0] = rec.objectives
             w.append(rec)
     return path
 

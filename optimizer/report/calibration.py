@@ -20,7 +20,6 @@ import numpy as np
 
 from elopt.optimizer.config.solve_config import SolveSpec
 from elopt.optimizer.errors import ConfigError
-from elopt.optimizer.report.numbers import unit_from_name
 from elopt.physics.electrodes.base import ElectrodeFamily
 from elopt.physics.errors import ElectrodeError
 
@@ -113,7 +112,7 @@ def calibration_sweep(
     standoff = parameter == "standoff_mm" and np.all(np.isfinite(solver_sens))
     return Calibration(
         parameter=parameter,
-        unit=unit_from_name(parameter),
+        unit={s.name: s.unit for s in family.parameters()}[parameter],
         values=x,
         capacitance_F=c,
         sensitivity_F_per_unit=np.gradient(c, x),

@@ -1,12 +1,10 @@
-"""What each electrode family takes and gives, read from its own declarations: the parameter
-and option dataclasses (type, default, unit and range from field metadata or the name's unit
-suffix) and the metric registry."""
+"""What each electrode family takes and gives, read from its own declarations
+(:func:`elopt.physics.electrodes.registry.family_listing`): parameters and options with type,
+default, unit and allowed range, and the metric registry."""
 
 from __future__ import annotations
 
-import dataclasses
 import math
-import typing
 from dataclasses import dataclass
 
 from rich.console import Console
@@ -14,8 +12,7 @@ from rich.table import Table
 from rich.text import Text
 
 from elopt.optimizer.errors import ConfigError
-from elopt.optimizer.report.numbers import unit_from_name
-from elopt.optimizer.study.objectives import metric_catalog
+from elopt.physics.electrodes.base import ParameterSpec
 
 
 @dataclass(frozen=True)
@@ -36,67 +33,38 @@ class FamilyDescription:
     metrics: tuple[tuple[str, str, str, str], ...]  # name, unit, sense, meaning
 
 
-def _unit(f: dataclasses.Field) -> str:
-    if "unit" in f.metadata:
-        return str(f.metadata["unit"])
-    return unit_from_name(f.name)
-
-
-def _allowed(f: dataclasses.Field) -> str:
-    m = f.metadata
-    if "range" in m:
-        return str(m["range"])
-    low, high = m.get("low", m.get("min")), m.get("high", m.get("max"))
-    if low is None and high is None:
-        return "see the family's rules"
-    lo = "-inf" if low is None else f"{low:g}"
-    hi = "inf" if high is None else f"{high:g}"
-    return f"[{lo}, {hi}]"
-
-
-def _rows(cls: type | None) -> tuple[FieldRow, ...]:
-    if cls is None:
-        return ()
-    hints = typing.get_type_hints(cls)
+def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
+    """Table rows from the family's declarations (units and ranges live there only)."""
     out = []
-    for f in dataclasses.fields(cls):
-        if f.default is not dataclasses.MISSING:
-            default = (
-                f"{f.default:g}"
-                if isinstance(f.default, float) and math.isfinite(f.default)
-                else str(f.default)
-            )
-        elif f.default_factory is not dataclasses.MISSING:
-            default = "(table)"
-        else:
+    for s in specs:
+        if s.required:
             default = "required"
-        kind = getattr(hints[f.name], "__name__", str(hints[f.name]))
-        out.append(FieldRow(f.name, kind, default, _unit(f), _allowed(f)))
+        elif isinstance(s.default, float) and math.isfinite(s.default):
+            default = f"{s.default:g}"
+        elif isinstance(s.default, (int, str, bool)):
+            default = str(s.default)
+        else:
+            default = "(table)"
+        out.append(FieldRow(s.name, s.type_name, default, s.unit or "-", s.allowed))
     return tuple(out)
 
 
 def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
-    from elopt.physics.electrodes.registry import FAMILIES
+    from elopt.physics.electrodes.registry import FAMILIES, family_listing
 
     if only is not None and only not in FAMILIES:
         raise ConfigError(f"family {only!r}: not known; families: {', '.join(sorted(FAMILIES))}")
-    out = []
-    for name in sorted(FAMILIES):
-        if only is not None and name != only:
-            continue
-        fam = FAMILIES[name]
-        doc = (type(fam).__doc__ or "").strip().splitlines()
-        metrics = tuple((m.name, m.unit, m.sense, m.description) for m in metric_catalog(fam))
-        out.append(
-            FamilyDescription(
-                name=name,
-                summary=doc[0] if doc else "",
-                parameters=_rows(fam.Params),
-                options=_rows(getattr(fam, "Options", None)),
-                metrics=metrics,
-            )
+    return [
+        FamilyDescription(
+            name=info.name,
+            summary=info.summary,
+            parameters=_rows(info.parameters),
+            options=_rows(info.options),
+            metrics=tuple((m.name, m.unit, m.sense, m.description) for m in info.metrics),
         )
-    return out
+        for info in family_listing()
+        if only is None or info.name == only
+    ]
 
 
 def _field_table(title: str, rows: tuple[FieldRow, ...]) -> Table:

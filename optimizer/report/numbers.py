@@ -6,16 +6,6 @@ import math
 
 #: Objective direction as a table word.
 ARROW = {"maximize": "max", "minimize": "min"}
-#: Units read from a parameter name's suffix (``gap_mm`` -> mm), longest suffix first.
-NAME_SUFFIX_UNITS = (("_mm2", "mm^2"), ("_mm", "mm"), ("_deg", "deg"), ("_V", "V"), ("_pct", "%"))
-
-
-def unit_from_name(name: str) -> str:
-    """Unit of a parameter from its suffix; '' when the name carries none."""
-    for suffix, unit in NAME_SUFFIX_UNITS:
-        if name.endswith(suffix):
-            return unit
-    return ""
 
 
 def short_number(v: float) -> str:
