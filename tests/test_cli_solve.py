@@ -87,6 +87,51 @@ def test_json_has_the_agreed_keys_and_every_metric(capsys, tmp_path):
     assert rec["caution"] is None  # 10 V: no high-voltage caution
 
 
+def _refuse_constants(name: str) -> None:
+    raise AssertionError(f"non-strict JSON token {name}")
+
+
+def test_json_carries_the_design_record_and_is_strict(capsys, tmp_path):
+    code, out, _ = _run(capsys, "solve", _config(tmp_path, FAST_PROBE), "--json")
+    assert code == 0
+    rec = json.loads(out, parse_constant=_refuse_constants)
+    for key in ("peak_rel_error_estimate", "accuracy_met", "potentials_V", "extra"):
+        assert key in rec
+    assert "peak_singular" not in rec and "rel_error_estimate" not in rec
+    surface = rec["surface"]
+    assert [s["conductor"] for s in surface] == ["sensor", "guard"]
+    for s in surface:
+        k = len(s["sigma_C_per_m2"])
+        assert s["kind"] == "profile" and k > 10
+        assert all(len(p) == 2 for p in s["points_m"]) and len(s["arc_length_m"]) == k
+        assert set(s["face"]) == {0} and len(s["area_m2"]) == len(s["field_V_per_m"]) == k
+        # The field is |sigma| / eps0 in air (Gauss's law at a conductor surface).
+        for sigma, field in zip(s["sigma_C_per_m2"], s["field_V_per_m"], strict=True):
+            assert field == pytest.approx(abs(sigma) / 8.8541878128e-12, rel=1e-9)
+    # The peak search works between the samples, so the two agree to the discretisation only.
+    peak = max(max(s["field_V_per_m"]) for s in surface)
+    assert rec["peak_surface_field_V_per_m"] == pytest.approx(peak, rel=1e-3)
+
+
+def test_an_undefined_metric_is_null_with_a_reason(capsys, tmp_path, monkeypatch):
+    """Strict JSON: a metric the family could not define is null, and a warning says why."""
+    import elopt.optimizer.cli.solve as solve_cli
+
+    real = solve_cli.evaluate_design
+
+    def without_spot(*args, **kwargs):
+        ev = real(*args, **kwargs)
+        ev.metrics["spot_radius_90_mm"] = float("nan")
+        return ev
+
+    monkeypatch.setattr(solve_cli, "evaluate_design", without_spot)
+    code, out, _ = _run(capsys, "solve", _config(tmp_path, FAST_PROBE), "--json")
+    assert code == 0
+    rec = json.loads(out, parse_constant=_refuse_constants)
+    assert rec["spot_radius_90_mm"] is None
+    assert any(w.startswith("spot_radius_90_mm is undefined (nan)") for w in rec["warnings"])
+
+
 def test_json_agrees_with_a_direct_evaluation(capsys, tmp_path):
     path = _config(tmp_path, FAST_PROBE)
     rec = json.loads(_run(capsys, "solve", path, "--json")[1])

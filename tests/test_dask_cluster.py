@@ -24,7 +24,7 @@ from study_support.dask_cluster import LoopbackCluster, free_port
 from elopt.optimizer import __version__
 from elopt.optimizer.cli.main import main
 from elopt.optimizer.run.dask_pool import ClusterError, connect_cluster, parse_cluster_address
-from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.store import read_study
 from elopt.optimizer.study.trial_eval import TrialTask
 
 METRICS = ("score_fF", "size_mm", "peak_surface_field_V_per_m")
@@ -245,7 +245,7 @@ def test_dask_executor_honours_the_executor_contract(cluster):
                 continue
             assert o.ok, o.failure
             assert o.metrics["size_mm"] == pytest.approx(w + 0.5)
-            assert o.capacitance_F.shape == (2, 2) and o.profile is not None
+            assert o.design.capacitance_matrix_F.shape == (2, 2) and o.design.surface
             assert o.worker in (0, 1) and o.worker_pid != os.getpid()
         assert len({o.worker_pid for o in out.values()}) == 2, "both workers were used"
 

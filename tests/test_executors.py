@@ -51,8 +51,8 @@ def test_every_task_comes_back_once_with_plain_data():
             continue
         assert o.ok, o.failure
         assert o.metrics["size_mm"] == w + 0.5
-        assert o.capacitance_F.shape == (2, 2)
-        assert set(o.profile) == {"conductor", "arc_length_m", "r_m", "z_m", "sigma_C_per_m2"}
+        assert o.design.capacitance_matrix_F.shape == (2, 2)
+        assert [s.conductor for s in o.design.surface] == ["sensor", "guard"]
         assert o.worker in (0, 1) and o.worker_pid != os.getpid()
         assert o.finished_unix >= o.started_unix
 

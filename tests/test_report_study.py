@@ -11,7 +11,7 @@ from study_support.configs import fixture_study
 
 from elopt.optimizer.config.study_config import load_study_config
 from elopt.optimizer.report.study_report import PlainProgress, RichProgress, summary_line
-from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.store import StudyWriter, read_study
 from elopt.optimizer.study.objectives import pareto_front_mask
 from elopt.optimizer.study.search import RunLimits, state_from_snapshot
 

@@ -18,7 +18,7 @@ from study_support.configs import fixture_study
 from elopt.optimizer.config.study_config import load_study_config
 from elopt.optimizer.report.study_report import front_numbers
 from elopt.optimizer.run.local_pool import LocalProcessPool
-from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.store import StudyWriter, read_study
 from elopt.optimizer.study.search import (
     NSGA2_GENERATION_KEY,
     RunLimits,
@@ -70,7 +70,7 @@ def test_budget_reached_and_every_value_stored(tmp_path, pool):
             assert c["objectives"][i, 0] == pytest.approx(score, rel=1e-12)
             assert c["objectives"][i, 1] == pytest.approx(w[i] + g[i], rel=1e-12)
             peak = 10.0 / (g[i] * 1e-3)
-            assert c["peak_field_V_per_m"][i] == pytest.approx(peak, rel=1e-12)
+            assert c["peak_surface_field_V_per_m"][i] == pytest.approx(peak, rel=1e-12)
             assert c["feasible"][i] == (peak <= 5e4)
             assert c["constraints"][i, 0] == pytest.approx(peak - 5e4, rel=1e-9, abs=1e-6)
             assert snap.info(i)["conductors"] == ["sensor", "guard"]

@@ -10,13 +10,14 @@ from pathlib import Path
 import h5py
 import numpy as np
 import pytest
-from study_support.records import check_matches, record_for, small_header
+from study_support.records import assert_same_design, check_matches, record_for, small_header
 
 from elopt.optimizer.errors import StudyFileError
-from elopt.optimizer.store.study_file import (
+from elopt.optimizer.store import (
     STATES,
     StudyWriter,
     check_is_study,
+    read_design,
     read_study,
     read_trial_arrays,
     salvage,
@@ -53,13 +54,13 @@ def test_layout_reads_with_plain_h5py(tmp_path):
     _write(path, 12)
     with h5py.File(path, "r") as f:
         assert f.attrs["format"] == "elopt study"
-        assert int(f.attrs["format_version"]) == 1
+        assert int(f.attrs["format_version"]) == 2
         n = int(f["commit"][0])
         assert n == 12
         assert list(f["commit"].attrs["fields"]) == [
             "trials",
             "capacitance",
-            "profiles",
+            "surface",
             "text",
             "sessions",
         ]
@@ -69,12 +70,26 @@ def test_layout_reads_with_plain_h5py(tmp_path):
         states = np.asarray(f.attrs["state_names"])[f["trials/state"][:n]]
         assert states[3] == "failed" and states[4] == "complete"
         i = 5
-        o, k = f["trials/profile_offset"][i], f["trials/profile_length"][i]
-        sigma = f["profiles/sigma_C_per_m2"][o : o + k]
-        np.testing.assert_array_equal(sigma, record_for(i).profile["sigma_C_per_m2"])
+        design = record_for(i).design
+        o, k = f["trials/surface_offset"][i], f["trials/surface_length"][i]
+        sigma = f["surface/sigma_C_per_m2"][o : o + k]
+        given = np.concatenate([s.sigma_C_per_m2 for s in design.surface])
+        np.testing.assert_array_equal(sigma, given)
+        kind = f.attrs["surface_kind_names"][f["trials/surface_kind"][i]]
+        assert kind == "profile"
+        points = f["surface/points_m"][o : o + k]
+        np.testing.assert_array_equal(
+            points[:, :2], np.concatenate([s.points_m for s in design.surface])
+        )
+        assert np.isnan(points[:, 2]).all()
         nc, co = f["trials/n_conductors"][i], f["trials/capacitance_offset"][i]
         cap = f["capacitance_F"][co : co + nc * nc].reshape(nc, nc)
-        np.testing.assert_array_equal(cap, record_for(i).capacitance_F)
+        np.testing.assert_array_equal(cap, design.capacitance_matrix_F)
+        # trial 4 holds 3-D panels: three coordinates, no arc length
+        o, k = f["trials/surface_offset"][4], f["trials/surface_length"][4]
+        assert f.attrs["surface_kind_names"][f["trials/surface_kind"][4]] == "panels"
+        assert np.isfinite(f["surface/points_m"][o : o + k]).all()
+        assert np.isnan(f["surface/arc_length_m"][o : o + k]).all()
         o, k = f["trials/text_offset"][3], f["trials/text_length"][3]
         info = json.loads(f["text"][o : o + k].tobytes().decode())
         assert info["failure"] == "rule broken at trial 3"
@@ -100,7 +115,7 @@ def test_second_writer_refused_with_clear_message(tmp_path):
     first = StudyWriter.open(path)
     try:
         code = (
-            "import sys; from elopt.optimizer.store.study_file import StudyWriter\n"
+            "import sys; from elopt.optimizer.store import StudyWriter\n"
             "from elopt.optimizer.errors import StudyFileError\n"
             f"try:\n    StudyWriter.open({str(path)!r})\n"
             "except StudyFileError as e:\n    print(e); sys.exit(3)\n"
@@ -118,7 +133,7 @@ def test_lock_dies_with_its_holder(tmp_path):
     path = tmp_path / "s.h5"
     _write(path, 1)
     code = (
-        "import time; from elopt.optimizer.store.study_file import StudyWriter\n"
+        "import time; from elopt.optimizer.store import StudyWriter\n"
         f"w = StudyWriter.open({str(path)!r}); print('locked', flush=True); time.sleep(60)\n"
     )
     proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True)
@@ -139,7 +154,7 @@ def test_reopen_truncates_uncommitted_rows(tmp_path):
             ds = f[f"trials/{name}"]
             ds.resize(300, axis=0)
             ds[5:300] = 1
-        f["profiles/r_m"].resize(100_000, axis=0)
+        f["surface/points_m"].resize(100_000, axis=0)
     with StudyWriter.open(path) as w:
         assert w.n_trials == 5
         assert w.append(record_for(5)) == 5
@@ -214,11 +229,11 @@ def test_writer_snapshot_matches_reader(tmp_path):
 
 
 def test_open_salvages_a_file_that_refuses_writes(tmp_path, monkeypatch, capsys):
-    import elopt.optimizer.store.study_file as store
+    import elopt.optimizer.store.writer as store
 
     path = tmp_path / "s.h5"
     _write(path, 6)
-    real = store._truncate_to_commit
+    real = store.truncate_to_commit
     calls = []
 
     def first_fails(h5):
@@ -227,7 +242,7 @@ def test_open_salvages_a_file_that_refuses_writes(tmp_path, monkeypatch, capsys)
             raise OSError("simulated: cannot write metadata")
         return real(h5)
 
-    monkeypatch.setattr(store, "_truncate_to_commit", first_fails)
+    monkeypatch.setattr(store, "truncate_to_commit", first_fails)
     with StudyWriter.open(path) as w:
         assert w.n_trials == 6
         w.append(record_for(6))
@@ -236,3 +251,35 @@ def test_open_salvages_a_file_that_refuses_writes(tmp_path, monkeypatch, capsys)
     snap = read_study(path)
     for i in range(7):
         check_matches(snap, lambda k: read_trial_arrays(path, k), i)
+
+
+def test_design_record_round_trips_through_the_file(tmp_path):
+    """The one design record goes in and comes out whole, profiles and 3-D panels alike."""
+    path = tmp_path / "s.h5"
+    _write(path, 10)
+    for i in range(10):
+        given = record_for(i).design
+        stored = read_design(path, i)
+        if given is None:
+            assert stored is None
+        else:
+            assert_same_design(stored, given)
+    assert read_design(path, 4).surface_kind == "panels"
+    assert read_design(path, 4).surface[0].arc_length_m is None
+    faces = read_design(path, 0).surface[1].face
+    assert set(faces.tolist()) == {1, -1}
+
+
+def test_show_draws_3d_samples_along_their_height(tmp_path, capsys):
+    """3-D panels have no arc length: `show` plots them against z, not all at one point."""
+    from elopt.optimizer.cli.main import main
+
+    path = tmp_path / "s.h5"
+    _write(path, 5)
+    assert main(["show", str(path), "4"]) == 0
+    out = " ".join(capsys.readouterr().out.split())  # the console wraps long lines
+    assert "height z of the panel [mm]" in out
+    assert "x = 4000 mm, y = 1000 mm, z = 2000 mm" in out
+    assert main(["show", str(path), "0"]) == 0
+    out = capsys.readouterr().out
+    assert "arc length along the electrode [mm]" in out and "b (+ face)" in out

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 from study_support.records import check_matches
 
-from elopt.optimizer.store.study_file import StudyWriter, read_study, read_trial_arrays
+from elopt.optimizer.store import StudyWriter, read_study, read_trial_arrays
 
 TESTS_DIR = Path(__file__).parent
 ENV = {

@@ -11,7 +11,7 @@ from study_support.cli import reported_complete, run_elopt, start_elopt
 from study_support.configs import guarded_disk_study
 from study_support.kill_loop import kill_cycles, run_to_completion
 
-from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.store import read_study
 
 
 @pytest.mark.slow

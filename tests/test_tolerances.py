@@ -120,7 +120,10 @@ def test_config_table_is_parsed_and_refuses_bad_keys():
     }
     names = ("guard_gap_mm", "fillet_mm", "standoff_mm", "sensor_radius_mm")
     directions = {"sensitivity_fF_per_um": "low", "peak_surface_field_V_per_m": "high"}
-    spec = parse_tolerances(table, parameter_names=names, directions=directions)
+    mounting = ("standoff_mm",)
+    spec = parse_tolerances(
+        table, parameter_names=names, mounting_names=mounting, directions=directions
+    )
     assert [(t.name, t.minus, t.plus) for t in spec.tolerances] == [
         ("guard_gap_mm", 0.01, 0.01),
         ("fillet_mm", 0.01, 0.005),
@@ -146,7 +149,9 @@ def test_config_table_is_parsed_and_refuses_bad_keys():
     ]
     for t, message in bad:
         with pytest.raises(ConfigError, match=message.replace("(", r"\(").replace(")", r"\)")):
-            parse_tolerances(t, parameter_names=names, directions=directions)
+            parse_tolerances(
+                t, parameter_names=names, mounting_names=mounting, directions=directions
+            )
 
 
 @pytest.mark.slow

@@ -15,7 +15,7 @@ from elopt.optimizer.report.study_report import (
     write_front_csv,
     write_front_json,
 )
-from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.store import read_study
 
 
 def add_parser(subparsers: Any) -> None:

@@ -1,10 +1,12 @@
-"""The ``elopt`` command line: one verb per job (solve, check, run, resume, front, show)."""
+"""The ``elopt`` command line: one verb per job (solve, check, run, resume, front, show,
+salvage)."""
 
 from __future__ import annotations
 
 import argparse
 import importlib
 import sys
+import warnings
 from collections.abc import Sequence
 
 from elopt.optimizer import __version__
@@ -15,6 +17,7 @@ from elopt.physics.threads import limit_blas_threads
 VERB_MODULES: list[str] = []
 VERB_MODULES += ["elopt.optimizer.cli.run", "elopt.optimizer.cli.front", "elopt.optimizer.cli.show"]
 VERB_MODULES += ["elopt.optimizer.cli.solve", "elopt.optimizer.cli.check"]
+VERB_MODULES += ["elopt.optimizer.cli.salvage"]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -37,14 +40,20 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.verb is None:
         parser.print_help()
         return 0
-    try:
-        return int(args.func(args))
-    except ElOptError as exc:
-        print(f"elopt: error: {exc}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("elopt: interrupted", file=sys.stderr)
-        return 130
+    # Library warnings are held back: a refusal is one line, and on success they follow the
+    # output instead of interleaving with it.
+    with warnings.catch_warnings(record=True) as caught:
+        try:
+            status = int(args.func(args))
+        except ElOptError as exc:
+            print(f"elopt: error: {exc}", file=sys.stderr)
+            return 2
+        except KeyboardInterrupt:
+            print("elopt: interrupted", file=sys.stderr)
+            return 130
+    for w in caught:
+        warnings.showwarning(w.message, w.category, w.filename, w.lineno)
+    return status
 
 
 if __name__ == "__main__":

@@ -28,7 +28,7 @@ from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.study_report import PlainProgress, RichProgress
 from elopt.optimizer.run.dask_pool import DaskExecutor
 from elopt.optimizer.run.local_pool import LocalProcessPool
-from elopt.optimizer.store.study_file import StudySnapshot, StudyWriter, read_study
+from elopt.optimizer.store import StudySnapshot, StudyWriter, read_study
 from elopt.optimizer.study import RunLimits, run_search, study_header
 
 

@@ -10,7 +10,7 @@ from rich.console import Console
 
 from elopt.optimizer.errors import StudyFileError
 from elopt.optimizer.report.study_report import render_trial
-from elopt.optimizer.store.study_file import read_study, read_trial_arrays
+from elopt.optimizer.store import read_study, read_trial_arrays
 
 
 def add_parser(subparsers: Any) -> None:

@@ -3,15 +3,15 @@
 from __future__ import annotations
 
 import argparse
-import json
 
 from rich.console import Console
 
 from elopt.optimizer.config import read_solve_config
-from elopt.optimizer.record import solve_record
+from elopt.optimizer.record import solve_record, strict_dumps
 from elopt.optimizer.report.solve_report import render_solve_report
 from elopt.physics.electrodes.pipeline import evaluate_design
 from elopt.physics.electrodes.registry import get_family
+from elopt.physics.errors import ElOptError
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -30,16 +30,19 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 def run(args: argparse.Namespace) -> int:
     spec = read_solve_config(args.config)
     family = get_family(spec.family)
-    evaluation = evaluate_design(
-        family,
-        spec.params,
-        rel_accuracy=spec.rel_accuracy,
-        peak_rel_accuracy=spec.peak_rel_accuracy,
-        eps_r=spec.eps_r,
-        options=spec.options,
-    )
+    try:
+        evaluation = evaluate_design(
+            family,
+            spec.params,
+            rel_accuracy=spec.rel_accuracy,
+            peak_rel_accuracy=spec.peak_rel_accuracy,
+            eps_r=spec.eps_r,
+            options=spec.options,
+        )
+    except ElOptError as exc:  # refusals during the solve name the config too
+        raise type(exc)(f"{spec.path}: {exc}") from None
     if args.json:
-        print(json.dumps(solve_record(spec, family, evaluation), indent=2))
+        print(strict_dumps(solve_record(spec, family, evaluation), indent=2))
     else:
         render_solve_report(Console(), spec, family, evaluation)
     return 0

@@ -38,8 +38,6 @@ from elopt.optimizer.study.tolerances import (
     Treatment,
 )
 
-#: Parameter names a family may have that describe mounting rather than manufacture.
-MOUNTING_PARAMETERS = ("standoff_mm", "tilt_mrad", "recess_mm")
 _TOP_KEYS = ("method", "nonlinearity_limit", "parameters", "mounting", "apply")
 
 
@@ -47,12 +45,14 @@ def parse_tolerances(
     table: Mapping[str, Any],
     *,
     parameter_names: Sequence[str],
+    mounting_names: Sequence[str],
     directions: Mapping[str, str],
     where: str = "tolerance",
 ) -> ToleranceSpec:
     """A validated :class:`ToleranceSpec`.
 
-    ``parameter_names`` are the family's parameters; ``directions`` maps each objective or
+    ``parameter_names`` are the family's parameters, ``mounting_names`` those it declares as
+    mounting quantities (standoff, tilt, ...); ``directions`` maps each objective or
     constraint metric to its worse side ("low" or "high", or "both" for a two-sided
     constraint, which cannot take a one-sided worst case).
     """
@@ -74,11 +74,11 @@ def parse_tolerances(
                     f"{key}: the family has no parameter '{name}'; its parameters are "
                     f"{', '.join(parameter_names)}"
                 )
-            if group == "mounting" and name not in MOUNTING_PARAMETERS:
+            if group == "mounting" and name not in mounting_names:
                 raise ConfigError(
-                    f"{key}: '{name}' is not a mounting quantity; mounting tolerances are "
-                    f"{', '.join(n for n in MOUNTING_PARAMETERS if n in parameter_names)} "
-                    "(give manufacturing tolerances under [tolerance.parameters])"
+                    f"{key}: '{name}' is not a mounting quantity of this family; its mounting "
+                    f"parameters are {', '.join(mounting_names) or '(none)'} (give "
+                    "manufacturing tolerances under [tolerance.parameters])"
                 )
             if any(t.name == name for t in tolerances):
                 raise ConfigError(f"{key}: '{name}' has a tolerance already")

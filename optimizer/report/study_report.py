@@ -24,7 +24,7 @@ from rich.text import Text
 
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
-from elopt.optimizer.store.study_file import StudySnapshot, TrialArrays
+from elopt.optimizer.store import StudySnapshot, TrialArrays
 from elopt.optimizer.study import RunState, pareto_front_mask
 
 ARROW = {"maximize": "max", "minimize": "min"}
@@ -399,7 +399,7 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         metrics.add_row(name, _num(c["metrics"][number, k]), h.metric_units[k], ", ".join(roles))
     console.print(metrics)
 
-    conductors = info.get("conductors") or [f"c{i}" for i in range(arrays.capacitance_F.shape[0])]
+    conductors = snap.conductor_names(number)
     cap = Table(title="capacitance matrix (fF)", title_justify="left")
     cap.add_column("")
     for n in conductors:
@@ -408,15 +408,16 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         cap.add_row(n, *[f"{v * 1e15:.5g}" for v in arrays.capacitance_F[i]])
     console.print(cap)
 
-    peak = c["peak_field_V_per_m"][number]
+    peak = c["peak_surface_field_V_per_m"][number]
     pc = int(c["peak_conductor"][number])
     where = conductors[pc] if 0 <= pc < len(conductors) else "?"
-    line = (
-        f"peak surface field {peak:.4g} V/m ({peak * 1e-6:.3g} kV/mm) on {where} at "
-        f"r = {c['peak_r_m'][number] * 1e3:.4g} mm, z = {c['peak_z_m'][number] * 1e3:.4g} mm"
+    kind = arrays.surface[0].kind if arrays.surface else "profile"
+    axes = ("x", "y", "z") if kind == "panels" else ("r", "z")
+    at = ", ".join(
+        f"{a} = {v * 1e3:.4g} mm" for a, v in zip(axes, c["peak_location_m"][number], strict=False)
     )
-    console.print(line)
-    if c["peak_singular"][number]:
+    console.print(f"peak surface field {peak:.4g} V/m ({peak * 1e-6:.3g} kV/mm) on {where} at {at}")
+    if c["peak_at_sharp_corner"][number]:
         console.print(
             Text(
                 "the peak sits at a sharp edge: its value depends on the mesh, not a design number "
@@ -424,33 +425,36 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
                 style="yellow",
             )
         )
-    err = c["rel_error_estimate"][number]
+    err = c["relative_error_estimate"][number]
     met = "met" if c["accuracy_met"][number] else "NOT met"
     console.print(f"solve error estimate {err:.2g} (requested accuracy {met})")
     console.print()
-    for text in sigma_plot(arrays, conductors):
+    for text in sigma_plot(arrays):
         console.print(Text(text))
     caution = study_caution(snap)
     if caution:
         console.print(Text(caution, style="yellow"))
 
 
-def sigma_plot(arrays: TrialArrays, conductors: list[str]) -> list[str]:
-    """sigma (uC/m^2) against arc length (mm) along each conductor's generating curve."""
-    p = arrays.profile
-    if len(p["sigma_C_per_m2"]) == 0:
+def sigma_plot(arrays: TrialArrays) -> list[str]:
+    """sigma (uC/m^2) on each conductor: a trace against arc length (mm) for profiles, one per
+    face of an open sheet; a scatter against height z (mm) for 3-D panels, which have no arc
+    length."""
+    if not arrays.surface:
         return ["(no surface-charge profile stored)"]
     series = []
     used: set[str] = set()
-    for i, name in enumerate(conductors):
-        sel = p["conductor"] == i
-        if not np.any(sel):
-            continue
-        marker = next((ch for ch in name if ch.isalnum() and ch not in used), str(i))
-        used.add(marker)
-        series.append(
-            Series(p["arc_length_m"][sel] * 1e3, p["sigma_C_per_m2"][sel] * 1e6, marker, name)
-        )
+    panels = arrays.surface[0].kind == "panels"
+    for s in arrays.surface:
+        for face in np.unique(s.face):
+            sel = s.face == face
+            name = s.conductor + {1: " (+ face)", -1: " (- face)"}.get(int(face), "")
+            marker = next((ch for ch in name if ch.isalnum() and ch not in used), "*")
+            used.add(marker)
+            x = s.points_m[sel, -1] if panels else s.arc_length_m[sel]
+            series.append(Series(x * 1e3, s.sigma_C_per_m2[sel] * 1e6, marker, name))
+    if panels:
+        return scatter(series, x_label="height z of the panel [mm]", y_label="sigma [uC/m^2]")
     return line_plot(
         series, x_label="arc length along the electrode [mm]", y_label="sigma [uC/m^2]"
     )

@@ -30,7 +30,7 @@ from optuna.trial import TrialState
 
 from elopt.optimizer.config import StudySpec
 from elopt.optimizer.run.local_pool import Executor
-from elopt.optimizer.store.study_file import StudyHeader, StudySnapshot, StudyWriter, TrialRecord
+from elopt.optimizer.store import StudyHeader, StudySnapshot, StudyWriter, TrialRecord
 from elopt.optimizer.study.objectives import (
     constraint_violations,
     objective_values,
@@ -426,18 +426,7 @@ def _record(spec: StudySpec, outcome: TrialOutcome, pend: _Pending, session: int
     rec.objectives = objective_values(spec, judged)
     rec.constraints = constraint_violations(spec, judged)
     rec.feasible = bool(np.all(rec.constraints <= 0))
-    rec.rel_error_estimate = outcome.rel_error_estimate
-    rec.accuracy_met = outcome.accuracy_met
-    rec.peak_field_V_per_m = outcome.peak_field_V_per_m
-    rec.peak_conductor = outcome.peak_conductor
-    rec.peak_r_m = outcome.peak_r_m
-    rec.peak_z_m = outcome.peak_z_m
-    rec.peak_singular = outcome.peak_singular
-    rec.capacitance_F = outcome.capacitance_F
-    rec.profile = outcome.profile
-    info["conductors"] = outcome.conductor_names
-    if outcome.extra:
-        info["extra"] = outcome.extra
+    rec.design = outcome.design
     if outcome.toleranced:
         info["tolerance"] = {"values": outcome.toleranced, **outcome.tolerance_info}
     rec.info = info

@@ -1,9 +1,10 @@
 """One trial's evaluation, as a worker runs it: a task in, plain numbers and arrays out.
 
 Stateless by design: a :class:`TrialTask` carries everything (family reference, every
-parameter value, solver settings, medium and evaluation options), and a :class:`TrialOutcome` carries only picklable plain
-data (floats, lists, numpy arrays) — never a solution object — so any executor (a local
-process, a Dask worker on another machine) can run it. The design is evaluated by the same
+parameter value, solver settings, medium and evaluation options), and a :class:`TrialOutcome`
+carries only picklable plain data (floats and the design record, numpy arrays inside) — never
+a solution object — so any executor (a local process, a Dask worker on another machine) can
+run it. The design is evaluated by the same
 pipeline as ``elopt solve`` (:func:`elopt.physics.electrodes.pipeline.evaluate_design`). A design that breaks the family's rules
 or a solve that fails becomes an outcome with ``ok = False`` and the reason; nothing raises.
 """
@@ -17,8 +18,7 @@ import traceback
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
+from elopt.optimizer.record import DesignRecord, design_record
 from elopt.optimizer.study.tolerances import ToleranceSpec, evaluate_toleranced
 from elopt.physics.electrodes.base import ElectrodeFamily
 from elopt.physics.electrodes.pipeline import evaluate_design
@@ -47,28 +47,20 @@ class TrialTask:
 
 @dataclass
 class TrialOutcome:
-    """Result of one task. Arrays: ``capacitance_F`` (n, n); ``profile`` columns (S,)."""
+    """Result of one task: the study's metrics by name and, when it solved, the design record
+    (:class:`~elopt.optimizer.record.DesignRecord`: capacitance, peak field, surface samples);
+    ``toleranced`` the toleranced values of the treated metrics, ``tolerance_info`` how."""
 
     key: int
     ok: bool
     failure: str | None = None
     metrics: dict[str, float] = field(default_factory=dict)
-    conductor_names: list[str] = field(default_factory=list)
-    capacitance_F: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
-    profile: dict[str, np.ndarray] | None = None
-    peak_field_V_per_m: float = math.nan
-    peak_conductor: int = -1
-    peak_r_m: float = math.nan
-    peak_z_m: float = math.nan
-    peak_singular: bool = False
-    rel_error_estimate: float = math.nan
-    accuracy_met: bool = False
+    design: DesignRecord | None = None
     solve_s: float = math.nan
     started_unix: float = math.nan
     finished_unix: float = math.nan
     worker: int = -1
     worker_pid: int = -1
-    extra: dict[str, Any] = field(default_factory=dict)
     toleranced: dict[str, float] = field(default_factory=dict)
     tolerance_info: dict[str, Any] = field(default_factory=dict)
 
@@ -90,7 +82,7 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
             eps_r=task.eps_r,
             options=options,
         )
-        _fill(out, evaluation, task.metric_names)
+        _fill(out, family, params, evaluation, task)
         if out.ok and task.tolerance is not None:
             _tolerance(out, task, family)
         out.solve_s = time.perf_counter() - t0
@@ -146,41 +138,14 @@ def _family(ref: str) -> ElectrodeFamily:
     return _FAMILIES[ref]
 
 
-def _fill(out: TrialOutcome, evaluation: Any, metric_names: tuple[str, ...]) -> None:
-    sol = evaluation.solution
-    names = list(sol.layout.names)
-    peak = sol.peak_field
+def _fill(
+    out: TrialOutcome, family: ElectrodeFamily, params: Any, evaluation: Any, task: TrialTask
+) -> None:
     metrics = {k: float(v) for k, v in evaluation.metrics.items()}
-    for name in metric_names:
+    for name in task.metric_names:
         if name not in metrics:
             out.failure = f"the family returned no metric '{name}'"
             return
-    columns: dict[str, list[np.ndarray]] = {
-        k: [] for k in ("conductor", "arc_length_m", "r_m", "z_m", "sigma_C_per_m2")
-    }
-    for i, name in enumerate(names):
-        s = sol.surface_samples(name)
-        pts = np.asarray(s.points_m, dtype=float)
-        k = len(pts)
-        arc = np.zeros(k) if s.arc_length_m is None else s.arc_length_m
-        columns["conductor"].append(np.full(k, i, dtype=np.int16))
-        columns["arc_length_m"].append(np.asarray(arc, dtype=float))
-        columns["r_m"].append(pts[:, 0])
-        columns["z_m"].append(pts[:, -1])
-        columns["sigma_C_per_m2"].append(np.asarray(s.sigma_C_per_m2, dtype=float))
-    out.profile = {k: np.concatenate(v) if v else np.zeros(0) for k, v in columns.items()}
+    out.design = design_record(family, params, evaluation, family_name=task.family_ref)
     out.metrics = metrics
-    out.conductor_names = names
-    out.capacitance_F = np.asarray(sol.capacitance_matrix_F, dtype=float)
-    out.peak_field_V_per_m = float(peak.field_V_per_m)
-    out.peak_conductor = names.index(peak.conductor) if peak.conductor in names else -1
-    loc = tuple(peak.location_m)
-    out.peak_r_m = float(loc[0])
-    out.peak_z_m = float(loc[-1])
-    out.peak_singular = bool(peak.singular)
-    out.rel_error_estimate = float(sol.rel_error_estimate)
-    out.accuracy_met = bool(sol.accuracy_met)
-    out.extra = {
-        k: v for k, v in dict(evaluation.extra).items() if isinstance(v, (str, int, float, bool))
-    }
     out.ok = True

@@ -673,9 +673,9 @@ class HMatrix:
     its derivative along ``directions`` (M, 3)) at arbitrary ``targets`` (M, 3); entries are
     (1/4 pi) integral 1/r dA' (see the module docstring).
 
-    ``recompress`` (default: only for the collocation matrix, which serves many products)
-    truncates each cross approximation by SVD; an evaluation matrix is used for a product or
-    two, where the recompression would cost more than it saves.
+    ``recompress`` truncates each cross approximation by SVD (default). Without it a matrix
+    for a product or two builds about 20 % faster but stores about 30 % more (measured on the
+    guarded-pad demo's plane rule).
     """
 
     def __init__(
@@ -687,10 +687,8 @@ class HMatrix:
         directions: np.ndarray | None = None,
         eta: float = ETA,
         leaf: int = LEAF,
-        recompress: bool | None = None,
+        recompress: bool = True,
     ) -> None:
-        if recompress is None:
-            recompress = targets is None
         t0 = time.perf_counter()
         corners, centroids, areas, diams = panels.kernel_arrays
         pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)

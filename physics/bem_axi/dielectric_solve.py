@@ -488,7 +488,8 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
     # the two-level prior ratio is the shared measured one (changes shrank by 0.01 - 0.08 per
     # level on the dielectric test layouts, below it)
-    refinement = refine(plan, opts, Convergence(*floors))
+    convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
+    refinement = refine(plan, opts, convergence)
     return DielectricSolution(layout, model, refinement, order)
 
 

@@ -109,5 +109,5 @@ def solve_axisymmetric(
 
     # Orders between (or below) the measured ones take the floors of the next lower (or 4).
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
-    convergence = Convergence(*floors)
+    convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
     return AxisymmetricSolution(layout, refine(plan, opts, convergence))

@@ -93,6 +93,59 @@ PEAK_TO_CENTRE = MetricSpec(
     "peak_to_centre_field_ratio", "1", "peak surface / centre field", "minimize"
 )
 
+# ---------------------------------------------------------------- planar electrodes (2-D)
+PLANAR_CAPACITANCE = MetricSpec(
+    "capacitance_pF", "pF", "driven-to-sense capacitance of the whole device", "maximize"
+)
+PLANAR_CAPACITANCE_PER_LENGTH = MetricSpec(
+    "capacitance_per_length_pF_per_m",
+    "pF/m",
+    "the same per metre of electrode length",
+    "either",
+)
+PLANAR_MUT_SENSITIVITY = MetricSpec(
+    "mut_sensitivity_fF_per_eps",
+    "fF",
+    "dC / d eps_r of the medium above (material under test)",
+    "maximize",
+)
+PLANAR_MUT_RELATIVE_SENSITIVITY = MetricSpec(
+    "mut_relative_sensitivity", "1", "d ln C / d ln eps_r of the medium above", "maximize"
+)
+PLANAR_FILM_SENSITIVITY = MetricSpec(
+    "film_sensitivity_fF_per_eps", "fF", "dC / d eps_r of the sensing film", "maximize"
+)
+PLANAR_FILM_RELATIVE_SENSITIVITY = MetricSpec(
+    "film_relative_sensitivity", "1", "d ln C / d ln eps_r of the sensing film", "maximize"
+)
+PLANAR_FILM_THICKNESS_SENSITIVITY = MetricSpec(
+    "film_thickness_sensitivity_fF_per_um", "fF/um", "dC / d(film thickness)", "either"
+)
+PLANAR_PENETRATION_DEPTH_50 = MetricSpec(
+    "penetration_depth_50_um",
+    "um",
+    "height above the electrode tops holding 50% of the sensitivity above them",
+    "either",
+)
+PLANAR_PENETRATION_DEPTH_90 = MetricSpec(
+    "penetration_depth_90_um", "um", "the same for 90%", "either"
+)
+PLANAR_CELL_CONSTANT = MetricSpec(
+    "cell_constant_per_m", "1/m", "eps0 / (dC/d eps_r of the medium above): C = eps/K", "either"
+)
+PLANAR_INTERIOR_CELL = MetricSpec(
+    "interior_cell_pF_per_m",
+    "pF/m",
+    "charge per finger / volt between neighbours, periodic interior of a comb",
+    "either",
+)
+PLANAR_END_CELL = MetricSpec(
+    "end_cell_pF_per_m", "pF/m", "contribution of each outer cell of a comb per metre", "either"
+)
+PLANAR_FOOTPRINT = MetricSpec(
+    "footprint_width_mm", "mm", "width of the electrode set across the strips", "minimize"
+)
+
 #: Every declared metric by name.
 ALL: dict[str, MetricSpec] = {
     m.name: m for m in list(globals().values()) if isinstance(m, MetricSpec)

@@ -13,15 +13,19 @@ from dataclasses import dataclass
 from typing import Any
 
 from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec, ParameterSpec
+from elopt.physics.electrodes.coplanar import Coplanar
 from elopt.physics.electrodes.guarded_disk import GuardedDisk
 from elopt.physics.electrodes.guarded_pad import GuardedPad
+from elopt.physics.electrodes.interdigitated import Interdigitated
 from elopt.physics.electrodes.mesh_file import MeshFile
 from elopt.physics.electrodes.uniform_field import UniformField
 from elopt.physics.errors import ElectrodeError
 
 FAMILIES: dict[str, ElectrodeFamily] = {
+    Coplanar.name: Coplanar(),
     GuardedDisk.name: GuardedDisk(),
     GuardedPad.name: GuardedPad(),
+    Interdigitated.name: Interdigitated(),
     MeshFile.name: MeshFile(),
     UniformField.name: UniformField(),
 }

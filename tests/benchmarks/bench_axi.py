@@ -97,6 +97,11 @@ def kernel_speed() -> tuple[float, float]:
 
 
 def main() -> None:
+    import argparse
+
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeats", type=int, default=21)
+    args = ap.parse_args()
     limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     sphere, sphere_ref = sphere_layout()
     probe = probe_layout()
@@ -108,7 +113,7 @@ def main() -> None:
         ("guarded disk probe", probe, probe_ref),
     ):
         for tol in (1e-3, 1e-4, 1e-5):
-            median, sol = time_solves(layout, tol, repeats=21)
+            median, sol = time_solves(layout, tol, repeats=args.repeats)
             err = abs(sense(sol) / ref - 1)
             rows.append(
                 (

@@ -20,7 +20,7 @@ sys.path.insert(0, str(TESTS))
 from study_support.configs import guarded_disk_study  # noqa: E402
 from study_support.kill_loop import kill_cycles, run_to_completion  # noqa: E402
 
-from elopt.optimizer.store.study_file import read_study  # noqa: E402
+from elopt.optimizer.store import read_study  # noqa: E402
 
 
 def main() -> None:

@@ -40,7 +40,7 @@ from study_support.dask_cluster import LoopbackCluster  # noqa: E402
 from elopt.optimizer.config.study_config import StudySpec, load_study_config  # noqa: E402
 from elopt.optimizer.run.dask_pool import connect_cluster  # noqa: E402
 from elopt.optimizer.run.local_pool import Executor, LocalProcessPool  # noqa: E402
-from elopt.optimizer.store.study_file import StudyWriter, read_study  # noqa: E402
+from elopt.optimizer.store import StudyWriter, read_study  # noqa: E402
 from elopt.optimizer.study.search import (  # noqa: E402
     RunLimits,
     SamplerFactory,

@@ -24,7 +24,7 @@ from pathlib import Path
 
 from elopt.optimizer.config.study_config import load_study_config
 from elopt.optimizer.run.local_pool import LocalProcessPool
-from elopt.optimizer.store.study_file import StudyWriter, read_study
+from elopt.optimizer.store import StudyWriter, read_study
 from elopt.optimizer.study.search import RunLimits, run_search, study_header
 from elopt.optimizer.study.trial_eval import TrialTask
 

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import h5py
 
-from elopt.optimizer.store.study_file import read_study
+from elopt.optimizer.store import read_study
 from study_support.cli import reported_complete, start_elopt
 
 

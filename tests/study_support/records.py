@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from elopt.optimizer.store.study_file import PROFILE_FIELDS, StudyHeader, TrialRecord
+from elopt.optimizer.record import ConductorRecord, DesignRecord, PeakRecord, SurfaceSamples
+from elopt.optimizer.store import StudyHeader, TrialRecord
 
 
 def small_header(config_toml: str = "[study]\nname = 'fixture'\n") -> StudyHeader:
@@ -32,11 +33,61 @@ def small_header(config_toml: str = "[study]\nname = 'fixture'\n") -> StudyHeade
     )
 
 
+def _surface(name: str, index: int, number: int) -> SurfaceSamples:
+    """Profiles for most trials, 3-D panels (no arc length) for every fifth."""
+    k = float(number)
+    n_samples = 25 + (number * 37 + index) % 100
+    s = np.arange(n_samples, dtype=float)
+    panels = number % 5 == 4
+    d = 3 if panels else 2
+    points = np.column_stack([s * 1e-4 + k + j for j in range(d)])
+    normal = np.zeros((n_samples, d))
+    normal[:, -1] = 1.0
+    face = np.zeros(n_samples, dtype=np.int8)
+    if index == 1 and not panels:  # the second conductor is an open sheet: two faces
+        face[: n_samples // 2], face[n_samples // 2 :] = 1, -1
+    return SurfaceSamples(
+        conductor=name,
+        kind="panels" if panels else "profile",
+        points_m=points,
+        sigma_C_per_m2=(s + k) * 1e-6,
+        field_V_per_m=(s + k) * 1e5,
+        area_m2=np.full(n_samples, 1e-8 * (1 + index)),
+        face=face,
+        normal=normal,
+        arc_length_m=None if panels else s * 1e-4,
+    )
+
+
+def design_for(number: int) -> DesignRecord:
+    k = float(number)
+    panels = number % 5 == 4
+    return DesignRecord(
+        family="fixture_family",
+        parameters={"width_mm": 1.0 + k, "gap_mm": 0.5 + k / 10, "drive_V": 100.0},
+        parameter_units={"width_mm": "mm", "gap_mm": "mm", "drive_V": "V"},
+        conductors=(ConductorRecord("a", 100.0, None), ConductorRecord("b", None, 0.0)),
+        ground_plane=True,
+        capacitance_matrix_F=np.array([[k, -1.0], [-1.0, k + 1]]),
+        charges_C=np.array([k, 0.0]),
+        potentials_V=np.array([100.0, 50.0 + k]),
+        sense_capacitance_F=k + 0.5,
+        sense_capacitance_meaning="fixture",
+        peak=PeakRecord("b", 1e6 + k, (k, 1.0, 2.0) if panels else (k, 2.0), number % 2 == 0, 1e-3),
+        relative_error_estimate=1e-4 * (1 + k),
+        requested_accuracy=1e-3,
+        accuracy_met=True,
+        n_unknowns=100 + number,
+        metrics={"size_mm": k, "score_fF": 2 * k, "peak_surface_field_V_per_m": 1e6 + k},
+        metric_units={"size_mm": "mm", "score_fF": "fF", "peak_surface_field_V_per_m": "V/m"},
+        surface=(_surface("a", 0, number), _surface("b", 1, number)),
+        extra={"note": f"trial {number}"},
+    )
+
+
 def record_for(number: int) -> TrialRecord:
     """A record whose every value is a function of ``number`` (so a reader can verify it)."""
     k = float(number)
-    n_samples = 50 + (number * 37) % 200
-    s = np.arange(n_samples, dtype=float)
     failed = number % 7 == 3
     return TrialRecord(
         state="failed" if failed else "complete",
@@ -49,17 +100,42 @@ def record_for(number: int) -> TrialRecord:
         finished_unix=1e9 + k + 0.5,
         solve_s=0.25,
         worker=number % 2,
-        capacitance_F=np.zeros((0, 0)) if failed else np.array([[k, -1.0], [-1.0, k + 1]]),
-        profile=None
-        if failed
-        else {
-            name: (s + k).astype(np.int16 if name == "conductor" else float)
-            for name in PROFILE_FIELDS
-        },
-        info={"failure": f"rule broken at trial {number}"}
-        if failed
-        else {"conductors": ["a", "b"]},
+        design=None if failed else design_for(number),
+        info={"failure": f"rule broken at trial {number}"} if failed else {},
     )
+
+
+def assert_same_design(stored: DesignRecord, given: DesignRecord) -> None:
+    """Every field of the record survives the file (parameters as floats)."""
+    for name in (
+        "conductors",
+        "ground_plane",
+        "sense_capacitance_F",
+        "sense_capacitance_meaning",
+        "peak",
+        "relative_error_estimate",
+        "requested_accuracy",
+        "accuracy_met",
+        "n_unknowns",
+        "metrics",
+        "metric_units",
+        "extra",
+        "family",
+        "parameters",
+        "parameter_units",
+    ):
+        assert getattr(stored, name) == getattr(given, name), name
+    for name in ("capacitance_matrix_F", "charges_C", "potentials_V"):
+        np.testing.assert_array_equal(getattr(stored, name), getattr(given, name), err_msg=name)
+    assert len(stored.surface) == len(given.surface)
+    for a, b in zip(stored.surface, given.surface, strict=True):
+        assert (a.conductor, a.kind) == (b.conductor, b.kind)
+        for name in ("points_m", "normal", "face", "sigma_C_per_m2", "field_V_per_m", "area_m2"):
+            np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+        if b.arc_length_m is None:
+            assert a.arc_length_m is None
+        else:
+            np.testing.assert_array_equal(a.arc_length_m, b.arc_length_m)
 
 
 def check_matches(snapshot, arrays_of, number: int) -> None:
@@ -71,11 +147,15 @@ def check_matches(snapshot, arrays_of, number: int) -> None:
     np.testing.assert_array_equal(c["params"][number], rec.params)
     np.testing.assert_array_equal(c["metrics"][number], rec.metrics)
     np.testing.assert_array_equal(c["objectives"][number], rec.objectives)
-    assert snapshot.info(number) == rec.info
+    info = snapshot.info(number)
+    for key, value in rec.info.items():
+        assert info[key] == value
     arrays = arrays_of(number)
-    np.testing.assert_array_equal(arrays.capacitance_F, rec.capacitance_F)
-    if rec.profile is not None:
-        for name, values in rec.profile.items():
-            np.testing.assert_array_equal(arrays.profile[name], values)
-    else:
-        assert len(arrays.profile["sigma_C_per_m2"]) == 0
+    if rec.design is None:
+        assert arrays.capacitance_F.shape == (0, 0) and arrays.surface == ()
+        return
+    np.testing.assert_array_equal(arrays.capacitance_F, rec.design.capacitance_matrix_F)
+    for a, b in zip(arrays.surface, rec.design.surface, strict=True):
+        assert (a.conductor, a.kind) == (b.conductor, b.kind)
+        np.testing.assert_array_equal(a.sigma_C_per_m2, b.sigma_C_per_m2)
+        np.testing.assert_array_equal(a.points_m, b.points_m)

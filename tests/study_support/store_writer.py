@@ -11,7 +11,7 @@ import sys
 import time
 from pathlib import Path
 
-from elopt.optimizer.store.study_file import StudyWriter
+from elopt.optimizer.store import StudyWriter
 from study_support.records import record_for, small_header
 
 

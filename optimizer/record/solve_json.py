@@ -1,8 +1,9 @@
-"""What ``elopt solve`` found, as plain data: the JSON record and the warnings.
+"""What ``elopt solve`` found: the warnings and the JSON object of ``solve --json``.
 
-The record is one flat-ish dict of JSON types: the design, the solve (capacitance matrix,
-peak field, error estimate) and every family metric under its unit-suffixed name. Non-finite
-numbers become null. The rich report reads the same warnings, so both outputs agree.
+The JSON object is the design record (:func:`~elopt.optimizer.record.schema.design_json`,
+documented in ``docs/design_record.md``) plus the solve's context: config path, title,
+evaluation options, medium, warnings and the high-voltage caution. The rich report reads the
+same warnings, so both outputs agree.
 """
 
 from __future__ import annotations
@@ -13,17 +14,16 @@ from typing import Any
 
 from elopt.optimizer import __version__
 from elopt.optimizer.config import SolveSpec
+from elopt.optimizer.record.from_solution import design_record
+from elopt.optimizer.record.schema import design_json
+from elopt.optimizer.record.strict_json import JsonWarnings, finite_or_none
 from elopt.optimizer.report.safety import high_voltage_caution
-from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, parameter_units
+from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation
 from elopt.physics.electrodes.registry import get_family
 
 #: Above this fraction of the breakdown field the report reminds of design margins:
 #: design practice caps the peak well below breakdown (REFERENCES 10, from memory).
 MARGIN_FRACTION = 0.8
-
-
-def _json_number(v: float) -> float | None:
-    return float(v) if math.isfinite(v) else None
 
 
 def _kv_per_mm(v: float) -> str:
@@ -54,6 +54,9 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
             f"the peak field sits at a sharp corner of '{peak.conductor}': it is infinite in the "
             "exact solution and the value shown depends on the mesh; give the edges a fillet"
         )
+    for name, why in evaluation.extra.get("metric_notes", {}).items():
+        if not math.isfinite(evaluation.metrics.get(name, 0.0)):
+            out.append(f"{name} is undefined (null): {why}")
     if not sol.accuracy_met:
         out.append(
             f"the solver stopped at an estimated relative error of {sol.rel_error_estimate:.2g}, "
@@ -70,45 +73,27 @@ def drive_of(spec: SolveSpec) -> float:
 def solve_record(
     spec: SolveSpec, family: ElectrodeFamily, evaluation: Evaluation
 ) -> dict[str, Any]:
-    """The JSON object of ``elopt solve --json`` (see the module docstring)."""
-    sol = evaluation.solution
-    peak = sol.peak_field
-    layout = sol.layout
+    """The JSON object of ``elopt solve --json``: strict JSON types only (no NaN)."""
+    warnings = JsonWarnings(solve_warnings(spec, evaluation))
+    design = design_record(family, spec.params, evaluation, family_name=spec.family)
     record: dict[str, Any] = {
         "elopt_version": __version__,
         "config": spec.path,
         "title": spec.title,
-        "family": spec.family,
-        "parameters": dataclasses.asdict(spec.params),
-        "parameter_units": parameter_units(spec.params),
-        "evaluation_options": dataclasses.asdict(spec.options) if spec.options is not None else {},
-        "medium": {
-            "eps_r": spec.eps_r,
-            "breakdown_field_V_per_m": spec.breakdown_field_V_per_m,
-            "breakdown_source": spec.breakdown_source,
-        },
-        "conductors": [
-            {"name": c.name, "potential_V": c.potential_V, "charge_C": c.charge_C}
-            for c in layout.conductors
-        ],
-        "ground_plane": bool(layout.ground_plane),
-        "capacitance_matrix_F": [[float(x) for x in row] for row in sol.capacitance_matrix_F],
-        "charges_C": [float(q) for q in sol.charges_C],
-        "sense_capacitance_F": float(evaluation.extra["sense_capacitance_F"]),
-        "sense_capacitance_meaning": evaluation.extra.get("sense_capacitance_meaning", ""),
-        "peak_surface_field_V_per_m": float(peak.field_V_per_m),
-        "peak_location_m": [float(x) for x in peak.location_m],
-        "peak_conductor": peak.conductor,
-        "peak_at_sharp_corner": bool(peak.singular),
-        "peak_rel_error_estimate": _json_number(peak.rel_error_estimate),
-        "relative_error_estimate": _json_number(sol.rel_error_estimate),
-        "requested_accuracy": sol.requested_accuracy,
-        "accuracy_met": bool(sol.accuracy_met),
-        "n_unknowns": int(sol.n_unknowns),
     }
-    for m in family.metrics:
-        record[m.name] = _json_number(evaluation.metrics[m.name])
-    record["metric_units"] = {m.name: m.unit for m in family.metrics}
-    record["warnings"] = solve_warnings(spec, evaluation)
+    body = design_json(design, warnings)
+    record["family"] = body.pop("family")
+    record["parameters"] = body.pop("parameters")
+    record["parameter_units"] = body.pop("parameter_units")
+    record["evaluation_options"] = (
+        dataclasses.asdict(spec.options) if spec.options is not None else {}
+    )
+    record["medium"] = {
+        "eps_r": finite_or_none(spec.eps_r, "medium.eps_r", warnings, "out of range"),
+        "breakdown_field_V_per_m": spec.breakdown_field_V_per_m,
+        "breakdown_source": spec.breakdown_source,
+    }
+    record.update(body)
+    record["warnings"] = list(warnings)
     record["caution"] = high_voltage_caution(drive_of(spec))
     return record

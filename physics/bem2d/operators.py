@@ -1,0 +1,107 @@
+"""Single-layer matrices of the logarithmic kernel on 2-D panels, near-singular parts exact.
+
+For targets X (complex x + i z) and the panels of :mod:`elopt.physics.bem2d.mesh`,
+
+    A[t, k] = integral over the panel of node k of  -(1/2 pi) ln|X_t - y| L_k(y) ds,
+
+L_k the Lagrange polynomial of node k on its panel. Far from a panel the panel's Gauss rule is
+used; within ``NEAR`` half-lengths the logarithm is split exactly: with t* the complex preimage
+of X on the panel's parametrisation y(t) (closed form for lines and circular arcs),
+ln|X - y(t)| = ln|t - t*| + s(t), s analytic; ln|t - t*| is integrated against polynomials by
+an exact recurrence and s by the Gauss rule. The same routine serves collocation (X on the
+panels), images (X reflected) and evaluation off the surface. In periodic mode the kernel is
+:func:`elopt.physics.bem2d.periodic.periodic_log` and the split uses the nearest copy of X.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import numpy as np
+
+from elopt.physics.bem2d.mesh import Panels
+from elopt.physics.bem2d.periodic import periodic_log_matrix, periodic_log_smooth, wrap
+
+#: Targets closer than this many half-lengths to a panel's centre get the exact split.
+NEAR = 3.5
+_INV_2PI = 1.0 / (2.0 * np.pi)
+
+
+@lru_cache(maxsize=8)
+def _lagrange_from_monomials(order: int) -> np.ndarray:
+    """(order, order) matrix taking monomial moments to Gauss-node weights."""
+    x, _ = np.polynomial.legendre.leggauss(order)
+    return np.linalg.inv(np.vander(x, order, increasing=True))
+
+
+def log_moments(z: np.ndarray, order: int) -> np.ndarray:
+    """I[q, n] = int_{-1}^{1} t^n ln|t - z_q| dt (Q, order) for complex z (exact recurrence)."""
+    z = np.asarray(z, dtype=complex)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lp = np.log(np.abs(1.0 - z))
+        lm = np.log(np.abs(1.0 + z))
+        j = np.log(1.0 - z) - np.log(-1.0 - z)  # int dt / (t - z); real part exact on [-1, 1]
+    lp = np.where(np.isfinite(lp), lp, 0.0)
+    lm = np.where(np.isfinite(lm), lm, 0.0)
+    j = np.where(np.isfinite(j), j, 0.0)
+    out = np.empty((len(z), order))
+    for n in range(order):
+        m = n + 1
+        j = z * j + (1.0 - (-1.0) ** m) / m  # J_m from J_{m-1}
+        out[:, n] = (lp - (-1.0) ** m * lm - j.real) / m
+    return out
+
+
+def preimage(panels: Panels, idx: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Complex t* with y(t*) = X for panel ``idx[q]`` and target ``x[q]``."""
+    arc = panels.is_arc[idx]
+    out = np.empty(len(idx), dtype=complex)
+    line = ~arc
+    i = idx[line]
+    out[line] = (x[line] - panels.center[i]) / (panels.half[i] * panels.direction[i])
+    i = idx[arc]
+    zeta = (x[arc] - panels.center[i]) / (panels.radius[i] * np.exp(1j * panels.theta_mid[i]))
+    out[arc] = -1j * np.log(zeta) / panels.half_angle[i]
+    return out
+
+
+def single_layer(panels: Panels, targets: np.ndarray, period: float | None = None) -> np.ndarray:
+    """A (T, N): potential at ``targets`` (T,) complex of unit nodal densities (times eps)."""
+    x = np.asarray(targets, dtype=complex)
+    y = panels.points
+    w = panels.node_weights
+    p = panels.order
+    d = x[:, None] - y[None, :]
+    if period is None:
+        with np.errstate(divide="ignore"):
+            a = -_INV_2PI * np.log(np.abs(d)) * w[None, :]
+    else:
+        a = periodic_log_matrix(x, y, w, period)
+    # Near pairs: exact split of the logarithm.
+    c = panels.center.copy()
+    c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
+    dc = x[:, None] - c[None, :]
+    if period is not None:
+        dc = wrap(dc.real, period) + 1j * dc.imag
+    tq, pq = np.nonzero(np.abs(dc) < NEAR * panels.half[None, :])
+    if tq.size == 0:
+        return a
+    xq = x[tq]
+    if period is not None:
+        xq = xq - period * np.round((xq - c[pq]).real / period)
+    ts = preimage(panels, pq, xq)
+    gx, gw = np.polynomial.legendre.leggauss(p)
+    nodes = panels.nodes[pq]  # (Q, p)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        smooth = np.log(np.abs(xq[:, None] - nodes)) - np.log(np.abs(gx[None, :] - ts[:, None]))
+    hit = (np.abs(gx[None, :] - ts[:, None]) < 1e-12) | (xq[:, None] == nodes)
+    half = panels.half[pq]
+    smooth = np.where(hit, np.log(half)[:, None], smooth)
+    lw = log_moments(ts, p) @ _lagrange_from_monomials(p)
+    block = -_INV_2PI * half[:, None] * (lw + gw[None, :] * smooth)
+    if period is not None:
+        dn = xq[:, None] - nodes
+        block += periodic_log_smooth(dn.real, dn.imag, period) * (half[:, None] * gw[None, :])
+    cols = pq[:, None] * p + np.arange(p)[None, :]
+    a[tq[:, None], cols] = block
+    return a

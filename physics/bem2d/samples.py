@@ -1,0 +1,114 @@
+"""Surface samples of one 2-D level at the layout's excitation.
+
+On a zero-thickness strip the unknown is the density of both faces together; it is split into
+the two faces from the normal field just off each face (second-order one-sided differences of
+the potential, whose near-singular parts are integrated exactly), rescaled so that the two
+faces sum to the total exactly.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from elopt.physics.bem2d.assemble import potential_matrix
+from elopt.physics.solution import excitation_potentials
+
+#: One-sided steps for a sheet face's normal field, in panel half-lengths.
+FACE_STEP = 1e-3
+
+
+def xy(z: np.ndarray) -> np.ndarray:
+    """Complex positions (K,) -> (K, 2) as (x, z)."""
+    return np.stack([np.real(z), np.imag(z)], axis=1)
+
+
+def excitation(level) -> tuple[np.ndarray, np.ndarray, float]:
+    """Conductor potentials (n,), nodal densities (N,) and the far offset (V) at the drive."""
+    layout = level.problem.layout
+    volts = excitation_potentials(layout, level.capacitance_F, level.applied_charges_C)
+    return volts, level.sigma_unit @ volts, float(level.offset_unit @ volts)
+
+
+def potential(level, sigma: np.ndarray, offset: float, x: np.ndarray) -> np.ndarray:
+    """Potential (M,) V at complex points ``x`` for nodal densities ``sigma``."""
+    pr = level.problem
+    a = potential_matrix(level.panels, pr.slabs, x, period=pr.period_m, extent_m=pr.extent_m)
+    return a @ sigma - offset
+
+
+def level_samples(level, split: np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Every node's samples (sheet nodes as two faces): points (complex), sigma, eps of the
+    touching medium, area per metre, face, normal (complex), arc length, owner. ``split``
+    (N,) bool limits the sheet nodes split into faces (others are left out)."""
+    volts, sigma, offset = excitation(level)
+    p = level.panels
+    slabs = level.problem.slabs
+    pts = p.points
+    nrm = p.normals.ravel()
+    w = p.node_weights
+    owner = p.node_conductor
+    closed = ~np.repeat(p.sheet, p.order)
+    sheet = ~closed if split is None else (~closed & split)
+    arc = p.node_arc_length
+    half = np.repeat(p.half, p.order)
+    out: dict[str, list] = {
+        k: [] for k in ("points", "sigma", "eps", "area", "face", "normal", "arc", "owner")
+    }
+
+    def add(sel, sig, face, normal):
+        out["points"].append(pts[sel])
+        out["sigma"].append(sig)
+        out["eps"].append(slabs.eps_touching(xy(pts[sel]), xy(normal)))
+        out["area"].append(w[sel])
+        out["face"].append(np.full(int(sel.sum()), face, dtype=np.int8))
+        out["normal"].append(normal)
+        out["arc"].append(arc[sel])
+        out["owner"].append(owner[sel])
+
+    add(closed, sigma[closed], 0, nrm[closed])
+    if sheet.any():
+        x, n, hh = pts[sheet], nrm[sheet], half[sheet]
+        v = volts[owner[sheet]]
+        fields = []
+        for sgn in (1.0, -1.0):
+            d = sgn * n * FACE_STEP * hh
+            u = potential(level, sigma, offset, np.concatenate([x + d, x + 2 * d]))
+            u1, u2 = u[: len(x)], u[len(x) :]
+            # Outward normal field of this face: -dphi/dn, second order one-sided.
+            fields.append(-(4 * u1 - u2 - 3 * v) / (2 * FACE_STEP * hh))
+        s_top = slabs.eps_touching(xy(x), xy(n)) * fields[0]
+        s_bot = slabs.eps_touching(xy(x), xy(-n)) * fields[1]
+        total = sigma[sheet]
+        both = s_top + s_bot
+        scale = np.where(np.abs(both) > 0, total / np.where(both == 0, 1.0, both), 0.5)
+        add(sheet, s_top * scale, 1, n)
+        add(sheet, s_bot * scale, -1, -n)
+    return {k: np.concatenate(v) for k, v in out.items()}
+
+
+def sheet_peak_candidates(level) -> np.ndarray:
+    """Sheet nodes (N,) bool that may hold a conductor's largest face field.
+
+    A face carries at most the total density, so |sigma_face| / eps_face <= |sigma| / eps_min
+    (eps_min: the smaller permittivity at the node). The node with the largest total is split
+    first; every node whose bound reaches its face field stays a candidate.
+    """
+    _, sigma, _ = excitation(level)
+    p = level.panels
+    sheet = np.repeat(p.sheet, p.order)
+    owner = p.node_conductor
+    slabs = level.problem.slabs
+    pts, nrm = xy(p.points), xy(p.normals.ravel())
+    eps_min = np.minimum(slabs.eps_touching(pts, nrm), slabs.eps_touching(pts, -nrm))
+    bound = np.abs(sigma) / eps_min
+    first = np.zeros(p.n, dtype=bool)
+    for k in np.unique(owner[sheet]):
+        sel = np.nonzero(sheet & (owner == k))[0]
+        first[sel[np.argmax(bound[sel])]] = True
+    s = level_samples(level, first)
+    field = np.abs(s["sigma"]) / s["eps"]
+    keep = np.zeros(p.n, dtype=bool)
+    for k in np.unique(owner[sheet]):
+        best = field[(s["owner"] == k) & (s["face"] != 0)].max()
+        keep |= sheet & (owner == k) & (bound >= best * (1 - 1e-12))
+    return keep

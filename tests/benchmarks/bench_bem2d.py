@@ -1,0 +1,108 @@
+"""2-D solver benchmark: one periodic interdigitated cell on a three-layer stack, and the
+interdigitated demo study (configs/study_idc_humidity.toml).
+
+    python tests/benchmarks/bench_bem2d.py [--repeats 30] [--trials 200] [--workers 2]
+
+Part 1: zero-thickness fingers 10 um wide, 10 um gaps (period 40 um) on a glass half-space
+under a 1 um passivation and a 5 um film, air above; solve_2d to 1e-4. Prints the median
+milliseconds per solve (compiled kernels warmed up first), the unknowns, the error estimate
+and the achieved error against a 1e-7 reference. Goal: <= 5 ms median.
+Part 2: the demo study through the local pool (as ``elopt run``): wall time, trials per
+hour, and the share of wall x workers spent inside the family's evaluate ("solve share").
+The machine is shared; say how loaded it was when quoting the figures.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import statistics
+import tempfile
+import time
+from pathlib import Path
+
+from elopt.physics.bem2d import Strip, solve_2d
+from elopt.physics.layout import Layout, driven
+from elopt.physics.media import PlanarLayer
+from elopt.physics.threads import limit_blas_threads
+
+DEMO = Path(__file__).resolve().parents[2] / "configs" / "study_idc_humidity.toml"
+
+
+def cell() -> tuple[Layout, float]:
+    lam, w = 40e-6, 10e-6
+    layers = (
+        PlanarLayer("glass", 4.6, -math.inf, 0.0),
+        PlanarLayer("passivation", 3.9, 0.0, 1e-6),
+        PlanarLayer("film", 3.2, 1e-6, 6e-6),
+    )
+    conds = (
+        driven("a", Strip(-w / 2, w / 2, 0.0), 1.0),
+        driven("b", Strip(lam / 2 - w / 2, lam / 2 + w / 2, 0.0), 0.0),
+    )
+    return Layout(conds, layers=layers), lam
+
+
+def bench_cell(repeats: int) -> None:
+    layout, lam = cell()
+    ref = -solve_2d(layout, period_m=lam, rel_accuracy=1e-7).capacitance_matrix_F[0, 1]
+    solve_2d(layout, period_m=lam)
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        sol = solve_2d(layout, period_m=lam, rel_accuracy=1e-4)
+        times.append(time.perf_counter() - t0)
+    c = -sol.capacitance_matrix_F[0, 1]
+    print("periodic cell, 3-layer stack, requested 1e-4")
+    print(f"  {'median ms':>10} {'min ms':>8} {'unknowns':>9} {'estimate':>9} {'achieved':>9}")
+    print(
+        f"  {1e3 * statistics.median(times):10.2f} {1e3 * min(times):8.2f} "
+        f"{sol.n_unknowns:9d} {sol.rel_error_estimate:9.1e} {abs(c / ref - 1):9.1e}"
+    )
+
+
+def bench_study(trials: int, workers: int) -> None:
+    from elopt.optimizer.config.study_config import load_study_config
+    from elopt.optimizer.run.local_pool import LocalProcessPool
+    from elopt.optimizer.store import StudyWriter, read_study
+    from elopt.optimizer.study.search import RunLimits, run_search, study_header
+
+    spec = load_study_config(DEMO)
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / "bench_idc.h5"
+        writer = StudyWriter.create(path, study_header(spec), overwrite=True)
+        t0 = time.perf_counter()
+        try:
+            with LocalProcessPool(workers) as pool:
+                result = run_search(spec, writer, pool, RunLimits(trials, None))
+                wall = time.perf_counter() - t0
+        finally:
+            writer.close()
+        c = read_study(path).columns
+    ok = c["state"] == 0
+    solves = sorted(c["solve_s"][ok])
+    n = result.state.n_finished
+    print(f"interdigitated demo study, {workers} worker(s)")
+    print(
+        f"  {'trials':>7} {'failed':>7} {'wall s':>8} {'trials/h':>9} {'solve share':>12} {'median s':>9}"
+    )
+    print(
+        f"  {n:7d} {result.state.n_failed:7d} {wall:8.1f} {n / wall * 3600:9.0f} "
+        f"{sum(solves) / (wall * workers):12.1%} {solves[len(solves) // 2]:9.2f}"
+    )
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--repeats", type=int, default=30)
+    ap.add_argument("--trials", type=int, default=200)
+    ap.add_argument("--workers", type=int, default=2)
+    args = ap.parse_args()
+    limit_blas_threads()
+    bench_cell(args.repeats)
+    if args.trials > 0:
+        bench_study(args.trials, args.workers)
+
+
+if __name__ == "__main__":
+    main()
