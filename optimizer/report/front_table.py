@@ -77,6 +77,11 @@ def render_front(
         + (f" ({counts['rerun']} re-run)" if counts["rerun"] else "")
         + (f" — {status}, this is a live read" if status else "")
     )
+    if "[tolerance" in h.config_toml:
+        console.print(
+            "objectives and constraints are judged across the study's tolerances; "
+            "`elopt show FILE TRIAL` lists nominal beside toleranced values"
+        )
     best_first = front_numbers(snap)
     front = sorted_front(snap, view, best_first)
     if front.size == 0:

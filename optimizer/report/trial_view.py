@@ -70,6 +70,9 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
             name, short_number(c["metrics"][number, k]), h.metric_units[k], ", ".join(roles)
         )
     console.print(metrics)
+    tolerance = info.get("tolerance")
+    if isinstance(tolerance, dict):
+        _tolerance_table(console, h, c, number, tolerance)
 
     conductors = snap.conductor_names(number)
     cap = Table(title="capacitance matrix (fF)", title_justify="left")
@@ -106,6 +109,31 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     caution = study_caution(snap)
     if caution:
         console.print(Text(caution, style="yellow"))
+
+
+def _tolerance_table(console: Console, h, c, number: int, tolerance: dict) -> None:
+    """Nominal beside toleranced value of each judged metric, and the tolerance driving it."""
+    judged = tolerance.get("values", {})
+    drivers = tolerance.get("driver", {})
+    table = Table(title="across tolerances (the roles above judge these)", title_justify="left")
+    for col in ("name", "nominal", "toleranced", "unit", "driven by"):
+        table.add_column(col, justify="right" if col in ("nominal", "toleranced") else "left")
+    for k, name in enumerate(h.metric_names):
+        if name in judged:
+            table.add_row(
+                name,
+                short_number(c["metrics"][number, k]),
+                short_number(float(judged[name])),
+                h.metric_units[k],
+                str(drivers.get(name, "")),
+            )
+    console.print(table)
+    how = str(tolerance.get("method", "?")).replace("_", " ")
+    why = f" ({tolerance['reason']})" if tolerance.get("reason") else ""
+    console.print(
+        f"toleranced by {how}{why}: {tolerance.get('evaluations', '?')} solves in "
+        f"{float(tolerance.get('seconds', math.nan)):.2f} s"
+    )
 
 
 def sigma_plot(arrays: TrialArrays) -> list[str]:
