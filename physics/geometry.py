@@ -27,10 +27,17 @@ from elopt.physics.errors import GeometryError
 JOIN_TOLERANCE = 1e-9
 
 
+def format_point(p: Sequence[float]) -> str:
+    """An (r, z) point in metres as plain text: ``(0.0027, 0.000625) m``."""
+    return "(" + ", ".join(f"{float(x):.6g}" for x in p) + ") m"
+
+
 def _check_finite(name: str, values: Sequence[float]) -> None:
     for v in values:
         if not math.isfinite(v):
-            raise GeometryError(f"{name}: every coordinate must be finite, got {tuple(values)}")
+            raise GeometryError(
+                f"{name}: every coordinate must be finite, got ({', '.join(map(str, values))})"
+            )
 
 
 @dataclass(frozen=True)
@@ -163,19 +170,19 @@ class Curve:
             raise GeometryError("curve: needs at least one piece")
         size = self.size
         tol = JOIN_TOLERANCE * max(size, 1e-300)
-        for i, p in enumerate(self.pieces):
+        for p in self.pieces:
             if p.length <= tol:
                 raise GeometryError(
-                    f"curve piece {i}: zero length ({p.length:.3g} m); every piece must be longer "
-                    f"than {tol:.3g} m"
+                    f"curve: a {type(p).__name__.lower()} near {format_point(p.start)} is "
+                    f"{p.length:.3g} m long; every piece must be longer than {tol:.3g} m"
                 )
         for i in range(len(self.pieces) - 1):
             a, b = self.pieces[i].end, self.pieces[i + 1].start
             gap = math.hypot(a[0] - b[0], a[1] - b[1])
             if gap > tol:
                 raise GeometryError(
-                    f"curve: piece {i} ends at {a} but piece {i + 1} starts at {b} "
-                    f"(gap {gap:.3g} m); consecutive pieces must join"
+                    f"curve: a piece ends at {format_point(a)} but the next starts at "
+                    f"{format_point(b)} (gap {gap:.3g} m); consecutive pieces must join"
                 )
 
     @property
@@ -323,7 +330,13 @@ def polyline_distance(a: np.ndarray, b: np.ndarray) -> tuple[float, np.ndarray]:
 
 
 def point_in_region(points: np.ndarray, outline: np.ndarray) -> np.ndarray:
-    """Even-odd test of points (M,2) against a closed polygon outline (K,2) -> (M,) bool."""
+    """Even-odd test of points (M,2) against a closed polygon outline (K,2) -> (M,) bool.
+
+    The outline is closed exactly (last vertex = first) so that the half-open crossing rule
+    counts a ray through a vertex once or not at all, never by rounding.
+    """
+    if not np.array_equal(outline[0], outline[-1]):
+        outline = np.concatenate([outline, outline[:1]])
     x, y = points[:, 0:1], points[:, 1:2]
     x0, y0 = outline[None, :-1, 0], outline[None, :-1, 1]
     x1, y1 = outline[None, 1:, 0], outline[None, 1:, 1]
@@ -339,6 +352,9 @@ def closed_outline(curve: Curve) -> np.ndarray | None:
     if curve.kind == "body":
         return np.concatenate([pts, pts[:1]])
     if curve.kind == "ring":
+        # The ends agree only to rounding; an outline that does not close exactly can be
+        # crossed an odd number of times by a ray through its seam (a false "inside").
+        pts[-1] = pts[0]
         return pts
     return None
 
@@ -355,14 +371,18 @@ def rounded_polyline(
     if len(v) < 2:
         raise GeometryError(f"{name}: needs at least two vertices")
     if fillet_radius < 0 or not math.isfinite(fillet_radius):
-        raise GeometryError(f"{name}: fillet radius must be finite and >= 0, got {fillet_radius}")
+        raise GeometryError(
+            f"{name}: fillet radius must be finite and >= 0, got {float(fillet_radius):.6g} m"
+        )
     cuts: list[tuple[np.ndarray, np.ndarray, Arc | None]] = []
     for k in range(1, len(v) - 1):
         d1 = v[k] - v[k - 1]
         d2 = v[k + 1] - v[k]
         l1, l2 = np.linalg.norm(d1), np.linalg.norm(d2)
         if l1 == 0 or l2 == 0:
-            raise GeometryError(f"{name}: vertices {k - 1}..{k + 1} repeat a point {tuple(v[k])}")
+            raise GeometryError(
+                f"{name}: two consecutive corners repeat the point {format_point(v[k])}"
+            )
         u1, u2 = d1 / l1, d2 / l2
         turn = math.atan2(u1[0] * u2[1] - u1[1] * u2[0], float(u1 @ u2))
         if fillet_radius == 0 or abs(turn) < 1e-12:
@@ -384,7 +404,7 @@ def rounded_polyline(
         if used_start + used_end > edge_len * (1 + 1e-12):
             raise GeometryError(
                 f"{name}: fillets of radius {fillet_radius:.6g} m overlap on the edge from "
-                f"{tuple(v[k - 1])} to {tuple(v[k])} (length {edge_len:.6g} m)"
+                f"{format_point(v[k - 1])} to {format_point(v[k])} (length {edge_len:.6g} m)"
             )
         if np.linalg.norm(p_in - prev) > JOIN_TOLERANCE * edge_len:
             pieces.append(Segment(tuple(prev), tuple(p_in)))

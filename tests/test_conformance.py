@@ -15,10 +15,11 @@ import numpy as np
 import pytest
 from published_cases import CASES
 from reference_values import disk_density_C_per_m2
+from test_bem3d_vs_axisymmetric import PROBE
 
 from elopt.physics.bem3d import revolved_layout, solve_3d
 from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.electrodes.guarded_disk import GuardedDisk
 from elopt.physics.solution import SurfaceSamples
 
 SOLVERS = ("axi", "3d")
@@ -119,16 +120,7 @@ def test_open_sheet_faces_mean_the_same_in_both_solvers(solved, solver):
 def test_guarded_disk_both_solvers_agree():
     # No closed form: the two independent discretisations must agree within the 3-D
     # solver's own estimate (three times it: the honesty bound).
-    p = GuardedDiskParams(
-        sensor_radius_mm=2.0,
-        guard_gap_mm=0.3,
-        guard_width_mm=1.0,
-        thickness_mm=1.0,
-        fillet_mm=0.15,
-        standoff_mm=0.6,
-        drive_V=10.0,
-    )
-    layout = GuardedDisk().build(p)
+    layout = GuardedDisk().build(PROBE)
     axi = solve_axisymmetric(layout, rel_accuracy=1e-7)
     sol3 = solve_3d(revolved_layout(layout, h_m=0.6e-3), rel_accuracy=1e-2, max_level=1)
     c, ref = sol3.capacitance_matrix_F, axi.capacitance_matrix_F

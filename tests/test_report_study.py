@@ -10,7 +10,7 @@ from rich.console import Console
 from study_support.configs import fixture_study
 
 from elopt.optimizer.config.study_config import load_study_config
-from elopt.optimizer.report.study_report import PlainProgress, RichProgress, summary_line
+from elopt.optimizer.report.progress import PlainProgress, RichProgress, summary_line
 from elopt.optimizer.store import StudyWriter, read_study
 from elopt.optimizer.study.objectives import pareto_front_mask
 from elopt.optimizer.study.search import RunLimits, state_from_snapshot
@@ -95,7 +95,7 @@ def test_rich_progress_renders_budget_and_best(tmp_path):
 def test_high_voltage_caution_on_the_front(tmp_path):
     from study_support.records import record_for, small_header
 
-    from elopt.optimizer.report.study_report import render_front
+    from elopt.optimizer.report.front_table import render_front
 
     path = tmp_path / "hv.h5"
     with StudyWriter.create(path, small_header()) as w:

@@ -16,7 +16,7 @@ from optuna.trial import TrialState
 from study_support.configs import fixture_study
 
 from elopt.optimizer.config.study_config import load_study_config
-from elopt.optimizer.report.study_report import front_numbers
+from elopt.optimizer.report.study_view import front_numbers
 from elopt.optimizer.run.local_pool import LocalProcessPool
 from elopt.optimizer.store import StudyWriter, read_study
 from elopt.optimizer.study.search import (

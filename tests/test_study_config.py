@@ -188,6 +188,11 @@ def test_parameter_units_come_from_the_family_declarations():
         "standoff_mm": "mm",
         "drive_V": "V",
         "recess_mm": "mm",
+        "spacer_eps_r": "1",
+        "housing_width_mm": "mm",
+        "housing_eps_r": "1",
+        "target_layer_um": "um",
+        "target_layer_eps_r": "1",
     }
     # The fixture declares its delay in seconds: a unit no name suffix list knew.
     fixture = study_header(_parse(_fixture_text()))

@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from elopt.optimizer.config import StudySpec
-from elopt.optimizer.run.dask_pool import ClusterError, DaskExecutor, connect_cluster
+if TYPE_CHECKING:
+    from elopt.optimizer.config.study_config import StudySpec
+    from elopt.optimizer.run.dask_pool import ClusterError, DaskExecutor
 
 
 def add_cluster_arg(parser: argparse.ArgumentParser) -> None:
@@ -22,6 +23,8 @@ def add_cluster_arg(parser: argparse.ArgumentParser) -> None:
 def open_cluster(args: argparse.Namespace, spec: StudySpec) -> DaskExecutor | None:
     """The connected executor for ``--cluster`` (None without the option). Call it before the
     study file is touched: a cluster that cannot run the study then leaves nothing written."""
+    from elopt.optimizer.run.dask_pool import ClusterError, connect_cluster
+
     if getattr(args, "cluster", None) is None:
         return None
     if args.workers is not None:
@@ -37,6 +40,8 @@ def open_cluster(args: argparse.Namespace, spec: StudySpec) -> DaskExecutor | No
 
 def cluster_lost_error(cluster: DaskExecutor, path: Path, state: Any) -> ClusterError:
     """The one line for a session the cluster ended: why, what is safe, how to go on."""
+    from elopt.optimizer.run.dask_pool import ClusterError
+
     return ClusterError(
         f"{cluster.lost_reason}; stopped: {state.n_finished} finished trials are safe in {path} "
         f"({state.n_interrupted} interrupted, re-run on resume). Continue with: "

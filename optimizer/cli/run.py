@@ -6,30 +6,30 @@ import argparse
 import signal
 import threading
 import time
-import tomllib
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from rich.console import Console
+from elopt.optimizer.cli.cluster_args import add_cluster_arg
 
-from elopt.optimizer.cli.cluster_args import add_cluster_arg, cluster_lost_error, open_cluster
-from elopt.optimizer.config import (
-    StudySpec,
-    as_float,
-    as_int,
-    identity_differences,
-    load_study_config,
-    load_toml,
-    parse_study_config,
-    study_identity,
+if TYPE_CHECKING:
+    from elopt.optimizer.config.study_config import StudySpec
+    from elopt.optimizer.run.dask_pool import DaskExecutor
+    from elopt.optimizer.store import StudySnapshot, StudyWriter
+
+#: Exit status of a run stopped by a signal: 128 + the signal's number, as shells report it.
+SIGNAL_EXIT = {"SIGINT": 128 + signal.SIGINT, "SIGTERM": 128 + signal.SIGTERM}
+
+BUDGET_HELP = (
+    "A budget given here replaces the config's [budget] as a whole: --hours 10 alone runs "
+    "for ten hours whatever trial count the config names. Exit status: 0 when the budget is "
+    "reached, 130 when stopped by Ctrl-C (SIGINT), 143 when stopped by SIGTERM, 2 on an error."
 )
-from elopt.optimizer.errors import ConfigError, StudyFileError
-from elopt.optimizer.report.safety import high_voltage_caution
-from elopt.optimizer.report.study_report import PlainProgress, RichProgress
-from elopt.optimizer.run.dask_pool import DaskExecutor
-from elopt.optimizer.run.local_pool import LocalProcessPool
-from elopt.optimizer.store import StudySnapshot, StudyWriter, read_study
-from elopt.optimizer.study import RunLimits, run_search, study_header
+SEED_HELP = (
+    "The config's seed fixes the sampler's random stream: with --workers 1 the same seed "
+    "gives the same trials in the same order; with several workers the order in which results "
+    "come back varies, so only the first designs (TPE's random start, [sampler] "
+    "startup_trials) are the same and later ones may differ."
+)
 
 
 def add_parser(subparsers: Any) -> None:
@@ -37,7 +37,10 @@ def add_parser(subparsers: Any) -> None:
         "run",
         help="run an optuna study of an electrode family into a new HDF5 study file",
         description="Run the study described by STUDY.toml; every finished trial is committed "
-        "to the study file at once, so a killed run loses nothing reported.",
+        "to the study file at once, so a killed run loses nothing reported. "
+        + BUDGET_HELP
+        + " "
+        + SEED_HELP,
     )
     run.add_argument("config", metavar="STUDY.toml")
     run.add_argument("--out", metavar="FILE.h5", help="study file (default studies/<name>.h5)")
@@ -49,7 +52,9 @@ def add_parser(subparsers: Any) -> None:
         "resume",
         help="continue a study from its file (after a stop, a kill or a power cut)",
         description="Continue the study stored in FILE.h5 with its stored config. Without "
-        "--trials/--hours the budget the last run had left is finished.",
+        "--trials/--hours the budget the last run had left is finished; with them, that budget "
+        "is replaced. Exit status: 0 when the budget is reached, 130 when stopped by Ctrl-C "
+        "(SIGINT), 143 by SIGTERM, 2 on an error.",
     )
     resume.add_argument("study_file", metavar="FILE.h5")
     resume.add_argument(
@@ -64,8 +69,18 @@ def add_parser(subparsers: Any) -> None:
 
 def _budget_args(p: argparse.ArgumentParser, more: bool = False) -> None:
     word = "more " if more else ""
-    p.add_argument("--trials", type=int, metavar="N", help=f"run {word}N finished trials")
-    p.add_argument("--hours", type=float, metavar="H", help=f"run for {word}H hours at most")
+    p.add_argument(
+        "--trials",
+        type=int,
+        metavar="N",
+        help=f"run {word}N finished trials (replaces the config's budget, hours included)",
+    )
+    p.add_argument(
+        "--hours",
+        type=float,
+        metavar="H",
+        help=f"run for {word}H hours at most (replaces the config's budget, trials included)",
+    )
     p.add_argument(
         "--workers", type=int, metavar="N", help="worker processes (default: one per core)"
     )
@@ -80,6 +95,8 @@ def _budget_args(p: argparse.ArgumentParser, more: bool = False) -> None:
 
 
 def _checked_overrides(args: argparse.Namespace) -> tuple[int | None, float | None, int | None]:
+    from elopt.optimizer.config.toml_tools import as_float, as_int
+
     trials = None if args.trials is None else as_int(args.trials, "--trials", low=1)
     hours = None if args.hours is None else as_float(args.hours, "--hours", low=0.0, low_open=True)
     workers = None if args.workers is None else as_int(args.workers, "--workers", low=1, high=256)
@@ -89,10 +106,15 @@ def _checked_overrides(args: argparse.Namespace) -> tuple[int | None, float | No
 
 
 def run_command(args: argparse.Namespace) -> int:
+    from elopt.optimizer.cli.cluster_args import open_cluster
+    from elopt.optimizer.config.study_config import load_study_config
+    from elopt.optimizer.store import StudyWriter
+    from elopt.optimizer.study.search import study_header
+
     trials, hours, workers = _checked_overrides(args)
     spec = load_study_config(args.config)
-    trials = trials if trials is not None else spec.budget.trials
-    hours = hours if hours is not None else spec.budget.hours
+    if trials is None and hours is None:
+        trials, hours = spec.budget.trials, spec.budget.hours
     out = Path(args.out) if args.out else Path("studies") / f"{spec.name}.h5"
     if not args.out:
         out.parent.mkdir(parents=True, exist_ok=True)
@@ -107,6 +129,12 @@ def run_command(args: argparse.Namespace) -> int:
 
 
 def resume_command(args: argparse.Namespace) -> int:
+    from elopt.optimizer.cli.cluster_args import open_cluster
+    from elopt.optimizer.config.study_config import identity_differences, study_identity
+    from elopt.optimizer.config.toml_tools import load_toml
+    from elopt.optimizer.errors import ConfigError
+    from elopt.optimizer.store import StudyWriter, read_study
+
     more_trials, more_hours, workers = _checked_overrides(args)
     path = Path(args.study_file)
     snap = read_study(path)
@@ -151,6 +179,11 @@ def resume_command(args: argparse.Namespace) -> int:
 def spec_from_study(snap: StudySnapshot) -> StudySpec:
     """Rebuild the study's spec from the config text stored in its file, and check that this
     elopt's family still has the stored parameters and metrics."""
+    import tomllib
+
+    from elopt.optimizer.config.study_config import parse_study_config
+    from elopt.optimizer.errors import ConfigError, StudyFileError
+
     h = snap.header
     try:
         table = tomllib.loads(h.config_toml)
@@ -220,6 +253,14 @@ def _run_session(
     args: argparse.Namespace,
     cluster: DaskExecutor | None = None,
 ) -> int:
+    from rich.console import Console
+
+    from elopt.optimizer.cli.cluster_args import cluster_lost_error
+    from elopt.optimizer.report.progress import PlainProgress, RichProgress
+    from elopt.optimizer.report.safety import high_voltage_caution
+    from elopt.optimizer.run.local_pool import LocalProcessPool
+    from elopt.optimizer.study.search import RunLimits, run_search
+
     _quiet_optuna()
     console = Console(highlight=False, markup=False)
     path = writer.path
@@ -260,6 +301,7 @@ def _run_session(
             f"({state.n_interrupted} interrupted, re-run on resume). Continue with: "
             f"elopt resume {path}"
         )
+        return SIGNAL_EXIT.get(received[0], 130) if received else 130
     else:
         why = "trial budget reached" if result.reason == "budget" else "time budget used"
         print(

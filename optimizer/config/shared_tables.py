@@ -24,7 +24,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from elopt.optimizer.config.toml_tools import as_float, as_int, check_keys, require
+from elopt.optimizer.config.toml_tools import MAX_EPS_R, as_float, as_int, check_keys, require
 from elopt.optimizer.errors import ConfigError
 from elopt.physics.electrodes.base import ElectrodeFamily
 from elopt.physics.errors import ElectrodeError
@@ -32,6 +32,9 @@ from elopt.physics.errors import ElectrodeError
 #: Peak field taken as the breakdown limit of air when the config names no medium limit:
 #: about 3 kV/mm for centimetre gaps at 1 atm (common practice, no source).
 AIR_BREAKDOWN_V_PER_M = 3.0e6
+#: Largest breakdown field a medium may be given (V/m): above any solid or vacuum gap
+#: (common practice, no source).
+MAX_BREAKDOWN_V_PER_M = 1e10
 MEDIUM_KEYS = ("eps_r", "breakdown_field_V_per_m")
 
 
@@ -47,13 +50,14 @@ class MediumSpec:
 def parse_medium(table: dict[str, Any], *, where: str = "medium") -> MediumSpec:
     """The ``[medium]`` table; without a limit, air's for eps_r = 1 and none otherwise."""
     check_keys(table, MEDIUM_KEYS, where)
-    eps_r = as_float(table.get("eps_r", 1.0), f"{where}.eps_r", low=1.0)
+    eps_r = as_float(table.get("eps_r", 1.0), f"{where}.eps_r", low=1.0, high=MAX_EPS_R)
     if "breakdown_field_V_per_m" in table:
         breakdown = as_float(
             table["breakdown_field_V_per_m"],
             f"{where}.breakdown_field_V_per_m",
             low=0,
             low_open=True,
+            high=MAX_BREAKDOWN_V_PER_M,
         )
         return MediumSpec(eps_r, breakdown, f"from [{where}]")
     if eps_r == 1.0:

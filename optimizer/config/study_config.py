@@ -109,6 +109,9 @@ _TOP_KEYS = (
 )
 _RUNTIME_TABLES = ("budget", "run")
 _RANGE_PROBES = 256
+#: Finest grid a search range's ``step`` may make: finer is a continuous range in all but
+#: name, and optuna's exact decimal grid arithmetic fails on ratios near 1e28.
+MAX_GRID_STEPS = 1e6
 
 
 @dataclass(frozen=True)
@@ -210,8 +213,14 @@ class StudySpec:
 
 
 def load_study_config(path: str | Path) -> StudySpec:
+    """Load and validate a study config; every problem is one ConfigError line that starts
+    with the file's path, as the solve config's do."""
     table, text = load_toml(path)
-    return parse_study_config(table, text, source=str(path))
+    try:
+        return parse_study_config(table, text, source=str(path))
+    except ConfigError as exc:
+        msg = str(exc)
+        raise ConfigError(msg if msg.startswith(str(path)) else f"{path}: {msg}") from None
 
 
 def parse_study_config(table: dict[str, Any], text: str, *, source: str = "") -> StudySpec:
@@ -325,12 +334,22 @@ def resolve_family(ref: str, *, key: str = "family") -> ElectrodeFamily:
         module_name, _, attr = ref.partition(":")
         try:
             obj = getattr(importlib.import_module(module_name), attr)
-        except (ImportError, AttributeError) as exc:
+        except (ImportError, AttributeError, ValueError) as exc:
             raise ConfigError(f"{key}: cannot load {ref!r} ({exc})") from None
-        family = obj() if isinstance(obj, type) else obj
-        if not isinstance(family, ElectrodeFamily):
-            raise ConfigError(f"{key}: {ref!r} is not an ElectrodeFamily")
-        return family
+        if isinstance(obj, type):
+            if not issubclass(obj, ElectrodeFamily):
+                raise ConfigError(
+                    f"{key}: {ref!r} is the class {obj.__name__}, not an ElectrodeFamily"
+                )
+            try:
+                obj = obj()
+            except Exception as exc:  # a family class must build without arguments
+                raise ConfigError(
+                    f"{key}: {ref!r} cannot be created without arguments ({exc})"
+                ) from None
+        if not isinstance(obj, ElectrodeFamily):
+            raise ConfigError(f"{key}: {ref!r} is a {type(obj).__name__}, not an ElectrodeFamily")
+        return obj
     try:
         registry = importlib.import_module("elopt.physics.electrodes.registry")
     except ImportError:
@@ -447,6 +466,12 @@ def _parse_search(
             if not 0 < step <= high - low:
                 raise ConfigError(
                     f"{key}.step: must lie in (0, high - low] = (0, {high - low:g}], got {step:g}"
+                )
+            if (high - low) / step > MAX_GRID_STEPS:
+                raise ConfigError(
+                    f"{key}.step: {step:g} cuts high - low = {high - low:g} into "
+                    f"{(high - low) / step:.3g} steps; at most {MAX_GRID_STEPS:g} (leave step out "
+                    "for a continuous range)"
                 )
         out.append(SearchRange(name, float(low), float(high), log, step, integer))
     return tuple(out)

@@ -9,6 +9,7 @@ same warnings, so both outputs agree.
 from __future__ import annotations
 
 import dataclasses
+import math
 from typing import Any
 
 from elopt.optimizer import __version__
@@ -53,6 +54,9 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
             f"the peak field sits at a sharp corner of '{peak.conductor}': it is infinite in the "
             "exact solution and the value shown depends on the mesh; give the edges a fillet"
         )
+    for name, why in evaluation.extra.get("metric_notes", {}).items():
+        if not math.isfinite(evaluation.metrics.get(name, 0.0)):
+            out.append(f"{name} is undefined (null): {why}")
     if not sol.accuracy_met:
         out.append(
             f"the solver stopped at an estimated relative error of {sol.rel_error_estimate:.2g}, "

@@ -175,6 +175,8 @@ class RunState:
         if record.state == "interrupted":
             self.n_interrupted += 1
             return
+        if record.info.get("rerun_of") is not None:
+            self.n_interrupted -= 1
         self.n_finished += 1
         if record.state == "failed":
             self.n_failed += 1
@@ -248,7 +250,7 @@ def state_from_snapshot(
     state.n_finished = int(np.count_nonzero(names != "interrupted"))
     state.n_finished_at_start = state.n_finished
     state.n_failed = int(np.count_nonzero(names == "failed"))
-    state.n_interrupted = int(np.count_nonzero(names == "interrupted"))
+    state.n_interrupted = len(interrupted_to_rerun(snap))  # a re-run one no longer counts
     ok = (names == "complete") & (c["feasible"] == 1)
     state.n_feasible = int(np.count_nonzero(ok))
     for i in np.flatnonzero(ok):

@@ -28,7 +28,7 @@ UM = 1e-6
 REL_STEP = 1e-4
 THICK_STEP = 1e-3
 #: Heights (in periods or strip-set widths) where the top-region sensitivity is sampled.
-PENETRATION_GRID = np.geomspace(5e-3, 2.0, 14)
+PENETRATION_GRID = np.geomspace(1e-4, 2.0, 16)
 
 
 @dataclass(frozen=True)

@@ -10,6 +10,7 @@ needs).
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -33,9 +34,68 @@ def cosine_grading(s: np.ndarray, alpha: float) -> np.ndarray:
     return s - alpha * np.sin(2.0 * np.pi * s) / (2.0 * np.pi)
 
 
+@lru_cache(maxsize=8)
 def _polynomial_max_slope(q: float) -> float:
     s = np.linspace(0.0, 1.0, 4001)
     return float(np.max(np.gradient(polynomial_grading(s, q), s)))
+
+
+#: Above this many steps per unit of level-0 spacing an interval is not planned at all: its
+#: node count is reported as infinite (a size check refuses it before anything is allocated).
+_MAX_PLANNED_STEPS = 1e12
+
+
+def _sharp_steps(length: float, h: float, grade: float) -> int:
+    """Level-0 steps of a sharp-edged interval (largest step about ``h``)."""
+    return max(1, math.ceil(length * _polynomial_max_slope(grade) / h))
+
+
+def _fillet_plan(length: float, h: float, fillet: float) -> tuple[float, int, int, float]:
+    """(strip width w, level-0 steps on each fillet strip, on the middle part, cosine alpha)."""
+    w = min(fillet, 0.5 * length)
+    arc = 0.25 * math.pi * w
+    n_arc = max(2, math.ceil(arc / h))
+    arc_step = arc / n_arc
+    mid_len = length - 2.0 * w
+    n_mid, alpha = 0, 0.0
+    if mid_len > 1e-12 * length:
+        # Largest alpha (<= 0.9) whose end step matches the arc step.
+        n_mid = max(1, math.ceil(mid_len / h))
+        for _ in range(40):
+            alpha = min(0.9, max(0.0, 1.0 - arc_step * n_mid / mid_len))
+            n_new = max(1, math.ceil(mid_len * (1.0 + alpha) / h))
+            if n_new == n_mid:
+                break
+            n_mid = n_new
+    return w, n_arc, n_mid, alpha
+
+
+def interval_node_count(
+    a: float, b: float, h: float, level: int, *, grade: float, fillet: float
+) -> float:
+    """Nodes :func:`interval_nodes` would make (an upper bound by the seams; inf when the
+    interval holds more than about 1e12 level-0 steps). Nothing is allocated."""
+    length = b - a
+    if not length / h <= _MAX_PLANNED_STEPS:
+        return math.inf
+    steps = 2**level
+    if fillet <= 0:
+        return float(_sharp_steps(length, h, grade) * steps + 1)
+    _, n_arc, n_mid, _ = _fillet_plan(length, h, fillet)
+    strips = 2 * (n_arc * steps + 1)
+    # The strips share their inner ends with the middle part (or with each other).
+    return float(strips + n_mid * steps - 1 if n_mid else strips - 1)
+
+
+def axis_node_count(
+    breaks: list[float], h: float, level: int, *, fillet: float, grade: float
+) -> float:
+    """Nodes :func:`axis_nodes` would make through ``breaks`` (see :func:`interval_node_count`)."""
+    pieces = [
+        interval_node_count(breaks[k], breaks[k + 1], h, level, grade=grade, fillet=fillet)
+        for k in range(len(breaks) - 1)
+    ]
+    return sum(pieces) - (len(pieces) - 1)
 
 
 def interval_nodes(
@@ -53,30 +113,17 @@ def interval_nodes(
     steps = 2**level
     length = b - a
     if fillet <= 0:
-        n = max(1, math.ceil(length * _polynomial_max_slope(grade) / h))
+        n = _sharp_steps(length, h, grade)
         s = np.linspace(0.0, 1.0, n * steps + 1)
         x = a + length * polynomial_grading(s, grade)
     else:
-        w = min(fillet, 0.5 * length)
-        arc = 0.25 * math.pi * w
-        n_arc = max(2, math.ceil(arc / h))
-        arc_step = arc / n_arc
+        w, n_arc, n_mid, alpha = _fillet_plan(length, h, fillet)
         theta = np.linspace(0.0, 0.25 * math.pi, n_arc * steps + 1)
         off = w * (1.0 - np.tan(theta))
         parts = [(a + off)[::-1]]
-        mid_len = length - 2.0 * w
-        if mid_len > 1e-12 * length:
-            # Largest alpha (<= 0.9) whose end step matches the arc step.
-            n_mid = max(1, math.ceil(mid_len / h))
-            alpha = 0.0
-            for _ in range(40):
-                alpha = min(0.9, max(0.0, 1.0 - arc_step * n_mid / mid_len))
-                n_new = max(1, math.ceil(mid_len * (1.0 + alpha) / h))
-                if n_new == n_mid:
-                    break
-                n_mid = n_new
+        if n_mid:
             s = np.linspace(0.0, 1.0, n_mid * steps + 1)
-            parts.append(a + w + mid_len * cosine_grading(s, alpha))
+            parts.append(a + w + (length - 2.0 * w) * cosine_grading(s, alpha))
         parts.append(b - off)
         x = np.concatenate(parts)
     x = np.unique(x)

@@ -17,7 +17,26 @@ from functools import lru_cache
 import numpy as np
 
 from elopt.physics.bem3d import generators as gen
+from elopt.physics.bem3d.grading import axis_node_count
 from elopt.physics.bem3d.mesh import TriangleMesh
+from elopt.physics.errors import SolverError
+
+#: Most panels one surface may be meshed with: four times the 3-D solver's own limit, so the
+#: solver's level-by-level limit is the one met first in every ordinary case.
+MESH_MAX_PANELS = 5_000_000
+
+
+def _box_panels(nx: float, ny: float, nz: float) -> float:
+    """Triangles on the six faces of an nx x ny x nz node grid."""
+    return 4.0 * ((nx - 1) * (ny - 1) + (ny - 1) * (nz - 1) + (nx - 1) * (nz - 1))
+
+
+def _frame_axes(outer_m, hole_m, h_m, level, fillet_m, grade) -> tuple[float, float]:
+    ox, oy = 0.5 * outer_m[0], 0.5 * outer_m[1]
+    ix, iy = 0.5 * hole_m[0], 0.5 * hole_m[1]
+    nx = axis_node_count([-ox, -ix, ix, ox], h_m, level, fillet=fillet_m, grade=grade)
+    ny = axis_node_count([-oy, -iy, iy, oy], h_m, level, fillet=fillet_m, grade=grade)
+    return nx, ny
 
 
 class Surface(ABC):
@@ -35,9 +54,30 @@ class Surface(ABC):
     def build(self, level: int) -> TriangleMesh:
         """The mesh at ``level`` (not cached; call :meth:`mesh`)."""
 
+    def estimated_panels(self, level: int) -> float:
+        """About how many panels :meth:`mesh` makes at ``level``, found without meshing
+        (inf when too many to count; 0 when a surface cannot say)."""
+        return 0.0
+
     def mesh(self, level: int) -> TriangleMesh:
-        """The mesh at refinement ``level`` >= 0 (cached)."""
+        """The mesh at refinement ``level`` >= 0 (cached).
+
+        The panel count is estimated first: above :data:`MESH_MAX_PANELS` a SolverError gives
+        the numbers before anything is allocated.
+        """
+        estimate = self.estimated_panels(int(level))
+        if estimate > MESH_MAX_PANELS:
+            raise SolverError(
+                f"meshing this {self.describe()} at level {level} would make about "
+                f"{estimate:.3g} panels; at most {MESH_MAX_PANELS:.3g} can be meshed"
+            )
         return _cached_mesh(self, int(level))
+
+    def describe(self) -> str:
+        """A few words naming the shape and its mesh step, for messages."""
+        h = getattr(self, "h_m", None)
+        what = type(self).__name__.removesuffix("Surface").lower() or "surface"
+        return what if h is None else f"{what} (panel size {h:.3g} m)"
 
     def transformed(
         self, rotation: np.ndarray | None = None, translation_m: np.ndarray | None = None
@@ -67,6 +107,9 @@ class MeshSurface(Surface):
     base: TriangleMesh
     closed: bool = True
 
+    def estimated_panels(self, level: int) -> float:
+        return float(self.base.n_triangles) * 4.0**level
+
     def build(self, level: int) -> TriangleMesh:
         m = TriangleMesh(self.base.vertices_m, self.base.triangles, self.closed)
         for _ in range(level):
@@ -82,6 +125,9 @@ class EllipsoidSurface(Surface):
     center_m: tuple[float, float, float] = (0.0, 0.0, 0.0)
     subdivisions: int = 2
     smooth = True
+
+    def estimated_panels(self, level: int) -> float:
+        return 20.0 * 4.0 ** (self.subdivisions + level)
 
     def build(self, level: int) -> TriangleMesh:
         return gen.ellipsoid_mesh(self.semi_axes_m, self.subdivisions + level, self.center_m)
@@ -104,6 +150,9 @@ class TorusSurface(Surface):
     n_around: int = 24
     n_tube: int = 8
     smooth = True
+
+    def estimated_panels(self, level: int) -> float:
+        return 2.0 * self.n_around * self.n_tube * 4.0**level
 
     def build(self, level: int) -> TriangleMesh:
         k = 2**level
@@ -131,6 +180,15 @@ class BoxSurface(Surface):
     def smooth(self) -> bool:  # type: ignore[override]
         return self.fillet_m > 0
 
+    def estimated_panels(self, level: int) -> float:
+        n = [
+            axis_node_count(
+                [c - 0.5 * a, c + 0.5 * a], self.h_m, level, fillet=self.fillet_m, grade=self.grade
+            )
+            for a, c in zip(self.size_m, self.center_m, strict=True)
+        ]
+        return _box_panels(*n)
+
     def build(self, level: int) -> TriangleMesh:
         return gen.box_mesh(
             self.size_m,
@@ -156,6 +214,17 @@ class FrameSurface(Surface):
     grade: float = 2.0
     smooth = False
 
+    def estimated_panels(self, level: int) -> float:
+        nx, ny = _frame_axes(self.outer_m, self.hole_m, self.h_m, level, self.fillet_m, self.grade)
+        nz = axis_node_count(
+            [self.z0_m, self.z0_m + self.thickness_m],
+            self.h_m,
+            level,
+            fillet=self.fillet_m,
+            grade=self.grade,
+        )
+        return _box_panels(nx, ny, nz) + 4.0 * (nx + ny) * (nz - 1)  # + the hole's walls
+
     def build(self, level: int) -> TriangleMesh:
         return gen.frame_mesh(
             self.outer_m,
@@ -180,6 +249,13 @@ class RectangleSheetSurface(Surface):
     closed: bool = False
     smooth = False
 
+    def estimated_panels(self, level: int) -> float:
+        nx, ny = (
+            axis_node_count([-0.5 * a, 0.5 * a], self.h_m, level, fillet=0.0, grade=self.grade)
+            for a in self.size_m
+        )
+        return 2.0 * (nx - 1) * (ny - 1)
+
     def build(self, level: int) -> TriangleMesh:
         return gen.rectangle_sheet(self.size_m, self.z_m, self.h_m, level, grade=self.grade)
 
@@ -195,6 +271,10 @@ class FrameSheetSurface(Surface):
     grade: float = 2.0
     closed: bool = False
     smooth = False
+
+    def estimated_panels(self, level: int) -> float:
+        nx, ny = _frame_axes(self.outer_m, self.hole_m, self.h_m, level, 0.0, self.grade)
+        return 2.0 * (nx - 1) * (ny - 1)
 
     def build(self, level: int) -> TriangleMesh:
         return gen.frame_sheet(
@@ -217,6 +297,12 @@ class TransformedSurface(Surface):
     @property
     def smooth(self) -> bool | None:  # type: ignore[override]
         return self.base.smooth
+
+    def estimated_panels(self, level: int) -> float:
+        return self.base.estimated_panels(level)
+
+    def describe(self) -> str:
+        return self.base.describe()
 
     def build(self, level: int) -> TriangleMesh:
         m = self.base.mesh(level)

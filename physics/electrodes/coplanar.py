@@ -45,7 +45,7 @@ class CoplanarParams(pf.StackParams):
 
 @dataclass(frozen=True)
 class CoplanarOptions:
-    """``penetration``: compute the penetration depths (14 extra solves; off by default so
+    """``penetration``: compute the penetration depths (17 extra solves; off by default so
     that studies stay fast, NaN then)."""
 
     penetration: bool = parameter("", "compute the penetration depths", default=False)

@@ -35,7 +35,7 @@ from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec,
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import SolvedByProfiles
-from elopt.physics.electrodes.target_spot import radial_grid, spot_radius
+from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
 from elopt.physics.geometry import Curve, Segment, rounded_polyline
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import DielectricRegion, PlanarLayer
@@ -48,6 +48,9 @@ GUARD = "guard"
 SPACER = "spacer"
 HOUSING = "housing"
 TARGET_LAYER = "target layer"
+#: Most points of the target grid: ample for any probe whose standoff and size are within a
+#: factor of about a thousand of each other; beyond, the grid alone costs gigabytes.
+MAX_TARGET_POINTS = 100_000
 #: fF per um for a derivative in F/m.
 FF_PER_UM = 1e15 * 1e-6
 #: Key prefix of the linearity sweep's companion designs.
@@ -144,15 +147,33 @@ def sensitivity_density_F_per_m3(solution: ChargeSolution, r_m: np.ndarray) -> n
     )
 
 
-def target_grid(p: GuardedDiskParams) -> np.ndarray:
-    """Radii (M,) in m on the target resolving the density (step d/8) and its far tail."""
+def _target_grid_args(p: GuardedDiskParams) -> tuple[float, float, float]:
+    """(fine step, fine extent, outer extent) in m of the target grid of ``p``."""
     d = p.standoff_mm * MM
     outer = outer_radius_mm(p) * MM
     fine_extent = outer + 6.0 * (d + p.recess_mm * MM)
     step = min(d, p.sensor_radius_mm * MM) / 8.0
     # Beyond the guard the density decays like r**-6 (two dipole-like factors): 50x the
     # fine extent leaves far less than 1e-6 of the integral out.
-    return radial_grid(step, fine_extent, 50.0 * fine_extent)
+    return step, fine_extent, 50.0 * fine_extent
+
+
+def target_grid(p: GuardedDiskParams) -> np.ndarray:
+    """Radii (M,) in m on the target resolving the density (step d/8) and its far tail."""
+    return radial_grid(*_target_grid_args(p))
+
+
+def _check_target_grid(rules: RuleBook, p: GuardedDiskParams) -> None:
+    """Refuse a design whose target grid (see :func:`target_grid`) would be too large."""
+    step, fine_extent, outer_extent = _target_grid_args(p)
+    n = radial_grid_size(step, fine_extent, outer_extent)
+    if n > MAX_TARGET_POINTS:
+        rules.broken.append(
+            f"standoff_mm = {p.standoff_mm:.6g} with sensor_radius_mm = {p.sensor_radius_mm:.6g} "
+            f"needs a target grid of {n:.3g} points (step min(standoff_mm, sensor_radius_mm) / 8 "
+            f"= {step / MM:.3g} mm out to {fine_extent / MM:.3g} mm); at most "
+            f"{MAX_TARGET_POINTS:g}: bring the standoff and the probe's size closer together"
+        )
 
 
 def outer_radius_mm(p: GuardedDiskParams) -> float:
@@ -222,6 +243,8 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
                     f"a spacer or sleeve needs thickness_mm = {p.thickness_mm:g} > 2 fillet_mm = "
                     f"{2 * p.fillet_mm:g} (it sits on the straight walls between the fillets)"
                 )
+            if not rules.broken:  # the grid's size needs the lengths to be valid
+                _check_target_grid(rules, p)
         rules.raise_if_broken()
 
     def validate_options(self, options: GuardedDiskOptions) -> None:

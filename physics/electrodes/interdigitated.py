@@ -61,7 +61,7 @@ class InterdigitatedParams(pf.StackParams):
 class InterdigitatedOptions:
     """``end_cells``: outer cells from a 4-finger cross-section (True) or left out (False:
     C = L (N - 1)/2 C_I); ``full_cross_section``: also solve all N fingers (a check);
-    ``penetration``: compute the penetration depths (14 extra solves of the cell; off by
+    ``penetration``: compute the penetration depths (17 extra solves of the cell; off by
     default so that studies stay fast, NaN then)."""
 
     end_cells: bool = parameter("", "outer cells from a 4-finger cross-section", default=True)

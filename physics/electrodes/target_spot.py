@@ -8,19 +8,41 @@ where the density of a guarded probe decays like a power of r.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from scipy.integrate import cumulative_simpson
+
+
+def _grid_counts(
+    fine_step_m: float, fine_extent_m: float, outer_extent_m: float, growth: float
+) -> tuple[int, int]:
+    """Intervals of the uniform part and points of the geometric part of :func:`radial_grid`."""
+    n_fine = max(math.ceil(fine_extent_m / fine_step_m), 2)
+    if outer_extent_m <= fine_extent_m:
+        return n_fine, 0
+    return n_fine, math.ceil(math.log(outer_extent_m / fine_extent_m) / math.log(growth))
+
+
+def radial_grid_size(
+    fine_step_m: float, fine_extent_m: float, outer_extent_m: float, growth: float = 1.08
+) -> float:
+    """Number of radii :func:`radial_grid` returns for these arguments (nothing allocated);
+    inf when the steps under- or overflow."""
+    if not (fine_step_m > 0 and fine_extent_m / fine_step_m < 1e15):
+        return math.inf
+    n_fine, n_outer = _grid_counts(fine_step_m, fine_extent_m, outer_extent_m, growth)
+    return n_fine + 1 + n_outer
 
 
 def radial_grid(
     fine_step_m: float, fine_extent_m: float, outer_extent_m: float, growth: float = 1.08
 ) -> np.ndarray:
     """Radii (M,) in metres from 0: uniform up to ``fine_extent_m``, then geometric."""
-    n_fine = max(int(np.ceil(fine_extent_m / fine_step_m)), 2)
+    n_fine, n_outer = _grid_counts(fine_step_m, fine_extent_m, outer_extent_m, growth)
     fine = np.linspace(0.0, fine_extent_m, n_fine + 1)
-    if outer_extent_m <= fine_extent_m:
+    if n_outer == 0:
         return fine
-    n_outer = int(np.ceil(np.log(outer_extent_m / fine_extent_m) / np.log(growth)))
     outer = fine_extent_m * growth ** np.arange(1, n_outer + 1)
     return np.concatenate([fine, outer])
 

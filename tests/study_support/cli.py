@@ -44,3 +44,14 @@ def reported_complete(stdout: str) -> set[int]:
         if line.startswith("trial ") and " stored (complete)" in line:
             out.add(int(line.split()[1]))
     return out
+
+
+def run_study(tmp: Path, *, trials: int) -> tuple[Path, Path]:
+    """A small real guarded-disk study run as a user would; (config, study file)."""
+    from study_support.configs import guarded_disk_study
+
+    cfg = guarded_disk_study(tmp, trials=trials)
+    out = tmp / "probe.h5"
+    proc = run_elopt("run", cfg, "--out", out, cwd=tmp, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    return cfg, out

@@ -1,0 +1,132 @@
+"""``elopt show`` in the terminal: one trial's parameters, metrics and their roles, the
+capacitance matrix, the peak surface field and where it sits, and sigma along each conductor."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from rich.console import Console
+from rich.table import Table
+from rich.text import Text
+
+from elopt.optimizer.report.numbers import ARROW, short_number
+from elopt.optimizer.report.study_view import front_numbers, reruns, study_caution
+from elopt.optimizer.report.textplot import Series, line_plot, scatter
+from elopt.optimizer.store import StudySnapshot, TrialArrays
+
+
+def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, number: int) -> None:
+    h = snap.header
+    c = snap.columns
+    state = snap.state_names()[number]
+    info = snap.info(number)
+    feasible = state == "complete" and c["feasible"][number] == 1
+    on_front = number in set(front_numbers(snap).tolist())
+    verdict = state if state != "complete" else ("feasible" if feasible else "infeasible")
+    verdict += ", on the Pareto front" if on_front else ""
+    if state == "interrupted" and number in reruns(snap):
+        verdict = f"interrupted, then re-run as trial {reruns(snap)[number]}"
+    console.print(
+        Text(f"trial {number} of study {h.study_name} ({h.family}) — {verdict}", style="bold")
+    )
+    solve = c["solve_s"][number]
+    timing = f"solve {solve:.2f} s" if math.isfinite(solve) else "no solve"
+    console.print(
+        f"{timing}; worker {int(c['worker'][number])}; session {int(c['session'][number])}"
+    )
+    if info.get("failure"):
+        console.print(Text(f"reason: {info['failure']}", style="red"))
+    if "rerun_of" in info:
+        console.print(f"re-run of interrupted trial {info['rerun_of']}")
+
+    params = Table(title="parameters", title_justify="left")
+    for col in ("name", "value", "unit", "range"):
+        params.add_column(col, justify="right" if col == "value" else "left")
+    for k, name in enumerate(h.parameter_names):
+        rng = (
+            f"[{h.search_low[k]:g}, {h.search_high[k]:g}]{' log' if h.search_log[k] else ''}"
+            if h.parameter_searched[k]
+            else "fixed"
+        )
+        params.add_row(name, short_number(c["params"][number, k]), h.parameter_units[k], rng)
+    console.print(params)
+    if state != "complete":
+        return
+
+    metrics = Table(title="metrics", title_justify="left")
+    for col in ("name", "value", "unit", "role"):
+        metrics.add_column(col, justify="right" if col == "value" else "left")
+    for k, name in enumerate(h.metric_names):
+        roles = []
+        if name in h.objective_names:
+            roles.append(ARROW[h.objective_directions[h.objective_names.index(name)]] + "imise")
+        for j, cm in enumerate(h.constraint_metrics):
+            if cm == name:
+                ok = c["constraints"][number, j] <= 0
+                sign = "<=" if h.constraint_kinds[j] == "max" else ">="
+                roles.append(f"{sign} {h.constraint_limits[j]:g}: {'ok' if ok else 'VIOLATED'}")
+        metrics.add_row(
+            name, short_number(c["metrics"][number, k]), h.metric_units[k], ", ".join(roles)
+        )
+    console.print(metrics)
+
+    conductors = snap.conductor_names(number)
+    cap = Table(title="capacitance matrix (fF)", title_justify="left")
+    cap.add_column("")
+    for n in conductors:
+        cap.add_column(n, justify="right")
+    for i, n in enumerate(conductors):
+        cap.add_row(n, *[f"{v * 1e15:.5g}" for v in arrays.capacitance_F[i]])
+    console.print(cap)
+
+    peak = c["peak_surface_field_V_per_m"][number]
+    pc = int(c["peak_conductor"][number])
+    where = conductors[pc] if 0 <= pc < len(conductors) else "?"
+    kind = arrays.surface[0].kind if arrays.surface else "profile"
+    axes = ("x", "y", "z") if kind == "panels" else ("r", "z")
+    at = ", ".join(
+        f"{a} = {v * 1e3:.4g} mm" for a, v in zip(axes, c["peak_location_m"][number], strict=False)
+    )
+    console.print(f"peak surface field {peak:.4g} V/m ({peak * 1e-6:.3g} kV/mm) on {where} at {at}")
+    if c["peak_at_sharp_corner"][number]:
+        console.print(
+            Text(
+                "the peak sits at a sharp edge: its value depends on the mesh, not a design number "
+                "(round the edge with a fillet)",
+                style="yellow",
+            )
+        )
+    err = c["relative_error_estimate"][number]
+    met = "met" if c["accuracy_met"][number] else "NOT met"
+    console.print(f"solve error estimate {err:.2g} (requested accuracy {met})")
+    console.print()
+    for text in sigma_plot(arrays):
+        console.print(Text(text))
+    caution = study_caution(snap)
+    if caution:
+        console.print(Text(caution, style="yellow"))
+
+
+def sigma_plot(arrays: TrialArrays) -> list[str]:
+    """sigma (uC/m^2) on each conductor: a trace against arc length (mm) for profiles, one per
+    face of an open sheet; a scatter against height z (mm) for 3-D panels, which have no arc
+    length."""
+    if not arrays.surface:
+        return ["(no surface-charge profile stored)"]
+    series = []
+    used: set[str] = set()
+    panels = arrays.surface[0].kind == "panels"
+    for s in arrays.surface:
+        for face in np.unique(s.face):
+            sel = s.face == face
+            name = s.conductor + {1: " (+ face)", -1: " (- face)"}.get(int(face), "")
+            marker = next((ch for ch in name if ch.isalnum() and ch not in used), "*")
+            used.add(marker)
+            x = s.points_m[sel, -1] if panels else s.arc_length_m[sel]
+            series.append(Series(x * 1e3, s.sigma_C_per_m2[sel] * 1e6, marker, name))
+    if panels:
+        return scatter(series, x_label="height z of the panel [mm]", y_label="sigma [uC/m^2]")
+    return line_plot(
+        series, x_label="arc length along the electrode [mm]", y_label="sigma [uC/m^2]"
+    )
