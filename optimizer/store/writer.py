@@ -282,6 +282,12 @@ class StudyWriter:
         self._counts = counts
 
     def _sync(self) -> None:
+        # HDF5's flush writes the superblock's end of file before it extends the file to it; a
+        # kill in between leaves a file HDF5 refuses as truncated (seen in the kill test).
+        # Extending the file to the allocated size first closes that window.
+        allocated = self._h5.id.get_filesize()
+        if os.path.getsize(self.path) < allocated:
+            os.truncate(self.path, allocated)
         self._h5.flush()
         if self._fsync:
             os.fsync(self._h5.id.get_vfd_handle())
