@@ -12,11 +12,34 @@ import dataclasses
 from typing import Any
 
 from elopt.physics.bem3d import solve_3d
-from elopt.physics.bem_axi.solve import solve_axisymmetric
+from elopt.physics.bem_axi.mesh import build_mesh
+from elopt.physics.bem_axi.solve import default_order, solve_axisymmetric
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout
 from elopt.physics.refinement import SolveOptions
 from elopt.physics.solution import ChargeSolution
+
+#: Most unknowns the coarsest axisymmetric mesh of one solve may have. Each refinement
+#: doubles them and the error estimate needs level 1 and usually level 2: above 2,000, that
+#: is 8,000 unknowns, a dense solve of a minute or more, once per companion design too
+#: (measured: 1,608 level-0 unknowns took 39 s at rel_accuracy 1e-2 with three linearity
+#: standoffs on a loaded 2-core machine).
+MAX_COARSE_UNKNOWNS = 2_000
+
+
+def check_coarse_mesh(family: str, layout: Layout, solve_options: SolveOptions) -> None:
+    """Refuse, before any solve, a homogeneous body-of-revolution layout whose level-0 mesh
+    (cheap to build, and cached for the solve) passes :data:`MAX_COARSE_UNKNOWNS`."""
+    if not layout.homogeneous:
+        return
+    tightest = min(solve_options.rel_accuracy, solve_options.peak_rel_accuracy or 1.0)
+    n0 = build_mesh(layout, 0, solve_options.order or default_order(tightest)).n_nodes
+    if n0 > MAX_COARSE_UNKNOWNS:
+        raise ElectrodeError(
+            f"{family}: the coarsest mesh of this design already has {n0} unknowns, more than "
+            f"{MAX_COARSE_UNKNOWNS} (each refinement doubles them): a clearance such as a gap "
+            "or the standoff is far smaller than the electrodes; widen it or shrink them"
+        )
 
 
 def solve_profiles(layout: Layout, solve_options: SolveOptions) -> ChargeSolution:
@@ -35,7 +58,10 @@ def solve_panels(family: str, layout: Layout, solve_options: SolveOptions) -> Ch
 class SolvedByProfiles:
     """Mixin for families whose layouts are bodies of revolution (before ElectrodeFamily)."""
 
+    name: str
+
     def solve(self, layout: Layout, *, solve_options: SolveOptions, options: Any) -> ChargeSolution:
+        check_coarse_mesh(self.name, layout, solve_options)
         return solve_profiles(layout, solve_options)
 
 
