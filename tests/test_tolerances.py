@@ -253,3 +253,55 @@ def test_a_constraint_that_fails_within_tolerance_makes_the_trial_infeasible():
     # reproducible from the stored parameters alone (common practice: deterministic solves)
     again = evaluate_task(trial_task(spec, 1, searched))
     assert again.toleranced == outcome.toleranced
+
+
+def test_tolerant_study_stores_both_values_and_front_show_and_figure_show_them(tmp_path, capsys):
+    """End to end on the fixture family: the study file keeps nominal and toleranced values,
+    `show` lists both with the driving tolerance, `front` says the study is toleranced, and the
+    front figure draws the nominal points of the front trials."""
+    from study_support.cli import run_elopt
+    from study_support.configs import FIXTURE_STUDY
+
+    from elopt.optimizer.cli.main import main
+    from elopt.optimizer.store import read_study
+
+    text = FIXTURE_STUDY.format(trials=8, delay_s=0.0, sampler="tpe", handover=100000) + (
+        "\n[tolerance.parameters]\nwidth_mm = 0.5\n"
+        '\n[tolerance.apply]\nsize_mm = "worst"\nscore_fF = "worst"\n'
+    )
+    cfg = tmp_path / "tolerant.toml"
+    cfg.write_text(text)
+    out = tmp_path / "tolerant.h5"
+    proc = run_elopt("run", cfg, "--out", out, "--workers", "1", cwd=tmp_path, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    snap = read_study(out)
+    h = snap.header
+    k = next(i for i in range(snap.n_trials) if snap.state_names()[i] == "complete")
+    stored = snap.info(k)["tolerance"]
+    size = h.metric_names.index("size_mm")
+    # size_mm = width + gap is linear: its worst case is exactly nominal + 0.5
+    assert stored["values"]["size_mm"] == pytest.approx(snap.columns["metrics"][k, size] + 0.5)
+    assert main(["show", str(out), str(k)]) == 0
+    shown = capsys.readouterr().out
+    assert "across tolerances" in shown and "width_mm +0.5" in shown
+    assert main(["front", str(out)]) == 0
+    assert "judged across the study's tolerances" in capsys.readouterr().out
+    pytest.importorskip("matplotlib")
+    from elopt.optimizer.report.study_figures import front_figure
+
+    fig = front_figure(snap)
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert any(label.startswith("front trials at nominal") for label in labels), labels
+
+
+def test_a_design_whose_toleranced_solve_fails_is_a_failed_trial():
+    """The fixture's solve fails for 4 < width < 4.2: a nominal width of 4.6 solves, but the
+    -0.5 end of its tolerance does not. The trial must fail with that reason, never be stored
+    as complete with nominal values only."""
+    from elopt.optimizer.study.search import trial_task
+    from elopt.optimizer.study.trial_eval import evaluate_task
+
+    spec = _tolerant_fixture_spec(20.0)
+    outcome = evaluate_task(trial_task(spec, 0, {"width_mm": 4.6, "gap_mm": 1.0}))
+    assert not outcome.ok
+    assert "within tolerance (width_mm = 4.1)" in outcome.failure

@@ -77,6 +77,32 @@ def _scatter_groups(ax: Any, snap: StudySnapshot, x: str, y: str) -> None:
     ax.grid(alpha=0.3)
 
 
+def _nominal_of_front(ax: Any, snap: StudySnapshot, front: np.ndarray, x: str, y: str) -> None:
+    """In a study judged across tolerances: each front trial's nominal point, joined to its
+    toleranced (plotted) point, so the margin the tolerances cost is visible."""
+    h = snap.header
+    names = list(h.metric_names)
+    if x not in names or y not in names:
+        return
+    metrics = snap.columns["metrics"]
+    xn = metrics[front, names.index(x)]
+    yn = metrics[front, names.index(y)]
+    xt, yt = value_of(snap, x)[front], value_of(snap, y)[front]
+    for a, b, c, d in zip(xn, yn, xt, yt, strict=True):
+        ax.plot([a, c], [b, d], color=ff.FRONT_COLOUR, lw=0.7, alpha=0.5, zorder=2)
+    ax.scatter(
+        xn,
+        yn,
+        marker="D",
+        s=22,
+        facecolors="none",
+        edgecolors=ff.FRONT_COLOUR,
+        lw=0.9,
+        zorder=4,
+        label="front trials at nominal (filled: toleranced)",
+    )
+
+
 def front_figure(snap: StudySnapshot, x: str | None = None, y: str | None = None):
     """``y`` against ``x`` for every complete trial, front marked and joined in order."""
     plt = ff.pyplot()
@@ -90,6 +116,8 @@ def front_figure(snap: StudySnapshot, x: str | None = None, y: str | None = None
         xv, yv = value_of(snap, x)[front], value_of(snap, y)[front]
         order = np.argsort(xv)
         ax.plot(xv[order], yv[order], color=ff.FRONT_COLOUR, lw=1.0, alpha=0.7, zorder=3)
+    if "[tolerance" in h.config_toml and front.size:
+        _nominal_of_front(ax, snap, front, x, y)
     ax.set_title(f"study {h.study_name}: {snap.n_trials} trials", fontsize=10)
     ax.legend(fontsize=8, loc="best")
     return fig

@@ -87,8 +87,10 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
             _tolerance(out, task, family)
         out.solve_s = time.perf_counter() - t0
     except ElOptError as exc:
+        out.ok = False  # also when the nominal design solved but a toleranced one did not
         out.failure = f"{type(exc).__name__}: {exc}"
     except Exception as exc:  # a bug in a family must not end an overnight study
+        out.ok = False
         tb = traceback.extract_tb(exc.__traceback__)[-1]
         out.failure = f"unexpected {type(exc).__name__}: {exc} (at {tb.filename}:{tb.lineno})"
     out.finished_unix = time.time()
