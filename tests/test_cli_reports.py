@@ -82,9 +82,9 @@ def _fixture_study(tmp_path, n=60) -> Path:
     with StudyWriter.create(path, small_header()) as w:
         for i in range(n):
             rec = record_for(i)
-            rec.objectives = (
-                np.array([math.sin(i) * 10, math.cos(i) * 5]) if rec.feasible else rec.objectives
-            )
+            if rec.feasible:  # objectives (score_fF, size_mm) are their metrics' values
+                rec.objectives = np.array([math.sin(i) * 10, math.cos(i) * 5])
+                rec.metrics = np.array([rec.objectives[1], rec.objectives[0], rec.metrics[2]])
             w.append(rec)
     return path
 

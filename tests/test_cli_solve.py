@@ -115,16 +115,16 @@ def test_json_carries_the_design_record_and_is_strict(capsys, tmp_path):
 
 def test_an_undefined_metric_is_null_with_a_reason(capsys, tmp_path, monkeypatch):
     """Strict JSON: a metric the family could not define is null, and a warning says why."""
-    import elopt.optimizer.cli.solve as solve_cli
+    import elopt.physics.electrodes.pipeline as pipeline
 
-    real = solve_cli.evaluate_design
+    real = pipeline.evaluate_design
 
     def without_spot(*args, **kwargs):
         ev = real(*args, **kwargs)
         ev.metrics["spot_radius_90_mm"] = float("nan")
         return ev
 
-    monkeypatch.setattr(solve_cli, "evaluate_design", without_spot)
+    monkeypatch.setattr(pipeline, "evaluate_design", without_spot)
     code, out, _ = _run(capsys, "solve", _config(tmp_path, FAST_PROBE), "--json")
     assert code == 0
     rec = json.loads(out, parse_constant=_refuse_constants)
