@@ -119,6 +119,9 @@ class ChargeSolution(ABC):
     accuracy_met: bool
     n_unknowns: int
     point_dim: int
+    #: True for a cross-section per unit length ((x, z) points), False for bodies of revolution
+    #: ((r, z) points) and 3-D layouts.
+    planar: bool = False
     options: SolveOptions
     convergence: Convergence
     stop_reason: StopReason

@@ -189,7 +189,7 @@ def test_spot_radius_of_a_uniform_disk_density():
 
 def test_standards_effective_area_for_thin_electrodes_and_a_wide_guard():
     # Amey & Hamburger, Proc. ASTM 49, 1079 (1949), as used by ASTM D150/D257 (formula from
-    # memory, REFERENCES.md item 8); case and tolerance explained in elopt.physics.validation.
+    # memory, docs/references.md item 8); case and tolerance explained in elopt.physics.validation.
     (row,) = case_guarded_electrode()
     assert row.passed, row
 
@@ -247,7 +247,7 @@ def test_far_guard_leaves_the_sensor_alone():
 def test_thin_sensor_alone_tends_to_love_disk():
     # A disk of radius a at V at height d above a grounded plane carries the charge of one
     # disk of a pair at +-V/2 spaced 2d: C = 2 C_pair(2d/a), C_pair from Love's equation
-    # (Love 1949; REFERENCES.md item 7). Our sensor is a body of thickness t with rounded
+    # (Love 1949; docs/references.md item 7). Our sensor is a body of thickness t with rounded
     # rim: the difference must shrink as t -> 0.
     a, d = 1.0, 0.5
     love = 2 * love_disk_pair_capacitance(2 * d / a) * EPS0_F_PER_M * a * 1e-3

@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 import json
-import math
 
 import numpy as np
 import pytest
 import trimesh
+from reference_values import sphere_above_plane_capacitance_F
 
 from elopt.optimizer.cli.main import main
 from elopt.physics.bem3d.generators import icosphere
-from elopt.physics.layout import EPS0_F_PER_M
 
 
 def _ball(
@@ -62,18 +61,10 @@ def test_solve_json_of_a_ball_over_the_plane(tmp_path, capsys):
     ):
         assert key in rec
     # Sphere R = 2 mm, centre 3 mm above a grounded plane: image series (Smythe, Static and
-    # Dynamic Electricity, 3rd ed. (1968), ch. 5, from memory; REFERENCES 6). The file's
-    # mesh is a 320-face polyhedron inscribed in the sphere, which has a little less
+    # Dynamic Electricity, 3rd ed. (1968), ch. 5, from memory; docs/references.md item 6). The
+    # file's mesh is a 320-face polyhedron inscribed in the sphere, which has a little less
     # capacitance: compare within 2 %, and below.
-    alpha = math.acosh(3.0 / 2.0)
-    exact = (
-        4
-        * math.pi
-        * EPS0_F_PER_M
-        * 2e-3
-        * math.sinh(alpha)
-        * sum(1 / math.sinh(n * alpha) for n in range(1, 400))
-    )
+    exact = sphere_above_plane_capacitance_F(2e-3, 3e-3)
     c = rec["capacitance_matrix_F"][0][0]
     assert 0.98 * exact < c < exact
     assert rec["sense_capacitance_F"] == pytest.approx(c, rel=1e-12)

@@ -87,8 +87,14 @@ def design_figure(
 # ----------------------------------------------------------------------------- cross-section
 
 
-def _frame(layout: Layout) -> tuple[float, float, float, float]:
+def _frame(layout: Layout, planar: bool = False) -> tuple[float, float, float, float]:
     pts = np.concatenate([c.shape.sample(32) for c in layout.conductors])
+    if planar:  # a cross-section per unit length: both sides of x = 0, room below for layers
+        x_lo, x_hi = float(pts[:, 0].min()), float(pts[:, 0].max())
+        z_lo, z_hi = float(pts[:, 1].min()), float(pts[:, 1].max())
+        span = max(x_hi - x_lo, z_hi - z_lo)
+        bottom = 0.0 if layout.ground_plane else z_lo - 0.35 * span
+        return x_lo - 0.12 * span, x_hi + 0.12 * span, bottom, z_hi + 0.35 * span
     r_max = float(pts[:, 0].max())
     z_lo, z_hi = float(pts[:, 1].min()), float(pts[:, 1].max())
     bottom = 0.0 if layout.ground_plane or z_lo >= 0 else z_lo - 0.3 * (z_hi - z_lo)
@@ -246,7 +252,10 @@ def _draw_section(ax: Any, evaluation: Evaluation, frame, mirror: bool) -> None:
     ax.set_xlim(r0 / MM, r1 / MM)
     ax.set_ylim(z0 / MM, z1 / MM)
     ax.set_aspect("equal")
-    ax.set_xlabel("r (mm), axis of revolution at r = 0")
+    if getattr(sol, "planar", False):
+        ax.set_xlabel("x (mm), cross-section per unit length")
+    else:
+        ax.set_xlabel("r (mm), axis of revolution at r = 0")
     ax.set_ylabel("z (mm)")
     ax.legend(loc="upper left", fontsize=7, framealpha=0.9)
 
@@ -254,7 +263,7 @@ def _draw_section(ax: Any, evaluation: Evaluation, frame, mirror: bool) -> None:
 def _figure_section(evaluation: Evaluation, title: str, breakdown: float | None, mirror: bool):
     plt = ff.pyplot()
     layout = evaluation.solution.layout
-    frame = _frame(layout)
+    frame = _frame(layout, planar=bool(getattr(evaluation.solution, "planar", False)))
     aspect = (frame[3] - frame[2]) / (frame[1] - frame[0])
     width = 10.0
     top_h = float(np.clip(width * 0.9 * aspect, 2.6, 6.5))

@@ -94,7 +94,8 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
         line.append(
             f"   (changed {100 * peak.rel_error_estimate:.2g}% on the last refinement)", style="dim"
         )
-    names = ("r", "z") if len(where) == 2 else ("x", "y", "z")
+    planar = bool(getattr(evaluation.solution, "planar", False))
+    names = ("x", "z") if planar else ("r", "z") if len(where) == 2 else ("x", "y", "z")
     at = ", ".join(f"{n} = {v:.4g} mm" for n, v in zip(names, where, strict=True))
     out = [line, Text(f"  on {peak.conductor} at {at}")]
     if spec.breakdown_field_V_per_m is not None:
@@ -185,7 +186,9 @@ def render_solve_report(
     peak = evaluation.solution.peak_field
     # A pair solved above its mid-plane says so; its picture shows the mirror electrode too.
     mirror = bool(family.mirror_pair)
-    if evaluation.solution.point_dim == 2:  # a 3-D layout has no (r, z) cross-section
+    planar = bool(getattr(evaluation.solution, "planar", False))
+    # A 3-D layout has no cross-section; the text picture draws bodies of revolution only.
+    if evaluation.solution.point_dim == 2 and not planar:
         picture = section_picture(
             evaluation.solution.layout,
             marker_m=tuple(peak.location_m),

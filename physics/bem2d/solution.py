@@ -32,6 +32,7 @@ class Solution2D(ChargeSolution):
     """
 
     point_dim = 2
+    planar = True
 
     def __init__(self, problem: Problem2D, refinement: Refinement) -> None:
         self._adopt(refinement)

@@ -413,7 +413,7 @@ def effective_area_amey_hamburger_m2(
     A = pi (d1 + B g)^2 / 4, B = 1 - 2 delta / g, delta = t (2/pi) ln cosh(pi g / (4 t)),
     d1 the guarded electrode's diameter, g the guard gap, t the spacing to the opposite
     electrode. Amey & Hamburger, Proc. ASTM 49, 1079 (1949), as used by ASTM D150 / D257
-    (formula from memory, see REFERENCES.md item 8).
+    (formula from memory, see docs/references.md item 8).
 
     The formula lets no field through the gap (the limit of a specimen much more permittive
     than the space behind the electrodes). For a vacuum gap, as here, the field leaking through
