@@ -72,16 +72,8 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
     try:
         family = _family(task.family_ref)
         params = family.Params(**task.params)
-        options = family.Options(**task.options)
         t0 = time.perf_counter()
-        evaluation = evaluate_design(
-            family,
-            params,
-            rel_accuracy=task.rel_accuracy,
-            peak_rel_accuracy=task.peak_rel_accuracy,
-            eps_r=task.eps_r,
-            options=options,
-        )
+        evaluation = _evaluate(family, params, task)
         _fill(out, family, params, evaluation, task)
         if out.ok and task.tolerance is not None:
             _tolerance(out, task, family)
@@ -97,21 +89,24 @@ def evaluate_task(task: TrialTask) -> TrialOutcome:
     return out
 
 
+def _evaluate(family: ElectrodeFamily, params: Any, task: TrialTask) -> Any:
+    """The pipeline with the task's accuracy, medium and evaluation options."""
+    return evaluate_design(
+        family,
+        params,
+        rel_accuracy=task.rel_accuracy,
+        peak_rel_accuracy=task.peak_rel_accuracy,
+        eps_r=task.eps_r,
+        options=family.Options(**task.options),
+    )
+
+
 def _tolerance(out: TrialOutcome, task: TrialTask, family: ElectrodeFamily) -> None:
     """Toleranced values of the treated metrics; every deviation runs the same pipeline."""
-    options = family.Options(**task.options)
 
     def evaluate(values: dict[str, float]) -> dict[str, float]:
-        params = family.Params(**values)
         try:
-            evaluation = evaluate_design(
-                family,
-                params,
-                rel_accuracy=task.rel_accuracy,
-                peak_rel_accuracy=task.peak_rel_accuracy,
-                eps_r=task.eps_r,
-                options=options,
-            )
+            evaluation = _evaluate(family, family.Params(**values), task)
         except ElOptError as exc:
             moved = {k: v for k, v in values.items() if v != task.params.get(k)}
             shown = ", ".join(f"{k} = {v:.6g}" for k, v in moved.items())
