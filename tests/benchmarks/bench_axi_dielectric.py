@@ -22,6 +22,7 @@ from elopt.physics.electrodes.guarded_disk import GuardedDiskParams, guard_curve
 from elopt.physics.geometry import Curve, Segment
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import DielectricRegion, PlanarLayer
+from elopt.physics.threads import limit_blas_threads
 
 MM = 1e-3
 CONFIG = Path(__file__).resolve().parents[2] / "configs" / "spindle_runout_probe.toml"
@@ -67,6 +68,7 @@ def c_sense(sol) -> float:
 
 
 def main() -> None:
+    limit_blas_threads()  # as the elopt command does; children inherit it
     repeats = int(sys.argv[1]) if len(sys.argv) > 1 else 3
     p = probe_params()
     rows = []

@@ -17,6 +17,7 @@ from pathlib import Path
 from elopt.optimizer.config.solve_config import read_solve_config
 from elopt.physics.electrodes.guarded_disk import GuardedDiskOptions
 from elopt.physics.electrodes.registry import get_family
+from elopt.physics.threads import limit_blas_threads
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -32,6 +33,7 @@ def median_seconds(fn, repeats: int) -> float:
 
 
 def main() -> None:
+    limit_blas_threads()  # as the elopt command does; children inherit it
     repeats = int(sys.argv[1]) if len(sys.argv) > 1 else 7
     rows = []
     for name in ("spindle_runout_probe", "hv_test_cell"):

@@ -143,6 +143,14 @@ def report(rows: list[dict], small: int) -> None:
 
 
 def main() -> None:
+    # As the elopt command does: one BLAS thread per process (children inherit it) and
+    # optuna's per-trial lines off.
+    import optuna
+
+    from elopt.physics.threads import limit_blas_threads
+
+    limit_blas_threads()
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
     ap = argparse.ArgumentParser()
     ap.add_argument("--small", type=int, default=200)
     ap.add_argument("--large", type=int, default=3000, help="0 skips the large study")

@@ -20,12 +20,15 @@ import sys
 import tempfile
 from pathlib import Path
 
+from elopt.physics.threads import limit_blas_threads
+
 sys.path.insert(0, str(Path(__file__).parent))
 
 from bench_study import bare_speedup, measure, replay_speedup  # noqa: E402
 
 
 def main() -> None:
+    limit_blas_threads()  # as the elopt command does; children inherit it
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--trials", type=int, default=40)
     args = ap.parse_args()

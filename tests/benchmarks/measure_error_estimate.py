@@ -36,6 +36,7 @@ from elopt.physics.bem_axi.solve import (  # noqa: E402
     NOISE_FLOORS,
     solve_axisymmetric,
 )
+from elopt.physics.threads import limit_blas_threads  # noqa: E402
 
 
 def _levels(solver: str, case, order: int | None):
@@ -67,6 +68,7 @@ class _OwnReference:
 
 
 def main() -> None:
+    limit_blas_threads()  # as the elopt command does; children inherit it
     series = []
     rows: dict[str, list[tuple[str, int, float, float]]] = {
         "C": [],
