@@ -1,4 +1,4 @@
-"""One test per class of bad input found in issue 14: each cause fixed at its root.
+"""One test per class of bad input found by a careless-user sweep: each cause fixed at its root.
 
 Tracebacks, unbounded work, silent wrong answers, a false refusal, and errors that do not
 help. The property-based sweep over the same ground is ``test_bad_input_contract.py``.

@@ -1,4 +1,4 @@
-"""Property-based check of the command line's bad-input contract (issue 14).
+"""Property-based check of the command line's bad-input contract.
 
 Hypothesis draws careless edits of the demo configs, configs damaged on disk, damaged STL
 files, valid designs at their limits and mutated studies (``tests/fuzz_support/cases.py``);
