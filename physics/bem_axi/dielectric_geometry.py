@@ -385,7 +385,9 @@ def piece_media(
         pts = piece.points(t)
         tan = piece.tangents(t)
         nrm = normal_sign * np.stack([tan[:, 1], -tan[:, 0]], axis=1)
-        off = 1e-3 * min(piece.length, size)
+        # Small: a piece leaving a layer face tangentially (a rim resting on a sheet) is only
+        # a hair above the face at its probe points.
+        off = 1e-6 * min(piece.length, size)
         for col, side in ((0, 1.0), (1, -1.0)):
             eps = geom.eps_r_at(pts + side * off * nrm)
             if np.ptp(eps) > 0:

@@ -42,6 +42,19 @@ COUPLING = MetricSpec(
 PAIR_CAPACITANCE = MetricSpec(
     "pair_capacitance_pF", "pF", "capacitance between the two electrodes", "either"
 )
+SPECIMEN_EPS_INFERRED = MetricSpec(
+    "specimen_eps_r_inferred",
+    "1",
+    "specimen eps_r the guarded-electrode effective-area formula infers from the capacitance "
+    "(no specimen: nan)",
+    "either",
+)
+SPECIMEN_EPS_ERROR = MetricSpec(
+    "specimen_eps_r_error_pct",
+    "%",
+    "error of that inferred eps_r against the specimen's own (no specimen: nan)",
+    "either",
+)
 
 # ---------------------------------------------------------------- probe response
 SENSITIVITY = MetricSpec(

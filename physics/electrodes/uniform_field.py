@@ -12,11 +12,18 @@ of radius R_f that blends into its rim through a curvature ramp and an edge arc 
   face directly, a flat disk with a rounded rim);
 - ``edge_radius_mm`` R_e: radius of the edge arc the ramp ends in (and of the back corner);
 - ``back_thickness_mm`` T: face-to-back thickness of one electrode;
-- ``drive_V`` V: voltage between the two electrodes.
+- ``drive_V`` V: voltage between the two electrodes;
+- ``specimen_um`` h and ``specimen_eps_r``: an optional specimen sheet between the electrodes
+  (0: none), centred on the mid-plane so that the mirror pair stays exact; h = G fills the gap
+  (a sheet clamped between the electrodes). It extends to infinity in r, a planar layer
+  ``|z| <= h/2`` (in the solver: ``0 <= z <= h/2`` over the grounded mid-plane).
 
 The overall radius follows: R_o = R_f + (radial reach of ramp and edge arc).
 Metrics: centre field on the mid-plane, radius over which |E| on the mid-plane stays within
 a tolerance of it, peak surface field with its ratio to the centre field and where it sits.
+With a specimen: the eps_r the guarded-electrode effective-area formula would infer from the
+computed capacitance, and its error against the specimen's eps_r (see
+:func:`inferred_specimen_eps_r`).
 """
 
 from __future__ import annotations
@@ -33,11 +40,14 @@ from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec,
 from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import SolvedByProfiles
-from elopt.physics.layout import Layout, driven
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.media import PlanarLayer
 from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
+UM = 1e-6
 ELECTRODE = "electrode"
+SPECIMEN = "specimen"
 
 
 @dataclass(frozen=True)
@@ -50,6 +60,10 @@ class UniformFieldParams:
     edge_radius_mm: float = parameter("mm", "edge arc radius R_e", low=0, low_open=True)
     back_thickness_mm: float = parameter("mm", "face-to-back thickness T", low=0, low_open=True)
     drive_V: float = parameter("V", "voltage between the electrodes", nonzero=True)
+    specimen_um: float = parameter(
+        "um", "thickness of the specimen sheet centred in the gap (0: none)", default=0.0, low=0
+    )
+    specimen_eps_r: float = parameter("1", "eps_r of the specimen sheet", default=3.0, low=1)
 
 
 @dataclass(frozen=True)
@@ -73,9 +87,38 @@ def overall_radius_m(p: UniformFieldParams) -> float:
     return p.flat_radius_mm * MM + reach
 
 
+def specimen_layers(p: UniformFieldParams) -> tuple[PlanarLayer, ...]:
+    """The specimen sheet's upper half over the mid-plane, if any."""
+    if p.specimen_um <= 0:
+        return ()
+    return (PlanarLayer(SPECIMEN, p.specimen_eps_r, 0.0, 0.5 * p.specimen_um * UM),)
+
+
+def inferred_specimen_eps_r(c_pair_F: float, p: UniformFieldParams) -> float:
+    """eps_r the guarded-electrode effective-area formula infers from the pair's capacitance.
+
+    The formula (docs/references.md item 8) is A = pi (d1 + B g)^2 / 4, B g = g - 2 delta,
+    delta = t (2/pi) ln cosh(pi g / (4 t)), for an electrode of diameter d1 on a specimen of
+    thickness t over the opposite electrode. By the mirror symmetry each half of this cell is
+    such an electrode (d1 = 2 R_f, the flat face) on half the specimen, t = h/2, over the
+    mid-plane, with no guard: g -> inf, where ln cosh x -> x - ln 2 gives B g -> (4 ln 2 / pi) t.
+    Then C_pair = eps0 eps_r A / h. The formula assumes the electrodes touch the specimen.
+    """
+    h = p.specimen_um * UM
+    d1 = 2.0 * p.flat_radius_mm * MM
+    area = 0.25 * math.pi * (d1 + 4.0 * math.log(2.0) / math.pi * 0.5 * h) ** 2
+    return c_pair_F * h / (EPS0_F_PER_M * area)
+
+
 def midplane_field_V_per_m(solution: ChargeSolution, r_m: np.ndarray) -> np.ndarray:
-    """|E| on the mid-plane at radii (M,) -> (M,): the plane's |sigma| / eps (field normal)."""
-    return np.abs(solution.plane_charge_density(r_m)) / solution.layout.eps_F_per_m
+    """|E| on the mid-plane at radii (M,) -> (M,): the field there is normal to the plane.
+
+    Bare gap: the plane's |sigma| / eps. With a specimen the field in it, at the plane.
+    """
+    if not solution.layout.layers:
+        return np.abs(solution.plane_charge_density(r_m)) / solution.layout.eps_F_per_m
+    r = np.asarray(r_m, dtype=float)
+    return np.abs(solution.field_at(np.stack([r, np.zeros_like(r)], axis=1))[:, 1])
 
 
 def uniform_radius_m(
@@ -118,6 +161,8 @@ class UniformField(SolvedByProfiles, ElectrodeFamily):
         m.PEAK_Z,
         m.OVERALL_RADIUS,
         m.PAIR_CAPACITANCE,
+        m.SPECIMEN_EPS_INFERRED,
+        m.SPECIMEN_EPS_ERROR,
     )
 
     def validate(self, params: UniformFieldParams) -> None:
@@ -141,6 +186,12 @@ class UniformField(SolvedByProfiles, ElectrodeFamily):
                     f"front rise {rise / MM:.6g} + edge_radius_mm",
                     "the edge profile would not close at the back",
                 )
+                rules.at_most(
+                    "specimen_um",
+                    p.gap_mm * 1e3,
+                    "gap_mm * 1000",
+                    "a specimen thicker than the gap would bury the electrodes",
+                )
         rules.raise_if_broken()
 
     def build(
@@ -158,6 +209,7 @@ class UniformField(SolvedByProfiles, ElectrodeFamily):
             conductors=(driven(ELECTRODE, curve, 0.5 * params.drive_V),),
             eps_r=eps_r,
             ground_plane=True,
+            layers=specimen_layers(params),
         )
 
     def measure(
@@ -185,7 +237,13 @@ class UniformField(SolvedByProfiles, ElectrodeFamily):
             m.PEAK_Z.name: float(peak.location_m[1]) / MM,
             m.OVERALL_RADIUS.name: r_out / MM,
             m.PAIR_CAPACITANCE.name: c_pair * 1e12,
+            m.SPECIMEN_EPS_INFERRED.name: float("nan"),
+            m.SPECIMEN_EPS_ERROR.name: float("nan"),
         }
+        if params.specimen_um > 0:
+            inferred = inferred_specimen_eps_r(c_pair, params)
+            metrics[m.SPECIMEN_EPS_INFERRED.name] = inferred
+            metrics[m.SPECIMEN_EPS_ERROR.name] = 100.0 * (inferred / params.specimen_eps_r - 1)
         extra: dict[str, Any] = {
             "sense_capacitance_F": c_pair,
             "sense_capacitance_meaning": "capacitance between the two electrodes (Q / V)",
