@@ -411,26 +411,39 @@ def _sphere_stl(splits: int) -> bytes:
     return head + rows.tobytes()
 
 
-def test_a_mesh_file_beyond_the_solver_names_the_file(tmp_path):
-    # 8 * 4**8 = 524288 triangles: 2.1e6 panels at level 1, above the solver's 1.25e6.
-    stl = tmp_path / "dense.stl"
-    stl.write_bytes(_sphere_stl(8))
+def _dense_mesh_file_config(tmp_path: Path, splits: int, count: int) -> Path:
+    (tmp_path / "dense.stl").write_bytes(_sphere_stl(splits))
+    conductors = [
+        {"name": f"c{k}", "file": "dense.stl", "length_unit": "mm", "potential_V": 5.0}
+        for k in range(count)
+    ]
     table = {
-        "geometry": {
-            "family": "mesh_file",
-            "ground_plane": True,
-            "conductors": [
-                {"name": "dense", "file": "dense.stl", "length_unit": "mm", "potential_V": 5.0}
-            ],
-        },
+        "geometry": {"family": "mesh_file", "ground_plane": True, "conductors": conductors},
         "evaluation": {"max_level": 1},
     }
-    spec = read_solve_config(_write(tmp_path, toml_text(table)))
+    return _write(tmp_path, toml_text(table))
+
+
+def test_a_mesh_file_beyond_the_solver_names_the_file_before_checking_it(tmp_path):
+    # 8 * 4**8 = 524288 triangles: 2.1e6 panels at level 1, above the solver's 1.25e6.
+    spec = read_solve_config(_dense_mesh_file_config(tmp_path, 8, 1))
+    t0 = time.perf_counter()
+    with pytest.raises(ElectrodeError) as info:
+        get_family("mesh_file").build(spec.params)
+    assert time.perf_counter() - t0 < 10.0  # refused before the surface checks
+    line = str(info.value)
+    assert f"the file {tmp_path / 'dense.stl'} has 524288 triangles, more than the 312500" in line
+
+
+@pytest.mark.slow
+def test_mesh_files_beyond_the_solver_together_name_the_largest(tmp_path):
+    # Three files of 8 * 4**7 = 131072 triangles each: 1.57e6 panels at level 1.
+    spec = read_solve_config(_dense_mesh_file_config(tmp_path, 7, 3))
     with pytest.raises(ElectrodeError) as info:
         get_family("mesh_file").build(spec.params)
     line = str(info.value)
-    assert f"the mesh file {stl} of 'dense' has 524288 triangles" in line, line
-    assert "about 2.1e+06 panels at refinement level 1, more than the solver's 1.25e+06" in line
+    assert f"the mesh file {tmp_path / 'dense.stl'} of 'c0' has 131072 triangles" in line, line
+    assert "about 1.57e+06 panels at refinement level 1, more than the solver's 1.25e+06" in line
 
 
 DRIVEN = [

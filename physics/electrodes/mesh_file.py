@@ -43,6 +43,7 @@ from elopt.physics.electrodes.base import (
 from elopt.physics.electrodes.guarded_pad import spot_radius_m
 from elopt.physics.electrodes.solvers import (
     ESTIMATE_LEVEL,
+    MAX_SOLVE_PANELS,
     SolvedByPanels,
     estimated_panels,
     refuse_too_many_panels,
@@ -180,7 +181,11 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
         for s in params.conductors:
             try:
                 surface = load_mesh_surface(
-                    s.file, length_unit=s.length_unit, closed=s.closed, name=s.name
+                    s.file,
+                    length_unit=s.length_unit,
+                    closed=s.closed,
+                    name=s.name,
+                    max_triangles=MAX_SOLVE_PANELS // 4**ESTIMATE_LEVEL,
                 )
             except GeometryError as exc:
                 raise ElectrodeError(f"{self.name}: {exc}") from None
