@@ -6,6 +6,7 @@ help. The property-based sweep over the same ground is ``test_bad_input_contract
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import os
@@ -29,13 +30,17 @@ from elopt.physics.bem3d.mesh_io import load_mesh_surface
 from elopt.physics.bem3d.surfaces import BoxSurface, FrameSheetSurface, FrameSurface
 from elopt.physics.electrodes.guarded_disk import (
     GuardedDisk,
+    GuardedDiskOptions,
     GuardedDiskParams,
     guard_curve,
 )
-from elopt.physics.electrodes.guarded_pad import GuardedPad, GuardedPadParams
+from elopt.physics.electrodes.guarded_pad import GuardedPad, GuardedPadOptions, GuardedPadParams
+from elopt.physics.electrodes.pipeline import evaluate_design
+from elopt.physics.electrodes.registry import FAMILIES, get_family
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size
 from elopt.physics.errors import ElectrodeError, ElOptError, GeometryError, SolverError
 
+REPO = Path(__file__).resolve().parents[1]
 DISK = base_solve_configs()["guarded_disk"]
 DISK_PARAMS = GuardedDiskParams(2.0, 0.2, 1.5, 1.0, 0.1, 0.5, 10.0)
 
@@ -246,7 +251,10 @@ def test_an_undefined_sense_capacitance_is_null_with_a_reason(capsys, tmp_path, 
 
     rec = json.loads(out, parse_constant=refuse)
     assert rec["sense_capacitance_fF"] is None and rec["sense_capacitance_F"] is None
-    assert any(w.startswith("sense_capacitance_fF is undefined") for w in rec["warnings"])
+    assert any(
+        w.startswith("sense_capacitance_fF is undefined") and why in w and "'tip'" in w
+        for w in rec["warnings"]
+    ), rec["warnings"]
     for name in rec["metric_units"]:
         assert rec[name] is not None or any(w.startswith(name) for w in rec["warnings"])
 
@@ -347,3 +355,156 @@ def test_a_nanometre_guard_gap_is_refused_before_any_solve():
     with pytest.raises(ElectrodeError, match="5576 unknowns, more than 2000"):
         GuardedDisk().evaluate(p, rel_accuracy=1e-3)
     assert time.perf_counter() - t0 < 20.0  # one level-0 mesh, no solve
+
+
+# ------------------------------------------------------------------ lost checks, restored
+
+
+@pytest.mark.parametrize(
+    "params, options, words",
+    [
+        (
+            GuardedPadParams(4e-6, 3.0, 0.2, 1.5, 0.5, 0.0, 0.5, 10.0),
+            GuardedPadOptions(),
+            ["pad_length_mm = 4e-06 sets the panel size", "1.25e+06"],
+        ),
+        (
+            GuardedPadParams(4.0, 3.0, 0.2, 1e-4, 0.5, 0.0, 0.5, 10.0),
+            GuardedPadOptions(),
+            ["guard_width_mm = 0.0001 sets the panel size", "1.25e+06"],
+        ),
+        (
+            GuardedPadParams(4.0, 3.0, 0.2, 1.5, 0.5, 0.0, 0.5, 10.0),
+            GuardedPadOptions(mesh_step_mm=0.004),
+            ["mesh_step_mm = 0.004", "guard of 7.4 x 6.4 mm", "1.25e+06"],
+        ),
+    ],
+)
+def test_a_pad_mesh_beyond_the_solver_names_the_parameter_before_meshing(params, options, words):
+    t0 = time.perf_counter()
+    with pytest.raises(ElectrodeError) as info:
+        evaluate_design(GuardedPad(), params, rel_accuracy=1e-2, options=options)
+    assert time.perf_counter() - t0 < 10.0  # counted, not meshed
+    line = str(info.value)
+    assert "\n" not in line and line.startswith("guarded_pad: ")
+    for w in words:
+        assert w in line, (w, line)
+
+
+def _sphere_stl(splits: int) -> bytes:
+    """A binary STL of an octahedron split ``splits`` times onto a 2 mm sphere at z = 3 mm
+    (8 * 4**splits triangles)."""
+    v = np.array([[1, 0, 0], [-1, 0, 0], [0, 1, 0], [0, -1, 0], [0, 0, 1], [0, 0, -1]], float)
+    faces = [(0, 2, 4), (2, 1, 4), (1, 3, 4), (3, 0, 4), (2, 0, 5), (1, 2, 5), (3, 1, 5), (0, 3, 5)]
+    tris = v[np.array(faces)]
+    for _ in range(splits):
+        a, b, c = tris[:, 0], tris[:, 1], tris[:, 2]
+        ab, bc, ca = (a + b) / 2, (b + c) / 2, (c + a) / 2
+        tris = np.concatenate(
+            [np.stack(t, axis=1) for t in ((a, ab, ca), (ab, b, bc), (ca, bc, c), (ab, bc, ca))]
+        )
+    tris = 2.0 * tris / np.linalg.norm(tris, axis=2, keepdims=True) + [0.0, 0.0, 3.0]
+    record = np.dtype([("n", "<f4", 3), ("v", "<f4", (3, 3)), ("attr", "<u2")])
+    rows = np.zeros(len(tris), dtype=record)
+    rows["v"] = tris
+    head = b"elopt test sphere".ljust(80, b" ") + np.uint32(len(tris)).tobytes()
+    return head + rows.tobytes()
+
+
+def _dense_mesh_file_config(tmp_path: Path, splits: int, count: int) -> Path:
+    (tmp_path / "dense.stl").write_bytes(_sphere_stl(splits))
+    conductors = [
+        {"name": f"c{k}", "file": "dense.stl", "length_unit": "mm", "potential_V": 5.0}
+        for k in range(count)
+    ]
+    table = {
+        "geometry": {"family": "mesh_file", "ground_plane": True, "conductors": conductors},
+        "evaluation": {"max_level": 1},
+    }
+    return _write(tmp_path, toml_text(table))
+
+
+def test_a_mesh_file_beyond_the_solver_names_the_file_before_checking_it(tmp_path):
+    # 8 * 4**8 = 524288 triangles: 2.1e6 panels at level 1, above the solver's 1.25e6.
+    spec = read_solve_config(_dense_mesh_file_config(tmp_path, 8, 1))
+    t0 = time.perf_counter()
+    with pytest.raises(ElectrodeError) as info:
+        get_family("mesh_file").build(spec.params)
+    assert time.perf_counter() - t0 < 10.0  # refused before the surface checks
+    line = str(info.value)
+    assert f"the file {tmp_path / 'dense.stl'} has 524288 triangles, more than the 312500" in line
+
+
+@pytest.mark.slow
+def test_mesh_files_beyond_the_solver_together_name_the_largest(tmp_path):
+    # Three files of 8 * 4**7 = 131072 triangles each: 1.57e6 panels at level 1.
+    spec = read_solve_config(_dense_mesh_file_config(tmp_path, 7, 3))
+    with pytest.raises(ElectrodeError) as info:
+        get_family("mesh_file").build(spec.params)
+    line = str(info.value)
+    assert f"the mesh file {tmp_path / 'dense.stl'} of 'c0' has 131072 triangles" in line, line
+    assert "about 1.57e+06 panels at refinement level 1, more than the solver's 1.25e+06" in line
+
+
+DRIVEN = [
+    f for f in FAMILIES.values() if "drive_V" in f.parameter_names() and f.name != "mesh_file"
+]
+
+
+@pytest.mark.parametrize("family", DRIVEN, ids=lambda f: f.name)
+@pytest.mark.parametrize("drive_V", [5e-324, 1e-7, -1e-7, 0.0, 1.1e7, -2e7])
+def test_every_drive_outside_1_uV_to_10_MV_is_refused_by_its_declaration(family, drive_V):
+    info = next(s.info for s in family.parameters() if s.name == "drive_V")
+    broken = info.broken_rule("drive_V", drive_V)
+    assert broken is not None and broken.startswith("drive_V = ")
+
+
+@pytest.mark.parametrize("family", DRIVEN, ids=lambda f: f.name)
+@pytest.mark.parametrize("drive_V", [1e-6, -1e-6, 1e7, -1e7, 10.0])
+def test_every_drive_inside_1_uV_to_10_MV_is_accepted(family, drive_V):
+    info = next(s.info for s in family.parameters() if s.name == "drive_V")
+    assert info.broken_rule("drive_V", drive_V) is None
+
+
+def test_a_subnormal_drive_is_one_line_from_solve(capsys, tmp_path):
+    text = (REPO / "configs" / "hv_test_cell.toml").read_text(encoding="utf-8")
+    lines = ["drive_V = 5e-324" if ln.startswith("drive_V") else ln for ln in text.splitlines()]
+    cfg = _write(tmp_path, "\n".join(lines) + "\n")
+    code, out, err = _cli(capsys, "solve", str(cfg))
+    assert out == ""
+    _one_line_refusal(code, err, "drive_V = 4.94066e-324", "|drive_V| in [1e-06, 1e+07]")
+
+
+def test_a_mesh_file_drive_above_10_MV_is_refused(tmp_path):
+    cfg = _mesh_file_config(tmp_path, "potential_V = 2e7")
+    with pytest.raises(ConfigError, match=r"drive_V = 2e\+07 must have \|drive_V\|"):
+        read_solve_config(cfg)
+
+
+def test_a_rule_broken_at_the_nearest_linearity_standoff_is_refused_before_any_solve():
+    # A 0.3 mm layer clears the 0.5 mm standoff but not the sweep's nearest, 0.25 mm.
+    p = dataclasses.replace(DISK_PARAMS, target_layer_um=300.0)
+    GuardedDisk().validate(p)
+    t0 = time.perf_counter()
+    with pytest.raises(ElectrodeError) as info:
+        evaluate_design(GuardedDisk(), p, rel_accuracy=1e-2, options=GuardedDiskOptions())
+    assert time.perf_counter() - t0 < 5.0  # refused before the nominal solve
+    line = str(info.value)
+    for w in (
+        "nearest linearity standoff, standoff_mm = 0.25",
+        "linearity_range_fraction = 0.5",
+        "target_layer_um = 300",
+    ):
+        assert w in line, (w, line)
+    skip = GuardedDiskOptions(linearity_points=0)
+    GuardedDisk().validate_design(p, skip)  # no sweep: nothing nearer to break
+
+
+def test_a_geometry_error_the_rules_miss_names_the_disk_parameters():
+    p = dataclasses.replace(DISK_PARAMS, guard_gap_mm=1e-12)
+    GuardedDisk().validate(p)  # the rules let it through; the geometry layer does not
+    with pytest.raises(ElectrodeError) as info:
+        GuardedDisk().build(p)
+    line = str(info.value)
+    assert line.startswith("guarded_disk: these parameters give no valid cross-section")
+    assert "guard_gap_mm = 1e-12" in line and "sensor_radius_mm = 2" in line

@@ -137,7 +137,7 @@ def test_family_listing_shows_parameters_units_and_ranges():
     assert by_name["sensor_radius_mm"]["allowed"] == "(0, inf)"
     assert by_name["sensor_radius_mm"]["required"] is True
     assert by_name["recess_mm"]["default"] == 0.0 and by_name["recess_mm"]["allowed"] == "[0, inf)"
-    assert by_name["drive_V"]["allowed"] == "!= 0"
+    assert by_name["drive_V"]["allowed"] == "|value| in [1e-06, 1e+07], != 0"
     options = {p["name"]: p for p in disk["options"]}
     assert options["linearity_points"]["allowed"] == "whole number in [0, 25]"
     pad = {p.name: p for p in listing["guarded_pad"].parameters}

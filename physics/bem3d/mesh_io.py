@@ -86,12 +86,18 @@ def _stl_arrays(corners: np.ndarray, label: str, path: Path) -> tuple[np.ndarray
 
 
 def load_mesh_surface(
-    path: str | Path, *, length_unit: str, closed: bool = True, name: str | None = None
+    path: str | Path,
+    *,
+    length_unit: str,
+    closed: bool = True,
+    name: str | None = None,
+    max_triangles: int | None = None,
 ) -> MeshSurface:
     """Read ``path`` (STL, OBJ or PLY) in ``length_unit`` and return a checked surface.
 
     ``closed`` declares whether the mesh bounds a solid (True) or is an open thin sheet.
-    ``name`` (default: the file name) appears in error messages.
+    ``name`` (default: the file name) appears in error messages. A file of more than
+    ``max_triangles`` triangles (None: no limit) is refused before the (costly) checks.
     """
     p = Path(path)
     label = name or p.name
@@ -107,6 +113,12 @@ def load_mesh_surface(
     if not p.is_file():
         raise GeometryError(f"mesh '{label}': no such file {p}")
     vertices, faces = _read(p, label)
+    if max_triangles is not None and len(faces) > max_triangles:
+        raise GeometryError(
+            f"mesh '{label}': the file {p} has {len(faces)} triangles, more than the "
+            f"{max_triangles} a solve can take (each refinement level multiplies them by 4); "
+            "coarsen that mesh"
+        )
     scale = LENGTH_UNITS[length_unit]
     size = float(np.max(np.ptp(vertices, axis=0))) if len(vertices) else 0.0
     if not size > 0:

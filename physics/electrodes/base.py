@@ -42,7 +42,8 @@ class ParameterInfo:
     """What a parameter means: unit ("" for pure numbers), meaning, allowed range.
 
     ``low``/``high`` bound the value (None: unbounded), ``*_open`` excludes the bound itself;
-    ``nonzero`` refuses 0; ``whole`` asks for an integer. Relations between parameters are the
+    ``nonzero`` refuses 0; ``whole`` asks for an integer; ``abs_low``/``abs_high`` bound the
+    magnitude (None: unbounded). Relations between parameters are the
     family's ``validate``; this is what holds for one parameter alone. ``mounting`` marks a
     quantity of how the part is mounted (standoff, tilt) rather than how it is made.
     """
@@ -56,6 +57,8 @@ class ParameterInfo:
     nonzero: bool = False
     whole: bool = False
     mounting: bool = False
+    abs_low: float | None = None
+    abs_high: float | None = None
 
     def range_text(self) -> str:
         """The allowed range as text: ``(0, inf)``, ``[-10, 10]``, ``!= 0``, ``any``."""
@@ -67,6 +70,11 @@ class ParameterInfo:
             left = "(" if self.low_open or self.low is None else "["
             right = ")" if self.high_open or self.high is None else "]"
             text = f"{left}{lo}, {hi}{right}"
+        if self.abs_low is not None or self.abs_high is not None:
+            lo = "0" if self.abs_low is None else f"{self.abs_low:g}"
+            hi = "inf" if self.abs_high is None else f"{self.abs_high:g}"
+            magnitude = f"|value| in [{lo}, {hi}]"
+            text = magnitude if text == "any" else f"{text}, {magnitude}"
         if self.nonzero:
             text = "!= 0" if text == "any" else f"{text}, != 0"
         if self.whole:
@@ -96,6 +104,11 @@ class ParameterInfo:
             return f"{name} = {shown} must lie in {self.range_text()}"
         if self.nonzero and value == 0:
             return f"{name} = {shown} must be nonzero"
+        small = self.abs_low is not None and abs(value) < self.abs_low
+        large = self.abs_high is not None and abs(value) > self.abs_high
+        if small or large:
+            rule = self.range_text().replace("|value|", f"|{name}|")
+            return f"{name} = {value:.6g} must have {rule}"
         return None
 
 
@@ -111,10 +124,28 @@ def parameter(
     nonzero: bool = False,
     whole: bool = False,
     mounting: bool = False,
+    abs_low: float | None = None,
+    abs_high: float | None = None,
 ) -> Any:
     """A dataclass field carrying its :class:`ParameterInfo` (use in Params and Options)."""
-    info = ParameterInfo(unit, meaning, low, high, low_open, high_open, nonzero, whole, mounting)
+    info = ParameterInfo(
+        unit, meaning, low, high, low_open, high_open, nonzero, whole, mounting, abs_low, abs_high
+    )
     return dataclasses.field(default=default, metadata={PARAMETER_INFO: info})
+
+
+#: Allowed magnitude of a drive voltage (V): below 1 uV the charges underflow toward
+#: subnormal numbers and ratios divide by zero; above 10 MV no bench design is meant
+#: (common practice, no source).
+DRIVE_V_MIN = 1e-6
+DRIVE_V_MAX = 1e7
+
+
+def drive_parameter(meaning: str, **kwargs: Any) -> Any:
+    """The ``drive_V`` field every driven family declares: volts, nonzero, 1 uV..10 MV."""
+    return parameter(
+        "V", meaning, nonzero=True, abs_low=DRIVE_V_MIN, abs_high=DRIVE_V_MAX, **kwargs
+    )
 
 
 @dataclass(frozen=True)
@@ -250,6 +281,11 @@ class ElectrodeFamily(ABC):
     @abstractmethod
     def validate(self, params: Any) -> None:
         """Raise ElectrodeError if ``params`` break a rule of the family (before any solve)."""
+
+    def validate_design(self, params: Any, options: Any) -> None:
+        """Raise ElectrodeError if ``params`` or a design the evaluation under ``options``
+        (resolved) also solves (its companion designs) break a rule: before any solve."""
+        self.validate(params)
 
     def validate_options(self, options: Any) -> None:
         """Raise ElectrodeError if ``options`` break their declared ranges."""

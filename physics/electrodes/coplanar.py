@@ -19,7 +19,13 @@ from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
 from elopt.physics.electrodes import metrics
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    drive_parameter,
+    parameter,
+)
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
@@ -39,7 +45,7 @@ class CoplanarParams(pf.StackParams):
     strip_width_um: float = parameter("um", "strip width", low=0.0, low_open=True)
     gap_um: float = parameter("um", "gap between neighbouring strips", low=0.0, low_open=True)
     length_mm: float = parameter("mm", "strip length", low=0.0, low_open=True)
-    drive_V: float = parameter("V", "voltage of the driven strips (others at 0 V)", nonzero=True)
+    drive_V: float = drive_parameter("voltage of the driven strips (others at 0 V)")
     centre_drive: bool = parameter("", "drive only the middle strip(s)", default=False)
 
 

@@ -25,17 +25,24 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, fields, replace
 from typing import Any, ClassVar
 
 import numpy as np
 
 from elopt.physics.electrodes import metrics as m
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    drive_parameter,
+    parameter,
+)
 from elopt.physics.electrodes.linearity import linearity_error_pct_fs, standoff_range
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import SolvedByProfiles
 from elopt.physics.electrodes.target_spot import radial_grid, radial_grid_size, spot_radius
+from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.geometry import Curve, Segment, rounded_polyline
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import DielectricRegion, PlanarLayer
@@ -69,7 +76,7 @@ class GuardedDiskParams:
     standoff_mm: float = parameter(
         "mm", "guard face to target d", low=0, low_open=True, mounting=True
     )
-    drive_V: float = parameter("V", "sensor and guard potential", nonzero=True)
+    drive_V: float = drive_parameter("sensor and guard potential")
     recess_mm: float = parameter("mm", "sensor face set back s", default=0.0, low=0, mounting=True)
     spacer_eps_r: float = parameter(
         "1", "eps_r of a spacer filling the sensor-guard gap (1: none)", default=1.0, low=1
@@ -247,6 +254,26 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
                 _check_target_grid(rules, p)
         rules.raise_if_broken()
 
+    def validate_design(self, params: GuardedDiskParams, options: GuardedDiskOptions) -> None:
+        """The design, then its nearest linearity standoff (the sweep's hardest geometry),
+        so that a rule it breaks there is said before the sweep starts."""
+        self.validate(params)
+        standoffs = linearity_standoffs_m(params, options)
+        if len(standoffs) == 0:
+            return
+        nearest = replace(params, standoff_mm=float(np.min(standoffs)) / MM)
+        try:
+            self.validate(nearest)
+        except ElectrodeError as exc:
+            rules = str(exc).removeprefix(f"{self.name}: ")
+            raise ElectrodeError(
+                f"{self.name}: at the nearest linearity standoff, standoff_mm = "
+                f"{nearest.standoff_mm:.6g} ((1 - linearity_range_fraction = "
+                f"{options.linearity_range_fraction:.6g}) x standoff_mm = "
+                f"{params.standoff_mm:.6g}): {rules}; raise standoff_mm or lower "
+                "linearity_range_fraction"
+            ) from None
+
     def validate_options(self, options: GuardedDiskOptions) -> None:
         rules = RuleBook(self.name, options)
         if rules.finite():
@@ -263,16 +290,22 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
     ) -> Layout:
         self.validate(params)
         v = float(params.drive_V)
-        return Layout(
-            conductors=(
-                driven(SENSOR, sensor_curve(params), v),
-                driven(GUARD, guard_curve(params), v),
-            ),
-            eps_r=eps_r,
-            ground_plane=True,
-            layers=target_layers(params),
-            regions=insulators(params),
-        )
+        try:
+            return Layout(
+                conductors=(
+                    driven(SENSOR, sensor_curve(params), v),
+                    driven(GUARD, guard_curve(params), v),
+                ),
+                eps_r=eps_r,
+                ground_plane=True,
+                layers=target_layers(params),
+                regions=insulators(params),
+            )
+        except GeometryError as exc:
+            values = ", ".join(f"{f.name} = {getattr(params, f.name):.6g}" for f in fields(params))
+            raise ElectrodeError(
+                f"{self.name}: these parameters give no valid cross-section ({exc}): {values}"
+            ) from None
 
     def companion_designs(
         self, params: GuardedDiskParams, options: GuardedDiskOptions

@@ -33,9 +33,19 @@ from elopt.physics.bem3d.surfaces import (
     RectangleSheetSurface,
 )
 from elopt.physics.electrodes import metrics as m
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    drive_parameter,
+    parameter,
+)
 from elopt.physics.electrodes.rules import RuleBook
-from elopt.physics.electrodes.solvers import SolvedByPanels
+from elopt.physics.electrodes.solvers import (
+    SolvedByPanels,
+    estimated_panels,
+    refuse_too_many_panels,
+)
 from elopt.physics.electrodes.target_tilt import (
     FF_PER_MRAD,
     FF_PER_UM,
@@ -63,7 +73,7 @@ class GuardedPadParams:
     thickness_mm: float = parameter("mm", "pad and frame thickness (0: sheets)", low=0)
     fillet_mm: float = parameter("mm", "convex edge radius (0: sharp)", low=0)
     standoff_mm: float = parameter("mm", "faces to target d", low=0, low_open=True, mounting=True)
-    drive_V: float = parameter("V", "pad and guard potential", nonzero=True)
+    drive_V: float = drive_parameter("pad and guard potential")
     target_tilt_deg: float = parameter(
         "deg",
         "target tilt about y",
@@ -96,6 +106,26 @@ def mesh_step_m(p: GuardedPadParams, options: GuardedPadOptions) -> float:
         return options.mesh_step_mm * MM
     return MM * min(
         0.25 * min(p.pad_length_mm, p.pad_width_mm), p.guard_width_mm, 2.0 * p.standoff_mm
+    )
+
+
+def panel_size_cause(p: GuardedPadParams, options: GuardedPadOptions, h_m: float) -> str:
+    """Which parameter sets the panel size ``h_m`` (m), with its value, for refusals."""
+    ox, oy = outer_size_mm(p)
+    if options.mesh_step_mm > 0:
+        what = f"mesh_step_mm = {options.mesh_step_mm:.6g}"
+    else:
+        terms = {
+            "pad_length_mm": 0.25 * p.pad_length_mm,
+            "pad_width_mm": 0.25 * p.pad_width_mm,
+            "guard_width_mm": p.guard_width_mm,
+            "standoff_mm": 2.0 * p.standoff_mm,
+        }
+        name = min(terms, key=terms.__getitem__)
+        what = f"{name} = {getattr(p, name):.6g} sets the panel size"
+    return (
+        f"{what} ({h_m / MM:.3g} mm) against a guard of {ox:.6g} x {oy:.6g} mm; raise it or "
+        "shrink the guard"
     )
 
 
@@ -195,7 +225,11 @@ class GuardedPad(SolvedByPanels, ElectrodeFamily):
         """The 3-D layout as solved: pad and frame turned so that the target is z = 0."""
         self.validate(params)
         options = options or GuardedPadOptions()
-        base = level_layout(params, mesh_step_m(params, options), eps_r=eps_r)
+        h_m = mesh_step_m(params, options)
+        base = level_layout(params, h_m, eps_r=eps_r)
+        refuse_too_many_panels(
+            self.name, estimated_panels(base), panel_size_cause(params, options, h_m)
+        )
         return tilted_layout(base, math.radians(params.target_tilt_deg), params.tilt_axis_x_mm * MM)
 
     def measure(

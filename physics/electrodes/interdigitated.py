@@ -32,7 +32,13 @@ from elopt.physics.bem2d import planar_family as pf
 from elopt.physics.bem2d import planar_stack as ps
 from elopt.physics.bem2d.solve import solve_2d
 from elopt.physics.electrodes import metrics
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    drive_parameter,
+    parameter,
+)
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
@@ -54,7 +60,7 @@ class InterdigitatedParams(pf.StackParams):
         "", "number of fingers (both combs)", low=2, high=MAX_FINGERS, whole=True
     )
     finger_length_mm: float = parameter("mm", "finger length", low=0.0, low_open=True)
-    drive_V: float = parameter("V", "voltage of the driven comb (the other at 0 V)", nonzero=True)
+    drive_V: float = drive_parameter("voltage of the driven comb (the other at 0 V)")
 
 
 @dataclass(frozen=True)

@@ -32,9 +32,22 @@ import numpy as np
 from elopt.physics.bem3d import load_mesh_surface
 from elopt.physics.bem3d.mesh_io import LENGTH_UNITS
 from elopt.physics.electrodes import metrics as m
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    DRIVE_V_MAX,
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    parameter,
+    parameter_specs,
+)
 from elopt.physics.electrodes.guarded_pad import spot_radius_m
-from elopt.physics.electrodes.solvers import SolvedByPanels
+from elopt.physics.electrodes.solvers import (
+    ESTIMATE_LEVEL,
+    MAX_SOLVE_PANELS,
+    SolvedByPanels,
+    estimated_panels,
+    refuse_too_many_panels,
+)
 from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Conductor, Layout
@@ -65,7 +78,9 @@ class MeshFileParams:
         "", "one mesh file per conductor, with its unit and drive"
     )
     ground_plane: bool = parameter("", "grounded plane z = 0 below everything", default=False)
-    drive_V: float = parameter("V", "largest |potential_V| (derived)", default=0.0)
+    drive_V: float = parameter(
+        "V", "largest |potential_V| (derived)", default=0.0, abs_high=DRIVE_V_MAX
+    )
 
 
 @dataclass(frozen=True)
@@ -153,6 +168,10 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
                 )
             if not Path(s.file).is_file():
                 problems.append(f"{at}: no such mesh file {s.file}")
+        drive = parameter_specs(MeshFileParams)[-1]
+        broken = drive.info.broken_rule(drive.name, params.drive_V)
+        if broken:
+            problems.append(f"{broken} (the largest |potential_V|)")
         if problems:
             raise ElectrodeError(f"{self.name}: " + "; ".join(problems))
 
@@ -162,12 +181,26 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
         for s in params.conductors:
             try:
                 surface = load_mesh_surface(
-                    s.file, length_unit=s.length_unit, closed=s.closed, name=s.name
+                    s.file,
+                    length_unit=s.length_unit,
+                    closed=s.closed,
+                    name=s.name,
+                    max_triangles=MAX_SOLVE_PANELS // 4**ESTIMATE_LEVEL,
                 )
             except GeometryError as exc:
                 raise ElectrodeError(f"{self.name}: {exc}") from None
             conductors.append(Conductor(s.name, surface, s.potential_V, s.charge_C))
-        return Layout(tuple(conductors), eps_r=eps_r, ground_plane=params.ground_plane)
+        layout = Layout(tuple(conductors), eps_r=eps_r, ground_plane=params.ground_plane)
+        counts = estimated_panels(layout)
+        biggest = max(params.conductors, key=lambda s: counts[s.name])
+        base = counts[biggest.name] / 4.0**ESTIMATE_LEVEL
+        refuse_too_many_panels(
+            self.name,
+            counts,
+            f"the mesh file {biggest.file} of '{biggest.name}' has {base:.6g} triangles, each "
+            "refinement level multiplies them by 4; coarsen that mesh",
+        )
+        return layout
 
     def measure(
         self,
@@ -185,8 +218,21 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
         peak = sol.peak_field
         nan = float("nan")
         sens = tilt = spot = nan
-        driven_all = not any(cd.floating for cd in layout.conductors)
-        if layout.ground_plane and driven_all and layout.applied_field_V_per_m == 0 and v0 != 0:
+        plane_why = _plane_metrics_undefined(layout, first.name, v0)
+        notes = {
+            name: plane_why for name in (m.SENSITIVITY.name, m.TILT_SENSITIVITY.name, m.SPOT.name)
+        }
+        if first.floating:
+            notes[m.SENSE.name] = (
+                f"the first conductor '{first.name}' floats (charge_C given), so Q / V of a "
+                "drive is not defined; list a driven conductor first"
+            )
+        elif v0 == 0:
+            notes[m.SENSE.name] = (
+                f"the first conductor '{first.name}' is at 0 V, so Q / V divides by zero; "
+                "list a driven conductor first"
+            )
+        if plane_why is None:
             volts = sol.potentials_V / v0
             sens = float(sol.plane_capacitance_derivative_F_per_m()[0] @ volts) * FF_PER_UM
             tilt = float(sol.plane_tilt_derivative_F_per_rad()[0] @ volts) * FF_PER_MRAD
@@ -207,8 +253,23 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
         extra = {
             "sense_capacitance_F": sense,
             "sense_capacitance_meaning": f"Q / V of the first conductor '{first.name}' at the drive",
+            "metric_notes": {k: v for k, v in notes.items() if v is not None},
         }
         return Measured(metrics, extra)
+
+
+def _plane_metrics_undefined(layout: Layout, first: str, v0: float) -> str | None:
+    """Why the target-plane metrics (sensitivity, tilt, spot) are undefined, or None."""
+    if not layout.ground_plane:
+        return "they are measured against the target plane; set ground_plane = true"
+    floating = [cd.name for cd in layout.conductors if cd.floating]
+    if floating:
+        return f"they need every conductor driven; floating: {', '.join(floating)}"
+    if layout.applied_field_V_per_m != 0:
+        return "they are not defined under an applied field"
+    if v0 == 0:
+        return f"they are scaled by the first conductor's drive and '{first}' is at 0 V"
+    return None
 
 
 __all__ = ["MeshConductorSpec", "MeshFile", "MeshFileOptions", "MeshFileParams"]

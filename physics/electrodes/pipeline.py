@@ -69,7 +69,7 @@ def evaluate_design(
     options that break the family's rules, SolverError when a solve fails.
     """
     options = resolved_options(family, options)
-    family.validate(params)
+    family.validate_design(params, options)
     settings = SolveOptions(rel_accuracy=rel_accuracy, peak_rel_accuracy=peak_rel_accuracy)
     solution = solve_design(family, params, solve_options=settings, eps_r=eps_r, options=options)
     companions = {

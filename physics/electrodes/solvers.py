@@ -12,6 +12,7 @@ import dataclasses
 from typing import Any
 
 from elopt.physics.bem3d import solve_3d
+from elopt.physics.bem3d.surfaces import MESH_MAX_PANELS
 from elopt.physics.bem_axi.mesh import build_mesh
 from elopt.physics.bem_axi.solve import default_order, solve_axisymmetric
 from elopt.physics.errors import ElectrodeError, GeometryError
@@ -25,6 +26,30 @@ from elopt.physics.solution import ChargeSolution
 #: (measured: 1,608 level-0 unknowns took 39 s at rel_accuracy 1e-2 with three linearity
 #: standoffs on a loaded 2-core machine).
 MAX_COARSE_UNKNOWNS = 2_000
+
+
+#: Most panels a 3-D solve may have at the level its error estimate needs (level 1: levels 0
+#: and 1 are always solved): the 3-D solver's limit, a quarter of what one surface may be
+#: meshed with (:data:`~elopt.physics.bem3d.surfaces.MESH_MAX_PANELS`).
+MAX_SOLVE_PANELS = MESH_MAX_PANELS // 4
+ESTIMATE_LEVEL = 1
+
+
+def estimated_panels(layout: Layout, level: int = ESTIMATE_LEVEL) -> dict[str, float]:
+    """Panels of each conductor of a 3-D layout at ``level`` (name -> count), counted
+    without meshing."""
+    return {c.name: float(c.shape.estimated_panels(level)) for c in layout.conductors}
+
+
+def refuse_too_many_panels(family: str, counts: dict[str, float], cause: str) -> None:
+    """Raise an ElectrodeError naming ``cause`` (the parameter or file responsible) when the
+    panels in ``counts`` (from :func:`estimated_panels`) exceed :data:`MAX_SOLVE_PANELS`."""
+    total = sum(counts.values())
+    if total > MAX_SOLVE_PANELS:
+        raise ElectrodeError(
+            f"{family}: {cause}: the 3-D mesh would have about {total:.3g} panels at refinement "
+            f"level {ESTIMATE_LEVEL}, more than the solver's {MAX_SOLVE_PANELS:.3g}"
+        )
 
 
 def check_coarse_mesh(family: str, layout: Layout, solve_options: SolveOptions) -> None:

@@ -36,7 +36,13 @@ from typing import Any, ClassVar
 import numpy as np
 
 from elopt.physics.electrodes import metrics as m
-from elopt.physics.electrodes.base import ElectrodeFamily, Measured, MetricSpec, parameter
+from elopt.physics.electrodes.base import (
+    ElectrodeFamily,
+    Measured,
+    MetricSpec,
+    drive_parameter,
+    parameter,
+)
 from elopt.physics.electrodes.edge_profile import RAMP_ARCS, front_rise_m, profile_curve
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import SolvedByProfiles
@@ -59,7 +65,7 @@ class UniformFieldParams:
     blend_length_mm: float = parameter("mm", "curvature ramp length L_b", low=0)
     edge_radius_mm: float = parameter("mm", "edge arc radius R_e", low=0, low_open=True)
     back_thickness_mm: float = parameter("mm", "face-to-back thickness T", low=0, low_open=True)
-    drive_V: float = parameter("V", "voltage between the electrodes", nonzero=True)
+    drive_V: float = drive_parameter("voltage between the electrodes")
     specimen_um: float = parameter(
         "um", "thickness of the specimen sheet centred in the gap (0: none)", default=0.0, low=0
     )
