@@ -16,7 +16,7 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -138,6 +138,16 @@ class ChargeSolution(ABC):
         self.rel_error_estimate = float(refinement.estimate.capacitance)
         self.requested_accuracy = float(refinement.options.rel_accuracy)
         self.accuracy_met = bool(refinement.accuracy_met)
+
+    def _take_finest_level(self) -> Any:
+        """C, the excitation's potentials and densities, and the charges from the finest level
+        (levels that hold ``capacitance_F``, ``applied_charges_C`` and ``excitation(layout)``)."""
+        fine = self.levels[-1]
+        self._fine = fine
+        self.capacitance_matrix_F = fine.capacitance_F
+        self.potentials_V, self.sigma_C_per_m2 = fine.excitation(self.layout)
+        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
+        return fine
 
     @abstractmethod
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:

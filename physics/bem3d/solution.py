@@ -137,15 +137,10 @@ class PanelSolution(ChargeSolution):
         self._adopt(refinement)
         self.capacitance_matrix_extrapolated_F = capacitance_extrapolated_F
         self.convergence_rate = convergence_rate
-        levels = self.levels
-        fine = levels[-1]
-        self._fine = fine
+        fine = self._take_finest_level()
         self.panels = fine.panels
         self.level = fine.panels.level
         self.n_unknowns = fine.panels.n
-        self.capacitance_matrix_F = fine.capacitance_F
-        self.potentials_V, self.sigma_C_per_m2 = fine.excitation(layout)
-        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
 
     @property
     def eps(self) -> float:

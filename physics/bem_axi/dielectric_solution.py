@@ -212,31 +212,19 @@ class DielectricSolution(ChargeSolution):
 
     def eps_derivative(self, name: str, rel_step: float = 1e-2) -> FiniteDifference:
         """dC/d(eps_r) (n, n) F per unit eps_r of the region or layer ``name``."""
-        regions = {r.name: k for k, r in enumerate(self.layout.regions)}
-        layers = {ly.name: k for k, ly in enumerate(self.layout.layers)}
-        if name in regions:
-            k = regions[name]
-            base = self.layout.regions[k]
-            h = rel_step * base.eps_r
-
-            def make(dv: float) -> Layout:
-                regs = list(self.layout.regions)
-                regs[k] = replace(base, eps_r=base.eps_r + dv)
-                return replace(self.layout, regions=tuple(regs))
-
-        elif name in layers:
-            k = layers[name]
-            base = self.layout.layers[k]
-            h = rel_step * base.eps_r
-
-            def make(dv: float) -> Layout:
-                lys = list(self.layout.layers)
-                lys[k] = replace(base, eps_r=base.eps_r + dv)
-                return replace(self.layout, layers=tuple(lys))
-
-        else:
+        found = [
+            (group, k)
+            for group in ("regions", "layers")
+            for k, item in enumerate(getattr(self.layout, group))
+            if item.name == name
+        ]
+        if not found:
             raise KeyError(f"no region or layer '{name}'")
-        return self.central_difference(make, h)
+        group, k = found[0]
+        eps_r = getattr(self.layout, group)[k].eps_r
+        return self.central_difference(
+            lambda dv: _with_item(self.layout, group, k, eps_r=eps_r + dv), rel_step * eps_r
+        )
 
     def standoff_derivative_fd(self, rel_step: float = 1e-2) -> FiniteDifference:
         """dC/d(delta) (n, n) F/m for the grounded plane and every layer moving up by delta (the
@@ -266,14 +254,17 @@ class DielectricSolution(ChargeSolution):
             raise KeyError(f"no layer '{name}'; layers are {list(layers)}")
         k = layers[name]
         base = self.layout.layers[k]
-        h = rel_step * base.thickness_m
+        return self.central_difference(
+            lambda dt: _with_item(self.layout, "layers", k, z_top_m=base.z_top_m + dt),
+            rel_step * base.thickness_m,
+        )
 
-        def make(dt: float) -> Layout:
-            lys = list(self.layout.layers)
-            lys[k] = replace(base, z_top_m=base.z_top_m + dt)
-            return replace(self.layout, layers=tuple(lys))
 
-        return self.central_difference(make, h)
+def _with_item(layout: Layout, group: str, k: int, **change: float) -> Layout:
+    """``layout`` with item ``k`` of its ``regions`` or ``layers`` changed by ``change``."""
+    items = list(getattr(layout, group))
+    items[k] = replace(items[k], **change)
+    return replace(layout, **{group: tuple(items)})
 
 
 def translate_curve(curve: Curve, dz: float) -> Curve:

@@ -68,14 +68,10 @@ class AxisymmetricSolution(ChargeSolution):
     def __init__(self, layout: Layout, refinement: Refinement) -> None:
         self.layout = layout
         self._adopt(refinement)
-        fine = self.levels[-1]
-        self._fine = fine
+        fine = self._take_finest_level()
         self.mesh = fine.mesh
         self.level = fine.mesh.level
         self.n_unknowns = fine.mesh.n_nodes
-        self.capacitance_matrix_F = fine.capacitance_F
-        self.potentials_V, self.sigma_C_per_m2 = fine.excitation(layout)
-        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
 
     @property
     def eps(self) -> float:
