@@ -34,10 +34,15 @@ def toml_value(v: Any) -> str:
     if isinstance(v, str):
         return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
     if isinstance(v, dict):
-        return "{ " + ", ".join(f"{k} = {toml_value(x)}" for k, x in v.items()) + " }"
+        return "{ " + ", ".join(f"{toml_key(k)} = {toml_value(x)}" for k, x in v.items()) + " }"
     if isinstance(v, list | tuple):
         return "[" + ", ".join(toml_value(x) for x in v) + "]"
     raise TypeError(f"no TOML form for {v!r}")
+
+
+def toml_key(k: str) -> str:
+    """A bare key when TOML allows one, else a quoted one."""
+    return k if k and all(c.isalnum() or c in "_-" for c in k) else toml_value(k)
 
 
 def _table(name: str, values: dict[str, Any]) -> list[str]:

@@ -18,6 +18,8 @@ from typing import Any, Protocol
 
 import numpy as np
 
+from elopt.optimizer.export.trial_config import toml_key, toml_value
+
 TESTS_DIR = Path(__file__).resolve().parent.parent
 STUDY_FILE_SAMPLE = TESTS_DIR / "data" / "study_v1.h5"
 
@@ -65,49 +67,25 @@ class Case:
 # -------------------------------------------------------------------------- TOML writing
 
 
-def toml_value(v: Any) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, int):
-        return str(v)
-    if isinstance(v, float):
-        if math.isnan(v):
-            return "nan"
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        return repr(v)
-    if isinstance(v, str):
-        return '"' + v.replace("\\", "\\\\").replace('"', '\\"') + '"'
-    if isinstance(v, list):
-        return "[" + ", ".join(toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{_key(k)} = {toml_value(x)}" for k, x in v.items()) + " }"
-    raise TypeError(type(v))
-
-
-def _key(k: str) -> str:
-    return k if k and all(c.isalnum() or c in "_-" for c in k) else toml_value(k)
-
-
 def toml_text(table: dict[str, Any]) -> str:
     """TOML for a table of scalars, tables (one level) and arrays of tables."""
-    lines = [f"{_key(k)} = {toml_value(v)}" for k, v in table.items() if not _is_table(v)]
+    lines = [f"{toml_key(k)} = {toml_value(v)}" for k, v in table.items() if not _is_table(v)]
     for name, sub in table.items():
         if isinstance(sub, dict):
-            lines.append(f"\n[{_key(name)}]")
+            lines.append(f"\n[{toml_key(name)}]")
             for k, v in sub.items():
                 if isinstance(v, list) and v and all(isinstance(x, dict) for x in v):
                     continue
-                lines.append(f"{_key(k)} = {toml_value(v)}")
+                lines.append(f"{toml_key(k)} = {toml_value(v)}")
             for k, v in sub.items():
                 if isinstance(v, list) and v and all(isinstance(x, dict) for x in v):
                     for item in v:
-                        lines.append(f"\n[[{_key(name)}.{_key(k)}]]")
-                        lines += [f"{_key(a)} = {toml_value(b)}" for a, b in item.items()]
+                        lines.append(f"\n[[{toml_key(name)}.{toml_key(k)}]]")
+                        lines += [f"{toml_key(a)} = {toml_value(b)}" for a, b in item.items()]
         elif isinstance(sub, list) and sub and all(isinstance(x, dict) for x in sub):
             for item in sub:
-                lines.append(f"\n[[{_key(name)}]]")
-                lines += [f"{_key(a)} = {toml_value(b)}" for a, b in item.items()]
+                lines.append(f"\n[[{toml_key(name)}]]")
+                lines += [f"{toml_key(a)} = {toml_value(b)}" for a, b in item.items()]
     return "\n".join(lines) + "\n"
 
 
