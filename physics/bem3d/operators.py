@@ -34,6 +34,8 @@ PRECONDITIONER_FACTOR = 1.2
 
 def dense_matrix(panels: PanelSet) -> np.ndarray:
     """The full (N, N) collocation matrix (see the module docstring)."""
+    if panels.background is not None:  # planar layers: the layered Green's function
+        return panels.background.dense_matrix(panels)
     corners, centroids, areas, diams = panels.kernel_arrays
     a = pint.dense_potential_matrix(
         centroids, corners, centroids, areas, diams, panels.ground_plane, *pint.rules()

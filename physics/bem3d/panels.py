@@ -12,6 +12,7 @@ from functools import cached_property
 import numpy as np
 
 from elopt.physics.bem3d.checks import check_above_plane, check_apart, check_surface
+from elopt.physics.bem3d.layered_green import LayeredBackground, layered_background
 from elopt.physics.bem3d.mesh import TriangleMesh, concatenated
 from elopt.physics.bem3d.surfaces import Surface
 from elopt.physics.errors import GeometryError
@@ -28,6 +29,8 @@ class PanelSet:
     ground_plane: bool
     closed: tuple[bool, ...]
     smooth: tuple[bool | None, ...]
+    #: Green's function of the layout's planar layers (:mod:`.layered_green`); None: homogeneous.
+    background: LayeredBackground | None = None
 
     @property
     def n(self) -> int:
@@ -104,6 +107,7 @@ def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
                 check_apart(meshes[i], names[i], meshes[j], names[j])
     mesh, owner = concatenated(meshes)
     return PanelSet(
+        background=layered_background(layout, mesh),
         mesh=mesh,
         owner=owner,
         level=level,

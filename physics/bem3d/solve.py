@@ -26,6 +26,7 @@ import numpy as np
 import scipy.linalg
 from scipy.spatial import cKDTree
 
+from elopt.physics.bem3d.layered_green import layered_method
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
     PRECONDITIONER_FACTOR,
@@ -204,6 +205,8 @@ def solve_3d(
         chosen = method
         if method == "auto":
             chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
+        if panels.background is not None:
+            chosen = layered_method(method)
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             return solve_level(
@@ -216,7 +219,8 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns)
-        return LevelPlan(level, panels.n, need, f"{chosen} solve", run)
+        note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
+        return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by
     # 0.15-0.25 per level; the compressed matrix moves C by up to 0.06 aca; the peak is the
