@@ -96,7 +96,7 @@ class RemainderTable:
     """
 
     values: np.ndarray
-    lam: float
+    lam: float  # the length in u = asinh(rho / lam); the floor of a + delta is exp(v0)
     delta: float
     hu: float
     v0: float
@@ -144,8 +144,11 @@ def build_table(
     a_max: float,
     size: float,
     rel_tol: float = TABLE_REL_TOL,
+    rho_scale: float | None = None,
 ) -> RemainderTable:
-    """Table of ``term`` for 0 <= rho <= rho_max, a_min <= a <= a_max (module docstring)."""
+    """Table of ``term`` for 0 <= rho <= rho_max, a_min <= a <= a_max (module docstring);
+    ``rho_scale`` (default lam) is the length in u = asinh(rho / rho_scale), shared by tables
+    evaluated together so that u is computed once per pair."""
     lam = a_min + term.delta
     if not lam > 0.0:
         raise SolverError(
@@ -153,9 +156,10 @@ def build_table(
             f"delta = {term.delta:.3g} m); a source lies on an interface it should not touch"
         )
     k_max = cutoff(lam, size, term.bound)
+    rs = lam if rho_scale is None else min(float(rho_scale), lam)
     widths = [5.0 / max(rho_max, 1e-300), 8.0 / lam, 4.0 / term.length]
     k, w = hankel_rule(k_max, widths)
-    u_max = math.asinh(max(rho_max, 1e-3 * lam) / lam)
+    u_max = math.asinh(max(rho_max, 1e-3 * rs) / rs)
     v0 = math.log(lam)
     v_max = math.log(max(a_max + term.delta, lam * (1 + 1e-3)))
     step = _FIRST_STEP
@@ -164,14 +168,14 @@ def build_table(
         nv = max(2, math.ceil((v_max - v0) / step) + 1)
         u = np.linspace(0.0, u_max, nu)
         v = np.linspace(v0, v_max, nv)
-        values = _nodes(term, k, w, u, v, lam)
+        values = _nodes(term, k, w, u, v, rs)
         scale = float(np.max(np.abs(values[..., 0])))
         um, vm = 0.5 * (u[1:] + u[:-1]), 0.5 * (v[1:] + v[:-1])
-        exact = spectral_values(term, k, w, lam * np.sinh(um), np.exp(vm) - term.delta)[0]
+        exact = spectral_values(term, k, w, rs * np.sinh(um), np.exp(vm) - term.delta)[0]
         table = RemainderTable(
-            values, lam, term.delta, u[1] - u[0], v0, v[1] - v[0], 0.0, scale, len(k)
+            values, rs, term.delta, u[1] - u[0], v0, v[1] - v[0], 0.0, scale, len(k)
         )
-        rr, aa = np.meshgrid(lam * np.sinh(um), np.exp(vm) - term.delta, indexing="ij")
+        rr, aa = np.meshgrid(rs * np.sinh(um), np.exp(vm) - term.delta, indexing="ij")
         approx = table.evaluate(rr.ravel(), aa.ravel())[0].reshape(rr.shape)
         err = float(np.max(np.abs(approx - exact))) / scale if scale > 0 else 0.0
         if err <= rel_tol or step <= _MIN_STEP:
@@ -181,7 +185,7 @@ def build_table(
                     f"the finest grid step {step:g}"
                 )
             return RemainderTable(
-                values, lam, term.delta, table.hu, v0, table.hv, err, scale, len(k)
+                values, rs, term.delta, table.hu, v0, table.hv, err, scale, len(k)
             )
         step *= 0.5
 
@@ -200,26 +204,8 @@ def _basis(t: float):
 
 
 @njit(cache=True)
-def hermite(
-    tab: np.ndarray,
-    lam: float,
-    delta: float,
-    hu: float,
-    v0: float,
-    hv: float,
-    rho: float,
-    a: float,
-    out: np.ndarray,
-) -> None:
-    """out[:3] = T, dT/drho, dT/da at (rho, a) by the bicubic Hermite patch of its cell."""
-    nu = tab.shape[0]
-    nv = tab.shape[1]
-    jr = math.sqrt(rho * rho + lam * lam)
-    u = math.asinh(rho / lam)
-    ad = a + delta
-    if ad < lam:
-        ad = lam
-    v = math.log(ad)
+def hermite_uv(tab, nu, nv, hu, v0, hv, u, v, out) -> None:
+    """out[:3] = T, dT/du, dT/dv at (u, v) by the bicubic Hermite patch of its cell."""
     x = u / hu
     i = min(max(int(x), 0), nu - 2)
     t = x - i
@@ -249,5 +235,16 @@ def hermite(
             fu += dhx * hy * c0 + dgx * hy * c1 + dhx * gy * c2 + dgx * gy * c3
             fv += hx * dhy * c0 + gx * dhy * c1 + hx * dgy * c2 + gx * dgy * c3
     out[0] = f
-    out[1] = fu / hu / jr
-    out[2] = fv / hv / ad
+    out[1] = fu / hu
+    out[2] = fv / hv
+
+
+@njit(cache=True)
+def hermite(tab, lam, delta, hu, v0, hv, rho, a, out) -> None:
+    """out[:3] = T, dT/drho, dT/da at (rho, a) (a + delta is floored at exp(v0))."""
+    ad = max(a + delta, math.exp(v0))
+    hermite_uv(
+        tab, tab.shape[0], tab.shape[1], hu, v0, hv, math.asinh(rho / lam), math.log(ad), out
+    )
+    out[1] /= math.sqrt(rho * rho + lam * lam)
+    out[2] /= ad

@@ -40,7 +40,7 @@ from elopt.physics.bem3d.layer_tables import (
     RemainderTable,
     SpectralTerm,
     build_table,
-    hermite,
+    hermite_uv,
 )
 from elopt.physics.bem_axi.layered_kernel import Gap, _exact_face, find_gap
 from elopt.physics.errors import GeometryError, SolverError
@@ -98,6 +98,7 @@ class LayeredBackground:
         self.size = float(size)
         self.eps_medium = float(stack.medium_eps_r)
         self.table_rel_tol = TABLE_REL_TOL
+        self.remainder_points = REMAINDER_POINTS
         ifaces = stack.interfaces_m
         if len(ifaces) == 1 and not stack.ground_plane:
             self.kind = "two_half_spaces"
@@ -233,7 +234,7 @@ class LayeredBackground:
         return 1.0 + r_face, [p for p in out if _nonzero(p.term.coef, length)]
 
     def _tables(self, placements, targets, sources) -> tuple[np.ndarray, np.ndarray]:
-        """Tables (T, NU, NV, 4) and parameters (T, 10) covering every target-source pair."""
+        """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair."""
         lo = np.minimum(targets.min(axis=0), sources.min(axis=0))
         hi = np.maximum(targets.max(axis=0), sources.max(axis=0))
         rho_max = float(np.hypot(*(hi[:2] - lo[:2]))) * 1.001 + 1e-12 * self.size
@@ -253,22 +254,25 @@ class LayeredBackground:
             )
             r = ranges.setdefault(id(p.term), [math.inf, -math.inf])
             r[0], r[1] = min(r[0], max(a_lo, 0.0)), max(r[1], max(a_hi, 0.0))
+        lams = [r[0] + p.term.delta for p in placements for r in [ranges[id(p.term)]]]
+        rho_scale = min(lams)
         for p in placements:
             if id(p.term) not in built:
                 a_lo, a_hi = ranges[id(p.term)]
                 built[id(p.term)] = build_table(
-                    p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol
+                    p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol, rho_scale
                 )
         self.tables = list(built.values())
         nu = max(t.values.shape[0] for t in self.tables)
         nv = max(t.values.shape[1] for t in self.tables)
         tabs = np.zeros((len(placements), nu, nv, 4))
-        prm = np.zeros((len(placements), 10))
+        prm = np.zeros((len(placements), 11))
         for i, p in enumerate(placements):
             tb = built[id(p.term)]
             n1, n2 = tb.values.shape[:2]
             tabs[i, :n1, :n2] = tb.values
-            prm[i] = (tb.lam, tb.delta, tb.hu, tb.v0, tb.hv, p.alpha, p.st, p.ss, n1, n2)
+            floor = math.exp(tb.v0)
+            prm[i] = (tb.lam, tb.delta, tb.hu, tb.v0, tb.hv, p.alpha, p.st, p.ss, n1, n2, floor)
         return tabs, prm
 
     # -- operators -----------------------------------------------------------------------------
@@ -299,9 +303,12 @@ class LayeredBackground:
             out += coef * plain(*_mirrored(corners, centroids, z0))
         placements = self._gap_terms()
         if placements:
-            src, owner, w = source_points(panels, REMAINDER_POINTS)
+            src, owner, w = source_points(panels, self.remainder_points)
             tabs, prm = self._tables(placements, tgt, src)
-            out += remainder_dense(tgt, src, owner, w, panels.n, tabs, prm)
+            if targets is None and self.remainder_points == 1:
+                out += remainder_collocation(centroids, areas, tabs, prm)
+            else:
+                out += remainder_dense(tgt, src, owner, w, panels.n, tabs, prm)
         return out * (self.eps_medium / self.gap.eps_r / FOUR_PI)
 
     def potential_and_gradient(
@@ -330,7 +337,7 @@ class LayeredBackground:
         gap = self.gap
         kind = self._check_targets(pts)
         scale = self.eps_medium / gap.eps_r / FOUR_PI
-        src, owner, w = source_points(panels, REMAINDER_POINTS)
+        src, owner, w = source_points(panels, self.remainder_points)
         inside = np.nonzero(kind == 0)[0]
         if len(inside):
             p = pts[inside]
@@ -410,11 +417,32 @@ def _sums(pts, corners, centroids, areas, diams, dens) -> np.ndarray:
 
 
 @njit(cache=True, inline="always")
-def _term(tabs, prm, t, rho, zt, zs, buf):
-    a = prm[t, 5] + prm[t, 6] * zt + prm[t, 7] * zs
-    nu = int(prm[t, 8])
-    nv = int(prm[t, 9])
-    hermite(tabs[t, :nu, :nv], prm[t, 0], prm[t, 1], prm[t, 2], prm[t, 3], prm[t, 4], rho, a, buf)
+def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
+    """res = (sum T, sum dT/drho, sum dT/dz) over the placed terms at one pair."""
+    rs = prm[0, 0]
+    u = math.asinh(rho / rs)
+    f = 0.0
+    fr = 0.0
+    fz = 0.0
+    for t in range(prm.shape[0]):
+        ad = max(prm[t, 5] + prm[t, 6] * zt + prm[t, 7] * zs + prm[t, 1], prm[t, 10])
+        hermite_uv(
+            tabs[t],
+            int(prm[t, 8]),
+            int(prm[t, 9]),
+            prm[t, 2],
+            prm[t, 3],
+            prm[t, 4],
+            u,
+            math.log(ad),
+            buf,
+        )
+        f += buf[0]
+        fr += buf[1]
+        fz += buf[2] / ad * prm[t, 6]
+    res[0] = f
+    res[1] = fr / math.sqrt(rho * rho + rs * rs)
+    res[2] = fz
 
 
 @njit(cache=True, parallel=True)
@@ -424,15 +452,30 @@ def remainder_dense(targets, src, owner, w, n_panels, tabs, prm) -> np.ndarray:
     out = np.zeros((m, n_panels))
     for i in prange(m):
         buf = np.empty(3)
+        res = np.empty(3)
         for p in range(src.shape[0]):
             dx = targets[i, 0] - src[p, 0]
             dy = targets[i, 1] - src[p, 1]
-            rho = math.sqrt(dx * dx + dy * dy)
-            acc = 0.0
-            for t in range(prm.shape[0]):
-                _term(tabs, prm, t, rho, targets[i, 2], src[p, 2], buf)
-                acc += buf[0]
-            out[i, owner[p]] += w[p] * acc
+            _terms_at(tabs, prm, math.sqrt(dx * dx + dy * dy), targets[i, 2], src[p, 2], buf, res)
+            out[i, owner[p]] += w[p] * res[0]
+    return out
+
+
+@njit(cache=True, parallel=True)
+def remainder_collocation(points, w, tabs, prm) -> np.ndarray:
+    """(N, N) of w_j T(x_i, x_j) at the centroids: the summed terms are symmetric in (z, z'),
+    so each pair is evaluated once."""
+    n = points.shape[0]
+    out = np.empty((n, n))
+    for i in prange(n):
+        buf = np.empty(3)
+        res = np.empty(3)
+        for j in range(i, n):
+            dx = points[i, 0] - points[j, 0]
+            dy = points[i, 1] - points[j, 1]
+            _terms_at(tabs, prm, math.sqrt(dx * dx + dy * dy), points[i, 2], points[j, 2], buf, res)
+            out[i, j] = w[j] * res[0]
+            out[j, i] = w[i] * res[0]
     return out
 
 
@@ -444,26 +487,20 @@ def remainder_sums(targets, src, owner, w, dens, tabs, prm) -> np.ndarray:
     out = np.zeros((m, 4, nk))
     for i in prange(m):
         buf = np.empty(3)
+        res = np.empty(3)
         for p in range(src.shape[0]):
             dx = targets[i, 0] - src[p, 0]
             dy = targets[i, 1] - src[p, 1]
             rho = math.sqrt(dx * dx + dy * dy)
-            f = 0.0
-            fr = 0.0
-            fz = 0.0
-            for t in range(prm.shape[0]):
-                _term(tabs, prm, t, rho, targets[i, 2], src[p, 2], buf)
-                f += buf[0]
-                fr += buf[1]
-                fz += buf[2] * prm[t, 6]
-            gx = fr * dx / rho if rho > 0.0 else 0.0
-            gy = fr * dy / rho if rho > 0.0 else 0.0
+            _terms_at(tabs, prm, rho, targets[i, 2], src[p, 2], buf, res)
+            gx = res[1] * dx / rho if rho > 0.0 else 0.0
+            gy = res[1] * dy / rho if rho > 0.0 else 0.0
             for k in range(nk):
                 q = w[p] * dens[owner[p], k]
-                out[i, 0, k] += q * f
+                out[i, 0, k] += q * res[0]
                 out[i, 1, k] += q * gx
                 out[i, 2, k] += q * gy
-                out[i, 3, k] += q * fz
+                out[i, 3, k] += q * res[2]
     return out
 
 
