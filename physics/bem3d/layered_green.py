@@ -47,8 +47,15 @@ from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.media import LayerStack
 
 FOUR_PI = 4.0 * math.pi
-#: Quadrature points per source panel for the smooth remainder (1: the centroid).
-REMAINDER_POINTS = 1
+#: The remainder of a target-panel pair is integrated by the panel's centroid when its length
+#: L = (rho^2 + min(a + delta)^2)^(1/2) is at least RULE_FACTORS[0] panel diameters, by the
+#: 3-point rule when at least RULE_FACTORS[1], by the 7-point rule when at least
+#: RULE_FACTORS[2], else by 7 points on sub-triangles no wider than the smallest L of the
+#: tables. Measured on a board stack, relative to the pair's remainder: centroid about
+#: 0.05 (h / L)^2 (8e-4 at L = 8 h), 3 points 0.002 (h / L)^4, 7 points under 1e-4 for L >= h.
+RULE_FACTORS = (8.0, 3.0, 1.0)
+#: Most halvings of a panel for the sub-triangle rule.
+MAX_SPLITS = 4
 _BLOCK = 4096
 
 
@@ -98,7 +105,7 @@ class LayeredBackground:
         self.size = float(size)
         self.eps_medium = float(stack.medium_eps_r)
         self.table_rel_tol = TABLE_REL_TOL
-        self.remainder_points = REMAINDER_POINTS
+        self.factors = RULE_FACTORS
         ifaces = stack.interfaces_m
         if len(ifaces) == 1 and not stack.ground_plane:
             self.kind = "two_half_spaces"
@@ -303,12 +310,9 @@ class LayeredBackground:
             out += coef * plain(*_mirrored(corners, centroids, z0))
         placements = self._gap_terms()
         if placements:
-            src, owner, w = source_points(panels, self.remainder_points)
-            tabs, prm = self._tables(placements, tgt, src)
-            if targets is None and self.remainder_points == 1:
-                out += remainder_collocation(centroids, areas, tabs, prm)
-            else:
-                out += remainder_dense(tgt, src, owner, w, panels.n, tabs, prm)
+            tabs, prm = self._tables(placements, tgt, corners.reshape(-1, 3))
+            rules_ = source_rules(panels, float(np.min(prm[:, 10])))
+            out += remainder_matrix(tgt, rules_, np.array(self.factors), tabs, prm)
         return out * (self.eps_medium / self.gap.eps_r / FOUR_PI)
 
     def potential_and_gradient(
@@ -337,7 +341,7 @@ class LayeredBackground:
         gap = self.gap
         kind = self._check_targets(pts)
         scale = self.eps_medium / gap.eps_r / FOUR_PI
-        src, owner, w = source_points(panels, self.remainder_points)
+        vertices = corners.reshape(-1, 3)
         inside = np.nonzero(kind == 0)[0]
         if len(inside):
             p = pts[inside]
@@ -346,8 +350,9 @@ class LayeredBackground:
                 acc += coef * _sums(p, *_mirrored(corners, centroids, z0), areas, diams, dens)
             placements = self._gap_terms()
             if placements:
-                tabs, prm = self._tables(placements, p, src)
-                acc += remainder_sums(p, src, owner, w, dens, tabs, prm)
+                tabs, prm = self._tables(placements, p, vertices)
+                rules_ = source_rules(panels, float(np.min(prm[:, 10])))
+                acc += remainder_sums(p, rules_, np.array(self.factors), dens, tabs, prm)
             out[inside] = acc * scale
         for side, below in ((-1, True), (1, False)):
             rows = np.nonzero(kind == side)[0]
@@ -357,8 +362,9 @@ class LayeredBackground:
             exact, placements = self._transmitted_terms(below)
             acc = exact * _sums(p, corners, centroids, areas, diams, dens)
             if placements:
-                tabs, prm = self._tables(placements, p, src)
-                acc += remainder_sums(p, src, owner, w, dens, tabs, prm)
+                tabs, prm = self._tables(placements, p, vertices)
+                rules_ = source_rules(panels, float(np.min(prm[:, 10])))
+                acc += remainder_sums(p, rules_, np.array(self.factors), dens, tabs, prm)
             out[rows] = acc * scale
         return out[:, 0], out[:, 1:]
 
@@ -393,15 +399,43 @@ class LayeredBackground:
         return np.where(z < gap.z_lo - tol, -1, np.where(z > gap.z_hi + tol, 1, 0))
 
 
-def source_points(panels, n_points: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Quadrature points (P, 3), their panel (P,) and weights (P,) in m^2: 1 (centroid) or 3."""
-    corners, centroids, areas, _ = panels.kernel_arrays
-    if n_points == 1:
-        return centroids, np.arange(panels.n), areas
-    bary, wts = pint.RULE3_BARY, pint.RULE3_W
-    pts = np.einsum("qa,nac->nqc", bary, corners).reshape(-1, 3)
-    owner = np.repeat(np.arange(panels.n), len(wts))
-    return np.ascontiguousarray(pts), owner, (areas[:, None] * wts[None, :]).ravel()
+def _split_bary(m: int) -> np.ndarray:
+    """(4^m, 3, 3) barycentric corners of the m-fold midpoint subdivision of a triangle."""
+    tris = [np.eye(3)]
+    for _ in range(m):
+        nxt = []
+        for a, b, c in tris:
+            ab, bc, ca = (a + b) / 2, (b + c) / 2, (c + a) / 2
+            nxt += [np.array(t) for t in ((a, ab, ca), (ab, b, bc), (ca, bc, c), (ab, bc, ca))]
+        tris = nxt
+    return np.array(tris)
+
+
+def source_rules(panels, l_min: float) -> tuple[np.ndarray, ...]:
+    """Per panel: centroid (N, 3), area (N,), diameter (N,), then points (N, q, 3) and weights
+    (N, q) in m^2 of the 3-point rule, the 7-point rule and the 7-point rule on sub-triangles
+    no wider than l_min (at most :data:`MAX_SPLITS` halvings)."""
+    corners, centroids, areas, diams = panels.kernel_arrays
+    p3 = np.einsum("qa,nac->nqc", pint.RULE3_BARY, corners)
+    w3 = areas[:, None] * pint.RULE3_W[None, :]
+    p7 = np.einsum("qa,nac->nqc", pint.RULE7_BARY, corners)
+    w7 = areas[:, None] * pint.RULE7_W[None, :]
+    m = min(MAX_SPLITS, max(0, math.ceil(math.log2(max(float(diams.max()) / l_min, 1.0)))))
+    sub = _split_bary(m)
+    bary = np.einsum("qa,sab->sqb", pint.RULE7_BARY, sub).reshape(-1, 3)
+    wf = np.tile(pint.RULE7_W, len(sub)) / len(sub)
+    pf = np.einsum("qa,nac->nqc", bary, corners)
+    return (
+        centroids,
+        areas,
+        diams,
+        np.ascontiguousarray(p3),
+        np.ascontiguousarray(w3),
+        np.ascontiguousarray(p7),
+        np.ascontiguousarray(w7),
+        np.ascontiguousarray(pf),
+        np.ascontiguousarray(areas[:, None] * wf[None, :]),
+    )
 
 
 def _sums(pts, corners, centroids, areas, diams, dens) -> np.ndarray:
@@ -445,62 +479,79 @@ def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
     res[2] = fz
 
 
+@njit(cache=True, inline="always")
+def _add_point(tx, ty, tz, sx, sy, sz, w, tabs, prm, buf, res, acc) -> None:
+    dx = tx - sx
+    dy = ty - sy
+    rho = math.sqrt(dx * dx + dy * dy)
+    _terms_at(tabs, prm, rho, tz, sz, buf, res)
+    acc[0] += w * res[0]
+    if rho > 0.0:
+        acc[1] += w * res[1] * dx / rho
+        acc[2] += w * res[1] * dy / rho
+    acc[3] += w * res[2]
+
+
+@njit(cache=True)
+def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
+    """acc = remainder (value, gradient) at target t of panel j, rule chosen by the length."""
+    cen, area, diam, p3, w3, p7, w7, pf, wf = rules
+    for c in range(4):
+        acc[c] = 0.0
+    dx = t[0] - cen[j, 0]
+    dy = t[1] - cen[j, 1]
+    amin = np.inf
+    for k in range(prm.shape[0]):
+        amin = min(amin, prm[k, 5] + prm[k, 6] * t[2] + prm[k, 7] * cen[j, 2] + prm[k, 1])
+    length = math.sqrt(dx * dx + dy * dy + amin * amin)
+    if length >= factors[0] * diam[j]:
+        c = cen[j]
+        _add_point(t[0], t[1], t[2], c[0], c[1], c[2], area[j], tabs, prm, buf, res, acc)
+        return
+    if length >= factors[1] * diam[j]:
+        pts, wts = p3, w3
+    elif length >= factors[2] * diam[j]:
+        pts, wts = p7, w7
+    else:
+        pts, wts = pf, wf
+    for q in range(pts.shape[1]):
+        s = pts[j, q]
+        _add_point(t[0], t[1], t[2], s[0], s[1], s[2], wts[j, q], tabs, prm, buf, res, acc)
+
+
 @njit(cache=True, parallel=True)
-def remainder_dense(targets, src, owner, w, n_panels, tabs, prm) -> np.ndarray:
-    """(M, n_panels): sum over each panel's points of w T(rho, a), summed over the terms."""
+def remainder_matrix(targets, rules, factors, tabs, prm) -> np.ndarray:
+    """(M, N): the remainder integrated over every panel at every target (``rules`` from
+    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`)."""
     m = targets.shape[0]
-    out = np.zeros((m, n_panels))
+    n = rules[0].shape[0]
+    out = np.empty((m, n))
     for i in prange(m):
         buf = np.empty(3)
         res = np.empty(3)
-        for p in range(src.shape[0]):
-            dx = targets[i, 0] - src[p, 0]
-            dy = targets[i, 1] - src[p, 1]
-            _terms_at(tabs, prm, math.sqrt(dx * dx + dy * dy), targets[i, 2], src[p, 2], buf, res)
-            out[i, owner[p]] += w[p] * res[0]
+        acc = np.empty(4)
+        for j in range(n):
+            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+            out[i, j] = acc[0]
     return out
 
 
 @njit(cache=True, parallel=True)
-def remainder_collocation(points, w, tabs, prm) -> np.ndarray:
-    """(N, N) of w_j T(x_i, x_j) at the centroids: the summed terms are symmetric in (z, z'),
-    so each pair is evaluated once."""
-    n = points.shape[0]
-    out = np.empty((n, n))
-    for i in prange(n):
-        buf = np.empty(3)
-        res = np.empty(3)
-        for j in range(i, n):
-            dx = points[i, 0] - points[j, 0]
-            dy = points[i, 1] - points[j, 1]
-            _terms_at(tabs, prm, math.sqrt(dx * dx + dy * dy), points[i, 2], points[j, 2], buf, res)
-            out[i, j] = w[j] * res[0]
-            out[j, i] = w[i] * res[0]
-    return out
-
-
-@njit(cache=True, parallel=True)
-def remainder_sums(targets, src, owner, w, dens, tabs, prm) -> np.ndarray:
-    """(M, 4, K): sum over source points of w dens T and its gradient in the target."""
+def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
+    """(M, 4, K): sum over panels of dens times the remainder and its gradient at targets."""
     m = targets.shape[0]
+    n = rules[0].shape[0]
     nk = dens.shape[1]
     out = np.zeros((m, 4, nk))
     for i in prange(m):
         buf = np.empty(3)
         res = np.empty(3)
-        for p in range(src.shape[0]):
-            dx = targets[i, 0] - src[p, 0]
-            dy = targets[i, 1] - src[p, 1]
-            rho = math.sqrt(dx * dx + dy * dy)
-            _terms_at(tabs, prm, rho, targets[i, 2], src[p, 2], buf, res)
-            gx = res[1] * dx / rho if rho > 0.0 else 0.0
-            gy = res[1] * dy / rho if rho > 0.0 else 0.0
-            for k in range(nk):
-                q = w[p] * dens[owner[p], k]
-                out[i, 0, k] += q * res[0]
-                out[i, 1, k] += q * gx
-                out[i, 2, k] += q * gy
-                out[i, 3, k] += q * res[2]
+        acc = np.empty(4)
+        for j in range(n):
+            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+            for c in range(4):
+                for k in range(nk):
+                    out[i, c, k] += dens[j, k] * acc[c]
     return out
 
 

@@ -19,7 +19,7 @@ from elopt.physics.bem3d.operators import SolveStats
 from elopt.physics.bem3d.panels import PanelSet
 from elopt.physics.bem3d.plane_rule import plane_rule
 from elopt.physics.errors import SolverError
-from elopt.physics.layout import Layout
+from elopt.physics.layout import EPS0_F_PER_M, Layout
 from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
 from elopt.physics.solution import ChargeSolution, SurfaceSamples, excitation_potentials
 
@@ -62,7 +62,7 @@ class LevelResult3D:
     @cached_property
     def _peaks(self) -> tuple[LevelPeak, ...]:
         s = self.excitation_samples
-        field = np.abs(s["sigma"][:, 0]) / self.layout.eps_F_per_m
+        field = np.abs(s["sigma"][:, 0]) / s["eps_F_per_m"]
         singular = self.panels.feature[s["panel"]]
         return peaks_per_conductor(self.layout.names, s["owner"], field, s["points_m"], singular)
 
@@ -71,7 +71,8 @@ def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied
     """Samples of every panel (closed: one; sheet: one per face) for densities (N, K).
 
     Keys: ``points_m`` (S, 3), ``normals`` (S, 3), ``panel`` (S,) panel index, ``owner`` (S,),
-    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the density on that face, ``area_m2`` (S,).
+    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the density on that face, ``area_m2`` (S,),
+    ``eps_F_per_m`` (S,) the permittivity just outside the face.
     """
     p = level.panels
     mesh = p.mesh
@@ -105,14 +106,28 @@ def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied
         sigma = [dens[keep], on_face[: len(sheet)], on_face[len(sheet) :]]
         area = [mesh.areas_m2[keep], mesh.areas_m2[sheet], mesh.areas_m2[sheet]]
     panel_all = np.concatenate(panel)
+    normals_all = np.concatenate(normals)
+    points_all = np.concatenate(points)
+    eps = np.full(len(panel_all), layout.eps_F_per_m)
+    if p.background is not None:
+        # planar layers: the permittivity just outside each face; -grad . n of the potential
+        # integrals is eps_medium E . n, the face's free charge eps_face E . n
+        off = (_FACE_OFFSET * mesh.diameters_m[panel_all])[:, None] * normals_all
+        eps = EPS0_F_PER_M * p.background.eps_r_at(points_all + off)
+        if len(sheet):
+            sigma[1:] = [
+                sg * (e / layout.eps_F_per_m)[:, None]
+                for sg, e in zip(sigma[1:], np.split(eps[-2 * len(sheet) :], 2), strict=True)
+            ]
     return {
-        "points_m": np.concatenate(points),
-        "normals": np.concatenate(normals),
+        "points_m": points_all,
+        "normals": normals_all,
         "panel": panel_all,
         "owner": p.owner[panel_all],
         "face": np.concatenate(face),
         "sigma": np.concatenate(sigma),
         "area_m2": np.concatenate(area),
+        "eps_F_per_m": eps,
     }
 
 
@@ -188,7 +203,7 @@ class PanelSolution(ChargeSolution):
             kind="panels",
             points_m=s["points_m"][sel],
             sigma_C_per_m2=sigma,
-            field_V_per_m=np.abs(sigma) / self.eps,
+            field_V_per_m=np.abs(sigma) / s["eps_F_per_m"][sel],
             area_m2=s["area_m2"][sel],
             face=s["face"][sel],
             normal=s["normals"][sel],
@@ -199,6 +214,11 @@ class PanelSolution(ChargeSolution):
     def _require_plane(self) -> None:
         if not self.layout.ground_plane:
             raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        if self.panels.background is not None:
+            raise SolverError(
+                "ground-plane charge and plane derivatives are not available with planar "
+                "layers in 3-D (the layer on the plane changes with it)"
+            )
 
     @cached_property
     def _plane_rule(self) -> tuple[np.ndarray, np.ndarray]:
