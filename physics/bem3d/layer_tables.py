@@ -12,7 +12,8 @@ its nearest singularity lies at a distance lam = a_min + delta > 0 below the tab
 The integral is cut at K where the proven tail bound B int_K^inf k^m e^{-k s} dk (m = 0, 1, 2
 for T and its derivatives, s = lam) is below ``HANKEL_TAIL`` of the kernel scale
 1 / L^(m+1), L the layout size, and integrated by 16-point Gauss-Legendre panels no wider than
-5 / rho_max, 8 / lam and 4 / (the shortest length scale of c). T, dT/drho, dT/da and
+5 / rho_max, 8 / lam and 4 / H (H the longest exponent length in c, so that
+c's slowest factors e^{-k H} change by at most e^4 per panel). T, dT/drho, dT/da and
 d2T/drho da are tabulated on a uniform grid in u = asinh(rho / lam), v = ln(a + delta) and
 interpolated by bicubic Hermite patches (error O(h^4)). The grid is halved until the
 interpolation error measured against the integral itself at every cell centre is below
@@ -79,7 +80,8 @@ def hankel_rule(k_max: float, widths: Sequence[float]) -> tuple[np.ndarray, np.n
 @dataclass(frozen=True)
 class SpectralTerm:
     """c(k) of one term, its own decay ``delta`` (m), a bound B with |c| <= B e^{-k delta}
-    (may depend on the cutoff K), and the shortest length over which c varies (m)."""
+    (may depend on the cutoff K), and ``length``: the longest exponent length H of the
+    factors e^{-k H} in c (m; the Gauss panels are no wider than 4 / H)."""
 
     coef: Callable[[np.ndarray], np.ndarray]
     delta: float
