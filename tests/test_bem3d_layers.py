@@ -55,6 +55,17 @@ def test_sphere_centred_on_interface_of_two_half_spaces():
     err = abs(sol.capacitance_matrix_F[0, 0] / exact - 1)
     assert err <= sol.rel_error_estimate
     assert abs(sol.capacitance_matrix_extrapolated_F[0, 0] / exact - 1) < 0.1 * err
+    # the same item: the field V/R is radial and equal on both hemispheres while the free
+    # charge differs in the ratio eps1 : eps2 (surface fields use the permittivity outside)
+    samples = sol.surface_samples("ball")
+    upper = samples.points_m[:, 2] > 0
+    mean = {}
+    for name, sel in (("upper", upper), ("lower", ~upper)):
+        w = samples.area_m2[sel]
+        field = np.average(samples.field_V_per_m[sel], weights=w)
+        assert abs(field - 1.0) <= sol.rel_error_estimate
+        mean[name] = np.average(samples.sigma_C_per_m2[sel], weights=w)
+    assert abs(mean["lower"] / mean["upper"] / E_LO - 1) <= sol.rel_error_estimate
 
 
 def test_thin_disk_in_interface_plane():
