@@ -53,7 +53,8 @@ no wider than 20 / a_max (a_max the largest exponent) and growing by at most hal
 end (so exp(-k a) is resolved for every a present), then at most ``width`` wide.
 
 API (stable): :class:`Slab`, :class:`SpectralTerm`, :class:`StackSpectrum` (``slabs``,
-``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``exponent_range``, ``panel_width``),
+``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``quadrature``, ``exponent_range``,
+``panel_width``),
 :class:`HankelRule`, :func:`hankel_rule`, :data:`TAIL_TOL`.
 """
 
@@ -408,6 +409,33 @@ class StackSpectrum:
             else:
                 hi = mid
         return hi
+
+    def quadrature(
+        self,
+        target: int,
+        source: int,
+        z_targets: np.ndarray,
+        z_sources: np.ndarray,
+        r_max: float,
+        tol: float,
+        moment: int = 0,
+    ) -> HankelRule | None:
+        """Hankel rule for the remainder of the (target, source) slab pair over the points
+        (heights (M,), (N,); r_max the largest radius of target or source, m): cut at
+        :meth:`cutoff` for the absolute tolerance ``tol`` (moment 1 for fields), panels from
+        :meth:`panel_width` and :func:`hankel_rule`; None when there is no remainder."""
+        k_max = self.cutoff(target, source, z_targets, z_sources, tol, moment)
+        if k_max is None:
+            return None
+        terms = [
+            t
+            for t in self.terms(target, source, np.array([k_max]), k_max)
+            if not t.direct and t.bound > 0
+        ]
+        ranges = [self.exponent_range(t, z_targets, z_sources) for t in terms]
+        c_min = min(r[0] + t.decay for r, t in zip(ranges, terms, strict=True))
+        a_max = max(r[1] for r in ranges)
+        return hankel_rule(k_max, self.panel_width(r_max, c_min), a_max)
 
     def panel_width(self, r_max: float, decay_m: float) -> float:
         """Widest k-panel (1/m): 5 / r_max for J0(k r) J0(k r'), 8 / decay_m for the

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy.special import j0
 
-from elopt.physics.layer_spectrum import TAIL_TOL, StackSpectrum, hankel_rule
+from elopt.physics.layer_spectrum import TAIL_TOL, StackSpectrum
 from elopt.physics.media import LayerStack, PlanarLayer
 
 K_NODES = np.array([0.05, 0.7, 3.0, 11.0, 45.0])
@@ -129,13 +129,9 @@ def _point_potential(sp: StackSpectrum, rho: float, z: float, zs: float) -> floa
     for term in sp.terms(t, s, np.array([1.0])):
         a = abs(z - zs) if term.direct else float(term.target_length(z) + term.source_length(zs))
         total += term.limit / math.hypot(rho, a)
-    k_max = sp.cutoff(t, s, zt, zz, TAIL_TOL)
-    if k_max is None:
+    rule = sp.quadrature(t, s, zt, zz, rho, TAIL_TOL)
+    if rule is None:
         return total
-    terms = sp.terms(t, s, np.array([k_max]), k_max)
-    c_min = min(sp.exponent_range(x, zt, zz)[0] + x.decay for x in terms if x.bound > 0)
-    a_max = max(sp.exponent_range(x, zt, zz)[1] for x in terms)
-    rule = hankel_rule(k_max, sp.panel_width(rho, c_min), a_max)
     for term in sp.terms(t, s, rule.k):
         if term.direct:
             continue
