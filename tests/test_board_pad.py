@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import replace
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -208,8 +209,8 @@ def test_layers_the_solver_cannot_handle_yet_are_refused_before_any_solve():
     with pytest.raises(ElectrodeError) as info:
         fam.validate_design(p, COARSE)
     text = str(info.value)
-    assert "board_eps_r = 4.4 must be 1 until the 3-D solver handles planar layers" in text
-    assert "film_eps_r = 80 must be 1" in text
+    assert "board_eps_r = 4.4, film_eps_r = 80 must be 1 until the 3-D solver handles" in text
+    assert "\n" not in text
     # A layer of the medium's permittivity changes nothing and is dropped for the solve.
     fam.validate_design(ROUND, COARSE)
 
@@ -289,3 +290,46 @@ def test_level_matched_change_uses_the_finest_common_level(round_evaluation):
     expected = touch.levels[0].capacitance_F[0, 0] - base.levels[0].capacitance_F[0, 0]
     assert value == pytest.approx(expected, rel=1e-12)
     assert math.isnan(err)
+
+
+AIR_KEY = """
+[geometry]
+family = "board_pad"
+pad_shape = "round"
+pad_length_mm = 6.0
+clearance_mm = 0.8
+pour_size_mm = 12.0
+board_thickness_mm = 1.0
+board_eps_r = 1.0
+cover_thickness_mm = 1.0
+cover_eps_r = 1.0
+target_distance_mm = 1.0
+target_size_mm = 6.0
+finger_length_mm = 10.0
+drive_V = 3.3
+
+[solver]
+rel_accuracy = 0.05
+
+[evaluation]
+mesh_step_mm = 1.5
+max_level = 1
+"""
+
+
+def test_command_line_solve_of_an_air_key_gives_strict_json(tmp_path, capsys):
+    import json
+
+    from elopt.optimizer.cli.main import main
+
+    path = tmp_path / "key.toml"
+    path.write_text(AIR_KEY)
+    assert main(["solve", str(path), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    text = json.dumps(out)
+    assert "touch_signal_fF" in text and "NaN" not in text
+    # The demo, with real permittivities, is refused in one line before any solve.
+    demo = Path(__file__).resolve().parents[1] / "configs" / "cooker_hood_touch_key.toml"
+    assert main(["solve", str(demo)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "board_eps_r = 4.4" in err

@@ -395,17 +395,15 @@ class BoardPad(SolvedByPanels, ElectrodeFamily):
         self.validate(params)
         if SOLVER_HANDLES_LAYERS:
             return
-        rules = RuleBook(self.name, params)
         keys = ["board_eps_r", "cover_eps_r"] if params.cover_thickness_mm > 0 else ["board_eps_r"]
         if film_solved(params):
             keys.append("film_eps_r")
-        for key in keys:
-            if getattr(params, key) != 1.0:
-                rules.broken.append(
-                    f"{key} = {getattr(params, key):.6g} must be 1 until the 3-D solver handles "
-                    "planar layers (board, cover and film are layers)"
-                )
-        rules.raise_if_broken()
+        given = [f"{key} = {getattr(params, key):.6g}" for key in keys if getattr(params, key) != 1]
+        if given:
+            raise ElectrodeError(
+                f"{self.name}: {', '.join(given)} must be 1 until the 3-D solver handles planar "
+                "layers (board, cover and film are layers)"
+            )
 
     def companion_designs(self, params: BoardPadParams, options: BoardPadOptions) -> dict[str, Any]:
         out: dict[str, Any] = {BASELINE: BoardPadCase(params, target=False)}
