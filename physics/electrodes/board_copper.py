@@ -9,8 +9,14 @@
 - hatched pour (:class:`HatchedFrameSheetSurface`): a square outline with a rectangular
   clearance hole, a border track of the line width along both edges, and lines along x and y
   at a fixed pitch (lines centred on x = k p and y = k p) between them;
-- finger: a grounded capsule (a cylinder with hemispherical ends) standing on the z axis;
+- finger: a grounded capsule (a cylinder with hemispherical ends) standing on the z axis
+  (:class:`RingBodySurface`: rings about a panel size apart along its generating curve);
 - plate: a thin square sheet parallel to the board.
+
+Round shapes are rings of vertices zipped into triangles; each ring's radius is scaled so
+that its polygon has the circle's area (:func:`area_factor`). Measured: an isolated disk's
+capacitance error and a capsule's level-to-level change are a third of what the inscribed
+polygons give at the same panel count.
 
 Every hatch edge is a break of the rectilinear grid, so each cell is wholly copper or wholly
 open and the grid is graded toward every copper edge (nested under refinement).
@@ -20,33 +26,22 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import cached_property
 
 import numpy as np
 
 from elopt.physics.bem3d import generators as gen
 from elopt.physics.bem3d.grading import axis_nodes
 from elopt.physics.bem3d.mesh import TriangleMesh
-from elopt.physics.bem3d.revolve import RevolvedSurface
 from elopt.physics.bem3d.surfaces import Surface
 from elopt.physics.geometry import Curve, Segment, rounded_polyline
 
+#: Grading exponent across the rims of round copper: on an isolated disk (C = 8 eps0 R) the
+#: error per panel is about half that of exponent 2 (measured: 8.6e-4 with 540 panels
+#: against 1.4e-3 with 614).
+RING_GRADE = 3.0
 #: Hatch edges closer than this share of the line width to another edge are merged into it,
 #: so that no grid cell is a sliver.
 MERGE_FRACTION = 0.02
-
-
-@dataclass(frozen=True)
-class PanelCountedRevolvedSurface(RevolvedSurface):
-    """A :class:`RevolvedSurface` that can say its panel count: level 0 is meshed once and
-    every level has four times the panels of the one before (rings and steps both halve)."""
-
-    @cached_property
-    def _level0_panels(self) -> int:
-        return self.build(0).n_triangles
-
-    def estimated_panels(self, level: int) -> float:
-        return float(self._level0_panels) * 4.0**level
 
 
 def radial_nodes(
@@ -83,6 +78,9 @@ def zip_rings(starts: np.ndarray, counts: np.ndarray) -> np.ndarray:
         if ma == 1:
             tris.extend((a0, b0 + j, b0 + (j + 1) % mb) for j in range(mb))
             continue
+        if mb == 1:
+            tris.extend((a0 + i, b0, a0 + (i + 1) % ma) for i in range(ma))
+            continue
         i = j = 0
         while i < ma or j < mb:
             if j >= mb or (i < ma and (i + 1) / ma <= (j + 1) / mb):
@@ -103,21 +101,69 @@ def area_factor(m: int) -> float:
     return math.sqrt(t / math.sin(t))
 
 
+def ring_mesh(nodes_rz: np.ndarray, counts: np.ndarray, closed: bool) -> TriangleMesh:
+    """Rings of ``counts`` vertices through the (r, z) ``nodes_rz`` (K, 2), zipped in order;
+    each ring's radius scaled by :func:`area_factor`. A sheet faces +z at its first panel,
+    a closed body outward."""
+    verts = []
+    for (r0, z), m in zip(nodes_rz, counts, strict=True):
+        phi = 2.0 * np.pi * np.arange(m) / m
+        r = r0 * area_factor(int(m))
+        verts.append(np.stack([r * np.cos(phi), r * np.sin(phi), np.full(m, z)], axis=1))
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    mesh = TriangleMesh(np.concatenate(verts), zip_rings(starts, counts), closed=closed)
+    if closed:
+        return mesh if mesh.volume_m3 > 0 else mesh.flipped()
+    return mesh if mesh.normals[0, 2] > 0 else mesh.flipped()
+
+
 def flat_ring_mesh(
-    r_inner_m: float, r_outer_m: float, z_m: float, h_m: float, level: int, grade: float = 2.0
+    r_inner_m: float, r_outer_m: float, z_m: float, h_m: float, level: int, grade: float
 ) -> TriangleMesh:
     """Open sheet: a disk (``r_inner_m`` = 0) or annulus at ``z_m`` centred on the z axis."""
     radii = radial_nodes(r_inner_m, r_outer_m, h_m, level, grade)
     counts = ring_counts(radii, h_m / 2**level, annulus=r_inner_m > 0)
-    verts = []
-    for r0, m in zip(radii, counts, strict=True):
-        phi = 2.0 * np.pi * np.arange(m) / m
-        r = r0 * area_factor(m)
-        verts.append(np.stack([r * np.cos(phi), r * np.sin(phi), np.full(m, z_m)], axis=1))
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
-    tri = zip_rings(starts, counts)
-    mesh = TriangleMesh(np.concatenate(verts), tri, closed=False)
-    return mesh if mesh.normals[0, 2] > 0 else mesh.flipped()
+    nodes = np.stack([radii, np.full(len(radii), z_m)], axis=1)
+    return ring_mesh(nodes, counts, closed=False)
+
+
+def body_nodes(curve: Curve, h_m: float, level: int) -> np.ndarray:
+    """(r, z) nodes (K, 2) along a smooth body curve (both ends on the axis), steps of about
+    ``h_m`` / 2**level along every piece."""
+    parts = []
+    for k, piece in enumerate(curve.pieces):
+        n = max(2, math.ceil(piece.length / h_m)) * 2**level
+        pts = piece.points(np.linspace(-1.0, 1.0, n + 1))
+        parts.append(pts if k == 0 else pts[1:])
+    nodes = np.concatenate(parts)
+    nodes[[0, -1], 0] = 0.0
+    return nodes
+
+
+def body_counts(nodes_rz: np.ndarray, h_m: float) -> np.ndarray:
+    """Vertices on each ring of a body: steps of about ``h_m`` (at least 6), 1 on the axis."""
+    counts = np.maximum(6, np.ceil(2.0 * np.pi * nodes_rz[:, 0] / h_m)).astype(np.int64)
+    counts[[0, -1]] = 1
+    return counts
+
+
+@dataclass(frozen=True)
+class RingBodySurface(Surface):
+    """A smooth closed body of revolution about the z axis from its generating ``curve``
+    (both ends on the axis, no corner), rings about ``h_m`` apart at level 0 and steps of
+    about ``h_m`` along each ring."""
+
+    curve: Curve
+    h_m: float
+    smooth = True
+
+    def estimated_panels(self, level: int) -> float:
+        counts = body_counts(body_nodes(self.curve, self.h_m, level), self.h_m / 2**level)
+        return float(np.sum(counts[1:] + counts[:-1]) - 2)
+
+    def build(self, level: int) -> TriangleMesh:
+        nodes = body_nodes(self.curve, self.h_m, level)
+        return ring_mesh(nodes, body_counts(nodes, self.h_m / 2**level), closed=True)
 
 
 @dataclass(frozen=True)
@@ -129,7 +175,7 @@ class FlatRingSurface(Surface):
     r_outer_m: float
     z_m: float
     h_m: float
-    grade: float = 2.0
+    grade: float = RING_GRADE
     closed: bool = False
     smooth = False
 
@@ -163,7 +209,7 @@ def finger(
 ) -> Surface:
     """Grounded finger model: a capsule of ``diameter_m`` whose tip is at ``z_bottom_m``,
     its axis at x = ``x_offset_m``, y = 0."""
-    body = PanelCountedRevolvedSurface(capsule_curve(0.5 * diameter_m, length_m, z_bottom_m), h_m)
+    body = RingBodySurface(capsule_curve(0.5 * diameter_m, length_m, z_bottom_m), h_m)
     if x_offset_m == 0.0:
         return body
     return body.transformed(translation_m=np.array([x_offset_m, 0.0, 0.0]))
