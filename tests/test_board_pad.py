@@ -333,3 +333,27 @@ def test_command_line_solve_of_an_air_key_gives_strict_json(tmp_path, capsys):
     assert main(["solve", str(demo)]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "board_eps_r = 4.4" in err
+
+
+def test_a_study_trial_in_air_takes_text_and_flag_parameters_as_fixed_values():
+    import tomllib
+
+    from elopt.optimizer.config import parse_study_config
+    from elopt.optimizer.export.trial_config import toml_key, toml_value
+    from elopt.optimizer.study import evaluate_task, trial_task
+
+    geometry = tomllib.loads(AIR_KEY)["geometry"]
+    fixed = {k: v for k, v in geometry.items() if k not in ("family", "pad_length_mm")}
+    fixed["back_ground"] = False
+    lines = "".join(f"{toml_key(k)} = {toml_value(v)}\n" for k, v in fixed.items())
+    text = (
+        '[study]\nname = "air_key"\nfamily = "board_pad"\n\n[solver]\nrel_accuracy = 0.05\n\n'
+        "[evaluation]\nmesh_step_mm = 1.5\nmax_level = 1\n\n[fixed]\n"
+        + lines
+        + "\n[search]\npad_length_mm = { low = 4.0, high = 7.0 }\n"
+        + '\n[objectives]\ntouch_signal_fF = "maximize"\n\n[budget]\ntrials = 1\n'
+    )
+    spec = parse_study_config(tomllib.loads(text), text, source="air_key.toml")
+    outcome = evaluate_task(trial_task(spec, 0, {"pad_length_mm": 5.0}))
+    assert outcome.ok, outcome.failure
+    assert outcome.metrics["touch_signal_fF"] > 0
