@@ -357,3 +357,18 @@ def test_a_study_trial_in_air_takes_text_and_flag_parameters_as_fixed_values():
     outcome = evaluate_task(trial_task(spec, 0, {"pad_length_mm": 5.0}))
     assert outcome.ok, outcome.failure
     assert outcome.metrics["touch_signal_fF"] > 0
+
+
+def test_too_fine_a_mesh_is_refused_before_meshing_naming_its_cause():
+    fine = BoardPadOptions(mesh_step_mm=0.01, max_level=1)
+    with pytest.raises(ElectrodeError) as info:
+        BoardPad().build(RECT, options=fine)
+    text = str(info.value)
+    assert "mesh_step_mm = 0.01" in text and "panels at refinement level 1" in text
+    tiny = replace(ROUND, clearance_mm=0.001, pour_size_mm=7.0)
+    with pytest.raises(ElectrodeError, match="clearance_mm = 0.001 sets the panel size"):
+        BoardPad().build(tiny)
+    absurd = BoardPadOptions(mesh_step_mm=1e-9, max_level=1)
+    for params in (ROUND, RECT):
+        with pytest.raises(ElectrodeError, match="mesh_step_mm = 1e-09"):
+            BoardPad().build(params, options=absurd)

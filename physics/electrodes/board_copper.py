@@ -39,6 +39,9 @@ from elopt.physics.geometry import Curve, Segment, rounded_polyline
 #: error per panel is about half that of exponent 2 (measured: 8.6e-4 with 540 panels
 #: against 1.4e-3 with 614).
 RING_GRADE = 3.0
+#: Above this many rings a round shape is not counted (its panels are reported infinite): a
+#: size check refuses it before anything large is allocated.
+MAX_RINGS = 1e6
 #: Hatch edges closer than this share of the line width to another edge are merged into it,
 #: so that no grid cell is a sliver.
 MERGE_FRACTION = 0.02
@@ -158,6 +161,8 @@ class RingBodySurface(Surface):
     smooth = True
 
     def estimated_panels(self, level: int) -> float:
+        if not self.curve.length * 2**level / self.h_m <= MAX_RINGS:
+            return math.inf
         counts = body_counts(body_nodes(self.curve, self.h_m, level), self.h_m / 2**level)
         return float(np.sum(counts[1:] + counts[:-1]) - 2)
 
@@ -180,6 +185,8 @@ class FlatRingSurface(Surface):
     smooth = False
 
     def estimated_panels(self, level: int) -> float:
+        if not self.r_outer_m * 2**level / self.h_m <= MAX_RINGS:
+            return math.inf
         radii = radial_nodes(self.r_inner_m, self.r_outer_m, self.h_m, level, self.grade)
         counts = ring_counts(radii, self.h_m / 2**level, annulus=self.r_inner_m > 0)
         return float(np.sum(counts[1:] + counts[:-1])) - (counts[0] == 1)
@@ -293,6 +300,8 @@ class HatchedFrameSheetSurface(Surface):
 
     def estimated_panels(self, level: int) -> float:
         # Cells are counted on the 1-D node lists: far below the cost of the mesh itself.
+        if not max(self.outer_m) * 2**level / self.h_m <= MAX_RINGS:
+            return math.inf
         xs, ys = self._nodes(level)
         if len(xs) * len(ys) > 4e7:
             return math.inf

@@ -108,7 +108,9 @@ class BoardPadParams:
         "mm", "cover top to the target's nearest point", low=0, low_open=True, mounting=True
     )
     drive_V: float = drive_parameter("pad potential (pour and target grounded)")
-    pad_width_mm: float = parameter("mm", "pad side along y (rect; round: unused)", default=0.0)
+    pad_width_mm: float = parameter(
+        "mm", "pad side along y (rect; round: unused)", default=0.0, low=0
+    )
     hatch_pitch_mm: float = parameter("mm", "hatch line pitch (0: solid pour)", default=0.0, low=0)
     hatch_line_mm: float = parameter("mm", "hatch and border track width", default=0.0, low=0)
     back_ground: bool = parameter("", "grounded plane on the board's far side", default=True)
@@ -184,10 +186,23 @@ def pour_band_m(p: BoardPadParams) -> float:
     return 0.5 * (p.pour_size_mm * MM - max(hole_size_m(p)))
 
 
+def mesh_step_terms_m(p: BoardPadParams) -> dict[str, float]:
+    """The automatic panel size's bounds (m) by the parameter that sets each: a quarter of
+    the pad's smaller side, the pour band, four clearances."""
+    ax, ay = pad_size_m(p)
+    terms = {"pad_length_mm": 0.25 * ax}
+    if p.pad_shape == "rect":
+        terms["pad_width_mm"] = 0.25 * ay
+    terms["pour_size_mm"] = pour_band_m(p)
+    terms["clearance_mm"] = 4.0 * p.clearance_mm * MM
+    return terms
+
+
 def mesh_step_m(p: BoardPadParams, options: BoardPadOptions) -> float:
+    """Panel size (m) on the copper at level 0: the option, or the automatic one."""
     if options.mesh_step_mm > 0:
         return options.mesh_step_mm * MM
-    return min(0.25 * min(pad_size_m(p)), pour_band_m(p), 4.0 * p.clearance_mm * MM)
+    return min(mesh_step_terms_m(p).values())
 
 
 def target_step_m(p: BoardPadParams, h_m: float) -> float:
@@ -252,11 +267,7 @@ def panel_size_cause(p: BoardPadParams, options: BoardPadOptions, h_m: float) ->
     if options.mesh_step_mm > 0:
         what = f"mesh_step_mm = {options.mesh_step_mm:.6g}"
     else:
-        terms = {
-            "pad_length_mm": 0.25 * min(pad_size_m(p)),
-            "pour_size_mm": pour_band_m(p),
-            "clearance_mm": 4.0 * p.clearance_mm * MM,
-        }
+        terms = mesh_step_terms_m(p)
         name = min(terms, key=terms.__getitem__)
         what = f"{name} = {getattr(p, name):.6g} sets the panel size"
     return f"{what} ({h_m / MM:.3g} mm) against a pour of {p.pour_size_mm:.6g} mm"
