@@ -4,7 +4,7 @@ The potential of a unit point charge in the layered background (``Layout.layers`
 medium and an optional grounded plane z = 0, :class:`elopt.physics.media.LayerStack`) replaces
 1 / (4 pi eps |x - x'|). Every operator here returns integrals in the homogeneous path's units
 (:mod:`.operators`, :mod:`.evaluate`): the potential is the result divided by eps0 times the
-medium's eps_r. Nothing is truncated.
+medium's eps_r. Nothing is truncated beyond the proven 1e-13 Hankel tails.
 
 *Two half-spaces* (one interface z_i, no ground plane): exact by one image with the static
 coefficient (docs/references.md item 15, Jackson sec. 4.4). Sources and targets on the same
@@ -12,24 +12,22 @@ side s: (G + r_s G*) / e_s with r_s = (e_s - e_other) / (e_s + e_other), G* the 
 in z_i; on opposite sides or on the interface: 2 G / (e_lo + e_hi). A panel lies on the side of
 its centroid, so a body crossing the interface should have mesh edges along it.
 
-*General stacks*: every conductor lies in one gap z_lo <= z <= z_hi (a layer, the medium between
-layers, or above the ground plane; faces may be touched). Inside the gap (permittivity e_s)
-
-    4 pi eps0 e_s phi = 1/R + r_lo / R_lo + r_hi / R_hi + sum_terms T(rho, a),
-
-with the exact images in the faces (their static coefficients, -1 for the ground plane) and the
-smooth spectral remainder of :mod:`elopt.physics.bem_axi.layered_kernel` (the same stack
-recursion) split into separable terms c(k) e^{-k a(z, z')}, each tabulated by
-:mod:`.layer_tables` and applied with one point per source panel (its centroid; the remainder is
-smooth on the panel scale, checked against three points in the tests). Targets in the first
-medium past either face take the transmitted form (exact part (1 + r_face) / R plus its own
-tabulated terms). Targets further out are refused.
+*General stacks*: every conductor lies in one slab of :class:`elopt.physics.layer_spectrum.
+StackSpectrum` (a layer, the medium between layers, or above the ground plane; its faces may be
+touched). For targets in any slab t, the shared spectrum gives separable terms
+coef(k) e^{-k a(z, z')}; each term's limit coef(inf) is an exact image, limit / |x - x*| with the
+source panel mapped to z* = t_ref - t_sign s_sign (z' - s_ref) (a mirror in a slab face, or
+the source itself for the direct and the transmitted terms), integrated over the panel by the
+closed-form / Gauss rules of :mod:`.panel_integrals`. The smooth remainder coef - limit is
+tabulated in (rho, a) by :mod:`.layer_tables` and integrated over each panel by a rule chosen
+from its length (:data:`RULE_FACTORS`).
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 from numba import njit, prange
@@ -42,8 +40,8 @@ from elopt.physics.bem3d.layer_tables import (
     build_table,
     hermite_uv,
 )
-from elopt.physics.bem_axi.layered_kernel import Gap, _exact_face, find_gap
 from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.layer_spectrum import StackSpectrum
 from elopt.physics.media import LayerStack
 
 FOUR_PI = 4.0 * math.pi
@@ -63,40 +61,49 @@ _BLOCK = 4096
 
 @dataclass(frozen=True)
 class Placement:
-    """A term placed in (z, z'): a = alpha + st z + ss z', scaled by ``weight``."""
+    """A remainder term placed in (z, z'): a = alpha + st z + ss z'."""
 
     term: SpectralTerm
     alpha: float
     st: float
     ss: float
-    weight: float = 1.0
 
 
-def _mirrored(corners: np.ndarray, centroids: np.ndarray, z0: float):
+@dataclass(frozen=True)
+class Image:
+    """An exact image: ``limit`` / |x - x*| with the source's height mapped to c0 + m z'."""
+
+    limit: float
+    c0: float
+    m: float
+
+
+def _mapped(corners: np.ndarray, centroids: np.ndarray, c0: float, m: float):
+    """Corners and centroids with z -> c0 + m z (m = -1: a mirror, +1 with c0 = 0: itself)."""
+    if m == 1.0 and c0 == 0.0:
+        return corners, centroids
     c = corners.copy()
-    c[..., 2] = 2.0 * z0 - c[..., 2]
-    m = centroids.copy()
-    m[:, 2] = 2.0 * z0 - m[:, 2]
-    return np.ascontiguousarray(c), np.ascontiguousarray(m)
+    c[..., 2] = c0 + m * c[..., 2]
+    g = centroids.copy()
+    g[:, 2] = c0 + m * g[:, 2]
+    return np.ascontiguousarray(c), np.ascontiguousarray(g)
 
 
-def _stack_span(stack: LayerStack, gap: Gap) -> float:
-    """Twice the span of the finite heights (interfaces, ground plane, gap faces): the
-    longest exponent length e^{-2 k d} of a reflection function has (inf: none)."""
-    zs = [float(z) for z in stack.interfaces_m] + ([0.0] if stack.ground_plane else [])
-    zs += [z for z in (gap.z_lo, gap.z_hi) if math.isfinite(z)]
+def _remainder_coef(spec: StackSpectrum, t: int, s: int, idx: int, k: np.ndarray) -> np.ndarray:
+    term = spec.terms(t, s, k)[idx]
+    return term.coef - term.limit
+
+
+def _remainder_bound(spec: StackSpectrum, t: int, s: int, idx: int, k_cut: float) -> float:
+    return spec.terms(t, s, np.array([k_cut]), k_cut)[idx].bound
+
+
+def _exponent_span(spec: StackSpectrum) -> float:
+    """Twice the span of the finite slab bounds: the longest exponent length e^{-2 k d} of a
+    reflection function (inf: none). The k-panels resolve it (see :mod:`.layer_tables`)."""
+    zs = [v for sl in spec.slabs for v in (sl.z_lo, sl.z_hi) if math.isfinite(v)]
     span = max(zs) - min(zs) if zs else 0.0
     return 2.0 * span if span > 0 else math.inf
-
-
-def _behind(gap: Gap, below: bool) -> float:
-    """Thickness of the first medium past a face (inf for a half-space)."""
-    return gap._beyond(below)[0][0][1]
-
-
-def _nonzero(coef, length: float) -> bool:
-    k = np.array([1e-3, 0.1, 0.5, 1.0, 2.0, 5.0]) / (length if math.isfinite(length) else 1.0)
-    return bool(np.any(np.abs(coef(k)) > 0.0))
 
 
 class LayeredBackground:
@@ -108,17 +115,17 @@ class LayeredBackground:
         self.eps_medium = float(stack.medium_eps_r)
         self.table_rel_tol = TABLE_REL_TOL
         self.factors = RULE_FACTORS
+        self.tables: list[RemainderTable] = []
         ifaces = stack.interfaces_m
         if len(ifaces) == 1 and not stack.ground_plane:
             self.kind = "two_half_spaces"
             self.z_i = float(ifaces[0])
             self.e_lo = stack.eps_r_below(self.z_i)
             self.e_hi = stack.eps_r_above(self.z_i)
-            self.gap = None
         else:
-            self.kind = "gap"
-            self.gap = find_gap(stack, z_min, z_max, what)
-        self.tables: list[RemainderTable] = []
+            self.kind = "stack"
+            self.spectrum = StackSpectrum(stack)
+            self.source_slab = self._find_source_slab(z_min, z_max, what)
 
     # -- two half-spaces ---------------------------------------------------------------------
     def _side(self, z: np.ndarray) -> np.ndarray:
@@ -133,114 +140,61 @@ class LayeredBackground:
             return self.eps_medium / e_s, self.eps_medium * (e_s - e_o) / (e_s + e_o) / e_s
         return 2.0 * self.eps_medium / (e_lo + e_hi), 0.0
 
-    # -- general stacks: spectral terms ------------------------------------------------------
-    def _gap_terms(self) -> list[Placement]:
-        gap = self.gap
-        has_lo, has_hi = math.isfinite(gap.z_lo), math.isfinite(gap.z_hi)
-        t = gap.z_hi - gap.z_lo
-        length = _stack_span(self.stack, gap)
-        out: list[Placement] = []
-
-        def refl(k):
-            gd = gap._side_reflection(k, True)
-            gu = gap._side_reflection(k, False)
-            return gd, gu
-
-        if has_lo and has_hi:
-            exact_lo, exact_hi = _exact_face(gap, True), _exact_face(gap, False)
-
-            def den(k, gd, gu):
-                return 1.0 - gu * gd * np.exp(-2.0 * k * t)
-
-            def c_lo(k):
-                (gd, r_lo), (gu, _) = refl(k)
-                return gd / den(k, gd, gu) - r_lo
-
-            def c_hi(k):
-                (gd, _), (gu, r_hi) = refl(k)
-                return gu / den(k, gd, gu) - r_hi
-
-            def c_cross(k):
-                (gd, _), (gu, _) = refl(k)
-                return gu * gd * np.exp(-k * t) / den(k, gd, gu)
-
-            def bound(kc):
-                return 3.0 / (1.0 - math.exp(-2.0 * kc * t))
-
-            d_lo = 2 * t if exact_lo else min(2 * _behind(gap, True), 2 * t)
-            d_hi = 2 * t if exact_hi else min(2 * _behind(gap, False), 2 * t)
-            lo = SpectralTerm(c_lo, d_lo, bound, length)
-            hi = SpectralTerm(c_hi, d_hi, bound, length)
-            cross = SpectralTerm(c_cross, t, bound, length)
-            out += [Placement(lo, -2 * gap.z_lo, 1, 1), Placement(hi, 2 * gap.z_hi, -1, -1)]
-            out += [Placement(cross, t, 1, -1), Placement(cross, t, -1, 1)]
-        elif has_lo and not _exact_face(gap, True):
-            term = SpectralTerm(
-                lambda k: np.subtract(*gap._side_reflection(k, True)),
-                2 * _behind(gap, True),
-                2.0,
-                length,
+    # -- general stacks ------------------------------------------------------------------------
+    def _find_source_slab(self, z_min: float, z_max: float, what: str) -> int:
+        """The slab holding every source height (on an interface only: the slab above)."""
+        tol = 1e-12 * self.size
+        mid = z_min if z_max - z_min <= tol else 0.5 * (z_min + z_max)
+        s = int(self.spectrum.slab_of(np.array([mid]))[0])
+        slab = self.spectrum.slabs[max(s, 0)]
+        if s < 0 or z_min < slab.z_lo - tol or z_max > slab.z_hi + tol:
+            face = slab.z_lo if (s < 0 or z_min < slab.z_lo - tol) else slab.z_hi
+            raise GeometryError(
+                f"{what}: span heights {z_min:.6g} .. {z_max:.6g} m across the layer interface "
+                f"at z = {face:.6g} m; every conductor must lie in one slab between layer "
+                "interfaces (it may rest on a face, or straddle the single interface of two "
+                "half-spaces)"
             )
-            out.append(Placement(term, -2 * gap.z_lo, 1, 1))
-        elif has_hi and not _exact_face(gap, False):
-            term = SpectralTerm(
-                lambda k: np.subtract(*gap._side_reflection(k, False)),
-                2 * _behind(gap, False),
-                2.0,
-                length,
-            )
-            out.append(Placement(term, 2 * gap.z_hi, -1, -1))
-        return [p for p in out if _nonzero(p.term.coef, length)]
+        return s
 
-    def _transmitted_terms(self, below: bool) -> tuple[float, list[Placement]]:
-        """Exact coefficient (1 + r_face) and the remainder terms for targets past a face."""
-        gap = self.gap
-        face = gap.z_lo if below else gap.z_hi
-        other = gap.z_hi if below else gap.z_lo
-        d = _behind(gap, below)
-        t = gap.z_hi - gap.z_lo
-        both = math.isfinite(gap.z_lo) and math.isfinite(gap.z_hi)
-        length = _stack_span(self.stack, gap)
-        r_face = gap._reflections(np.array([1e300]), below)[2]
+    def target_slabs(self, pts: np.ndarray) -> np.ndarray:
+        """Slab (M,) of each target; points on a face of the sources' slab count as inside it.
+        Points below a grounded plane are refused."""
+        z = pts[:, 2]
+        tol = 1e-12 * self.size
+        out = self.spectrum.slab_of(z)
+        src = self.spectrum.slabs[self.source_slab]
+        on_face = (np.abs(z - src.z_lo) <= tol) | (np.abs(z - src.z_hi) <= tol)
+        out = np.where(on_face, self.source_slab, out)
+        if np.any(out < 0):
+            zb = float(z[np.argmax(out < 0)])
+            raise GeometryError(f"point at z = {zb:.6g} m lies below the grounded plane z = 0")
+        return out
 
-        def parts(k):
-            gd = gap._reflections(k, True)[0]
-            gu = gap._reflections(k, False)[0]
-            gam, gam_in, _ = gap._reflections(k, below)
-            e2d = np.exp(-2 * k * d) if math.isfinite(d) else np.zeros_like(k)
-            c1 = (1 + gam) / (1 + gam_in * e2d)
-            if both:
-                et = np.exp(-k * t)
-                dn = 1 - gu * gd * et * et
-                far = c1 * (gu if below else gd) * et / dn
-                return c1 / dn, far, gam_in
-            return c1, np.zeros_like(k), gam_in
-
-        def bound(kc):
-            fd = 1.0 - math.exp(-2.0 * kc * d) if math.isfinite(d) else 1.0
-            ft = 1.0 - math.exp(-2.0 * kc * t) if both else 1.0
-            return 8.0 / (fd * ft)
-
-        # w = distance of the target past the face; source distances to the near/far face.
-        sw = -1.0 if below else 1.0  # w = sw (z - face)
-        s_near = 1.0 if below else -1.0  # near distance = s_near (z' - face)
-        s_far = -s_near  # far distance = s_far (z' - other)
-        near_a = SpectralTerm(
-            lambda k: parts(k)[0] - (1 + r_face), min(2 * d, 2 * t), bound, length
-        )
-        near_b = SpectralTerm(lambda k: parts(k)[0] * parts(k)[2], 0.0, bound, length)
-        far_a = SpectralTerm(lambda k: parts(k)[1], t, bound, length)
-        far_b = SpectralTerm(lambda k: parts(k)[1] * parts(k)[2], t, bound, length)
-        dd = 2 * d if math.isfinite(d) else 0.0
-        out = [
-            # e^{-k w} e^{-k near}: a = sw (z - face) + s_near (z' - face)
-            Placement(near_a, -(sw + s_near) * face, sw, s_near),
-            # e^{-k (2d - w)} e^{-k near}
-            Placement(near_b, dd + sw * face - s_near * face, -sw, s_near),
-            Placement(far_a, -sw * face - s_far * other, sw, s_far),
-            Placement(far_b, dd + sw * face - s_far * other, -sw, s_far),
-        ]
-        return 1.0 + r_face, [p for p in out if _nonzero(p.term.coef, length)]
+    def slab_terms(self, target: int) -> tuple[list[Image], list[Placement]]:
+        """Exact images and remainder placements for targets in slab ``target``."""
+        spec, s = self.spectrum, self.source_slab
+        images: list[Image] = []
+        placements: list[Placement] = []
+        length = _exponent_span(spec)
+        for idx, term in enumerate(spec.terms(target, s, np.array([1.0]), 1.0)):
+            if term.direct:
+                images.append(Image(term.limit, 0.0, 1.0))
+                continue
+            m = -float(term.t_sign * term.s_sign)
+            if term.limit != 0.0:
+                c0 = term.t_ref + term.t_sign * term.s_sign * term.s_ref
+                images.append(Image(term.limit, float(c0), m))
+            if term.bound > 0.0 and math.isfinite(term.decay):
+                st = SpectralTerm(
+                    partial(_remainder_coef, spec, target, s, idx),
+                    float(term.decay),
+                    partial(_remainder_bound, spec, target, s, idx),
+                    length,
+                )
+                alpha = -term.t_sign * term.t_ref - term.s_sign * term.s_ref
+                placements.append(Placement(st, float(alpha), term.t_sign, term.s_sign))
+        return images, placements
 
     def _tables(self, placements, targets, sources) -> tuple[np.ndarray, np.ndarray]:
         """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair."""
@@ -248,36 +202,24 @@ class LayeredBackground:
         hi = np.maximum(targets.max(axis=0), sources.max(axis=0))
         rho_max = float(np.hypot(*(hi[:2] - lo[:2]))) * 1.001 + 1e-12 * self.size
         zt, zs = targets[:, 2], sources[:, 2]
-        built: dict[int, RemainderTable] = {}
-        ranges: dict[int, list[float]] = {}
+        ranges = []
         for p in placements:
-            a_lo = (
-                p.alpha
-                + min(p.st * zt.min(), p.st * zt.max())
-                + min(p.ss * zs.min(), p.ss * zs.max())
-            )
-            a_hi = (
-                p.alpha
-                + max(p.st * zt.min(), p.st * zt.max())
-                + max(p.ss * zs.min(), p.ss * zs.max())
-            )
-            r = ranges.setdefault(id(p.term), [math.inf, -math.inf])
-            r[0], r[1] = min(r[0], max(a_lo, 0.0)), max(r[1], max(a_hi, 0.0))
-        lams = [r[0] + p.term.delta for p in placements for r in [ranges[id(p.term)]]]
-        rho_scale = min(lams)
-        for p in placements:
-            if id(p.term) not in built:
-                a_lo, a_hi = ranges[id(p.term)]
-                built[id(p.term)] = build_table(
-                    p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol, rho_scale
-                )
-        self.tables = list(built.values())
-        nu = max(t.values.shape[0] for t in self.tables)
-        nv = max(t.values.shape[1] for t in self.tables)
+            at = (p.st * zt.min(), p.st * zt.max())
+            as_ = (p.ss * zs.min(), p.ss * zs.max())
+            a_lo = max(p.alpha + min(at) + min(as_), 0.0)
+            a_hi = max(p.alpha + max(at) + max(as_), 0.0)
+            ranges.append((a_lo, a_hi))
+        rho_scale = min(r[0] + p.term.delta for r, p in zip(ranges, placements, strict=True))
+        built = [
+            build_table(p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol, rho_scale)
+            for p, (a_lo, a_hi) in zip(placements, ranges, strict=True)
+        ]
+        self.tables = built
+        nu = max(t.values.shape[0] for t in built)
+        nv = max(t.values.shape[1] for t in built)
         tabs = np.zeros((len(placements), nu, nv, 4))
         prm = np.zeros((len(placements), 11))
-        for i, p in enumerate(placements):
-            tb = built[id(p.term)]
+        for i, (p, tb) in enumerate(zip(placements, built, strict=True)):
             n1, n2 = tb.values.shape[:2]
             tabs[i, :n1, :n2] = tb.values
             floor = math.exp(tb.v0)
@@ -285,20 +227,19 @@ class LayeredBackground:
         return tabs, prm
 
     # -- operators -----------------------------------------------------------------------------
-    def dense_matrix(self, panels, targets: np.ndarray | None = None) -> np.ndarray:
-        """(M, N) collocation matrix at ``targets`` (default: the centroids), in the units of
+    def dense_matrix(self, panels) -> np.ndarray:
+        """(N, N) collocation matrix at the centroids, in the units of
         :func:`elopt.physics.bem3d.operators.dense_matrix`."""
         corners, centroids, areas, diams = panels.kernel_arrays
-        tgt = centroids if targets is None else np.ascontiguousarray(targets, float)
         rules = pint.rules()
 
         def plain(c, m):
-            return pint.dense_potential_matrix(tgt, c, m, areas, diams, False, *rules)
+            return pint.dense_potential_matrix(centroids, c, m, areas, diams, False, *rules)
 
         if self.kind == "two_half_spaces":
             direct = plain(corners, centroids)
-            image = plain(*_mirrored(corners, centroids, self.z_i))
-            st, ss = self._side(tgt[:, 2]), self._side(centroids[:, 2])
+            image = plain(*_mapped(corners, centroids, 2.0 * self.z_i, -1.0))
+            st = ss = self._side(centroids[:, 2])
             wd = np.empty(direct.shape)
             wi = np.empty(direct.shape)
             for a in (-1, 0, 1):
@@ -306,16 +247,17 @@ class LayeredBackground:
                     sel = np.ix_(st == a, ss == b)
                     wd[sel], wi[sel] = self._half_space_weights(a, b)
             return (direct * wd + image * wi) / FOUR_PI
-        self._check_inside(tgt)
-        out = plain(corners, centroids)
-        for z0, coef in self.gap.images:
-            out += coef * plain(*_mirrored(corners, centroids, z0))
-        placements = self._gap_terms()
+        if np.any(self.target_slabs(centroids) != self.source_slab):
+            raise SolverError("layered kernel: a collocation point lies outside the sources' slab")
+        images, placements = self.slab_terms(self.source_slab)
+        out = np.zeros((panels.n, panels.n))
+        for img in images:
+            out += img.limit * plain(*_mapped(corners, centroids, img.c0, img.m))
         if placements:
-            tabs, prm = self._tables(placements, tgt, corners.reshape(-1, 3))
+            tabs, prm = self._tables(placements, centroids, corners.reshape(-1, 3))
             rules_ = source_rules(panels, float(np.min(prm[:, 10])))
-            out += remainder_matrix(tgt, rules_, np.array(self.factors), tabs, prm)
-        return out * (self.eps_medium / self.gap.eps_r / FOUR_PI)
+            out += remainder_matrix(centroids, rules_, np.array(self.factors), tabs, prm)
+        return out * (self.eps_medium / FOUR_PI)
 
     def potential_and_gradient(
         self, panels, dens: np.ndarray, pts: np.ndarray
@@ -325,80 +267,41 @@ class LayeredBackground:
         out = np.zeros((len(pts), 4, dens.shape[1]))
         if self.kind == "two_half_spaces":
             st, ss = self._side(pts[:, 2]), self._side(centroids[:, 2])
-            mirrored = _mirrored(corners, centroids, self.z_i)
+            mirrored = _mapped(corners, centroids, 2.0 * self.z_i, -1.0)
             for b in (-1, 0, 1):
                 cols = np.nonzero(ss == b)[0]
                 if not len(cols):
                     continue
-                d = _sums(pts, corners[cols], centroids[cols], areas[cols], diams[cols], dens[cols])
-                m = _sums(
-                    pts, mirrored[0][cols], mirrored[1][cols], areas[cols], diams[cols], dens[cols]
-                )
+                a_, d_ = areas[cols], diams[cols]
+                d = _sums(pts, corners[cols], centroids[cols], a_, d_, dens[cols])
+                m = _sums(pts, mirrored[0][cols], mirrored[1][cols], a_, d_, dens[cols])
                 for a in (-1, 0, 1):
                     rows = st == a
                     wd, wi = self._half_space_weights(a, b)
                     out[rows] += wd * d[rows] + wi * m[rows]
             out /= FOUR_PI
             return out[:, 0], out[:, 1:]
-        gap = self.gap
-        kind = self._check_targets(pts)
-        scale = self.eps_medium / gap.eps_r / FOUR_PI
+        slabs = self.target_slabs(pts)
         vertices = corners.reshape(-1, 3)
-        inside = np.nonzero(kind == 0)[0]
-        if len(inside):
-            p = pts[inside]
-            acc = _sums(p, corners, centroids, areas, diams, dens)
-            for z0, coef in gap.images:
-                acc += coef * _sums(p, *_mirrored(corners, centroids, z0), areas, diams, dens)
-            placements = self._gap_terms()
+        for t in np.unique(slabs):
+            rows = np.nonzero(slabs == t)[0]
+            p = np.ascontiguousarray(pts[rows])
+            images, placements = self.slab_terms(int(t))
+            acc = np.zeros((len(p), 4, dens.shape[1]))
+            for img in images:
+                acc += img.limit * _sums(
+                    p, *_mapped(corners, centroids, img.c0, img.m), areas, diams, dens
+                )
             if placements:
                 tabs, prm = self._tables(placements, p, vertices)
                 rules_ = source_rules(panels, float(np.min(prm[:, 10])))
                 acc += remainder_sums(p, rules_, np.array(self.factors), dens, tabs, prm)
-            out[inside] = acc * scale
-        for side, below in ((-1, True), (1, False)):
-            rows = np.nonzero(kind == side)[0]
-            if not len(rows):
-                continue
-            p = pts[rows]
-            exact, placements = self._transmitted_terms(below)
-            acc = exact * _sums(p, corners, centroids, areas, diams, dens)
-            if placements:
-                tabs, prm = self._tables(placements, p, vertices)
-                rules_ = source_rules(panels, float(np.min(prm[:, 10])))
-                acc += remainder_sums(p, rules_, np.array(self.factors), dens, tabs, prm)
-            out[rows] = acc * scale
+            out[rows] = acc * (self.eps_medium / FOUR_PI)
         return out[:, 0], out[:, 1:]
 
     def eps_r_at(self, points: np.ndarray) -> np.ndarray:
         """Background permittivity (M,) at points (M, 3) (on an interface: the value above)."""
         return self.stack.eps_r_at(np.asarray(points)[:, 2])
-
-    # -- target checks -------------------------------------------------------------------------
-    def _check_inside(self, pts: np.ndarray) -> None:
-        kind = self._check_targets(pts)
-        if np.any(kind != 0):
-            raise GeometryError(
-                "layered kernel: collocation points must lie in the conductors' gap"
-            )
-
-    def _check_targets(self, pts: np.ndarray) -> np.ndarray:
-        """(M,) 0 inside the gap, -1 / +1 in the first medium below / above it; others refused."""
-        gap = self.gap
-        z = pts[:, 2]
-        tol = 1e-12 * self.size
-        lo = gap.z_lo - (_behind(gap, True) if math.isfinite(gap.z_lo) else 0.0)
-        hi = gap.z_hi + (_behind(gap, False) if math.isfinite(gap.z_hi) else 0.0)
-        if self.stack.ground_plane and gap.z_lo == 0.0:
-            lo = 0.0
-        bad = (z < lo - tol) | (z > hi + tol)
-        if np.any(bad):
-            zb = float(z[np.argmax(bad)])
-            raise GeometryError(
-                f"point at z = {zb:.6g} m lies beyond the layers next to the conductors' gap "
-                f"({lo:.6g} <= z <= {hi:.6g} m); fields in deeper layers are not available"
-            )
-        return np.where(z < gap.z_lo - tol, -1, np.where(z > gap.z_hi + tol, 1, 0))
 
 
 def _split_bary(m: int) -> np.ndarray:
