@@ -173,7 +173,7 @@ def test_layered_kernel_is_continuous_across_the_faces_of_the_gap():
             (False,),
             (None,),
         )
-        background = LayeredBackground(stack, z_src, z_src, 0.01, "source")
+        background = LayeredBackground(stack, [(z_src, z_src, "source")], 0.01)
         ones = np.ones((1, 1))
 
         def field(pts, background=background, panels=panels, ones=ones):
@@ -241,8 +241,9 @@ def test_remainder_table_against_the_image_series_of_a_grounded_film():
     # docs/references.md item 15 in the film's two faces, the plane's with coefficient -1).
     eps_f, d = 4.0, 1e-3
     stack = LayerStack((PlanarLayer("film", eps_f, 0.0, d),), 1.0, True)
-    background = LayeredBackground(stack, 2e-3, 4e-3, 0.02, "test")
-    _, (placement,) = background.slab_terms(background.source_slab)
+    background = LayeredBackground(stack, [(2e-3, 4e-3, "test")], 0.02)
+    s = int(background.conductor_slab[0])
+    _, (placement,) = background.slab_terms(s, s)
     rho_max, a_min, a_max = 0.03, 2e-3, 6e-3
     table = build_table(placement.term, rho_max, a_min, a_max, 0.02)
     assert table.error <= TABLE_REL_TOL

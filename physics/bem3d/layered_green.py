@@ -78,6 +78,20 @@ class Image:
     m: float
 
 
+@dataclass(frozen=True)
+class _Part:
+    """Some panels: corners (N, 3, 3), centroids (N, 3), areas (N,), diameters (N,)."""
+
+    corners: np.ndarray
+    centroids: np.ndarray
+    areas: np.ndarray
+    diams: np.ndarray
+
+    def __post_init__(self) -> None:
+        for name in ("corners", "centroids", "areas", "diams"):
+            object.__setattr__(self, name, np.ascontiguousarray(getattr(self, name)))
+
+
 def _mapped(corners: np.ndarray, centroids: np.ndarray, c0: float, m: float):
     """Corners and centroids with z -> c0 + m z (m = -1: a mirror, +1 with c0 = 0: itself)."""
     if m == 1.0 and c0 == 0.0:
@@ -107,9 +121,15 @@ def _exponent_span(spec: StackSpectrum) -> float:
 
 
 class LayeredBackground:
-    """The layered Green's function of one stack, for panels whose heights span [z_min, z_max]."""
+    """The layered Green's function of one stack for the panels of some conductors.
 
-    def __init__(self, stack: LayerStack, z_min: float, z_max: float, size: float, what: str):
+    ``conductor_heights``: per conductor (z_min, z_max, name); in a general stack each
+    conductor lies in one slab (conductors may lie in different slabs).
+    """
+
+    def __init__(
+        self, stack: LayerStack, conductor_heights: list[tuple[float, float, str]], size: float
+    ):
         self.stack = stack
         self.size = float(size)
         self.eps_medium = float(stack.medium_eps_r)
@@ -125,7 +145,13 @@ class LayeredBackground:
         else:
             self.kind = "stack"
             self.spectrum = StackSpectrum(stack)
-            self.source_slab = self._find_source_slab(z_min, z_max, what)
+            self.conductor_slab = np.array(
+                [
+                    self._find_source_slab(lo, hi, f"conductor '{n}'")
+                    for lo, hi, n in conductor_heights
+                ],
+                dtype=int,
+            )
 
     # -- two half-spaces ---------------------------------------------------------------------
     def _side(self, z: np.ndarray) -> np.ndarray:
@@ -158,22 +184,19 @@ class LayeredBackground:
         return s
 
     def target_slabs(self, pts: np.ndarray) -> np.ndarray:
-        """Slab (M,) of each target; points on a face of the sources' slab count as inside it.
-        Points below a grounded plane are refused."""
+        """Slab (M,) of each target (on an interface: the slab above); points below a grounded
+        plane are refused."""
         z = pts[:, 2]
-        tol = 1e-12 * self.size
         out = self.spectrum.slab_of(z)
-        src = self.spectrum.slabs[self.source_slab]
-        on_face = (np.abs(z - src.z_lo) <= tol) | (np.abs(z - src.z_hi) <= tol)
-        out = np.where(on_face, self.source_slab, out)
         if np.any(out < 0):
             zb = float(z[np.argmax(out < 0)])
             raise GeometryError(f"point at z = {zb:.6g} m lies below the grounded plane z = 0")
         return out
 
-    def slab_terms(self, target: int) -> tuple[list[Image], list[Placement]]:
-        """Exact images and remainder placements for targets in slab ``target``."""
-        spec, s = self.spectrum, self.source_slab
+    def slab_terms(self, target: int, s: int) -> tuple[list[Image], list[Placement]]:
+        """Exact images and remainder placements for targets in slab ``target``, sources in
+        slab ``s``."""
+        spec = self.spectrum
         images: list[Image] = []
         placements: list[Placement] = []
         length = _exponent_span(spec)
@@ -247,17 +270,41 @@ class LayeredBackground:
                     sel = np.ix_(st == a, ss == b)
                     wd[sel], wi[sel] = self._half_space_weights(a, b)
             return (direct * wd + image * wi) / FOUR_PI
-        if np.any(self.target_slabs(centroids) != self.source_slab):
-            raise SolverError("layered kernel: a collocation point lies outside the sources' slab")
-        images, placements = self.slab_terms(self.source_slab)
-        out = np.zeros((panels.n, panels.n))
-        for img in images:
-            out += img.limit * plain(*_mapped(corners, centroids, img.c0, img.m))
-        if placements:
-            tabs, prm = self._tables(placements, centroids, corners.reshape(-1, 3))
-            rules_ = source_rules(panels, float(np.min(prm[:, 10])))
-            out += remainder_matrix(centroids, rules_, np.array(self.factors), tabs, prm)
+        slab = self.conductor_slab[panels.owner]
+        out = np.empty((panels.n, panels.n))
+        for t in np.unique(slab):
+            rows = np.nonzero(slab == t)[0]
+            tgt = np.ascontiguousarray(centroids[rows])
+            for s in np.unique(slab):
+                cols = np.nonzero(slab == s)[0]
+                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
+                out[np.ix_(rows, cols)] = self._block(tgt, part, int(t), int(s), None)[:, 0]
         return out * (self.eps_medium / FOUR_PI)
+
+    def _block(self, tgt: np.ndarray, part: _Part, t: int, s: int, dens: np.ndarray | None):
+        """Targets (M, 3) in slab t, panels ``part`` in slab s: the matrix (M, 1, N) of
+        potential integrals, or with ``dens`` (N, K) the sums (M, 4, K)."""
+        images, placements = self.slab_terms(t, s)
+        rules = pint.rules()
+        n = len(part.areas)
+        acc = np.zeros((len(tgt), 1, n) if dens is None else (len(tgt), 4, dens.shape[1]))
+        for img in images:
+            c, m = _mapped(part.corners, part.centroids, img.c0, img.m)
+            if dens is None:
+                v = pint.dense_potential_matrix(tgt, c, m, part.areas, part.diams, False, *rules)
+                v = v[:, None, :]
+            else:
+                v = _sums(tgt, c, m, part.areas, part.diams, dens)
+            acc += img.limit * v
+        if placements:
+            tabs, prm = self._tables(placements, tgt, part.corners.reshape(-1, 3))
+            rules_ = source_rules(part, float(np.min(prm[:, 10])))
+            factors = np.array(self.factors)
+            if dens is None:
+                acc += remainder_matrix(tgt, rules_, factors, tabs, prm)[:, None, :]
+            else:
+                acc += remainder_sums(tgt, rules_, factors, dens, tabs, prm)
+        return acc
 
     def potential_and_gradient(
         self, panels, dens: np.ndarray, pts: np.ndarray
@@ -282,21 +329,17 @@ class LayeredBackground:
             out /= FOUR_PI
             return out[:, 0], out[:, 1:]
         slabs = self.target_slabs(pts)
-        vertices = corners.reshape(-1, 3)
+        src = self.conductor_slab[panels.owner]
         for t in np.unique(slabs):
             rows = np.nonzero(slabs == t)[0]
-            p = np.ascontiguousarray(pts[rows])
-            images, placements = self.slab_terms(int(t))
-            acc = np.zeros((len(p), 4, dens.shape[1]))
-            for img in images:
-                acc += img.limit * _sums(
-                    p, *_mapped(corners, centroids, img.c0, img.m), areas, diams, dens
+            tgt = np.ascontiguousarray(pts[rows])
+            for s in np.unique(src):
+                cols = np.nonzero(src == s)[0]
+                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
+                out[rows] += self._block(
+                    tgt, part, int(t), int(s), np.ascontiguousarray(dens[cols])
                 )
-            if placements:
-                tabs, prm = self._tables(placements, p, vertices)
-                rules_ = source_rules(panels, float(np.min(prm[:, 10])))
-                acc += remainder_sums(p, rules_, np.array(self.factors), dens, tabs, prm)
-            out[rows] = acc * (self.eps_medium / FOUR_PI)
+        out *= self.eps_medium / FOUR_PI
         return out[:, 0], out[:, 1:]
 
     def eps_r_at(self, points: np.ndarray) -> np.ndarray:
@@ -316,11 +359,11 @@ def _split_bary(m: int) -> np.ndarray:
     return np.array(tris)
 
 
-def source_rules(panels, l_min: float) -> tuple[np.ndarray, ...]:
+def source_rules(part: _Part, l_min: float) -> tuple[np.ndarray, ...]:
     """Per panel: centroid (N, 3), area (N,), diameter (N,), then points (N, q, 3) and weights
     (N, q) in m^2 of the 3-point rule, the 7-point rule and the 7-point rule on sub-triangles
     no wider than l_min (at most :data:`MAX_SPLITS` halvings)."""
-    corners, centroids, areas, diams = panels.kernel_arrays
+    corners, centroids, areas, diams = part.corners, part.centroids, part.areas, part.diams
     p3 = np.einsum("qa,nac->nqc", pint.RULE3_BARY, corners)
     w3 = areas[:, None] * pint.RULE3_W[None, :]
     p7 = np.einsum("qa,nac->nqc", pint.RULE7_BARY, corners)
@@ -460,9 +503,9 @@ def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
     return out
 
 
-def layered_background(layout, mesh) -> LayeredBackground | None:
-    """The background of ``layout``'s layers for conductor panels ``mesh``; None when the
-    layers change no permittivity (the homogeneous operators apply)."""
+def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | None:
+    """The background of ``layout``'s layers for conductor panels ``mesh`` (``owner`` (N,) the
+    conductor of each panel); None when the layers change no permittivity."""
     if not layout.layers:
         return None
     stack = layout.layer_stack
@@ -477,9 +520,11 @@ def layered_background(layout, mesh) -> LayeredBackground | None:
             f"{layout.applied_field_V_per_m:g}"
         )
     z = mesh.corners_m[..., 2]
-    return LayeredBackground(
-        stack, float(z.min()), float(z.max()), float(mesh.size_m), "conductors"
-    )
+    heights = []
+    for k, c in enumerate(layout.conductors):
+        zk = z[owner == k]
+        heights.append((float(zk.min()), float(zk.max()), c.name))
+    return LayeredBackground(stack, heights, float(mesh.size_m))
 
 
 def layered_method(method: str) -> str:

@@ -107,7 +107,7 @@ def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
                 check_apart(meshes[i], names[i], meshes[j], names[j])
     mesh, owner = concatenated(meshes)
     return PanelSet(
-        background=layered_background(layout, mesh),
+        background=layered_background(layout, mesh, owner),
         mesh=mesh,
         owner=owner,
         level=level,
