@@ -329,3 +329,24 @@ def test_revolved_surface_is_used_for_the_pad():
     assert isinstance(shape, RevolvedSurface) and not shape.closed
     z = shape.mesh(0).vertices_m[:, 2]
     assert np.all(z == BOARD)
+
+
+@pytest.mark.slow
+def test_conductors_in_different_slabs_are_reciprocal():
+    # A pad on the board under the cover and a grounded ball above the cover: the mutual
+    # capacitances come from different kernel blocks (sources in the gap seen from the air
+    # and the reverse); Green's reciprocity (any text) makes C symmetric, so any asymmetry is
+    # discretisation only and must sit far below the solver's own estimate.
+    top = BOARD + AIR + COVER
+    layout = Layout(
+        (
+            driven("pad", geo.disk(PAD_R, BOARD), 1.0),
+            driven("finger", geo.sphere(PAD_R, top + 1.5 * PAD_R), 0.0),
+        ),
+        ground_plane=True,
+        layers=BOARD_STACK,
+    )
+    sol = _solve(revolved_layout(layout, h_m=PAD_R / 3))
+    c = sol.capacitance_matrix_F
+    assert c[0, 1] < 0
+    assert abs(c[0, 1] - c[1, 0]) / math.sqrt(c[0, 0] * c[1, 1]) < 0.01 * sol.rel_error_estimate
