@@ -270,16 +270,24 @@ class LayeredBackground:
                     sel = np.ix_(st == a, ss == b)
                     wd[sel], wi[sel] = self._half_space_weights(a, b)
             return (direct * wd + image * wi) / FOUR_PI
-        slab = self.conductor_slab[panels.owner]
         out = np.empty((panels.n, panels.n))
-        for t in np.unique(slab):
-            rows = np.nonzero(slab == t)[0]
-            tgt = np.ascontiguousarray(centroids[rows])
-            for s in np.unique(slab):
-                cols = np.nonzero(slab == s)[0]
-                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
-                out[np.ix_(rows, cols)] = self._block(tgt, part, int(t), int(s), None)[:, 0]
+        own = self.conductor_slab[panels.owner]
+        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, own):
+            out[np.ix_(rows, cols)] = self._block(tgt, part, t, s, None)[:, 0]
         return out * (self.eps_medium / FOUR_PI)
+
+    def _slab_pairs(self, panels, pts: np.ndarray, slabs: np.ndarray):
+        """(rows, cols, targets, panels part, target slab, source slab) for every pair of a
+        slab holding targets (``slabs`` (M,) of ``pts``) and one holding sources."""
+        corners, centroids, areas, diams = panels.kernel_arrays
+        src = self.conductor_slab[panels.owner]
+        for t in np.unique(slabs):
+            rows = np.nonzero(slabs == t)[0]
+            tgt = np.ascontiguousarray(pts[rows])
+            for s in np.unique(src):
+                cols = np.nonzero(src == s)[0]
+                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
+                yield rows, cols, tgt, part, int(t), int(s)
 
     def _block(self, tgt: np.ndarray, part: _Part, t: int, s: int, dens: np.ndarray | None):
         """Targets (M, 3) in slab t, panels ``part`` in slab s: the matrix (M, 1, N) of
@@ -328,17 +336,8 @@ class LayeredBackground:
                     out[rows] += wd * d[rows] + wi * m[rows]
             out /= FOUR_PI
             return out[:, 0], out[:, 1:]
-        slabs = self.target_slabs(pts)
-        src = self.conductor_slab[panels.owner]
-        for t in np.unique(slabs):
-            rows = np.nonzero(slabs == t)[0]
-            tgt = np.ascontiguousarray(pts[rows])
-            for s in np.unique(src):
-                cols = np.nonzero(src == s)[0]
-                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
-                out[rows] += self._block(
-                    tgt, part, int(t), int(s), np.ascontiguousarray(dens[cols])
-                )
+        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, pts, self.target_slabs(pts)):
+            out[rows] += self._block(tgt, part, t, s, np.ascontiguousarray(dens[cols]))
         out *= self.eps_medium / FOUR_PI
         return out[:, 0], out[:, 1:]
 
