@@ -274,7 +274,8 @@ class LayeredBackground:
         own = self.conductor_slab[panels.owner]
         for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, own):
             out[np.ix_(rows, cols)] = self._block(tgt, part, t, s, None)[:, 0]
-        return out * (self.eps_medium / FOUR_PI)
+        out *= self.eps_medium / FOUR_PI
+        return out
 
     def _slab_pairs(self, panels, pts: np.ndarray, slabs: np.ndarray):
         """(rows, cols, targets, panels part, target slab, source slab) for every pair of a
@@ -303,7 +304,8 @@ class LayeredBackground:
                 v = v[:, None, :]
             else:
                 v = _sums(tgt, c, m, part.areas, part.diams, dens)
-            acc += img.limit * v
+            v *= img.limit
+            acc += v
         if placements:
             tabs, prm = self._tables(placements, tgt, part.corners.reshape(-1, 3))
             rules_ = source_rules(part, float(np.min(prm[:, 10])))
@@ -524,6 +526,12 @@ def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | N
         zk = z[owner == k]
         heights.append((float(zk.min()), float(zk.max()), c.name))
     return LayeredBackground(stack, heights, float(mesh.size_m))
+
+
+def extra_dense_bytes(n_panels: int) -> int:
+    """Memory beyond the homogeneous dense estimate while a layered matrix is assembled: two
+    more (N, N) blocks (the block being built and one image's integrals)."""
+    return 2 * 8 * n_panels * n_panels
 
 
 def layered_method(method: str) -> str:

@@ -26,7 +26,7 @@ import numpy as np
 import scipy.linalg
 from scipy.spatial import cKDTree
 
-from elopt.physics.bem3d.layered_green import layered_method
+from elopt.physics.bem3d.layered_green import extra_dense_bytes, layered_method
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
     PRECONDITIONER_FACTOR,
@@ -189,6 +189,8 @@ def solve_3d(
     "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
     ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
     tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh.
+    Planar layers (``layout.layers``) enter through the layered Green's function of
+    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
     """
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
@@ -219,6 +221,8 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns)
+        if panels.background is not None:
+            need += extra_dense_bytes(panels.n)
         note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
         return LevelPlan(level, panels.n, need, note, run)
 
