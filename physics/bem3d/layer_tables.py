@@ -31,10 +31,11 @@ from numba import njit
 from scipy.special import j0, j1
 
 from elopt.physics.errors import SolverError
+from elopt.physics.layer_spectrum import TAIL_TOL
 from elopt.physics.quadrature import gauss_legendre
 
-#: Relative size of the truncated Hankel tail against the kernel scale.
-HANKEL_TAIL = 1e-13
+#: Relative size of the truncated Hankel tail against the kernel scale (the shared value).
+HANKEL_TAIL = TAIL_TOL
 #: Default interpolation tolerance of a table, relative to its largest value.
 TABLE_REL_TOL = 1e-7
 _GAUSS_K = 16
