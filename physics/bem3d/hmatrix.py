@@ -926,12 +926,10 @@ class HMatrix:
     def nbytes(self) -> int:
         return int(self.near_vals.nbytes + self.u.nbytes + self.v.nbytes)
 
-    def rmatvec(self, w: np.ndarray) -> np.ndarray:
-        """w^T A (N,) for weights ``w`` (M,) on the targets."""
-        ws = np.ascontiguousarray(np.asarray(w, dtype=float)[self.targets.perm])
-        yp = _rmatvec(
-            ws,
-            self.n,
+    @property
+    def _blocks(self) -> tuple:
+        """The stored blocks as the product kernels take them."""
+        return (
             self.near_blocks,
             self.near_off,
             self.targets.start,
@@ -946,31 +944,18 @@ class HMatrix:
             self.u,
             self.v,
         )
+
+    def rmatvec(self, w: np.ndarray) -> np.ndarray:
+        """w^T A (N,) for weights ``w`` (M,) on the targets."""
+        ws = np.ascontiguousarray(np.asarray(w, dtype=float)[self.targets.perm])
+        yp = _rmatvec(ws, self.n, *self._blocks)
         y = np.empty(self.n)
         y[self.sources.perm] = yp
         return y
 
     def matvec(self, x: np.ndarray) -> np.ndarray:
         xs = np.ascontiguousarray(np.asarray(x, dtype=float)[self.sources.perm])
-        yp = _matvec(
-            xs,
-            self.m,
-            self.near_blocks,
-            self.near_off,
-            self.targets.start,
-            self.targets.end,
-            self.sources.start,
-            self.sources.end,
-            self.near_vals,
-            self.far_blocks,
-            self.far_uoff,
-            self.far_voff,
-            self.far_rank,
-            self.u,
-            self.v,
-            self.near_chunks,
-            self.far_chunks,
-        )
+        yp = _matvec(xs, self.m, *self._blocks, self.near_chunks, self.far_chunks)
         y = np.empty(self.m)
         y[self.targets.perm] = yp
         return y

@@ -126,6 +126,28 @@ def _unknown(table: dict, allowed: tuple[str, ...], where: str) -> None:
             raise ElectrodeError(f"{where}.{key}: unknown key; allowed keys: {', '.join(allowed)}")
 
 
+def _tables(raw: Any, at: str, what: str, required: bool) -> list:
+    """``raw`` as a list of tables (non-empty when ``required``), else a one-line error."""
+    if (
+        not isinstance(raw, list)
+        or (required and not raw)
+        or not all(isinstance(t, dict) for t in raw)
+    ):
+        raise ElectrodeError(f"{at}: give one [[{at}]] table per {what}")
+    return raw
+
+
+def _file_table(table: dict, allowed: tuple[str, ...], at: str, base_dir: Path) -> Path:
+    """Check a conductor's or body's table (keys; name, file, length_unit non-empty strings)
+    and return its file's path, relative paths taken from ``base_dir``."""
+    _unknown(table, allowed, at)
+    for key in ("name", "file", "length_unit"):
+        if not isinstance(table.get(key), str) or not table[key]:
+            raise ElectrodeError(f"{at}.{key}: required, a non-empty string")
+    path = Path(table["file"])
+    return path if path.is_absolute() else base_dir / path
+
+
 class MeshFile(SolvedByPanels, ElectrodeFamily):
     """Any conductors given as triangle meshes (module docstring)."""
 
@@ -144,27 +166,21 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
     def params_from_table(self, geometry: dict, where: str, base_dir: Path) -> MeshFileParams:
         """Read the ``[geometry]`` table (file paths relative to ``base_dir``)."""
         _unknown(geometry, GEOMETRY_KEYS, where)
-        raw = geometry.get("conductors")
-        if not isinstance(raw, list) or not raw or not all(isinstance(t, dict) for t in raw):
-            raise ElectrodeError(
-                f"{where}.conductors: give one [[{where}.conductors]] table per conductor "
-                "(name, file, length_unit, potential_V or charge_C)"
-            )
+        raw = _tables(
+            geometry.get("conductors"),
+            f"{where}.conductors",
+            "conductor (name, file, length_unit, potential_V or charge_C)",
+            required=True,
+        )
         specs = []
         for k, t in enumerate(raw):
             at = f"{where}.conductors[{k}]"
-            _unknown(t, CONDUCTOR_KEYS, at)
-            for key in ("name", "file", "length_unit"):
-                if not isinstance(t.get(key), str) or not t[key]:
-                    raise ElectrodeError(f"{at}.{key}: required, a non-empty string")
+            path = _file_table(t, CONDUCTOR_KEYS, at, base_dir)
             pot = _number(t["potential_V"], f"{at}.potential_V") if "potential_V" in t else None
             chg = _number(t["charge_C"], f"{at}.charge_C") if "charge_C" in t else None
             closed = t.get("closed", True)
             if not isinstance(closed, bool):
                 raise ElectrodeError(f"{at}.closed: expected true or false, got {closed!r}")
-            path = Path(t["file"])
-            if not path.is_absolute():
-                path = base_dir / path
             specs.append(
                 MeshConductorSpec(t["name"], str(path), t["length_unit"], pot, chg, closed)
             )
@@ -177,23 +193,15 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
 
     @staticmethod
     def _bodies_from_table(raw: Any, where: str, base_dir: Path) -> tuple[MeshBodySpec, ...]:
-        if not isinstance(raw, list) or not all(isinstance(t, dict) for t in raw):
-            raise ElectrodeError(
-                f"{where}.bodies: give one [[{where}.bodies]] table per dielectric body "
-                "(name, file, length_unit, eps_r)"
-            )
+        tables = _tables(
+            raw, f"{where}.bodies", "dielectric body (name, file, length_unit, eps_r)", False
+        )
         out = []
-        for k, t in enumerate(raw):
+        for k, t in enumerate(tables):
             at = f"{where}.bodies[{k}]"
-            _unknown(t, BODY_KEYS, at)
-            for key in ("name", "file", "length_unit"):
-                if not isinstance(t.get(key), str) or not t[key]:
-                    raise ElectrodeError(f"{at}.{key}: required, a non-empty string")
+            path = _file_table(t, BODY_KEYS, at, base_dir)
             if "eps_r" not in t:
                 raise ElectrodeError(f"{at}.eps_r: required, the body's relative permittivity")
-            path = Path(t["file"])
-            if not path.is_absolute():
-                path = base_dir / path
             eps_r = _number(t["eps_r"], f"{at}.eps_r")
             out.append(MeshBodySpec(t["name"], str(path), t["length_unit"], eps_r))
         return tuple(out)
