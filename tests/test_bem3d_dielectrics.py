@@ -64,6 +64,28 @@ def test_sphere_with_concentric_dielectric_shell(method):
     np.testing.assert_allclose(sol.potential_at(pts), phi, rtol=2 * sol.rel_error_estimate)
 
 
+def test_nested_shells_take_the_innermost_medium():
+    # Two concentric shells (eps 4 inside radius 1.5, eps 2 out to 2) on a sphere of radius 1:
+    # Gauss's law through each shell in turn, as for docs/references.md item 11 (Griffiths
+    # ch. 4), C = 4 pi eps0 / ((1/a - 1/b)/4 + (1/b - 1/c)/2 + 1/c).
+    a, b, c = 1.0, 1.5, 2.0
+    layout = Layout(
+        (driven("ball", sphere(a, subdivisions=1), 1.0),),
+        regions=(
+            DielectricRegion("outer", sphere(c, subdivisions=1), 2.0),
+            DielectricRegion("inner", sphere(b, subdivisions=1), 4.0),
+        ),
+    )
+    sol = solve_3d(layout, rel_accuracy=1e-2)
+    assert sol.accuracy_met
+    p = sol.panels
+    nc = p.n_conductor_panels
+    assert np.all(p.eps_front[:nc] == 4.0)
+    assert set(zip(p.eps_front[nc:], p.eps_back[nc:], strict=True)) == {(2.0, 4.0), (1.0, 2.0)}
+    exact = 4 * math.pi * EPS0 / ((1 / a - 1 / b) / 4 + (1 / b - 1 / c) / 2 + 1 / c)
+    assert abs(sol.capacitance_matrix_F[0, 0] / exact - 1) <= sol.rel_error_estimate
+
+
 def test_dielectric_sphere_in_uniform_field_converges_to_closed_form():
     # docs/references.md item 14 (Jackson, Classical Electrodynamics, 3rd ed., sec. 4.4): the
     # field inside is uniform, 3 E0 / (eps_r + 2). A layout needs a conductor: a neutral
