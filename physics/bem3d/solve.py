@@ -15,7 +15,7 @@ Conductor panel, centroid x on conductor k (first kind):
 Interface panel between eps_- (the body, inside) and eps_+ (outside), normal n outward. The
 normal fields E^+- just off either side satisfy E^+ - E^- = sigma / eps_m (the jump of a
 single layer) and (E^+ + E^-)/2 = E^PV = -(1/eps_m) K sigma + E0 n_z, K the principal-value
-normal derivative of the single layer (for a flat triangle its own panel contributes 0). No
+normal derivative of the single layer (its diagonal from Gauss's law, :mod:`.operators`). No
 free charge on an insulator, eps_+ E^+ = eps_- E^-, gives the second-kind equation
 
     sigma - 2 lambda K sigma = -2 lambda eps_m E0 n_z,   lambda = (eps_+ - eps_-) / (eps_+ + eps_-).
@@ -81,8 +81,9 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     tree level of low-rank factors (measured on spheres and boxes from 5e3 to 2e5 panels), and
     the preconditioner from the near pairs of a sample (entries and their incomplete LU).
     With dielectric bodies the rows split into single-layer and normal-derivative matrices
-    over the same sources; per panel they store about as much as one matrix (measured on a
-    coated sphere: 6.5 kB per panel at 10240 panels, of 11.5 kB estimated).
+    over the same sources, which need more: the compressed part counts 1.25 times (measured on
+    a coated sphere to 1e-3: 530 MB above the interpreter's 200 MB at 40960 panels, 510 MB
+    estimated without the factor; 6.5 kB stored per panel at 10240, 7.4 kB at 40960).
     """
     n = panels.n
     base = 600 * n + 16 * n * n_columns
@@ -95,7 +96,8 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     ti, _ = near_pairs(centroids, centroids[sample], PRECONDITIONER_FACTOR * diams[sample])
     pre = images * len(ti) * n / len(sample)
     levels = max(1.0, math.log2(max(n, 64) / 32.0))
-    return int(base + n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
+    two_kinds = 1.25 if panels.n_conductor_panels < n else 1.0
+    return int(base + two_kinds * n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
 
 
 def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
