@@ -528,6 +528,17 @@ def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | N
     return LayeredBackground(stack, heights, float(mesh.size_m))
 
 
+def check_bodies_without_layers(layout) -> None:
+    """Dielectric bodies in a layered background are not supported yet: one GeometryError."""
+    if layout.layers and layout.regions:
+        layers = ", ".join(f"'{ly.name}'" for ly in layout.layers)
+        regions = ", ".join(f"'{r.name}'" for r in layout.regions)
+        raise GeometryError(
+            f"layout: dielectric bodies ({regions}) together with planar layers ({layers}) "
+            "are not supported by the 3-D solver yet; give either bodies or layers"
+        )
+
+
 def extra_dense_bytes(n_panels: int) -> int:
     """Memory beyond the homogeneous dense estimate while a layered matrix is assembled: two
     more (N, N) blocks (the block being built and one image's integrals)."""
