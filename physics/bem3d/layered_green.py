@@ -103,6 +103,21 @@ def _mapped(corners: np.ndarray, centroids: np.ndarray, c0: float, m: float):
     return np.ascontiguousarray(c), np.ascontiguousarray(g)
 
 
+def _distinct_images(images: list[Image], part: _Part) -> list[tuple[float, tuple]]:
+    """(summed limit, (corners, centroids)) per distinct image geometry: a panel lying in a
+    mirror plane is its own image, so its integrals are computed once."""
+    out: list[tuple[float, tuple]] = []
+    for img in images:
+        geom = _mapped(part.corners, part.centroids, img.c0, img.m)
+        for i, (coef, other) in enumerate(out):
+            if np.array_equal(other[0], geom[0]):
+                out[i] = (coef + img.limit, other)
+                break
+        else:
+            out.append((img.limit, geom))
+    return out
+
+
 def _remainder_coef(spec: StackSpectrum, t: int, s: int, idx: int, k: np.ndarray) -> np.ndarray:
     term = spec.terms(t, s, k)[idx]
     return term.coef - term.limit
@@ -297,14 +312,13 @@ class LayeredBackground:
         rules = pint.rules()
         n = len(part.areas)
         acc = np.zeros((len(tgt), 1, n) if dens is None else (len(tgt), 4, dens.shape[1]))
-        for img in images:
-            c, m = _mapped(part.corners, part.centroids, img.c0, img.m)
+        for coef, (c, m) in _distinct_images(images, part):
             if dens is None:
                 v = pint.dense_potential_matrix(tgt, c, m, part.areas, part.diams, False, *rules)
                 v = v[:, None, :]
             else:
                 v = _sums(tgt, c, m, part.areas, part.diams, dens)
-            v *= img.limit
+            v *= coef
             acc += v
         if placements:
             tabs, prm = self._tables(placements, tgt, part.corners.reshape(-1, 3))
