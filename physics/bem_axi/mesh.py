@@ -2,13 +2,13 @@
 
 Every piece of every conductor's curve is cut into panels; each panel carries ``order``
 Gauss-Legendre nodes on which the surface charge density is collocated and interpolated.
-Panels are graded geometrically (ratio 2) towards corners and free sheet edges, neighbours
-along a curve differ in length by at most a factor 2, and panels facing another conductor or
-the ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap.
+Panels are graded geometrically towards corners and free sheet edges, neighbours along a
+curve differ in length by a bounded factor, and panels facing another conductor or the
+ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap; a
+:class:`MeshRule` gives the grading ratio, the balance factor and the grading steps.
 
-Refinement level ``level`` halves every level-0 panel ``level`` times and adds
-CORNER_LEVELS_PER_LEVEL grading levels per step at singular corners, so meshes of successive
-levels are nested.
+Refinement level ``level`` halves every level-0 panel ``level`` times and adds the rule's
+grading steps per level at singular corners, so meshes of successive levels are nested.
 """
 
 from __future__ import annotations
@@ -44,6 +44,27 @@ def corner_levels(order: int) -> int:
 
 #: A panel is at most this many times its distance to another conductor or an image.
 GAP_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class MeshRule:
+    """How level-0 panels are graded and how levels refine them.
+
+    ``corner_steps``: grading steps towards a singular corner at level 0 (a non-singular one
+    gets half, at least one); ``steps_per_level``: steps added per level; each step cuts the
+    panel touching the corner at 1/``grade_ratio`` of its length; neighbours along a curve
+    differ in length by at most ``balance_ratio``.
+    """
+
+    corner_steps: int
+    steps_per_level: int
+    grade_ratio: float = 2.0
+    balance_ratio: float = 2.0
+
+
+def default_rule(order: int) -> MeshRule:
+    """Ratio-2 grading with :func:`corner_levels` steps (the rule of every solver but one)."""
+    return MeshRule(corner_levels(order), CORNER_LEVELS_PER_LEVEL)
 
 
 @dataclass(frozen=True)
@@ -194,16 +215,19 @@ def _equal_turning_edges(piece: EllipseArc, n_min: int, max_turn: float, level: 
     return np.interp(np.linspace(0.0, turn[-1], n + 1), turn, t)
 
 
-def _grade_towards(intervals: list[tuple[float, float]], at_end: bool, times: int) -> None:
-    """Halve the interval touching one end of a piece ``times`` times (in place)."""
+def _grade_towards(
+    intervals: list[tuple[float, float]], at_end: bool, times: int, ratio: float
+) -> None:
+    """Cut the interval touching one end of a piece ``times`` times at 1/``ratio`` of its
+    length from that end (in place)."""
     for _ in range(times):
         if at_end:
             a, b = intervals[-1]
-            m = 0.5 * (a + b)
+            m = b - (b - a) / ratio
             intervals[-1:] = [(a, m), (m, b)]
         else:
             a, b = intervals[0]
-            m = 0.5 * (a + b)
+            m = a + (b - a) / ratio
             intervals[:1] = [(a, m), (m, b)]
 
 
@@ -219,8 +243,8 @@ def _interval_lengths(piece, intervals) -> np.ndarray:
     return piece.length * half
 
 
-def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
-    """Split panels until neighbours along the curve differ by at most a factor 2."""
+def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]], ratio: float) -> None:
+    """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
     changed = True
     while changed:
@@ -236,9 +260,9 @@ def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
         split = set()
         for i in range(n - 1 + int(closed)):
             a, b = i, (i + 1) % n
-            if lengths[a] > 2.0 * lengths[b] * (1 + 1e-9):
+            if lengths[a] > ratio * lengths[b] * (1 + 1e-9):
                 split.add(flat[a])
-            elif lengths[b] > 2.0 * lengths[a] * (1 + 1e-9):
+            elif lengths[b] > ratio * lengths[a] * (1 + 1e-9):
                 split.add(flat[b])
         if split:
             changed = True
@@ -248,14 +272,19 @@ def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
                 per_piece[k][j : j + 1] = [(a0, m), (m, b0)]
 
 
-def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
+def build_mesh(
+    layout: Layout, level: int = 0, order: int = 8, rule: MeshRule | None = None
+) -> AxiMesh:
     """Mesh every conductor of ``layout`` at refinement ``level`` with ``order`` nodes/panel.
 
-    Level 0 is graded, balanced and gap-refined once (cached per layout); level L splits every
-    level-0 panel into 2**L and grades singular corners CORNER_LEVELS_PER_LEVEL * L times more.
+    Level 0 is graded, balanced and gap-refined once (cached per layout and ``rule``, default
+    :func:`default_rule`); level L splits every level-0 panel into 2**L and grades singular
+    corners ``rule.steps_per_level * L`` steps more.
     """
+    if rule is None:
+        rule = default_rule(order)
     per_conductor = []
-    for curve, base, corner_ends in _base_intervals(layout, corner_levels(order)):
+    for curve, base, corner_ends in _base_intervals(layout, rule):
         intervals = []
         for iv in base:
             parts = []
@@ -264,7 +293,7 @@ def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
                 parts.extend(zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True))
             intervals.append(parts)
         for k, at_end in corner_ends:
-            _grade_towards(intervals[k], at_end, CORNER_LEVELS_PER_LEVEL * level)
+            _grade_towards(intervals[k], at_end, rule.steps_per_level * level, rule.grade_ratio)
         per_conductor.append((curve, intervals, corner_ends))
     return _assemble_mesh(layout, per_conductor, level, order)
 
@@ -275,7 +304,7 @@ def clear_mesh_cache() -> None:
 
 
 @lru_cache(maxsize=8)
-def _base_intervals(layout: Layout, grading: int):
+def _base_intervals(layout: Layout, rule: MeshRule):
     """Level-0 parameter intervals per piece of every conductor, and its singular corner ends."""
     per_conductor = []
     for cond in layout.conductors:
@@ -284,24 +313,24 @@ def _base_intervals(layout: Layout, grading: int):
         corner_ends: set[tuple[int, bool]] = set()
         n_pieces = len(curve.pieces)
         for corner in curve.corners():
-            times = grading if corner.singular else max(grading // 2, 1)
+            times = rule.corner_steps if corner.singular else max(rule.corner_steps // 2, 1)
             sides = [(corner.piece_index, corner.at_end)]
             if corner.angle > 0:
                 sides.append(((corner.piece_index + 1) % n_pieces, False))
             for k, at_end in sides:
-                _grade_towards(intervals[k], at_end, times)
+                _grade_towards(intervals[k], at_end, times, rule.grade_ratio)
                 if corner.singular:
                     corner_ends.add((k, at_end))
-        _balance(curve, intervals)
+        _balance(curve, intervals, rule.balance_ratio)
         per_conductor.append((curve, intervals, frozenset(corner_ends)))
-    _refine_gaps(layout, per_conductor)
+    _refine_gaps(layout, per_conductor, rule.balance_ratio)
     return tuple(
         (curve, tuple(tuple(iv) for iv in intervals), ends)
         for curve, intervals, ends in per_conductor
     )
 
 
-def _refine_gaps(layout: Layout, per_conductor) -> None:
+def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> None:
     """Split panels longer than GAP_FACTOR times their distance to other surfaces/images."""
     samples = [cond.shape.sample(24) for cond in layout.conductors]
     clouds = []
@@ -332,7 +361,7 @@ def _refine_gaps(layout: Layout, per_conductor) -> None:
                 any_split |= len(bad) > 0
             if not any_split:
                 break
-            _balance(curve, intervals)
+            _balance(curve, intervals, balance_ratio)
 
 
 def _assemble_mesh(layout: Layout, per_conductor, level: int, order: int) -> AxiMesh:

@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import scipy.linalg
 
-from elopt.physics.bem_axi.mesh import AxiMesh, build_mesh
+from elopt.physics.bem_axi.mesh import AxiMesh, MeshRule, build_mesh, default_rule
 from elopt.physics.bem_axi.operators import collocation_matrix
 from elopt.physics.bem_axi.solution import AxisymmetricSolution, LevelResult
 from elopt.physics.errors import SolverError
@@ -37,6 +37,16 @@ DENSE_BYTES_PER_ENTRY = 32
 #: (capacitance, peak field). Measured floors: 1.9e-10 / 4.6e-9 (4 nodes), 5e-13 / 2.8e-11
 #: (6), 2.4e-13 / 1.2e-13 (8).
 NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-12, 1e-10), 8: (1e-12, 1e-12)}
+
+
+#: Mesh rule of the low orders (requests >= 1e-5): ratio-4 grading, two steps at level 0 and
+#: one per level, neighbours within a factor 4.
+LOW_ORDER_RULE = MeshRule(corner_steps=3, steps_per_level=1, grade_ratio=4.0, balance_ratio=4.0)
+
+
+def mesh_rule(order: int) -> MeshRule:
+    """The mesh rule of a homogeneous solve with ``order`` nodes per panel."""
+    return LOW_ORDER_RULE if order <= 4 else default_rule(order)
 
 
 def solve_level(layout: Layout, mesh: AxiMesh) -> LevelResult:
@@ -97,7 +107,7 @@ def solve_axisymmetric(
         raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
 
     def plan(level: int) -> LevelPlan:
-        mesh = build_mesh(layout, level, order)
+        mesh = build_mesh(layout, level, order, mesh_rule(order))
         n = mesh.n_nodes
         return LevelPlan(
             level,
