@@ -284,14 +284,15 @@ def build_mesh(
     if rule is None:
         rule = default_rule(order)
     per_conductor = []
+    frac = np.linspace(0.0, 1.0, 2**level + 1)
     for curve, base, corner_ends in _base_intervals(layout, rule):
         intervals = []
         for iv in base:
-            parts = []
-            for a, b in iv:
-                edges = np.linspace(a, b, 2**level + 1)
-                parts.extend(zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True))
-            intervals.append(parts)
+            ab = np.asarray(iv, dtype=float)
+            edges = ab[:, :1] + (ab[:, 1:] - ab[:, :1]) * frac  # (n, 2**level + 1)
+            intervals.append(
+                list(zip(edges[:, :-1].ravel().tolist(), edges[:, 1:].ravel().tolist(), strict=True))
+            )
         for k, at_end in corner_ends:
             _grade_towards(intervals[k], at_end, rule.steps_per_level * level, rule.grade_ratio)
         per_conductor.append((curve, intervals, corner_ends))
