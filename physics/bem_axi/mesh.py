@@ -291,7 +291,9 @@ def build_mesh(
             ab = np.asarray(iv, dtype=float)
             edges = ab[:, :1] + (ab[:, 1:] - ab[:, :1]) * frac  # (n, 2**level + 1)
             intervals.append(
-                list(zip(edges[:, :-1].ravel().tolist(), edges[:, 1:].ravel().tolist(), strict=True))
+                list(
+                    zip(edges[:, :-1].ravel().tolist(), edges[:, 1:].ravel().tolist(), strict=True)
+                )
             )
         for k, at_end in corner_ends:
             _grade_towards(intervals[k], at_end, rule.steps_per_level * level, rule.grade_ratio)

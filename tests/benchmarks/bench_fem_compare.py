@@ -209,7 +209,9 @@ def main() -> None:
         r_out = 25.0 * (2.0 + 0.1 + 1.9) * MM
         chosen = coarsest_scale(params, ref, r_out)
         if chosen is None:
-            raise SystemExit(f"{label}: the FEM did not reach {REQUEST:g} down to scale {SCALES[-1]}")
+            raise SystemExit(
+                f"{label}: the FEM did not reach {REQUEST:g} down to scale {SCALES[-1]}"
+            )
         t_fem, cpu_fem, (c_fem, n_dofs) = median_time(
             lambda p=params, s=chosen, r=r_out: fem_sense_F(p, s, r), max(3, args.repeats // 3)
         )
