@@ -347,23 +347,35 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> None:
         if cloud is None:
             continue
         for _ in range(40):
-            any_split = False
-            for k, piece in enumerate(curve.pieces):
-                iv = intervals[k]
-                ab = np.array(iv)
-                centres = piece.points(ab.mean(axis=1))
-                dist = np.sqrt(
-                    np.min(np.sum((centres[:, None, :] - cloud[None]) ** 2, axis=-1), axis=1)
-                )
-                lengths = _interval_lengths(piece, iv)
-                bad = np.nonzero(lengths > GAP_FACTOR * dist)[0]
-                for j in bad[::-1]:
+            # Every piece's panels against the cloud at once (a piece's splits do not change
+            # another piece's test).
+            centres = np.concatenate(
+                [
+                    piece.points(np.array(iv).mean(axis=1))
+                    for piece, iv in zip(curve.pieces, intervals, strict=True)
+                ]
+            )
+            gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
+                centres[:, None, 1] - cloud[None, :, 1]
+            ) ** 2
+            dist = np.sqrt(gap2.min(axis=1))
+            lengths = np.concatenate(
+                [
+                    _interval_lengths(piece, iv)
+                    for piece, iv in zip(curve.pieces, intervals, strict=True)
+                ]
+            )
+            bad = lengths > GAP_FACTOR * dist
+            if not np.any(bad):
+                break
+            start = 0
+            for iv in intervals:
+                n = len(iv)
+                for j in np.nonzero(bad[start : start + n])[0][::-1]:
                     a, b = iv[j]
                     m = 0.5 * (a + b)
                     iv[j : j + 1] = [(a, m), (m, b)]
-                any_split |= len(bad) > 0
-            if not any_split:
-                break
+                start += n
             _balance(curve, intervals, balance_ratio)
 
 
