@@ -1,7 +1,8 @@
 """The axisymmetric BEM against a general P2 finite-element solve of the same guarded probes.
 
-Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9]`` (needs the ``bench``
-extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their ratio.
+Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9] [--stages]`` (needs the
+``bench`` extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their
+ratio; ``--stages`` first prints the BEM solve's CPU time per stage (median of the repeats).
 
 Probes (guarded_disk family): sensor radius 2 mm, gap 0.1 mm, guard to 4 mm, thickness
 0.5 mm; (a) filleted 0.05 mm at 0.2 mm standoff, (b) sharp-cornered at 0.5 mm standoff. The
@@ -191,11 +192,55 @@ def median_time(fn, repeats: int) -> tuple[float, float, object]:
     return statistics.median(walls), statistics.median(cpus), out
 
 
+def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
+    """Median CPU ms per stage of the BEM solve at REQUEST (levels as the solve takes them)."""
+    from elopt.physics.bem_axi import operators
+    from elopt.physics.bem_axi.ring_sums import collocation_sum
+    from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_level
+    from elopt.physics.refinement import estimate_error
+
+    def cpu_ms(fn) -> float:
+        return 1e3 * median_time(fn, repeats)[1]
+
+    layout = GuardedDisk().build(params)
+    sol = bem_run(params, REQUEST)
+    order = default_order(REQUEST)
+    rule = mesh_rule(order)
+    out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
+    out["level-0 grading"] = cpu_ms(
+        lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
+    ) - cpu_ms(lambda: axi_mesh.build_mesh(layout, 0, order, rule))
+    for lv in sol.levels:
+        m = lv.mesh
+        tag = f"L{m.level} (N {m.n_nodes})"
+        out[f"{tag} mesh"] = cpu_ms(lambda m=m: axi_mesh.build_mesh(layout, m.level, order, rule))
+        r, z = m.points_m[:, 0].copy(), m.points_m[:, 1].copy()
+        far = cpu_ms(lambda r=r, z=z, w=m.weights_m: collocation_sum(r, z, w, layout.ground_plane))
+        own = cpu_ms(lambda m=m: operators._self_blocks(m))
+        whole = cpu_ms(lambda m=m: operators.collocation_matrix(m, layout.ground_plane))
+        out[f"{tag} far sum"] = far
+        out[f"{tag} self panels"] = own
+        out[f"{tag} near panels"] = whole - far - own
+        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m)) - whole
+    out["estimate (C)"] = cpu_ms(lambda: estimate_error(sol.levels, sol.convergence).capacitance)
+    out["peak search (only when asked)"] = cpu_ms(
+        lambda: [solve_level(layout, lv.mesh).peaks() for lv in sol.levels]
+    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh) for lv in sol.levels])
+    return out
+
+
 def main() -> None:
     limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=9)
+    parser.add_argument("--stages", action="store_true", help="print the BEM's stage times")
     args = parser.parse_args()
+    if args.stages:
+        for label, fillet_mm, standoff_mm in (("filleted", 0.05, 0.2), ("sharp", 0.0, 0.5)):
+            stages = stage_times_ms(probe_params(fillet_mm, standoff_mm), args.repeats)
+            print(f"BEM stages, {label} probe, CPU ms (median of {args.repeats}):")
+            for name, ms in stages.items():
+                print(f"  {name:32s} {ms:7.2f}")
     rows = []
     for label, fillet_mm, standoff_mm in (
         ("filleted 0.05 mm, d 0.2 mm", 0.05, 0.2),
