@@ -297,10 +297,12 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
     tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
     lo = chords.min(axis=1) - tol
     hi = chords.max(axis=1) + tol
-    i, j = np.triu_indices(m, k=2)
-    keep = ~(closed & (i == 0) & (j == m - 1))
-    keep &= np.all((lo[i] <= hi[j]) & (lo[j] <= hi[i]), axis=1)
-    i, j = i[keep], j[keep]
+    meet = (lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0])
+    meet &= (lo[:, None, 1] <= hi[None, :, 1]) & (lo[None, :, 1] <= hi[:, None, 1])
+    meet = np.triu(meet, k=2)
+    if closed and m > 2:
+        meet[0, m - 1] = False
+    i, j = np.nonzero(meet)  # row-major: the order of np.triu_indices
     if len(i) == 0:
         return None
     bad = _chords_cross(chords[i], chords[j])
