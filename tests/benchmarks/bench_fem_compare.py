@@ -205,7 +205,7 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     layout = GuardedDisk().build(params)
     sol = bem_run(params, REQUEST)
     order = default_order(REQUEST)
-    rule = mesh_rule(order)
+    rule = mesh_rule(order, REQUEST)
     out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
     out["level-0 grading"] = cpu_ms(
         lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
