@@ -14,28 +14,22 @@ import dataclasses
 
 import numpy as np
 import pytest
+from test_uniform_field_specimen import CELL
 
 from elopt.physics.bem_axi.dielectric_solve import (
     dielectric_model,
     layer_face_junctions,
     solve_dielectric,
 )
-from elopt.physics.electrodes.uniform_field import UniformField, UniformFieldParams
+from elopt.physics.electrodes.uniform_field import UniformField
 
 FAMILY = UniformField()
-CELL = UniformFieldParams(
-    gap_mm=1.0,
-    flat_radius_mm=10.0,
-    blend_length_mm=1.0,
-    edge_radius_mm=1.0,
-    back_thickness_mm=3.0,
-    drive_V=1.0,
-    specimen_um=1000.0,
-)
+#: The cell of test_uniform_field_specimen with its sheet filling the gap.
+FILLED = dataclasses.replace(CELL, specimen_um=1000.0)
 
 
 def _layout(eps_r: float):
-    return FAMILY.build(dataclasses.replace(CELL, specimen_eps_r=eps_r))
+    return FAMILY.build(dataclasses.replace(FILLED, specimen_eps_r=eps_r))
 
 
 def test_the_rim_contact_with_the_sheet_is_graded():
