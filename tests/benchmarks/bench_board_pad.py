@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -38,7 +39,7 @@ if not bp.SOLVER_HANDLES_LAYERS:
 settings = SolveOptions(rel_accuracy=spec.rel_accuracy)
 cases = {"touch": params, **family.companion_designs(params, options)}
 rows, solutions = [], {}
-t_all = time.perf_counter()
+t_all, cpu_all = time.perf_counter(), time.process_time()
 for name, case in cases.items():
     t0 = time.perf_counter()
     layout = family.build(case, eps_r=spec.eps_r, options=options)
@@ -50,7 +51,7 @@ for name, case in cases.items():
 touch = solutions.pop("touch")
 measured = family.measure(params, options, touch, solutions)
 print(json.dumps({
-    "rows": rows, "wall_s": time.perf_counter() - t_all,
+    "rows": rows, "wall_s": time.perf_counter() - t_all, "cpu_s": time.process_time() - cpu_all,
     "peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
     "request": spec.rel_accuracy, "metrics": measured.metrics,
     "peak_V_per_m": touch.peak_field.field_V_per_m,
@@ -79,9 +80,10 @@ def main() -> None:
         met = "yes" if row["met"] else "no"
         print(f"{row['case']:<10}{panels:<24}{row['s']:>9.1f}{row['estimate']:>10.2g}{met:>5}")
     m = r["metrics"]
+    load = os.getloadavg()[0]
     print(
-        f"total {r['wall_s']:.1f} s, peak {r['peak_bytes'] / 1e6:.0f} MB "
-        "(goal: < 30 s, < 1 GB, request met)"
+        f"total {r['wall_s']:.1f} s wall, {r['cpu_s']:.1f} s CPU, peak {r['peak_bytes'] / 1e6:.0f} MB"
+        f" (goal: < 30 s, < 1 GB, request met); load average {load:.1f} on {os.cpu_count()} cores"
     )
     print(
         f"baseline {m['baseline_capacitance_pF']:.4f} pF, signal {m['touch_signal_fF']:.2f} fF "
