@@ -58,7 +58,12 @@ from elopt.physics.electrodes.base import (
     drive_parameter,
     parameter,
 )
-from elopt.physics.electrodes.board_copper import HatchedFrameSheetSurface, finger, flat_ring
+from elopt.physics.electrodes.board_copper import (
+    EDGE_GRADE,
+    HatchedFrameSheetSurface,
+    finger,
+    flat_ring,
+)
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.electrodes.solvers import (
     SolvedByPanels,
@@ -221,7 +226,7 @@ def pad_surface(p: BoardPadParams, h_m: float) -> Surface:
     z = copper_z_m(p)
     if p.pad_shape == "round":
         return flat_ring(0.0, 0.5 * p.pad_length_mm * MM, z, h_m)
-    return RectangleSheetSurface(pad_size_m(p), z, h_m)
+    return RectangleSheetSurface(pad_size_m(p), z, h_m, grade=EDGE_GRADE)
 
 
 def pour_surface(p: BoardPadParams, h_m: float) -> Surface:
@@ -233,7 +238,7 @@ def pour_surface(p: BoardPadParams, h_m: float) -> Surface:
         return HatchedFrameSheetSurface(
             (s, s), hole_size_m(p), z, h_m, p.hatch_pitch_mm * MM, p.hatch_line_mm * MM
         )
-    return FrameSheetSurface((s, s), hole_size_m(p), z, h_m)
+    return FrameSheetSurface((s, s), hole_size_m(p), z, h_m, grade=EDGE_GRADE)
 
 
 def target_surface(p: BoardPadParams, h_m: float) -> Surface:
@@ -242,7 +247,7 @@ def target_surface(p: BoardPadParams, h_m: float) -> Surface:
     size = p.target_size_mm * MM
     if p.target_kind == "finger":
         return finger(size, p.finger_length_mm * MM, z, x, h_m)
-    plate = RectangleSheetSurface((size, size), z, h_m)
+    plate = RectangleSheetSurface((size, size), z, h_m, grade=EDGE_GRADE)
     return plate if x == 0.0 else plate.transformed(translation_m=np.array([x, 0.0, 0.0]))
 
 
