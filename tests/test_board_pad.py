@@ -409,3 +409,28 @@ def test_baseline_and_water_film_on_a_layered_board_agree_with_the_axisymmetric_
     shift, err = level_matched_change(film3, base3, 0)
     assert shift > 0
     assert abs(shift - (film_axi - base_axi)) <= err
+
+
+@needs_layers
+@pytest.mark.slow
+def test_a_glass_cover_raises_the_touch_signal_and_a_water_film_the_baseline():
+    # Physics of the trade, no published value: the finger couples to the pad through the
+    # cover, so a cover of higher permittivity passes more of its field (larger signal); a
+    # water film on the cover couples the pad to the pour around it (the baseline rises).
+    fam = BoardPad()
+    options = BoardPadOptions(mesh_step_mm=2.0, max_level=1)
+    plastic = replace(ROUND, board_eps_r=4.4, cover_eps_r=2.0, film_thickness_um=100.0)
+    glass = replace(plastic, cover_eps_r=7.0)
+    got = {
+        name: fam.evaluate(p, rel_accuracy=1e-2, options=options)
+        for name, p in (("plastic", plastic), ("glass", glass))
+    }
+    for ev in got.values():
+        assert ev.metrics["film_shift_fF"] > ev.extra["film_shift_error_estimate_F"] * 1e15
+        margin = ev.metrics["touch_signal_fF"] / ev.metrics["film_shift_fF"]
+        assert ev.metrics["false_trigger_margin"] == pytest.approx(margin)
+    s_plastic = got["plastic"].metrics["touch_signal_fF"]
+    s_glass = got["glass"].metrics["touch_signal_fF"]
+    err = got["plastic"].extra["touch_signal_error_estimate_F"] * 1e15
+    err += got["glass"].extra["touch_signal_error_estimate_F"] * 1e15
+    assert s_glass - s_plastic > err
