@@ -36,9 +36,10 @@ ESTIMATE_LEVEL = 1
 
 
 def estimated_panels(layout: Layout, level: int = ESTIMATE_LEVEL) -> dict[str, float]:
-    """Panels of each conductor of a 3-D layout at ``level`` (name -> count), counted
-    without meshing."""
-    return {c.name: float(c.shape.estimated_panels(level)) for c in layout.conductors}
+    """Panels of each conductor and dielectric body of a 3-D layout at ``level`` (name ->
+    count), counted without meshing."""
+    shapes = [*layout.conductors, *layout.regions]
+    return {c.name: float(c.shape.estimated_panels(level)) for c in shapes}
 
 
 def refuse_too_many_panels(family: str, counts: dict[str, float], cause: str) -> None:
