@@ -29,6 +29,7 @@ from elopt.physics.electrodes.board_pad import (
     BoardPadOptions,
     BoardPadParams,
     level_matched_change,
+    neutral_layers_removed,
 )
 from elopt.physics.electrodes.registry import get_family
 from elopt.physics.errors import ElectrodeError
@@ -291,7 +292,7 @@ def test_level_matched_change_uses_the_finest_common_level(round_evaluation):
     ev = round_evaluation
     touch = ev.solution
     base = solve_3d(
-        BoardPad().build(BoardPadCase(ROUND, target=False), options=COARSE),
+        neutral_layers_removed(BoardPad().build(BoardPadCase(ROUND, target=False), options=COARSE)),
         rel_accuracy=1e-6,
         max_level=0,
         strict=False,
