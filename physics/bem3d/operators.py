@@ -91,6 +91,8 @@ def gauss_diagonal(panels: PanelSet, weighted_columns) -> np.ndarray:
 
 def dense_matrix(panels: PanelSet) -> np.ndarray:
     """The full (N, N) system matrix (see the module docstring)."""
+    if panels.background is not None:  # planar layers: the layered Green's function
+        return panels.background.dense_matrix(panels)
     nc = panels.n_conductor_panels
     if nc == panels.n:
         return potential_rows(panels, np.arange(nc))

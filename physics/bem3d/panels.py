@@ -18,10 +18,14 @@ import numpy as np
 from elopt.physics.bem3d.bodies import (
     body_media,
     check_bodies,
-    check_layers_absent,
     region_surfaces,
 )
 from elopt.physics.bem3d.checks import check_above_plane, check_apart, check_surface
+from elopt.physics.bem3d.layered_green import (
+    LayeredBackground,
+    check_bodies_without_layers,
+    layered_background,
+)
 from elopt.physics.bem3d.mesh import TriangleMesh, concatenated
 from elopt.physics.bem3d.surfaces import Surface
 from elopt.physics.errors import GeometryError
@@ -47,6 +51,8 @@ class PanelSet:
     eps_back: np.ndarray | None = None
     eps_medium: float = 1.0
     region_smooth: tuple[bool | None, ...] = ()
+    #: Green's function of the layout's planar layers (:mod:`.layered_green`); None: homogeneous.
+    background: LayeredBackground | None = None
 
     def __post_init__(self) -> None:
         n = self.mesh.n_triangles
@@ -156,7 +162,7 @@ def conductor_surfaces(layout: Layout) -> tuple[Surface, ...]:
 def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
     """Mesh every conductor and dielectric body at ``level`` and (with ``check``) validate the
     meshes."""
-    check_layers_absent(layout)
+    check_bodies_without_layers(layout)
     surfaces = conductor_surfaces(layout)
     bodies = region_surfaces(layout)
     meshes = [s.mesh(level) for s in surfaces]
@@ -185,6 +191,7 @@ def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
         eps_front[~cond] = media.outside[region[~cond]]
         eps_back[~cond] = media.inside[region[~cond]]
     return PanelSet(
+        background=layered_background(layout, mesh, owner),
         mesh=mesh,
         owner=owner,
         level=level,

@@ -107,12 +107,21 @@ def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied
         face += [np.ones(len(sheet), dtype=np.int8), -np.ones(len(sheet), dtype=np.int8)]
         sigma += [on_face[: len(sheet)], on_face[len(sheet) :]]
     panel_all = np.concatenate(panel)
+    normals_all = np.concatenate(normals)
+    points_all = np.concatenate(points)
     # The total density is eps_m E_n outside; the free one eps_f E_n (module text of .solve).
     eps_face = EPS0_F_PER_M * p.eps_front[panel_all]
     ratio = eps_face / layout.eps_F_per_m
+    if p.background is not None:
+        # planar layers: closed panels carry the free density already; on a sheet face
+        # -grad . n of the potential integrals is eps_m E . n, its free charge eps_face E . n
+        # with eps_face that of the layer just outside
+        off = (_FACE_OFFSET * mesh.diameters_m[panel_all])[:, None] * normals_all
+        eps_face = EPS0_F_PER_M * p.background.eps_r_at(points_all + off)
+        ratio = np.where(np.concatenate(face) != 0, eps_face / layout.eps_F_per_m, 1.0)
     return {
-        "points_m": np.concatenate(points),
-        "normals": np.concatenate(normals),
+        "points_m": points_all,
+        "normals": normals_all,
         "panel": panel_all,
         "owner": p.owner[panel_all],
         "face": np.concatenate(face),
@@ -205,6 +214,11 @@ class PanelSolution(ChargeSolution):
     def _require_plane(self) -> None:
         if not self.layout.ground_plane:
             raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        if self.panels.background is not None:
+            raise SolverError(
+                "ground-plane charge and plane derivatives are not available with planar "
+                "layers in 3-D (the layer on the plane changes with it)"
+            )
 
     @cached_property
     def _plane_rule(self) -> tuple[np.ndarray, np.ndarray]:

@@ -48,7 +48,12 @@ import numpy as np
 import scipy.linalg
 from scipy.spatial import cKDTree
 
-from elopt.physics.bem3d.bodies import check_layers_absent, region_surfaces
+from elopt.physics.bem3d.bodies import region_surfaces
+from elopt.physics.bem3d.layered_green import (
+    check_bodies_without_layers,
+    extra_dense_bytes,
+    layered_method,
+)
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
     PRECONDITIONER_FACTOR,
@@ -223,11 +228,13 @@ def solve_3d(
     "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
     ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
     tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh.
+    Planar layers (``layout.layers``) enter through the layered Green's function of
+    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
     """
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
         raise SolverError(f"method must be one of auto, dense, fast; got {method!r}")
-    check_layers_absent(layout)
+    check_bodies_without_layers(layout)
     conductor_surfaces(layout)
     region_surfaces(layout)
     tol = min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0)
@@ -245,6 +252,8 @@ def solve_3d(
         chosen = method
         if method == "auto":
             chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
+        if panels.background is not None:
+            chosen = layered_method(method)
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             return solve_level(
@@ -257,7 +266,10 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns)
-        return LevelPlan(level, panels.n, need, f"{chosen} solve", run)
+        if panels.background is not None:
+            need += extra_dense_bytes(panels.n)
+        note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
+        return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by
     # 0.15-0.25 per level; the compressed matrix moves C by up to 0.06 aca; the peak is the
