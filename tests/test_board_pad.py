@@ -1,12 +1,11 @@
 """The board touch pad family: copper and target meshes, layers, parameter rules, the three
-solves of one evaluation (in a homogeneous medium until the 3-D solver handles layers), and
-the touch signal against the axisymmetric solver on a round pad."""
+solves of one evaluation (in air and on a layered board), and the baseline, touch signal and
+water-film shift against the axisymmetric solver on a round pad."""
 
 from __future__ import annotations
 
 import math
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -23,7 +22,6 @@ from elopt.physics.electrodes.board_copper import (
 from elopt.physics.electrodes.board_pad import (
     BASELINE,
     FILM_CASE,
-    SOLVER_HANDLES_LAYERS,
     BoardPad,
     BoardPadCase,
     BoardPadOptions,
@@ -63,12 +61,6 @@ RECT = replace(
     target_size_mm=8.0,
 )
 COARSE = BoardPadOptions(mesh_step_mm=1.5, max_level=1)
-needs_layers = pytest.mark.skipif(
-    not SOLVER_HANDLES_LAYERS, reason="the 3-D solver does not handle planar layers yet"
-)
-before_layers = pytest.mark.skipif(
-    SOLVER_HANDLES_LAYERS, reason="the refusal holds until the 3-D solver handles layers"
-)
 
 
 def axisymmetric(layout: Layout, keep: int) -> Layout:
@@ -221,19 +213,6 @@ def test_bad_rectangular_pad_input(change, needle):
     assert needle in str(info.value)
 
 
-@before_layers
-def test_layers_the_solver_cannot_handle_yet_are_refused_before_any_solve():
-    fam = BoardPad()
-    p = replace(ROUND, board_eps_r=4.4, film_thickness_um=50.0)
-    with pytest.raises(ElectrodeError) as info:
-        fam.validate_design(p, COARSE)
-    text = str(info.value)
-    assert "board_eps_r = 4.4, film_eps_r = 80 must be 1 until the 3-D solver handles" in text
-    assert "\n" not in text
-    # A layer of the medium's permittivity changes nothing and is dropped for the solve.
-    fam.validate_design(ROUND, COARSE)
-
-
 @pytest.fixture(scope="module")
 def round_evaluation():
     return BoardPad().evaluate(ROUND, rel_accuracy=1e-2, options=COARSE)
@@ -341,16 +320,6 @@ def test_command_line_solve_of_an_air_key_gives_strict_json(tmp_path, capsys):
     assert "touch_signal_fF" in text and "NaN" not in text
 
 
-@before_layers
-def test_command_line_refuses_the_layered_demo_in_one_line(capsys):
-    from elopt.optimizer.cli.main import main
-
-    demo = Path(__file__).resolve().parents[1] / "configs" / "cooker_hood_touch_key.toml"
-    assert main(["solve", str(demo)]) == 2
-    err = capsys.readouterr().err.strip()
-    assert len(err.splitlines()) == 1 and "board_eps_r = 4.4" in err
-
-
 def test_a_study_trial_in_air_takes_text_and_flag_parameters_as_fixed_values():
     import tomllib
 
@@ -390,7 +359,6 @@ def test_too_fine_a_mesh_is_refused_before_meshing_naming_its_cause():
             BoardPad().build(params, options=absurd)
 
 
-@needs_layers
 @pytest.mark.slow
 def test_baseline_and_water_film_on_a_layered_board_agree_with_the_axisymmetric_solver():
     # Board eps_r 4.4, cover 3 bonded on, a 0.1 mm water film: the copper lies on the
@@ -412,7 +380,6 @@ def test_baseline_and_water_film_on_a_layered_board_agree_with_the_axisymmetric_
     assert abs(shift - (film_axi - base_axi)) <= err
 
 
-@needs_layers
 @pytest.mark.slow
 def test_a_glass_cover_raises_the_touch_signal_and_a_water_film_the_baseline():
     # Physics of the trade, no published value: the finger couples to the pad through the

@@ -37,7 +37,6 @@ grounded finger model of 8-10 mm diameter is common practice, no source.
 from __future__ import annotations
 
 import dataclasses
-import importlib.util
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -70,7 +69,6 @@ from elopt.physics.electrodes.solvers import (
     estimated_panels,
     refuse_too_many_panels,
 )
-from elopt.physics.errors import ElectrodeError
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import PlanarLayer
 from elopt.physics.refinement import RATIO_CEILING, RATIO_FLOOR, SAFETY, SolveOptions
@@ -89,10 +87,6 @@ TARGET_KINDS = ("finger", "plate")
 #: Companion designs: the pad with no target, and with no target under the water film.
 BASELINE = "baseline"
 FILM_CASE = "film"
-#: The 3-D solver handles planar layers of their own permittivity: its layered Green's function
-#: module is present. Until it is, a layer whose permittivity differs from the medium's is
-#: refused, not ignored (the homogeneous solver would drop it silently).
-SOLVER_HANDLES_LAYERS = importlib.util.find_spec("elopt.physics.bem3d.layered_green") is not None
 
 
 @dataclass(frozen=True)
@@ -286,18 +280,6 @@ def neutral_layers_removed(layout: Layout) -> Layout:
     return dataclasses.replace(layout, layers=kept)
 
 
-def refuse_unsolvable_layers(family: str, layout: Layout) -> None:
-    """Until the 3-D solver handles layers, name the first one it would have ignored."""
-    if SOLVER_HANDLES_LAYERS or not layout.layers:
-        return
-    layer = layout.layers[0]
-    raise ElectrodeError(
-        f"{family}: layer '{layer.name}' has eps_r = {layer.eps_r:.6g} but the 3-D solver does "
-        f"not handle planar layers yet; only eps_r = {layout.eps_r:.6g} (the medium's) can be "
-        "solved for the board, cover and film"
-    )
-
-
 # ---------------------------------------------------------------- the family
 
 
@@ -405,23 +387,11 @@ class BoardPad(SolvedByPanels, ElectrodeFamily):
     def solve(
         self, layout: Layout, *, solve_options: SolveOptions, options: BoardPadOptions
     ) -> ChargeSolution:
-        solvable = neutral_layers_removed(layout)
-        refuse_unsolvable_layers(self.name, solvable)
-        return super().solve(solvable, solve_options=solve_options, options=options)
-
-    def validate_design(self, params: BoardPadParams, options: BoardPadOptions) -> None:
-        self.validate(params)
-        if SOLVER_HANDLES_LAYERS:
-            return
-        keys = ["board_eps_r", "cover_eps_r"] if params.cover_thickness_mm > 0 else ["board_eps_r"]
-        if film_solved(params):
-            keys.append("film_eps_r")
-        given = [f"{key} = {getattr(params, key):.6g}" for key in keys if getattr(params, key) != 1]
-        if given:
-            raise ElectrodeError(
-                f"{self.name}: {', '.join(given)} must be 1 until the 3-D solver handles planar "
-                "layers (board, cover and film are layers)"
-            )
+        # Layers of the medium's permittivity change nothing; without them the solve takes the
+        # homogeneous kernel and its fast path.
+        return super().solve(
+            neutral_layers_removed(layout), solve_options=solve_options, options=options
+        )
 
     def companion_designs(self, params: BoardPadParams, options: BoardPadOptions) -> dict[str, Any]:
         out: dict[str, Any] = {BASELINE: BoardPadCase(params, target=False)}

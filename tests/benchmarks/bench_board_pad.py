@@ -25,7 +25,6 @@ CONFIG = Path(__file__).resolve().parents[2] / "configs" / "cooker_hood_touch_ke
 _CHILD = r"""
 import dataclasses, json, resource, sys, time
 from elopt.optimizer.config.solve_config import read_solve_config
-from elopt.physics.electrodes import board_pad as bp
 from elopt.physics.electrodes.registry import get_family
 from elopt.physics.refinement import SolveOptions
 from elopt.physics.threads import limit_blas_threads
@@ -35,7 +34,7 @@ family = get_family(spec.family)
 level = int(sys.argv[2]) if int(sys.argv[2]) >= 0 else spec.options.max_level
 options = dataclasses.replace(spec.options, max_level=level)
 params = spec.params
-air = sys.argv[4] == "air" or not bp.SOLVER_HANDLES_LAYERS
+air = sys.argv[4] == "air"
 if air:
     params = dataclasses.replace(params, board_eps_r=1.0, cover_eps_r=1.0, film_eps_r=1.0)
 request = float(sys.argv[3])
