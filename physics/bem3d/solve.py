@@ -35,6 +35,7 @@ from elopt.physics.bem3d.operators import (
 )
 from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
+from elopt.physics.bem3d.symmetry import MirrorSymmetry, mirror_symmetry, reduced_matrix
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
 from elopt.physics.refinement import (
@@ -51,8 +52,11 @@ DENSE_MAX_PANELS = 4_000
 Method = Literal["auto", "dense", "fast"]
 
 
-def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
-    """Peak bytes a level will need: the dense N^2 matrix, or the compressed one.
+def estimate_memory_bytes(
+    panels: PanelSet, method: str, n_columns: int, n_reduced: int | None = None
+) -> int:
+    """Peak bytes a level will need: the dense N^2 matrix (R^2 for ``n_reduced`` = R
+    unknowns left by a mirror symmetry), or the compressed one.
 
     The compressed matrix is estimated per panel as 5 kB of dense near blocks plus 0.5 kB per
     tree level of low-rank factors (measured on spheres and boxes from 5e3 to 2e5 panels), and
@@ -61,7 +65,8 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     n = panels.n
     base = 600 * n + 16 * n * n_columns
     if method == "dense":
-        return base + 8 * n * n
+        r = n if n_reduced is None else n_reduced
+        return base + 8 * r * r
     _, centroids, _, diams = panels.kernel_arrays
     rng = np.random.default_rng(0)
     sample = rng.choice(n, size=min(n, 2000), replace=False)
@@ -100,20 +105,25 @@ def solve_level(
     gmres_rtol: float,
     aca_tol: float,
     previous: LevelResult3D | None = None,
+    symmetry: MirrorSymmetry | None = None,
 ) -> LevelResult3D:
-    """Solve every excitation column on one level (dense LU or preconditioned GMRES)."""
+    """Solve every excitation column on one level (dense LU or preconditioned GMRES); a
+    dense solve with a ``symmetry`` solves on one panel per orbit (:mod:`.symmetry`)."""
     eps = layout.eps_F_per_m
     rhs = _rhs(layout, panels)
     stats = SolveStats(method=method, n_panels=panels.n)
     t0 = time.perf_counter()
     if method == "dense":
-        a = dense_matrix(panels)
+        a = dense_matrix(panels) if symmetry is None else reduced_matrix(panels, symmetry)
         if not np.all(np.isfinite(a)):
             raise SolverError("collocation matrix has non-finite entries; check the mesh")
         stats.setup_s = time.perf_counter() - t0
         t1 = time.perf_counter()
         lu = scipy.linalg.lu_factor(a, overwrite_a=True, check_finite=False)
-        x = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
+        if symmetry is None:
+            x = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
+        else:
+            x = scipy.linalg.lu_solve(lu, rhs[symmetry.reps], check_finite=False)[symmetry.orbit]
         stats.solve_s = time.perf_counter() - t1
     else:
         op = FastOperator(panels, tol=aca_tol)
@@ -177,6 +187,7 @@ def solve_3d(
     memory_limit_bytes: int | None = None,
     aca_tol: float | None = None,
     check: bool = True,
+    symmetry: bool = True,
     **overrides: Any,
 ) -> PanelSolution:
     """Solve a layout of 3-D surfaces (every shape a :class:`elopt.physics.bem3d.surfaces.Surface`).
@@ -187,7 +198,9 @@ def solve_3d(
     panel size); ``order`` is not used (one constant density per flat triangle). ``method``
     "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
     ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
-    tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh.
+    tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh;
+    ``symmetry`` lets a level whose panels are mirror symmetric in x and/or y be solved on one
+    panel per orbit (dense only; "auto" then compares the orbit count with the limit).
     """
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
@@ -201,9 +214,13 @@ def solve_3d(
 
     def plan(level: int) -> LevelPlan:
         panels = discretise(layout, level, check=check)
+        sym = mirror_symmetry(panels) if symmetry and method != "fast" else None
+        n_solved = panels.n if sym is None else sym.n_reduced
         chosen = method
         if method == "auto":
-            chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
+            chosen = "dense" if n_solved <= DENSE_MAX_PANELS else "fast"
+        if chosen == "fast":
+            sym = None
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             return solve_level(
@@ -213,10 +230,12 @@ def solve_3d(
                 gmres_rtol=gmres_rtol,
                 aca_tol=aca,
                 previous=previous,
+                symmetry=sym,
             )
 
-        need = estimate_memory_bytes(panels, chosen, n_columns)
-        return LevelPlan(level, panels.n, need, f"{chosen} solve", run)
+        need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
+        note = f"{chosen} solve" if sym is None else f"dense solve on {n_solved} orbits"
+        return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by
     # 0.15-0.25 per level; the compressed matrix moves C by up to 0.06 aca; the peak is the
