@@ -20,15 +20,17 @@ MM = 1e-3
 
 def _pad_layout(tilt_rad: float = 0.0, center_x_m: float = 0.0) -> Layout:
     kw = {"fillet_m": 0.1 * MM, "arc_steps": 2, "secant": True, "centred": True}
-    pad = BoxSurface((2 * MM, 1.5 * MM, 0.4 * MM), 0.8 * MM, center_m=(center_x_m, 0, 0.7 * MM), **kw)
-    guard = FrameSurface((4.2 * MM, 3.7 * MM), (2.6 * MM, 2.1 * MM), 0.5 * MM, 0.4 * MM, 0.8 * MM, **kw)
+    pad = BoxSurface(
+        (2 * MM, 1.5 * MM, 0.4 * MM), 0.8 * MM, center_m=(center_x_m, 0, 0.7 * MM), **kw
+    )
+    guard = FrameSurface(
+        (4.2 * MM, 3.7 * MM), (2.6 * MM, 2.1 * MM), 0.5 * MM, 0.4 * MM, 0.8 * MM, **kw
+    )
     layout = Layout((driven("pad", pad, 1.0), driven("guard", guard, 1.0)), ground_plane=True)
     return tilted_layout(layout, tilt_rad, -1.0 * MM)
 
 
-@pytest.mark.parametrize(
-    ("tilt_rad", "planes"), [(0.0, ("x", "y")), (math.radians(1.0), ("y",))]
-)
+@pytest.mark.parametrize(("tilt_rad", "planes"), [(0.0, ("x", "y")), (math.radians(1.0), ("y",))])
 def test_symmetric_solve_equals_the_full_solve(tilt_rad, planes):
     # The reduced system is the full one restricted to symmetric densities, which every
     # excitation here has: both solves must agree to round-off.
@@ -57,7 +59,9 @@ def test_panels_on_a_mirror_plane_count_once():
     assert half.capacitance_matrix_F[0, 0] == pytest.approx(
         full.capacitance_matrix_F[0, 0], rel=1e-11
     )
-    assert half.capacitance_matrix_F[0, 0] == pytest.approx(4 * math.pi * EPS0_F_PER_M * 0.02, rel=5e-3)
+    assert half.capacitance_matrix_F[0, 0] == pytest.approx(
+        4 * math.pi * EPS0_F_PER_M * 0.02, rel=5e-3
+    )
 
 
 def test_asymmetric_layouts_are_solved_in_full():
@@ -67,7 +71,9 @@ def test_asymmetric_layouts_are_solved_in_full():
     # A tensor grid with an odd cell count across x = 0 splits its middle quads along one
     # diagonal: not mirror symmetric, so no reduction is made.
     box = BoxSurface((1.0, 0.8, 0.6), 0.7, center_m=(0.0, 0.0, 1.0))
-    assert mirror_symmetry(discretise(Layout((driven("b", box, 1.0),), ground_plane=True), 0)) is None
+    assert (
+        mirror_symmetry(discretise(Layout((driven("b", box, 1.0),), ground_plane=True), 0)) is None
+    )
 
 
 def _rounded_box_volume(a: float, b: float, t: float, f: float) -> float:
@@ -107,3 +113,16 @@ def test_centred_meshes_are_mirror_symmetric_at_every_level():
             flip[axis] = -1
             d = np.linalg.norm(c[:, None, :] * flip - c[None, :, :], axis=2).min(axis=1)
             assert d.max() < 1e-12
+
+
+def test_compressed_symmetric_solve_agrees_with_the_full_compressed_one():
+    # Same compressed equations on the orbits and on every panel: agreement to the
+    # compression and GMRES tolerances asked (1e-6 and 5e-6).
+    layout = _pad_layout(math.radians(1.0))
+    kw = {"rel_accuracy": 1e-4, "max_level": 0, "method": "fast", "aca_tol": 1e-6}
+    full = solve_3d(layout, symmetry=False, **kw)
+    half = solve_3d(layout, **kw)
+    assert mirror_symmetry(discretise(layout, 0)) is not None  # so the orbits are solved
+    assert half.levels[0].stats.n_panels == full.levels[0].stats.n_panels
+    c = full.capacitance_matrix_F
+    assert np.allclose(half.capacitance_matrix_F, c, rtol=0, atol=2e-5 * abs(c[0, 0]))

@@ -80,6 +80,14 @@ def near_matrix(panels: PanelSet, near_factor: float) -> sp.csr_matrix:
     )
 
 
+def incomplete_lu(near: sp.csc_matrix) -> spla.SuperLU:
+    """The GMRES preconditioner: an incomplete LU of the near-field matrix."""
+    try:
+        return spla.spilu(near, drop_tol=1e-3, fill_factor=2.0)
+    except RuntimeError as exc:
+        raise SolverError(f"the near-field preconditioner failed ({exc}); check the mesh") from None
+
+
 @dataclass
 class SolveStats:
     """How one level was solved: method, sizes, iterations per excitation, seconds spent."""
@@ -98,14 +106,10 @@ class FastOperator:
     def __init__(self, panels: PanelSet, *, tol: float) -> None:
         t0 = time.perf_counter()
         self.panels = panels
+        self.n = panels.n
         self.hmatrix = HMatrix(panels, tol=tol)
         near = near_matrix(panels, PRECONDITIONER_FACTOR).tocsc()
-        try:
-            self.ilu = spla.spilu(near, drop_tol=1e-3, fill_factor=2.0)
-        except RuntimeError as exc:
-            raise SolverError(
-                f"the near-field preconditioner failed ({exc}); check the mesh"
-            ) from None
+        self.ilu = incomplete_lu(near)
         self.setup_s = time.perf_counter() - t0
         self.stored_bytes = self.hmatrix.nbytes + int(near.nnz * 12)
 
@@ -117,7 +121,7 @@ class FastOperator:
     ) -> np.ndarray:
         """Solve A x = rhs for every column of rhs (N, K) by preconditioned GMRES, starting
         from the columns of ``x0`` (N, K) when given."""
-        n = self.panels.n
+        n = self.n
         op = spla.LinearOperator((n, n), matvec=self.matvec, dtype=float)
         pre = spla.LinearOperator((n, n), matvec=self.ilu.solve, dtype=float)
         out = np.zeros_like(rhs)

@@ -35,7 +35,12 @@ from elopt.physics.bem3d.operators import (
 )
 from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
-from elopt.physics.bem3d.symmetry import MirrorSymmetry, mirror_symmetry, reduced_matrix
+from elopt.physics.bem3d.symmetry import (
+    MirrorSymmetry,
+    ReducedFastOperator,
+    mirror_symmetry,
+    reduced_matrix,
+)
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
 from elopt.physics.refinement import (
@@ -56,7 +61,7 @@ def estimate_memory_bytes(
     panels: PanelSet, method: str, n_columns: int, n_reduced: int | None = None
 ) -> int:
     """Peak bytes a level will need: the dense N^2 matrix (R^2 for ``n_reduced`` = R
-    unknowns left by a mirror symmetry), or the compressed one.
+    unknowns left by a mirror symmetry), or the compressed one (R / N of it).
 
     The compressed matrix is estimated per panel as 5 kB of dense near blocks plus 0.5 kB per
     tree level of low-rank factors (measured on spheres and boxes from 5e3 to 2e5 panels), and
@@ -74,7 +79,8 @@ def estimate_memory_bytes(
     ti, _ = near_pairs(centroids, centroids[sample], PRECONDITIONER_FACTOR * diams[sample])
     pre = images * len(ti) * n / len(sample)
     levels = max(1.0, math.log2(max(n, 64) / 32.0))
-    return int(base + n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
+    share = 1.0 if n_reduced is None else n_reduced / n
+    return int(base + share * (n * (5000 + 500 * levels) + pre * (56 + 12 * 6)))
 
 
 def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
@@ -107,8 +113,8 @@ def solve_level(
     previous: LevelResult3D | None = None,
     symmetry: MirrorSymmetry | None = None,
 ) -> LevelResult3D:
-    """Solve every excitation column on one level (dense LU or preconditioned GMRES); a
-    dense solve with a ``symmetry`` solves on one panel per orbit (:mod:`.symmetry`)."""
+    """Solve every excitation column on one level (dense LU or preconditioned GMRES), on one
+    panel per orbit of a ``symmetry`` when given (:mod:`.symmetry`)."""
     eps = layout.eps_F_per_m
     rhs = _rhs(layout, panels)
     stats = SolveStats(method=method, n_panels=panels.n)
@@ -126,7 +132,10 @@ def solve_level(
             x = scipy.linalg.lu_solve(lu, rhs[symmetry.reps], check_finite=False)[symmetry.orbit]
         stats.solve_s = time.perf_counter() - t1
     else:
-        op = FastOperator(panels, tol=aca_tol)
+        if symmetry is None:
+            op = FastOperator(panels, tol=aca_tol)
+        else:
+            op = ReducedFastOperator(panels, symmetry, tol=aca_tol)
         stats.setup_s = op.setup_s
         stats.stored_bytes = op.stored_bytes
         x0 = None
@@ -200,7 +209,7 @@ def solve_3d(
     ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
     tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh;
     ``symmetry`` lets a level whose panels are mirror symmetric in x and/or y be solved on one
-    panel per orbit (dense only; "auto" then compares the orbit count with the limit).
+    panel per orbit ("auto" then compares the orbit count with the dense limit).
     """
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
@@ -214,13 +223,11 @@ def solve_3d(
 
     def plan(level: int) -> LevelPlan:
         panels = discretise(layout, level, check=check)
-        sym = mirror_symmetry(panels) if symmetry and method != "fast" else None
+        sym = mirror_symmetry(panels) if symmetry else None
         n_solved = panels.n if sym is None else sym.n_reduced
         chosen = method
         if method == "auto":
             chosen = "dense" if n_solved <= DENSE_MAX_PANELS else "fast"
-        if chosen == "fast":
-            sym = None
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             return solve_level(
@@ -234,7 +241,7 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
-        note = f"{chosen} solve" if sym is None else f"dense solve on {n_solved} orbits"
+        note = f"{chosen} solve" if sym is None else f"{chosen} solve on {n_solved} orbits"
         return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by

@@ -5,7 +5,8 @@ y -> -y, or both, and every excitation is too (unit potentials per conductor: ye
 conductor is its own mirror image; the applied field along z: always; the ground plane z = 0:
 always), the solution is symmetric: sigma is equal on the panels of one orbit. The collocation
 equations at one panel per orbit, with the columns of each orbit summed, then give the same
-densities as the full system, with |G| times fewer unknowns for a group G of 2 or 4
+densities as the full system (dense: :func:`reduced_matrix`; compressed:
+:class:`ReducedFastOperator`), with |G| times fewer unknowns for a group G of 2 or 4
 reflections: |G|^2 less memory and |G|^3 less work for LU (the method of images applied to the
 symmetry planes; e.g. Bossavit, "Boundary value problems with symmetry and their approximation
 by finite elements", SIAM J. Appl. Math. 53, 1352 (1993), for the general theory).
@@ -13,13 +14,23 @@ by finite elements", SIAM J. Appl. Math. 53, 1352 (1993), for the general theory
 
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d import panel_integrals as pint
-from elopt.physics.bem3d.operators import FOUR_PI
+from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.operators import (
+    FOUR_PI,
+    PRECONDITIONER_FACTOR,
+    FastOperator,
+    SolveStats,
+    incomplete_lu,
+    near_matrix,
+)
 from elopt.physics.bem3d.panels import PanelSet
 
 #: Two panels are each other's mirror image when their sorted corners agree to this fraction
@@ -116,3 +127,35 @@ def reduced_matrix(panels: PanelSet, symmetry: MirrorSymmetry) -> np.ndarray:
             out[rows] += block * weights[g]
     out /= FOUR_PI
     return out
+
+
+class ReducedFastOperator(FastOperator):
+    """:class:`FastOperator` on the orbits: the hierarchical matrix of the representatives'
+    rows (R, N) applied to densities spread over each orbit, preconditioned by the incomplete
+    LU of the near-field matrix with its columns summed per orbit. ``solve`` takes and returns
+    full (N, K) arrays."""
+
+    def __init__(self, panels: PanelSet, symmetry: MirrorSymmetry, *, tol: float) -> None:
+        t0 = time.perf_counter()
+        self.panels = panels
+        self.symmetry = symmetry
+        self.n = symmetry.n_reduced
+        _, centroids, _, _ = panels.kernel_arrays
+        self.hmatrix = HMatrix(panels, tol=tol, targets=centroids[symmetry.reps])
+        fold = sp.csr_matrix(
+            (np.ones(panels.n), (np.arange(panels.n), symmetry.orbit)), shape=(panels.n, self.n)
+        )
+        near = (near_matrix(panels, PRECONDITIONER_FACTOR)[symmetry.reps] @ fold).tocsc()
+        self.ilu = incomplete_lu(near)
+        self.setup_s = time.perf_counter() - t0
+        self.stored_bytes = self.hmatrix.nbytes + int(near.nnz * 12)
+
+    def matvec(self, x: np.ndarray) -> np.ndarray:
+        return self.hmatrix.matvec(x[self.symmetry.orbit])
+
+    def solve(
+        self, rhs: np.ndarray, rtol: float, stats: SolveStats, x0: np.ndarray | None = None
+    ) -> np.ndarray:
+        s = self.symmetry
+        x = super().solve(rhs[s.reps], rtol, stats, None if x0 is None else x0[s.reps])
+        return x[s.orbit]
