@@ -97,11 +97,14 @@ def test_equal_area_fillets_match_the_rounded_volume_far_better():
 
 
 def test_secant_factor_gives_chords_the_arc_area():
-    # A regular n-gon on radius k R has the area of the circle of radius R when
-    # n k^2 sin(2 pi / n) / 2 = pi (elementary geometry).
-    for n in (8, 16, 64):
-        k = secant_factor(2 * math.pi / n)
-        assert 0.5 * n * k**2 * math.sin(2 * math.pi / n) == pytest.approx(math.pi, rel=1e-12)
+    # A quarter circle of radius 1 cut into m chords whose end vertices stay at radius 1 and
+    # inner ones move to k: the fan of triangles (area r_i r_(i+1) sin(t) / 2 each, elementary
+    # geometry) must have the quarter's area pi / 4.
+    for m in (2, 3, 4, 8, 64):
+        t = 0.5 * math.pi / m
+        r = np.full(m + 1, secant_factor(t))
+        r[[0, -1]] = 1.0
+        assert 0.5 * math.sin(t) * np.sum(r[:-1] * r[1:]) == pytest.approx(math.pi / 4, rel=1e-12)
 
 
 def test_centred_meshes_are_mirror_symmetric_at_every_level():

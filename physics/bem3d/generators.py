@@ -10,11 +10,11 @@ vanishes there, so no peak field hides in them.
 
 Flat panels inscribed in a fillet cut its corner: the polygon lies inside the arc by up to
 R (1 - cos(dtheta / 2)), an error of the capacitance in dtheta^2 that dominates on filleted
-pads. With ``secant`` the vertices inside a rounding are put on the radius R k instead, with
-k = sqrt(dtheta / sin(dtheta)) (k^2 on a corner's sphere, curved both ways), where the
-chords enclose the same area as the arc (the equal-area polygon: its mean position is the
-arc's, so the leading geometric error cancels); as the steps shrink k tends to 1 and the
-mesh still converges to the rounded solid.
+pads. With ``secant`` the vertices inside a rounding are put on the radius R k instead (k^2
+on a corner's sphere, curved both ways), with k chosen so that the chords of each quarter
+circle, whose end vertices stay on the faces, enclose the arc's area (:func:`secant_factor`;
+the equal-area polygon's mean position is the arc's, so the leading geometric error
+cancels); as the steps shrink k tends to 1 and the mesh still converges to the rounded solid.
 """
 
 from __future__ import annotations
@@ -153,9 +153,17 @@ def orthogonal_solid(
 
 
 def secant_factor(arc_step_rad: float) -> float:
-    """Radius factor k = sqrt(t / sin t) of the chords of angle t with the arc's area."""
+    """Radius factor k of the inner vertices of a fillet's quarter circle cut into m = (pi / 2)
+    / t chords of angle t, whose two end vertices stay on the faces (radius 1): the fan then
+    has the quarter circle's area, (m - 2) k^2 + 2 k = m t / sin(t); 1 for t = 0."""
     t = float(arc_step_rad)
-    return math.sqrt(t / math.sin(t)) if t > 0 else 1.0
+    if t <= 0:
+        return 1.0
+    m = max(2, round(0.5 * math.pi / t))
+    q = m * t / math.sin(t)
+    if m == 2:
+        return q / 2.0
+    return (-1.0 + math.sqrt(1.0 + (m - 2) * q)) / (m - 2)
 
 
 def rounded(

@@ -241,8 +241,7 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
-        note = f"{chosen} solve" if sym is None else f"{chosen} solve on {n_solved} orbits"
-        return LevelPlan(level, panels.n, need, note, run)
+        return LevelPlan(level, panels.n, need, f"{chosen} solve", run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by
     # 0.15-0.25 per level; the compressed matrix moves C by up to 0.06 aca; the peak is the
