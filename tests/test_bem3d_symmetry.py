@@ -129,3 +129,12 @@ def test_compressed_symmetric_solve_agrees_with_the_full_compressed_one():
     assert half.levels[0].stats.n_panels == full.levels[0].stats.n_panels
     c = full.capacitance_matrix_F
     assert np.allclose(half.capacitance_matrix_F, c, rtol=0, atol=2e-5 * abs(c[0, 0]))
+
+
+@pytest.mark.parametrize("tilt_rad", [0.0, math.radians(1.0)])
+def test_plane_densities_on_one_point_per_orbit_equal_the_full_evaluation(tilt_rad):
+    sol = solve_3d(_pad_layout(tilt_rad), rel_accuracy=0.5, max_level=0)
+    xy, _ = sol.plane_quadrature()
+    short = sol.plane_unit_charge_densities()
+    full = sol._plane_unit_density(xy)
+    assert np.allclose(short, full, rtol=1e-9, atol=1e-9 * np.abs(full).max())

@@ -68,15 +68,23 @@ class MirrorSymmetry:
         return w
 
 
+def _point_map(points: np.ndarray, axis: int, tol: float) -> np.ndarray | None:
+    """Index (M,) of the mirror image (x_axis -> -x_axis) of every point (M, d) within ``tol``
+    among the points, or None when one has none."""
+    flip = np.ones(points.shape[1])
+    flip[axis] = -1.0
+    dist, idx = cKDTree(points).query(points * flip)
+    return None if np.any(dist > tol) else idx
+
+
 def _mirror_map(panels: PanelSet, axis: int) -> np.ndarray | None:
     """Index (N,) of the mirror image of every panel in the plane x_axis = 0, or None."""
     corners = panels.mesh.corners_m
     flip = np.ones(3)
     flip[axis] = -1.0
     tol = MATCH_TOL * panels.mesh.size_m
-    cent = panels.mesh.centroids_m
-    dist, idx = cKDTree(cent).query(cent * flip)
-    if np.any(dist > tol) or np.any(panels.owner[idx] != panels.owner):
+    idx = _point_map(panels.mesh.centroids_m, axis, tol)
+    if idx is None or np.any(panels.owner[idx] != panels.owner):
         return None
     if np.any(np.abs(_sorted_corners(corners * flip) - _sorted_corners(corners[idx])) > tol):
         return None
@@ -89,14 +97,8 @@ def _sorted_corners(c: np.ndarray) -> np.ndarray:
     return np.take_along_axis(c, order[:, :, None], axis=1)
 
 
-def mirror_symmetry(panels: PanelSet) -> MirrorSymmetry | None:
-    """The reflections x -> -x and y -> -y that map the panel set onto itself, as orbits (None
-    when neither does)."""
-    found = {name: _mirror_map(panels, axis) for name, axis in (("x", 0), ("y", 1))}
-    maps = {k: v for k, v in found.items() if v is not None}
-    if not maps:
-        return None
-    ident = np.arange(panels.n)
+def _orbits(maps: dict[str, np.ndarray], n: int) -> MirrorSymmetry:
+    ident = np.arange(n)
     images = [ident, *maps.values()]
     if len(maps) == 2:
         images.append(maps["x"][maps["y"]])
@@ -104,6 +106,31 @@ def mirror_symmetry(panels: PanelSet) -> MirrorSymmetry | None:
     rep_of = img.min(axis=0)
     reps, orbit = np.unique(rep_of, return_inverse=True)
     return MirrorSymmetry(img, reps, orbit.reshape(-1), tuple(maps))
+
+
+def mirror_symmetry(panels: PanelSet) -> MirrorSymmetry | None:
+    """The reflections x -> -x and y -> -y that map the panel set onto itself, as orbits (None
+    when neither does)."""
+    found = {name: _mirror_map(panels, axis) for name, axis in (("x", 0), ("y", 1))}
+    maps = {k: v for k, v in found.items() if v is not None}
+    return _orbits(maps, panels.n) if maps else None
+
+
+def point_orbits(
+    points_m: np.ndarray, planes: tuple[str, ...], size_m: float
+) -> MirrorSymmetry | None:
+    """Orbits of points (M, 2 or 3) under the reflections in ``planes`` ("x", "y"), matched to
+    ``MATCH_TOL`` of ``size_m``; None unless every point's images are points of the set.
+
+    A quantity that the symmetry leaves unchanged needs computing at ``reps`` only.
+    """
+    maps = {}
+    for name in planes:
+        idx = _point_map(np.asarray(points_m, dtype=float), "xy".index(name), MATCH_TOL * size_m)
+        if idx is None:
+            return None
+        maps[name] = idx
+    return _orbits(maps, len(points_m)) if maps else None
 
 
 def reduced_matrix(panels: PanelSet, symmetry: MirrorSymmetry) -> np.ndarray:
