@@ -1,7 +1,7 @@
-"""Mirror symmetry of a panel set: a dense solve on one panel per orbit.
+"""Mirror symmetry of a panel set: a solve on one panel per orbit.
 
-When the panels (and which conductor owns each) are unchanged by the reflection x -> -x, or
-y -> -y, or both, and every excitation is too (unit potentials per conductor: yes, when each
+When the panels of conductors in a homogeneous medium (and which conductor owns each) are
+unchanged by the reflection x -> -x, or y -> -y, or both, and every excitation is too (unit potentials per conductor: yes, when each
 conductor is its own mirror image; the applied field along z: always; the ground plane z = 0:
 always), the solution is symmetric: sigma is equal on the panels of one orbit. The collocation
 equations at one panel per orbit, with the columns of each orbit summed, then give the same
@@ -110,7 +110,10 @@ def _orbits(maps: dict[str, np.ndarray], n: int) -> MirrorSymmetry:
 
 def mirror_symmetry(panels: PanelSet) -> MirrorSymmetry | None:
     """The reflections x -> -x and y -> -y that map the panel set onto itself, as orbits (None
-    when neither does)."""
+    when neither does, and for levels with dielectric interfaces or planar layers, whose
+    operators the reduction here does not cover)."""
+    if panels.n_conductor_panels < panels.n or panels.background is not None:
+        return None
     found = {name: _mirror_map(panels, axis) for name, axis in (("x", 0), ("y", 1))}
     maps = {k: v for k, v in found.items() if v is not None}
     return _orbits(maps, panels.n) if maps else None
