@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from elopt.physics.bem2d.shapes import Piece
+from elopt.physics.quadrature import gauss_legendre
 
 #: Panels toward a singular end at level 0 (each GRADING times the next), and toward a
 #: fillet's end; the ratio balances the edge panel's error against the panel count.
@@ -74,7 +75,7 @@ class Panels:
 
     @property
     def node_arc_length(self) -> np.ndarray:
-        x, _ = np.polynomial.legendre.leggauss(self.order)
+        x, _ = gauss_legendre(self.order)
         return (self.arc_start[:, None] + self.half[:, None] * (x[None, :] + 1.0)).ravel()
 
 
@@ -109,7 +110,7 @@ def build_panels(
     pieces_per_conductor: list[tuple[list[Piece], bool]], h_max: float, level: int, order: int
 ) -> Panels:
     """Panels of every conductor (list of (pieces, is_sheet) in layout order)."""
-    x, w = np.polynomial.legendre.leggauss(order)
+    x, w = gauss_legendre(order)
     rows: dict[str, list] = {
         k: [] for k in Panels.__dataclass_fields__ if k not in ("order", "level")
     }

@@ -176,11 +176,15 @@ class LevelResult2D:
         )
 
 
-def solve_level(problem: Problem2D, level: int, order: int) -> LevelResult2D:
-    """Mesh at ``level``, assemble, factor once and solve every unit-potential column."""
+def solve_level(
+    problem: Problem2D, level: int, order: int, panels: Panels | None = None
+) -> LevelResult2D:
+    """Mesh at ``level`` (or take ``panels``, built for it), assemble, factor once and solve
+    every unit-potential column."""
     layout = problem.layout
-    pieces = [(c.shape.pieces(), not c.shape.closed) for c in layout.conductors]
-    panels = build_panels(pieces, problem.h_max_m, level, order)
+    if panels is None:
+        pieces = [(c.shape.pieces(), not c.shape.closed) for c in layout.conductors]
+        panels = build_panels(pieces, problem.h_max_m, level, order)
     a = potential_matrix(
         panels, problem.slabs, panels.points, period=problem.period_m, extent_m=problem.extent_m
     )
@@ -238,7 +242,11 @@ def solve_2d(
         panels = build_panels(pieces, problem.h_max_m, level, order)
         n = panels.n + extra
         return LevelPlan(
-            level, n, 24 * n * n, "dense LU", lambda _prev: solve_level(problem, level, order)
+            level,
+            n,
+            24 * n * n,
+            "dense LU",
+            lambda _prev: solve_level(problem, level, order, panels),
         )
 
     refinement = refine(plan, opts, CONVERGENCE)
