@@ -19,7 +19,7 @@ from elopt.physics.quadrature import gauss_legendre
 
 #: Panels toward a singular end at level 0 (each GRADING times the next), and toward a
 #: fillet's end; the ratio balances the edge panel's error against the panel count.
-SINGULAR_DEPTH = 4
+SINGULAR_DEPTH = 3
 MILD_DEPTH = 2
 GRADING = 0.25
 

@@ -102,7 +102,9 @@ def main() -> None:
                 ref = solve_level(problem, args.max_level + 1, 8).capacitance_F
             err = [relative_change(c, ref) for c in caps]
             print(f"{name}, {order} nodes per panel")
-            print(f"  {'level':>5} {'N':>6} {'true':>9} {'change':>9} {'true/chg':>9} {'chg ratio':>9}")
+            print(
+                f"  {'level':>5} {'N':>6} {'true':>9} {'change':>9} {'true/chg':>9} {'chg ratio':>9}"
+            )
             prev = None
             for k, (n, e) in enumerate(zip(sizes, err, strict=True)):
                 d = relative_change(caps[k], caps[k - 1]) if k else math.nan
