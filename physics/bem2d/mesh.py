@@ -85,9 +85,15 @@ def _graded(zone: float, depth: int) -> list[float]:
 
 
 def breakpoints(piece: Piece, h_max: float, level: int) -> np.ndarray:
-    """Fractions (K+1,) in [0, 1] cutting ``piece`` into its level-``level`` panels."""
+    """Fractions (K+1,) in [0, 1] cutting ``piece`` into its level-``level`` panels.
+
+    Negative levels coarsen level 0 the same way: panels up to h_max 2^-level, one graded
+    panel less per level (at least one toward a singular end).
+    """
     length = piece.length_m
-    depth = {2: SINGULAR_DEPTH + level, 1: MILD_DEPTH + level, 0: 0}
+    if level < 0:
+        h_max = h_max * 2.0 ** (-level)
+    depth = {2: max(SINGULAR_DEPTH + level, 1), 1: max(MILD_DEPTH + level, 0), 0: 0}
     graded = [g for g in (piece.grade_start, piece.grade_end) if g]
     zone = min(h_max, length / max(len(graded), 1))
     cuts = [0.0]
@@ -101,7 +107,7 @@ def breakpoints(piece: Piece, h_max: float, level: int) -> np.ndarray:
     if piece.grade_end:
         cuts += [length - d for d in _graded(zone, depth[piece.grade_end])[::-1][1:]] + [length]
     c = np.unique(np.asarray(cuts) / length)
-    split = 2**level
+    split = 2 ** max(level, 0)
     fine = (c[:-1, None] + (c[1:] - c[:-1])[:, None] * (np.arange(split) / split)[None, :]).ravel()
     return np.append(fine, 1.0)
 
