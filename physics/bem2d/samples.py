@@ -111,9 +111,10 @@ def level_samples(level, split: np.ndarray | None = None) -> dict[str, np.ndarra
 def sheet_peak_candidates(level) -> np.ndarray:
     """Sheet nodes (N,) bool that may hold a conductor's largest face field.
 
-    A face carries at most the total density, so |sigma_face| / eps_face <= |sigma| / eps_min
-    (eps_min: the smaller permittivity at the node). The node with the largest total is split
-    first; every node whose bound reaches its face field stays a candidate.
+    A face whose charge has the sign of the total carries at most the total density, so
+    |sigma_face| / eps_face <= |sigma| / eps_min (eps_min: the smaller permittivity at the
+    node). The node with the largest total is split first; every node whose bound reaches its
+    face field stays a candidate (all of the strip's nodes when none does).
     """
     _, sigma, _ = excitation(level)
     p = level.panels
@@ -132,5 +133,9 @@ def sheet_peak_candidates(level) -> np.ndarray:
     keep = np.zeros(p.n, dtype=bool)
     for k in np.unique(owner[sheet]):
         best = field[(s["owner"] == k) & (s["face"] != 0)].max()
-        keep |= sheet & (owner == k) & (bound >= best * (1 - 1e-12))
+        mine = sheet & (owner == k)
+        hold = mine & (bound >= best * (1 - 1e-12))
+        # Faces of opposite sign (an applied field across a strip) break the bound: then
+        # every node of the strip stays a candidate.
+        keep |= hold if hold.any() else mine
     return keep
