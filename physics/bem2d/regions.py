@@ -77,6 +77,8 @@ def check_regions(
     Returns the regions, the region holding each conductor (-1: none) and mesh-size caps (m)
     from the regions' sizes and their distances to conductors and each other.
     """
+    if not layout.regions:
+        return (), (-1,) * len(layout.conductors), []
     regions: list[Region2D] = []
     outlines = []
     caps: list[float] = []

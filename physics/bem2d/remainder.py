@@ -231,14 +231,14 @@ def _bary(x, nodes, lam, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _table_sums(at, as_, dx, table, ell, nodes, lam, out):  # pragma: no cover - compiled
+def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no cover
     m = nodes.shape[0]
     nv = table.shape[0] // m
     nu = table.shape[1] // m
     bv = np.empty(m)
     bu = np.empty(m)
     for t in range(at.shape[0]):
-        for s in range(as_.shape[0]):
+        for s in range(t if upper else 0, as_.shape[0]):
             v = math.asinh((at[t] + as_[s]) / ell)
             u = math.asinh(abs(dx[t, s]) / ell)
             iv = min(int(v), nv - 1)
@@ -255,18 +255,32 @@ def _table_sums(at, as_, dx, table, ell, nodes, lam, out):  # pragma: no cover -
             out[t, s] += acc
 
 
+def _reciprocal(rho: np.ndarray) -> bool:
+    """rho_01 == rho_10 on every ray node (then the remainder of a slab with itself is
+    symmetric in target and source, as reciprocity demands)."""
+    scale = float(np.abs(rho).max()) if rho.size else 0.0
+    return bool(np.allclose(rho[..., 0, 1], rho[..., 1, 0], rtol=1e-10, atol=1e-13 * scale))
+
+
 def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float) -> np.ndarray:
     """Remainder of the open (non-periodic) kernel for targets in slab i, sources in slab j.
 
     Re F_pq(alpha + i |dx|) is tabulated on panels of one unit in asinh(alpha / d_min) and
     asinh(|dx| / d_min) (``TABLE_NODES`` Chebyshev nodes each; F is analytic within about
     d_min of every real point, so each panel is well inside its domain of analyticity) and
-    interpolated; tests compare with the direct ray sums.
+    interpolated; tests compare with the direct ray sums. When the targets are the sources
+    (a slab with itself, F_01 = F_10) only the upper triangle is interpolated and mirrored.
     """
     kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     xt, xs = np.asarray(xt, dtype=float), np.asarray(xs, dtype=float)
+    upper = (
+        i == j
+        and np.array_equal(xt, xs)
+        and np.array_equal(np.asarray(zt), np.asarray(zs))
+        and _reciprocal(rho)
+    )
     dx = xt[:, None] - xs[None, :]
     ell = slabs.min_thickness_m
     nodes, lam = _cheb(TABLE_NODES)
@@ -292,9 +306,14 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                     ell,
                     nodes,
                     lam,
+                    upper,
                     out,
                 )
-            if m0[p, q] != 0.0:
+    if upper:
+        out = np.triu(out) + np.triu(out, 1).T
+    for p in range(2):
+        for q in range(2):
+            if m0[p, q] != 0.0 and np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all():
                 al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
                 out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + al * al)
     return out

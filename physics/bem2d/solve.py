@@ -85,7 +85,6 @@ def prepare(layout: Layout, period_m: float | None) -> Problem2D:
             f"field differs per layer); got applied_field_V_per_m = "
             f"{layout.applied_field_V_per_m:g}"
         )
-    regions, holder, region_caps = check_regions(layout, slabs, period_m)
     boxes = []
     for c in layout.conductors:
         if not isinstance(c.shape, (Strip, Bar)):
@@ -129,6 +128,7 @@ def prepare(layout: Layout, period_m: float | None) -> Problem2D:
                     "must be apart"
                 )
             gaps.append(g)
+    regions, holder, region_caps = check_regions(layout, slabs, period_m)
     caps = [0.5 * size, *region_caps]
     caps += [2.0 * g for g in gaps if g > 0]
     if period_m is not None:
