@@ -114,11 +114,14 @@ def sheet_peak_candidates(level) -> np.ndarray:
     A face whose charge has the sign of the total carries at most the total density, so
     |sigma_face| / eps_face <= |sigma| / eps_min (eps_min: the smaller permittivity at the
     node). The node with the largest total is split first; every node whose bound reaches its
-    face field stays a candidate (all of the strip's nodes when none does).
+    face field stays a candidate (all of the strip's nodes when none does, and every sheet
+    node under an applied field, which can charge the faces with opposite signs).
     """
     _, sigma, _ = excitation(level)
     p = level.panels
     sheet = np.repeat(p.sheet, p.order)
+    if level.problem.layout.applied_field_V_per_m != 0.0:
+        return sheet  # a field across a strip charges its faces with opposite signs
     owner = p.node_conductor
     every = np.ones(p.n, dtype=bool)
     nrm = p.normals.ravel()
@@ -135,7 +138,6 @@ def sheet_peak_candidates(level) -> np.ndarray:
         best = field[(s["owner"] == k) & (s["face"] != 0)].max()
         mine = sheet & (owner == k)
         hold = mine & (bound >= best * (1 - 1e-12))
-        # Faces of opposite sign (an applied field across a strip) break the bound: then
-        # every node of the strip stays a candidate.
+        # Faces of opposite sign break the bound: then every node of the strip stays.
         keep |= hold if hold.any() else mine
     return keep

@@ -8,7 +8,10 @@ holds, G the layered kernel of :mod:`elopt.physics.bem2d.layered_green` (periodi
 period ``period_m`` if given). Without a grounded plane the charges of the cell/cross-section
 sum to zero and v_inf (the potential far away, or the cell's mean level) is an unknown: in 2-D
 a net charge per unit length has no finite potential. The Maxwell matrix then has rows summing
-to zero. One LU factorisation gives every column (conductor c at 1 V, the rest at 0).
+to zero. One LU factorisation gives every column (conductor c at 1 V, the rest at 0) and,
+with a uniform applied field E0 along +z (no layers), one more (conductors at 0 V, phi = -E0 z
+far away). Bounded dielectric regions add second-kind rows for their boundary densities
+(:mod:`elopt.physics.bem2d.regions`).
 """
 
 from __future__ import annotations
@@ -318,7 +321,7 @@ def solve_2d(
             n,
             24 * n * n,
             "dense LU",
-            lambda _prev: solve_level(problem, level, order, panels),
+            lambda _prev: solve_level(problem, mesh_level, order, panels),
         )
 
     refinement = refine(plan, opts, CONVERGENCE)
