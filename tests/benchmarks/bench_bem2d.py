@@ -11,15 +11,18 @@ Part 2: the demo study through the local pool (as ``elopt run``): wall time, tri
 hour, and the share of wall x workers spent inside the family's evaluate ("solve share").
 The machine is shared; say how loaded it was when quoting the figures.
 
-Measured 2 Dec 2026 on the shared 2-core machine (load average 10-15, i.e. about five
-processes per core; wall-clock figures are several times what an idle machine gives):
+Measured 2 Dec 2026 on the shared 2-core machine (load average 10-15, i.e. five to seven
+processes per core; wall-clock figures are several times what an idle machine gives). Each
+before / after pair was measured back to back in one run:
 
-    periodic cell, median ms (wall)      before 165 / 322 (two runs)   after 79 / 98
-      (before: 240 unknowns, levels 104 + 240; after: 208, levels 88 + 208, 4 nodes/panel)
-    periodic cell, CPU ms per solve      before 82-90                 after 8.9 (final:
-      3 nodes/panel, levels 66 + 156, peaks computed only when asked)
-    demo study, 200 trials, 2 workers    did not finish before; after: 0 failed, 1160 s wall,
-      620 trials/h, solve share 98.8 %, median trial 10.8 s (4 nodes/panel, coarse start)
+    periodic cell, median ms (wall)    before 194  after 33   (load 14-15, final code:
+                                       3 nodes/panel, levels 66 + 156 unknowns, achieved 1.6e-5)
+                                       before 165  after 79   (load 10.5, 4 nodes/panel, 88 + 208)
+    periodic cell, CPU ms per solve    before 82-90  after 8.9 (BLAS on one thread)
+    demo study, 200 trials, 2 workers  before: did not finish; after (4 nodes/panel, coarse
+                                       start): 0 failed, 1160 s wall, 620 trials/h, solve share
+                                       98.8 %, median trial 10.8 s; again with the symmetric
+                                       open table: 1220 s, 590 trials/h, 99.1 %, 10.8 s
 
 The <= 5 ms goal is not met here: 8.9 ms of CPU per solve on the loaded machine (an idle core
 was not available to measure).
