@@ -31,6 +31,11 @@ def _num(v: float) -> str:
     return f"{v:.4g}" if 1e-3 <= abs(v) < 1e6 or v == 0 else f"{v:.3e}"
 
 
+def _unit(unit: str) -> str:
+    """A unit as the tables show it: nothing for a pure number (declared as "1")."""
+    return "" if unit == "1" else unit
+
+
 def _design_table(spec: SolveSpec) -> Table:
     table = Table(title="Design", title_justify="left", show_edge=False, pad_edge=False)
     table.add_column("parameter")
@@ -46,7 +51,7 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        table.add_row(f.name, _num(float(value)), units[f.name])
+        table.add_row(f.name, _num(float(value)), _unit(units[f.name]))
     table.add_row("eps_r (medium)", _num(spec.eps_r), "")
     return table
 
@@ -58,7 +63,7 @@ def _metrics_table(family: ElectrodeFamily, evaluation: Evaluation) -> Table:
     table.add_column("unit")
     table.add_column("meaning", style="dim")
     for m in family.metrics:
-        table.add_row(m.name, _num(evaluation.metrics[m.name]), m.unit, m.description)
+        table.add_row(m.name, _num(evaluation.metrics[m.name]), _unit(m.unit), m.description)
     return table
 
 
