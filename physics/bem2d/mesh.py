@@ -15,10 +15,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from elopt.physics.bem2d.shapes import Piece
+from elopt.physics.quadrature import gauss_legendre
 
 #: Panels toward a singular end at level 0 (each GRADING times the next), and toward a
 #: fillet's end; the ratio balances the edge panel's error against the panel count.
-SINGULAR_DEPTH = 4
+SINGULAR_DEPTH = 3
 MILD_DEPTH = 2
 GRADING = 0.25
 
@@ -74,7 +75,7 @@ class Panels:
 
     @property
     def node_arc_length(self) -> np.ndarray:
-        x, _ = np.polynomial.legendre.leggauss(self.order)
+        x, _ = gauss_legendre(self.order)
         return (self.arc_start[:, None] + self.half[:, None] * (x[None, :] + 1.0)).ravel()
 
 
@@ -84,9 +85,15 @@ def _graded(zone: float, depth: int) -> list[float]:
 
 
 def breakpoints(piece: Piece, h_max: float, level: int) -> np.ndarray:
-    """Fractions (K+1,) in [0, 1] cutting ``piece`` into its level-``level`` panels."""
+    """Fractions (K+1,) in [0, 1] cutting ``piece`` into its level-``level`` panels.
+
+    Negative levels coarsen level 0 the same way: panels up to h_max 2^-level, one graded
+    panel less per level (at least one toward a singular end).
+    """
     length = piece.length_m
-    depth = {2: SINGULAR_DEPTH + level, 1: MILD_DEPTH + level, 0: 0}
+    if level < 0:
+        h_max = h_max * 2.0 ** (-level)
+    depth = {2: max(SINGULAR_DEPTH + level, 1), 1: max(MILD_DEPTH + level, 0), 0: 0}
     graded = [g for g in (piece.grade_start, piece.grade_end) if g]
     zone = min(h_max, length / max(len(graded), 1))
     cuts = [0.0]
@@ -100,7 +107,7 @@ def breakpoints(piece: Piece, h_max: float, level: int) -> np.ndarray:
     if piece.grade_end:
         cuts += [length - d for d in _graded(zone, depth[piece.grade_end])[::-1][1:]] + [length]
     c = np.unique(np.asarray(cuts) / length)
-    split = 2**level
+    split = 2 ** max(level, 0)
     fine = (c[:-1, None] + (c[1:] - c[:-1])[:, None] * (np.arange(split) / split)[None, :]).ravel()
     return np.append(fine, 1.0)
 
@@ -109,7 +116,7 @@ def build_panels(
     pieces_per_conductor: list[tuple[list[Piece], bool]], h_max: float, level: int, order: int
 ) -> Panels:
     """Panels of every conductor (list of (pieces, is_sheet) in layout order)."""
-    x, w = np.polynomial.legendre.leggauss(order)
+    x, w = gauss_legendre(order)
     rows: dict[str, list] = {
         k: [] for k in Panels.__dataclass_fields__ if k not in ("order", "level")
     }

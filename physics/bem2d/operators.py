@@ -21,6 +21,7 @@ import numpy as np
 
 from elopt.physics.bem2d.mesh import Panels
 from elopt.physics.bem2d.periodic import periodic_log_matrix, periodic_log_smooth, wrap
+from elopt.physics.quadrature import gauss_legendre
 
 #: Targets closer than this many half-lengths to a panel's centre get the exact split.
 NEAR = 3.5
@@ -90,7 +91,7 @@ def single_layer(panels: Panels, targets: np.ndarray, period: float | None = Non
     if period is not None:
         xq = xq - period * np.round((xq - c[pq]).real / period)
     ts = preimage(panels, pq, xq)
-    gx, gw = np.polynomial.legendre.leggauss(p)
+    gx, gw = gauss_legendre(p)
     nodes = panels.nodes[pq]  # (Q, p)
     with np.errstate(divide="ignore", invalid="ignore"):
         smooth = np.log(np.abs(xq[:, None] - nodes)) - np.log(np.abs(gx[None, :] - ts[:, None]))

@@ -222,5 +222,24 @@ def common_metrics(
     }
 
 
+def metric_notes(sens: Sensitivities, back_plane: bool) -> dict[str, str]:
+    """Why metrics are undefined or surprising (metric name -> sentence), for the report."""
+    if sens.medium_rel > 0:
+        return {}
+    why = (
+        "the sense capacitance falls as the medium's eps_r rises (mut_relative_sensitivity = "
+        f"{sens.medium_rel:.3g}), so eps0 / (dC/d eps_r) is no cell constant"
+    )
+    if back_plane:
+        why += (
+            ". This is physics, not an error: under a grounded back plane a medium of high "
+            "permittivity that spans the stack acts as a shield held at the plane's potential; "
+            "it takes field lines from the held electrodes, so the mutual capacitance drops "
+            "toward its value with a grounded sheet on the stack's top face (a shunt-mode "
+            "reading; the driven electrode's own capacitance to ground rises instead)"
+        )
+    return {"cell_constant_per_m": why, "mut_relative_sensitivity": why}
+
+
 def electrode_error(family: str, exc: Exception) -> ElectrodeError:
     return ElectrodeError(f"{family}: {exc}")

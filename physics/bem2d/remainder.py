@@ -24,43 +24,122 @@ def _rho(slabs: Slabs, k: np.ndarray, i: int, j: int) -> np.ndarray:
     return km - slabs.m_inf[j, i][None]
 
 
+def stack_key(slabs: Slabs) -> tuple:
+    """A hashable description of ``slabs`` (bounds, permittivities, plane)."""
+    return (
+        tuple(slabs.bottom_m.tolist()),
+        tuple(slabs.top_m.tolist()),
+        tuple(slabs.eps_F_per_m.tolist()),
+        slabs.ground_plane,
+    )
+
+
+#: Spectra of the periodic remainder by (stack, period, i, j): they depend only on the stack
+#: and the k-rule, so repeated solves of one stack (levels, trials, derivatives) share them.
+_SPECTRA: dict[tuple, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
+_SPECTRA_MAX = 256
+
+
 def _periodic_spectrum(slabs: Slabs, period: float, i: int, j: int):
-    """k_n (n,) and rho_pq(k_n) (n, 2, 2), cached on ``slabs`` (one solve per k_n)."""
-    cache = slabs.__dict__.setdefault("_spectra", {})
-    key = ("periodic", period, i, j)
-    if key not in cache:
+    """k_n (n,), rho_pq(k_n) / k_n (n, 2, 2) real, and the largest |rho_pq / k| (2, 2)."""
+    key = (stack_key(slabs), float(period), i, j)
+    hit = _SPECTRA.get(key)
+    if hit is None:
         d_min = slabs.min_thickness_m
         n_max = max(1, math.ceil(-math.log(TAIL) * period / (2 * math.pi * d_min)))
         k = 2 * math.pi * np.arange(1, n_max + 1) / period
-        cache[key] = (k, _rho(slabs, k.astype(complex), i, j) / k[:, None, None])
-    return cache[key]
+        rho = (_rho(slabs, k.astype(complex), i, j) / k[:, None, None]).real
+        if len(_SPECTRA) >= _SPECTRA_MAX:
+            _SPECTRA.clear()
+        hit = _SPECTRA[key] = (k, rho, np.abs(rho).max(axis=0))
+    return hit
+
+
+#: Terms of one (p, q) below this share of the largest |rho / k| are left out (TAIL of the
+#: kernel: the largest term stands for the first of a slowly decaying series).
+TERM_CUT = 1e-3 * TAIL
+
+
+def _terms_needed(k, rho_pq, alpha_min: float, scale: float) -> int:
+    """How many leading k_n carry |rho_pq| exp(-k_n alpha_min) above TERM_CUT * scale."""
+    big = np.nonzero(np.abs(rho_pq) * np.exp(-k * alpha_min) > TERM_CUT * scale)[0]
+    return int(big[-1]) + 1 if big.size else 0
+
+
+def _uniform(h: np.ndarray) -> bool:
+    return bool(h.size) and bool(np.all(h == h[0]))
+
+
+def _source_factors(memo, key, xs, k) -> tuple[np.ndarray, np.ndarray]:
+    """cos(k_n x') and sin(k_n x') (S, n), kept in ``memo`` under ``key`` when given."""
+    hit = None if memo is None else memo.get(key)
+    if hit is None:
+        arg = np.outer(xs, k)
+        hit = (np.cos(arg), np.sin(arg))
+        if memo is not None:
+            memo[key] = hit
+    return hit
+
+
+def _source_decay(memo, key, h, k, cs, ss) -> tuple[np.ndarray, np.ndarray]:
+    """exp(-k_n h) cos(k_n x') and exp(-k_n h) sin(k_n x') (S, n), kept in ``memo``."""
+    hit = None if memo is None else memo.get(key)
+    if hit is None:
+        v = np.exp(-np.outer(h, k))
+        hit = (cs * v, ss * v)
+        if memo is not None:
+            memo[key] = hit
+    return hit
 
 
 def periodic_remainder(
-    slabs: Slabs, period: float, i: int, j: int, xt, zt, xs, zs, extracted
+    slabs: Slabs, period: float, i: int, j: int, xt, zt, xs, zs, extracted, memo=None
 ) -> np.ndarray:
-    """Remainder of the periodic kernel; ``extracted`` lists the (c, s, t0) terms taken out."""
-    k, rho = _periodic_spectrum(slabs, period, i, j)
-    it = np.full(len(zt), i)
-    js = np.full(len(zs), j)
-    ht = slabs.heights(zt, it)
-    hs = slabs.heights(zs, js)
-    out = np.zeros((len(zt), len(zs)))
-    et = np.exp(1j * np.outer(xt, k))
-    es = np.exp(-1j * np.outer(xs, k))
+    """Remainder of the periodic kernel; ``extracted`` lists the (c, s, t0) terms taken out.
+
+    (2/lam) sum_n sum_pq rho_pq(k_n) exp(-k_n (h_p + h'_q)) cos(k_n (x - x')) as real products
+    of cos/sin factors; each (p, q) keeps the k_n whose term can exceed TAIL of the largest,
+    and when every target and every source has one height the (p, q) sums collapse to one
+    series in x - x'. ``memo``: a dict kept with one source set (the same ``xs``, ``zs`` on
+    every call) for its cos/sin factors.
+    """
+    k, rho, peak = _periodic_spectrum(slabs, period, i, j)
+    xt, xs = np.asarray(xt, dtype=float), np.asarray(xs, dtype=float)
+    ht = slabs.heights(zt, np.full(len(zt), i))
+    hs = slabs.heights(zs, np.full(len(zs), j))
+    scale = float(peak.max()) if peak.size else 0.0
+    pairs = []
     for p in range(2):
         if not np.isfinite(ht[:, p]).all():
             continue
-        u = np.exp(-np.outer(ht[:, p], k)) * et
         for q in range(2):
-            if not np.isfinite(hs[:, q]).all() or not np.any(rho[:, p, q]):
+            if not np.isfinite(hs[:, q]).all() or peak[p, q] == 0.0:
                 continue
-            v = np.exp(-np.outer(hs[:, q], k)) * es
-            out += ((u * rho[None, :, p, q]) @ v.T).real
+            m = _terms_needed(k, rho[:, p, q], ht[:, p].min() + hs[:, q].min(), scale)
+            if m:
+                pairs.append((p, q, m))
+    out = np.zeros((len(zt), len(zs)))
+    if pairs:
+        n = max(m for _, _, m in pairs)
+        kn = k[:n]
+        ct, st = np.cos(np.outer(xt, kn)), np.sin(np.outer(xt, kn))
+        cs_all, ss_all = _source_factors(memo, float(period), xs, k)
+        cs, ss = cs_all[:, :n], ss_all[:, :n]
+        if all(_uniform(ht[:, p]) and _uniform(hs[:, q]) for p, q, _ in pairs):
+            c = np.zeros(n)
+            for p, q, m in pairs:
+                c[:m] += rho[:m, p, q] * np.exp(-kn[:m] * (ht[0, p] + hs[0, q]))
+            out = (ct * c) @ cs.T + (st * c) @ ss.T
+        else:
+            out = np.zeros((len(zt), len(zs)))
+            for p, q, m in pairs:
+                u = np.exp(-np.outer(ht[:, p], kn[:m])) * rho[None, :m, p, q]
+                vc, vs = _source_decay(memo, (float(period), j, q), hs[:, q], k, cs_all, ss_all)
+                out += (ct[:, :m] * u) @ vc[:, :m].T + (st[:, :m] * u) @ vs[:, :m].T
     out *= 2.0 / period
     g0 = slabs.zero_mode(zt, zs)
-    for c, s, t0 in extracted:
-        g0 += 0.5 * c * np.abs((t0 + s * zt)[:, None] - zs[None, :])
+    for c0, s0, t0 in extracted:
+        g0 += 0.5 * c0 * np.abs((t0 + s0 * zt)[:, None] - zs[None, :])
     return out + g0 / period
 
 
@@ -152,14 +231,14 @@ def _bary(x, nodes, lam, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _table_sums(at, as_, dx, table, ell, nodes, lam, out):  # pragma: no cover - compiled
+def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no cover
     m = nodes.shape[0]
     nv = table.shape[0] // m
     nu = table.shape[1] // m
     bv = np.empty(m)
     bu = np.empty(m)
     for t in range(at.shape[0]):
-        for s in range(as_.shape[0]):
+        for s in range(t if upper else 0, as_.shape[0]):
             v = math.asinh((at[t] + as_[s]) / ell)
             u = math.asinh(abs(dx[t, s]) / ell)
             iv = min(int(v), nv - 1)
@@ -176,18 +255,32 @@ def _table_sums(at, as_, dx, table, ell, nodes, lam, out):  # pragma: no cover -
             out[t, s] += acc
 
 
+def _reciprocal(rho: np.ndarray) -> bool:
+    """rho_01 == rho_10 on every ray node (then the remainder of a slab with itself is
+    symmetric in target and source, as reciprocity demands)."""
+    scale = float(np.abs(rho).max()) if rho.size else 0.0
+    return bool(np.allclose(rho[..., 0, 1], rho[..., 1, 0], rtol=1e-10, atol=1e-13 * scale))
+
+
 def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float) -> np.ndarray:
     """Remainder of the open (non-periodic) kernel for targets in slab i, sources in slab j.
 
     Re F_pq(alpha + i |dx|) is tabulated on panels of one unit in asinh(alpha / d_min) and
     asinh(|dx| / d_min) (``TABLE_NODES`` Chebyshev nodes each; F is analytic within about
     d_min of every real point, so each panel is well inside its domain of analyticity) and
-    interpolated; tests compare with the direct ray sums.
+    interpolated; tests compare with the direct ray sums. When the targets are the sources
+    (a slab with itself, F_01 = F_10) only the upper triangle is interpolated and mirrored.
     """
     kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     xt, xs = np.asarray(xt, dtype=float), np.asarray(xs, dtype=float)
+    upper = (
+        i == j
+        and np.array_equal(xt, xs)
+        and np.array_equal(np.asarray(zt), np.asarray(zs))
+        and _reciprocal(rho)
+    )
     dx = xt[:, None] - xs[None, :]
     ell = slabs.min_thickness_m
     nodes, lam = _cheb(TABLE_NODES)
@@ -213,9 +306,14 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                     ell,
                     nodes,
                     lam,
+                    upper,
                     out,
                 )
-            if m0[p, q] != 0.0:
+    if upper:
+        out = np.triu(out) + np.triu(out, 1).T
+    for p in range(2):
+        for q in range(2):
+            if m0[p, q] != 0.0 and np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all():
                 al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
                 out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + al * al)
     return out

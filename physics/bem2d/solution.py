@@ -46,7 +46,7 @@ class Solution2D(ChargeSolution):
         self.n_unknowns = fine.n_unknowns
         self.capacitance_matrix_F = fine.capacitance_F
         self.potentials_V, self.sigma_C_per_m2, self._offset_V = excitation(fine)
-        self.charges_C = fine.capacitance_F @ self.potentials_V
+        self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
 
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
         return potential(self._fine, self.sigma_C_per_m2, self._offset_V, _as_complex(points_m))

@@ -149,11 +149,16 @@ class Coplanar(ElectrodeFamily):
             c_line * length, length, sens, sol.layout.eps_r, stack, peak.field_V_per_m
         )
         metrics["footprint_width_mm"] = width / MM
+        meaning = "charge on the driven strips / drive_V, others at 0 V (whole length)"
+        if p.back_plane:
+            meaning = (
+                "charge drawn onto the held strips / drive_V (mutual capacitance, whole length; "
+                "the share to the grounded back plane is left out)"
+            )
         extra: dict[str, Any] = {
             "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
-            "sense_capacitance_meaning": (
-                "charge on the driven strips / drive_V, others at 0 V (whole length)"
-            ),
+            "sense_capacitance_meaning": meaning,
+            "metric_notes": pf.metric_notes(sens, bool(p.back_plane)),
         }
         return Measured(metrics=metrics, extra=extra)
 

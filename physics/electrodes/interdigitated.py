@@ -212,7 +212,11 @@ class Interdigitated(ElectrodeFamily):
                 "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
                 "sense_capacitance_meaning": (
                     "charge on the driven comb / drive_V, other comb at 0 V (whole length)"
+                    if not p.back_plane
+                    else "charge drawn onto the held comb / drive_V (mutual capacitance, whole "
+                    "length; the share to the grounded back plane is left out)"
                 ),
+                "metric_notes": pf.metric_notes(sens, bool(p.back_plane)),
             }
         )
         return Measured(metrics=metrics, extra=extra)
