@@ -6,8 +6,8 @@ fills what that surface encloses, except the conductors inside it: a body may en
 conductors (a coating or a potting) and other bodies (nested: the inner body replaces the
 outer one inside its surface). Surfaces never cross or touch one another, a conductor or the
 ground plane, so every interface panel has one medium inside (the body's) and one outside
-(the innermost other body around it, or the layout's medium), and every conductor one medium
-around it. A conductor that pierces a body's surface cannot be described this way and is
+(the innermost other body around it, or the layout's medium; with planar layers the slab
+the body lies in), and every conductor one medium around it. A conductor that pierces a body's surface cannot be described this way and is
 refused.
 """
 
@@ -62,16 +62,6 @@ def region_surfaces(layout: Layout) -> tuple[Surface, ...]:
     return tuple(out)
 
 
-def check_layers_absent(layout: Layout) -> None:
-    """Planar layers are not part of the 3-D bounded-body formulation."""
-    if layout.layers:
-        names = ", ".join(f"'{ly.name}'" for ly in layout.layers)
-        raise GeometryError(
-            f"layout: planar layers ({names}) are not supported by the 3-D solver; give a "
-            "bounded body (region) instead"
-        )
-
-
 def check_bodies(
     layout: Layout, conductor_meshes: list[TriangleMesh], region_meshes: list[TriangleMesh]
 ) -> None:
@@ -106,22 +96,40 @@ def check_bodies(
 
 
 def body_media(
-    layout: Layout, conductor_meshes: list[TriangleMesh], region_meshes: list[TriangleMesh]
+    layout: Layout,
+    conductor_meshes: list[TriangleMesh],
+    region_meshes: list[TriangleMesh],
+    background: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> BodyMedia:
-    """The media around conductors and bodies (checked surfaces: apart, closed, outward)."""
+    """The media around conductors and bodies (checked surfaces: apart, closed, outward).
+
+    ``background``: the permittivity of the slab each conductor (n,) and body (R,) lies in
+    (planar layers); default the layout's medium."""
     eps = np.array([r.eps_r for r in layout.regions], dtype=float)
     volume = np.array([m.volume_m3 for m in region_meshes], dtype=float)
+    if background is None:
+        background = (
+            np.full(len(conductor_meshes), float(layout.eps_r)),
+            np.full(len(region_meshes), float(layout.eps_r)),
+        )
 
-    def around(point: np.ndarray, skip: int) -> float:
+    def around(point: np.ndarray, skip: int, outer: float) -> float:
         inside = [
             k
             for k, m in enumerate(region_meshes)
             if k != skip and abs(winding_number(m, point[None])[0]) > 0.5
         ]
         if not inside:
-            return float(layout.eps_r)
+            return float(outer)
         return float(eps[min(inside, key=lambda k: volume[k])])
 
-    cond = np.array([around(m.vertices_m[0], -1) for m in conductor_meshes])
-    outside = np.array([around(m.vertices_m[0], k) for k, m in enumerate(region_meshes)])
+    cond = np.array(
+        [
+            around(m.vertices_m[0], -1, e)
+            for m, e in zip(conductor_meshes, background[0], strict=True)
+        ]
+    )
+    outside = np.array(
+        [around(m.vertices_m[0], k, background[1][k]) for k, m in enumerate(region_meshes)]
+    )
     return BodyMedia(cond, eps, outside)

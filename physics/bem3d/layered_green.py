@@ -21,6 +21,11 @@ the source itself for the direct and the transmitted terms), integrated over the
 closed-form / Gauss rules of :mod:`.panel_integrals`. The smooth remainder coef - limit is
 tabulated in (rho, a) by :mod:`.layer_tables` and integrated over each panel by a rule chosen
 from its length (:data:`RULE_FACTORS`).
+
+*Dielectric bodies* (:mod:`.bodies`) lie strictly inside one slab (or one half-space). Their
+rows (:meth:`LayeredBackground.dense_matrix`) are the normal derivative of the same kernel:
+the images' gradients by the homogeneous path's principal-value rules, the remainder's from
+the tables' derivatives, all times the permittivity of the body's slab.
 """
 
 from __future__ import annotations
@@ -139,11 +144,17 @@ class LayeredBackground:
     """The layered Green's function of one stack for the panels of some conductors.
 
     ``conductor_heights``: per conductor (z_min, z_max, name); in a general stack each
-    conductor lies in one slab (conductors may lie in different slabs).
+    conductor lies in one slab (conductors may lie in different slabs). ``body_heights``: the
+    same per dielectric body; a body lies strictly inside one slab (it touches no layer face),
+    so the medium just outside its surface is that slab's (or an enclosing body's).
     """
 
     def __init__(
-        self, stack: LayerStack, conductor_heights: list[tuple[float, float, str]], size: float
+        self,
+        stack: LayerStack,
+        conductor_heights: list[tuple[float, float, str]],
+        size: float,
+        body_heights: list[tuple[float, float, str]] = (),
     ):
         self.stack = stack
         self.size = float(size)
@@ -157,6 +168,13 @@ class LayeredBackground:
             self.z_i = float(ifaces[0])
             self.e_lo = stack.eps_r_below(self.z_i)
             self.e_hi = stack.eps_r_above(self.z_i)
+            self.conductor_eps = np.array(
+                [self._half_space_eps(lo, hi) for lo, hi, _ in conductor_heights]
+            )
+            self.body_slab = np.array(
+                [self._body_side(lo, hi, n) for lo, hi, n in body_heights], dtype=int
+            )
+            self.body_eps = np.where(self.body_slab > 0, self.e_hi, self.e_lo)
         else:
             self.kind = "stack"
             self.spectrum = StackSpectrum(stack)
@@ -167,6 +185,53 @@ class LayeredBackground:
                 ],
                 dtype=int,
             )
+            self.body_slab = np.array(
+                [self._body_slab(lo, hi, n) for lo, hi, n in body_heights], dtype=int
+            )
+            eps = np.array([sl.eps_r for sl in self.spectrum.slabs])
+            self.conductor_eps = eps[self.conductor_slab]
+            self.body_eps = eps[self.body_slab]
+
+    def source_slabs(self, panels) -> np.ndarray:
+        """(N,) slab of each panel (its conductor's or body's; in two half-spaces the side)."""
+        owner, region = panels.owner, panels.region
+        if self.kind == "two_half_spaces":
+            return self._side(panels.mesh.centroids_m[:, 2])
+        cond = self.conductor_slab[np.maximum(owner, 0)] if len(self.conductor_slab) else 0
+        body = self.body_slab[np.maximum(region, 0)] if len(self.body_slab) else 0
+        return np.where(owner >= 0, cond, body)
+
+    def _refuse_body(self, what: str, z_min: float, z_max: float, face: float) -> None:
+        raise GeometryError(
+            f"{what}: spans heights {z_min:.6g} .. {z_max:.6g} m and reaches the layer face at "
+            f"z = {face:.6g} m; a dielectric body must lie strictly inside one slab between "
+            "layer interfaces (apart from its faces)"
+        )
+
+    def _body_slab(self, z_min: float, z_max: float, what: str) -> int:
+        """The slab holding a body strictly inside it."""
+        tol = 1e-9 * self.size
+        s = int(self.spectrum.slab_of(np.array([0.5 * (z_min + z_max)]))[0])
+        slab = self.spectrum.slabs[max(s, 0)]
+        lo_ok = z_min > slab.z_lo + tol or (slab.z_lo == 0.0 and self.stack.ground_plane)
+        if s < 0 or not lo_ok:
+            self._refuse_body(what, z_min, z_max, slab.z_lo)
+        if z_max >= slab.z_hi - tol:
+            self._refuse_body(what, z_min, z_max, slab.z_hi)
+        return s
+
+    def _body_side(self, z_min: float, z_max: float, what: str) -> int:
+        tol = 1e-9 * self.size
+        if z_min > self.z_i + tol:
+            return 1
+        if z_max < self.z_i - tol:
+            return -1
+        self._refuse_body(what, z_min, z_max, self.z_i)
+        return 0
+
+    def _half_space_eps(self, z_min: float, z_max: float) -> float:
+        """The permittivity around a conductor in two half-spaces (its mid-height's side)."""
+        return self.e_hi if 0.5 * (z_min + z_max) >= self.z_i else self.e_lo
 
     # -- two half-spaces ---------------------------------------------------------------------
     def _side(self, z: np.ndarray) -> np.ndarray:
@@ -266,37 +331,63 @@ class LayeredBackground:
 
     # -- operators -----------------------------------------------------------------------------
     def dense_matrix(self, panels) -> np.ndarray:
-        """(N, N) collocation matrix at the centroids, in the units of
-        :func:`elopt.physics.bem3d.operators.dense_matrix`."""
+        """(N, N) rows at the centroids, in the units of
+        :func:`elopt.physics.bem3d.operators.dense_matrix`: the single layer S on conductor
+        rows; on interface rows the normal derivative K of the layered kernel times the
+        permittivity of the body's slab (its direct part the homogeneous K, so the jump of a
+        sheet is sigma there), without the identity, the contrast or Gauss's diagonal."""
         corners, centroids, areas, diams = panels.kernel_arrays
+        nc = panels.n_conductor_panels
+        normals = panels.mesh.normals
         rules = pint.rules()
-
-        def plain(c, m):
-            return pint.dense_potential_matrix(centroids, c, m, areas, diams, False, *rules)
-
-        if self.kind == "two_half_spaces":
-            direct = plain(corners, centroids)
-            image = plain(*_mapped(corners, centroids, 2.0 * self.z_i, -1.0))
-            st = ss = self._side(centroids[:, 2])
-            wd = np.empty(direct.shape)
-            wi = np.empty(direct.shape)
-            for a in (-1, 0, 1):
-                for b in (-1, 0, 1):
-                    sel = np.ix_(st == a, ss == b)
-                    wd[sel], wi[sel] = self._half_space_weights(a, b)
-            return (direct * wd + image * wi) / FOUR_PI
         out = np.empty((panels.n, panels.n))
-        own = self.conductor_slab[panels.owner]
-        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, own):
-            out[np.ix_(rows, cols)] = self._block(tgt, part, t, s, None)[:, 0]
-        out *= self.eps_medium / FOUR_PI
+        if self.kind == "two_half_spaces":
+            st = ss = self._side(centroids[:, 2])
+            mirrored = _mapped(corners, centroids, 2.0 * self.z_i, -1.0)
+            parts = ((corners, centroids), mirrored)
+            for rows, kind in ((np.arange(nc), "S"), (np.arange(nc, panels.n), "K")):
+                if not len(rows):
+                    continue
+                tgt = np.ascontiguousarray(centroids[rows])
+                if kind == "S":
+                    d, m = (
+                        pint.dense_potential_matrix(tgt, c, g, areas, diams, False, *rules)
+                        for c, g in parts
+                    )
+                else:
+                    d, m = (
+                        gradient_matrix(tgt, normals[rows], c, g, areas, diams) * FOUR_PI
+                        for c, g in parts
+                    )
+                block = np.empty(d.shape)
+                for a in (-1, 0, 1):
+                    for b in (-1, 0, 1):
+                        sel = np.ix_(st[rows] == a, ss == b)
+                        wd, wi = self._half_space_weights(a, b)
+                        if kind == "K":
+                            scale = (self.e_hi if a > 0 else self.e_lo) / self.eps_medium
+                            wd, wi = wd * scale, wi * scale
+                        block[sel] = d[sel] * wd + m[sel] * wi
+                out[rows] = block / FOUR_PI
+            return out
+        slabs = self.source_slabs(panels)
+        eps = np.array([sl.eps_r for sl in self.spectrum.slabs])
+        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, slabs):
+            pot = rows < nc
+            if np.any(pot):
+                block = self._block(tgt[pot], part, t, s, None)[:, 0]
+                out[np.ix_(rows[pot], cols)] = block * (self.eps_medium / FOUR_PI)
+            if not np.all(pot):
+                r = rows[~pot]
+                block = self._block(tgt[~pot], part, t, s, None, normals[r])[:, 0]
+                out[np.ix_(r, cols)] = block * (eps[t] / FOUR_PI)
         return out
 
     def _slab_pairs(self, panels, pts: np.ndarray, slabs: np.ndarray):
         """(rows, cols, targets, panels part, target slab, source slab) for every pair of a
         slab holding targets (``slabs`` (M,) of ``pts``) and one holding sources."""
         corners, centroids, areas, diams = panels.kernel_arrays
-        src = self.conductor_slab[panels.owner]
+        src = self.source_slabs(panels)
         for t in np.unique(slabs):
             rows = np.nonzero(slabs == t)[0]
             tgt = np.ascontiguousarray(pts[rows])
@@ -305,17 +396,29 @@ class LayeredBackground:
                 part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
                 yield rows, cols, tgt, part, int(t), int(s)
 
-    def _block(self, tgt: np.ndarray, part: _Part, t: int, s: int, dens: np.ndarray | None):
+    def _block(
+        self,
+        tgt: np.ndarray,
+        part: _Part,
+        t: int,
+        s: int,
+        dens: np.ndarray | None,
+        dirs: np.ndarray | None = None,
+    ):
         """Targets (M, 3) in slab t, panels ``part`` in slab s: the matrix (M, 1, N) of
-        potential integrals, or with ``dens`` (N, K) the sums (M, 4, K)."""
+        potential integrals (with ``dirs`` (M, 3): of their derivatives along dirs), or with
+        ``dens`` (N, K) the sums (M, 4, K)."""
         images, placements = self.slab_terms(t, s)
         rules = pint.rules()
         n = len(part.areas)
         acc = np.zeros((len(tgt), 1, n) if dens is None else (len(tgt), 4, dens.shape[1]))
         for coef, (c, m) in _distinct_images(images, part):
-            if dens is None:
+            if dens is None and dirs is None:
                 v = pint.dense_potential_matrix(tgt, c, m, part.areas, part.diams, False, *rules)
                 v = v[:, None, :]
+            elif dens is None:
+                v = gradient_matrix(tgt, dirs, c, m, part.areas, part.diams)[:, None, :]
+                v *= FOUR_PI
             else:
                 v = _sums(tgt, c, m, part.areas, part.diams, dens)
             v *= coef
@@ -325,7 +428,8 @@ class LayeredBackground:
             rules_ = source_rules(part, float(np.min(prm[:, 10])))
             factors = np.array(self.factors)
             if dens is None:
-                acc += remainder_matrix(tgt, rules_, factors, tabs, prm)[:, None, :]
+                rem = remainder_matrix(tgt, rules_, factors, tabs, prm, dirs)
+                acc += rem[:, None, :]
             else:
                 acc += remainder_sums(tgt, rules_, factors, dens, tabs, prm)
         return acc
@@ -483,20 +587,25 @@ def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
 
 
 @njit(cache=True, parallel=True)
-def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums) -> None:
-    """Fill ``matrix`` (M, N) with the remainder of every panel at every target when it has
-    rows, else ``sums`` (M, 4, K) with its dens-weighted sums and gradients."""
+def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums, dirs) -> None:
+    """Fill ``matrix`` (M, N) with the remainder of every panel at every target (its
+    derivative along ``dirs`` (M, 3) when that has rows) when it has rows, else ``sums``
+    (M, 4, K) with its dens-weighted sums and gradients."""
     m = targets.shape[0]
     n = rules[0].shape[0]
     nk = dens.shape[1]
     fill = matrix.shape[0] > 0
+    along = dirs.shape[0] > 0
     for i in prange(m):
         buf = np.empty(3)
         res = np.empty(3)
         acc = np.empty(4)
         for j in range(n):
             _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
-            if fill:
+            if fill and along:
+                d = dirs[i]
+                matrix[i, j] = acc[1] * d[0] + acc[2] * d[1] + acc[3] * d[2]
+            elif fill:
                 matrix[i, j] = acc[0]
             else:
                 for c in range(4):
@@ -504,24 +613,50 @@ def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums) -> None:
                         sums[i, c, k] += dens[j, k] * acc[c]
 
 
-def remainder_matrix(targets, rules, factors, tabs, prm) -> np.ndarray:
+def remainder_matrix(targets, rules, factors, tabs, prm, dirs=None) -> np.ndarray:
     """(M, N): the remainder integrated over every panel at every target (``rules`` from
-    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`)."""
+    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`), or its derivative along
+    ``dirs`` (M, 3)."""
     out = np.empty((len(targets), len(rules[0])))
-    _remainder(targets, rules, factors, tabs, prm, np.zeros((0, 1)), out, np.zeros((0, 4, 1)))
+    d = np.zeros((0, 3)) if dirs is None else np.ascontiguousarray(dirs, dtype=float)
+    _remainder(targets, rules, factors, tabs, prm, np.zeros((0, 1)), out, np.zeros((0, 4, 1)), d)
     return out
 
 
 def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
     """(M, 4, K): sum over panels of dens times the remainder and its gradient at targets."""
     out = np.zeros((len(targets), 4, dens.shape[1]))
-    _remainder(targets, rules, factors, tabs, prm, dens, np.zeros((0, 0)), out)
+    _remainder(targets, rules, factors, tabs, prm, dens, np.zeros((0, 0)), out, np.zeros((0, 3)))
     return out
 
 
-def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | None:
-    """The background of ``layout``'s layers for conductor panels ``mesh`` (``owner`` (N,) the
-    conductor of each panel); None when the layers change no permittivity."""
+def gradient_matrix(tgt, dirs, corners, centroids, areas, diams) -> np.ndarray:
+    """(M, N) derivative along ``dirs`` (M, 3) at ``tgt`` (M, 3) of (1/4 pi) integral over
+    each panel of 1/|x - x'| (principal value on a panel's own plane), as the homogeneous K."""
+    from elopt.physics.bem3d.hmatrix import _dense_entries
+
+    corners = np.ascontiguousarray(corners)
+    gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    return _dense_entries(
+        np.ascontiguousarray(tgt, dtype=float),
+        np.ascontiguousarray(dirs, dtype=float),
+        True,
+        corners,
+        np.ascontiguousarray(centroids),
+        np.ascontiguousarray(areas),
+        np.ascontiguousarray(diams),
+        gp,
+        False,
+        *pint.rules(),
+    )
+
+
+def layered_background(
+    layout, mesh, owner: np.ndarray, region: np.ndarray
+) -> LayeredBackground | None:
+    """The background of ``layout``'s layers for the panels ``mesh`` (``owner`` (N,) the
+    conductor of each panel or -1, ``region`` (N,) the body or -1); None when the layers
+    change no permittivity."""
     if not layout.layers:
         return None
     stack = layout.layer_stack
@@ -540,18 +675,11 @@ def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | N
     for k, c in enumerate(layout.conductors):
         zk = z[owner == k]
         heights.append((float(zk.min()), float(zk.max()), c.name))
-    return LayeredBackground(stack, heights, float(mesh.size_m))
-
-
-def check_bodies_without_layers(layout) -> None:
-    """Dielectric bodies in a layered background are not supported yet: one GeometryError."""
-    if layout.layers and layout.regions:
-        layers = ", ".join(f"'{ly.name}'" for ly in layout.layers)
-        regions = ", ".join(f"'{r.name}'" for r in layout.regions)
-        raise GeometryError(
-            f"layout: dielectric bodies ({regions}) together with planar layers ({layers}) "
-            "are not supported by the 3-D solver yet; give either bodies or layers"
-        )
+    bodies = []
+    for k, r in enumerate(layout.regions):
+        zk = z[region == k]
+        bodies.append((float(zk.min()), float(zk.max()), f"region '{r.name}'"))
+    return LayeredBackground(stack, heights, float(mesh.size_m), bodies)
 
 
 def extra_dense_bytes(n_panels: int) -> int:

@@ -91,15 +91,19 @@ def gauss_diagonal(panels: PanelSet, weighted_columns) -> np.ndarray:
 
 def dense_matrix(panels: PanelSet) -> np.ndarray:
     """The full (N, N) system matrix (see the module docstring)."""
-    if panels.background is not None:  # planar layers: the layered Green's function
-        return panels.background.dense_matrix(panels)
     nc = panels.n_conductor_panels
-    if nc == panels.n:
-        return potential_rows(panels, np.arange(nc))
-    a = np.empty((panels.n, panels.n))
-    a[:nc] = potential_rows(panels, np.arange(nc))
     rows = np.arange(nc, panels.n)
-    k = normal_derivative_rows(panels, rows)
+    if panels.background is not None:  # planar layers: the layered Green's function
+        a = panels.background.dense_matrix(panels)
+        if nc == panels.n:
+            return a
+        k = a[nc:]
+    else:
+        if nc == panels.n:
+            return potential_rows(panels, np.arange(nc))
+        a = np.empty((panels.n, panels.n))
+        a[:nc] = potential_rows(panels, np.arange(nc))
+        k = normal_derivative_rows(panels, rows)
     k[rows - nc, rows] += gauss_diagonal(panels, lambda w: w @ k)
     a[nc:] = (-2.0 * panels.contrast[rows])[:, None] * k
     a[rows, rows] += 1.0

@@ -21,11 +21,7 @@ from elopt.physics.bem3d.bodies import (
     region_surfaces,
 )
 from elopt.physics.bem3d.checks import check_above_plane, check_apart, check_surface
-from elopt.physics.bem3d.layered_green import (
-    LayeredBackground,
-    check_bodies_without_layers,
-    layered_background,
-)
+from elopt.physics.bem3d.layered_green import LayeredBackground, layered_background
 from elopt.physics.bem3d.mesh import TriangleMesh, concatenated
 from elopt.physics.bem3d.surfaces import Surface
 from elopt.physics.errors import GeometryError
@@ -51,6 +47,10 @@ class PanelSet:
     eps_back: np.ndarray | None = None
     eps_medium: float = 1.0
     region_smooth: tuple[bool | None, ...] = ()
+    #: (N,) relative permittivity of the background slab each panel lies in (bodies in a
+    #: layered background; None: the medium): a panel's density sigma radiates there, so the
+    #: free charge on a conductor is (eps_front / eps_slab) sigma.
+    eps_slab: np.ndarray | None = None
     #: Green's function of the layout's planar layers (:mod:`.layered_green`); None: homogeneous.
     background: LayeredBackground | None = None
 
@@ -58,7 +58,7 @@ class PanelSet:
         n = self.mesh.n_triangles
         if self.region is None:
             object.__setattr__(self, "region", np.full(n, -1, dtype=np.int64))
-        for key in ("eps_front", "eps_back"):
+        for key in ("eps_front", "eps_back", "eps_slab"):
             if getattr(self, key) is None:
                 object.__setattr__(self, key, np.full(n, float(self.eps_medium)))
 
@@ -162,7 +162,6 @@ def conductor_surfaces(layout: Layout) -> tuple[Surface, ...]:
 def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
     """Mesh every conductor and dielectric body at ``level`` and (with ``check``) validate the
     meshes."""
-    check_bodies_without_layers(layout)
     surfaces = conductor_surfaces(layout)
     bodies = region_surfaces(layout)
     meshes = [s.mesh(level) for s in surfaces]
@@ -183,15 +182,30 @@ def discretise(layout: Layout, level: int, *, check: bool = True) -> PanelSet:
     region = np.where(part >= n_cond, part - n_cond, -1)
     eps_front = np.full(mesh.n_triangles, float(layout.eps_r))
     eps_back = eps_front.copy()
+    eps_slab = None
+    background = layered_background(layout, mesh, owner, region)
     if body_meshes:
-        media = body_media(layout, meshes, body_meshes)
+        outer = None
+        if background is not None:
+            outer = (background.conductor_eps, background.body_eps)
+        media = body_media(layout, meshes, body_meshes, outer)
         cond = owner >= 0
         eps_front[cond] = media.around_conductor[owner[cond]]
         eps_back[cond] = eps_front[cond]
         eps_front[~cond] = media.outside[region[~cond]]
         eps_back[~cond] = media.inside[region[~cond]]
+        if background is not None:
+            eps_slab = np.where(
+                cond,
+                background.conductor_eps[np.maximum(owner, 0)],
+                background.body_eps[np.maximum(region, 0)],
+            )
+            # a bare conductor keeps the layered path's convention: its density is free
+            bare = cond & (eps_front == eps_slab)
+            eps_front[bare] = eps_back[bare] = eps_slab[bare] = float(layout.eps_r)
     return PanelSet(
-        background=layered_background(layout, mesh, owner),
+        background=background,
+        eps_slab=eps_slab,
         mesh=mesh,
         owner=owner,
         level=level,

@@ -117,9 +117,17 @@ def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied
         # planar layers: closed panels carry the free density already; on a sheet face
         # -grad . n of the potential integrals is eps_m E . n, its free charge eps_face E . n
         # with eps_face that of the layer just outside
+        # (a conductor inside a body: the body's eps_front, its density sigma radiating in
+        # the slab eps_slab, so the free one is eps_front / eps_slab of it)
         off = (_FACE_OFFSET * mesh.diameters_m[panel_all])[:, None] * normals_all
-        eps_face = EPS0_F_PER_M * p.background.eps_r_at(points_all + off)
-        ratio = np.where(np.concatenate(face) != 0, eps_face / layout.eps_F_per_m, 1.0)
+        touch, slab = p.eps_front[panel_all], p.eps_slab[panel_all]
+        coated = touch != slab
+        eps_face = EPS0_F_PER_M * np.where(coated, touch, p.background.eps_r_at(points_all + off))
+        ratio = np.where(
+            np.concatenate(face) != 0,
+            eps_face / layout.eps_F_per_m,
+            np.where(coated, touch / slab, 1.0),
+        )
     return {
         "points_m": points_all,
         "normals": normals_all,

@@ -36,6 +36,11 @@ Small levels are solved by dense LU; large ones by GMRES on the hierarchical mat
 from the previous level's densities and preconditioned by an incomplete LU of the near field. The
 memory a level needs is estimated before anything is allocated, and refused with the
 numbers when it exceeds what the machine has.
+
+With planar layers (:mod:`.layered_green`, dense path) G is the stack's Green's function and
+every panel's sigma radiates as a charge in the slab eps_slab it lies in: a body's rows keep
+the form above with K the layered kernel's normal derivative times eps_slab (bodies lie
+strictly inside one slab), and a conductor's free charge is (eps_f / eps_slab) sigma.
 """
 
 from __future__ import annotations
@@ -49,11 +54,7 @@ import scipy.linalg
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d.bodies import region_surfaces
-from elopt.physics.bem3d.layered_green import (
-    check_bodies_without_layers,
-    extra_dense_bytes,
-    layered_method,
-)
+from elopt.physics.bem3d.layered_green import extra_dense_bytes, layered_method
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
     PRECONDITIONER_FACTOR,
@@ -188,7 +189,8 @@ def solve_level(
     sigma = eps * x
     n = len(layout.conductors)
     nc = panels.n_conductor_panels
-    free = (EPS0_F_PER_M * panels.eps_front[:nc])[:, None] * x[:nc]
+    ratio = panels.eps_front[:nc] * panels.eps_medium / panels.eps_slab[:nc]
+    free = (EPS0_F_PER_M * ratio)[:, None] * x[:nc]
     charges = np.zeros((n, n + 1))
     np.add.at(charges, panels.owner[:nc], free * panels.mesh.areas_m2[:nc, None])
     return LevelResult3D(
@@ -257,7 +259,6 @@ def solve_3d(
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
         raise SolverError(f"method must be one of auto, dense, fast; got {method!r}")
-    check_bodies_without_layers(layout)
     conductor_surfaces(layout)
     region_surfaces(layout)
     tol = min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0)
