@@ -22,6 +22,7 @@ class FieldRow:
     default: str
     unit: str
     allowed: str
+    meaning: str
 
 
 @dataclass(frozen=True)
@@ -31,6 +32,11 @@ class FamilyDescription:
     parameters: tuple[FieldRow, ...]
     options: tuple[FieldRow, ...]
     metrics: tuple[tuple[str, str, str, str], ...]  # name, unit, sense, meaning
+
+
+def _shown_unit(unit: str) -> str:
+    """A unit as the tables show it: pure numbers (declared "" or "1") as "-"."""
+    return "-" if unit in ("", "1") else unit
 
 
 def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
@@ -45,7 +51,9 @@ def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
             default = str(s.default)
         else:
             default = "(table)"
-        out.append(FieldRow(s.name, s.type_name, default, s.unit or "-", s.allowed))
+        out.append(
+            FieldRow(s.name, s.type_name, default, _shown_unit(s.unit), s.allowed, s.meaning)
+        )
     return tuple(out)
 
 
@@ -60,7 +68,9 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
             summary=info.summary,
             parameters=_rows(info.parameters),
             options=_rows(info.options),
-            metrics=tuple((m.name, m.unit, m.sense, m.description) for m in info.metrics),
+            metrics=tuple(
+                (m.name, _shown_unit(m.unit), m.sense, m.description) for m in info.metrics
+            ),
         )
         for info in family_listing()
         if only is None or info.name == only
@@ -69,10 +79,10 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
 
 def _field_table(title: str, rows: tuple[FieldRow, ...]) -> Table:
     t = Table(title=title, title_justify="left", show_edge=False, pad_edge=False)
-    for col in ("name", "type", "default", "unit", "allowed"):
+    for col in ("name", "type", "default", "unit", "allowed", "meaning"):
         t.add_column(col)
     for r in rows:
-        t.add_row(r.name, r.kind, r.default, r.unit, r.allowed)
+        t.add_row(r.name, r.kind, r.default, r.unit, r.allowed, r.meaning)
     return t
 
 
