@@ -12,6 +12,7 @@ from rich.table import Table
 from rich.text import Text
 
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.report.numbers import shown_unit
 from elopt.physics.electrodes.base import ParameterSpec
 
 
@@ -34,11 +35,6 @@ class FamilyDescription:
     metrics: tuple[tuple[str, str, str, str], ...]  # name, unit, sense, meaning
 
 
-def _shown_unit(unit: str) -> str:
-    """A unit as the tables show it: pure numbers (declared "" or "1") as "-"."""
-    return "-" if unit in ("", "1") else unit
-
-
 def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
     """Table rows from the family's declarations (units and ranges live there only)."""
     out = []
@@ -51,9 +47,7 @@ def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
             default = str(s.default)
         else:
             default = "(table)"
-        out.append(
-            FieldRow(s.name, s.type_name, default, _shown_unit(s.unit), s.allowed, s.meaning)
-        )
+        out.append(FieldRow(s.name, s.type_name, default, shown_unit(s.unit), s.allowed, s.meaning))
     return tuple(out)
 
 
@@ -69,7 +63,7 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
             parameters=_rows(info.parameters),
             options=_rows(info.options),
             metrics=tuple(
-                (m.name, _shown_unit(m.unit), m.sense, m.description) for m in info.metrics
+                (m.name, shown_unit(m.unit), m.sense, m.description) for m in info.metrics
             ),
         )
         for info in family_listing()
@@ -79,7 +73,8 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
 
 def _field_table(title: str, rows: tuple[FieldRow, ...]) -> Table:
     t = Table(title=title, title_justify="left", show_edge=False, pad_edge=False)
-    for col in ("name", "type", "default", "unit", "allowed", "meaning"):
+    t.add_column("name", overflow="fold")
+    for col in ("type", "default", "unit", "allowed", "meaning"):
         t.add_column(col)
     for r in rows:
         t.add_row(r.name, r.kind, r.default, r.unit, r.allowed, r.meaning)
@@ -103,7 +98,8 @@ def render_families(console: Console, families: list[FamilyDescription]) -> None
             show_edge=False,
             pad_edge=False,
         )
-        for col in ("name", "unit", "usually", "meaning"):
+        t.add_column("name", overflow="fold")
+        for col in ("unit", "usually", "meaning"):
             t.add_column(col)
         for name, unit, sense, meaning in d.metrics:
             t.add_row(name, unit, sense, meaning)

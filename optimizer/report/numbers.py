@@ -32,3 +32,8 @@ def wrapped_name(name: str, width: int = 12) -> str:
             line += piece
     lines.append(line)
     return "\n".join(lines)
+
+
+def shown_unit(unit: str) -> str:
+    """A declared unit as the tables show it: pure numbers (declared "" or "1") as "-"."""
+    return "-" if unit in ("", "1") else unit

@@ -16,6 +16,7 @@ from rich.text import Text
 
 from elopt.optimizer.config import SolveSpec
 from elopt.optimizer.record import drive_of, solve_warnings
+from elopt.optimizer.report.numbers import shown_unit
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.section_picture import section_picture
 from elopt.optimizer.report.textplot import Series, line_plot
@@ -46,19 +47,20 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        table.add_row(f.name, _num(float(value)), units[f.name])
-    table.add_row("eps_r (medium)", _num(spec.eps_r), "")
+        shown = str(value) if isinstance(value, (str, bool)) else _num(float(value))
+        table.add_row(f.name, shown, shown_unit(units[f.name]))
+    table.add_row("eps_r (medium)", _num(spec.eps_r), shown_unit(""))
     return table
 
 
 def _metrics_table(family: ElectrodeFamily, evaluation: Evaluation) -> Table:
     table = Table(title="Metrics", title_justify="left", show_edge=False, pad_edge=False)
-    table.add_column("metric")
+    table.add_column("metric", overflow="fold")  # the exact name a study config spells
     table.add_column("value", justify="right", style="bold")
     table.add_column("unit")
     table.add_column("meaning", style="dim")
     for m in family.metrics:
-        table.add_row(m.name, _num(evaluation.metrics[m.name]), m.unit, m.description)
+        table.add_row(m.name, _num(evaluation.metrics[m.name]), shown_unit(m.unit), m.description)
     return table
 
 

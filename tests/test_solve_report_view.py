@@ -1,0 +1,38 @@
+"""The design table of `elopt solve` as the user reads it: text and yes/no parameters shown as
+written, pure numbers with one unit mark."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from rich.console import Console
+
+from elopt.optimizer.config import read_solve_config
+from elopt.optimizer.report.solve_report import _design_table
+
+CONFIGS = Path(__file__).resolve().parents[1] / "configs"
+
+
+def _rows(config: str) -> dict[str, list[str]]:
+    console = Console(record=True, width=200, highlight=False, markup=False)
+    console.print(_design_table(read_solve_config(CONFIGS / config)))
+    rows = {}
+    for line in console.export_text().splitlines():
+        cells = [c.strip() for c in line.split("│")]
+        if len(cells) == 3:
+            rows[cells[0]] = cells[1:]
+    return rows
+
+
+def test_text_and_bool_parameters_are_shown_as_written():
+    rows = _rows("cooker_hood_touch_key.toml")
+    assert rows["pad_shape"] == ["round", "-"]
+    assert rows["target_kind"] == ["finger", "-"]
+    assert rows["back_ground"] == ["True", "-"]
+    assert rows["pad_length_mm"] == ["12", "mm"]
+
+
+def test_pure_numbers_carry_one_mark():
+    rows = _rows("spindle_runout_probe.toml")
+    assert rows["spacer_eps_r"][1] == "-"
+    assert rows["eps_r (medium)"][1] == "-"
