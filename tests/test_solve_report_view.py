@@ -36,3 +36,18 @@ def test_pure_numbers_carry_one_mark():
     rows = _rows("spindle_runout_probe.toml")
     assert rows["spacer_eps_r"][1] == "-"
     assert rows["eps_r (medium)"][1] == "-"
+
+
+def test_sense_capacitance_is_described_in_the_family_own_words():
+    from elopt.optimizer.report.solve_report import _metrics_table
+    from elopt.physics.electrodes.base import Evaluation
+    from elopt.physics.electrodes.registry import FAMILIES
+
+    family = FAMILIES["mesh_file"]
+    metrics = {m.name: 1.0 for m in family.metrics}
+    meaning = "Q / V of the first conductor 'tip' at the drive"
+    evaluation = Evaluation(metrics, None, {"sense_capacitance_meaning": meaning})
+    console = Console(record=True, width=300, highlight=False, markup=False)
+    console.print(_metrics_table(family, evaluation))
+    line = next(r for r in console.export_text().splitlines() if "sense_capacitance_fF" in r)
+    assert meaning in line and "guard" not in line

@@ -59,8 +59,13 @@ def _metrics_table(family: ElectrodeFamily, evaluation: Evaluation) -> Table:
     table.add_column("value", justify="right", style="bold")
     table.add_column("unit")
     table.add_column("meaning", style="dim")
+    # The family's own words for its sense capacitance (a mesh_file design has no guard).
+    sense_meaning = str(evaluation.extra.get("sense_capacitance_meaning", ""))
     for m in family.metrics:
-        table.add_row(m.name, _num(evaluation.metrics[m.name]), shown_unit(m.unit), m.description)
+        meaning = sense_meaning if m.name == "sense_capacitance_fF" and sense_meaning else None
+        table.add_row(
+            m.name, _num(evaluation.metrics[m.name]), shown_unit(m.unit), meaning or m.description
+        )
     return table
 
 
