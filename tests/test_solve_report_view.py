@@ -51,3 +51,21 @@ def test_sense_capacitance_is_described_in_the_family_own_words():
     console.print(_metrics_table(family, evaluation))
     line = next(r for r in console.export_text().splitlines() if "sense_capacitance_fF" in r)
     assert meaning in line and "guard" not in line
+
+
+def test_a_cross_section_matrix_is_labelled_per_metre():
+    from types import SimpleNamespace
+
+    import numpy as np
+
+    from elopt.optimizer.report.solve_report import _capacitance_table
+
+    def title(planar: bool) -> str:
+        c = np.array([[207e-12, -10e-12], [-10e-12, 207e-12]])
+        sol = SimpleNamespace(
+            capacitance_matrix_F=c, layout=SimpleNamespace(names=("a", "b")), planar=planar
+        )
+        return str(_capacitance_table(SimpleNamespace(solution=sol)).title)
+
+    assert title(True) == "Capacitance matrix (pF/m)"
+    assert title(False) == "Capacitance matrix (pF)"

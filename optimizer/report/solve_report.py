@@ -73,6 +73,8 @@ def _capacitance_table(evaluation: Evaluation) -> Table:
     sol = evaluation.solution
     c = sol.capacitance_matrix_F
     scale, unit = (1e15, "fF") if np.max(np.abs(c)) < 1e-11 else (1e12, "pF")
+    if getattr(sol, "planar", False):
+        unit += "/m"  # a cross-section's matrix is per metre of length
     table = Table(
         title=f"Capacitance matrix ({unit})",
         title_justify="left",

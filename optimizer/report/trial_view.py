@@ -10,7 +10,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from elopt.optimizer.report.numbers import ARROW, short_number
+from elopt.optimizer.report.numbers import short_number, shown_unit
 from elopt.optimizer.report.study_view import front_numbers, reruns, study_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store import StudySnapshot, TrialArrays
@@ -49,7 +49,9 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
             if h.parameter_searched[k]
             else "fixed"
         )
-        params.add_row(name, short_number(c["params"][number, k]), h.parameter_units[k], rng)
+        params.add_row(
+            name, short_number(c["params"][number, k]), shown_unit(h.parameter_units[k]), rng
+        )
     console.print(params)
     if state != "complete":
         return
@@ -60,14 +62,17 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     for k, name in enumerate(h.metric_names):
         roles = []
         if name in h.objective_names:
-            roles.append(ARROW[h.objective_directions[h.objective_names.index(name)]] + "imise")
+            roles.append(h.objective_directions[h.objective_names.index(name)])
         for j, cm in enumerate(h.constraint_metrics):
             if cm == name:
                 ok = c["constraints"][number, j] <= 0
                 sign = "<=" if h.constraint_kinds[j] == "max" else ">="
                 roles.append(f"{sign} {h.constraint_limits[j]:g}: {'ok' if ok else 'VIOLATED'}")
         metrics.add_row(
-            name, short_number(c["metrics"][number, k]), h.metric_units[k], ", ".join(roles)
+            name,
+            short_number(c["metrics"][number, k]),
+            shown_unit(h.metric_units[k]),
+            ", ".join(roles),
         )
     console.print(metrics)
     tolerance = info.get("tolerance")
