@@ -28,7 +28,7 @@ def test_text_and_bool_parameters_are_shown_as_written():
     rows = _rows("cooker_hood_touch_key.toml")
     assert rows["pad_shape"] == ["round", "-"]
     assert rows["target_kind"] == ["finger", "-"]
-    assert rows["back_ground"] == ["True", "-"]
+    assert rows["back_ground"] == ["true", "-"]
     assert rows["pad_length_mm"] == ["12", "mm"]
 
 

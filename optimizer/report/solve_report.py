@@ -47,7 +47,10 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        shown = str(value) if isinstance(value, (str, bool)) else _num(float(value))
+        if isinstance(value, bool):
+            shown = "true" if value else "false"  # as TOML writes it
+        else:
+            shown = value if isinstance(value, str) else _num(float(value))
         table.add_row(f.name, shown, shown_unit(units[f.name]))
     table.add_row("eps_r (medium)", _num(spec.eps_r), shown_unit(""))
     return table
