@@ -4,7 +4,6 @@ capacitance matrix, the peak surface field and where it sits, and sigma along ea
 from __future__ import annotations
 
 import math
-import tomllib
 
 import numpy as np
 from rich.console import Console
@@ -12,18 +11,9 @@ from rich.table import Table
 from rich.text import Text
 
 from elopt.optimizer.report.numbers import short_number, shown_unit
-from elopt.optimizer.report.study_view import front_numbers, reruns, study_caution
+from elopt.optimizer.report.study_view import fixed_words, front_numbers, reruns, study_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store import StudySnapshot, TrialArrays
-
-
-def _fixed_words(config_toml: str) -> dict[str, str | bool]:
-    """The text and yes/no values of a study config's [fixed] table (name -> value)."""
-    try:
-        fixed = tomllib.loads(config_toml).get("fixed", {})
-    except tomllib.TOMLDecodeError:
-        return {}
-    return {k: v for k, v in fixed.items() if isinstance(v, (str, bool))}
 
 
 def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, number: int) -> None:
@@ -51,7 +41,7 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         console.print(f"re-run of interrupted trial {info['rerun_of']}")
 
     # Text and yes/no values are not numbers in the study file: show them as the config wrote them.
-    written = _fixed_words(h.config_toml)
+    written = fixed_words(h.config_toml)
     params = Table(title="parameters", title_justify="left")
     for col in ("name", "value", "unit", "range"):
         params.add_column(col, justify="right" if col == "value" else "left")
@@ -63,7 +53,7 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         )
         value = short_number(c["params"][number, k])
         if name in written and not h.parameter_searched[k]:
-            value = str(written[name]).lower() if isinstance(written[name], bool) else written[name]
+            value = written[name]
         params.add_row(name, value, shown_unit(h.parameter_units[k]), rng)
     console.print(params)
     if state != "complete":
