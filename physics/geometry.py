@@ -314,7 +314,13 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
         t = np.clip(np.einsum("kc,kc->k", a[u] - a[v], d[v]) / length2[v], 0.0, 1.0)
         return np.linalg.norm(a[u] - (a[v] + t[:, None] * d[v]), axis=-1) <= tol
 
-    bad = bad | touches(i, j) | touches(j, i)
+    # Chords joined by a stretch of curve no longer than a few tolerances are neighbours, not a
+    # touch: a short piece sampled into many chords has non-adjacent chords closer than tol.
+    along = np.concatenate([[0.0], np.cumsum(np.sqrt(length2))])
+    stretch = along[j] - along[i + 1]
+    if closed:
+        stretch = np.minimum(stretch, along[-1] - along[j + 1] + along[i])
+    bad = (bad | touches(i, j) | touches(j, i)) & (stretch > 4.0 * tol)
     if not np.any(bad):
         return None
     k = int(np.argmax(bad))
@@ -368,13 +374,24 @@ def closed_outline(curve: Curve) -> np.ndarray | None:
     return None
 
 
+#: A straight left between fillets shorter than this share of the polyline's extent is closed
+#: by lengthening the neighbouring fillets' tangents (their radii change by as little): far
+#: below any physical size, while so short a piece would be finer than the curve's tolerances.
+NEAR_ZERO_STRAIGHT = 1e-7
+
+
 def rounded_polyline(
     vertices: Sequence[tuple[float, float]], fillet_radius: float, name: str = "curve"
 ) -> Curve:
     """Chain of segments through ``vertices`` with every interior corner rounded.
 
     Each interior corner gets a tangent arc of ``fillet_radius`` metres (0 keeps it sharp).
-    Raises GeometryError when two fillets on one edge would overlap.
+    Raises GeometryError when two fillets on one edge would overlap. Near the overlap limit
+    the straight left between two fillets (or between a fillet and an end) is closed when it
+    is shorter than :data:`NEAR_ZERO_STRAIGHT` of the extent: the fillets' tangent lengths
+    grow by the least that closes every such straight (radii change by that much at most),
+    so that every fillet up to the limit builds. A fillet arc shorter than the curves' join
+    tolerance is left a sharp corner.
     """
     v = [np.asarray(p, dtype=float) for p in vertices]
     if len(v) < 2:
@@ -383,46 +400,77 @@ def rounded_polyline(
         raise GeometryError(
             f"{name}: fillet radius must be finite and >= 0, got {float(fillet_radius):.6g} m"
         )
-    cuts: list[tuple[np.ndarray, np.ndarray, Arc | None]] = []
-    for k in range(1, len(v) - 1):
-        d1 = v[k] - v[k - 1]
-        d2 = v[k + 1] - v[k]
-        l1, l2 = np.linalg.norm(d1), np.linalg.norm(d2)
-        if l1 == 0 or l2 == 0:
+    extent = float(np.max(np.ptp(np.asarray(v), axis=0)))
+    n = len(v)
+    edge = [v[k + 1] - v[k] for k in range(n - 1)]
+    lengths = np.array([float(np.linalg.norm(e)) for e in edge])
+    for k in range(n - 1):
+        if lengths[k] == 0:
             raise GeometryError(
                 f"{name}: two consecutive corners repeat the point {format_point(v[k])}"
             )
-        u1, u2 = d1 / l1, d2 / l2
-        turn = math.atan2(u1[0] * u2[1] - u1[1] * u2[0], float(u1 @ u2))
-        if fillet_radius == 0 or abs(turn) < 1e-12:
-            cuts.append((v[k], v[k], None))
-            continue
-        back = fillet_radius * math.tan(abs(turn) / 2)
-        p_in, p_out = v[k] - back * u1, v[k] + back * u2
-        normal = np.array([-u1[1], u1[0]]) * math.copysign(1.0, turn)
-        center = p_in + fillet_radius * normal
-        a0 = math.atan2(p_in[1] - center[1], p_in[0] - center[0])
-        a1 = a0 + turn
-        cuts.append((p_in, p_out, Arc((center[0], center[1]), fillet_radius, a0, a1)))
-    pieces: list[Piece] = []
-    prev = v[0]
-    for k, (p_in, p_out, arc) in enumerate(cuts, start=1):
-        edge_len = np.linalg.norm(v[k] - v[k - 1])
-        used_start = np.linalg.norm(prev - v[k - 1])
-        used_end = np.linalg.norm(v[k] - p_in)
-        if used_start + used_end > edge_len * (1 + 1e-12):
+    units = [e / ln for e, ln in zip(edge, lengths, strict=True)]
+    turns = np.zeros(n)
+    for k in range(1, n - 1):
+        u1, u2 = units[k - 1], units[k]
+        turns[k] = math.atan2(u1[0] * u2[1] - u1[1] * u2[0], float(u1 @ u2))
+    rounded = (np.abs(turns) >= 1e-12) & (
+        fillet_radius * np.abs(turns) > 16 * JOIN_TOLERANCE * extent
+    )
+    tangent = np.where(rounded, np.tan(np.abs(turns) / 2), 0.0)
+    backs = _close_near_zero_straights(fillet_radius * tangent, rounded, lengths, extent)
+    slack = JOIN_TOLERANCE * extent
+    for k in range(n - 1):
+        if backs[k] + backs[k + 1] > lengths[k] * (1 + 1e-12) + slack:
             raise GeometryError(
                 f"{name}: fillets of radius {fillet_radius:.6g} m overlap on the edge from "
-                f"{format_point(v[k - 1])} to {format_point(v[k])} (length {edge_len:.6g} m)"
+                f"{format_point(v[k])} to {format_point(v[k + 1])} (length {lengths[k]:.6g} m)"
             )
-        if np.linalg.norm(p_in - prev) > JOIN_TOLERANCE * edge_len:
+    pieces: list[Piece] = []
+    prev = v[0]
+    for k in range(1, n):
+        p_in = v[k] - backs[k] * units[k - 1] if k < n - 1 else v[k]
+        if np.linalg.norm(p_in - prev) > JOIN_TOLERANCE * extent:
             pieces.append(Segment(tuple(prev), tuple(p_in)))
-        if arc is not None:
-            pieces.append(arc)
-        prev = p_out
-    if np.linalg.norm(v[-1] - prev) > JOIN_TOLERANCE * np.linalg.norm(v[-1] - v[-2]):
-        pieces.append(Segment(tuple(prev), tuple(v[-1])))
+        if k == n - 1 or not rounded[k]:
+            prev = p_in
+            continue
+        radius = backs[k] / tangent[k]
+        u1 = units[k - 1]
+        normal = np.array([-u1[1], u1[0]]) * math.copysign(1.0, turns[k])
+        center = p_in + radius * normal
+        a0 = math.atan2(p_in[1] - center[1], p_in[0] - center[0])
+        pieces.append(Arc((center[0], center[1]), radius, a0, a0 + turns[k]))
+        prev = v[k] + backs[k] * units[k]
     return Curve(tuple(pieces))
+
+
+def _close_near_zero_straights(
+    backs: np.ndarray, rounded: np.ndarray, lengths: np.ndarray, extent: float
+) -> np.ndarray:
+    """Tangent lengths (n,) per vertex after closing straights (edge k from vertex k to k + 1)
+    left shorter than NEAR_ZERO_STRAIGHT x ``extent``: the least-norm change of the rounded
+    corners' tangent lengths that makes each such edge's two tangents fill it exactly. When
+    the closures contradict each other (no change keeps every edge free of overlap), the
+    nominal tangents are kept."""
+    n = len(backs)
+    out = backs.copy()
+    for _ in range(3):
+        left = lengths - out[:-1] - out[1:]
+        near = np.nonzero((left > 0) & (left <= NEAR_ZERO_STRAIGHT * extent))[0]
+        rows = [k for k in near if rounded[k] or rounded[k + 1]]
+        if not rows:
+            return out
+        a = np.zeros((len(rows), n))
+        for i, k in enumerate(rows):
+            a[i, k] = float(rounded[k])
+            a[i, k + 1] = float(rounded[k + 1])
+        delta = np.linalg.lstsq(a, left[rows], rcond=None)[0]
+        trial = out + delta
+        if np.any(lengths - trial[:-1] - trial[1:] < -JOIN_TOLERANCE * extent):
+            return out
+        out = trial
+    return out
 
 
 def sphere(radius: float, center_z: float = 0.0) -> Curve:

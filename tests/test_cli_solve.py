@@ -157,6 +157,14 @@ def test_report_shows_tables_picture_and_no_caution_at_low_voltage(capsys, tmp_p
     ):
         assert words in out
     assert "Caution" not in out
+    # A pure number has no unit column entry (declared "1"): the row is name and value only.
+    rows = {
+        cells[0]: cells
+        for cells in ([c.strip() for c in line.split("│")] for line in out.splitlines())
+        if len(cells) == 3
+    }
+    assert rows["potting_eps_r"] == ["potting_eps_r", "3.5", ""]
+    assert rows["fillet_mm"] == ["fillet_mm", "0.1", "mm"]
 
 
 def test_warning_when_the_peak_exceeds_the_medium_limit(capsys, tmp_path):

@@ -44,9 +44,9 @@ def test_a_pure_number_objective_has_no_unit_one(tmp_path):
     assert "min (mm)" in text
 
 
-def test_the_study_page_marks_pure_numbers_with_a_dash(tmp_path):
+def test_the_study_page_gives_pure_numbers_no_unit(tmp_path):
     snap = _study(tmp_path)
     page = _setup_tables(snap)
-    assert "<td>gap_mm</td><td>-</td>" in page and "<td>1</td>" not in page
+    assert "<td>gap_mm</td><td></td>" in page and "<td>1</td>" not in page
     # A value the config fixed as text is shown as written, not as a number the file lacks.
     assert "fixed at round" in page

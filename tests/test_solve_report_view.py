@@ -1,5 +1,5 @@
 """The design table of `elopt solve` as the user reads it: text and yes/no parameters shown as
-written, pure numbers with one unit mark."""
+written, pure numbers without a unit."""
 
 from __future__ import annotations
 
@@ -26,16 +26,16 @@ def _rows(config: str) -> dict[str, list[str]]:
 
 def test_text_and_bool_parameters_are_shown_as_written():
     rows = _rows("cooker_hood_touch_key.toml")
-    assert rows["pad_shape"] == ["round", "-"]
-    assert rows["target_kind"] == ["finger", "-"]
-    assert rows["back_ground"] == ["true", "-"]
+    assert rows["pad_shape"] == ["round", ""]
+    assert rows["target_kind"] == ["finger", ""]
+    assert rows["back_ground"] == ["true", ""]
     assert rows["pad_length_mm"] == ["12", "mm"]
 
 
-def test_pure_numbers_carry_one_mark():
+def test_pure_numbers_carry_no_unit():
     rows = _rows("spindle_runout_probe.toml")
-    assert rows["spacer_eps_r"][1] == "-"
-    assert rows["eps_r (medium)"][1] == "-"
+    assert rows["spacer_eps_r"][1] == ""
+    assert rows["eps_r (medium)"][1] == ""
 
 
 def test_sense_capacitance_is_described_in_the_family_own_words():

@@ -193,6 +193,8 @@ def test_parameter_units_come_from_the_family_declarations():
         "housing_eps_r": "1",
         "target_layer_um": "um",
         "target_layer_eps_r": "1",
+        "potting_depth_mm": "mm",
+        "potting_eps_r": "1",
     }
     # The fixture declares its delay in seconds: a unit no name suffix list knew.
     fixture = study_header(_parse(_fixture_text()))

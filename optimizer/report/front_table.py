@@ -142,19 +142,19 @@ def front_table(
         zip(h.objective_names, h.objective_directions, h.objective_units, strict=True)
     ):
         cells = [short_number(v) for v in c["objectives"][rows, k]]
-        tag = ARROW[d] if shown_unit(unit) == "-" else f"{ARROW[d]} ({unit})"
+        tag = ARROW[d] if not shown_unit(unit) else f"{ARROW[d]} ({unit})"
         columns.append((name, _header(name, tag), cells))
     optional: list[tuple[str, str, list[str]]] = []
     for m in constrained:
         k = h.metric_names.index(m)
         cells = [short_number(v) for v in c["metrics"][rows, k]]
         unit = h.metric_units[k]
-        optional.append((m, _header(m, None if shown_unit(unit) == "-" else f"({unit})"), cells))
+        optional.append((m, _header(m, None if not shown_unit(unit) else f"({unit})"), cells))
     for n in searched:
         k = h.parameter_names.index(n)
         unit = h.parameter_units[k]
         cells = [short_number(v) for v in c["params"][rows, k]]
-        optional.append((n, _header(n, None if shown_unit(unit) == "-" else f"({unit})"), cells))
+        optional.append((n, _header(n, None if not shown_unit(unit) else f"({unit})"), cells))
 
     def needed(col: tuple[str, str, list[str]]) -> int:
         head = max(len(line) for line in col[1].split("\n"))

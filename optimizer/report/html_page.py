@@ -88,17 +88,17 @@ def _front_table(snap: StudySnapshot) -> str:
     searched = [k for k, s in enumerate(h.parameter_searched) if s]
     head = ["<th>trial</th>"]
     head += [
-        f"<th>{_name(n)}<br><small>{ARROW[d]} ({_e(shown_unit(u))})</small></th>"
+        f"<th>{_name(n)}<br><small>{ARROW[d]}{_unit_tag(u)}</small></th>"
         for n, d, u in zip(
             h.objective_names, h.objective_directions, h.objective_units, strict=True
         )
     ]
     head += [
-        f"<th>{_name(m)}<br><small>({_e(shown_unit(h.metric_units[h.metric_names.index(m)]))})</small></th>"
+        f"<th>{_name(m)}<br><small>{_unit_tag(h.metric_units[h.metric_names.index(m)])}</small></th>"
         for m in constrained
     ]
     head += [
-        f"<th>{_name(h.parameter_names[k])}<br><small>({_e(shown_unit(h.parameter_units[k]))})</small></th>"
+        f"<th>{_name(h.parameter_names[k])}<br><small>{_unit_tag(h.parameter_units[k])}</small></th>"
         for k in searched
     ]
     rows = []
@@ -124,6 +124,11 @@ def _front_table(snap: StudySnapshot) -> str:
         + "</table></div>"
         + more
     )
+
+
+def _unit_tag(unit: str) -> str:
+    """ " (mm)" after a column name; nothing for a pure number."""
+    return f" ({_e(shown_unit(unit))})" if shown_unit(unit) else ""
 
 
 def _setup_tables(snap: StudySnapshot) -> str:

@@ -35,5 +35,5 @@ def wrapped_name(name: str, width: int = 12) -> str:
 
 
 def shown_unit(unit: str) -> str:
-    """A declared unit as the tables show it: pure numbers (declared "" or "1") as "-"."""
-    return "-" if unit in ("", "1") else unit
+    """A declared unit as the tables show it: nothing for a pure number (declared "" or "1")."""
+    return "" if unit in ("", "1") else unit

@@ -483,38 +483,39 @@ def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
 
 
 @njit(cache=True, parallel=True)
-def remainder_matrix(targets, rules, factors, tabs, prm) -> np.ndarray:
-    """(M, N): the remainder integrated over every panel at every target (``rules`` from
-    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`)."""
-    m = targets.shape[0]
-    n = rules[0].shape[0]
-    out = np.empty((m, n))
-    for i in prange(m):
-        buf = np.empty(3)
-        res = np.empty(3)
-        acc = np.empty(4)
-        for j in range(n):
-            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
-            out[i, j] = acc[0]
-    return out
-
-
-@njit(cache=True, parallel=True)
-def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
-    """(M, 4, K): sum over panels of dens times the remainder and its gradient at targets."""
+def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums) -> None:
+    """Fill ``matrix`` (M, N) with the remainder of every panel at every target when it has
+    rows, else ``sums`` (M, 4, K) with its dens-weighted sums and gradients."""
     m = targets.shape[0]
     n = rules[0].shape[0]
     nk = dens.shape[1]
-    out = np.zeros((m, 4, nk))
+    fill = matrix.shape[0] > 0
     for i in prange(m):
         buf = np.empty(3)
         res = np.empty(3)
         acc = np.empty(4)
         for j in range(n):
             _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
-            for c in range(4):
-                for k in range(nk):
-                    out[i, c, k] += dens[j, k] * acc[c]
+            if fill:
+                matrix[i, j] = acc[0]
+            else:
+                for c in range(4):
+                    for k in range(nk):
+                        sums[i, c, k] += dens[j, k] * acc[c]
+
+
+def remainder_matrix(targets, rules, factors, tabs, prm) -> np.ndarray:
+    """(M, N): the remainder integrated over every panel at every target (``rules`` from
+    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`)."""
+    out = np.empty((len(targets), len(rules[0])))
+    _remainder(targets, rules, factors, tabs, prm, np.zeros((0, 1)), out, np.zeros((0, 4, 1)))
+    return out
+
+
+def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
+    """(M, 4, K): sum over panels of dens times the remainder and its gradient at targets."""
+    out = np.zeros((len(targets), 4, dens.shape[1]))
+    _remainder(targets, rules, factors, tabs, prm, dens, np.zeros((0, 0)), out)
     return out
 
 

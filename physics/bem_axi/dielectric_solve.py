@@ -55,6 +55,7 @@ from elopt.physics.bem_axi.solve import DENSE_BYTES_PER_ENTRY, default_order
 from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.geometry import Corner, Curve
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.media import LayerStack
 from elopt.physics.quadrature import lagrange_matrix
 from elopt.physics.refinement import (
     Convergence,
@@ -69,6 +70,9 @@ from elopt.physics.solution import excitation_potentials
 
 #: Offset (in panel lengths) of the points whose mean normal field gives the principal value.
 PV_OFFSET = 1e-5
+#: A conductor piece whose points all lie this close to a layer face (relative to the layout
+#: size) rests on it.
+ON_FACE_TOL = 1e-9
 #: Relative errors refinement does not reduce (capacitance, peak) per nodes per panel: the
 #: principal-value extrapolation (measured 5e-11 with 4 and 1.5e-10 with 6 nodes on
 #: docs/references.md item 11) and the truncated Hankel remainder (1e-13); the peak floors
@@ -78,7 +82,8 @@ NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (3e-10, 1e-9), 8: (3e-10, 1e-9)}
 
 @dataclass(frozen=True)
 class _GradedCurve(Curve):
-    """A conductor curve with extra singular joints (interface junctions) to grade towards."""
+    """A conductor curve with extra joints to grade towards like singular corners (interface
+    junctions, and where the conductor leaves a layer face)."""
 
     junction_joints: tuple[int, ...] = ()
 
@@ -118,13 +123,16 @@ def dielectric_model(layout: Layout) -> DielectricModel:
     geom = build_dielectric_geometry(layout)
     size = max(c.shape.size for c in layout.conductors)
     tol = 1e-7 * size
+    # interface junctions (singular like corners) and points where a conductor leaves a layer
+    # face (graded only: the field there stays finite, see layer_face_junctions)
+    graded = np.concatenate([geom.junctions, layer_face_junctions(layout, size)])
     conductors = []
     for cond in layout.conductors:
         curve = cond.shape
         joints = []
         for i, piece in enumerate(curve.pieces):
             end = np.asarray(piece.end)
-            if len(geom.junctions) and np.min(np.linalg.norm(geom.junctions - end, axis=1)) <= tol:
+            if len(graded) and np.min(np.linalg.norm(graded - end, axis=1)) <= tol:
                 if i < len(curve.pieces) - 1 or curve.kind == "ring":
                     joints.append(i)
         if joints:
@@ -136,6 +144,39 @@ def dielectric_model(layout: Layout) -> DielectricModel:
     )
     _check_layers(layout, size)
     return DielectricModel(layout, geom, mesh_layout, chain_layouts, size)
+
+
+def layer_face_junctions(layout: Layout, size: float) -> np.ndarray:
+    """Joints (J, 2) where a conductor leaves a layer face it rests on: one piece lies along
+    the face, the next one does not. Metal, layer and the medium above meet there. Where the
+    conductor leaves tangentially (a rounded rim on a sheet) the field stays finite but varies
+    on ever smaller scales towards the joint: in the thin wedge of medium between rim and face
+    it tends to eps_layer / eps_medium times the field in the layer at the rim (D_n
+    continuous; measured). The mesh is graded there like at a sharp corner; a leave at an
+    angle is a corner of the curve and graded anyway."""
+    stack = layout.layer_stack
+    out = []
+    for zi in stack.interfaces_m:
+        for cond in layout.conductors:
+            curve = cond.shape
+            pieces = curve.pieces
+            flat = [face_height(p, stack, size) == zi for p in pieces]
+            pairs = list(zip(range(len(pieces) - 1), range(1, len(pieces)), strict=True))
+            if curve.kind == "ring":
+                pairs.append((len(pieces) - 1, 0))
+            for i, j in pairs:
+                if flat[i] != flat[j]:
+                    out.append(pieces[i].end)
+    return np.asarray(out, float).reshape(-1, 2)
+
+
+def face_height(piece, stack: LayerStack, size: float) -> float:
+    """Height of the layer face ``piece`` lies along (within ON_FACE_TOL), else NaN."""
+    z = piece.points(np.linspace(-1.0, 1.0, 9))[:, 1]
+    for zi in stack.interfaces_m:
+        if np.all(np.abs(z - zi) <= ON_FACE_TOL * size):
+            return float(zi)
+    return math.nan
 
 
 def _check_layers(layout: Layout, size: float) -> None:
@@ -296,7 +337,8 @@ class DielectricLevel:
 
 
 def build_level_mesh(model: DielectricModel, level: int, order: int):
-    """Joined mesh and per-node data of one level."""
+    """Joined mesh and per-node data of one level: the media on conductor faces (Nc, 2), inside
+    and outside interface nodes (Ni,), and the layer face each node rests on (N,; NaN: none)."""
     layout = model.layout
     mesh_c = build_mesh(model.mesh_layout, level, order)
     meshes = [mesh_c]
@@ -306,12 +348,16 @@ def build_level_mesh(model: DielectricModel, level: int, order: int):
     nc = mesh_c.n_nodes
     normals = mesh.normals.copy()
     eps_face = np.empty((nc, 2))
+    face_z = np.full(mesh.n_nodes, math.nan)
     for ci, cond in enumerate(layout.conductors):
         idx = np.nonzero(mesh_c.node_conductor == ci)[0]
         media = piece_media(
             model.geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'"
         )
-        eps_face[idx] = media[node_piece(cond.shape, mesh_c.points_m[idx])]
+        piece = node_piece(cond.shape, mesh_c.points_m[idx])
+        eps_face[idx] = media[piece]
+        heights = [face_height(pc, layout.layer_stack, model.size) for pc in cond.shape.pieces]
+        face_z[idx] = np.asarray(heights)[piece]
     iface_in, iface_out = [], []
     start = nc
     for ch, m in zip(model.geom.chains, meshes[1:], strict=True):
@@ -325,7 +371,7 @@ def build_level_mesh(model: DielectricModel, level: int, order: int):
     mesh = replace(mesh, normals=normals)
     eps_in = np.concatenate(iface_in) if iface_in else np.zeros(0)
     eps_out = np.concatenate(iface_out) if iface_out else np.zeros(0)
-    return mesh, nc, eps_face, eps_in, eps_out
+    return mesh, nc, eps_face, eps_in, eps_out, face_z
 
 
 def principal_value_normal_field(
@@ -397,10 +443,32 @@ def _face_sigma(
     return out * EPS0_F_PER_M
 
 
+def background_sides(
+    stack: LayerStack, z_m: np.ndarray, normal_z: np.ndarray, face_z_m: np.ndarray
+) -> np.ndarray:
+    """Background permittivity (N, 2) on the normal side and the other side of nodes at
+    heights ``z_m`` (N,) with normal z-components ``normal_z`` (N,).
+
+    Only a node whose piece rests on a layer face (``face_z_m`` (N,) its height, NaN for
+    none) has two backgrounds; any other node has the medium at its own height on both sides,
+    however close to a face it lies (a rim leaving a face tangentially: a probe a fixed
+    distance off the node would land across the face once the mesh is fine enough).
+    """
+    z = np.asarray(z_m, dtype=float)
+    out = np.repeat(stack.eps_r_at(z)[:, None], 2, axis=1)
+    for zi in np.unique(face_z_m[np.isfinite(face_z_m)]):
+        on = face_z_m == zi
+        up = normal_z[on] > 0
+        above, below = stack.eps_r_above(float(zi)), stack.eps_r_below(float(zi))
+        out[on, 0] = np.where(up, above, below)
+        out[on, 1] = np.where(up, below, above)
+    return out
+
+
 def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> DielectricLevel:
     """Assemble and solve one refinement level (one LU for every column)."""
     layout = model.layout
-    mesh, nc, eps_face, eps_in, eps_out = build_level_mesh(model, level, order)
+    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(model, level, order)
     kernel = LayeredKernel(
         layout.layer_stack,
         mesh.points_m[:, 1],
@@ -411,15 +479,7 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
     e0 = layout.applied_field_V_per_m
     owner = mesh.node_conductor
     sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[owner[:nc]]
-    # background permittivity just off each node on the normal side and the other
-    step = 1e-9 * model.size * mesh.normals[:, 1]
-    eps_bg = np.stack(
-        [
-            layout.layer_stack.eps_r_at(mesh.points_m[:, 1] + step),
-            layout.layer_stack.eps_r_at(mesh.points_m[:, 1] - step),
-        ],
-        axis=1,
-    )
+    eps_bg = background_sides(layout.layer_stack, mesh.points_m[:, 1], mesh.normals[:, 1], face_z)
     a = kernel.collocation(mesh)
     rhs = np.zeros((mesh.n_nodes, n + 1))
     rhs[np.arange(nc), owner[:nc]] = 1.0

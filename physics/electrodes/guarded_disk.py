@@ -7,8 +7,13 @@ Geometry (parameters in mm, SI inside), in the (r, z) half-plane above the targe
 - every off-axis corner of both cross-sections rounded with radius rho (rho = 0: sharp);
 - optional insulators: a spacer of ``spacer_eps_r`` filling the sensor-guard gap between the
   fillets (a <= r <= a + g, d + rho <= z <= d + t - rho; needs no recess), a housing sleeve of
-  ``housing_width_mm`` and ``housing_eps_r`` on the guard's outer wall between the fillets, and
+  ``housing_width_mm`` and ``housing_eps_r`` on the guard's outer wall between the fillets,
+  potting of ``potting_depth_mm`` and ``potting_eps_r`` filling the probe's back (below), and
   a layer of ``target_layer_um`` and ``target_layer_eps_r`` on the target (a coating, a film).
+- the potting covers the backs of sensor and guard (their back fillets included) and the
+  sleeve, from the axis out to r = a + g + w + (sleeve width), up to z = d + t + depth; it
+  bridges the sensor-guard gap at z = d + t - rho (resting on the spacer, or over an air gap
+  when there is none). It needs no recess and the straight walls of the spacer.
 
 Sensor and guard are both driven at V (driven guard); the target plane is at 0. The sense
 capacitance is C_sense = Q_sensor / V = C_ss + C_sg of the Maxwell matrix. Its sensitivity
@@ -54,6 +59,7 @@ SENSOR = "sensor"
 GUARD = "guard"
 SPACER = "spacer"
 HOUSING = "housing"
+POTTING = "potting"
 TARGET_LAYER = "target layer"
 #: Most points of the target grid: ample for any probe whose standoff and size are within a
 #: factor of about a thousand of each other; beyond, the grid alone costs gigabytes.
@@ -94,6 +100,13 @@ class GuardedDiskParams:
     target_layer_eps_r: float = parameter(
         "1", "eps_r of the layer on the target", default=4.0, low=1, mounting=True
     )
+    potting_depth_mm: float = parameter(
+        "mm",
+        "depth of potting filling the probe's back, above the guard's back face (0: none)",
+        default=0.0,
+        low=0,
+    )
+    potting_eps_r: float = parameter("1", "eps_r of the potting", default=3.5, low=1)
 
 
 @dataclass(frozen=True)
@@ -243,13 +256,12 @@ class GuardedDisk(SolvedByProfiles, ElectrodeFamily):
                     f"spacer_eps_r = {p.spacer_eps_r:g} needs recess_mm = 0 (got "
                     f"{p.recess_mm:g}): the spacer fills the gap between flush walls"
                 )
-            if (p.spacer_eps_r != 1.0 or p.housing_width_mm > 0) and not (
-                p.thickness_mm > 2 * p.fillet_mm
-            ):
+            if p.potting_depth_mm > 0 and p.recess_mm > 0:
                 rules.broken.append(
-                    f"a spacer or sleeve needs thickness_mm = {p.thickness_mm:g} > 2 fillet_mm = "
-                    f"{2 * p.fillet_mm:g} (it sits on the straight walls between the fillets)"
+                    f"potting_depth_mm = {p.potting_depth_mm:g} needs recess_mm = 0 (got "
+                    f"{p.recess_mm:g}): the potting meets sensor and guard on flush walls"
                 )
+            _check_straight_walls(rules, p)
             if not rules.broken:  # the grid's size needs the lengths to be valid
                 _check_target_grid(rules, p)
         rules.raise_if_broken()
@@ -384,10 +396,40 @@ def target_layers(p: GuardedDiskParams) -> tuple[PlanarLayer, ...]:
     return (PlanarLayer(TARGET_LAYER, p.target_layer_eps_r, 0.0, p.target_layer_um * UM),)
 
 
+#: Shortest straight wall between the fillets that a spacer, sleeve or potting may rest on,
+#: relative to the largest of thickness, gap and sleeve width: a shorter wall would make
+#: region sides finer than the region checks resolve (they sample every piece).
+MIN_WALL = 1e-3
+
+
+def _check_straight_walls(rules: RuleBook, p: GuardedDiskParams) -> None:
+    """Spacer, sleeve and potting rest on the straight walls between the fillets."""
+    users = [
+        name
+        for name, used in (
+            ("spacer_eps_r", p.spacer_eps_r != 1.0),
+            ("housing_width_mm", p.housing_width_mm > 0),
+            ("potting_depth_mm", p.potting_depth_mm > 0),
+        )
+        if used
+    ]
+    if not users:
+        return
+    wall = p.thickness_mm - 2 * p.fillet_mm
+    need = MIN_WALL * max(p.thickness_mm, p.guard_gap_mm, p.housing_width_mm)
+    if not wall >= need:
+        rules.broken.append(
+            f"{' and '.join(users)} need thickness_mm - 2 fillet_mm = {wall:.6g} >= {need:.3g} "
+            f"({MIN_WALL:g} x the largest of thickness_mm, guard_gap_mm, housing_width_mm): "
+            "they rest on the straight walls between the fillets"
+        )
+
+
 def insulators(p: GuardedDiskParams) -> tuple[DielectricRegion, ...]:
-    """The spacer in the sensor-guard gap and the sleeve on the guard, if any: rectangles on
-    the straight walls between the fillets (their corners meet the walls at the fillets' ends,
-    where the conductor curves have joints)."""
+    """The spacer in the sensor-guard gap, the sleeve on the guard and the potting behind
+    them, if any. Spacer and sleeve are rectangles on the straight walls between the fillets
+    (their corners meet the walls at the fillets' ends, where the conductor curves have
+    joints); the potting follows the back pieces of the conductor curves themselves."""
     a = p.sensor_radius_mm * MM
     r_in = a + p.guard_gap_mm * MM
     r_out = r_in + p.guard_width_mm * MM
@@ -399,7 +441,39 @@ def insulators(p: GuardedDiskParams) -> tuple[DielectricRegion, ...]:
     if p.housing_width_mm > 0:
         sleeve = _box(r_out, r_out + p.housing_width_mm * MM, z0, z1)
         out.append(DielectricRegion(HOUSING, sleeve, p.housing_eps_r))
+    if p.potting_depth_mm > 0:
+        out.append(DielectricRegion(POTTING, potting_curve(p), p.potting_eps_r))
     return tuple(out)
+
+
+def potting_curve(p: GuardedDiskParams) -> Curve:
+    """Boundary of the potting: from the axis at its top out to its rim, down to the top of
+    the straight walls z1 = d + t - rho, along the sleeve's top, over the guard's back, across
+    the sensor-guard gap and over the sensor's back to the axis (see the module docstring).
+    The pieces on the conductors are the conductor curves' own; the others end where those
+    do (a fillet near its limit may have its tangent lengthened a hair, see
+    :func:`elopt.physics.geometry.rounded_polyline`)."""
+    r_out = outer_radius_mm(p) * MM
+    rim = r_out + p.housing_width_mm * MM
+    z1 = (p.standoff_mm + p.thickness_mm - p.fillet_mm) * MM
+    top = (p.standoff_mm + p.thickness_mm + p.potting_depth_mm) * MM
+    wall = (p.thickness_mm - 2 * p.fillet_mm) * MM
+    guard = _back_pieces(guard_curve(p), z1, wall)
+    sensor = _back_pieces(sensor_curve(p), z1, wall)
+    pieces: list = [Segment((0.0, top), (rim, top))]
+    if p.housing_width_mm > 0:
+        pieces += [Segment((rim, top), (rim, z1)), Segment((rim, z1), guard[0].start)]
+    else:
+        pieces.append(Segment((rim, top), guard[0].start))
+    pieces += [*guard, Segment(guard[-1].end, sensor[0].start), *sensor]
+    return Curve(tuple(pieces))
+
+
+def _back_pieces(curve: Curve, z1: float, wall: float) -> list:
+    """The pieces of a conductor curve whose ends lie at or above z1 (its back face and back
+    fillets; a straight wall below reaches ``wall`` lower), in the curve's own order: from
+    its outer wall over the back towards the axis or its inner wall."""
+    return [pc for pc in curve.pieces if min(pc.start[1], pc.end[1]) >= z1 - 0.5 * wall]
 
 
 def _box(r0: float, r1: float, z0: float, z1: float) -> Curve:

@@ -73,6 +73,57 @@ workers = {workers}
 """
 
 
+# The real family with the insulators searched: spacer, potting and the film on the target,
+# at a coarse requested accuracy and no linearity sweep (one solve per trial).
+INSULATED_PROBE_STUDY = """\
+[study]
+name = "insulated"
+family = "guarded_disk"
+seed = 7
+
+[solver]
+rel_accuracy = 0.05
+
+[fixed]
+sensor_radius_mm = 1.0
+guard_gap_mm = 0.2
+guard_width_mm = 0.6
+thickness_mm = 0.6
+fillet_mm = 0.05
+standoff_mm = 0.5
+drive_V = 5.0
+
+[search]
+spacer_eps_r = {{ low = 2.0, high = 4.0 }}
+potting_depth_mm = {{ low = 0.2, high = 1.0 }}
+potting_eps_r = {{ low = 2.5, high = 4.5 }}
+target_layer_um = {{ low = 20.0, high = 100.0 }}
+target_layer_eps_r = {{ low = 2.0, high = 8.0 }}
+
+[objectives]
+layer_thickness_sensitivity_fF_per_um = "maximize"
+layer_eps_sensitivity_fF = "minimize"
+
+[constraints]
+peak_surface_field_V_per_m = {{ max = 1.0e6 }}
+
+[evaluation]
+linearity_points = 0
+
+[budget]
+trials = {trials}
+
+[run]
+workers = 1
+"""
+
+
+def insulated_probe_study(tmp: Path, *, trials: int = 4, name: str = "insulated.toml") -> Path:
+    path = tmp / name
+    path.write_text(INSULATED_PROBE_STUDY.format(trials=trials))
+    return path
+
+
 def fixture_study(
     tmp: Path,
     *,
