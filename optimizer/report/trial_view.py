@@ -44,7 +44,7 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     written = fixed_words(h.config_toml)
     params = Table(title="parameters", title_justify="left")
     for col in ("name", "value", "unit", "range"):
-        params.add_column(col, justify="right" if col == "value" else "left")
+        params.add_column(col, justify="right" if col == "value" else "left", overflow="fold")
     for k, name in enumerate(h.parameter_names):
         rng = (
             f"[{h.search_low[k]:g}, {h.search_high[k]:g}]{' log' if h.search_log[k] else ''}"
@@ -61,7 +61,7 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
 
     metrics = Table(title="metrics", title_justify="left")
     for col in ("name", "value", "unit", "role"):
-        metrics.add_column(col, justify="right" if col == "value" else "left")
+        metrics.add_column(col, justify="right" if col == "value" else "left", overflow="fold")
     for k, name in enumerate(h.metric_names):
         roles = []
         if name in h.objective_names:
@@ -125,7 +125,11 @@ def _tolerance_table(console: Console, h, c, number: int, tolerance: dict) -> No
     drivers = tolerance.get("driver", {})
     table = Table(title="across tolerances (the roles above judge these)", title_justify="left")
     for col in ("name", "nominal", "toleranced", "unit", "driven by"):
-        table.add_column(col, justify="right" if col in ("nominal", "toleranced") else "left")
+        table.add_column(
+            col,
+            justify="right" if col in ("nominal", "toleranced") else "left",
+            overflow="fold",  # a metric's name is what a config spells: wrap it, never cut it
+        )
     for k, name in enumerate(h.metric_names):
         if name in judged:
             table.add_row(
