@@ -69,3 +69,12 @@ def test_a_cross_section_matrix_is_labelled_per_metre():
 
     assert title(True) == "Capacitance matrix (pF/m)"
     assert title(False) == "Capacitance matrix (pF)"
+
+
+def test_a_refinement_change_reads_as_a_plain_percentage():
+    from elopt.optimizer.report.solve_report import _percent
+
+    assert _percent(1.4) == "140%"  # was printed as 1.4e+02%
+    assert _percent(0.021) == "2.1%"
+    assert _percent(3.4e-5) == "0.0034%"
+    assert _percent(1e-7) == "less than 0.001%"

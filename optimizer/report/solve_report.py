@@ -32,6 +32,14 @@ def _num(v: float) -> str:
     return f"{v:.4g}" if 1e-3 <= abs(v) < 1e6 or v == 0 else f"{v:.3e}"
 
 
+def _percent(fraction: float) -> str:
+    """A relative change in per cent, two significant digits, no exponent (140%, 2.1%, 0.0034%)."""
+    pct = abs(100 * fraction)
+    if pct < 1e-3:
+        return "less than 0.001%"
+    return f"{pct:.0f}%" if pct >= 10 else f"{float(f'{pct:.2g}'):g}%"
+
+
 def _design_table(spec: SolveSpec) -> Table:
     table = Table(title="Design", title_justify="left", show_edge=False, pad_edge=False)
     table.add_column("parameter")
@@ -104,7 +112,7 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
     )
     if np.isfinite(peak.rel_error_estimate):
         line.append(
-            f"   (changed {100 * peak.rel_error_estimate:.2g}% on the last refinement)", style="dim"
+            f"   (changed {_percent(peak.rel_error_estimate)} on the last refinement)", style="dim"
         )
     planar = bool(getattr(evaluation.solution, "planar", False))
     names = ("x", "z") if planar else ("r", "z") if len(where) == 2 else ("x", "y", "z")
