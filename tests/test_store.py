@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import h5py
@@ -283,3 +284,24 @@ def test_show_draws_3d_samples_along_their_height(tmp_path, capsys):
     assert main(["show", str(path), "0"]) == 0
     out = capsys.readouterr().out
     assert "arc length along the electrode [mm]" in out and "b (+ face)" in out
+
+
+def test_study_without_constraints_round_trips(tmp_path):
+    # A study may have objectives only; its constraint columns are zero wide.
+    path = tmp_path / "s.h5"
+    header = replace(
+        small_header(),
+        constraint_names=(),
+        constraint_metrics=(),
+        constraint_kinds=(),
+        constraint_limits=(),
+        constraint_units=(),
+    )
+    with StudyWriter.create(path, header) as w:
+        w.begin_session(target_trials=3, hours=None, workers=1)
+        for i in range(3):
+            w.append(replace(record_for(i), constraints=np.zeros(0)))
+    snap = read_study(path)
+    assert snap.n_trials == 3
+    assert snap.header.constraint_names == ()
+    assert snap.columns["constraints"].shape == (3, 0)

@@ -186,7 +186,8 @@ def write_layout(h5: h5py.File, header: StudyHeader) -> None:
             shape=(0, w),
             maxshape=(None, w),
             dtype="f8",
-            chunks=(ROW_CHUNK, max(w, 1)),
+            # a chunk cannot be zero wide: a study with no constraints lets h5py choose
+            chunks=(ROW_CHUNK, w) if w else True,
             fillvalue=np.nan,
         )
     trials["metrics"].attrs["names"] = list(header.metric_names) or [""]

@@ -50,11 +50,23 @@ def _sharp_steps(length: float, h: float, grade: float) -> int:
     return max(1, math.ceil(length * _polynomial_max_slope(grade) / h))
 
 
-def _fillet_plan(length: float, h: float, fillet: float) -> tuple[float, int, int, float]:
+#: Level-0 steps on each fillet strip (half of a rounded edge's quarter circle) by default.
+ARC_STEPS = 2
+
+
+def fillet_arc_steps(h: float, fillet: float, arc_steps: int = ARC_STEPS) -> int:
+    """Level-0 steps on each fillet strip of a rounded edge of radius ``fillet`` (m): at least
+    ``arc_steps``, and no longer than ``h`` along the arc."""
+    return max(arc_steps, math.ceil(0.25 * math.pi * fillet / h))
+
+
+def _fillet_plan(
+    length: float, h: float, fillet: float, arc_steps: int = ARC_STEPS
+) -> tuple[float, int, int, float]:
     """(strip width w, level-0 steps on each fillet strip, on the middle part, cosine alpha)."""
     w = min(fillet, 0.5 * length)
     arc = 0.25 * math.pi * w
-    n_arc = max(2, math.ceil(arc / h))
+    n_arc = fillet_arc_steps(h, w, arc_steps)
     arc_step = arc / n_arc
     mid_len = length - 2.0 * w
     n_mid, alpha = 0, 0.0
@@ -71,7 +83,14 @@ def _fillet_plan(length: float, h: float, fillet: float) -> tuple[float, int, in
 
 
 def interval_node_count(
-    a: float, b: float, h: float, level: int, *, grade: float, fillet: float
+    a: float,
+    b: float,
+    h: float,
+    level: int,
+    *,
+    grade: float,
+    fillet: float,
+    arc_steps: int = ARC_STEPS,
 ) -> float:
     """Nodes :func:`interval_nodes` would make (an upper bound by the seams; inf when the
     interval holds more than about 1e12 level-0 steps). Nothing is allocated."""
@@ -81,25 +100,42 @@ def interval_node_count(
     steps = 2**level
     if fillet <= 0:
         return float(_sharp_steps(length, h, grade) * steps + 1)
-    _, n_arc, n_mid, _ = _fillet_plan(length, h, fillet)
+    _, n_arc, n_mid, _ = _fillet_plan(length, h, fillet, arc_steps)
     strips = 2 * (n_arc * steps + 1)
     # The strips share their inner ends with the middle part (or with each other).
     return float(strips + n_mid * steps - 1 if n_mid else strips - 1)
 
 
 def axis_node_count(
-    breaks: list[float], h: float, level: int, *, fillet: float, grade: float
+    breaks: list[float],
+    h: float,
+    level: int,
+    *,
+    fillet: float,
+    grade: float,
+    arc_steps: int = ARC_STEPS,
+    centred: bool = False,
 ) -> float:
-    """Nodes :func:`axis_nodes` would make through ``breaks`` (see :func:`interval_node_count`)."""
+    """Nodes :func:`axis_nodes` would make through ``breaks`` (see :func:`interval_node_count`;
+    one more when ``centred`` may add the node 0)."""
     pieces = [
-        interval_node_count(breaks[k], breaks[k + 1], h, level, grade=grade, fillet=fillet)
+        interval_node_count(
+            breaks[k], breaks[k + 1], h, level, grade=grade, fillet=fillet, arc_steps=arc_steps
+        )
         for k in range(len(breaks) - 1)
     ]
-    return sum(pieces) - (len(pieces) - 1)
+    return sum(pieces) - (len(pieces) - 1) + (1 if centred else 0)
 
 
 def interval_nodes(
-    a: float, b: float, h: float, level: int, *, grade: float, fillet: float
+    a: float,
+    b: float,
+    h: float,
+    level: int,
+    *,
+    grade: float,
+    fillet: float,
+    arc_steps: int = ARC_STEPS,
 ) -> np.ndarray:
     """Nodes on [a, b] (metres) with both ends at edges of the solid.
 
@@ -108,7 +144,8 @@ def interval_nodes(
     end whose nodes follow x = w (1 - tan(theta)), theta uniform in [0, pi/4], so that the
     rounding map of a box puts them at equal angles on the fillet's quarter circle (half of
     the quarter lies on each face); between the strips a cosine grading brings the step from
-    the fillet's arc step up to ``h``. Steps halve with every level.
+    the fillet's arc step up to ``h``; each strip has :func:`fillet_arc_steps` steps at
+    level 0. Steps halve with every level.
     """
     steps = 2**level
     length = b - a
@@ -117,7 +154,7 @@ def interval_nodes(
         s = np.linspace(0.0, 1.0, n * steps + 1)
         x = a + length * polynomial_grading(s, grade)
     else:
-        w, n_arc, n_mid, alpha = _fillet_plan(length, h, fillet)
+        w, n_arc, n_mid, alpha = _fillet_plan(length, h, fillet, arc_steps)
         theta = np.linspace(0.0, 0.25 * math.pi, n_arc * steps + 1)
         off = w * (1.0 - np.tan(theta))
         parts = [(a + off)[::-1]]
@@ -135,13 +172,32 @@ def interval_nodes(
 
 
 def axis_nodes(
-    breaks: list[float], h: float, level: int, *, fillet: float, grade: float
+    breaks: list[float],
+    h: float,
+    level: int,
+    *,
+    fillet: float,
+    grade: float,
+    arc_steps: int = ARC_STEPS,
+    centred: bool = False,
 ) -> np.ndarray:
-    """Nodes along one axis through ``breaks`` (faces of the solid), graded toward each."""
+    """Nodes along one axis through ``breaks`` (faces of the solid), graded toward each.
+
+    ``centred``: breaks symmetric about 0 get a node at 0 (one cell is split in two where
+    needed), so that a solid symmetric in that axis gets a mirror-symmetric grid whose cells
+    do not straddle the mirror plane. Finer levels keep it (their nodes contain the coarser).
+    """
     pieces = [
-        interval_nodes(breaks[k], breaks[k + 1], h, level, grade=grade, fillet=fillet)
+        interval_nodes(
+            breaks[k], breaks[k + 1], h, level, grade=grade, fillet=fillet, arc_steps=arc_steps
+        )
         for k in range(len(breaks) - 1)
     ]
     x = np.unique(np.concatenate(pieces))
     span = breaks[-1] - breaks[0]
-    return x[np.concatenate([[True], np.diff(x) > 1e-12 * span])]
+    x = x[np.concatenate([[True], np.diff(x) > 1e-12 * span])]
+    if centred and breaks[0] < 0.0 < breaks[-1] and abs(breaks[0] + breaks[-1]) <= 1e-12 * span:
+        # Make the nodes exactly symmetric (the pieces are mirror images up to round-off).
+        half = x[x > 1e-12 * span]
+        x = np.concatenate([-half[::-1], [0.0], half])
+    return x

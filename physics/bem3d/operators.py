@@ -161,6 +161,14 @@ def near_matrix(
     )
 
 
+def incomplete_lu(near: sp.csc_matrix) -> spla.SuperLU:
+    """The GMRES preconditioner: an incomplete LU of the near-field matrix."""
+    try:
+        return spla.spilu(near, drop_tol=1e-3, fill_factor=2.0)
+    except RuntimeError as exc:
+        raise SolverError(f"the near-field preconditioner failed ({exc}); check the mesh") from None
+
+
 @dataclass
 class SolveStats:
     """How one level was solved: method, sizes, iterations per excitation, seconds spent."""
@@ -179,6 +187,7 @@ class FastOperator:
     def __init__(self, panels: PanelSet, *, tol: float) -> None:
         t0 = time.perf_counter()
         self.panels = panels
+        self.n = panels.n
         nc = panels.n_conductor_panels
         self.n_potential_rows = nc
         if nc == panels.n:
@@ -194,12 +203,7 @@ class FastOperator:
             self._gauss = gauss_diagonal(panels, self.derivative_hmatrix.rmatvec)
         gauss = None if self.derivative_hmatrix is None else self._gauss
         near = near_matrix(panels, PRECONDITIONER_FACTOR, gauss).tocsc()
-        try:
-            self.ilu = spla.spilu(near, drop_tol=1e-3, fill_factor=2.0)
-        except RuntimeError as exc:
-            raise SolverError(
-                f"the near-field preconditioner failed ({exc}); check the mesh"
-            ) from None
+        self.ilu = incomplete_lu(near)
         self.setup_s = time.perf_counter() - t0
         stored = self.hmatrix.nbytes
         if self.derivative_hmatrix is not None:
@@ -221,7 +225,7 @@ class FastOperator:
     ) -> np.ndarray:
         """Solve A x = rhs for every column of rhs (N, K) by preconditioned GMRES, starting
         from the columns of ``x0`` (N, K) when given."""
-        n = self.panels.n
+        n = self.n
         op = spla.LinearOperator((n, n), matvec=self.matvec, dtype=float)
         pre = spla.LinearOperator((n, n), matvec=self.ilu.solve, dtype=float)
         out = np.zeros_like(rhs)

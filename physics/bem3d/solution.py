@@ -22,6 +22,7 @@ from elopt.physics.bem3d.evaluate import directional_derivative, potential_and_g
 from elopt.physics.bem3d.operators import SolveStats
 from elopt.physics.bem3d.panels import PanelSet
 from elopt.physics.bem3d.plane_rule import plane_rule
+from elopt.physics.bem3d.symmetry import mirror_symmetry, point_orbits
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
 from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
@@ -239,7 +240,12 @@ class PanelSolution(ChargeSolution):
     @cached_property
     def _plane_unit_on_rule(self) -> np.ndarray:
         xy, _ = self._plane_rule
-        return self._plane_unit_density(xy)
+        # Mirror-symmetric panels carry symmetric unit densities: one point per orbit will do.
+        sym = mirror_symmetry(self.panels)
+        points = None if sym is None else point_orbits(xy, sym.planes, self.panels.mesh.size_m)
+        if points is None:
+            return self._plane_unit_density(xy)
+        return self._plane_unit_density(xy[points.reps])[points.orbit]
 
     def plane_quadrature(self) -> tuple[np.ndarray, np.ndarray]:
         """The rule the plane integrals use: points (Q, 2) in m and weights (Q,) in m^2."""

@@ -63,6 +63,12 @@ from elopt.physics.bem3d.operators import (
 )
 from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
+from elopt.physics.bem3d.symmetry import (
+    MirrorSymmetry,
+    ReducedFastOperator,
+    mirror_symmetry,
+    reduced_matrix,
+)
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
 from elopt.physics.refinement import (
@@ -79,8 +85,11 @@ DENSE_MAX_PANELS = 4_000
 Method = Literal["auto", "dense", "fast"]
 
 
-def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
-    """Peak bytes a level will need: the dense N^2 matrix, or the compressed one.
+def estimate_memory_bytes(
+    panels: PanelSet, method: str, n_columns: int, n_reduced: int | None = None
+) -> int:
+    """Peak bytes a level will need: the dense N^2 matrix (R^2 for ``n_reduced`` = R
+    unknowns left by a mirror symmetry), or the compressed one (R / N of it).
 
     The compressed matrix is estimated per panel as 5 kB of dense near blocks plus 0.5 kB per
     tree level of low-rank factors (measured on spheres and boxes from 5e3 to 2e5 panels), and
@@ -93,7 +102,8 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     n = panels.n
     base = 600 * n + 16 * n * n_columns
     if method == "dense":
-        return base + 8 * n * n
+        r = n if n_reduced is None else n_reduced
+        return base + 8 * r * r
     _, centroids, _, diams = panels.kernel_arrays
     rng = np.random.default_rng(0)
     sample = rng.choice(n, size=min(n, 2000), replace=False)
@@ -101,8 +111,9 @@ def estimate_memory_bytes(panels: PanelSet, method: str, n_columns: int) -> int:
     ti, _ = near_pairs(centroids, centroids[sample], PRECONDITIONER_FACTOR * diams[sample])
     pre = images * len(ti) * n / len(sample)
     levels = max(1.0, math.log2(max(n, 64) / 32.0))
+    share = 1.0 if n_reduced is None else n_reduced / n
     two_kinds = 1.25 if panels.n_conductor_panels < n else 1.0
-    return int(base + two_kinds * n * (5000 + 500 * levels) + pre * (56 + 12 * 6))
+    return int(base + share * (two_kinds * n * (5000 + 500 * levels) + pre * (56 + 12 * 6)))
 
 
 def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
@@ -137,23 +148,31 @@ def solve_level(
     gmres_rtol: float,
     aca_tol: float,
     previous: LevelResult3D | None = None,
+    symmetry: MirrorSymmetry | None = None,
 ) -> LevelResult3D:
-    """Solve every excitation column on one level (dense LU or preconditioned GMRES)."""
+    """Solve every excitation column on one level (dense LU or preconditioned GMRES), on one
+    panel per orbit of a ``symmetry`` when given (:mod:`.symmetry`)."""
     eps = layout.eps_F_per_m
     rhs = _rhs(layout, panels)
     stats = SolveStats(method=method, n_panels=panels.n)
     t0 = time.perf_counter()
     if method == "dense":
-        a = dense_matrix(panels)
+        a = dense_matrix(panels) if symmetry is None else reduced_matrix(panels, symmetry)
         if not np.all(np.isfinite(a)):
             raise SolverError("collocation matrix has non-finite entries; check the mesh")
         stats.setup_s = time.perf_counter() - t0
         t1 = time.perf_counter()
         lu = scipy.linalg.lu_factor(a, overwrite_a=True, check_finite=False)
-        x = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
+        if symmetry is None:
+            x = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
+        else:
+            x = scipy.linalg.lu_solve(lu, rhs[symmetry.reps], check_finite=False)[symmetry.orbit]
         stats.solve_s = time.perf_counter() - t1
     else:
-        op = FastOperator(panels, tol=aca_tol)
+        if symmetry is None:
+            op = FastOperator(panels, tol=aca_tol)
+        else:
+            op = ReducedFastOperator(panels, symmetry, tol=aca_tol)
         stats.setup_s = op.setup_s
         stats.stored_bytes = op.stored_bytes
         x0 = None
@@ -216,6 +235,7 @@ def solve_3d(
     memory_limit_bytes: int | None = None,
     aca_tol: float | None = None,
     check: bool = True,
+    symmetry: bool = True,
     **overrides: Any,
 ) -> PanelSolution:
     """Solve a layout of 3-D surfaces (every conductor's and dielectric region's shape a
@@ -227,7 +247,10 @@ def solve_3d(
     panel size); ``order`` is not used (one constant density per flat triangle). ``method``
     "auto" solves levels of up to :data:`DENSE_MAX_PANELS` panels densely, larger ones fast.
     ``memory_limit_bytes`` defaults to 80 % of the available memory; ``aca_tol`` (compression
-    tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh.
+    tolerance of the hierarchical matrix) to 0.3 rel_accuracy; ``check`` validates every mesh;
+    ``symmetry`` lets a level whose panels are mirror symmetric in x and/or y be solved on one
+    panel per orbit ("auto" then compares the orbit count with the dense limit; conductors
+    only, see :mod:`.symmetry`).
     Planar layers (``layout.layers``) enter through the layered Green's function of
     :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
     """
@@ -249,9 +272,11 @@ def solve_3d(
 
     def plan(level: int) -> LevelPlan:
         panels = discretise(layout, level, check=check)
+        sym = mirror_symmetry(panels) if symmetry else None
+        n_solved = panels.n if sym is None else sym.n_reduced
         chosen = method
         if method == "auto":
-            chosen = "dense" if panels.n <= DENSE_MAX_PANELS else "fast"
+            chosen = "dense" if n_solved <= DENSE_MAX_PANELS else "fast"
         if panels.background is not None:
             chosen = layered_method(method)
 
@@ -263,9 +288,10 @@ def solve_3d(
                 gmres_rtol=gmres_rtol,
                 aca_tol=aca,
                 previous=previous,
+                symmetry=sym,
             )
 
-        need = estimate_memory_bytes(panels, chosen, n_columns)
+        need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
         if panels.background is not None:
             need += extra_dense_bytes(panels.n)
         note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")

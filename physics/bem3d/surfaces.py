@@ -17,7 +17,7 @@ from functools import lru_cache
 import numpy as np
 
 from elopt.physics.bem3d import generators as gen
-from elopt.physics.bem3d.grading import axis_node_count
+from elopt.physics.bem3d.grading import ARC_STEPS, axis_node_count
 from elopt.physics.bem3d.mesh import TriangleMesh
 from elopt.physics.errors import SolverError
 
@@ -31,11 +31,14 @@ def _box_panels(nx: float, ny: float, nz: float) -> float:
     return 4.0 * ((nx - 1) * (ny - 1) + (ny - 1) * (nz - 1) + (nx - 1) * (nz - 1))
 
 
-def _frame_axes(outer_m, hole_m, h_m, level, fillet_m, grade) -> tuple[float, float]:
+def _frame_axes(
+    outer_m, hole_m, h_m, level, fillet_m, grade, arc_steps=ARC_STEPS, centred=False
+) -> tuple[float, float]:
     ox, oy = 0.5 * outer_m[0], 0.5 * outer_m[1]
     ix, iy = 0.5 * hole_m[0], 0.5 * hole_m[1]
-    nx = axis_node_count([-ox, -ix, ix, ox], h_m, level, fillet=fillet_m, grade=grade)
-    ny = axis_node_count([-oy, -iy, iy, oy], h_m, level, fillet=fillet_m, grade=grade)
+    kw = {"fillet": fillet_m, "grade": grade, "arc_steps": arc_steps, "centred": centred}
+    nx = axis_node_count([-ox, -ix, ix, ox], h_m, level, **kw)
+    ny = axis_node_count([-oy, -iy, iy, oy], h_m, level, **kw)
     return nx, ny
 
 
@@ -168,13 +171,17 @@ class TorusSurface(Surface):
 @dataclass(frozen=True)
 class BoxSurface(Surface):
     """Rectangular box, edge lengths ``size_m``, step ``h_m`` at level 0, edges rounded by
-    ``fillet_m`` (0: sharp, steps graded toward the edges with exponent ``grade``)."""
+    ``fillet_m`` (0: sharp, steps graded toward the edges with exponent ``grade``);
+    ``arc_steps``, ``secant``, ``centred`` as in :func:`elopt.physics.bem3d.generators.box_mesh`."""
 
     size_m: tuple[float, float, float]
     h_m: float
     center_m: tuple[float, float, float] = (0.0, 0.0, 0.0)
     fillet_m: float = 0.0
     grade: float = 2.0
+    arc_steps: int = ARC_STEPS
+    secant: bool = False
+    centred: bool = False
 
     @property
     def smooth(self) -> bool:  # type: ignore[override]
@@ -183,7 +190,13 @@ class BoxSurface(Surface):
     def estimated_panels(self, level: int) -> float:
         n = [
             axis_node_count(
-                [c - 0.5 * a, c + 0.5 * a], self.h_m, level, fillet=self.fillet_m, grade=self.grade
+                [c - 0.5 * a, c + 0.5 * a],
+                self.h_m,
+                level,
+                fillet=self.fillet_m,
+                grade=self.grade,
+                arc_steps=self.arc_steps,
+                centred=self.centred,
             )
             for a, c in zip(self.size_m, self.center_m, strict=True)
         ]
@@ -197,13 +210,17 @@ class BoxSurface(Surface):
             center_m=self.center_m,
             fillet_m=self.fillet_m,
             grade=self.grade,
+            arc_steps=self.arc_steps,
+            secant=self.secant,
+            centred=self.centred,
         )
 
 
 @dataclass(frozen=True)
 class FrameSurface(Surface):
     """Rectangular frame on the z axis: outer and hole sizes (x, y), bottom at ``z0_m``,
-    ``thickness_m`` thick, convex edges rounded by ``fillet_m``."""
+    ``thickness_m`` thick, convex edges rounded by ``fillet_m`` (``arc_steps``, ``secant``,
+    ``centred`` as in :func:`elopt.physics.bem3d.generators.box_mesh`)."""
 
     outer_m: tuple[float, float]
     hole_m: tuple[float, float]
@@ -212,16 +229,29 @@ class FrameSurface(Surface):
     h_m: float
     fillet_m: float = 0.0
     grade: float = 2.0
+    arc_steps: int = ARC_STEPS
+    secant: bool = False
+    centred: bool = False
     smooth = False
 
     def estimated_panels(self, level: int) -> float:
-        nx, ny = _frame_axes(self.outer_m, self.hole_m, self.h_m, level, self.fillet_m, self.grade)
+        nx, ny = _frame_axes(
+            self.outer_m,
+            self.hole_m,
+            self.h_m,
+            level,
+            self.fillet_m,
+            self.grade,
+            self.arc_steps,
+            self.centred,
+        )
         nz = axis_node_count(
             [self.z0_m, self.z0_m + self.thickness_m],
             self.h_m,
             level,
             fillet=self.fillet_m,
             grade=self.grade,
+            arc_steps=self.arc_steps,
         )
         return _box_panels(nx, ny, nz) + 4.0 * (nx + ny) * (nz - 1)  # + the hole's walls
 
@@ -235,6 +265,9 @@ class FrameSurface(Surface):
             level,
             fillet_m=self.fillet_m,
             grade=self.grade,
+            arc_steps=self.arc_steps,
+            secant=self.secant,
+            centred=self.centred,
         )
 
 
