@@ -73,6 +73,10 @@ def test_plain_progress_lines(tmp_path):
     assert len(quiet.getvalue().splitlines()) == 1  # nothing until the period passes
     periodic.finished(state, "budget")
     assert quiet.getvalue().splitlines()[-1] == summary_line(state)
+    state.workers = 1
+    one = io.StringIO()
+    PlainProgress(one, every_s=0).started(state)
+    assert ", 1 worker, sampler " in one.getvalue()
 
 
 def test_rich_progress_renders_budget_and_best(tmp_path):

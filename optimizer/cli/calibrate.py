@@ -79,7 +79,11 @@ def calibrate_command(args: argparse.Namespace) -> int:
     family = get_family(spec.family)
     nominal = getattr(spec.params, args.param, None)
     if not isinstance(nominal, int | float) or isinstance(nominal, bool):
-        names = [n for n in vars(spec.params) if isinstance(getattr(spec.params, n), int | float)]
+        names = [
+            n
+            for n, v in vars(spec.params).items()
+            if isinstance(v, int | float) and not isinstance(v, bool)
+        ]
         raise ConfigError(
             f"--param {args.param}: not a number parameter of {spec.family}; choose from {', '.join(names)}"
         )

@@ -12,8 +12,8 @@ def add_parser(subparsers: Any) -> None:
         "families",
         help="list the electrode families: parameters with units and ranges, options, metrics",
         description="List every electrode family a config can name in [geometry] family (solve) "
-        "or [study] family (run): its parameters with their units, defaults and allowed "
-        "ranges, its [evaluation] options and the metrics a study can use as objectives or "
+        "or [study] family (run): its parameters with their units, defaults, allowed "
+        "ranges and meanings, its [evaluation] options and the metrics a study can use as objectives or "
         "constraints.",
     )
     p.add_argument("name", nargs="?", metavar="NAME", help="show only this family")

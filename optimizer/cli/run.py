@@ -44,7 +44,13 @@ def add_parser(subparsers: Any) -> None:
     )
     run.add_argument("config", metavar="STUDY.toml")
     run.add_argument("--out", metavar="FILE.h5", help="study file (default studies/<name>.h5)")
-    run.add_argument("--overwrite", action="store_true", help="replace an existing study file")
+    run.add_argument(
+        "--overwrite",
+        "--force",
+        dest="overwrite",
+        action="store_true",
+        help="replace an existing study file (--force as in the other verbs)",
+    )
     _budget_args(run)
     run.set_defaults(func=run_command)
 
@@ -68,18 +74,18 @@ def add_parser(subparsers: Any) -> None:
 
 
 def _budget_args(p: argparse.ArgumentParser, more: bool = False) -> None:
-    word = "more " if more else ""
+    word = " more" if more else ""
     p.add_argument(
         "--trials",
         type=int,
         metavar="N",
-        help=f"run {word}N finished trials (replaces the config's budget, hours included)",
+        help=f"run N{word} finished trials (replaces the config's budget, hours included)",
     )
     p.add_argument(
         "--hours",
         type=float,
         metavar="H",
-        help=f"run for {word}H hours at most (replaces the config's budget, trials included)",
+        help=f"run for at most H{word} hours (replaces the config's budget, trials included)",
     )
     p.add_argument(
         "--workers", type=int, metavar="N", help="worker processes (default: one per core)"

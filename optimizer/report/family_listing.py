@@ -12,6 +12,7 @@ from rich.table import Table
 from rich.text import Text
 
 from elopt.optimizer.errors import ConfigError
+from elopt.optimizer.report.numbers import shown_unit
 from elopt.physics.electrodes.base import ParameterSpec
 
 
@@ -22,6 +23,7 @@ class FieldRow:
     default: str
     unit: str
     allowed: str
+    meaning: str
 
 
 @dataclass(frozen=True)
@@ -45,7 +47,7 @@ def _rows(specs: tuple[ParameterSpec, ...]) -> tuple[FieldRow, ...]:
             default = str(s.default)
         else:
             default = "(table)"
-        out.append(FieldRow(s.name, s.type_name, default, s.unit or "-", s.allowed))
+        out.append(FieldRow(s.name, s.type_name, default, shown_unit(s.unit), s.allowed, s.meaning))
     return tuple(out)
 
 
@@ -60,7 +62,9 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
             summary=info.summary,
             parameters=_rows(info.parameters),
             options=_rows(info.options),
-            metrics=tuple((m.name, m.unit, m.sense, m.description) for m in info.metrics),
+            metrics=tuple(
+                (m.name, shown_unit(m.unit), m.sense, m.description) for m in info.metrics
+            ),
         )
         for info in family_listing()
         if only is None or info.name == only
@@ -69,10 +73,11 @@ def family_descriptions(only: str | None = None) -> list[FamilyDescription]:
 
 def _field_table(title: str, rows: tuple[FieldRow, ...]) -> Table:
     t = Table(title=title, title_justify="left", show_edge=False, pad_edge=False)
-    for col in ("name", "type", "default", "unit", "allowed"):
+    t.add_column("name", overflow="fold")
+    for col in ("type", "default", "unit", "allowed", "meaning"):
         t.add_column(col)
     for r in rows:
-        t.add_row(r.name, r.kind, r.default, r.unit, r.allowed)
+        t.add_row(r.name, r.kind, r.default, r.unit, r.allowed, r.meaning)
     return t
 
 
@@ -93,7 +98,8 @@ def render_families(console: Console, families: list[FamilyDescription]) -> None
             show_edge=False,
             pad_edge=False,
         )
-        for col in ("name", "unit", "usually", "meaning"):
+        t.add_column("name", overflow="fold")
+        for col in ("unit", "usually", "meaning"):
             t.add_column(col)
         for name, unit, sense, meaning in d.metrics:
             t.add_row(name, unit, sense, meaning)

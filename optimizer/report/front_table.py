@@ -12,7 +12,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from elopt.optimizer.report.numbers import ARROW, short_number, wrapped_name
+from elopt.optimizer.report.numbers import ARROW, short_number, shown_unit, wrapped_name
 from elopt.optimizer.report.study_view import (
     axis_label,
     checked_name,
@@ -142,17 +142,19 @@ def front_table(
         zip(h.objective_names, h.objective_directions, h.objective_units, strict=True)
     ):
         cells = [short_number(v) for v in c["objectives"][rows, k]]
-        columns.append((name, _header(name, f"{ARROW[d]} ({unit})"), cells))
+        tag = ARROW[d] if not shown_unit(unit) else f"{ARROW[d]} ({unit})"
+        columns.append((name, _header(name, tag), cells))
     optional: list[tuple[str, str, list[str]]] = []
     for m in constrained:
         k = h.metric_names.index(m)
         cells = [short_number(v) for v in c["metrics"][rows, k]]
-        optional.append((m, _header(m, f"({h.metric_units[k]})"), cells))
+        unit = h.metric_units[k]
+        optional.append((m, _header(m, None if not shown_unit(unit) else f"({unit})"), cells))
     for n in searched:
         k = h.parameter_names.index(n)
         unit = h.parameter_units[k]
         cells = [short_number(v) for v in c["params"][rows, k]]
-        optional.append((n, _header(n, f"({unit})" if unit else None), cells))
+        optional.append((n, _header(n, None if not shown_unit(unit) else f"({unit})"), cells))
 
     def needed(col: tuple[str, str, list[str]]) -> int:
         head = max(len(line) for line in col[1].split("\n"))

@@ -12,9 +12,14 @@ from typing import Any
 
 from elopt.optimizer import __version__
 from elopt.optimizer.report import figure_files as ff
-from elopt.optimizer.report.numbers import ARROW, short_number
+from elopt.optimizer.report.numbers import ARROW, short_number, shown_unit
 from elopt.optimizer.report.study_figures import FIGURE_MAKERS
-from elopt.optimizer.report.study_view import front_numbers, study_caution, study_counts
+from elopt.optimizer.report.study_view import (
+    fixed_words,
+    front_numbers,
+    study_caution,
+    study_counts,
+)
 from elopt.optimizer.store import StudySnapshot
 
 #: Rows of the front table on the page (the CSV/JSON exports hold them all).
@@ -83,17 +88,17 @@ def _front_table(snap: StudySnapshot) -> str:
     searched = [k for k, s in enumerate(h.parameter_searched) if s]
     head = ["<th>trial</th>"]
     head += [
-        f"<th>{_name(n)}<br><small>{ARROW[d]} ({_e(u)})</small></th>"
+        f"<th>{_name(n)}<br><small>{ARROW[d]}{_unit_tag(u)}</small></th>"
         for n, d, u in zip(
             h.objective_names, h.objective_directions, h.objective_units, strict=True
         )
     ]
     head += [
-        f"<th>{_name(m)}<br><small>({_e(h.metric_units[h.metric_names.index(m)])})</small></th>"
+        f"<th>{_name(m)}<br><small>{_unit_tag(h.metric_units[h.metric_names.index(m)])}</small></th>"
         for m in constrained
     ]
     head += [
-        f"<th>{_name(h.parameter_names[k])}<br><small>({_e(h.parameter_units[k])})</small></th>"
+        f"<th>{_name(h.parameter_names[k])}<br><small>{_unit_tag(h.parameter_units[k])}</small></th>"
         for k in searched
     ]
     rows = []
@@ -121,8 +126,14 @@ def _front_table(snap: StudySnapshot) -> str:
     )
 
 
+def _unit_tag(unit: str) -> str:
+    """ " (mm)" after a column name; nothing for a pure number."""
+    return f" ({_e(shown_unit(unit))})" if shown_unit(unit) else ""
+
+
 def _setup_tables(snap: StudySnapshot) -> str:
     h = snap.header
+    words = fixed_words(h.config_toml)  # text and yes/no values are not numbers in the file
     rows = []
     for k, n in enumerate(h.parameter_names):
         if h.parameter_searched[k]:
@@ -131,15 +142,17 @@ def _setup_tables(snap: StudySnapshot) -> str:
             )
         else:
             rng = (
-                f"fixed at {short_number(float(snap.columns['params'][0, k]))}"
+                f"fixed at {words[n]}"
+                if n in words
+                else f"fixed at {short_number(float(snap.columns['params'][0, k]))}"
                 if snap.n_trials
                 else "fixed"
             )
         rows.append(
-            f"<tr><td>{_e(n)}</td><td>{_e(h.parameter_units[k])}</td><td>{_e(rng)}</td></tr>"
+            f"<tr><td>{_e(n)}</td><td>{_e(shown_unit(h.parameter_units[k]))}</td><td>{_e(rng)}</td></tr>"
         )
     limits = [
-        f"<tr><td>{_e(m)}</td><td>{'≤' if kind == 'max' else '≥'} {lim:g}</td><td>{_e(u)}</td></tr>"
+        f"<tr><td>{_e(m)}</td><td>{'≤' if kind == 'max' else '≥'} {lim:g}</td><td>{_e(shown_unit(u))}</td></tr>"
         for m, kind, lim, u in zip(
             h.constraint_metrics,
             h.constraint_kinds,

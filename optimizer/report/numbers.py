@@ -32,3 +32,8 @@ def wrapped_name(name: str, width: int = 12) -> str:
             line += piece
     lines.append(line)
     return "\n".join(lines)
+
+
+def shown_unit(unit: str) -> str:
+    """A declared unit as the tables show it: nothing for a pure number (declared "" or "1")."""
+    return "" if unit in ("", "1") else unit

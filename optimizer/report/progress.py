@@ -68,7 +68,8 @@ class PlainProgress:
         self._say(
             f"elopt: study {state.spec.name}: {state.n_stored} trials stored, target "
             f"{state.limits.target_trials if state.limits.target_trials is not None else '-'}"
-            f", {state.workers} workers, sampler {state.sampler_kind}"
+            f", {state.workers} worker{'' if state.workers == 1 else 's'}, "
+            f"sampler {state.sampler_kind}"
         )
 
     def trial_stored(self, state: RunState) -> None:

@@ -16,6 +16,7 @@ from rich.text import Text
 
 from elopt.optimizer.config import SolveSpec
 from elopt.optimizer.record import drive_of, solve_warnings
+from elopt.optimizer.report.numbers import shown_unit
 from elopt.optimizer.report.safety import high_voltage_caution
 from elopt.optimizer.report.section_picture import section_picture
 from elopt.optimizer.report.textplot import Series, line_plot
@@ -31,9 +32,12 @@ def _num(v: float) -> str:
     return f"{v:.4g}" if 1e-3 <= abs(v) < 1e6 or v == 0 else f"{v:.3e}"
 
 
-def _unit(unit: str) -> str:
-    """A unit as the tables show it: nothing for a pure number (declared as "1")."""
-    return "" if unit == "1" else unit
+def _percent(fraction: float) -> str:
+    """A relative change in per cent, two significant digits, no exponent (140%, 2.1%, 0.0034%)."""
+    pct = abs(100 * fraction)
+    if pct < 1e-3:
+        return "less than 0.001%"
+    return f"{pct:.0f}%" if pct >= 10 else f"{float(f'{pct:.2g}'):g}%"
 
 
 def _design_table(spec: SolveSpec) -> Table:
@@ -51,19 +55,28 @@ def _design_table(spec: SolveSpec) -> Table:
                     f"{f.name}: {getattr(item, 'name', '')}", str(getattr(item, "file", item)), ""
                 )
             continue
-        table.add_row(f.name, _num(float(value)), _unit(units[f.name]))
-    table.add_row("eps_r (medium)", _num(spec.eps_r), "")
+        if isinstance(value, bool):
+            shown = "true" if value else "false"  # as TOML writes it
+        else:
+            shown = value if isinstance(value, str) else _num(float(value))
+        table.add_row(f.name, shown, shown_unit(units[f.name]))
+    table.add_row("eps_r (medium)", _num(spec.eps_r), shown_unit(""))
     return table
 
 
 def _metrics_table(family: ElectrodeFamily, evaluation: Evaluation) -> Table:
     table = Table(title="Metrics", title_justify="left", show_edge=False, pad_edge=False)
-    table.add_column("metric")
+    table.add_column("metric", overflow="fold")  # the exact name a study config spells
     table.add_column("value", justify="right", style="bold")
     table.add_column("unit")
     table.add_column("meaning", style="dim")
+    # The family's own words for its sense capacitance (a mesh_file design has no guard).
+    sense_meaning = str(evaluation.extra.get("sense_capacitance_meaning", ""))
     for m in family.metrics:
-        table.add_row(m.name, _num(evaluation.metrics[m.name]), _unit(m.unit), m.description)
+        meaning = sense_meaning if m.name == "sense_capacitance_fF" and sense_meaning else None
+        table.add_row(
+            m.name, _num(evaluation.metrics[m.name]), shown_unit(m.unit), meaning or m.description
+        )
     return table
 
 
@@ -71,6 +84,8 @@ def _capacitance_table(evaluation: Evaluation) -> Table:
     sol = evaluation.solution
     c = sol.capacitance_matrix_F
     scale, unit = (1e15, "fF") if np.max(np.abs(c)) < 1e-11 else (1e12, "pF")
+    if getattr(sol, "planar", False):
+        unit += "/m"  # a cross-section's matrix is per metre of length
     table = Table(
         title=f"Capacitance matrix ({unit})",
         title_justify="left",
@@ -97,7 +112,7 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
     )
     if np.isfinite(peak.rel_error_estimate):
         line.append(
-            f"   (changed {100 * peak.rel_error_estimate:.2g}% on the last refinement)", style="dim"
+            f"   (changed {_percent(peak.rel_error_estimate)} on the last refinement)", style="dim"
         )
     planar = bool(getattr(evaluation.solution, "planar", False))
     names = ("x", "z") if planar else ("r", "z") if len(where) == 2 else ("x", "y", "z")

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import os
 import socket
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -193,3 +194,15 @@ def study_caution(snap: StudySnapshot) -> str | None:
     if h.parameter_searched[k]:
         top = max(top, abs(h.search_low[k]), abs(h.search_high[k]))
     return high_voltage_caution(top)
+
+
+def fixed_words(config_toml: str) -> dict[str, str]:
+    """The text and yes/no values of a study config's [fixed] table, written as TOML writes
+    them (name -> "round", "true"); the study file holds numbers only."""
+    try:
+        fixed = tomllib.loads(config_toml).get("fixed", {})
+    except tomllib.TOMLDecodeError:
+        return {}
+    words = {k: ("true" if v else "false") for k, v in fixed.items() if isinstance(v, bool)}
+    words.update({k: v for k, v in fixed.items() if isinstance(v, str)})
+    return words

@@ -10,8 +10,8 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from elopt.optimizer.report.numbers import ARROW, short_number
-from elopt.optimizer.report.study_view import front_numbers, reruns, study_caution
+from elopt.optimizer.report.numbers import short_number, shown_unit
+from elopt.optimizer.report.study_view import fixed_words, front_numbers, reruns, study_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store import StudySnapshot, TrialArrays
 
@@ -40,34 +40,42 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     if "rerun_of" in info:
         console.print(f"re-run of interrupted trial {info['rerun_of']}")
 
+    # Text and yes/no values are not numbers in the study file: show them as the config wrote them.
+    written = fixed_words(h.config_toml)
     params = Table(title="parameters", title_justify="left")
     for col in ("name", "value", "unit", "range"):
-        params.add_column(col, justify="right" if col == "value" else "left")
+        params.add_column(col, justify="right" if col == "value" else "left", overflow="fold")
     for k, name in enumerate(h.parameter_names):
         rng = (
             f"[{h.search_low[k]:g}, {h.search_high[k]:g}]{' log' if h.search_log[k] else ''}"
             if h.parameter_searched[k]
             else "fixed"
         )
-        params.add_row(name, short_number(c["params"][number, k]), h.parameter_units[k], rng)
+        value = short_number(c["params"][number, k])
+        if name in written and not h.parameter_searched[k]:
+            value = written[name]
+        params.add_row(name, value, shown_unit(h.parameter_units[k]), rng)
     console.print(params)
     if state != "complete":
         return
 
     metrics = Table(title="metrics", title_justify="left")
     for col in ("name", "value", "unit", "role"):
-        metrics.add_column(col, justify="right" if col == "value" else "left")
+        metrics.add_column(col, justify="right" if col == "value" else "left", overflow="fold")
     for k, name in enumerate(h.metric_names):
         roles = []
         if name in h.objective_names:
-            roles.append(ARROW[h.objective_directions[h.objective_names.index(name)]] + "imise")
+            roles.append(h.objective_directions[h.objective_names.index(name)])
         for j, cm in enumerate(h.constraint_metrics):
             if cm == name:
                 ok = c["constraints"][number, j] <= 0
                 sign = "<=" if h.constraint_kinds[j] == "max" else ">="
                 roles.append(f"{sign} {h.constraint_limits[j]:g}: {'ok' if ok else 'VIOLATED'}")
         metrics.add_row(
-            name, short_number(c["metrics"][number, k]), h.metric_units[k], ", ".join(roles)
+            name,
+            short_number(c["metrics"][number, k]),
+            shown_unit(h.metric_units[k]),
+            ", ".join(roles),
         )
     console.print(metrics)
     tolerance = info.get("tolerance")
@@ -117,7 +125,11 @@ def _tolerance_table(console: Console, h, c, number: int, tolerance: dict) -> No
     drivers = tolerance.get("driver", {})
     table = Table(title="across tolerances (the roles above judge these)", title_justify="left")
     for col in ("name", "nominal", "toleranced", "unit", "driven by"):
-        table.add_column(col, justify="right" if col in ("nominal", "toleranced") else "left")
+        table.add_column(
+            col,
+            justify="right" if col in ("nominal", "toleranced") else "left",
+            overflow="fold",  # a metric's name is what a config spells: wrap it, never cut it
+        )
     for k, name in enumerate(h.metric_names):
         if name in judged:
             table.add_row(
