@@ -68,7 +68,6 @@ class DielectricSolution(ChargeSolution):
             raise SolverError(f"points must have shape (M, 2) of (r, z) in m, got {pts.shape}")
         if np.any(pts[:, 0] < 0):
             raise SolverError("points must have r >= 0")
-        self._fine.kernel.check_targets(pts)
         return pts
 
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
