@@ -54,10 +54,16 @@ pole of the reflection denominators (at k = ln|G G'| / (2d) < 0, near 0 at high 
 growing by at most half their left end (so exp(-k a) and the pole are resolved), then at most
 ``width`` wide.
 
-API (stable): :class:`Slab`, :class:`SpectralTerm`, :class:`StackSpectrum` (``slabs``,
-``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``quadrature``, ``exponent_range``,
-``panel_width``),
-:class:`HankelRule`, :func:`hankel_rule`, :data:`TAIL_TOL`.
+API (stable): :class:`Slab`, :class:`SpectralTerm` (``coef``, ``limit``, ``t_sign``,
+``t_ref``, ``s_sign``, ``s_ref``, ``bound``, ``decay``, ``direct``, ``target_length``,
+``source_length``), :class:`StackSpectrum` (``slabs``, ``n_slabs``, ``r_up``, ``r_dn``,
+``has_lo``, ``has_hi``, ``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``quadrature``,
+``exponent_range``, ``panel_width``, ``pole_distance``), :class:`HankelRule`,
+:func:`hankel_rule`, :data:`TAIL_TOL`. Typical use for a block of targets in slab t and
+sources in slab s: ``rule = sp.quadrature(t, s, zt, zs, r_max, tol)``; then for every term of
+``sp.terms(t, s, rule.k)`` add the exact image ``limit / sqrt(rho^2 + a^2)`` (a = the summed
+exponent lengths, or |z - z'| for ``direct``) and ``sum(rule.w * J0(k rho) * (coef - limit)
+* exp(-k a))`` (point charges; for rings J0(k r) J0(k r') r'/2 in place of J0(k rho)).
 """
 
 from __future__ import annotations

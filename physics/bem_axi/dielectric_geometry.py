@@ -6,6 +6,9 @@ the axis, along a conductor, along the ground plane or along another region. Onl
 that separate two dielectrics become interfaces (the axis bounds no area; a piece on a
 conductor or on the grounded plane carries the conductor's charge). A piece that lies only
 partly on a conductor or another region must be split where it leaves it; the error says so.
+A region may cross planar layer faces (its pieces split at each face); the part of a face
+inside it becomes an interface of its own (the region's medium on both sides, the background's
+permittivity jumping), see :func:`_face_chords`.
 """
 
 from __future__ import annotations

@@ -140,10 +140,32 @@ def dielectric_model(layout: Layout) -> DielectricModel:
         conductors.append(replace(cond, shape=curve))
     mesh_layout = Layout(tuple(conductors), eps_r=layout.eps_r, ground_plane=layout.ground_plane)
     chain_layouts = tuple(
-        Layout((driven(f"{ch.region}#{k}", ch.curve, 0.0),)) for k, ch in enumerate(geom.chains)
+        Layout((driven(f"{ch.region}#{k}", _graded_chain(ch.curve, geom, tol), 0.0),))
+        for k, ch in enumerate(geom.chains)
     )
     _check_layers(layout, size)
     return DielectricModel(layout, geom, mesh_layout, chain_layouts, size)
+
+
+def _graded_chain(curve: Curve, geom: DielectricGeometry, tol: float) -> Curve:
+    """The chain's curve, graded like a corner at smooth joints where another interface ends
+    (a layer face crossing a region meets its side there: the density is singular)."""
+    ends = [
+        np.asarray(e)
+        for ch in geom.chains
+        if ch.curve is not curve
+        for e in (ch.curve.start, ch.curve.end)
+    ]
+    if not ends:
+        return curve
+    ends_arr = np.asarray(ends)
+    n = len(curve.pieces)
+    joints = [
+        i
+        for i in range(n - 1 if curve.kind != "ring" else n)
+        if np.min(np.linalg.norm(ends_arr - np.asarray(curve.pieces[i].end), axis=1)) <= tol
+    ]
+    return _GradedCurve(curve.pieces, tuple(joints)) if joints else curve
 
 
 def _check_layers(layout: Layout, size: float) -> None:
@@ -341,18 +363,9 @@ def build_level_mesh(model: DielectricModel, level: int, order: int):
 def principal_value_normal_field(
     kernel: LayeredKernel, mesh: AxiMesh, rows: np.ndarray, delta: np.ndarray
 ) -> np.ndarray:
-    """(R, N) principal value of the normal field at nodes ``rows`` per q ds'/eps0.
-
-    M(d) = mean of the normal fields a distance d off both sides = PV + c d + O(d^2) (the
-    one-sided normal derivatives differ); Richardson 2 M(d) - M(2d) removes the linear term.
-    """
-    nrm = mesh.normals[rows]
-    pts = mesh.points_m[rows]
-    means = []
-    for d in (delta, 2 * delta):
-        f = kernel.field(mesh, pts + d * nrm) + kernel.field(mesh, pts - d * nrm)
-        means.append(0.5 * np.einsum("mnc,mc->mn", f, nrm))
-    return 2 * means[0] - means[1]
+    """(R, N) principal value of the normal field at nodes ``rows`` per q ds'/eps0
+    (:meth:`LayeredKernel.principal_value_normal_field`)."""
+    return kernel.principal_value_normal_field(mesh, rows, delta)
 
 
 def sheet_face_fields(

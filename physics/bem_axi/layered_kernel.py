@@ -133,16 +133,72 @@ class LayeredKernel:
         """(M, N, 2) field (E_r, E_z) at targets off the surfaces per q ds'/eps0."""
         return self._evaluate(mesh, targets, True)
 
+    def principal_value_normal_field(
+        self, mesh: AxiMesh, rows: np.ndarray, delta: np.ndarray
+    ) -> np.ndarray:
+        """(R, N) principal value of the normal field at nodes ``rows`` per q ds'/eps0.
+
+        M(d) = mean of the normal fields a distance d (``delta`` (R, 1) m) off both sides =
+        PV + c d + O(d^2) (the one-sided normal derivatives differ); Richardson 2 M(d) - M(2d)
+        removes the linear term. The spectral remainder is smooth through a node off the layer
+        faces, so there it is evaluated once, at the node.
+        """
+        nrm = mesh.normals[rows]
+        pts = mesh.points_m[rows]
+
+        def mean_normal(d: np.ndarray, remainder: bool) -> np.ndarray:
+            f = self._evaluate(mesh, pts + d * nrm, True, remainder)
+            f = f + self._evaluate(mesh, pts - d * nrm, True, remainder)
+            return 0.5 * np.einsum("mnc,mc->mn", f, nrm)
+
+        smooth = self.kind == "layered"
+        pv = 2 * mean_normal(delta, not smooth) - mean_normal(2 * delta, not smooth)
+        if smooth:
+            faces = self.stack.interfaces_m
+            on = np.any(
+                np.abs(pts[:, 1:2] - faces[None, :]) <= 4 * np.max(delta, axis=1, keepdims=True),
+                axis=1,
+            )
+            rem = np.zeros((len(rows), mesh.n_nodes, 2))
+            self._remainder(
+                rem, mesh, pts, self.spectrum.slab_of(pts[:, 1]), self._node_slabs(mesh), True
+            )
+            pv += np.einsum("mnc,mc->mn", rem, nrm) * ~on[:, None]
+            if np.any(on):
+                sel = np.nonzero(on)[0]
+                sub = self.principal_value_remainder(mesh, rows[sel], delta[sel])
+                pv[sel] += sub
+        return pv
+
+    def principal_value_remainder(
+        self, mesh: AxiMesh, rows: np.ndarray, delta: np.ndarray
+    ) -> np.ndarray:
+        """(R, N) Richardson mean normal field of the spectral remainder alone at nodes on a
+        layer face (there its normal component jumps with the background permittivity)."""
+        nrm = mesh.normals[rows]
+        pts = mesh.points_m[rows]
+        s_slab = self._node_slabs(mesh)
+        means = []
+        for d in (delta, 2 * delta):
+            f = np.zeros((len(rows), mesh.n_nodes, 2))
+            for side in (1.0, -1.0):
+                x = pts + side * d * nrm
+                self._remainder(f, mesh, x, self.spectrum.slab_of(x[:, 1]), s_slab, True)
+            means.append(0.5 * np.einsum("mnc,mc->mn", f, nrm))
+        return 2 * means[0] - means[1]
+
     def target_eps_r(self, z: np.ndarray) -> np.ndarray:
         """Permittivity of the background at target heights (M,), for D = eps E."""
         return self.stack.eps_r_at(np.asarray(z, float))
 
-    def _evaluate(self, mesh: AxiMesh, targets: np.ndarray, field: bool) -> np.ndarray:
+    def _evaluate(
+        self, mesh: AxiMesh, targets: np.ndarray, field: bool, remainder: bool = True
+    ) -> np.ndarray:
         t = np.ascontiguousarray(targets, float)
         build = field_matrix if field else potential_matrix
         if self.kind == "homogeneous":
             return build(mesh, t, self.stack.ground_plane) / self.eps_default
-        return self._layered(mesh, t, build(mesh, t, False), field)
+        return self._layered(mesh, t, build(mesh, t, False), field, remainder)
 
     # -- layered blocks ------------------------------------------------------------------------
     def _panel_slabs(self, mesh: AxiMesh) -> np.ndarray:
@@ -155,8 +211,16 @@ class LayeredKernel:
             z = np.where(hit, faces[np.argmax(near, axis=1)], z)
         return self.spectrum.slab_of(z)
 
+    def _node_slabs(self, mesh: AxiMesh) -> np.ndarray:
+        return np.repeat(self._panel_slabs(mesh), mesh.order)
+
     def _layered(
-        self, mesh: AxiMesh, targets: np.ndarray, direct: np.ndarray, field: bool
+        self,
+        mesh: AxiMesh,
+        targets: np.ndarray,
+        direct: np.ndarray,
+        field: bool,
+        remainder: bool = True,
     ) -> np.ndarray:
         sp = self.spectrum
         build = field_matrix if field else potential_matrix
@@ -191,7 +255,8 @@ class LayeredKernel:
                     # a source resting on the face is its own mirror image
                     img[:, on] = direct[rows][:, cols[on]]
                 out[np.ix_(rows, cols)] += (r / slab.eps_r) * img
-        self._remainder(out, mesh, targets, t_slab, s_slab, field)
+        if remainder:
+            self._remainder(out, mesh, targets, t_slab, s_slab, field)
         return out
 
     def _remainder(self, out, mesh, targets, t_slab, s_slab, field: bool) -> None:
@@ -216,16 +281,26 @@ class LayeredKernel:
                 kr = np.outer(tg[:, 0], k)
                 tj0 = j0(kr)
                 tj1 = j1(kr) * k if field else None
-                block = np.zeros((len(rows), len(cols), 2) if field else (len(rows), len(cols)))
+                # terms sharing a target factor share one product: sum their source sides
+                groups: dict[tuple[int, float], np.ndarray] = {}
+                src_exp: dict[tuple[int, float], np.ndarray] = {}
                 for term in sp.terms(int(t), int(s), k):
                     if term.direct:
                         continue
-                    wc = wk * (term.coef - term.limit)
-                    ua = np.exp(-np.outer(term.target_length(tg[:, 1]), k))
-                    vb = src_fac * np.exp(-np.outer(term.source_length(sc[:, 1]), k))
+                    key_s = (term.s_sign, term.s_ref)
+                    if key_s not in src_exp:
+                        src_exp[key_s] = src_fac * np.exp(
+                            -np.outer(term.source_length(sc[:, 1]), k)
+                        )
+                    side = src_exp[key_s] * (wk * (term.coef - term.limit))
+                    key_t = (term.t_sign, term.t_ref)
+                    groups[key_t] = groups[key_t] + side if key_t in groups else side
+                block = np.zeros((len(rows), len(cols), 2) if field else (len(rows), len(cols)))
+                for (t_sign, t_ref), side in groups.items():
+                    ua = np.exp(-np.outer(np.maximum(t_sign * (tg[:, 1] - t_ref), 0.0), k))
                     if not field:
-                        block += (tj0 * ua * wc) @ vb.T
+                        block += (tj0 * ua) @ side.T
                     else:
-                        block[..., 0] += (tj1 * ua * wc) @ vb.T
-                        block[..., 1] += (term.t_sign * tj0 * ua * (wc * k)) @ vb.T
+                        block[..., 0] += (tj1 * ua) @ side.T
+                        block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
                 out[np.ix_(rows, cols)] += block
