@@ -219,3 +219,30 @@ def test_region_crossing_a_layer_face_equals_two_regions_meeting_on_it(eps_ring)
     pts = np.array([[0.5, 0.15], [0.5, 0.3], [1.0, 0.1], [0.1, 0.5]])
     e1, e2 = s1.field_at(pts), s2.field_at(pts)
     np.testing.assert_allclose(e1, e2, atol=1e-4 * np.abs(e2).max())
+
+
+@pytest.mark.parametrize("eps_l", [5.0, 80.0])
+def test_grounded_small_sphere_in_an_applied_field_over_a_layer(eps_l):
+    # Grounded plane, a layer (thickness t, eps_l) on it, medium above, applied field E0 in the
+    # medium: the unperturbed potential is piecewise linear with D_z continuous,
+    # phi0(h) = -E0 (t / eps_l + (h - t)) at a height h above the layer (common practice, no
+    # source). A small grounded sphere (radius a) there takes the charge
+    # Q = -4 pi eps0 a phi0(h): a sphere of capacitance 4 pi eps0 a (docs/references.md item 1)
+    # held at 0 in a local potential phi0(h); the uniform part of the field induces only a
+    # dipole (common practice). Its own image in the plane and the layer changes Q by about
+    # a / (2 h) ~ 5e-4 relative.
+    e0, t, h, a = 1e3, 0.5, 1.0, 1e-3
+    layout = Layout(
+        (driven("sphere", geo.sphere(a, h), 0.0),),
+        ground_plane=True,
+        applied_field_V_per_m=e0,
+        layers=(PlanarLayer("layer", eps_l, 0.0, t),),
+    )
+    sol = solve_axisymmetric(layout, rel_accuracy=1e-6)
+    phi0 = -e0 * (t / eps_l + (h - t))
+    assert sol.charges_C[0] == pytest.approx(-4 * math.pi * EPS0 * a * phi0, rel=1e-3)
+    # far from the sphere (its charge and image form a dipole ~1 V m: ~1e-8 relative at r = 50)
+    # the field is E0 above and E0 / eps_l in the layer
+    far = np.array([[50.0, 0.25], [50.0, 2.0]])
+    np.testing.assert_allclose(sol.field_at(far)[:, 1], [e0 / eps_l, e0], rtol=1e-6)
+    np.testing.assert_allclose(sol.potential_at(far)[1], -e0 * (t / eps_l + 1.5), rtol=1e-6)
