@@ -227,10 +227,12 @@ def test_grounded_small_sphere_in_an_applied_field_over_a_layer(eps_l):
     # medium: the unperturbed potential is piecewise linear with D_z continuous,
     # phi0(h) = -E0 (t / eps_l + (h - t)) at a height h above the layer (common practice, no
     # source). A small grounded sphere (radius a) there takes the charge
-    # Q = -4 pi eps0 a phi0(h): a sphere of capacitance 4 pi eps0 a (docs/references.md item 1)
-    # held at 0 in a local potential phi0(h); the uniform part of the field induces only a
-    # dipole (common practice). Its own image in the plane and the layer changes Q by about
-    # a / (2 h) ~ 5e-4 relative.
+    # Q = -4 pi eps0 phi0(h) / (1/a + K): a sphere of capacitance 4 pi eps0 a (docs/references.md
+    # item 1) held at 0 in a local potential phi0(h), K the potential its images (film and
+    # plane; the series of docs/references.md item 15 repeated, as in test_layer_spectrum:
+    # r/(2(h - t)) - (1 - r^2) sum_n r^n / (2h + 2nt), r = (1 - eps_l)/(1 + eps_l), from memory)
+    # give per unit charge at its centre. The uniform part of the field induces only a dipole;
+    # what is left is of order (a / h)^3 ~ 1e-9 (common practice).
     e0, t, h, a = 1e3, 0.5, 1.0, 1e-3
     layout = Layout(
         (driven("sphere", geo.sphere(a, h), 0.0),),
@@ -240,7 +242,12 @@ def test_grounded_small_sphere_in_an_applied_field_over_a_layer(eps_l):
     )
     sol = solve_axisymmetric(layout, rel_accuracy=1e-6)
     phi0 = -e0 * (t / eps_l + (h - t))
-    assert sol.charges_C[0] == pytest.approx(-4 * math.pi * EPS0 * a * phi0, rel=1e-3)
+    r = (1 - eps_l) / (1 + eps_l)
+    n = np.arange(20000)  # |r| <= 0.976: the tail is below 1e-200
+    images = r / (2 * (h - t)) - (1 - r * r) * np.sum(r**n / (2 * h + 2 * n * t))
+    assert sol.charges_C[0] == pytest.approx(
+        -4 * math.pi * EPS0 * phi0 / (1 / a + images), rel=1e-7
+    )
     # far from the sphere (its charge and image form a dipole ~1 V m: ~1e-8 relative at r = 50)
     # the field is E0 above and E0 / eps_l in the layer
     far = np.array([[50.0, 0.25], [50.0, 2.0]])
