@@ -159,11 +159,13 @@ class LayeredKernel:
                 np.abs(pts[:, 1:2] - faces[None, :]) <= 4 * np.max(delta, axis=1, keepdims=True),
                 axis=1,
             )
-            rem = np.zeros((len(rows), mesh.n_nodes, 2))
-            self._remainder(
-                rem, mesh, pts, self.spectrum.slab_of(pts[:, 1]), self._node_slabs(mesh), True
-            )
-            pv += np.einsum("mnc,mc->mn", rem, nrm) * ~on[:, None]
+            off = np.nonzero(~on)[0]
+            if len(off):
+                rem = np.zeros((len(off), mesh.n_nodes, 2))
+                at = pts[off]
+                slabs = self.spectrum.slab_of(at[:, 1])
+                self._remainder(rem, mesh, at, slabs, self._node_slabs(mesh), True)
+                pv[off] += np.einsum("mnc,mc->mn", rem, nrm[off])
             if np.any(on):
                 sel = np.nonzero(on)[0]
                 sub = self.principal_value_remainder(mesh, rows[sel], delta[sel])
