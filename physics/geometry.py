@@ -275,15 +275,12 @@ class Curve:
             )
 
 
-def _segments_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
-    """Pairwise proper-intersection test of chords p (M,2,2) vs q (K,2,2) -> (M,K) bool."""
-    a, b = p[:, None, 0], p[:, None, 1]
-    c, d = q[None, :, 0], q[None, :, 1]
+def _chords_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """Proper-intersection test of chords p (K,2,2) against q (K,2,2), pair by pair -> (K,)."""
+    a, b, c, d = p[:, 0], p[:, 1], q[:, 0], q[:, 1]
 
     def orient(u, v, w):
-        return (v[..., 0] - u[..., 0]) * (w[..., 1] - u[..., 1]) - (v[..., 1] - u[..., 1]) * (
-            w[..., 0] - u[..., 0]
-        )
+        return (v[:, 0] - u[:, 0]) * (w[:, 1] - u[:, 1]) - (v[:, 1] - u[:, 1]) * (w[:, 0] - u[:, 0])
 
     o1, o2 = orient(a, b, c), orient(a, b, d)
     o3, o4 = orient(c, d, a), orient(c, d, b)
@@ -291,21 +288,33 @@ def _segments_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
 
 
 def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, float] | None:
-    """A point where two non-adjacent chords of the polyline cross or touch, else None."""
+    """A point where two non-adjacent chords of the polyline cross or touch, else None.
+
+    Only pairs of chords whose bounding boxes (widened by the touching tolerance) overlap can
+    cross or touch; the exact tests run on those pairs alone."""
     chords = np.stack([pts[:-1], pts[1:]], axis=1)
     m = len(chords)
-    cross = _segments_cross(chords, chords)
+    tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
+    lo = chords.min(axis=1) - tol
+    hi = chords.max(axis=1) + tol
+    meet = (lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0])
+    meet &= (lo[:, None, 1] <= hi[None, :, 1]) & (lo[None, :, 1] <= hi[:, None, 1])
+    meet = np.triu(meet, k=2)
+    if closed and m > 2:
+        meet[0, m - 1] = False
+    i, j = np.nonzero(meet)  # row-major: the order of np.triu_indices
+    if len(i) == 0:
+        return None
+    bad = _chords_cross(chords[i], chords[j])
     a, d = chords[:, 0], chords[:, 1] - chords[:, 0]
     length2 = np.maximum(np.einsum("kc,kc->k", d, d), 1e-300)
-    # distance of every chord start to every chord: catches touching without a proper crossing
-    t = np.clip(np.einsum("mkc,kc->mk", a[:, None, :] - a[None], d) / length2, 0.0, 1.0)
-    gap = np.linalg.norm(a[:, None, :] - (a[None] + t[..., None] * d[None]), axis=-1)
-    tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
-    touch = gap <= tol
-    i, j = np.triu_indices(m, k=2)
-    keep = ~(closed & (i == 0) & (j == m - 1))
-    i, j = i[keep], j[keep]
-    bad = cross[i, j] | touch[i, j] | touch[j, i]
+
+    def touches(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+        # distance of chord u's start to chord v: catches touching without a proper crossing
+        t = np.clip(np.einsum("kc,kc->k", a[u] - a[v], d[v]) / length2[v], 0.0, 1.0)
+        return np.linalg.norm(a[u] - (a[v] + t[:, None] * d[v]), axis=-1) <= tol
+
+    bad = bad | touches(i, j) | touches(j, i)
     if not np.any(bad):
         return None
     k = int(np.argmax(bad))

@@ -130,12 +130,17 @@ class Layout:
 
 def _check_apart(a: Conductor, pa: np.ndarray, b: Conductor, pb: np.ndarray) -> None:
     size = max(a.shape.size, b.shape.size)
-    dist, where = polyline_distance(pa, pb)
-    if dist <= 1e-9 * size:
-        raise GeometryError(
-            f"conductors '{a.name}' and '{b.name}' touch or intersect near (r, z) = "
-            f"({where[0]:.6g}, {where[1]:.6g}) m (distance {dist:.3g} m); conductors must be apart"
-        )
+    tol = 1e-9 * size
+    # Polylines whose bounding boxes lie farther apart than the tolerance cannot touch.
+    lo_a, hi_a, lo_b, hi_b = pa.min(axis=0), pa.max(axis=0), pb.min(axis=0), pb.max(axis=0)
+    if np.all(lo_a <= hi_b + tol) and np.all(lo_b <= hi_a + tol):
+        dist, where = polyline_distance(pa, pb)
+        if dist <= tol:
+            raise GeometryError(
+                f"conductors '{a.name}' and '{b.name}' touch or intersect near (r, z) = "
+                f"({where[0]:.6g}, {where[1]:.6g}) m (distance {dist:.3g} m); conductors must be "
+                "apart"
+            )
     for inner, pin, outer in ((a, pa, b), (b, pb, a)):
         outline = closed_outline(outer.shape)
         if outline is not None and point_in_region(pin[:1], outline)[0]:

@@ -29,7 +29,8 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any, Literal, Protocol
 
 import numpy as np
@@ -191,14 +192,26 @@ class ErrorEstimate:
     ``capacitance``: of the capacitance matrix (tail estimate plus half the asymmetry);
     ``asymmetry``: largest |C_ij - C_ji| / sqrt(C_ii C_jj); ``ratio``: observed ratio of the
     last two changes of C (None below three levels); ``peaks``: per conductor;
-    ``peak``: of the largest peak over all conductors (the design number).
+    ``peak``: of the largest peak over all conductors (the design number). The peak
+    estimates need the levels' peak searches, so ``peak_source`` computes them on first use.
     """
 
     capacitance: float
     asymmetry: float
     ratio: float | None
-    peaks: tuple[float, ...]
-    peak: float
+    peak_source: Callable[[], tuple[tuple[float, ...], float]] = field(repr=False, compare=False)
+
+    @cached_property
+    def _peak_pair(self) -> tuple[tuple[float, ...], float]:
+        return self.peak_source()
+
+    @property
+    def peaks(self) -> tuple[float, ...]:
+        return self._peak_pair[0]
+
+    @property
+    def peak(self) -> float:
+        return self._peak_pair[1]
 
 
 @dataclass(frozen=True)
@@ -286,23 +299,23 @@ def peak_estimate(fields_V_per_m: Sequence[float], convergence: Convergence) -> 
     return max(SAFETY * bare, convergence.peak_floor)
 
 
-def estimate_error(
-    levels: Sequence[SolvedLevel], convergence: Convergence, *, with_peaks: bool
-) -> ErrorEstimate:
-    """The :class:`ErrorEstimate` of the finest of ``levels`` (coarse to fine)."""
+def estimate_error(levels: Sequence[SolvedLevel], convergence: Convergence) -> ErrorEstimate:
+    """The :class:`ErrorEstimate` of the finest of ``levels`` (coarse to fine); its peak
+    estimates run the levels' peak searches when first asked for."""
     caps = [np.asarray(lv.capacitance_F, dtype=float) for lv in levels]
     fine = caps[-1]
     changes = [relative_change(b, a) for a, b in zip(caps, caps[1:], strict=False)]
     bare, ratio = tail_estimate(changes[-2:], convergence.prior_ratio)
     asym = scaled_asymmetry(fine)
     cap_est = max(SAFETY * bare, convergence.capacitance_floor) + 0.5 * asym
-    n = fine.shape[0]
-    if not with_peaks:
-        return ErrorEstimate(cap_est, asym, ratio, (math.nan,) * n, math.nan)
-    fields = np.array([[p.field_V_per_m for p in lv.peaks()] for lv in levels[-3:]])  # (k, n)
-    peaks = tuple(peak_estimate(fields[:, c], convergence) for c in range(n))
-    top = peak_estimate(fields.max(axis=1), convergence)
-    return ErrorEstimate(cap_est, asym, ratio, peaks, top)
+    last = tuple(levels[-3:])
+
+    def peak_estimates() -> tuple[tuple[float, ...], float]:
+        fields = np.array([[p.field_V_per_m for p in lv.peaks()] for lv in last])  # (k, n)
+        per = tuple(peak_estimate(fields[:, c], convergence) for c in range(fields.shape[1]))
+        return per, peak_estimate(fields.max(axis=1), convergence)
+
+    return ErrorEstimate(cap_est, asym, ratio, peak_estimates)
 
 
 def peak_request_met(level: SolvedLevel, estimate: ErrorEstimate, request: float | None) -> bool:
@@ -338,9 +351,8 @@ def refine(
         if memory_limit_bytes is None
         else int(memory_limit_bytes)
     )
-    with_peaks = options.peak_rel_accuracy is not None
     levels: list[Any] = []
-    estimate = ErrorEstimate(math.inf, 0.0, None, (), math.inf)
+    estimate = ErrorEstimate(math.inf, 0.0, None, lambda: ((), math.inf))
     stop: StopReason = "max_level"
     for level in range(start_level, options.max_level + 1):
         plan = plan_level(level)
@@ -365,14 +377,12 @@ def refine(
             break
         levels.append(plan.solve(levels[-1] if levels else None))
         if len(levels) >= 2:
-            estimate = estimate_error(levels, convergence, with_peaks=with_peaks)
+            estimate = estimate_error(levels, convergence)
             if estimate.capacitance <= options.rel_accuracy and peak_request_met(
                 levels[-1], estimate, options.peak_rel_accuracy
             ):
                 stop = "met"
                 break
-    if len(levels) >= 2:
-        estimate = estimate_error(levels, convergence, with_peaks=True)
     met = (
         len(levels) >= 2
         and estimate.capacitance <= options.rel_accuracy

@@ -368,9 +368,12 @@ def panel_fields(solution: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray] | N
     sigma = getattr(solution, "sigma_C_per_m2", None)
     if mesh is None or sigma is None or len(sigma) != len(mesh.triangles):
         return None
-    corners = np.asarray(mesh.vertices_m)[np.asarray(mesh.triangles)] / MM
-    field = np.abs(np.asarray(sigma)) / solution.layout.eps_F_per_m
-    return corners, field, np.asarray(panels.owner)
+    # conductor panels come first; dielectric bodies' panels follow and carry no free charge
+    nc = int(getattr(panels, "n_conductor_panels", len(sigma)))
+    corners = np.asarray(mesh.vertices_m)[np.asarray(mesh.triangles)[:nc]] / MM
+    # total density / eps of the medium = free density / eps of the medium touching the panel
+    field = np.abs(np.asarray(sigma)[:nc]) / solution.layout.eps_F_per_m
+    return corners, field, np.asarray(panels.owner)[:nc]
 
 
 def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):

@@ -2,9 +2,10 @@
 
 Stages, one module each: :mod:`.mesh` (the triangle mesh value), :mod:`.generators` and
 :mod:`.revolve` (built-in shapes), :mod:`.mesh_io` (STL/OBJ/PLY import), :mod:`.checks`
-(mesh and layout validation), :mod:`.surfaces` (shapes meshed at any refinement level),
+(mesh and layout validation), :mod:`.bodies` (dielectric bodies: checks and media), :mod:`.surfaces` (shapes meshed at any refinement level),
 :mod:`.panel_integrals` (closed-form and Gauss panel integrals), :mod:`.operators` and
-:mod:`.hmatrix` (dense and compressed collocation operators), :mod:`.solve` (the refinement
+:mod:`.hmatrix` (dense and compressed collocation operators), :mod:`.layered_green` and
+:mod:`.layer_tables` (the Green's function of planar layer stacks), :mod:`.solve` (the refinement
 driver) and :mod:`.solution3d` (the result, a :class:`elopt.physics.solution.ChargeSolution`).
 
     from elopt.physics.bem3d import solve_3d, sphere

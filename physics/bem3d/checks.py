@@ -33,19 +33,21 @@ def _where(p: np.ndarray) -> str:
     return f"({p[0]:.6g}, {p[1]:.6g}, {p[2]:.6g}) m"
 
 
-def check_surface(mesh: TriangleMesh, name: str) -> None:
-    """Raise GeometryError naming conductor ``name`` if ``mesh`` breaks a rule above."""
+def check_surface(mesh: TriangleMesh, name: str, what: str = "conductor") -> None:
+    """Raise GeometryError naming the ``what`` (conductor, region) ``name`` if ``mesh`` breaks
+    a rule above."""
+    who = f"{what} '{name}'"
     v, t = mesh.vertices_m, mesh.triangles
     if v.ndim != 2 or v.shape[1] != 3 or t.ndim != 2 or t.shape[1] != 3 or len(t) == 0:
         raise GeometryError(
-            f"conductor '{name}': a mesh needs vertices (V, 3) and triangles (T, 3) with T >= 1, "
+            f"{who}: a mesh needs vertices (V, 3) and triangles (T, 3) with T >= 1, "
             f"got {v.shape} and {t.shape}"
         )
     if not np.all(np.isfinite(v)):
-        raise GeometryError(f"conductor '{name}': every vertex coordinate must be finite")
+        raise GeometryError(f"{who}: every vertex coordinate must be finite")
     if t.min() < 0 or t.max() >= len(v):
         raise GeometryError(
-            f"conductor '{name}': triangle vertex indices must lie in [0, {len(v) - 1}], got "
+            f"{who}: triangle vertex indices must lie in [0, {len(v) - 1}], got "
             f"[{t.min()}, {t.max()}]"
         )
     repeated = (t[:, 0] == t[:, 1]) | (t[:, 1] == t[:, 2]) | (t[:, 2] == t[:, 0])
@@ -54,7 +56,7 @@ def check_surface(mesh: TriangleMesh, name: str) -> None:
     if np.any(sliver):
         k = int(np.argmax(sliver))
         raise GeometryError(
-            f"conductor '{name}': {int(sliver.sum())} degenerate triangle(s) (zero area or height "
+            f"{who}: {int(sliver.sum())} degenerate triangle(s) (zero area or height "
             f"below {SLIVER_RATIO:g} of the longest edge), first #{k} near "
             f"{_where(mesh.centroids_m[k])}; remove or re-mesh them"
         )
@@ -62,7 +64,7 @@ def check_surface(mesh: TriangleMesh, name: str) -> None:
     _, counts = np.unique(tri_key, axis=0, return_counts=True)
     if np.any(counts > 1):
         raise GeometryError(
-            f"conductor '{name}': {int((counts > 1).sum())} triangle(s) appear more than once; "
+            f"{who}: {int((counts > 1).sum())} triangle(s) appear more than once; "
             "each face must be listed once"
         )
     unique, owner, inverse = mesh.edges
@@ -70,14 +72,14 @@ def check_surface(mesh: TriangleMesh, name: str) -> None:
     if np.any(count > 2):
         e = unique[int(np.argmax(count > 2))]
         raise GeometryError(
-            f"conductor '{name}': the mesh is non-manifold: {int((count > 2).sum())} edge(s) are "
+            f"{who}: the mesh is non-manifold: {int((count > 2).sum())} edge(s) are "
             f"shared by more than two triangles, e.g. the edge at {_where(v[e].mean(axis=0))}"
         )
     rim = count == 1
     if mesh.closed and np.any(rim):
         e = unique[int(np.argmax(rim))]
         raise GeometryError(
-            f"conductor '{name}': declared closed but the mesh is open: {int(rim.sum())} edge(s) "
+            f"{who}: declared closed but the mesh is open: {int(rim.sum())} edge(s) "
             f"belong to one triangle only, e.g. at {_where(v[e].mean(axis=0))}; close the holes "
             "or declare the surface an open sheet"
         )
@@ -85,18 +87,18 @@ def check_surface(mesh: TriangleMesh, name: str) -> None:
     _, dcount = np.unique(directed, axis=0, return_counts=True)
     if np.any(dcount > 1):
         raise GeometryError(
-            f"conductor '{name}': faces are not oriented consistently ({int((dcount > 1).sum())} "
+            f"{who}: faces are not oriented consistently ({int((dcount > 1).sum())} "
             "edge(s) run the same way in both neighbouring triangles); orient every face the same "
             "way round"
         )
     if mesh.closed and mesh.volume_m3 <= 0:
         raise GeometryError(
-            f"conductor '{name}': the closed mesh is inverted (its faces point inward, enclosed "
+            f"{who}: the closed mesh is inverted (its faces point inward, enclosed "
             f"volume {mesh.volume_m3:.3g} m^3); reverse the vertex order of every face"
         )
     hit = _first_intersection(mesh, mesh, same=True)
     if hit is not None:
-        raise GeometryError(f"conductor '{name}': the surface intersects itself near {_where(hit)}")
+        raise GeometryError(f"{who}: the surface intersects itself near {_where(hit)}")
 
 
 def check_apart(a: TriangleMesh, name_a: str, b: TriangleMesh, name_b: str) -> None:
@@ -115,13 +117,14 @@ def check_apart(a: TriangleMesh, name_a: str, b: TriangleMesh, name_b: str) -> N
             )
 
 
-def check_above_plane(mesh: TriangleMesh, name: str) -> None:
+def check_above_plane(mesh: TriangleMesh, name: str, what: str = "conductor") -> None:
     """Raise GeometryError unless every vertex has z > 0 (the ground plane is z = 0)."""
+    who = f"{what} '{name}'"
     z = mesh.vertices_m[:, 2]
     k = int(np.argmin(z))
     if z[k] <= 0:
         raise GeometryError(
-            f"conductor '{name}': touches or crosses the ground plane z = 0 (reaches z = "
+            f"{who}: touches or crosses the ground plane z = 0 (reaches z = "
             f"{z[k]:.6g} m at {_where(mesh.vertices_m[k])}); every point must have z > 0"
         )
 

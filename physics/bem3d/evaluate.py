@@ -34,6 +34,8 @@ def potential_and_gradient(
     m, k = len(pts), dens.shape[1]
     if m == 0:
         return np.zeros((0, k)), np.zeros((0, 3, k))
+    if panels.background is not None:  # planar layers: the layered Green's function
+        return panels.background.potential_and_gradient(panels, dens, pts)
     if m * panels.n <= DIRECT_PAIRS:
         return _direct(panels, dens, pts)
     grad = np.stack(
@@ -51,7 +53,7 @@ def directional_derivative(
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
     dirs = np.ascontiguousarray(directions, dtype=float)
     dens = _columns(density)
-    if len(pts) * panels.n <= DIRECT_PAIRS:
+    if panels.background is not None or len(pts) * panels.n <= DIRECT_PAIRS:
         _, grad = _direct(panels, dens, pts)
         return np.einsum("mck,mc->mk", grad, dirs)
     h = HMatrix(panels, tol=EVAL_TOL, targets=pts, directions=dirs)
@@ -64,6 +66,8 @@ def _columns(density: np.ndarray) -> np.ndarray:
 
 
 def _direct(panels: PanelSet, dens: np.ndarray, pts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    if panels.background is not None:
+        return panels.background.potential_and_gradient(panels, dens, pts)
     corners, centroids, areas, diams = panels.kernel_arrays
     out = np.empty((len(pts), 4, dens.shape[1]))
     for s in range(0, len(pts), _BLOCK):

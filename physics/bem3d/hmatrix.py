@@ -317,6 +317,63 @@ def _near_blocks(
     return out
 
 
+@njit(cache=True, parallel=True)
+def _dense_entries(
+    targets, dirs, deriv, corners, centroids, areas, diams, gp, image, r3, w3, r7, w7
+):
+    m = targets.shape[0]
+    out = np.empty((m, corners.shape[0]))
+    for i in prange(m):
+        buf = np.empty(4)
+        tri = np.empty((3, 3))
+        cen = np.empty(3)
+        for j in range(corners.shape[0]):
+            out[i, j] = _entry(
+                i,
+                targets,
+                dirs,
+                deriv,
+                j,
+                corners,
+                centroids,
+                areas,
+                diams,
+                gp,
+                image,
+                r3,
+                w3,
+                r7,
+                w7,
+                buf,
+                tri,
+                cen,
+            )
+    return out
+
+
+def dense_rows(
+    panels: PanelSet, targets: np.ndarray, directions: np.ndarray | None = None
+) -> np.ndarray:
+    """(M, N) every entry of the (uncompressed) matrix :class:`HMatrix` approximates: the
+    potential at ``targets`` (M, 3), or its derivative along ``directions`` (M, 3)."""
+    corners, centroids, areas, diams = panels.kernel_arrays
+    deriv = directions is not None
+    dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+    gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    return _dense_entries(
+        np.ascontiguousarray(targets, dtype=float),
+        dirs,
+        deriv,
+        corners,
+        centroids,
+        areas,
+        diams,
+        gp,
+        panels.ground_plane,
+        *pint.rules(),
+    )
+
+
 @njit(cache=True)
 def _aca_block(
     rows,
@@ -645,6 +702,54 @@ def _matvec(
     return out
 
 
+@njit(cache=True)
+def _rmatvec(
+    w,
+    n_s,
+    near_blocks,
+    near_off,
+    t_start,
+    t_end,
+    s_start,
+    s_end,
+    near_vals,
+    far_blocks,
+    far_uoff,
+    far_voff,
+    far_rank,
+    u,
+    v,
+):
+    """The transposed product w^T A (tree order); serial (it is needed once per level)."""
+    out = np.zeros(n_s)
+    for b in range(near_blocks.shape[0]):
+        t = near_blocks[b, 0]
+        s = near_blocks[b, 1]
+        k = near_off[b]
+        for i in range(t_start[t], t_end[t]):
+            wi = w[i]
+            for j in range(s_start[s], s_end[s]):
+                out[j] += near_vals[k] * wi
+                k += 1
+    for b in range(far_blocks.shape[0]):
+        t = far_blocks[b, 0]
+        s = far_blocks[b, 1]
+        r = far_rank[b]
+        n = s_end[s] - s_start[s]
+        m = t_end[t] - t_start[t]
+        z = np.zeros(r)
+        for i in range(m):
+            wi = w[t_start[t] + i]
+            base = far_uoff[b] + i * r
+            for q in range(r):
+                z[q] += u[base + q] * wi
+        for q in range(r):
+            base = far_voff[b] + q * n
+            for j in range(n):
+                out[s_start[s] + j] += z[q] * v[base + j]
+    return out
+
+
 def _batches(far: np.ndarray, tsz: np.ndarray, ssz: np.ndarray) -> list[tuple[int, int]]:
     """Consecutive runs of far blocks, at most _BATCH blocks and about _BATCH_SCRATCH scratch
     entries each (at least one block)."""
@@ -821,11 +926,10 @@ class HMatrix:
     def nbytes(self) -> int:
         return int(self.near_vals.nbytes + self.u.nbytes + self.v.nbytes)
 
-    def matvec(self, x: np.ndarray) -> np.ndarray:
-        xs = np.ascontiguousarray(np.asarray(x, dtype=float)[self.sources.perm])
-        yp = _matvec(
-            xs,
-            self.m,
+    @property
+    def _blocks(self) -> tuple:
+        """The stored blocks as the product kernels take them."""
+        return (
             self.near_blocks,
             self.near_off,
             self.targets.start,
@@ -839,9 +943,19 @@ class HMatrix:
             self.far_rank,
             self.u,
             self.v,
-            self.near_chunks,
-            self.far_chunks,
         )
+
+    def rmatvec(self, w: np.ndarray) -> np.ndarray:
+        """w^T A (N,) for weights ``w`` (M,) on the targets."""
+        ws = np.ascontiguousarray(np.asarray(w, dtype=float)[self.targets.perm])
+        yp = _rmatvec(ws, self.n, *self._blocks)
+        y = np.empty(self.n)
+        y[self.sources.perm] = yp
+        return y
+
+    def matvec(self, x: np.ndarray) -> np.ndarray:
+        xs = np.ascontiguousarray(np.asarray(x, dtype=float)[self.sources.perm])
+        yp = _matvec(xs, self.m, *self._blocks, self.near_chunks, self.far_chunks)
         y = np.empty(self.m)
         y[self.targets.perm] = yp
         return y

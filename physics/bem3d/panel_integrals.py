@@ -12,8 +12,8 @@ edge line, end point distances R_i-, R_i+ and R0_i^2 = P_i^2 + w^2:
     I      = sum_i P_i f_i - |w| sum_i beta_i
     grad I = -sum_i u_i f_i - sign(w) n sum_i beta_i
 
-On the triangle's own plane (w = 0) the gradient is the principal value (mean of both
-sides). The closed form loses digits far away, where symmetric Gauss rules are exact enough
+On the triangle's own plane (w = 0, or |w| below ``IN_PLANE`` times the triangle's size,
+which rounding of a centroid gives) the gradient is the principal value (mean of both sides). The closed form loses digits far away, where symmetric Gauss rules are exact enough
 and cheaper: the rule is picked from the distance d between target and centroid in units of
 the panel's longest edge h (closed form for d < 2.5 h, 7 points for d < 6 h, else 3 points).
 All routines return raw integrals (no 1/(4 pi eps)).
@@ -26,6 +26,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
+#: Heights over a triangle's plane below this fraction of its size count as in the plane.
+IN_PLANE = 1e-10
 #: Distance (in panel diameters) below which the closed form is used.
 NEAR_ANALYTIC = 2.5
 #: Distance (in panel diameters) below which the 7-point rule is used, above it 3 points.
@@ -81,6 +83,10 @@ def analytic(p: np.ndarray, tri: np.ndarray, out: np.ndarray) -> None:
     ny /= nn
     nz /= nn
     w = (p[0] - tri[0, 0]) * nx + (p[1] - tri[0, 1]) * ny + (p[2] - tri[0, 2]) * nz
+    if abs(w) <= IN_PLANE * math.sqrt(nn):
+        # rounding of a point in the plane (a centroid): take the plane, where the normal
+        # component of the gradient is the principal value (0 on the triangle itself)
+        w = 0.0
     aw = abs(w)
     fx = p[0] - w * nx
     fy = p[1] - w * ny

@@ -1,7 +1,11 @@
 """Result of a 3-D panel solve: charges, fields, capacitance matrix and shape derivatives.
 
 Points are (x, y, z) in metres. Densities are the panel values of the finest level; the
-coarser levels give the error estimates. On an open thin sheet the unknown is the density
+coarser levels give the error estimates. The level densities (``sigma_unit``,
+``sigma_applied``, ``sigma_C_per_m2``) are the total (free + polarisation) charge of every
+panel, conductors' and dielectric bodies' (:mod:`.solve`), from which the potential and field
+anywhere follow; surface samples, charges and peak fields are of the free charge, in the
+medium touching each conductor panel. On an open thin sheet the unknown is the density
 summed over both faces; :meth:`PanelSolution.surface_samples` splits it into the two faces
 from the normal field just off each face (one sample per face and panel, normals pointing
 out of that face), so a sheet's samples cover both faces.
@@ -19,7 +23,7 @@ from elopt.physics.bem3d.operators import SolveStats
 from elopt.physics.bem3d.panels import PanelSet
 from elopt.physics.bem3d.plane_rule import plane_rule
 from elopt.physics.errors import SolverError
-from elopt.physics.layout import Layout
+from elopt.physics.layout import EPS0_F_PER_M, Layout
 from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
 from elopt.physics.solution import ChargeSolution, SurfaceSamples, excitation_potentials
 
@@ -29,8 +33,9 @@ _FACE_OFFSET = 1e-7
 
 @dataclass(frozen=True, eq=False)
 class LevelResult3D:
-    """One level: panels, unit-potential densities (N, n) C/m^2 per V, applied-field
-    response (N,), capacitance matrix (n, n) F, applied-field charges (n,) C, solve stats."""
+    """One level: panels, total unit-potential densities (N, n) C/m^2 per V of every panel,
+    applied-field response (N,), capacitance matrix (n, n) F of the free charges,
+    applied-field charges (n,) C, solve stats."""
 
     layout: Layout
     panels: PanelSet
@@ -62,57 +67,67 @@ class LevelResult3D:
     @cached_property
     def _peaks(self) -> tuple[LevelPeak, ...]:
         s = self.excitation_samples
-        field = np.abs(s["sigma"][:, 0]) / self.layout.eps_F_per_m
+        field = np.abs(s["sigma"][:, 0]) / s["eps_F_per_m"]
         singular = self.panels.feature[s["panel"]]
         return peaks_per_conductor(self.layout.names, s["owner"], field, s["points_m"], singular)
 
 
 def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied: bool) -> dict:
-    """Samples of every panel (closed: one; sheet: one per face) for densities (N, K).
+    """Free-charge samples of every conductor panel (closed: one; sheet: one per face) for
+    total densities (N, K) of every panel.
 
     Keys: ``points_m`` (S, 3), ``normals`` (S, 3), ``panel`` (S,) panel index, ``owner`` (S,),
-    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the density on that face, ``area_m2`` (S,).
+    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the free density on that face, ``area_m2``
+    (S,), ``eps_F_per_m`` (S,) the permittivity of the medium touching that face.
     """
     p = level.panels
     mesh = p.mesh
-    idx = np.arange(p.n)
+    nc = p.n_conductor_panels
+    idx = np.arange(nc)
     sheet = np.nonzero(p.sheet)[0]
-    points = [mesh.centroids_m]
-    normals = [mesh.normals]
-    panel = [idx]
-    face = [np.zeros(p.n, dtype=np.int8)]
-    sigma = [dens]
-    area = [mesh.areas_m2]
+    keep = idx[~p.sheet[:nc]]
+    points = [mesh.centroids_m[keep]]
+    normals = [mesh.normals[keep]]
+    panel = [keep]
+    face = [np.zeros(len(keep), dtype=np.int8)]
+    sigma = [dens[keep]]
     if len(sheet):
-        # Replace each sheet panel by its two faces: sigma_face = eps E . n_face just off it.
+        # Each sheet panel gives its two faces: sigma_face = eps_m E . n_face just off it.
         offset = (_FACE_OFFSET * mesh.diameters_m[sheet])[:, None] * mesh.normals[sheet]
         c = mesh.centroids_m[sheet]
         probes = np.concatenate([c + offset, c - offset])
         n2 = np.concatenate([mesh.normals[sheet], -mesh.normals[sheet]])
-        # eps E . n = -grad(pot integral) . n (the 1/eps of the potential cancels).
+        # eps_m E . n = -grad(pot integral) . n (the 1/eps_m of the potential cancels).
         on_face = -directional_derivative(p, dens, probes, n2)
         if applied:
             on_face += (layout.eps_F_per_m * layout.applied_field_V_per_m * n2[:, 2])[:, None]
-        keep = ~p.sheet
-        points = [mesh.centroids_m[keep], c, c]
-        normals = [mesh.normals[keep], mesh.normals[sheet], -mesh.normals[sheet]]
-        panel = [idx[keep], sheet, sheet]
-        face = [
-            np.zeros(int(keep.sum()), dtype=np.int8),
-            np.ones(len(sheet), dtype=np.int8),
-            -np.ones(len(sheet), dtype=np.int8),
-        ]
-        sigma = [dens[keep], on_face[: len(sheet)], on_face[len(sheet) :]]
-        area = [mesh.areas_m2[keep], mesh.areas_m2[sheet], mesh.areas_m2[sheet]]
+        points += [c, c]
+        normals += [mesh.normals[sheet], -mesh.normals[sheet]]
+        panel += [sheet, sheet]
+        face += [np.ones(len(sheet), dtype=np.int8), -np.ones(len(sheet), dtype=np.int8)]
+        sigma += [on_face[: len(sheet)], on_face[len(sheet) :]]
     panel_all = np.concatenate(panel)
+    normals_all = np.concatenate(normals)
+    points_all = np.concatenate(points)
+    # The total density is eps_m E_n outside; the free one eps_f E_n (module text of .solve).
+    eps_face = EPS0_F_PER_M * p.eps_front[panel_all]
+    ratio = eps_face / layout.eps_F_per_m
+    if p.background is not None:
+        # planar layers: closed panels carry the free density already; on a sheet face
+        # -grad . n of the potential integrals is eps_m E . n, its free charge eps_face E . n
+        # with eps_face that of the layer just outside
+        off = (_FACE_OFFSET * mesh.diameters_m[panel_all])[:, None] * normals_all
+        eps_face = EPS0_F_PER_M * p.background.eps_r_at(points_all + off)
+        ratio = np.where(np.concatenate(face) != 0, eps_face / layout.eps_F_per_m, 1.0)
     return {
-        "points_m": np.concatenate(points),
-        "normals": np.concatenate(normals),
+        "points_m": points_all,
+        "normals": normals_all,
         "panel": panel_all,
         "owner": p.owner[panel_all],
         "face": np.concatenate(face),
-        "sigma": np.concatenate(sigma),
-        "area_m2": np.concatenate(area),
+        "sigma": np.concatenate(sigma) * ratio[:, None],
+        "area_m2": mesh.areas_m2[panel_all],
+        "eps_F_per_m": eps_face,
     }
 
 
@@ -188,7 +203,7 @@ class PanelSolution(ChargeSolution):
             kind="panels",
             points_m=s["points_m"][sel],
             sigma_C_per_m2=sigma,
-            field_V_per_m=np.abs(sigma) / self.eps,
+            field_V_per_m=np.abs(sigma) / s["eps_F_per_m"][sel],
             area_m2=s["area_m2"][sel],
             face=s["face"][sel],
             normal=s["normals"][sel],
@@ -199,6 +214,11 @@ class PanelSolution(ChargeSolution):
     def _require_plane(self) -> None:
         if not self.layout.ground_plane:
             raise SolverError("the layout has no ground plane (set ground_plane=True)")
+        if self.panels.background is not None:
+            raise SolverError(
+                "ground-plane charge and plane derivatives are not available with planar "
+                "layers in 3-D (the layer on the plane changes with it)"
+            )
 
     @cached_property
     def _plane_rule(self) -> tuple[np.ndarray, np.ndarray]:
@@ -273,14 +293,15 @@ class PanelSolution(ChargeSolution):
     ) -> np.ndarray:
         """dC/d(delta) (n, n) F/m for conductor ``name`` translated by delta along ``direction``.
 
-        Hadamard formula dC_ij = (1/eps) integral sigma_i sigma_j (n . d) dA over its surface
-        (both faces of a sheet).
+        Hadamard formula dC_ij = integral sigma_i sigma_j / eps_f (n . d) dA over its surface
+        (both faces of a sheet; sigma free, eps_f of the medium touching it, which moves with
+        neither the conductor nor any body).
         """
         k = self.layout.index(name)
         d = np.asarray(direction, dtype=float)
         d = d / np.linalg.norm(d)
         s = self._unit_samples
         sel = s["owner"] == k
-        wts = s["area_m2"][sel] * (s["normals"][sel] @ d)
+        wts = s["area_m2"][sel] * (s["normals"][sel] @ d) / s["eps_F_per_m"][sel]
         sig = s["sigma"][sel]
-        return np.einsum("q,qi,qj->ij", wts, sig, sig) / self.eps
+        return np.einsum("q,qi,qj->ij", wts, sig, sig)

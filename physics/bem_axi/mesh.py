@@ -2,13 +2,13 @@
 
 Every piece of every conductor's curve is cut into panels; each panel carries ``order``
 Gauss-Legendre nodes on which the surface charge density is collocated and interpolated.
-Panels are graded geometrically (ratio 2) towards corners and free sheet edges, neighbours
-along a curve differ in length by at most a factor 2, and panels facing another conductor or
-the ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap.
+Panels are graded geometrically towards corners and free sheet edges, neighbours along a
+curve differ in length by a bounded factor, and panels facing another conductor or the
+ground-plane image across a narrow gap are no longer than ``gap_factor`` times the gap; a
+:class:`MeshRule` gives the grading ratio, the balance factor and the grading steps.
 
-Refinement level ``level`` halves every level-0 panel ``level`` times and adds
-CORNER_LEVELS_PER_LEVEL grading levels per step at singular corners, so meshes of successive
-levels are nested.
+Refinement level ``level`` halves every level-0 panel ``level`` times and adds the rule's
+grading steps per level at singular corners, so meshes of successive levels are nested.
 """
 
 from __future__ import annotations
@@ -44,6 +44,27 @@ def corner_levels(order: int) -> int:
 
 #: A panel is at most this many times its distance to another conductor or an image.
 GAP_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class MeshRule:
+    """How level-0 panels are graded and how levels refine them.
+
+    ``corner_steps``: grading steps towards a singular corner at level 0 (a non-singular one
+    gets half, at least one); ``steps_per_level``: steps added per level; each step cuts the
+    panel touching the corner at 1/``grade_ratio`` of its length; neighbours along a curve
+    differ in length by at most ``balance_ratio``.
+    """
+
+    corner_steps: int
+    steps_per_level: int
+    grade_ratio: float = 2.0
+    balance_ratio: float = 2.0
+
+
+def default_rule(order: int) -> MeshRule:
+    """Ratio-2 grading with :func:`corner_levels` steps (the rule of every solver but one)."""
+    return MeshRule(corner_levels(order), CORNER_LEVELS_PER_LEVEL)
 
 
 @dataclass(frozen=True)
@@ -194,16 +215,19 @@ def _equal_turning_edges(piece: EllipseArc, n_min: int, max_turn: float, level: 
     return np.interp(np.linspace(0.0, turn[-1], n + 1), turn, t)
 
 
-def _grade_towards(intervals: list[tuple[float, float]], at_end: bool, times: int) -> None:
-    """Halve the interval touching one end of a piece ``times`` times (in place)."""
+def _grade_towards(
+    intervals: list[tuple[float, float]], at_end: bool, times: int, ratio: float
+) -> None:
+    """Cut the interval touching one end of a piece ``times`` times at 1/``ratio`` of its
+    length from that end (in place)."""
     for _ in range(times):
         if at_end:
             a, b = intervals[-1]
-            m = 0.5 * (a + b)
+            m = b - (b - a) / ratio
             intervals[-1:] = [(a, m), (m, b)]
         else:
             a, b = intervals[0]
-            m = 0.5 * (a + b)
+            m = a + (b - a) / ratio
             intervals[:1] = [(a, m), (m, b)]
 
 
@@ -219,8 +243,8 @@ def _interval_lengths(piece, intervals) -> np.ndarray:
     return piece.length * half
 
 
-def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
-    """Split panels until neighbours along the curve differ by at most a factor 2."""
+def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]], ratio: float) -> None:
+    """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
     changed = True
     while changed:
@@ -236,9 +260,9 @@ def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
         split = set()
         for i in range(n - 1 + int(closed)):
             a, b = i, (i + 1) % n
-            if lengths[a] > 2.0 * lengths[b] * (1 + 1e-9):
+            if lengths[a] > ratio * lengths[b] * (1 + 1e-9):
                 split.add(flat[a])
-            elif lengths[b] > 2.0 * lengths[a] * (1 + 1e-9):
+            elif lengths[b] > ratio * lengths[a] * (1 + 1e-9):
                 split.add(flat[b])
         if split:
             changed = True
@@ -248,23 +272,31 @@ def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]]) -> None:
                 per_piece[k][j : j + 1] = [(a0, m), (m, b0)]
 
 
-def build_mesh(layout: Layout, level: int = 0, order: int = 8) -> AxiMesh:
+def build_mesh(
+    layout: Layout, level: int = 0, order: int = 8, rule: MeshRule | None = None
+) -> AxiMesh:
     """Mesh every conductor of ``layout`` at refinement ``level`` with ``order`` nodes/panel.
 
-    Level 0 is graded, balanced and gap-refined once (cached per layout); level L splits every
-    level-0 panel into 2**L and grades singular corners CORNER_LEVELS_PER_LEVEL * L times more.
+    Level 0 is graded, balanced and gap-refined once (cached per layout and ``rule``, default
+    :func:`default_rule`); level L splits every level-0 panel into 2**L and grades singular
+    corners ``rule.steps_per_level * L`` steps more.
     """
+    if rule is None:
+        rule = default_rule(order)
     per_conductor = []
-    for curve, base, corner_ends in _base_intervals(layout, corner_levels(order)):
+    frac = np.linspace(0.0, 1.0, 2**level + 1)
+    for curve, base, corner_ends in _base_intervals(layout, rule):
         intervals = []
         for iv in base:
-            parts = []
-            for a, b in iv:
-                edges = np.linspace(a, b, 2**level + 1)
-                parts.extend(zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True))
-            intervals.append(parts)
+            ab = np.asarray(iv, dtype=float)
+            edges = ab[:, :1] + (ab[:, 1:] - ab[:, :1]) * frac  # (n, 2**level + 1)
+            intervals.append(
+                list(
+                    zip(edges[:, :-1].ravel().tolist(), edges[:, 1:].ravel().tolist(), strict=True)
+                )
+            )
         for k, at_end in corner_ends:
-            _grade_towards(intervals[k], at_end, CORNER_LEVELS_PER_LEVEL * level)
+            _grade_towards(intervals[k], at_end, rule.steps_per_level * level, rule.grade_ratio)
         per_conductor.append((curve, intervals, corner_ends))
     return _assemble_mesh(layout, per_conductor, level, order)
 
@@ -275,7 +307,7 @@ def clear_mesh_cache() -> None:
 
 
 @lru_cache(maxsize=8)
-def _base_intervals(layout: Layout, grading: int):
+def _base_intervals(layout: Layout, rule: MeshRule):
     """Level-0 parameter intervals per piece of every conductor, and its singular corner ends."""
     per_conductor = []
     for cond in layout.conductors:
@@ -284,24 +316,24 @@ def _base_intervals(layout: Layout, grading: int):
         corner_ends: set[tuple[int, bool]] = set()
         n_pieces = len(curve.pieces)
         for corner in curve.corners():
-            times = grading if corner.singular else max(grading // 2, 1)
+            times = rule.corner_steps if corner.singular else max(rule.corner_steps // 2, 1)
             sides = [(corner.piece_index, corner.at_end)]
             if corner.angle > 0:
                 sides.append(((corner.piece_index + 1) % n_pieces, False))
             for k, at_end in sides:
-                _grade_towards(intervals[k], at_end, times)
+                _grade_towards(intervals[k], at_end, times, rule.grade_ratio)
                 if corner.singular:
                     corner_ends.add((k, at_end))
-        _balance(curve, intervals)
+        _balance(curve, intervals, rule.balance_ratio)
         per_conductor.append((curve, intervals, frozenset(corner_ends)))
-    _refine_gaps(layout, per_conductor)
+    _refine_gaps(layout, per_conductor, rule.balance_ratio)
     return tuple(
         (curve, tuple(tuple(iv) for iv in intervals), ends)
         for curve, intervals, ends in per_conductor
     )
 
 
-def _refine_gaps(layout: Layout, per_conductor) -> None:
+def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> None:
     """Split panels longer than GAP_FACTOR times their distance to other surfaces/images."""
     samples = [cond.shape.sample(24) for cond in layout.conductors]
     clouds = []
@@ -315,24 +347,36 @@ def _refine_gaps(layout: Layout, per_conductor) -> None:
         if cloud is None:
             continue
         for _ in range(40):
-            any_split = False
-            for k, piece in enumerate(curve.pieces):
-                iv = intervals[k]
-                ab = np.array(iv)
-                centres = piece.points(ab.mean(axis=1))
-                dist = np.sqrt(
-                    np.min(np.sum((centres[:, None, :] - cloud[None]) ** 2, axis=-1), axis=1)
-                )
-                lengths = _interval_lengths(piece, iv)
-                bad = np.nonzero(lengths > GAP_FACTOR * dist)[0]
-                for j in bad[::-1]:
+            # Every piece's panels against the cloud at once (a piece's splits do not change
+            # another piece's test).
+            centres = np.concatenate(
+                [
+                    piece.points(np.array(iv).mean(axis=1))
+                    for piece, iv in zip(curve.pieces, intervals, strict=True)
+                ]
+            )
+            gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
+                centres[:, None, 1] - cloud[None, :, 1]
+            ) ** 2
+            dist = np.sqrt(gap2.min(axis=1))
+            lengths = np.concatenate(
+                [
+                    _interval_lengths(piece, iv)
+                    for piece, iv in zip(curve.pieces, intervals, strict=True)
+                ]
+            )
+            bad = lengths > GAP_FACTOR * dist
+            if not np.any(bad):
+                break
+            start = 0
+            for iv in intervals:
+                n = len(iv)
+                for j in np.nonzero(bad[start : start + n])[0][::-1]:
                     a, b = iv[j]
                     m = 0.5 * (a + b)
                     iv[j : j + 1] = [(a, m), (m, b)]
-                any_split |= len(bad) > 0
-            if not any_split:
-                break
-            _balance(curve, intervals)
+                start += n
+            _balance(curve, intervals, balance_ratio)
 
 
 def _assemble_mesh(layout: Layout, per_conductor, level: int, order: int) -> AxiMesh:

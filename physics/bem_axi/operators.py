@@ -83,9 +83,11 @@ def _near_rows(
         np.ascontiguousarray(mesh.coef[pj]),
         mirror,
     )
+    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
+    # so does the innermost once it is no longer than the distance: one level beyond
+    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
     ratio = mesh.length_m[pj] / np.maximum(delta, 1e-300)
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 2, 1, _MAX_LEVELS).astype(np.int64)
-    levels[ratio < 0.5] = 1
+    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
     x, _ = gauss_legendre(p)
     xq, wq = gauss_legendre(_rule_order(p))
     return near_rows(

@@ -240,8 +240,9 @@ def _lagrange(tau: float, x: np.ndarray, bary: np.ndarray, out: np.ndarray) -> N
             return
         out[k] = bary[k] / d
         total += out[k]
+    inv = 1.0 / total
     for k in range(p):
-        out[k] /= total
+        out[k] *= inv
 
 
 @njit(cache=True)
@@ -272,6 +273,11 @@ def near_rows(
     lag = np.empty(p)
     for b in range(n_pairs):
         tc = tau_c[b]
+        t_r, t_z = tr[b], tz[b]
+        c = coef[b]
+        # Segments: the point is linear in tau and the length element constant.
+        straight = kind[b] == 0
+        seg_jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1]) if straight else 0.0
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
             if span <= 0.0:
@@ -283,18 +289,24 @@ def near_rows(
                 half = 0.5 * (hi - lo) * span
                 for q in range(xq.shape[0]):
                     tau = tc + side * (mid + half * xq[q])
-                    rs, zs, jac = _panel_point(kind[b], coef[b], tau)
+                    if straight:
+                        s = 0.5 * (tau + 1.0)
+                        rs = c[0] + s * (c[2] - c[0])
+                        zs = c[1] + s * (c[3] - c[1])
+                        jac = seg_jac
+                    else:
+                        rs, zs, jac = _panel_point(kind[b], c, tau)
                     if mirror:
                         zs = -zs
                     wt = wq[q] * half * jac
                     _lagrange(tau, x, bary, lag)
                     if field:
-                        er, ez = _ring_e(tr[b], tz[b], rs, zs)
+                        er, ez = _ring_e(t_r, t_z, rs, zs)
                         for j in range(p):
                             out[b, j, 0] += er * wt * lag[j]
                             out[b, j, 1] += ez * wt * lag[j]
                     else:
-                        v = _ring_phi(tr[b], tz[b], rs, zs) * wt
+                        v = _ring_phi(t_r, t_z, rs, zs) * wt
                         for j in range(p):
                             out[b, j, 0] += v * lag[j]
     return out

@@ -11,8 +11,15 @@ A config names one table per conductor::
     length_unit = "mm"               # m, cm, mm, um or in: mesh files carry no unit
     potential_V = 10.0               # or charge_C = 0.0 (floating)
     closed = true                    # optional: false for an open thin sheet
+    [[geometry.bodies]]              # optional: dielectric bodies, one table each
+    name = "potting"
+    file = "potting.stl"             # a closed surface; it may enclose conductors
+    length_unit = "mm"
+    eps_r = 3.2                      # relative permittivity of the body, > 0
 
-The first conductor is the sensor: ``sense_capacitance`` is its charge over its potential at
+A body fills what its closed surface encloses except the conductors inside it (a coating
+or a potting); bodies may nest, and no surface may cross or touch another one
+(:mod:`elopt.physics.bem3d.bodies`). The first conductor is the sensor: ``sense_capacitance`` is its charge over its potential at
 the given drive (with a driven guard at the same potential this is the guarded sense
 capacitance). The standoff and tilt sensitivities (ground plane only, every conductor
 driven) are those of that charge: -dQ_0/dd / V_0 and dQ_0/dtheta / V_0 for the plane moved
@@ -51,11 +58,15 @@ from elopt.physics.electrodes.solvers import (
 from elopt.physics.electrodes.target_tilt import FF_PER_MRAD, FF_PER_UM
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Conductor, Layout
+from elopt.physics.media import DielectricRegion
 from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
 CONDUCTOR_KEYS = ("name", "file", "length_unit", "potential_V", "charge_C", "closed")
-GEOMETRY_KEYS = ("family", "conductors", "ground_plane")
+BODY_KEYS = ("name", "file", "length_unit", "eps_r")
+GEOMETRY_KEYS = ("family", "conductors", "bodies", "ground_plane")
+#: Largest relative permittivity of a body (that of :func:`elopt.physics.media.check_eps_r`).
+BODY_EPS_R_MAX = 1e6
 
 
 @dataclass(frozen=True)
@@ -71,6 +82,16 @@ class MeshConductorSpec:
 
 
 @dataclass(frozen=True)
+class MeshBodySpec:
+    """One dielectric body: its mesh file (absolute path, a closed surface), unit, eps_r."""
+
+    name: str
+    file: str
+    length_unit: str
+    eps_r: float
+
+
+@dataclass(frozen=True)
 class MeshFileParams:
     """Conductors from mesh files. ``drive_V`` is derived: the largest |potential_V|."""
 
@@ -78,6 +99,9 @@ class MeshFileParams:
         "", "one mesh file per conductor, with its unit and drive"
     )
     ground_plane: bool = parameter("", "grounded plane z = 0 below everything", default=False)
+    bodies: tuple[MeshBodySpec, ...] = parameter(
+        "", "one closed mesh file per dielectric body, with its unit and eps_r", default=()
+    )
     drive_V: float = parameter(
         "V", "largest |potential_V| (derived)", default=0.0, abs_high=DRIVE_V_MAX
     )
@@ -102,6 +126,28 @@ def _unknown(table: dict, allowed: tuple[str, ...], where: str) -> None:
             raise ElectrodeError(f"{where}.{key}: unknown key; allowed keys: {', '.join(allowed)}")
 
 
+def _tables(raw: Any, at: str, what: str, required: bool) -> list:
+    """``raw`` as a list of tables (non-empty when ``required``), else a one-line error."""
+    if (
+        not isinstance(raw, list)
+        or (required and not raw)
+        or not all(isinstance(t, dict) for t in raw)
+    ):
+        raise ElectrodeError(f"{at}: give one [[{at}]] table per {what}")
+    return raw
+
+
+def _file_table(table: dict, allowed: tuple[str, ...], at: str, base_dir: Path) -> Path:
+    """Check a conductor's or body's table (keys; name, file, length_unit non-empty strings)
+    and return its file's path, relative paths taken from ``base_dir``."""
+    _unknown(table, allowed, at)
+    for key in ("name", "file", "length_unit"):
+        if not isinstance(table.get(key), str) or not table[key]:
+            raise ElectrodeError(f"{at}.{key}: required, a non-empty string")
+    path = Path(table["file"])
+    return path if path.is_absolute() else base_dir / path
+
+
 class MeshFile(SolvedByPanels, ElectrodeFamily):
     """Any conductors given as triangle meshes (module docstring)."""
 
@@ -120,35 +166,45 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
     def params_from_table(self, geometry: dict, where: str, base_dir: Path) -> MeshFileParams:
         """Read the ``[geometry]`` table (file paths relative to ``base_dir``)."""
         _unknown(geometry, GEOMETRY_KEYS, where)
-        raw = geometry.get("conductors")
-        if not isinstance(raw, list) or not raw or not all(isinstance(t, dict) for t in raw):
-            raise ElectrodeError(
-                f"{where}.conductors: give one [[{where}.conductors]] table per conductor "
-                "(name, file, length_unit, potential_V or charge_C)"
-            )
+        raw = _tables(
+            geometry.get("conductors"),
+            f"{where}.conductors",
+            "conductor (name, file, length_unit, potential_V or charge_C)",
+            required=True,
+        )
         specs = []
         for k, t in enumerate(raw):
             at = f"{where}.conductors[{k}]"
-            _unknown(t, CONDUCTOR_KEYS, at)
-            for key in ("name", "file", "length_unit"):
-                if not isinstance(t.get(key), str) or not t[key]:
-                    raise ElectrodeError(f"{at}.{key}: required, a non-empty string")
+            path = _file_table(t, CONDUCTOR_KEYS, at, base_dir)
             pot = _number(t["potential_V"], f"{at}.potential_V") if "potential_V" in t else None
             chg = _number(t["charge_C"], f"{at}.charge_C") if "charge_C" in t else None
             closed = t.get("closed", True)
             if not isinstance(closed, bool):
                 raise ElectrodeError(f"{at}.closed: expected true or false, got {closed!r}")
-            path = Path(t["file"])
-            if not path.is_absolute():
-                path = base_dir / path
             specs.append(
                 MeshConductorSpec(t["name"], str(path), t["length_unit"], pot, chg, closed)
             )
+        bodies = self._bodies_from_table(geometry.get("bodies", []), where, base_dir)
         ground = geometry.get("ground_plane", False)
         if not isinstance(ground, bool):
             raise ElectrodeError(f"{where}.ground_plane: expected true or false, got {ground!r}")
         drive = max((abs(s.potential_V) for s in specs if s.potential_V is not None), default=0.0)
-        return MeshFileParams(tuple(specs), ground, drive)
+        return MeshFileParams(tuple(specs), ground, bodies, drive)
+
+    @staticmethod
+    def _bodies_from_table(raw: Any, where: str, base_dir: Path) -> tuple[MeshBodySpec, ...]:
+        tables = _tables(
+            raw, f"{where}.bodies", "dielectric body (name, file, length_unit, eps_r)", False
+        )
+        out = []
+        for k, t in enumerate(tables):
+            at = f"{where}.bodies[{k}]"
+            path = _file_table(t, BODY_KEYS, at, base_dir)
+            if "eps_r" not in t:
+                raise ElectrodeError(f"{at}.eps_r: required, the body's relative permittivity")
+            eps_r = _number(t["eps_r"], f"{at}.eps_r")
+            out.append(MeshBodySpec(t["name"], str(path), t["length_unit"], eps_r))
+        return tuple(out)
 
     def validate(self, params: MeshFileParams) -> None:
         names = [s.name for s in params.conductors]
@@ -168,6 +224,22 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
                 )
             if not Path(s.file).is_file():
                 problems.append(f"{at}: no such mesh file {s.file}")
+        body_names = [b.name for b in params.bodies]
+        dup = sorted({n for n in body_names if body_names.count(n) > 1 or n in names})
+        if dup:
+            problems.append(
+                f"body names must be unique and differ from conductor names, repeated: {dup}"
+            )
+        for k, b in enumerate(params.bodies):
+            at = f"bodies[{k}] '{b.name}'"
+            if not (0.0 < b.eps_r <= BODY_EPS_R_MAX):
+                problems.append(f"{at}: eps_r must lie in (0, {BODY_EPS_R_MAX:g}], got {b.eps_r:g}")
+            if b.length_unit not in LENGTH_UNITS:
+                problems.append(
+                    f"{at}: length_unit {b.length_unit!r} is not one of {', '.join(LENGTH_UNITS)}"
+                )
+            if not Path(b.file).is_file():
+                problems.append(f"{at}: no such mesh file {b.file}")
         drive = parameter_specs(MeshFileParams)[-1]
         broken = drive.info.broken_rule(drive.name, params.drive_V)
         if broken:
@@ -177,22 +249,28 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
 
     def build(self, params: MeshFileParams, *, eps_r: float = 1.0, options: Any = None) -> Layout:
         self.validate(params)
-        conductors = []
-        for s in params.conductors:
-            try:
-                surface = load_mesh_surface(
-                    s.file,
-                    length_unit=s.length_unit,
-                    closed=s.closed,
-                    name=s.name,
-                    max_triangles=MAX_SOLVE_PANELS // 4**ESTIMATE_LEVEL,
-                )
-            except GeometryError as exc:
-                raise ElectrodeError(f"{self.name}: {exc}") from None
-            conductors.append(Conductor(s.name, surface, s.potential_V, s.charge_C))
-        layout = Layout(tuple(conductors), eps_r=eps_r, ground_plane=params.ground_plane)
+        conductors = [
+            Conductor(
+                s.name,
+                self._load(s.file, s.length_unit, s.closed, s.name),
+                s.potential_V,
+                s.charge_C,
+            )
+            for s in params.conductors
+        ]
+        regions = [
+            DielectricRegion(b.name, self._load(b.file, b.length_unit, True, b.name), b.eps_r)
+            for b in params.bodies
+        ]
+        layout = Layout(
+            tuple(conductors),
+            eps_r=eps_r,
+            ground_plane=params.ground_plane,
+            regions=tuple(regions),
+        )
         counts = estimated_panels(layout)
-        biggest = max(params.conductors, key=lambda s: counts[s.name])
+        files = (*params.conductors, *params.bodies)
+        biggest = max(files, key=lambda s: counts[s.name])
         base = counts[biggest.name] / 4.0**ESTIMATE_LEVEL
         refuse_too_many_panels(
             self.name,
@@ -201,6 +279,18 @@ class MeshFile(SolvedByPanels, ElectrodeFamily):
             "refinement level multiplies them by 4; coarsen that mesh",
         )
         return layout
+
+    def _load(self, file: str, unit: str, closed: bool, name: str):
+        try:
+            return load_mesh_surface(
+                file,
+                length_unit=unit,
+                closed=closed,
+                name=name,
+                max_triangles=MAX_SOLVE_PANELS // 4**ESTIMATE_LEVEL,
+            )
+        except GeometryError as exc:
+            raise ElectrodeError(f"{self.name}: {exc}") from None
 
     def measure(
         self,
@@ -272,4 +362,4 @@ def _plane_metrics_undefined(layout: Layout, first: str, v0: float) -> str | Non
     return None
 
 
-__all__ = ["MeshConductorSpec", "MeshFile", "MeshFileOptions", "MeshFileParams"]
+__all__ = ["MeshBodySpec", "MeshConductorSpec", "MeshFile", "MeshFileOptions", "MeshFileParams"]

@@ -89,6 +89,29 @@ LAYER_EPS_SENSITIVITY = MetricSpec(
     "either",
 )
 
+# ---------------------------------------------------------------- touch keys (board_pad)
+BASELINE = MetricSpec(
+    "baseline_capacitance_pF",
+    "pF",
+    "sensor charge / sensor drive with no target, every other conductor grounded",
+    "either",
+)
+TOUCH_SIGNAL = MetricSpec(
+    "touch_signal_fF", "fF", "rise of that capacitance when the target arrives", "maximize"
+)
+SIGNAL_TO_BASELINE = MetricSpec(
+    "signal_to_baseline_pct", "%", "touch signal / baseline capacitance", "maximize"
+)
+FILM_SHIFT = MetricSpec(
+    "film_shift_fF",
+    "fF",
+    "rise of the baseline capacitance under a water film on the cover (no film: 0)",
+    "minimize",
+)
+FALSE_TRIGGER_MARGIN = MetricSpec(
+    "false_trigger_margin", "1", "touch signal / film shift (no film: nan)", "maximize"
+)
+
 # ---------------------------------------------------------------- size
 OUTER_RADIUS = MetricSpec("outer_radius_mm", "mm", "outer radius of the guard", "minimize")
 OUTER_SIZE = MetricSpec("outer_size_mm", "mm", "longer outer side of the guard", "minimize")

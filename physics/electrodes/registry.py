@@ -13,6 +13,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from elopt.physics.electrodes.base import ElectrodeFamily, MetricSpec, ParameterSpec
+from elopt.physics.electrodes.board_pad import BoardPad
 from elopt.physics.electrodes.coplanar import Coplanar
 from elopt.physics.electrodes.guarded_disk import GuardedDisk
 from elopt.physics.electrodes.guarded_pad import GuardedPad
@@ -22,6 +23,7 @@ from elopt.physics.electrodes.uniform_field import UniformField
 from elopt.physics.errors import ElectrodeError
 
 FAMILIES: dict[str, ElectrodeFamily] = {
+    BoardPad.name: BoardPad(),
     Coplanar.name: Coplanar(),
     GuardedDisk.name: GuardedDisk(),
     GuardedPad.name: GuardedPad(),

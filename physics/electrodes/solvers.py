@@ -14,7 +14,7 @@ from typing import Any
 from elopt.physics.bem3d import solve_3d
 from elopt.physics.bem3d.surfaces import MESH_MAX_PANELS
 from elopt.physics.bem_axi.mesh import build_mesh
-from elopt.physics.bem_axi.solve import default_order, solve_axisymmetric
+from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_axisymmetric
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout
 from elopt.physics.refinement import SolveOptions
@@ -36,9 +36,10 @@ ESTIMATE_LEVEL = 1
 
 
 def estimated_panels(layout: Layout, level: int = ESTIMATE_LEVEL) -> dict[str, float]:
-    """Panels of each conductor of a 3-D layout at ``level`` (name -> count), counted
-    without meshing."""
-    return {c.name: float(c.shape.estimated_panels(level)) for c in layout.conductors}
+    """Panels of each conductor and dielectric body of a 3-D layout at ``level`` (name ->
+    count), counted without meshing."""
+    shapes = [*layout.conductors, *layout.regions]
+    return {c.name: float(c.shape.estimated_panels(level)) for c in shapes}
 
 
 def refuse_too_many_panels(family: str, counts: dict[str, float], cause: str) -> None:
@@ -58,7 +59,8 @@ def check_coarse_mesh(family: str, layout: Layout, solve_options: SolveOptions) 
     if not layout.homogeneous:
         return
     tightest = min(solve_options.rel_accuracy, solve_options.peak_rel_accuracy or 1.0)
-    n0 = build_mesh(layout, 0, solve_options.order or default_order(tightest)).n_nodes
+    order = solve_options.order or default_order(tightest)
+    n0 = build_mesh(layout, 0, order, mesh_rule(order, tightest)).n_nodes
     if n0 > MAX_COARSE_UNKNOWNS:
         raise ElectrodeError(
             f"{family}: the coarsest mesh of this design already has {n0} unknowns, more than "

@@ -15,6 +15,13 @@ memory, panels per level, the error estimate against the request. Target: <= 8 s
 <= 300 MB with the request met.
 
     python tests/benchmarks/bench_bem3d.py --pad-only   # Part 3 alone
+
+Part 4 solves a conducting sphere (a = 1) in a concentric dielectric shell (b = 2,
+eps_r = 4) to rel_accuracy 1e-3 in a fresh process: wall time, peak memory, panels per
+level, the memory the solver estimated for its finest level, and the error against the
+closed form C/(4 pi eps0 a) = 1.6 (docs/references.md item 11).
+
+    python tests/benchmarks/bench_bem3d.py --coated-only   # Part 4 alone
 """
 
 from __future__ import annotations
@@ -88,6 +95,55 @@ print(json.dumps({
     "sense_fF": ev.metrics["sense_capacitance_fF"],
 }))
 """
+
+
+_COATED = r"""
+import json, math, resource, time, warnings
+warnings.filterwarnings("ignore")
+from elopt.physics.bem3d import solve_3d, sphere
+from elopt.physics.bem3d.panels import discretise
+from elopt.physics.bem3d.solve import DENSE_MAX_PANELS, estimate_memory_bytes
+from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
+from elopt.physics.media import DielectricRegion
+layout = Layout(
+    (driven("ball", sphere(1.0, subdivisions=1), 1.0),),
+    regions=(DielectricRegion("shell", sphere(2.0, subdivisions=1), 4.0),),
+)
+t0 = time.perf_counter()
+sol = solve_3d(layout, rel_accuracy=1e-3)
+wall = time.perf_counter() - t0
+fine = sol.levels[-1]
+method = "dense" if fine.panels.n <= DENSE_MAX_PANELS else "fast"
+c = sol.capacitance_matrix_F[0, 0] / (4 * math.pi * EPS0_F_PER_M)
+rich = sol.capacitance_matrix_extrapolated_F
+print(json.dumps({
+    "wall_s": wall, "peak_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024,
+    "panels": [lv.panels.n for lv in sol.levels], "method": method,
+    "estimated_bytes": estimate_memory_bytes(discretise(layout, fine.panels.level), method, 2),
+    "stored_bytes": fine.stats.stored_bytes, "iterations": fine.stats.iterations,
+    "error": c / 1.6 - 1, "estimate": sol.rel_error_estimate, "met": bool(sol.accuracy_met),
+    "richardson_error": (
+        None if rich is None else rich[0, 0] / (4 * math.pi * EPS0_F_PER_M) / 1.6 - 1
+    ),
+}))
+"""
+
+
+def coated_sphere() -> None:
+    subprocess.run([sys.executable, "-c", _WARM], check=True)  # compile the kernels once
+    out = subprocess.run(
+        [sys.executable, "-c", _COATED], capture_output=True, text=True, check=True
+    )
+    r = json.loads(out.stdout.strip().splitlines()[-1])
+    rich = "n/a" if r["richardson_error"] is None else f"{r['richardson_error']:+.1e}"
+    print("\nPart 4: conducting sphere in a dielectric shell (item 11) to rel_accuracy 1e-3")
+    print(
+        f"wall {r['wall_s']:.1f} s, peak {r['peak_bytes'] / 1e6:.0f} MB (estimated "
+        f"{r['estimated_bytes'] / 1e6:.0f} MB, stored {r['stored_bytes'] / 1e6:.0f} MB, "
+        f"{r['method']}), panels {'/'.join(str(n) for n in r['panels'])}, error "
+        f"{r['error']:+.1e} (Richardson {rich}), estimate {r['estimate']:.2g} "
+        f"({'met' if r['met'] else 'not met'})"
+    )
 
 
 def pad_demo() -> None:
@@ -187,12 +243,18 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="sizes up to about 2e4 panels only")
     ap.add_argument("--pad-only", action="store_true", help="Part 3 alone")
+    ap.add_argument("--coated-only", action="store_true", help="Part 4 alone")
     args = ap.parse_args()
+    if args.coated_only:
+        coated_sphere()
+        return
     if not args.pad_only:
         sizes = SIZES[:3] if args.quick else SIZES
         scaling(sizes)
         cube_error_vs_time(3 if args.quick else 4)
     pad_demo()
+    if not args.pad_only:
+        coated_sphere()
 
 
 if __name__ == "__main__":

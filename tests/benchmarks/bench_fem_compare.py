@@ -1,7 +1,8 @@
 """The axisymmetric BEM against a general P2 finite-element solve of the same guarded probes.
 
-Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9]`` (needs the ``bench``
-extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their ratio.
+Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9] [--stages]`` (needs the
+``bench`` extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their
+ratio; ``--stages`` first prints the BEM solve's CPU time per stage (median of the repeats).
 
 Probes (guarded_disk family): sensor radius 2 mm, gap 0.1 mm, guard to 4 mm, thickness
 0.5 mm; (a) filleted 0.05 mm at 0.2 mm standoff, (b) sharp-cornered at 0.5 mm standoff. The
@@ -17,11 +18,13 @@ fillets), u = 1 V on sensor and guard, 0 on the plane z = 0 and on a quarter cir
 R_out = 25 x the guard's outer radius (truncation); natural condition on the axis. C_sense is the
 Galerkin reaction 2 pi eps sum over the sensor's degrees of freedom of (K u), as accurate as
 the energy. The mesh size grows linearly with the distance from the conductors (slope 0.25)
-and from the corners (slope 0.3), from sizes proportional to a scale s. The scales 8, 5.6, 4,
-2.8, 2, 1.4, 1, 0.7, 0.5 are tried in turn and the first whose error against the reference is at most
-1e-4 is timed (meshing, assembly, solve and charge; median of the repeats): this favours the
-FEM, which is not charged for the search nor for an error estimate of its own. The truncation
-error is stated as the change of C_sense when R_out doubles on that mesh size.
+and from the corners (slope 0.3), from sizes proportional to a scale s. The scales 16, 11.3, 8,
+5.6, 4, 2.8, 2, 1.4, 1, 0.7, 0.5 are tried in turn until one has an error against the reference
+of at most 1e-4; three geometric bisections between it and the coarser scale that failed then
+find a coarser mesh that still meets 1e-4 where there is one, and the coarsest scale met is
+timed (meshing, assembly, solve and charge; median of the repeats): this favours the FEM, which
+is not charged for the search nor for an error estimate of its own. The truncation error is
+stated as the change of C_sense when R_out doubles on that mesh size.
 """
 
 from __future__ import annotations
@@ -40,7 +43,9 @@ from elopt.physics.layout import EPS0_F_PER_M
 from elopt.physics.threads import limit_blas_threads
 
 REQUEST = 1e-4
-SCALES = (8.0, 5.6, 4.0, 2.8, 2.0, 1.4, 1.0, 0.7, 0.5)
+SCALES = (16.0, 11.3, 8.0, 5.6, 4.0, 2.8, 2.0, 1.4, 1.0, 0.7, 0.5)
+#: Geometric bisections of the scale between the first that meets the request and the one before.
+BISECTIONS = 3
 TARGET_RATIO = 30.0
 MM = 1e-3
 
@@ -152,6 +157,27 @@ def fem_sense_F(p: GuardedDiskParams, scale: float, r_out_m: float) -> tuple[flo
     return 2.0 * math.pi * EPS0_F_PER_M * float((k @ u)[dof_s].sum()), basis.N
 
 
+def coarsest_scale(params: GuardedDiskParams, ref_F: float, r_out_m: float) -> float | None:
+    """The coarsest FEM mesh scale found whose C_sense is within REQUEST of ``ref_F``."""
+
+    def meets(scale: float) -> bool:
+        return abs(fem_sense_F(params, scale, r_out_m)[0] / ref_F - 1.0) <= REQUEST
+
+    fine = next((k for k, s in enumerate(SCALES) if meets(s)), None)
+    if fine is None:
+        return None
+    if fine == 0:
+        return SCALES[0]
+    lo, hi = SCALES[fine], SCALES[fine - 1]  # lo meets the request, hi does not
+    for _ in range(BISECTIONS):
+        mid = math.sqrt(lo * hi)
+        if meets(mid):
+            lo = mid
+        else:
+            hi = mid
+    return lo
+
+
 def median_time(fn, repeats: int) -> tuple[float, float, object]:
     """Median wall and CPU seconds of ``repeats`` calls after one warm-up, and the last result.
 
@@ -166,11 +192,55 @@ def median_time(fn, repeats: int) -> tuple[float, float, object]:
     return statistics.median(walls), statistics.median(cpus), out
 
 
+def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
+    """Median CPU ms per stage of the BEM solve at REQUEST (levels as the solve takes them)."""
+    from elopt.physics.bem_axi import operators
+    from elopt.physics.bem_axi.ring_sums import collocation_sum
+    from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_level
+    from elopt.physics.refinement import estimate_error
+
+    def cpu_ms(fn) -> float:
+        return 1e3 * median_time(fn, repeats)[1]
+
+    layout = GuardedDisk().build(params)
+    sol = bem_run(params, REQUEST)
+    order = default_order(REQUEST)
+    rule = mesh_rule(order, REQUEST)
+    out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
+    out["level-0 grading"] = cpu_ms(
+        lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
+    ) - cpu_ms(lambda: axi_mesh.build_mesh(layout, 0, order, rule))
+    for lv in sol.levels:
+        m = lv.mesh
+        tag = f"L{m.level} (N {m.n_nodes})"
+        out[f"{tag} mesh"] = cpu_ms(lambda m=m: axi_mesh.build_mesh(layout, m.level, order, rule))
+        r, z = m.points_m[:, 0].copy(), m.points_m[:, 1].copy()
+        far = cpu_ms(lambda r=r, z=z, w=m.weights_m: collocation_sum(r, z, w, layout.ground_plane))
+        own = cpu_ms(lambda m=m: operators._self_blocks(m))
+        whole = cpu_ms(lambda m=m: operators.collocation_matrix(m, layout.ground_plane))
+        out[f"{tag} far sum"] = far
+        out[f"{tag} self panels"] = own
+        out[f"{tag} near panels"] = whole - far - own
+        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m)) - whole
+    out["estimate (C)"] = cpu_ms(lambda: estimate_error(sol.levels, sol.convergence).capacitance)
+    out["peak search (only when asked)"] = cpu_ms(
+        lambda: [solve_level(layout, lv.mesh).peaks() for lv in sol.levels]
+    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh) for lv in sol.levels])
+    return out
+
+
 def main() -> None:
     limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=9)
+    parser.add_argument("--stages", action="store_true", help="print the BEM's stage times")
     args = parser.parse_args()
+    if args.stages:
+        for label, fillet_mm, standoff_mm in (("filleted", 0.05, 0.2), ("sharp", 0.0, 0.5)):
+            stages = stage_times_ms(probe_params(fillet_mm, standoff_mm), args.repeats)
+            print(f"BEM stages, {label} probe, CPU ms (median of {args.repeats}):")
+            for name, ms in stages.items():
+                print(f"  {name:32s} {ms:7.2f}")
     rows = []
     for label, fillet_mm, standoff_mm in (
         ("filleted 0.05 mm, d 0.2 mm", 0.05, 0.2),
@@ -182,14 +252,11 @@ def main() -> None:
         t_bem, c_bem, sol = median_time(lambda p=params: bem_run(p, REQUEST), args.repeats)
         bem_err = abs(sense_F(sol.capacitance_matrix_F) / ref - 1.0)
         r_out = 25.0 * (2.0 + 0.1 + 1.9) * MM
-        chosen = None
-        for scale in SCALES:
-            c, n_dofs = fem_sense_F(params, scale, r_out)
-            if abs(c / ref - 1.0) <= REQUEST:
-                chosen = scale
-                break
+        chosen = coarsest_scale(params, ref, r_out)
         if chosen is None:
-            raise SystemExit(f"{label}: the FEM did not reach {REQUEST:g} down to scale {scale}")
+            raise SystemExit(
+                f"{label}: the FEM did not reach {REQUEST:g} down to scale {SCALES[-1]}"
+            )
         t_fem, cpu_fem, (c_fem, n_dofs) = median_time(
             lambda p=params, s=chosen, r=r_out: fem_sense_F(p, s, r), max(3, args.repeats // 3)
         )
@@ -223,7 +290,7 @@ def main() -> None:
     for label, tb, cb, eb, est, n, tf, cf, ef, trunc, scale, dofs, _ in rows:
         print(
             f"{label:28s} {tb * 1e3:8.2f} {cb * 1e3:7.2f} {eb:8.1e} {est:8.1e} {n:5d} "
-            f"{tf * 1e3:8.1f} {cf * 1e3:7.1f} {ef:8.1e} {trunc:8.1e} {scale:5.1f} {dofs:6d} "
+            f"{tf * 1e3:8.1f} {cf * 1e3:7.1f} {ef:8.1e} {trunc:8.1e} {scale:5.2f} {dofs:6d} "
             f"{tf / tb:11.1f}x {cf / cb:5.1f}x"
         )
     print(

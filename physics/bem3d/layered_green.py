@@ -1,0 +1,570 @@
+"""Green's function of a planar layer stack for the 3-D panel solver.
+
+The potential of a unit point charge in the layered background (``Layout.layers`` with the
+medium and an optional grounded plane z = 0, :class:`elopt.physics.media.LayerStack`) replaces
+1 / (4 pi eps |x - x'|). Every operator here returns integrals in the homogeneous path's units
+(:mod:`.operators`, :mod:`.evaluate`): the potential is the result divided by eps0 times the
+medium's eps_r. Nothing is truncated beyond the proven 1e-13 Hankel tails.
+
+*Two half-spaces* (one interface z_i, no ground plane): exact by one image with the static
+coefficient (docs/references.md item 15, Jackson sec. 4.4). Sources and targets on the same
+side s: (G + r_s G*) / e_s with r_s = (e_s - e_other) / (e_s + e_other), G* the source mirrored
+in z_i; on opposite sides or on the interface: 2 G / (e_lo + e_hi). A panel lies on the side of
+its centroid, so a body crossing the interface should have mesh edges along it.
+
+*General stacks*: every conductor lies in one slab of :class:`elopt.physics.layer_spectrum.
+StackSpectrum` (a layer, the medium between layers, or above the ground plane; its faces may be
+touched). For targets in any slab t, the shared spectrum gives separable terms
+coef(k) e^{-k a(z, z')}; each term's limit coef(inf) is an exact image, limit / |x - x*| with the
+source panel mapped to z* = t_ref - t_sign s_sign (z' - s_ref) (a mirror in a slab face, or
+the source itself for the direct and the transmitted terms), integrated over the panel by the
+closed-form / Gauss rules of :mod:`.panel_integrals`. The smooth remainder coef - limit is
+tabulated in (rho, a) by :mod:`.layer_tables` and integrated over each panel by a rule chosen
+from its length (:data:`RULE_FACTORS`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import partial
+
+import numpy as np
+from numba import njit, prange
+
+from elopt.physics.bem3d import panel_integrals as pint
+from elopt.physics.bem3d.layer_tables import (
+    TABLE_REL_TOL,
+    RemainderTable,
+    SpectralTerm,
+    build_table,
+    hermite_uv,
+)
+from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.layer_spectrum import StackSpectrum
+from elopt.physics.media import LayerStack
+
+FOUR_PI = 4.0 * math.pi
+#: The remainder of a target-panel pair is integrated by the panel's centroid when its length
+#: L = (rho^2 + min(a + delta)^2)^(1/2) is at least RULE_FACTORS[0] panel diameters, by the
+#: 3-point rule when at least RULE_FACTORS[1], by the 7-point rule when at least
+#: RULE_FACTORS[2], else by 7 points on sub-triangles no wider than the smallest L of the
+#: tables. Measured on a board stack, relative to the pair's remainder: centroid about
+#: 0.05 (h / L)^2 (2e-4 at L = 16 h), 3 points 0.002 (h / L)^4, 7 points under 1e-4 for
+#: L >= h. The two sides of an interface integrate different remainders, so the discrete
+#: fields are continuous across it to this accuracy (the kernel itself to the tables').
+RULE_FACTORS = (16.0, 3.0, 1.0)
+#: Most halvings of a panel for the sub-triangle rule.
+MAX_SPLITS = 4
+_BLOCK = 4096
+
+
+@dataclass(frozen=True)
+class Placement:
+    """A remainder term placed in (z, z'): a = alpha + st z + ss z'."""
+
+    term: SpectralTerm
+    alpha: float
+    st: float
+    ss: float
+
+
+@dataclass(frozen=True)
+class Image:
+    """An exact image: ``limit`` / |x - x*| with the source's height mapped to c0 + m z'."""
+
+    limit: float
+    c0: float
+    m: float
+
+
+@dataclass(frozen=True)
+class _Part:
+    """Some panels: corners (N, 3, 3), centroids (N, 3), areas (N,), diameters (N,)."""
+
+    corners: np.ndarray
+    centroids: np.ndarray
+    areas: np.ndarray
+    diams: np.ndarray
+
+    def __post_init__(self) -> None:
+        for name in ("corners", "centroids", "areas", "diams"):
+            object.__setattr__(self, name, np.ascontiguousarray(getattr(self, name)))
+
+
+def _mapped(corners: np.ndarray, centroids: np.ndarray, c0: float, m: float):
+    """Corners and centroids with z -> c0 + m z (m = -1: a mirror, +1 with c0 = 0: itself)."""
+    if m == 1.0 and c0 == 0.0:
+        return corners, centroids
+    c = corners.copy()
+    c[..., 2] = c0 + m * c[..., 2]
+    g = centroids.copy()
+    g[:, 2] = c0 + m * g[:, 2]
+    return np.ascontiguousarray(c), np.ascontiguousarray(g)
+
+
+def _distinct_images(images: list[Image], part: _Part) -> list[tuple[float, tuple]]:
+    """(summed limit, (corners, centroids)) per distinct image geometry: a panel lying in a
+    mirror plane is its own image, so its integrals are computed once."""
+    out: list[tuple[float, tuple]] = []
+    for img in images:
+        geom = _mapped(part.corners, part.centroids, img.c0, img.m)
+        for i, (coef, other) in enumerate(out):
+            if np.array_equal(other[0], geom[0]):
+                out[i] = (coef + img.limit, other)
+                break
+        else:
+            out.append((img.limit, geom))
+    return out
+
+
+def _remainder_coef(spec: StackSpectrum, t: int, s: int, idx: int, k: np.ndarray) -> np.ndarray:
+    term = spec.terms(t, s, k)[idx]
+    return term.coef - term.limit
+
+
+def _remainder_bound(spec: StackSpectrum, t: int, s: int, idx: int, k_cut: float) -> float:
+    return spec.terms(t, s, np.array([k_cut]), k_cut)[idx].bound
+
+
+def _exponent_span(spec: StackSpectrum) -> float:
+    """Twice the span of the finite slab bounds: the longest exponent length e^{-2 k d} of a
+    reflection function (inf: none). The k-panels resolve it (see :mod:`.layer_tables`)."""
+    zs = [v for sl in spec.slabs for v in (sl.z_lo, sl.z_hi) if math.isfinite(v)]
+    span = max(zs) - min(zs) if zs else 0.0
+    return 2.0 * span if span > 0 else math.inf
+
+
+class LayeredBackground:
+    """The layered Green's function of one stack for the panels of some conductors.
+
+    ``conductor_heights``: per conductor (z_min, z_max, name); in a general stack each
+    conductor lies in one slab (conductors may lie in different slabs).
+    """
+
+    def __init__(
+        self, stack: LayerStack, conductor_heights: list[tuple[float, float, str]], size: float
+    ):
+        self.stack = stack
+        self.size = float(size)
+        self.eps_medium = float(stack.medium_eps_r)
+        self.table_rel_tol = TABLE_REL_TOL
+        self.factors = RULE_FACTORS
+        self.tables: list[RemainderTable] = []
+        ifaces = stack.interfaces_m
+        if len(ifaces) == 1 and not stack.ground_plane:
+            self.kind = "two_half_spaces"
+            self.z_i = float(ifaces[0])
+            self.e_lo = stack.eps_r_below(self.z_i)
+            self.e_hi = stack.eps_r_above(self.z_i)
+        else:
+            self.kind = "stack"
+            self.spectrum = StackSpectrum(stack)
+            self.conductor_slab = np.array(
+                [
+                    self._find_source_slab(lo, hi, f"conductor '{n}'")
+                    for lo, hi, n in conductor_heights
+                ],
+                dtype=int,
+            )
+
+    # -- two half-spaces ---------------------------------------------------------------------
+    def _side(self, z: np.ndarray) -> np.ndarray:
+        tol = 1e-12 * self.size
+        return np.where(z > self.z_i + tol, 1, np.where(z < self.z_i - tol, -1, 0))
+
+    def _half_space_weights(self, st: int, ss: int) -> tuple[float, float]:
+        """(direct, image) weights for target side st and source side ss, times eps_medium."""
+        e_lo, e_hi = self.e_lo, self.e_hi
+        if st == ss and st != 0:
+            e_s, e_o = (e_hi, e_lo) if st > 0 else (e_lo, e_hi)
+            return self.eps_medium / e_s, self.eps_medium * (e_s - e_o) / (e_s + e_o) / e_s
+        return 2.0 * self.eps_medium / (e_lo + e_hi), 0.0
+
+    # -- general stacks ------------------------------------------------------------------------
+    def _find_source_slab(self, z_min: float, z_max: float, what: str) -> int:
+        """The slab holding every source height (on an interface only: the slab above)."""
+        tol = 1e-12 * self.size
+        mid = z_min if z_max - z_min <= tol else 0.5 * (z_min + z_max)
+        s = int(self.spectrum.slab_of(np.array([mid]))[0])
+        slab = self.spectrum.slabs[max(s, 0)]
+        if s < 0 or z_min < slab.z_lo - tol or z_max > slab.z_hi + tol:
+            face = slab.z_lo if (s < 0 or z_min < slab.z_lo - tol) else slab.z_hi
+            raise GeometryError(
+                f"{what}: span heights {z_min:.6g} .. {z_max:.6g} m across the layer interface "
+                f"at z = {face:.6g} m; every conductor must lie in one slab between layer "
+                "interfaces (it may rest on a face, or straddle the single interface of two "
+                "half-spaces)"
+            )
+        return s
+
+    def target_slabs(self, pts: np.ndarray) -> np.ndarray:
+        """Slab (M,) of each target (on an interface: the slab above); points below a grounded
+        plane are refused."""
+        z = pts[:, 2]
+        out = self.spectrum.slab_of(z)
+        if np.any(out < 0):
+            zb = float(z[np.argmax(out < 0)])
+            raise GeometryError(f"point at z = {zb:.6g} m lies below the grounded plane z = 0")
+        return out
+
+    def slab_terms(self, target: int, s: int) -> tuple[list[Image], list[Placement]]:
+        """Exact images and remainder placements for targets in slab ``target``, sources in
+        slab ``s``."""
+        spec = self.spectrum
+        images: list[Image] = []
+        placements: list[Placement] = []
+        length = _exponent_span(spec)
+        for idx, term in enumerate(spec.terms(target, s, np.array([1.0]), 1.0)):
+            if term.direct:
+                images.append(Image(term.limit, 0.0, 1.0))
+                continue
+            m = -float(term.t_sign * term.s_sign)
+            if term.limit != 0.0:
+                c0 = term.t_ref + term.t_sign * term.s_sign * term.s_ref
+                images.append(Image(term.limit, float(c0), m))
+            if term.bound > 0.0 and math.isfinite(term.decay):
+                st = SpectralTerm(
+                    partial(_remainder_coef, spec, target, s, idx),
+                    float(term.decay),
+                    partial(_remainder_bound, spec, target, s, idx),
+                    length,
+                )
+                alpha = -term.t_sign * term.t_ref - term.s_sign * term.s_ref
+                placements.append(Placement(st, float(alpha), term.t_sign, term.s_sign))
+        return images, placements
+
+    def _tables(self, placements, targets, sources) -> tuple[np.ndarray, np.ndarray]:
+        """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair."""
+        lo = np.minimum(targets.min(axis=0), sources.min(axis=0))
+        hi = np.maximum(targets.max(axis=0), sources.max(axis=0))
+        rho_max = float(np.hypot(*(hi[:2] - lo[:2]))) * 1.001 + 1e-12 * self.size
+        zt, zs = targets[:, 2], sources[:, 2]
+        ranges = []
+        for p in placements:
+            at = (p.st * zt.min(), p.st * zt.max())
+            as_ = (p.ss * zs.min(), p.ss * zs.max())
+            a_lo = max(p.alpha + min(at) + min(as_), 0.0)
+            a_hi = max(p.alpha + max(at) + max(as_), 0.0)
+            ranges.append((a_lo, a_hi))
+        rho_scale = min(r[0] + p.term.delta for r, p in zip(ranges, placements, strict=True))
+        built = [
+            build_table(p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol, rho_scale)
+            for p, (a_lo, a_hi) in zip(placements, ranges, strict=True)
+        ]
+        self.tables = built
+        nu = max(t.values.shape[0] for t in built)
+        nv = max(t.values.shape[1] for t in built)
+        tabs = np.zeros((len(placements), nu, nv, 4))
+        prm = np.zeros((len(placements), 11))
+        for i, (p, tb) in enumerate(zip(placements, built, strict=True)):
+            n1, n2 = tb.values.shape[:2]
+            tabs[i, :n1, :n2] = tb.values
+            floor = math.exp(tb.v0)
+            prm[i] = (tb.lam, tb.delta, tb.hu, tb.v0, tb.hv, p.alpha, p.st, p.ss, n1, n2, floor)
+        return tabs, prm
+
+    # -- operators -----------------------------------------------------------------------------
+    def dense_matrix(self, panels) -> np.ndarray:
+        """(N, N) collocation matrix at the centroids, in the units of
+        :func:`elopt.physics.bem3d.operators.dense_matrix`."""
+        corners, centroids, areas, diams = panels.kernel_arrays
+        rules = pint.rules()
+
+        def plain(c, m):
+            return pint.dense_potential_matrix(centroids, c, m, areas, diams, False, *rules)
+
+        if self.kind == "two_half_spaces":
+            direct = plain(corners, centroids)
+            image = plain(*_mapped(corners, centroids, 2.0 * self.z_i, -1.0))
+            st = ss = self._side(centroids[:, 2])
+            wd = np.empty(direct.shape)
+            wi = np.empty(direct.shape)
+            for a in (-1, 0, 1):
+                for b in (-1, 0, 1):
+                    sel = np.ix_(st == a, ss == b)
+                    wd[sel], wi[sel] = self._half_space_weights(a, b)
+            return (direct * wd + image * wi) / FOUR_PI
+        out = np.empty((panels.n, panels.n))
+        own = self.conductor_slab[panels.owner]
+        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, own):
+            out[np.ix_(rows, cols)] = self._block(tgt, part, t, s, None)[:, 0]
+        out *= self.eps_medium / FOUR_PI
+        return out
+
+    def _slab_pairs(self, panels, pts: np.ndarray, slabs: np.ndarray):
+        """(rows, cols, targets, panels part, target slab, source slab) for every pair of a
+        slab holding targets (``slabs`` (M,) of ``pts``) and one holding sources."""
+        corners, centroids, areas, diams = panels.kernel_arrays
+        src = self.conductor_slab[panels.owner]
+        for t in np.unique(slabs):
+            rows = np.nonzero(slabs == t)[0]
+            tgt = np.ascontiguousarray(pts[rows])
+            for s in np.unique(src):
+                cols = np.nonzero(src == s)[0]
+                part = _Part(corners[cols], centroids[cols], areas[cols], diams[cols])
+                yield rows, cols, tgt, part, int(t), int(s)
+
+    def _block(self, tgt: np.ndarray, part: _Part, t: int, s: int, dens: np.ndarray | None):
+        """Targets (M, 3) in slab t, panels ``part`` in slab s: the matrix (M, 1, N) of
+        potential integrals, or with ``dens`` (N, K) the sums (M, 4, K)."""
+        images, placements = self.slab_terms(t, s)
+        rules = pint.rules()
+        n = len(part.areas)
+        acc = np.zeros((len(tgt), 1, n) if dens is None else (len(tgt), 4, dens.shape[1]))
+        for coef, (c, m) in _distinct_images(images, part):
+            if dens is None:
+                v = pint.dense_potential_matrix(tgt, c, m, part.areas, part.diams, False, *rules)
+                v = v[:, None, :]
+            else:
+                v = _sums(tgt, c, m, part.areas, part.diams, dens)
+            v *= coef
+            acc += v
+        if placements:
+            tabs, prm = self._tables(placements, tgt, part.corners.reshape(-1, 3))
+            rules_ = source_rules(part, float(np.min(prm[:, 10])))
+            factors = np.array(self.factors)
+            if dens is None:
+                acc += remainder_matrix(tgt, rules_, factors, tabs, prm)[:, None, :]
+            else:
+                acc += remainder_sums(tgt, rules_, factors, dens, tabs, prm)
+        return acc
+
+    def potential_and_gradient(
+        self, panels, dens: np.ndarray, pts: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points."""
+        corners, centroids, areas, diams = panels.kernel_arrays
+        out = np.zeros((len(pts), 4, dens.shape[1]))
+        if self.kind == "two_half_spaces":
+            st, ss = self._side(pts[:, 2]), self._side(centroids[:, 2])
+            mirrored = _mapped(corners, centroids, 2.0 * self.z_i, -1.0)
+            for b in (-1, 0, 1):
+                cols = np.nonzero(ss == b)[0]
+                if not len(cols):
+                    continue
+                a_, d_ = areas[cols], diams[cols]
+                d = _sums(pts, corners[cols], centroids[cols], a_, d_, dens[cols])
+                m = _sums(pts, mirrored[0][cols], mirrored[1][cols], a_, d_, dens[cols])
+                for a in (-1, 0, 1):
+                    rows = st == a
+                    wd, wi = self._half_space_weights(a, b)
+                    out[rows] += wd * d[rows] + wi * m[rows]
+            out /= FOUR_PI
+            return out[:, 0], out[:, 1:]
+        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, pts, self.target_slabs(pts)):
+            out[rows] += self._block(tgt, part, t, s, np.ascontiguousarray(dens[cols]))
+        out *= self.eps_medium / FOUR_PI
+        return out[:, 0], out[:, 1:]
+
+    def eps_r_at(self, points: np.ndarray) -> np.ndarray:
+        """Background permittivity (M,) at points (M, 3) (on an interface: the value above)."""
+        return self.stack.eps_r_at(np.asarray(points)[:, 2])
+
+
+def _split_bary(m: int) -> np.ndarray:
+    """(4^m, 3, 3) barycentric corners of the m-fold midpoint subdivision of a triangle."""
+    tris = [np.eye(3)]
+    for _ in range(m):
+        nxt = []
+        for a, b, c in tris:
+            ab, bc, ca = (a + b) / 2, (b + c) / 2, (c + a) / 2
+            nxt += [np.array(t) for t in ((a, ab, ca), (ab, b, bc), (ca, bc, c), (ab, bc, ca))]
+        tris = nxt
+    return np.array(tris)
+
+
+def source_rules(part: _Part, l_min: float) -> tuple[np.ndarray, ...]:
+    """Per panel: centroid (N, 3), area (N,), diameter (N,), then points (N, q, 3) and weights
+    (N, q) in m^2 of the 3-point rule, the 7-point rule and the 7-point rule on sub-triangles
+    no wider than l_min (at most :data:`MAX_SPLITS` halvings)."""
+    corners, centroids, areas, diams = part.corners, part.centroids, part.areas, part.diams
+    p3 = np.einsum("qa,nac->nqc", pint.RULE3_BARY, corners)
+    w3 = areas[:, None] * pint.RULE3_W[None, :]
+    p7 = np.einsum("qa,nac->nqc", pint.RULE7_BARY, corners)
+    w7 = areas[:, None] * pint.RULE7_W[None, :]
+    m = min(MAX_SPLITS, max(0, math.ceil(math.log2(max(float(diams.max()) / l_min, 1.0)))))
+    sub = _split_bary(m)
+    bary = np.einsum("qa,sab->sqb", pint.RULE7_BARY, sub).reshape(-1, 3)
+    wf = np.tile(pint.RULE7_W, len(sub)) / len(sub)
+    pf = np.einsum("qa,nac->nqc", bary, corners)
+    return (
+        centroids,
+        areas,
+        diams,
+        np.ascontiguousarray(p3),
+        np.ascontiguousarray(w3),
+        np.ascontiguousarray(p7),
+        np.ascontiguousarray(w7),
+        np.ascontiguousarray(pf),
+        np.ascontiguousarray(areas[:, None] * wf[None, :]),
+    )
+
+
+def _sums(pts, corners, centroids, areas, diams, dens) -> np.ndarray:
+    out = np.empty((len(pts), 4, dens.shape[1]))
+    c, m = np.ascontiguousarray(corners), np.ascontiguousarray(centroids)
+    a, d = np.ascontiguousarray(areas), np.ascontiguousarray(diams)
+    q = np.ascontiguousarray(dens)
+    for s in range(0, len(pts), _BLOCK):
+        out[s : s + _BLOCK] = pint.direct_sums(
+            np.ascontiguousarray(pts[s : s + _BLOCK]), c, m, a, d, q, False, *pint.rules()
+        )
+    return out
+
+
+@njit(cache=True, inline="always")
+def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
+    """res = (sum T, sum dT/drho, sum dT/dz) over the placed terms at one pair."""
+    rs = prm[0, 0]
+    u = math.asinh(rho / rs)
+    f = 0.0
+    fr = 0.0
+    fz = 0.0
+    for t in range(prm.shape[0]):
+        ad = max(prm[t, 5] + prm[t, 6] * zt + prm[t, 7] * zs + prm[t, 1], prm[t, 10])
+        hermite_uv(
+            tabs[t],
+            int(prm[t, 8]),
+            int(prm[t, 9]),
+            prm[t, 2],
+            prm[t, 3],
+            prm[t, 4],
+            u,
+            math.log(ad),
+            buf,
+        )
+        f += buf[0]
+        fr += buf[1]
+        fz += buf[2] / ad * prm[t, 6]
+    res[0] = f
+    res[1] = fr / math.sqrt(rho * rho + rs * rs)
+    res[2] = fz
+
+
+@njit(cache=True, inline="always")
+def _add_point(tx, ty, tz, sx, sy, sz, w, tabs, prm, buf, res, acc) -> None:
+    dx = tx - sx
+    dy = ty - sy
+    rho = math.sqrt(dx * dx + dy * dy)
+    _terms_at(tabs, prm, rho, tz, sz, buf, res)
+    acc[0] += w * res[0]
+    if rho > 0.0:
+        acc[1] += w * res[1] * dx / rho
+        acc[2] += w * res[1] * dy / rho
+    acc[3] += w * res[2]
+
+
+@njit(cache=True)
+def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
+    """acc = remainder (value, gradient) at target t of panel j, rule chosen by the length."""
+    cen, area, diam, p3, w3, p7, w7, pf, wf = rules
+    for c in range(4):
+        acc[c] = 0.0
+    dx = t[0] - cen[j, 0]
+    dy = t[1] - cen[j, 1]
+    amin = np.inf
+    for k in range(prm.shape[0]):
+        amin = min(amin, prm[k, 5] + prm[k, 6] * t[2] + prm[k, 7] * cen[j, 2] + prm[k, 1])
+    length = math.sqrt(dx * dx + dy * dy + amin * amin)
+    if length >= factors[0] * diam[j]:
+        c = cen[j]
+        _add_point(t[0], t[1], t[2], c[0], c[1], c[2], area[j], tabs, prm, buf, res, acc)
+        return
+    if length >= factors[1] * diam[j]:
+        pts, wts = p3, w3
+    elif length >= factors[2] * diam[j]:
+        pts, wts = p7, w7
+    else:
+        pts, wts = pf, wf
+    for q in range(pts.shape[1]):
+        s = pts[j, q]
+        _add_point(t[0], t[1], t[2], s[0], s[1], s[2], wts[j, q], tabs, prm, buf, res, acc)
+
+
+@njit(cache=True, parallel=True)
+def remainder_matrix(targets, rules, factors, tabs, prm) -> np.ndarray:
+    """(M, N): the remainder integrated over every panel at every target (``rules`` from
+    :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`)."""
+    m = targets.shape[0]
+    n = rules[0].shape[0]
+    out = np.empty((m, n))
+    for i in prange(m):
+        buf = np.empty(3)
+        res = np.empty(3)
+        acc = np.empty(4)
+        for j in range(n):
+            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+            out[i, j] = acc[0]
+    return out
+
+
+@njit(cache=True, parallel=True)
+def remainder_sums(targets, rules, factors, dens, tabs, prm) -> np.ndarray:
+    """(M, 4, K): sum over panels of dens times the remainder and its gradient at targets."""
+    m = targets.shape[0]
+    n = rules[0].shape[0]
+    nk = dens.shape[1]
+    out = np.zeros((m, 4, nk))
+    for i in prange(m):
+        buf = np.empty(3)
+        res = np.empty(3)
+        acc = np.empty(4)
+        for j in range(n):
+            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+            for c in range(4):
+                for k in range(nk):
+                    out[i, c, k] += dens[j, k] * acc[c]
+    return out
+
+
+def layered_background(layout, mesh, owner: np.ndarray) -> LayeredBackground | None:
+    """The background of ``layout``'s layers for conductor panels ``mesh`` (``owner`` (N,) the
+    conductor of each panel); None when the layers change no permittivity."""
+    if not layout.layers:
+        return None
+    stack = layout.layer_stack
+    if len(stack.interfaces_m) == 0 and all(ly.eps_r == stack.medium_eps_r for ly in stack.layers):
+        return None
+    if len(stack.interfaces_m) == 0:
+        return None
+    if layout.applied_field_V_per_m != 0.0:
+        raise GeometryError(
+            "layout: an applied field with planar layers is not supported in 3-D (the "
+            f"unperturbed field is not uniform), got applied_field_V_per_m = "
+            f"{layout.applied_field_V_per_m:g}"
+        )
+    z = mesh.corners_m[..., 2]
+    heights = []
+    for k, c in enumerate(layout.conductors):
+        zk = z[owner == k]
+        heights.append((float(zk.min()), float(zk.max()), c.name))
+    return LayeredBackground(stack, heights, float(mesh.size_m))
+
+
+def check_bodies_without_layers(layout) -> None:
+    """Dielectric bodies in a layered background are not supported yet: one GeometryError."""
+    if layout.layers and layout.regions:
+        layers = ", ".join(f"'{ly.name}'" for ly in layout.layers)
+        regions = ", ".join(f"'{r.name}'" for r in layout.regions)
+        raise GeometryError(
+            f"layout: dielectric bodies ({regions}) together with planar layers ({layers}) "
+            "are not supported by the 3-D solver yet; give either bodies or layers"
+        )
+
+
+def extra_dense_bytes(n_panels: int) -> int:
+    """Memory beyond the homogeneous dense estimate while a layered matrix is assembled: two
+    more (N, N) blocks (the block being built and one image's integrals)."""
+    return 2 * 8 * n_panels * n_panels
+
+
+def layered_method(method: str) -> str:
+    """The solve method of a level with planar layers: dense (the hierarchical matrix does not
+    take the layered kernel yet; large levels are refused by the memory estimate)."""
+    if method == "fast":
+        raise SolverError(
+            "method='fast' does not take planar layers yet; use method='dense' or 'auto' "
+            "(layered levels are solved densely, within the memory limit)"
+        )
+    return "dense"
