@@ -49,13 +49,21 @@ c = a + decay (:meth:`StackSpectrum.tail_bound`). The bound holds at any contras
 costs nothing extra.
 
 **Quadrature** (:func:`hankel_rule`): composite Gauss-Legendre panels on [0, K], the first
-no wider than 20 / a_max (a_max the largest exponent) and growing by at most half their left
-end (so exp(-k a) is resolved for every a present), then at most ``width`` wide.
+no wider than 20 / a_max (a_max the largest exponent) and than the distance of the nearest
+pole of the reflection denominators (at k = ln|G G'| / (2d) < 0, near 0 at high contrast),
+growing by at most half their left end (so exp(-k a) and the pole are resolved), then at most
+``width`` wide.
 
-API (stable): :class:`Slab`, :class:`SpectralTerm`, :class:`StackSpectrum` (``slabs``,
-``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``quadrature``, ``exponent_range``,
-``panel_width``),
-:class:`HankelRule`, :func:`hankel_rule`, :data:`TAIL_TOL`.
+API (stable): :class:`Slab`, :class:`SpectralTerm` (``coef``, ``limit``, ``t_sign``,
+``t_ref``, ``s_sign``, ``s_ref``, ``bound``, ``decay``, ``direct``, ``target_length``,
+``source_length``), :class:`StackSpectrum` (``slabs``, ``n_slabs``, ``r_up``, ``r_dn``,
+``has_lo``, ``has_hi``, ``slab_of``, ``terms``, ``tail_bound``, ``cutoff``, ``quadrature``,
+``exponent_range``, ``panel_width``, ``pole_distance``), :class:`HankelRule`,
+:func:`hankel_rule`, :data:`TAIL_TOL`. Typical use for a block of targets in slab t and
+sources in slab s: ``rule = sp.quadrature(t, s, zt, zs, r_max, tol)``; then for every term of
+``sp.terms(t, s, rule.k)`` add the exact image ``limit / sqrt(rho^2 + a^2)`` (a = the summed
+exponent lengths, or |z - z'| for ``direct``) and ``sum(rule.w * J0(k rho) * (coef - limit)
+* exp(-k a))`` (point charges; for rings J0(k r) J0(k r') r'/2 in place of J0(k rho)).
 """
 
 from __future__ import annotations
@@ -435,7 +443,24 @@ class StackSpectrum:
         ranges = [self.exponent_range(t, z_targets, z_sources) for t in terms]
         c_min = min(r[0] + t.decay for r, t in zip(ranges, terms, strict=True))
         a_max = max(r[1] for r in ranges)
-        return hankel_rule(k_max, self.panel_width(r_max, c_min), a_max)
+        return hankel_rule(k_max, self.panel_width(r_max, c_min), a_max, self.pole_distance)
+
+    @property
+    def pole_distance(self) -> float:
+        """Distance (1/m) from k = 0 of the nearest pole of the reflection denominators,
+        min over finite slabs of -ln(m_u m_d) / (2 d), m the larger of |Gamma(0)| and |r| of
+        each face (inf without two faces). High contrast brings the pole near k = 0
+        (|r| -> 1), so the first k-panels are graded towards it."""
+        gu, gd = self._gammas(np.zeros(1))
+        out = math.inf
+        for i, slab in enumerate(self.slabs):
+            if not (self.has_lo(i) and self.has_hi(i)):
+                continue
+            m_u = max(abs(float(gu[i][0])), abs(self.r_up[i]))
+            m_d = max(abs(float(gd[i][0])), abs(self.r_dn[i]))
+            if m_u * m_d > 0:
+                out = min(out, -math.log(min(m_u * m_d, 1.0 - 1e-16)) / (2 * slab.thickness_m))
+        return out
 
     def panel_width(self, r_max: float, decay_m: float) -> float:
         """Widest k-panel (1/m): 5 / r_max for J0(k r) J0(k r'), 8 / decay_m for the
@@ -449,10 +474,15 @@ class StackSpectrum:
         return min(widths)
 
 
-def hankel_rule(k_max: float, width: float, a_max: float) -> HankelRule:
-    """Composite Gauss-Legendre rule on [0, k_max]: the first panel at most
-    20 / a_max wide, each next one at most half its left end wider, none above ``width``."""
-    first = min(width, _FIRST_PANEL_EXPONENT / a_max) if a_max > 0 else width
+def hankel_rule(
+    k_max: float, width: float, a_max: float, pole_distance: float = math.inf
+) -> HankelRule:
+    """Composite Gauss-Legendre rule on [0, k_max]: the first panel at most 20 / a_max and
+    ``pole_distance`` wide, each next one at most half its left end wider, none above
+    ``width``."""
+    first = min(width, pole_distance)
+    if a_max > 0:
+        first = min(first, _FIRST_PANEL_EXPONENT / a_max)
     edges = [0.0]
     h = first
     while edges[-1] < k_max:

@@ -7,6 +7,7 @@ import math
 import numpy as np
 import pytest
 from scipy.special import j0
+from study_support.layer_images import slab_on_substrate_images
 
 from elopt.physics.layer_spectrum import TAIL_TOL, StackSpectrum
 from elopt.physics.media import LayerStack, PlanarLayer
@@ -169,5 +170,25 @@ def test_grounded_slab_against_image_series(eps):
 
     for rho, z in ((0.0, 0.6), (0.2, 0.31), (1.5, 0.06), (0.05, 2.0)):
         assert _point_potential(sp, rho, z, h) == pytest.approx(above(rho, z), rel=1e-11)
+    # near the grounded plane phi -> 0: there the bound is absolute, 1e-12 of the scale 1/h
     for rho, z in ((0.0, 0.049), (0.3, 0.025), (2.0, 0.001)):
-        assert _point_potential(sp, rho, z, h) == pytest.approx(inside(rho, z), rel=1e-11)
+        assert _point_potential(sp, rho, z, h) == pytest.approx(
+            inside(rho, z), rel=1e-11, abs=1e-12 / h
+        )
+
+
+@pytest.mark.parametrize(("eps2", "eps3"), [(4.0, 2.0), (80.0, 4.0), (2.0, 80.0), (80.0, 1.0)])
+def test_slab_on_a_half_space_against_image_series(eps2, eps3):
+    # Unit charge at h over a slab (-d < z < 0) on a half-space, targets above, inside and in
+    # the half-space under the slab (two faces away): the multiple-reflection series of
+    # docs/references.md item 15 (study_support.layer_images). High contrast puts a pole of the
+    # reflection denominators near k = 0, which the graded first k-panels must resolve.
+    d, h = 0.4, 1.0
+    layers = (PlanarLayer("slab", eps2, -d, 0.0), PlanarLayer("sub", eps3, -math.inf, -d))
+    sp = StackSpectrum(LayerStack(layers, 1.0))
+    pts = np.array(
+        [[0.5, 0.5], [1.0, 1.5], [0.2, 0.1], [0.3, -0.1], [1.2, -0.35], [0.1, -0.6], [2.0, -3.0]]
+    )
+    ref = slab_on_substrate_images(h, 1.0, eps2, eps3, d, pts)
+    got = np.array([_point_potential(sp, rho, z, h) for rho, z in pts])
+    np.testing.assert_allclose(got, ref, rtol=1e-11)

@@ -6,6 +6,9 @@ the axis, along a conductor, along the ground plane or along another region. Onl
 that separate two dielectrics become interfaces (the axis bounds no area; a piece on a
 conductor or on the grounded plane carries the conductor's charge). A piece that lies only
 partly on a conductor or another region must be split where it leaves it; the error says so.
+A region may cross planar layer faces (its pieces split at each face); the part of a face
+inside it becomes an interface of its own (the region's medium on both sides, the background's
+permittivity jumping), see :func:`_face_chords`.
 """
 
 from __future__ import annotations
@@ -228,12 +231,14 @@ def build_dielectric_geometry(layout: Layout) -> DielectricGeometry:
                 f"{pts[:, 1].min():.6g} m); every point must have z >= 0"
             )
         for zi in stack.interfaces_m:
-            if pts[:, 1].min() < zi + tol and pts[:, 1].max() > zi - tol:
-                raise GeometryError(
-                    f"region '{reg.name}': reaches the layer interface z = {zi:.6g} m (spans z = "
-                    f"{pts[:, 1].min():.6g} .. {pts[:, 1].max():.6g} m); a region must lie "
-                    "strictly inside one layer or gap"
-                )
+            for piece in curve.pieces:
+                zz = _piece_points(piece)[:, 1]
+                if zz.min() < zi - tol and zz.max() > zi + tol:
+                    raise GeometryError(
+                        f"region '{reg.name}': a boundary piece from {_fmt(piece.start)} to "
+                        f"{_fmt(piece.end)} crosses the layer interface z = {zi:.6g} m; split "
+                        "it at the interface"
+                    )
     _check_overlaps(layout, curves, outlines, tol)
     chains: list[InterfaceChain] = []
     junctions: list[tuple[float, float]] = []
@@ -271,6 +276,7 @@ def build_dielectric_geometry(layout: Layout) -> DielectricGeometry:
                 run, outside = [], []
         if run:
             chains.append(_chain(reg, run, outside, sign))
+        chains.extend(_face_chords(reg, curve, outlines[k], layout, tol))
         done.append(curve)
     for ch in chains:
         for end in (ch.curve.start, ch.curve.end):
@@ -287,6 +293,42 @@ def build_dielectric_geometry(layout: Layout) -> DielectricGeometry:
         outlines=outlines,
         junctions=np.asarray(junctions, float).reshape(-1, 2),
     )
+
+
+def _face_chords(
+    reg: DielectricRegion, curve: Curve, outline: np.ndarray, layout: Layout, tol: float
+) -> list[InterfaceChain]:
+    """Interfaces where a layer face runs through the region: the region's medium is on both
+    sides, but the background's permittivity jumps, so the face carries polarisation charge
+    relative to the background (normal +z; dielectric_solve's kappa = (eps_b- - eps_b+) / 2).
+    """
+    pts = curve.sample(32)
+    closed = [region_outline(c.shape) for c in layout.conductors if c.shape.kind != "sheet"]
+    out = []
+    for zi in layout.layer_stack.interfaces_m:
+        if not (pts[:, 1].min() < zi - tol and pts[:, 1].max() > zi + tol):
+            continue
+        cuts = [0.0]
+        for poly in (outline, *closed):
+            a, b = poly[:-1], poly[1:]
+            on = np.abs(a[:, 1] - zi) <= tol
+            cuts.extend(a[on, 0])
+            da, db = a[:, 1] - zi, b[:, 1] - zi
+            cross = (da * db < 0) & ~on & (np.abs(db) > tol)
+            f = da[cross] / (da[cross] - db[cross])
+            cuts.extend(a[cross, 0] + f * (b[cross, 0] - a[cross, 0]))
+        cuts = np.unique(np.round(np.asarray(cuts) / tol) * tol)
+        for ra, rb in zip(cuts[:-1], cuts[1:], strict=True):
+            if rb - ra <= 2 * tol:
+                continue
+            mid = np.array([[0.5 * (ra + rb), zi]])
+            if not point_in_region(mid, outline)[0] or distance_to_curve(mid, curve)[0] <= tol:
+                continue
+            if any(point_in_region(mid, c)[0] for c in closed):
+                continue
+            chord = Curve((Segment((float(ra), float(zi)), (float(rb), float(zi))),))
+            out.append(InterfaceChain(reg.name, chord, reg.eps_r, (reg.eps_r,), -1.0))
+    return out
 
 
 def _chain(reg: DielectricRegion, run: list, outside: list[float], sign: float) -> InterfaceChain:

@@ -2,7 +2,9 @@
 
 Points are (r, z) in metres. Densities on conductors are free charge (C/m^2); the surface
 field of a face is sigma_free / (eps0 eps_r of the medium touching that face). Potentials and
-fields are available anywhere in the gap that holds the conductors, inside regions included.
+fields are available anywhere, inside regions and in every layer included (0 below a grounded
+plane); an applied field E0 is the field in the layout's medium (D_z continuous through the
+layers).
 """
 
 from __future__ import annotations
@@ -13,8 +15,10 @@ import numpy as np
 
 from elopt.physics.bem_axi.dielectric_solve import (
     DielectricModel,
+    applied_displacement,
     solve_dielectric_level,
 )
+from elopt.physics.bem_axi.layered_kernel import applied_field_z, applied_potential
 from elopt.physics.bem_axi.solution import _plane_quadrature
 from elopt.physics.errors import SolverError
 from elopt.physics.geometry import Arc, Curve, EllipseArc, Segment
@@ -55,6 +59,7 @@ class DielectricSolution(ChargeSolution):
         self.mesh = fine.mesh
         self.level = fine.mesh.level
         self.n_unknowns = fine.mesh.n_nodes
+        self._d0 = applied_displacement(layout)
         self.capacitance_matrix_F = fine.capacitance_F
         self.potentials_V, self._u = fine.excitation()
         self.charges_C = fine.capacitance_F @ self.potentials_V + fine.applied_charges_C
@@ -68,7 +73,6 @@ class DielectricSolution(ChargeSolution):
             raise SolverError(f"points must have shape (M, 2) of (r, z) in m, got {pts.shape}")
         if np.any(pts[:, 0] < 0):
             raise SolverError("points must have r >= 0")
-        self._fine.kernel.check_targets(pts)
         return pts
 
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
@@ -80,7 +84,7 @@ class DielectricSolution(ChargeSolution):
                 for i in range(0, len(pts), _CHUNK)
             ]
         )
-        return phi - self.layout.applied_field_V_per_m * pts[:, 1]
+        return phi + applied_potential(self.layout.layer_stack, self._d0, pts[:, 1])
 
     def field_at(self, points_m: np.ndarray) -> np.ndarray:
         pts = self._points(points_m)
@@ -91,7 +95,7 @@ class DielectricSolution(ChargeSolution):
                 for i in range(0, len(pts), _CHUNK)
             ]
         )
-        e[:, 1] += self.layout.applied_field_V_per_m
+        e[:, 1] += applied_field_z(self.layout.layer_stack, self._d0, pts[:, 1])
         return e
 
     def eps_r_at(self, points_m: np.ndarray) -> np.ndarray:

@@ -8,7 +8,11 @@ accounted for by q on their boundaries: the polarisation charge relative to the 
 
 Conductor node x on conductor k (first kind):
 
-    (1/eps0) int G_b(x, x') q(x') ds' = V_k + E0 z.
+    (1/eps0) int G_b(x, x') q(x') ds' = V_k - phi0(z),
+
+phi0 the unperturbed potential of the applied field: E0 in the layout's medium, D_z = eps0
+eps_m E0 continuous through the layers, so phi0 = -eps_m E0 int_0^z dz / eps_r(z) (piecewise
+linear; -E0 z without layers).
 
 Interface node x between eps_- (inside the region) and eps_+ (outside), normal n from - to +.
 With E^{+-} the normal fields on either side, the principal value E^PV = (E^+ + E^-)/2 (the
@@ -17,9 +21,13 @@ jump of the background displacement eps_b+ E^+ - eps_b- E^- = q / eps0 (eps_b+- 
 background just off either side; equal except on a layer face), no free charge on a
 dielectric, eps_+ E^+ = eps_- E^-, is the second-kind equation
 
-    q(x) + 2 eps0 kappa(x) E^PV[q](x) = -2 eps0 kappa(x) E0 n_z,
+    q(x) + 2 eps0 kappa(x) E^PV[q](x) = -eps0 eps_m E0 n_z (eps_+/eps_b+ - eps_-/eps_b-)
+                                         (eps_b+ + eps_b-) / (eps_+ + eps_-),
     kappa = (eps_+ eps_b- - eps_- eps_b+) / (eps_+ + eps_-)   (= eps_b lambda off faces,
-    lambda = (eps_+ - eps_-) / (eps_+ + eps_-)).
+    lambda = (eps_+ - eps_-) / (eps_+ + eps_-)),
+
+the right side from the applied normal field eps_m E0 n_z / eps_b+- on either side (-2 eps0
+kappa E0 n_z without layers).
 
 E^PV is taken from the means M(d) of the normal fields a distance d off both sides
 (computed with the graded near-field rules; the mean cancels the jump exactly), extrapolated
@@ -49,7 +57,7 @@ from elopt.physics.bem_axi.dielectric_geometry import (
     piece_media,
     region_outline,
 )
-from elopt.physics.bem_axi.layered_kernel import LayeredKernel
+from elopt.physics.bem_axi.layered_kernel import LayeredKernel, applied_potential
 from elopt.physics.bem_axi.mesh import AxiMesh, build_mesh, panel_geometry
 from elopt.physics.bem_axi.solve import DENSE_BYTES_PER_ENTRY, default_order
 from elopt.physics.errors import GeometryError, SolverError
@@ -140,7 +148,8 @@ def dielectric_model(layout: Layout) -> DielectricModel:
         conductors.append(replace(cond, shape=curve))
     mesh_layout = Layout(tuple(conductors), eps_r=layout.eps_r, ground_plane=layout.ground_plane)
     chain_layouts = tuple(
-        Layout((driven(f"{ch.region}#{k}", ch.curve, 0.0),)) for k, ch in enumerate(geom.chains)
+        Layout((driven(f"{ch.region}#{k}", _graded_chain(ch.curve, geom, tol), 0.0),))
+        for k, ch in enumerate(geom.chains)
     )
     _check_layers(layout, size)
     return DielectricModel(layout, geom, mesh_layout, chain_layouts, size)
@@ -179,16 +188,32 @@ def face_height(piece, stack: LayerStack, size: float) -> float:
     return math.nan
 
 
+def _graded_chain(curve: Curve, geom: DielectricGeometry, tol: float) -> Curve:
+    """The chain's curve, graded like a corner at smooth joints where another interface ends
+    (a layer face crossing a region meets its side there: the density is singular)."""
+    ends = [
+        np.asarray(e)
+        for ch in geom.chains
+        if ch.curve is not curve
+        for e in (ch.curve.start, ch.curve.end)
+    ]
+    if not ends:
+        return curve
+    ends_arr = np.asarray(ends)
+    n = len(curve.pieces)
+    joints = [
+        i
+        for i in range(n - 1 if curve.kind != "ring" else n)
+        if np.min(np.linalg.norm(ends_arr - np.asarray(curve.pieces[i].end), axis=1)) <= tol
+    ]
+    return _GradedCurve(curve.pieces, tuple(joints)) if joints else curve
+
+
 def _check_layers(layout: Layout, size: float) -> None:
     stack = layout.layer_stack
     ifaces = stack.interfaces_m
     if len(ifaces) == 0:
         return
-    if layout.applied_field_V_per_m != 0.0:
-        raise GeometryError(
-            "layout: an applied field with planar layers is not supported (the unperturbed field "
-            f"differs per layer); got applied_field_V_per_m = {layout.applied_field_V_per_m:g}"
-        )
     two_half = len(ifaces) == 1 and not layout.ground_plane
     for cond in layout.conductors:
         pts = cond.shape.sample(32)
@@ -214,6 +239,13 @@ def _check_layers(layout: Layout, size: float) -> None:
                         f"{piece.start[1]:.6g}) to ({piece.end[0]:.6g}, {piece.end[1]:.6g}) m "
                         f"crosses the interface z = {zi:.6g} m; split it at the interface"
                     )
+
+
+def applied_displacement(layout: Layout) -> float:
+    """d0 = D0 / eps0 (V/m) of the applied field: E0 (``applied_field_V_per_m``) is the field
+    in the layout's medium, so D0 = eps0 eps_r E0 is uniform and E_z = d0 / eps_r(z) in every
+    layer (:func:`elopt.physics.bem_axi.layered_kernel.applied_potential`)."""
+    return layout.applied_field_V_per_m * layout.eps_r
 
 
 def _concat(meshes: list[AxiMesh]) -> AxiMesh:
@@ -297,7 +329,7 @@ class DielectricLevel:
                 idx,
                 u[:, None],
                 self.eps_bg,
-                self.layout.applied_field_V_per_m,
+                applied_displacement(self.layout),
             )
             faces[idx, 0] = EPS0_F_PER_M * self.eps_face[idx, 0] * e_front[:, 0]
             faces[idx, 1] = EPS0_F_PER_M * self.eps_face[idx, 1] * e_back[:, 0]
@@ -377,18 +409,9 @@ def build_level_mesh(model: DielectricModel, level: int, order: int):
 def principal_value_normal_field(
     kernel: LayeredKernel, mesh: AxiMesh, rows: np.ndarray, delta: np.ndarray
 ) -> np.ndarray:
-    """(R, N) principal value of the normal field at nodes ``rows`` per q ds'/eps0.
-
-    M(d) = mean of the normal fields a distance d off both sides = PV + c d + O(d^2) (the
-    one-sided normal derivatives differ); Richardson 2 M(d) - M(2d) removes the linear term.
-    """
-    nrm = mesh.normals[rows]
-    pts = mesh.points_m[rows]
-    means = []
-    for d in (delta, 2 * delta):
-        f = kernel.field(mesh, pts + d * nrm) + kernel.field(mesh, pts - d * nrm)
-        means.append(0.5 * np.einsum("mnc,mc->mn", f, nrm))
-    return 2 * means[0] - means[1]
+    """(R, N) principal value of the normal field at nodes ``rows`` per q ds'/eps0
+    (:meth:`LayeredKernel.principal_value_normal_field`)."""
+    return kernel.principal_value_normal_field(mesh, rows, delta)
 
 
 def sheet_face_fields(
@@ -404,12 +427,14 @@ def sheet_face_fields(
     The principal value (the mean over both sides) gives E_front - E_back = 2 PV; the jump of
     the background displacement gives eps_bg+ E_front + eps_bg- E_back = u (u = q / eps0 per
     column, eps_bg (N, 2) the background on the normal side and the other; they differ only for
-    a sheet resting on a layer face). The last column, the applied-field one, adds E0 n_z to PV.
+    a sheet resting on a layer face). The last column, the applied-field one, adds the mean of
+    the applied normal fields on both faces, d0 n_z (1/eps_bg+ + 1/eps_bg-) / 2 (d0 = D0 / eps0,
+    :func:`applied_displacement`), to PV.
     """
     delta = PV_OFFSET * mesh.length_m[rows // mesh.order][:, None]
     pv = principal_value_normal_field(kernel, mesh, rows, delta) @ u
-    pv[:, -1] += applied * mesh.normals[rows, 1]
     bp, bm = eps_bg[rows, 0][:, None], eps_bg[rows, 1][:, None]
+    pv[:, -1] += applied * mesh.normals[rows, 1] * 0.5 * (1.0 / bp + 1.0 / bm)[:, 0]
     e_back = (u[rows] - 2.0 * bp * pv) / (bp + bm)
     return e_back + 2.0 * pv, e_back
 
@@ -476,14 +501,14 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
         "conductors and regions",
     )
     n = len(layout.conductors)
-    e0 = layout.applied_field_V_per_m
+    d0 = applied_displacement(layout)
     owner = mesh.node_conductor
     sheet = np.array([c.shape.kind == "sheet" for c in layout.conductors])[owner[:nc]]
     eps_bg = background_sides(layout.layer_stack, mesh.points_m[:, 1], mesh.normals[:, 1], face_z)
     a = kernel.collocation(mesh)
     rhs = np.zeros((mesh.n_nodes, n + 1))
     rhs[np.arange(nc), owner[:nc]] = 1.0
-    rhs[:nc, n] = e0 * mesh.points_m[:nc, 1]
+    rhs[:nc, n] = -applied_potential(layout.layer_stack, d0, mesh.points_m[:nc, 1])
     if mesh.n_nodes > nc:
         ii = np.arange(nc, mesh.n_nodes)
         nrm = mesh.normals[ii]
@@ -495,12 +520,14 @@ def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> Di
         rows = scale[:, None] * pv
         rows[np.arange(len(ii)), ii] += 1.0
         a[ii] = rows
-        rhs[ii, n] = -scale * e0 * nrm[:, 1]
+        # applied normal field d0 n_z / eps_bg on either side (module text)
+        rho = eps_out / bp - eps_in / bm
+        rhs[ii, n] = -d0 * nrm[:, 1] * rho * (bp + bm) / (eps_out + eps_in)
     if not np.all(np.isfinite(a)):
         raise SolverError("dielectric system matrix has non-finite entries; check the geometry")
     lu = scipy.linalg.lu_factor(a, check_finite=False)
     u = scipy.linalg.lu_solve(lu, rhs, check_finite=False)
-    faces = _face_sigma(kernel, mesh, u, nc, eps_face, eps_bg, sheet, e0)
+    faces = _face_sigma(kernel, mesh, u, nc, eps_face, eps_bg, sheet, d0)
     sigma_free = faces.sum(axis=1)
     area = mesh.ring_area_m2[:nc]
     charges = np.zeros((n, n + 1))
