@@ -96,6 +96,34 @@ def test_sensitivities_against_resolves():
     assert 0 < ev.metrics["penetration_depth_50_um"] < ev.metrics["penetration_depth_90_um"]
 
 
+def test_penetration_share_starts_at_zero_and_grows(monkeypatch):
+    # The sensitivity held in a layer just above the metal is proportional to its thickness
+    # (the field energy density there is finite): a 4 nm layer over 10 um fingers holds well
+    # under 1 % of it (common practice, no source), and the share grows with the height.
+    from elopt.physics.bem2d import planar_stack
+
+    seen = []
+    original = planar_stack.penetration_depths_m
+
+    def spy(*args, **kwargs):
+        out = original(*args, **kwargs)
+        seen.append(out)
+        return out
+
+    monkeypatch.setattr(planar_stack, "penetration_depths_m", spy)
+    p = InterdigitatedParams(**{**BASE, "metal_thickness_um": 0.2})
+    fam = Interdigitated()
+    ev = fam.evaluate(
+        p, rel_accuracy=1e-4, options=InterdigitatedOptions(end_cells=False, penetration=True)
+    )
+    heights, frac = seen[-1][2], seen[-1][3]
+    assert heights[0] < 1e-8
+    assert 0 <= frac[0] < 0.01
+    assert all(b >= a - 1e-6 for a, b in zip(frac, frac[1:], strict=False))
+    # Half the share lies above a hair's height: the depth is a fraction of the pitch.
+    assert 0.05 < ev.metrics["penetration_depth_50_um"] < 20.0
+
+
 def test_coplanar_family_runs_with_back_plane():
     p = CoplanarParams(
         strip_count=3,
