@@ -19,6 +19,7 @@ from elopt.physics.bem_axi.dielectric_solve import (
     solve_dielectric_level,
 )
 from elopt.physics.bem_axi.layered_kernel import applied_field_z, applied_potential
+from elopt.physics.bem_axi.mesh import MeshRule
 from elopt.physics.bem_axi.solution import _plane_quadrature
 from elopt.physics.errors import SolverError
 from elopt.physics.geometry import Arc, Curve, EllipseArc, Segment
@@ -48,11 +49,17 @@ class DielectricSolution(ChargeSolution):
     point_dim = 2
 
     def __init__(
-        self, layout: Layout, model: DielectricModel, refinement: Refinement, order: int
+        self,
+        layout: Layout,
+        model: DielectricModel,
+        refinement: Refinement,
+        order: int,
+        rule: MeshRule | None = None,
     ) -> None:
         self.layout = layout
         self.model = model
         self.order = order
+        self.rule = rule
         self._adopt(refinement)
         fine = self.levels[-1]
         self._fine = fine
@@ -200,7 +207,7 @@ class DielectricSolution(ChargeSolution):
         """C (n, n) of a perturbed layout at this solution's finest level and order."""
         from elopt.physics.bem_axi.dielectric_solve import dielectric_model
 
-        level = solve_dielectric_level(dielectric_model(layout), self.level, self.order)
+        level = solve_dielectric_level(dielectric_model(layout), self.level, self.order, self.rule)
         return level.capacitance_F
 
     def central_difference(self, make_layout, step: float) -> FiniteDifference:

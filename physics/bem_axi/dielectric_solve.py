@@ -58,8 +58,8 @@ from elopt.physics.bem_axi.dielectric_geometry import (
     region_outline,
 )
 from elopt.physics.bem_axi.layered_kernel import LayeredKernel, applied_potential
-from elopt.physics.bem_axi.mesh import AxiMesh, build_mesh, panel_geometry
-from elopt.physics.bem_axi.solve import DENSE_BYTES_PER_ENTRY, default_order
+from elopt.physics.bem_axi.mesh import AxiMesh, MeshRule, build_mesh, panel_geometry
+from elopt.physics.bem_axi.solve import DENSE_BYTES_PER_ENTRY, default_order, mesh_rule
 from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.geometry import Corner, Curve
 from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
@@ -368,14 +368,15 @@ class DielectricLevel:
         )
 
 
-def build_level_mesh(model: DielectricModel, level: int, order: int):
+def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshRule | None = None):
     """Joined mesh and per-node data of one level: the media on conductor faces (Nc, 2), inside
-    and outside interface nodes (Ni,), and the layer face each node rests on (N,; NaN: none)."""
+    and outside interface nodes (Ni,), and the layer face each node rests on (N,; NaN: none).
+    ``rule`` grades the meshes (None: the default rule of ``order``)."""
     layout = model.layout
-    mesh_c = build_mesh(model.mesh_layout, level, order)
+    mesh_c = build_mesh(model.mesh_layout, level, order, rule)
     meshes = [mesh_c]
     for lay in model.chain_layouts:
-        meshes.append(build_mesh(lay, level, order))
+        meshes.append(build_mesh(lay, level, order, rule))
     mesh = _concat(meshes)
     nc = mesh_c.n_nodes
     normals = mesh.normals.copy()
@@ -490,10 +491,12 @@ def background_sides(
     return out
 
 
-def solve_dielectric_level(model: DielectricModel, level: int, order: int) -> DielectricLevel:
+def solve_dielectric_level(
+    model: DielectricModel, level: int, order: int, rule: MeshRule | None = None
+) -> DielectricLevel:
     """Assemble and solve one refinement level (one LU for every column)."""
     layout = model.layout
-    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(model, level, order)
+    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(model, level, order, rule)
     kernel = LayeredKernel(
         layout.layer_stack,
         mesh.points_m[:, 1],
@@ -561,15 +564,17 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     if not 2 <= order <= 16:
         raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
     model = dielectric_model(layout)
+    # the homogeneous solver's rule for this request (coarser grading for loose requests)
+    rule = mesh_rule(order, min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
 
     def plan(level: int) -> LevelPlan:
-        n = _count_nodes(model, level, order)
+        n = _count_nodes(model, level, order, rule)
         return LevelPlan(
             level,
             n,
             DENSE_BYTES_PER_ENTRY * n * n,
             "dense solve",
-            lambda _: solve_dielectric_level(model, level, order),
+            lambda _: solve_dielectric_level(model, level, order, rule),
         )
 
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
@@ -577,9 +582,9 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     # level on the dielectric test layouts, below it)
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
     refinement = refine(plan, opts, convergence)
-    return DielectricSolution(layout, model, refinement, order)
+    return DielectricSolution(layout, model, refinement, order, rule)
 
 
-def _count_nodes(model: DielectricModel, level: int, order: int) -> int:
-    n = build_mesh(model.mesh_layout, level, order).n_nodes
-    return n + sum(build_mesh(lay, level, order).n_nodes for lay in model.chain_layouts)
+def _count_nodes(model: DielectricModel, level: int, order: int, rule: MeshRule) -> int:
+    n = build_mesh(model.mesh_layout, level, order, rule).n_nodes
+    return n + sum(build_mesh(lay, level, order, rule).n_nodes for lay in model.chain_layouts)

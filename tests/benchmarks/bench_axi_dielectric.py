@@ -4,6 +4,16 @@ each solved to 1e-4 on C. Prints median time per solve, unknowns, estimated and 
 against a tight self-reference (1e-7 request). Goal: dielectrics cost at most 3x the bare probe.
 
     python3 tests/benchmarks/bench_axi_dielectric.py [repeats]
+
+Measured 2 Dec 2026, one run, one of the two cores busy with the test suite (median s, ratio to
+bare, unknowns, estimate, true error):
+    bare                0.005   1.00   208  1.4e-05  4.4e-06
+    spacer eps_r 3      0.188  37.2    616  1.7e-06  1.4e-07   (0.247 s, 1136 unknowns with the
+                                                                 ratio-2 mesh rule)
+    film 50 um eps_r 4  0.028   5.6    208  1.4e-05  4.4e-06   (0.030 s, 304 unknowns)
+The 3x goal is NOT met since the homogeneous solve became 4x faster (coarse mesh rule, compiled
+near rows): the bound-charge rows (principal-value field sums, near corrections) are not yet
+compiled like the homogeneous ones, and the spacer's triple junctions are graded like corners.
 """
 
 from __future__ import annotations
