@@ -13,7 +13,9 @@ The integral is cut at K where the proven tail bound B int_K^inf k^m e^{-k s} dk
 for T and its derivatives, s = lam) is below ``HANKEL_TAIL`` of the kernel scale
 1 / L^(m+1), L the layout size, and integrated by 16-point Gauss-Legendre panels no wider than
 5 / rho_max, 8 / lam and 4 / H (H the longest exponent length in c, so that
-c's slowest factors e^{-k H} change by at most e^4 per panel). T, dT/drho, dT/da and
+c's slowest factors e^{-k H} change by at most e^4 per panel; the first panel no wider than
+the distance of the stack's nearest pole from k = 0; the shared rule of
+:func:`elopt.physics.layer_spectrum.hankel_rule`). T, dT/drho, dT/da and
 d2T/drho da are tabulated on a uniform grid in u = asinh(rho / lam), v = ln(a + delta) and
 interpolated by bicubic Hermite patches (error O(h^4)). The grid is halved until the
 interpolation error measured against the integral itself at every cell centre is below
@@ -23,7 +25,7 @@ interpolation error measured against the integral itself at every cell centre is
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -31,8 +33,7 @@ from numba import njit
 from scipy.special import j0, j1
 
 from elopt.physics.errors import SolverError
-from elopt.physics.layer_spectrum import TAIL_TOL
-from elopt.physics.quadrature import gauss_legendre
+from elopt.physics.layer_spectrum import TAIL_TOL, hankel_rule
 
 #: Relative size of the truncated Hankel tail against the kernel scale (the shared value).
 HANKEL_TAIL = TAIL_TOL
@@ -68,26 +69,19 @@ def cutoff(s: float, size: float, bound: float | Callable[[float], float]) -> fl
     raise SolverError(f"no Hankel cutoff found for decay length {s:.3g} m")  # pragma: no cover
 
 
-def hankel_rule(k_max: float, widths: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
-    """Nodes and weights (Q,) of composite Gauss-Legendre panels on [0, k_max]."""
-    h = min(widths)
-    n = max(math.ceil(k_max / h), 4)
-    x, w = gauss_legendre(_GAUSS_K)
-    edges = np.linspace(0.0, k_max, n + 1)
-    a, b = edges[:-1, None], edges[1:, None]
-    return (0.5 * (a + b) + 0.5 * (b - a) * x).ravel(), (0.5 * (b - a) * w).ravel()
-
-
 @dataclass(frozen=True)
 class SpectralTerm:
     """c(k) of one term, its own decay ``delta`` (m), a bound B with |c| <= B e^{-k delta}
-    (may depend on the cutoff K), and ``length``: the longest exponent length H of the
-    factors e^{-k H} in c (m; the Gauss panels are no wider than 4 / H)."""
+    (may depend on the cutoff K), ``length``: the longest exponent length H of the factors
+    e^{-k H} in c (m; the Gauss panels are no wider than 4 / H), and ``pole_distance`` (1/m):
+    how far the nearest pole of c lies from k = 0 (the first panel is no wider; see
+    :attr:`elopt.physics.layer_spectrum.StackSpectrum.pole_distance`)."""
 
     coef: Callable[[np.ndarray], np.ndarray]
     delta: float
     bound: float | Callable[[float], float]
     length: float
+    pole_distance: float = math.inf
 
 
 @dataclass(frozen=True)
@@ -161,7 +155,8 @@ def build_table(
     k_max = cutoff(lam, size, term.bound)
     rs = lam if rho_scale is None else min(float(rho_scale), lam)
     widths = [5.0 / max(rho_max, 1e-300), 8.0 / lam, 4.0 / term.length]
-    k, w = hankel_rule(k_max, widths)
+    rule = hankel_rule(k_max, min(widths), 0.0, term.pole_distance)
+    k, w = rule.k, rule.w
     u_max = math.asinh(max(rho_max, 1e-3 * rs) / rs)
     v0 = math.log(lam)
     v_max = math.log(max(a_max + term.delta, lam * (1 + 1e-3)))

@@ -294,6 +294,7 @@ class LayeredBackground:
                     float(term.decay),
                     partial(_remainder_bound, spec, target, s, idx),
                     length,
+                    spec.pole_distance,
                 )
                 alpha = -term.t_sign * term.t_ref - term.s_sign * term.s_ref
                 placements.append(Placement(st, float(alpha), term.t_sign, term.s_sign))
