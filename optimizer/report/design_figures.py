@@ -371,9 +371,23 @@ def panel_fields(solution: Any) -> tuple[np.ndarray, np.ndarray, np.ndarray] | N
     # conductor panels come first; dielectric bodies' panels follow and carry no free charge
     nc = int(getattr(panels, "n_conductor_panels", len(sigma)))
     corners = np.asarray(mesh.vertices_m)[np.asarray(mesh.triangles)[:nc]] / MM
-    # total density / eps of the medium = free density / eps of the medium touching the panel
-    field = np.abs(np.asarray(sigma)[:nc]) / solution.layout.eps_F_per_m
+    # the solver's own face fields (the medium touching each face, both faces of a sheet)
+    field = solution.panel_field_V_per_m()
     return corners, field, np.asarray(panels.owner)[:nc]
+
+
+def facing_panels(
+    corners: np.ndarray, owner: np.ndarray, names: list[str], extra: dict
+) -> np.ndarray:
+    """(T,) bool: the electrode panels whose outward normal looks at the target — down by
+    default (a probe over its target); up when the family's report data say
+    ``target_side = "above"`` (a board pad under its cover). Conductors named in
+    ``extra["target_conductors"]`` are the target itself and left out."""
+    look = 1.0 if extra.get("target_side", "below") == "above" else -1.0
+    skip = set(extra.get("target_conductors", ()))
+    electrode = np.array([names[k] not in skip for k in owner], dtype=bool)
+    normals = np.cross(corners[:, 1] - corners[:, 0], corners[:, 2] - corners[:, 0])
+    return electrode & (look * normals[:, 2] > 0.5 * np.linalg.norm(normals, axis=1))
 
 
 def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
@@ -389,8 +403,9 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
         pts = np.concatenate([s.points_m for s in samples]) / MM
         corners = np.repeat(pts[:, None, :], 3, axis=1)
         field = np.concatenate([s.field_V_per_m for s in samples])
+        owner = np.concatenate([np.full(len(s.field_V_per_m), k) for k, s in enumerate(samples)])
     else:
-        corners, field, _ = panels
+        corners, field, owner = panels
     positive = field[field > 0]
     lo, hi = np.percentile(positive, [1.0, 99.9]) if positive.size else (1.0, 10.0)
     norm = LogNorm(vmin=lo, vmax=max(hi, 1.0001 * lo))
@@ -403,6 +418,9 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
     peak = sol.peak_field
     px, py, pz = (v / MM for v in peak.location_m)
     scale, unit = field_unit(peak.field_V_per_m)
+
+    # the side the target is on (see facing_panels): the 3-D view looks from there
+    look = 1.0 if evaluation.extra.get("target_side", "below") == "above" else -1.0
 
     ax3 = fig.add_subplot(grid[0, 0], projection="3d")
     ax3.add_collection3d(
@@ -417,20 +435,25 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
     span = hi_xyz - lo_xyz
     # Heights drawn at least a third of the width, so that the side faces can be seen.
     ax3.set_box_aspect((span[0], span[1], max(span[2], span[:2].max() / 3.0)))
-    ax3.view_init(elev=-38, azim=-58)
+    ax3.view_init(elev=38 * look, azim=-58)
     ax3.locator_params(nbins=4)
     ax3.set_xlabel("x (mm)")
     ax3.set_ylabel("y (mm)")
     ax3.set_zlabel("z (mm)")
-    ax3.set_title("electrodes seen from below, coloured by surface field", fontsize=9)
+    ax3.set_title(
+        f"electrodes seen from {'above' if look > 0 else 'below'}, coloured by surface field",
+        fontsize=9,
+    )
 
     ax = fig.add_subplot(grid[0, 1])
-    normals = np.cross(corners[:, 1] - corners[:, 0], corners[:, 2] - corners[:, 0])
-    down = normals[:, 2] < -0.5 * np.linalg.norm(normals, axis=1)
-    order = np.flatnonzero(down)[np.argsort(-corners[down, :, 2].mean(axis=1))]
+    facing = facing_panels(
+        corners, owner, [c.name for c in sol.layout.conductors], evaluation.extra
+    )
+    # the faces nearest the viewer drawn last
+    order = np.flatnonzero(facing)[np.argsort(look * corners[facing, :, 2].mean(axis=1))]
     # The faces' own (linear) scale: on a flat face the field varies by tens of per cent,
     # which the log scale of the whole surface would hide.
-    face_lo, face_hi = np.percentile(field[down], [0.5, 99.8]) if down.any() else (lo, hi)
+    face_lo, face_hi = np.percentile(field[facing], [0.5, 99.8]) if facing.any() else (lo, hi)
     face_norm = Normalize(vmin=face_lo * scale, vmax=max(face_hi, 1.0001 * face_lo) * scale)
     face_colours = cmap(face_norm(field[order] * scale))
     ax.add_collection(
@@ -461,7 +484,7 @@ def _figure_3d(evaluation: Evaluation, title: str, breakdown: float | None):
     if breakdown is not None and face_norm.vmin <= breakdown * scale <= face_norm.vmax:
         bar.ax.axhline(breakdown * scale, color=ff.LIMIT_COLOUR, lw=2)
     if has_density:
-        outline = corners[down].reshape(-1, 3)
+        outline = corners[facing].reshape(-1, 3)
         _draw_density_xy(fig.add_subplot(grid[0, 2]), evaluation, outline)
     fig.suptitle(title, fontsize=11)
     return fig

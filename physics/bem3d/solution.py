@@ -199,6 +199,14 @@ class PanelSolution(ChargeSolution):
     def _unit_samples(self) -> dict:
         return face_samples(self._fine, self.layout, self._fine.sigma_unit, applied=False)
 
+    def panel_field_V_per_m(self) -> np.ndarray:
+        """(Nc,) surface field at the excitation on each conductor panel of the finest level:
+        |free sigma| / eps of the medium touching the face, the larger face of a sheet."""
+        s = self._fine.excitation_samples
+        out = np.zeros(self.panels.n_conductor_panels)
+        np.maximum.at(out, s["panel"], np.abs(s["sigma"][:, 0]) / s["eps_F_per_m"])
+        return out
+
     def surface_samples(self, conductor: str) -> SurfaceSamples:
         """See :class:`SurfaceSamples`: one sample per panel of a closed surface; on an open
         sheet one per panel and face, the +1 faces first."""

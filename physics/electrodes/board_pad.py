@@ -435,6 +435,9 @@ class BoardPad(SolvedByPanels, ElectrodeFamily):
             "touch_signal_error_estimate_F": signal_err,
             "film_shift_error_estimate_F": film_err,
             "baseline_rel_error_estimate": float(base.rel_error_estimate),
+            # for the design figure: the copper is sensed from above, the target is not copper
+            "target_side": "above",
+            "target_conductors": (TARGET,),
         }
         return Measured(metrics, extra)
 
