@@ -134,18 +134,9 @@ def dielectric_model(layout: Layout) -> DielectricModel:
     # interface junctions (singular like corners) and points where a conductor leaves a layer
     # face (graded only: the field there stays finite, see layer_face_junctions)
     graded = np.concatenate([geom.junctions, layer_face_junctions(layout, size)])
-    conductors = []
-    for cond in layout.conductors:
-        curve = cond.shape
-        joints = []
-        for i, piece in enumerate(curve.pieces):
-            end = np.asarray(piece.end)
-            if len(graded) and np.min(np.linalg.norm(graded - end, axis=1)) <= tol:
-                if i < len(curve.pieces) - 1 or curve.kind == "ring":
-                    joints.append(i)
-        if joints:
-            curve = _GradedCurve(curve.pieces, tuple(joints))
-        conductors.append(replace(cond, shape=curve))
+    conductors = [
+        replace(cond, shape=_graded_at(cond.shape, graded, tol)) for cond in layout.conductors
+    ]
     mesh_layout = Layout(tuple(conductors), eps_r=layout.eps_r, ground_plane=layout.ground_plane)
     chain_layouts = tuple(
         Layout((driven(f"{ch.region}#{k}", _graded_chain(ch.curve, geom, tol), 0.0),))
@@ -192,21 +183,24 @@ def _graded_chain(curve: Curve, geom: DielectricGeometry, tol: float) -> Curve:
     """The chain's curve, graded like a corner at smooth joints where another interface ends
     (a layer face crossing a region meets its side there: the density is singular)."""
     ends = [
-        np.asarray(e)
-        for ch in geom.chains
-        if ch.curve is not curve
-        for e in (ch.curve.start, ch.curve.end)
+        e for ch in geom.chains if ch.curve is not curve for e in (ch.curve.start, ch.curve.end)
     ]
-    if not ends:
+    return _graded_at(curve, ends, tol)
+
+
+def _graded_at(curve: Curve, points, tol: float) -> Curve:
+    """``curve`` graded like a corner at every joint between pieces that lies within ``tol``
+    (m) of one of ``points`` ((K, 2) or a list of (r, z)); unchanged when none does."""
+    pts = np.asarray(points, dtype=float).reshape(-1, 2)
+    if not len(pts):
         return curve
-    ends_arr = np.asarray(ends)
     n = len(curve.pieces)
-    joints = [
+    joints = tuple(
         i
-        for i in range(n - 1 if curve.kind != "ring" else n)
-        if np.min(np.linalg.norm(ends_arr - np.asarray(curve.pieces[i].end), axis=1)) <= tol
-    ]
-    return _GradedCurve(curve.pieces, tuple(joints)) if joints else curve
+        for i in range(n if curve.kind == "ring" else n - 1)
+        if np.min(np.linalg.norm(pts - np.asarray(curve.pieces[i].end), axis=1)) <= tol
+    )
+    return _GradedCurve(curve.pieces, joints) if joints else curve
 
 
 def _check_layers(layout: Layout, size: float) -> None:
