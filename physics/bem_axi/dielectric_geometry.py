@@ -13,9 +13,11 @@ permittivity jumping), see :func:`_face_chords`.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.optimize
 
 from elopt.physics.errors import GeometryError
 from elopt.physics.geometry import (
@@ -36,30 +38,30 @@ _PIECE_SAMPLES = np.linspace(-1.0, 1.0, 7)
 def distance_to_curve(points: np.ndarray, curve: Curve) -> np.ndarray:
     """Exact distance (M,) from points (M, 2) to ``curve`` (segments and arcs; ellipse arcs by
     a 2,000-chord polyline)."""
-    best = np.full(len(points), np.inf)
-    for piece in curve.pieces:
-        if isinstance(piece, Segment):
-            a, b = np.asarray(piece.start), np.asarray(piece.end)
-            d = b - a
-            t = np.clip((points - a) @ d / max(d @ d, 1e-300), 0.0, 1.0)
-            dist = np.linalg.norm(points - (a + t[:, None] * d), axis=1)
-        elif isinstance(piece, Arc):
-            c = np.asarray(piece.center)
-            rel = points - c
-            ang = np.arctan2(rel[:, 1], rel[:, 0])
-            lo = min(piece.start_angle, piece.end_angle)
-            hi = max(piece.start_angle, piece.end_angle)
-            mid = 0.5 * (lo + hi)
-            ang = ang + 2 * np.pi * np.round((mid - ang) / (2 * np.pi))
-            inside = (ang >= lo) & (ang <= hi)
-            ends = piece.points(np.array([-1.0, 1.0]))
-            d_end = np.min(np.linalg.norm(points[:, None, :] - ends[None], axis=2), axis=1)
-            dist = np.where(inside, np.abs(np.linalg.norm(rel, axis=1) - piece.radius), d_end)
-        else:
-            poly = piece.points(np.linspace(-1.0, 1.0, 2001))
-            dist = np.min(np.linalg.norm(points[:, None, :] - poly[None], axis=2), axis=1)
-        best = np.minimum(best, dist)
-    return best
+    return np.min([distance_to_piece(points, piece) for piece in curve.pieces], axis=0)
+
+
+def distance_to_piece(points: np.ndarray, piece) -> np.ndarray:
+    """Distance (M,) from points (M, 2) to one piece (as :func:`distance_to_curve`)."""
+    if isinstance(piece, Segment):
+        a, b = np.asarray(piece.start), np.asarray(piece.end)
+        d = b - a
+        t = np.clip((points - a) @ d / max(d @ d, 1e-300), 0.0, 1.0)
+        return np.linalg.norm(points - (a + t[:, None] * d), axis=1)
+    if isinstance(piece, Arc):
+        c = np.asarray(piece.center)
+        rel = points - c
+        ang = np.arctan2(rel[:, 1], rel[:, 0])
+        lo = min(piece.start_angle, piece.end_angle)
+        hi = max(piece.start_angle, piece.end_angle)
+        mid = 0.5 * (lo + hi)
+        ang = ang + 2 * np.pi * np.round((mid - ang) / (2 * np.pi))
+        inside = (ang >= lo) & (ang <= hi)
+        ends = piece.points(np.array([-1.0, 1.0]))
+        d_end = np.min(np.linalg.norm(points[:, None, :] - ends[None], axis=2), axis=1)
+        return np.where(inside, np.abs(np.linalg.norm(rel, axis=1) - piece.radius), d_end)
+    poly = piece.points(np.linspace(-1.0, 1.0, 2001))
+    return np.min(np.linalg.norm(points[:, None, :] - poly[None], axis=2), axis=1)
 
 
 def _nearest_on_piece(points: np.ndarray, piece) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -444,8 +446,7 @@ def piece_media(
 
 def node_piece(curve: Curve, points: np.ndarray) -> np.ndarray:
     """Index (N,) of the piece of ``curve`` nearest each point (N, 2)."""
-    d = np.stack([distance_to_curve(points, Curve((p,))) for p in curve.pieces], axis=1)
-    return np.argmin(d, axis=1)
+    return np.argmin([distance_to_piece(points, p) for p in curve.pieces], axis=0)
 
 
 def geom_size(geom: DielectricGeometry) -> float:
@@ -458,3 +459,106 @@ def is_junction_point(geom: DielectricGeometry, points: np.ndarray, tol_m: float
         return np.zeros(len(points), bool)
     d = np.linalg.norm(points[:, None, :] - geom.junctions[None], axis=2)
     return np.min(d, axis=1) <= tol_m
+
+
+def wedge_exponent(wedges: list[tuple[float, float]]) -> float:
+    """Smallest exponent nu > 0 of phi ~ rho^nu in a fan of dielectric wedges between two
+    grounded conductor faces; ``wedges`` lists (opening angle rad, eps_r) in order.
+
+    In each wedge phi = a sin(nu theta) + b cos(nu theta); phi and eps dphi/dtheta are
+    continuous across the rays between wedges and phi = 0 on both conductor faces. The
+    transfer matrix [[cos nu a, sin nu a / eps], [-eps sin nu a, cos nu a]] of each wedge
+    carries (phi, eps phi' / nu) across it, so nu is the first positive root of the product's
+    (0, 1) entry (one wedge of angle a: nu = pi / a). The field and the surface densities
+    behave like rho^(nu - 1) (common practice, no source; the two-wedge case is the textbook
+    separation of variables in each medium).
+    """
+    nu = np.linspace(1e-3, 4.0, 4000)
+
+    def entry(v: np.ndarray) -> np.ndarray:
+        m00, m01, m10, m11 = np.ones_like(v), np.zeros_like(v), np.zeros_like(v), np.ones_like(v)
+        for angle, eps in wedges:
+            c, s = np.cos(v * angle), np.sin(v * angle)
+            m00, m01, m10, m11 = (
+                c * m00 + s / eps * m10,
+                c * m01 + s / eps * m11,
+                -eps * s * m00 + c * m10,
+                -eps * s * m01 + c * m11,
+            )
+        return m01
+
+    f = entry(nu)
+    hit = np.nonzero((f[:-1] > 0) & (f[1:] <= 0) | (f[:-1] < 0) & (f[1:] >= 0))[0]
+    if not len(hit):
+        return math.inf
+    i = int(hit[0])
+    if f[i + 1] == 0.0:
+        return float(nu[i + 1])
+    return float(
+        scipy.optimize.brentq(
+            lambda v: float(entry(np.array([v]))[0]), nu[i], nu[i + 1], xtol=1e-14
+        )
+    )
+
+
+def _rays_at(point: np.ndarray, curve: Curve, tol: float) -> list[float]:
+    """Angles (rad) of the directions in which ``curve`` leaves ``point`` (none if it misses)."""
+    out = []
+    for piece in curve.pieces:
+        if np.linalg.norm(np.asarray(piece.start) - point) <= tol:
+            out.append(piece.tangents(np.array([-1.0]))[0])
+        elif np.linalg.norm(np.asarray(piece.end) - point) <= tol:
+            out.append(-piece.tangents(np.array([1.0]))[0])
+        else:
+            dist, _, tan = _nearest_on_piece(point[None], piece)
+            if dist[0] <= tol:
+                out.extend([tan[0], -tan[0]])
+    return [math.atan2(t[1], t[0]) % (2 * math.pi) for t in out]
+
+
+def junction_exponent(geom: DielectricGeometry, point, tol: float) -> float:
+    """Exponent nu (:func:`wedge_exponent`) of the junction at ``point`` (r, z): the smallest
+    over the fans of media between the conductor faces (and the grounded plane) meeting
+    there. 0 when no conductor meets the point (an interface ending in the media: treated as
+    singular, as before)."""
+    layout = geom.layout
+    pt = np.asarray(point, float)
+    size = geom_size(geom)
+    rays: dict[float, bool] = {}  # angle -> is a conductor face
+    for cond in layout.conductors:
+        for a in _rays_at(pt, cond.shape, tol):
+            rays[a] = True
+    if layout.ground_plane and abs(pt[1]) <= tol:
+        rays[0.0] = rays[math.pi] = True
+    if not rays:
+        return 0.0
+    for ch in geom.chains:
+        for a in _rays_at(pt, ch.curve, tol):
+            rays.setdefault(a, False)
+    angles = sorted(rays)
+    merged = [a for i, a in enumerate(angles) if i == 0 or a - angles[i - 1] > 1e-9]
+    n = len(merged)
+    gaps = [((merged[(i + 1) % n] - merged[i]) % (2 * math.pi)) or 2 * math.pi for i in range(n)]
+    mids = np.array([merged[i] + 0.5 * gaps[i] for i in range(n)])
+    probes = pt + 1e-6 * size * np.stack([np.cos(mids), np.sin(mids)], axis=1)
+    metal = np.zeros(n, bool)
+    if layout.ground_plane:
+        metal |= probes[:, 1] < 0.0
+    for cond in layout.conductors:
+        if cond.shape.kind == "sheet":
+            continue
+        _, side = nearest_side(probes, cond.shape)
+        metal |= side * _orientation(region_outline(cond.shape)) > 0
+    eps = geom.eps_r_at(probes)
+    start = next(i for i in range(n) if rays[merged[i]])
+    best = math.inf
+    fan: list[tuple[float, float]] = []
+    for k in range(n):
+        i = (start + k) % n
+        if not metal[i]:
+            fan.append((gaps[i], float(eps[i])))
+        if rays[merged[(i + 1) % n]]:
+            if fan:
+                best = min(best, wedge_exponent(fan))
+            fan = []
+    return best

@@ -207,7 +207,8 @@ class DielectricSolution(ChargeSolution):
         """C (n, n) of a perturbed layout at this solution's finest level and order."""
         from elopt.physics.bem_axi.dielectric_solve import dielectric_model
 
-        level = solve_dielectric_level(dielectric_model(layout), self.level, self.order, self.rule)
+        model = dielectric_model(layout, self.model.loose)
+        level = solve_dielectric_level(model, self.level, self.order, self.rule)
         return level.capacitance_F
 
     def central_difference(self, make_layout, step: float) -> FiniteDifference:

@@ -20,6 +20,7 @@ from elopt.physics.bem_axi.ring_sums import (
     foot_points,
     near_rows,
     node_rows,
+    normal_field_sum,
     potential_sum,
     self_rows,
 )
@@ -217,3 +218,55 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
         logw_end,
     )
     return rows.reshape(mesh.n_panels, p, p)
+
+
+def principal_normal_field_matrix(
+    mesh: AxiMesh, rows: np.ndarray, delta_m: np.ndarray, ground_plane: bool
+) -> np.ndarray:
+    """PV (R, N): principal value of the normal field at nodes ``rows`` (R,) is PV @ sigma / eps.
+
+    The normal is the mesh's at each row. Every panel but the row's own is smooth at the
+    node, so its value is taken at the node itself (far sum, near rows as in
+    :func:`field_matrix`). The own panel's principal value comes from the means M of the
+    graded rule's normal fields d, 2d and 4d off both sides (d = ``delta_m`` (R, 1) m; the
+    mean cancels the jump), extrapolated to d = 0 as (8 M(d) - 6 M(2d) + M(4d)) / 3: the
+    panel's ends, a distance D from the node, leave (d / D)^3 (the two-point rule's (d / D)^2
+    cancels against the neighbours only when they are offset too).
+    """
+    p = mesh.order
+    t = np.ascontiguousarray(mesh.points_m[rows])
+    nrm = np.ascontiguousarray(mesh.normals[rows])
+    src = mesh.points_m
+    mat = normal_field_sum(
+        t[:, 0].copy(),
+        t[:, 1].copy(),
+        nrm[:, 0].copy(),
+        nrm[:, 1].copy(),
+        np.ascontiguousarray(src[:, 0]),
+        np.ascontiguousarray(src[:, 1]),
+        mesh.weights_m,
+        ground_plane,
+    )
+    own = np.asarray(rows) // p
+    for mirror in (False, True) if ground_plane else (False,):
+        ti, pj = _near_pairs(mesh, t, mirror)
+        if not mirror:
+            keep = pj != own[ti]
+            ti, pj = ti[keep], pj[keep]
+        if len(ti) == 0:
+            continue
+        pts = t[ti]
+        cols = pj[:, None] * p + np.arange(p)
+        d = _near_rows(mesh, pts, pj, mirror, True) - _far_pairs(mesh, pts, cols, mirror, True)
+        dn = np.einsum("bkc,bc->bk", d, nrm[ti])
+        mat[ti[:, None], cols] += -dn if mirror else dn
+    # mean over both sides at d, 2d, 4d, extrapolated to d = 0 through its cubic
+    off = delta_m * nrm
+    pts = np.concatenate([t + f * off for f in (1.0, -1.0, 2.0, -2.0, 4.0, -4.0)])
+    near = _near_rows(mesh, pts, np.tile(own, 6), False, True)
+    vals = np.einsum("bkc,bc->bk", near, np.tile(nrm, (6, 1))).reshape(3, 2, len(own), p)
+    m1, m2, m4 = vals.mean(axis=1)
+    own_cols = own[:, None] * p + np.arange(p)
+    far = np.einsum("bkc,bc->bk", _far_pairs(mesh, t, own_cols, False, True), nrm)
+    mat[np.arange(len(own))[:, None], own_cols] += (8.0 * m1 - 6.0 * m2 + m4) / 3.0 - far
+    return mat

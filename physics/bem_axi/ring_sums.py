@@ -202,6 +202,31 @@ def field_sum(
 
 
 @njit(cache=True)
+def normal_field_sum(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    nr: np.ndarray,
+    nz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    w: np.ndarray,
+    image: bool,
+) -> np.ndarray:
+    """(M, N): the field of :func:`field_sum` projected on the unit vectors (nr, nz) (M,) of
+    the targets, without the (M, N, 2) temporary."""
+    out = np.empty((tr.shape[0], sr.shape[0]))
+    for i in range(tr.shape[0]):
+        for j in range(sr.shape[0]):
+            er, ez = _ring_e(tr[i], tz[i], sr[j], sz[j])
+            if image:
+                er2, ez2 = _ring_e(tr[i], tz[i], sr[j], -sz[j])
+                er -= er2
+                ez -= ez2
+            out[i, j] = (er * nr[i] + ez * nz[i]) * w[j]
+    return out
+
+
+@njit(cache=True)
 def _panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, float]:
     """(r, z, |d(point)/d(tau)|) of a panel (see elopt.physics.bem_axi.mesh.panel_geometry)."""
     s = 0.5 * (tau + 1.0)
