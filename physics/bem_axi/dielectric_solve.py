@@ -146,6 +146,7 @@ class DielectricModel:
     size: float
     singular_junctions: np.ndarray  # (J, 2) the junctions whose density is singular
     conductor_media: tuple[np.ndarray, ...]  # (pieces, 2) media on either face, per conductor
+    conductor_face_heights: tuple[np.ndarray, ...]  # (pieces,) layer face a piece rests on
     loose: bool  # regular junctions graded like blunt corners (loose requests)
 
 
@@ -194,8 +195,14 @@ def dielectric_model(layout: Layout, loose: bool = False) -> DielectricModel:
         piece_media(geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'")
         for cond in layout.conductors
     )
+    heights = tuple(
+        np.array([face_height(pc, layout.layer_stack, size) for pc in cond.shape.pieces])
+        for cond in layout.conductors
+    )
     singular = geom.junctions[nu < REGULAR_EXPONENT]
-    return DielectricModel(layout, geom, mesh_layout, chain_layouts, size, singular, media, loose)
+    return DielectricModel(
+        layout, geom, mesh_layout, chain_layouts, size, singular, media, heights, loose
+    )
 
 
 def layer_face_junctions(layout: Layout, size: float) -> np.ndarray:
@@ -438,20 +445,20 @@ def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshR
     normals = mesh.normals.copy()
     eps_face = np.empty((nc, 2))
     face_z = np.full(mesh.n_nodes, math.nan)
+    # a panel lies on one piece: find the pieces of the panel centres
     for ci, cond in enumerate(layout.conductors):
-        idx = np.nonzero(mesh_c.node_conductor == ci)[0]
-        media = model.conductor_media[ci]
-        piece = node_piece(cond.shape, mesh_c.points_m[idx])
-        eps_face[idx] = media[piece]
-        heights = [face_height(pc, layout.layer_stack, model.size) for pc in cond.shape.pieces]
-        face_z[idx] = np.asarray(heights)[piece]
+        panels = np.nonzero(mesh_c.conductor == ci)[0]
+        idx = (panels[:, None] * order + np.arange(order)).ravel()
+        piece = np.repeat(node_piece(cond.shape, mesh_c.center_m[panels]), order)
+        eps_face[idx] = model.conductor_media[ci][piece]
+        face_z[idx] = model.conductor_face_heights[ci][piece]
     iface_in, iface_out = [], []
     start = nc
     for ch, m in zip(model.geom.chains, meshes[1:], strict=True):
         sl = slice(start, start + m.n_nodes)
         tan = m.tangents
         normals[sl] = ch.normal_sign * np.stack([tan[:, 1], -tan[:, 0]], axis=1)
-        piece = node_piece(ch.curve, m.points_m)
+        piece = np.repeat(node_piece(ch.curve, m.center_m), order)
         iface_in.append(np.full(m.n_nodes, ch.eps_inside))
         iface_out.append(np.asarray(ch.eps_outside)[piece])
         start += m.n_nodes
