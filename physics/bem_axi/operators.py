@@ -21,6 +21,7 @@ from elopt.physics.bem_axi.ring_sums import (
     near_rows,
     node_rows,
     normal_field_sum,
+    own_panel_pv_rows,
     potential_sum,
     self_rows,
 )
@@ -229,9 +230,10 @@ def principal_normal_field_matrix(
     node, so its value is taken at the node itself (far sum, near rows as in
     :func:`field_matrix`). The own panel's principal value comes from the means M of the
     graded rule's normal fields d, 2d and 4d off both sides (d = ``delta_m`` (R, 1) m; the
-    mean cancels the jump), extrapolated to d = 0 as (8 M(d) - 6 M(2d) + M(4d)) / 3: the
-    panel's ends, a distance D from the node, leave (d / D)^3 (the two-point rule's (d / D)^2
-    cancels against the neighbours only when they are offset too).
+    mean cancels the jump), extrapolated to d = 0 as (8 M(d) - 6 M(2d) + M(4d)) / 3, on the
+    pieces near the node only (:func:`_own_panel_rows`). The mean is even in d off the
+    surface, so the panel's ends, a distance D from the node, leave 56 (d / D)^4 (the two-point
+    rule's (d / D)^2 cancels against the neighbours only when they are offset too).
     """
     p = mesh.order
     t = np.ascontiguousarray(mesh.points_m[rows])
@@ -260,13 +262,48 @@ def principal_normal_field_matrix(
         d = _near_rows(mesh, pts, pj, mirror, True) - _far_pairs(mesh, pts, cols, mirror, True)
         dn = np.einsum("bkc,bc->bk", d, nrm[ti])
         mat[ti[:, None], cols] += -dn if mirror else dn
-    # mean over both sides at d, 2d, 4d, extrapolated to d = 0 through its cubic
-    off = delta_m * nrm
-    pts = np.concatenate([t + f * off for f in (1.0, -1.0, 2.0, -2.0, 4.0, -4.0)])
-    near = _near_rows(mesh, pts, np.tile(own, 6), False, True)
-    vals = np.einsum("bkc,bc->bk", near, np.tile(nrm, (6, 1))).reshape(3, 2, len(own), p)
-    m1, m2, m4 = vals.mean(axis=1)
     own_cols = own[:, None] * p + np.arange(p)
     far = np.einsum("bkc,bc->bk", _far_pairs(mesh, t, own_cols, False, True), nrm)
-    mat[np.arange(len(own))[:, None], own_cols] += (8.0 * m1 - 6.0 * m2 + m4) / 3.0 - far
+    mat[np.arange(len(own))[:, None], own_cols] += _own_panel_rows(mesh, t, nrm, own, delta_m) - far
     return mat
+
+
+#: Innermost graded pieces (per side) of the own panel that take the offset means in
+#: :func:`principal_normal_field_matrix`: they reach 2^(PV_INNER_LEVELS - 1) d from the
+#: target, so the outer pieces, evaluated at the target, leave 56 (d / s)^4 < 1e-13.
+PV_INNER_LEVELS = 13
+
+
+def _own_panel_rows(
+    mesh: AxiMesh, t: np.ndarray, nrm: np.ndarray, own: np.ndarray, delta_m: np.ndarray
+) -> np.ndarray:
+    """Principal value (R, p) of the normal field of each target's own panel ``own`` (R,)."""
+    p = mesh.order
+    d = np.ascontiguousarray(delta_m.reshape(-1))
+    tau_c, _ = foot_points(
+        np.ascontiguousarray(t[:, 0]),
+        np.ascontiguousarray(t[:, 1]),
+        mesh.kind[own],
+        np.ascontiguousarray(mesh.coef[own]),
+        False,
+    )
+    ratio = mesh.length_m[own] / d
+    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
+    x, _ = gauss_legendre(p)
+    xq, wq = gauss_legendre(_rule_order(p))
+    return own_panel_pv_rows(
+        np.ascontiguousarray(t[:, 0]),
+        np.ascontiguousarray(t[:, 1]),
+        np.ascontiguousarray(nrm[:, 0]),
+        np.ascontiguousarray(nrm[:, 1]),
+        mesh.kind[own],
+        np.ascontiguousarray(mesh.coef[own]),
+        tau_c,
+        d,
+        levels,
+        PV_INNER_LEVELS,
+        x,
+        barycentric_weights(p),
+        xq,
+        wq,
+    )

@@ -338,6 +338,70 @@ def near_rows(
 
 
 @njit(cache=True)
+def own_panel_pv_rows(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    nr: np.ndarray,
+    nz: np.ndarray,
+    kind: np.ndarray,
+    coef: np.ndarray,
+    tau_c: np.ndarray,
+    delta: np.ndarray,
+    levels: np.ndarray,
+    n_inner: int,
+    x: np.ndarray,
+    bary: np.ndarray,
+    xq: np.ndarray,
+    wq: np.ndarray,
+) -> np.ndarray:
+    """Principal value (B, p) of the normal field at targets on their own panel.
+
+    Graded as in :func:`near_rows` (``levels[b]`` pieces per side towards ``tau_c[b]``). The
+    ``n_inner`` innermost pieces per side take the mean of the normal fields at d, 2d, 4d
+    off both sides (d = ``delta[b]``), extrapolated to d = 0 as (8 M(d) - 6 M(2d) + M(4d))
+    / 3; the outer pieces, smooth at the target, are evaluated at the target itself.
+    """
+    n_t = tr.shape[0]
+    p = x.shape[0]
+    out = np.zeros((n_t, p))
+    lag = np.empty(p)
+    offs = np.array([1.0, -1.0, 2.0, -2.0, 4.0, -4.0])
+    wts = np.array([4.0, 4.0, -3.0, -3.0, 0.5, 0.5]) / 3.0
+    for b in range(n_t):
+        tc = tau_c[b]
+        r, z = tr[b], tz[b]
+        ur, uz = nr[b], nz[b]
+        d = delta[b]
+        c = coef[b]
+        for side in (1.0, -1.0):
+            span = 1.0 - tc if side > 0 else tc + 1.0
+            if span <= 0.0:
+                continue
+            for k in range(levels[b]):
+                hi = 2.0 ** (-k)
+                lo = 0.0 if k == levels[b] - 1 else 2.0 ** (-(k + 1))
+                mid = 0.5 * (hi + lo) * span
+                half = 0.5 * (hi - lo) * span
+                inner = k >= levels[b] - n_inner
+                for q in range(xq.shape[0]):
+                    tau = tc + side * (mid + half * xq[q])
+                    rs, zs, jac = _panel_point(kind[b], c, tau)
+                    if inner:
+                        v = 0.0
+                        for o in range(6):
+                            er, ez = _ring_e(r + offs[o] * d * ur, z + offs[o] * d * uz, rs, zs)
+                            v += wts[o] * (er * ur + ez * uz)
+                    else:
+                        er, ez = _ring_e(r, z, rs, zs)
+                        v = er * ur + ez * uz
+                    v *= wq[q] * half * jac
+                    _lagrange(tau, x, bary, lag)
+                    for j in range(p):
+                        out[b, j] += v * lag[j]
+    return out
+
+
+@njit(cache=True)
 def self_rows(
     tr: np.ndarray,
     tz: np.ndarray,
