@@ -422,31 +422,36 @@ def piece_media(
     The normal is ``normal_sign`` times the tangent turned clockwise. Raises GeometryError when
     a piece changes medium along its length (it must be split at the junction).
     """
-    out = np.empty((len(curve.pieces), 2))
     size = geom_size(geom)
-    for k, piece in enumerate(curve.pieces):
-        t = np.array([-0.6, 0.0, 0.6])
+    t = np.array([-0.6, 0.0, 0.6])
+    probes = []
+    for piece in curve.pieces:
         pts = piece.points(t)
         tan = piece.tangents(t)
         nrm = normal_sign * np.stack([tan[:, 1], -tan[:, 0]], axis=1)
         # Small: a piece leaving a layer face tangentially (a rim resting on a sheet) is only
         # a hair above the face at its probe points.
         off = 1e-6 * min(piece.length, size)
-        for col, side in ((0, 1.0), (1, -1.0)):
-            eps = geom.eps_r_at(pts + side * off * nrm)
-            if np.ptp(eps) > 0:
-                raise GeometryError(
-                    f"{what}: the piece from {_fmt(piece.start)} to {_fmt(piece.end)} faces "
-                    f"media of eps_r {eps.min():g} and {eps.max():g} along its length; split it "
-                    "where the medium changes"
-                )
-            out[k, col] = eps[0]
-    return out
+        probes += [pts + off * nrm, pts - off * nrm]
+    # one medium look-up for every probe: (piece, side, point)
+    eps = geom.eps_r_at(np.concatenate(probes)).reshape(len(curve.pieces), 2, len(t))
+    for k, piece in enumerate(curve.pieces):
+        e = eps[k]
+        if np.any(np.ptp(e, axis=1) > 0):
+            raise GeometryError(
+                f"{what}: the piece from {_fmt(piece.start)} to {_fmt(piece.end)} faces "
+                f"media of eps_r {e.min():g} and {e.max():g} along its length; split it "
+                "where the medium changes"
+            )
+    return eps[:, :, 0].copy()
 
 
-def node_piece(curve: Curve, points: np.ndarray) -> np.ndarray:
-    """Index (N,) of the piece of ``curve`` nearest each point (N, 2)."""
-    return np.argmin([distance_to_piece(points, p) for p in curve.pieces], axis=0)
+def panel_piece(curve: Curve, arc_m: np.ndarray, order: int) -> np.ndarray:
+    """Index (P,) of the piece of ``curve`` each panel lies on, from the arc-length
+    coordinates (P * order,) of its Gauss nodes (their mean is the panel's midpoint, half a
+    panel from any joint)."""
+    ends = np.cumsum([p.length for p in curve.pieces])[:-1]
+    return np.searchsorted(ends, arc_m.reshape(-1, order).mean(axis=1))
 
 
 def geom_size(geom: DielectricGeometry) -> float:
@@ -501,64 +506,83 @@ def wedge_exponent(wedges: list[tuple[float, float]]) -> float:
     )
 
 
-def _rays_at(point: np.ndarray, curve: Curve, tol: float) -> list[float]:
-    """Angles (rad) of the directions in which ``curve`` leaves ``point`` (none if it misses)."""
+def _rays_at(point: np.ndarray, curve: Curve, tol: float) -> list[tuple[float, int]]:
+    """Directions (angle rad, sense) in which ``curve`` leaves ``point``: sense +1 along the
+    curve's direction, -1 against it (none if it misses the point)."""
     out = []
     for piece in curve.pieces:
         if np.linalg.norm(np.asarray(piece.start) - point) <= tol:
-            out.append(piece.tangents(np.array([-1.0]))[0])
+            out.append((piece.tangents(np.array([-1.0]))[0], 1))
         elif np.linalg.norm(np.asarray(piece.end) - point) <= tol:
-            out.append(-piece.tangents(np.array([1.0]))[0])
-        else:
-            dist, _, tan = _nearest_on_piece(point[None], piece)
-            if dist[0] <= tol:
-                out.extend([tan[0], -tan[0]])
-    return [math.atan2(t[1], t[0]) % (2 * math.pi) for t in out]
+            out.append((-piece.tangents(np.array([1.0]))[0], -1))
+        elif distance_to_piece(point[None], piece)[0] <= tol:
+            _, _, tan = _nearest_on_piece(point[None], piece)
+            out += [(tan[0], 1), (-tan[0], -1)]
+    return [(math.atan2(v[1], v[0]) % (2 * math.pi), sense) for v, sense in out]
 
 
-def junction_exponent(geom: DielectricGeometry, point, tol: float) -> float:
-    """Exponent nu (:func:`wedge_exponent`) of the junction at ``point`` (r, z): the smallest
-    over the fans of media between the conductor faces (and the grounded plane) meeting
-    there. 0 when no conductor meets the point (an interface ending in the media: treated as
-    singular, as before)."""
+def _ccw_between(a: float, lo: float, hi: float) -> bool:
+    """Whether angle ``a`` lies on the counter-clockwise sweep from ``lo`` to ``hi``."""
+    return (a - lo) % (2 * math.pi) < (hi - lo) % (2 * math.pi)
+
+
+def junction_exponents(geom: DielectricGeometry, points: np.ndarray, tol: float) -> np.ndarray:
+    """Exponent nu (:func:`wedge_exponent`) of the junction at each of ``points`` (J, 2): the
+    smallest over the fans of media between the conductor faces (and the grounded plane)
+    meeting there. 0 where no conductor meets the point (an interface ending in the media:
+    treated as singular)."""
     layout = geom.layout
-    pt = np.asarray(point, float)
     size = geom_size(geom)
-    rays: dict[float, bool] = {}  # angle -> is a conductor face
-    for cond in layout.conductors:
-        for a in _rays_at(pt, cond.shape, tol):
-            rays[a] = True
-    if layout.ground_plane and abs(pt[1]) <= tol:
-        rays[0.0] = rays[math.pi] = True
-    if not rays:
-        return 0.0
-    for ch in geom.chains:
-        for a in _rays_at(pt, ch.curve, tol):
-            rays.setdefault(a, False)
-    angles = sorted(rays)
-    merged = [a for i, a in enumerate(angles) if i == 0 or a - angles[i - 1] > 1e-9]
-    n = len(merged)
-    gaps = [((merged[(i + 1) % n] - merged[i]) % (2 * math.pi)) or 2 * math.pi for i in range(n)]
-    mids = np.array([merged[i] + 0.5 * gaps[i] for i in range(n)])
-    probes = pt + 1e-6 * size * np.stack([np.cos(mids), np.sin(mids)], axis=1)
-    metal = np.zeros(n, bool)
-    if layout.ground_plane:
-        metal |= probes[:, 1] < 0.0
-    for cond in layout.conductors:
-        if cond.shape.kind == "sheet":
+    fans, probes = [], []
+    for pt in np.asarray(points, float).reshape(-1, 2):
+        walls: dict[float, bool] = {}  # angle -> is a conductor face
+        metal: list[tuple[float, float]] = []  # ccw sweeps (from, to) inside metal
+        for cond in layout.conductors:
+            rays = _rays_at(pt, cond.shape, tol)
+            for a, _ in rays:
+                walls[a] = True
+            if cond.shape.kind != "sheet" and len(rays) == 2:
+                # metal lies left of the curve's direction when it runs counter-clockwise
+                out = next(a for a, sense in rays if sense > 0)
+                back = next(a for a, sense in rays if sense < 0)
+                ccw = _orientation(region_outline(cond.shape)) > 0
+                metal.append((out, back) if ccw else (back, out))
+        if layout.ground_plane and abs(pt[1]) <= tol:
+            walls[0.0] = walls[math.pi] = True
+            metal.append((math.pi, 2 * math.pi))
+        for ch in geom.chains:
+            for a, _ in _rays_at(pt, ch.curve, tol):
+                walls.setdefault(a, False)
+        angles = sorted(walls)
+        angles = [a for i, a in enumerate(angles) if i == 0 or a - angles[i - 1] > 1e-9]
+        if not any(walls[a] for a in angles):
+            fans.append(None)
             continue
-        _, side = nearest_side(probes, cond.shape)
-        metal |= side * _orientation(region_outline(cond.shape)) > 0
-    eps = geom.eps_r_at(probes)
-    start = next(i for i in range(n) if rays[merged[i]])
-    best = math.inf
-    fan: list[tuple[float, float]] = []
-    for k in range(n):
-        i = (start + k) % n
-        if not metal[i]:
-            fan.append((gaps[i], float(eps[i])))
-        if rays[merged[(i + 1) % n]]:
-            if fan:
-                best = min(best, wedge_exponent(fan))
-            fan = []
-    return best
+        n = len(angles)
+        gaps = [
+            ((angles[(i + 1) % n] - angles[i]) % (2 * math.pi)) or 2 * math.pi for i in range(n)
+        ]
+        mids = [angles[i] + 0.5 * gaps[i] for i in range(n)]
+        solid = [any(_ccw_between(m, lo, hi) for lo, hi in metal) for m in mids]
+        fans.append((angles, gaps, solid, [walls[a] for a in angles], len(probes)))
+        probes += [pt + 1e-6 * size * np.array([math.cos(m), math.sin(m)]) for m in mids]
+    eps = geom.eps_r_at(np.asarray(probes).reshape(-1, 2)) if probes else np.zeros(0)
+    out = np.zeros(len(fans))
+    for j, fan in enumerate(fans):
+        if fan is None:
+            continue
+        angles, gaps, solid, is_wall, first = fan
+        n = len(angles)
+        start = is_wall.index(True)
+        best = math.inf
+        wedges: list[tuple[float, float]] = []
+        for k in range(n):
+            i = (start + k) % n
+            if not solid[i]:
+                wedges.append((gaps[i], float(eps[first + i])))
+            if is_wall[(i + 1) % n]:
+                if wedges:
+                    best = min(best, wedge_exponent(wedges))
+                wedges = []
+        out[j] = best
+    return out

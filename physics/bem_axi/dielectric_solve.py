@@ -56,8 +56,8 @@ import scipy.linalg
 from elopt.physics.bem_axi.dielectric_geometry import (
     DielectricGeometry,
     build_dielectric_geometry,
-    junction_exponent,
-    node_piece,
+    junction_exponents,
+    panel_piece,
     piece_media,
     region_outline,
 )
@@ -174,7 +174,7 @@ def dielectric_model(layout: Layout, loose: bool = False) -> DielectricModel:
     # a blunt corner of the same exponent; points where a conductor leaves a layer face like
     # a sharp corner (the field there stays finite but varies on ever smaller scales, see
     # layer_face_junctions)
-    nu = np.array([junction_exponent(geom, j, tol) for j in geom.junctions]).reshape(-1)
+    nu = junction_exponents(geom, geom.junctions, tol)
     blunt = loose & (nu >= REGULAR_EXPONENT)
     angles = [equivalent_angle(v) if b else math.pi / 2 for v, b in zip(nu, blunt, strict=True)]
     face = layer_face_junctions(layout, size)
@@ -445,11 +445,11 @@ def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshR
     normals = mesh.normals.copy()
     eps_face = np.empty((nc, 2))
     face_z = np.full(mesh.n_nodes, math.nan)
-    # a panel lies on one piece: find the pieces of the panel centres
+    # a panel lies on one piece
     for ci, cond in enumerate(layout.conductors):
         panels = np.nonzero(mesh_c.conductor == ci)[0]
         idx = (panels[:, None] * order + np.arange(order)).ravel()
-        piece = np.repeat(node_piece(cond.shape, mesh_c.center_m[panels]), order)
+        piece = np.repeat(panel_piece(cond.shape, mesh_c.arc_m[idx], order), order)
         eps_face[idx] = model.conductor_media[ci][piece]
         face_z[idx] = model.conductor_face_heights[ci][piece]
     iface_in, iface_out = [], []
@@ -458,7 +458,7 @@ def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshR
         sl = slice(start, start + m.n_nodes)
         tan = m.tangents
         normals[sl] = ch.normal_sign * np.stack([tan[:, 1], -tan[:, 0]], axis=1)
-        piece = np.repeat(node_piece(ch.curve, m.center_m), order)
+        piece = np.repeat(panel_piece(ch.curve, m.arc_m, order), order)
         iface_in.append(np.full(m.n_nodes, ch.eps_inside))
         iface_out.append(np.asarray(ch.eps_outside)[piece])
         start += m.n_nodes
