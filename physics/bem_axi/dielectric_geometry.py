@@ -529,8 +529,8 @@ def _ccw_between(a: float, lo: float, hi: float) -> bool:
 def junction_exponents(geom: DielectricGeometry, points: np.ndarray, tol: float) -> np.ndarray:
     """Exponent nu (:func:`wedge_exponent`) of the junction at each of ``points`` (J, 2): the
     smallest over the fans of media between the conductor faces (and the grounded plane)
-    meeting there. 0 where no conductor meets the point (an interface ending in the media:
-    treated as singular)."""
+    meeting there. 0 where no conductor meets the point (an interface ending in the media)
+    or where an interface leaves tangentially to a conductor face: treated as singular."""
     layout = geom.layout
     size = geom_size(geom)
     fans, probes = [], []
@@ -550,14 +550,17 @@ def junction_exponents(geom: DielectricGeometry, points: np.ndarray, tol: float)
         if layout.ground_plane and abs(pt[1]) <= tol:
             walls[0.0] = walls[math.pi] = True
             metal.append((math.pi, 2 * math.pi))
-        for ch in geom.chains:
-            for a, _ in _rays_at(pt, ch.curve, tol):
-                walls.setdefault(a, False)
-        angles = sorted(walls)
-        angles = [a for i, a in enumerate(angles) if i == 0 or a - angles[i - 1] > 1e-9]
-        if not any(walls[a] for a in angles):
+        faces = [a for ch in geom.chains for a, _ in _rays_at(pt, ch.curve, tol)]
+        # an interface leaving along a conductor face (a tangent cusp of one medium) has no
+        # wedge exponent: singular, as every junction without a conductor
+        cusp = any(min(abs(a - w), 2 * math.pi - abs(a - w)) < 1e-6 for a in faces for w in walls)
+        if not walls or cusp:
             fans.append(None)
             continue
+        for a in faces:
+            walls.setdefault(a, False)
+        angles = sorted(walls)
+        angles = [a for i, a in enumerate(angles) if i == 0 or a - angles[i - 1] > 1e-9]
         n = len(angles)
         gaps = [
             ((angles[(i + 1) % n] - angles[i]) % (2 * math.pi)) or 2 * math.pi for i in range(n)
