@@ -73,6 +73,18 @@ def _rule_order(p: int) -> int:
     return max(p + 2, 6)
 
 
+def grading_levels(length_m: np.ndarray, distance_m: np.ndarray) -> np.ndarray:
+    """Pieces per side (B,) of the near-field rule for panels of ``length_m`` (B,) at
+    ``distance_m`` (B,) from their targets.
+
+    Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
+    so does the innermost once it is no longer than the distance: one level beyond
+    log2(length / distance) gives every piece the same Bernstein-ellipse margin.
+    """
+    ratio = length_m / np.maximum(distance_m, 1e-300)
+    return np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
+
+
 def _near_rows(
     mesh: AxiMesh, pts: np.ndarray, pj: np.ndarray, mirror: bool, field: bool
 ) -> np.ndarray:
@@ -85,11 +97,7 @@ def _near_rows(
         np.ascontiguousarray(mesh.coef[pj]),
         mirror,
     )
-    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
-    # so does the innermost once it is no longer than the distance: one level beyond
-    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
-    ratio = mesh.length_m[pj] / np.maximum(delta, 1e-300)
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
+    levels = grading_levels(mesh.length_m[pj], delta)
     x, _ = gauss_legendre(p)
     xq, wq = gauss_legendre(_rule_order(p))
     return near_rows(
@@ -287,20 +295,12 @@ def _own_panel_rows(
         np.ascontiguousarray(mesh.coef[own]),
         False,
     )
-    ratio = mesh.length_m[own] / d
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
     x, _ = gauss_legendre(p)
     xq, wq = gauss_legendre(_rule_order(p))
+    cols = (t[:, 0], t[:, 1], nrm[:, 0], nrm[:, 1], mesh.kind[own], mesh.coef[own], tau_c, d)
     return own_panel_pv_rows(
-        np.ascontiguousarray(t[:, 0]),
-        np.ascontiguousarray(t[:, 1]),
-        np.ascontiguousarray(nrm[:, 0]),
-        np.ascontiguousarray(nrm[:, 1]),
-        mesh.kind[own],
-        np.ascontiguousarray(mesh.coef[own]),
-        tau_c,
-        d,
-        levels,
+        *(np.ascontiguousarray(a) for a in cols),
+        grading_levels(mesh.length_m[own], d),
         PV_INNER_LEVELS,
         x,
         barycentric_weights(p),

@@ -184,6 +184,17 @@ def node_rows(
 
 
 @njit(cache=True)
+def _ring_e_net(r: float, z: float, rs: float, zs: float, image: bool) -> tuple[float, float]:
+    """(E_r, E_z) of a ring, minus that of its image in z = 0 when ``image``."""
+    er, ez = _ring_e(r, z, rs, zs)
+    if image:
+        er2, ez2 = _ring_e(r, z, rs, -zs)
+        er -= er2
+        ez -= ez2
+    return er, ez
+
+
+@njit(cache=True)
 def field_sum(
     tr: np.ndarray, tz: np.ndarray, sr: np.ndarray, sz: np.ndarray, w: np.ndarray, image: bool
 ) -> np.ndarray:
@@ -191,11 +202,7 @@ def field_sum(
     out = np.empty((tr.shape[0], sr.shape[0], 2))
     for i in range(tr.shape[0]):
         for j in range(sr.shape[0]):
-            er, ez = _ring_e(tr[i], tz[i], sr[j], sz[j])
-            if image:
-                er2, ez2 = _ring_e(tr[i], tz[i], sr[j], -sz[j])
-                er -= er2
-                ez -= ez2
+            er, ez = _ring_e_net(tr[i], tz[i], sr[j], sz[j], image)
             out[i, j, 0] = er * w[j]
             out[i, j, 1] = ez * w[j]
     return out
@@ -217,11 +224,7 @@ def normal_field_sum(
     out = np.empty((tr.shape[0], sr.shape[0]))
     for i in range(tr.shape[0]):
         for j in range(sr.shape[0]):
-            er, ez = _ring_e(tr[i], tz[i], sr[j], sz[j])
-            if image:
-                er2, ez2 = _ring_e(tr[i], tz[i], sr[j], -sz[j])
-                er -= er2
-                ez -= ez2
+            er, ez = _ring_e_net(tr[i], tz[i], sr[j], sz[j], image)
             out[i, j] = (er * nr[i] + ez * nz[i]) * w[j]
     return out
 
@@ -338,6 +341,15 @@ def near_rows(
 
 
 @njit(cache=True)
+def _graded_piece(k: int, levels: int, span: float) -> tuple[float, float]:
+    """Midpoint and half-width (reference units from the cut) of piece ``k`` of ``levels``
+    graded towards a cut ``span`` from the panel's end (ratio 2, the last touching the cut)."""
+    hi = 2.0 ** (-k)
+    lo = 0.0 if k == levels - 1 else 2.0 ** (-(k + 1))
+    return 0.5 * (hi + lo) * span, 0.5 * (hi - lo) * span
+
+
+@njit(cache=True)
 def own_panel_pv_rows(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -375,13 +387,8 @@ def own_panel_pv_rows(
         c = coef[b]
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
-            if span <= 0.0:
-                continue
-            for k in range(levels[b]):
-                hi = 2.0 ** (-k)
-                lo = 0.0 if k == levels[b] - 1 else 2.0 ** (-(k + 1))
-                mid = 0.5 * (hi + lo) * span
-                half = 0.5 * (hi - lo) * span
+            for k in range(levels[b] if span > 0.0 else 0):
+                mid, half = _graded_piece(k, levels[b], span)
                 inner = k >= levels[b] - n_inner
                 for q in range(xq.shape[0]):
                     tau = tc + side * (mid + half * xq[q])
