@@ -446,12 +446,9 @@ def piece_media(
     return eps[:, :, 0].copy()
 
 
-def panel_piece(curve: Curve, arc_m: np.ndarray, order: int) -> np.ndarray:
-    """Index (P,) of the piece of ``curve`` each panel lies on, from the arc-length
-    coordinates (P * order,) of its Gauss nodes (their mean is the panel's midpoint, half a
-    panel from any joint)."""
-    ends = np.cumsum([p.length for p in curve.pieces])[:-1]
-    return np.searchsorted(ends, arc_m.reshape(-1, order).mean(axis=1))
+def node_piece(curve: Curve, points: np.ndarray) -> np.ndarray:
+    """Index (N,) of the piece of ``curve`` nearest each point (N, 2)."""
+    return np.argmin([distance_to_piece(points, p) for p in curve.pieces], axis=0)
 
 
 def geom_size(geom: DielectricGeometry) -> float:

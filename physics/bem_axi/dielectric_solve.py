@@ -34,7 +34,7 @@ E^PV is taken from the means M(d) of the normal fields a distance d off both sid
 as 2 M(d) - M(2d) with d = 1e-5 panel lengths, which leaves an O(d^2) error; without layers
 only the node's own panel is offset (d, 2d, 4d, cubic extrapolation) and the others are
 summed at the node itself, in one compiled pass
-(:func:`elopt.physics.bem_axi.operators.principal_normal_field_matrix`). Free charge on a
+(:mod:`elopt.physics.bem_axi.bound_rows`). Free charge on a
 closed conductor's face touching medium eps_f: sigma_f = (eps_f / eps_b+) q (only the outside
 carries field: eps_b+ E = q / eps0, D_n = eps_f E); the field there is sigma_f / (eps0 eps_f).
 An open sheet's faces follow from E_front - E_back = 2 E^PV and the same displacement jump.
@@ -53,17 +53,17 @@ from typing import Any
 import numpy as np
 import scipy.linalg
 
+from elopt.physics.bem_axi.bound_rows import principal_normal_field_matrix
 from elopt.physics.bem_axi.dielectric_geometry import (
     DielectricGeometry,
     build_dielectric_geometry,
     junction_exponents,
-    panel_piece,
+    node_piece,
     piece_media,
     region_outline,
 )
 from elopt.physics.bem_axi.layered_kernel import LayeredKernel, applied_potential
 from elopt.physics.bem_axi.mesh import AxiMesh, MeshRule, build_mesh, panel_geometry
-from elopt.physics.bem_axi.operators import principal_normal_field_matrix
 from elopt.physics.bem_axi.solve import (
     COARSE_RULE,
     DENSE_BYTES_PER_ENTRY,
@@ -145,9 +145,23 @@ class DielectricModel:
     chain_layouts: tuple[Layout, ...]
     size: float
     singular_junctions: np.ndarray  # (J, 2) the junctions whose density is singular
-    conductor_media: tuple[np.ndarray, ...]  # (pieces, 2) media on either face, per conductor
-    conductor_face_heights: tuple[np.ndarray, ...]  # (pieces,) layer face a piece rests on
     loose: bool  # regular junctions graded like blunt corners (loose requests)
+
+    @cached_property
+    def conductor_pieces(self) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...]:
+        """Per conductor, per piece of its curve (level-independent): the media (P, 2) on the
+        normal side and the other, the layer face it rests on (P,; NaN: none) and the arc
+        length (P,) m from the curve's start to the piece's end."""
+        out = []
+        for cond in self.layout.conductors:
+            pieces = cond.shape.pieces
+            media = piece_media(
+                self.geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'"
+            )
+            heights = [face_height(pc, self.layout.layer_stack, self.size) for pc in pieces]
+            ends = np.cumsum([pc.length for pc in pieces])
+            out.append((media, np.asarray(heights), ends))
+        return tuple(out)
 
 
 #: A junction exponent at least this is regular: the field stays finite there.
@@ -159,7 +173,7 @@ def dielectric_model(layout: Layout, loose: bool = False) -> DielectricModel:
     """Validate the layout's regions and layers and prepare the meshes' layouts.
 
     Every interface junction is graded like a singular corner, except, when ``loose`` (the
-    coarse mesh rule of loose requests), a regular one (exponent >= 1, :func:`junction_exponent`):
+    coarse mesh rule of loose requests), a regular one (exponent >= 1, :func:`junction_exponents`):
     the conductor's joint like a blunt corner, the interface's end not at all. Regular is not
     smooth: where the medium and the wall's curvature change together the density keeps a
     weak term; measured on the spindle probe with a spacer
@@ -191,18 +205,8 @@ def dielectric_model(layout: Layout, loose: bool = False) -> DielectricModel:
         for k, ch in enumerate(geom.chains)
     )
     _check_layers(layout, size)
-    media = tuple(
-        piece_media(geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'")
-        for cond in layout.conductors
-    )
-    heights = tuple(
-        np.array([face_height(pc, layout.layer_stack, size) for pc in cond.shape.pieces])
-        for cond in layout.conductors
-    )
     singular = geom.junctions[nu < REGULAR_EXPONENT]
-    return DielectricModel(
-        layout, geom, mesh_layout, chain_layouts, size, singular, media, heights, loose
-    )
+    return DielectricModel(layout, geom, mesh_layout, chain_layouts, size, singular, loose)
 
 
 def layer_face_junctions(layout: Layout, size: float) -> np.ndarray:
@@ -431,34 +435,40 @@ class DielectricLevel:
         )
 
 
-def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshRule | None = None):
+def build_level_mesh(
+    model: DielectricModel,
+    level: int,
+    order: int,
+    rule: MeshRule | None = None,
+    meshes: tuple[AxiMesh, ...] | None = None,
+):
     """Joined mesh and per-node data of one level: the media on conductor faces (Nc, 2), inside
     and outside interface nodes (Ni,), and the layer face each node rests on (N,; NaN: none).
-    ``rule`` grades the meshes (None: the default rule of ``order``)."""
-    layout = model.layout
-    mesh_c = build_mesh(model.mesh_layout, level, order, rule)
-    meshes = [mesh_c]
-    for lay in model.chain_layouts:
-        meshes.append(build_mesh(lay, level, order, rule))
-    mesh = _concat(meshes)
+    ``rule`` grades the meshes (None: the default rule of ``order``); ``meshes`` are those of
+    :func:`level_meshes` when already built."""
+    if meshes is None:
+        meshes = level_meshes(model, level, order, rule)
+    mesh_c = meshes[0]
+    mesh = _concat(list(meshes))
     nc = mesh_c.n_nodes
     normals = mesh.normals.copy()
     eps_face = np.empty((nc, 2))
     face_z = np.full(mesh.n_nodes, math.nan)
-    # a panel lies on one piece
-    for ci, cond in enumerate(layout.conductors):
-        panels = np.nonzero(mesh_c.conductor == ci)[0]
-        idx = (panels[:, None] * order + np.arange(order)).ravel()
-        piece = np.repeat(panel_piece(cond.shape, mesh_c.arc_m[idx], order), order)
-        eps_face[idx] = model.conductor_media[ci][piece]
-        face_z[idx] = model.conductor_face_heights[ci][piece]
+    # the piece of a node: that of its panel, found by the arc length of the panel's middle
+    # (the graded mesh curves keep the conductors' pieces)
+    mid_arc = np.repeat(mesh_c.arc_m.reshape(-1, order).mean(axis=1), order)
+    for ci, (media, heights, ends) in enumerate(model.conductor_pieces):
+        idx = np.nonzero(mesh_c.node_conductor == ci)[0]
+        piece = np.searchsorted(ends[:-1], mid_arc[idx], side="right")
+        eps_face[idx] = media[piece]
+        face_z[idx] = heights[piece]
     iface_in, iface_out = [], []
     start = nc
     for ch, m in zip(model.geom.chains, meshes[1:], strict=True):
         sl = slice(start, start + m.n_nodes)
         tan = m.tangents
         normals[sl] = ch.normal_sign * np.stack([tan[:, 1], -tan[:, 0]], axis=1)
-        piece = np.repeat(panel_piece(ch.curve, m.arc_m, order), order)
+        piece = node_piece(ch.curve, m.points_m)
         iface_in.append(np.full(m.n_nodes, ch.eps_inside))
         iface_out.append(np.asarray(ch.eps_outside)[piece])
         start += m.n_nodes
@@ -561,14 +571,13 @@ def solve_dielectric_level(
     level: int,
     order: int,
     rule: MeshRule | None = None,
-    level_mesh: tuple | None = None,
+    meshes: tuple[AxiMesh, ...] | None = None,
 ) -> DielectricLevel:
-    """Assemble and solve one refinement level (one LU for every column); ``level_mesh``:
-    :func:`build_level_mesh` of the same arguments when already built."""
+    """Assemble and solve one refinement level (one LU for every column)."""
     layout = model.layout
-    if level_mesh is None:
-        level_mesh = build_level_mesh(model, level, order, rule)
-    mesh, nc, eps_face, eps_in, eps_out, face_z = level_mesh
+    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(
+        model, level, order, rule, meshes
+    )
     kernel = LayeredKernel(
         layout.layer_stack,
         mesh.points_m[:, 1],
@@ -641,14 +650,14 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     model = dielectric_model(layout, rule == COARSE_RULE)
 
     def plan(level: int) -> LevelPlan:
-        level_mesh = build_level_mesh(model, level, order, rule)
-        n = level_mesh[0].n_nodes
+        meshes = level_meshes(model, level, order, rule)
+        n = sum(m.n_nodes for m in meshes)
         return LevelPlan(
             level,
             n,
             DENSE_BYTES_PER_ENTRY * n * n,
             "dense solve",
-            lambda _: solve_dielectric_level(model, level, order, rule, level_mesh),
+            lambda _: solve_dielectric_level(model, level, order, rule, meshes),
         )
 
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
@@ -657,3 +666,13 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
     refinement = refine(plan, opts, convergence)
     return DielectricSolution(layout, model, refinement, order, rule)
+
+
+def level_meshes(
+    model: DielectricModel, level: int, order: int, rule: MeshRule | None = None
+) -> tuple[AxiMesh, ...]:
+    """Conductor mesh and interface-chain meshes of one level (a level's plan builds them
+    once for its count and its solve)."""
+    return (build_mesh(model.mesh_layout, level, order, rule),) + tuple(
+        build_mesh(lay, level, order, rule) for lay in model.chain_layouts
+    )

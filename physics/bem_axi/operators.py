@@ -20,8 +20,6 @@ from elopt.physics.bem_axi.ring_sums import (
     foot_points,
     near_rows,
     node_rows,
-    normal_field_sum,
-    own_panel_pv_rows,
     potential_sum,
     self_rows,
 )
@@ -73,18 +71,6 @@ def _rule_order(p: int) -> int:
     return max(p + 2, 6)
 
 
-def grading_levels(length_m: np.ndarray, distance_m: np.ndarray) -> np.ndarray:
-    """Pieces per side (B,) of the near-field rule for panels of ``length_m`` (B,) at
-    ``distance_m`` (B,) from their targets.
-
-    Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
-    so does the innermost once it is no longer than the distance: one level beyond
-    log2(length / distance) gives every piece the same Bernstein-ellipse margin.
-    """
-    ratio = length_m / np.maximum(distance_m, 1e-300)
-    return np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
-
-
 def _near_rows(
     mesh: AxiMesh, pts: np.ndarray, pj: np.ndarray, mirror: bool, field: bool
 ) -> np.ndarray:
@@ -97,7 +83,11 @@ def _near_rows(
         np.ascontiguousarray(mesh.coef[pj]),
         mirror,
     )
-    levels = grading_levels(mesh.length_m[pj], delta)
+    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
+    # so does the innermost once it is no longer than the distance: one level beyond
+    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
+    ratio = mesh.length_m[pj] / np.maximum(delta, 1e-300)
+    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
     x, _ = gauss_legendre(p)
     xq, wq = gauss_legendre(_rule_order(p))
     return near_rows(
@@ -227,83 +217,3 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
         logw_end,
     )
     return rows.reshape(mesh.n_panels, p, p)
-
-
-def principal_normal_field_matrix(
-    mesh: AxiMesh, rows: np.ndarray, delta_m: np.ndarray, ground_plane: bool
-) -> np.ndarray:
-    """PV (R, N): principal value of the normal field at nodes ``rows`` (R,) is PV @ sigma / eps.
-
-    The normal is the mesh's at each row. Every panel but the row's own is smooth at the
-    node, so its value is taken at the node itself (far sum, near rows as in
-    :func:`field_matrix`). The own panel's principal value comes from the means M of the
-    graded rule's normal fields d, 2d and 4d off both sides (d = ``delta_m`` (R, 1) m; the
-    mean cancels the jump), extrapolated to d = 0 as (8 M(d) - 6 M(2d) + M(4d)) / 3, on the
-    pieces near the node only (:func:`_own_panel_rows`). The mean is even in d off the
-    surface, so the panel's ends, a distance D from the node, leave 56 (d / D)^4 (the two-point
-    rule's (d / D)^2 cancels against the neighbours only when they are offset too).
-    """
-    p = mesh.order
-    t = np.ascontiguousarray(mesh.points_m[rows])
-    nrm = np.ascontiguousarray(mesh.normals[rows])
-    src = mesh.points_m
-    mat = normal_field_sum(
-        t[:, 0].copy(),
-        t[:, 1].copy(),
-        nrm[:, 0].copy(),
-        nrm[:, 1].copy(),
-        np.ascontiguousarray(src[:, 0]),
-        np.ascontiguousarray(src[:, 1]),
-        mesh.weights_m,
-        ground_plane,
-    )
-    own = np.asarray(rows) // p
-    for mirror in (False, True) if ground_plane else (False,):
-        ti, pj = _near_pairs(mesh, t, mirror)
-        if not mirror:
-            keep = pj != own[ti]
-            ti, pj = ti[keep], pj[keep]
-        if len(ti) == 0:
-            continue
-        pts = t[ti]
-        cols = pj[:, None] * p + np.arange(p)
-        d = _near_rows(mesh, pts, pj, mirror, True) - _far_pairs(mesh, pts, cols, mirror, True)
-        dn = np.einsum("bkc,bc->bk", d, nrm[ti])
-        mat[ti[:, None], cols] += -dn if mirror else dn
-    own_cols = own[:, None] * p + np.arange(p)
-    far = np.einsum("bkc,bc->bk", _far_pairs(mesh, t, own_cols, False, True), nrm)
-    mat[np.arange(len(own))[:, None], own_cols] += _own_panel_rows(mesh, t, nrm, own, delta_m) - far
-    return mat
-
-
-#: Innermost graded pieces (per side) of the own panel that take the offset means in
-#: :func:`principal_normal_field_matrix`: they reach 2^(PV_INNER_LEVELS - 1) d from the
-#: target, so the outer pieces, evaluated at the target, leave 56 (d / s)^4 < 1e-13.
-PV_INNER_LEVELS = 13
-
-
-def _own_panel_rows(
-    mesh: AxiMesh, t: np.ndarray, nrm: np.ndarray, own: np.ndarray, delta_m: np.ndarray
-) -> np.ndarray:
-    """Principal value (R, p) of the normal field of each target's own panel ``own`` (R,)."""
-    p = mesh.order
-    d = np.ascontiguousarray(delta_m.reshape(-1))
-    tau_c, _ = foot_points(
-        np.ascontiguousarray(t[:, 0]),
-        np.ascontiguousarray(t[:, 1]),
-        mesh.kind[own],
-        np.ascontiguousarray(mesh.coef[own]),
-        False,
-    )
-    x, _ = gauss_legendre(p)
-    xq, wq = gauss_legendre(_rule_order(p))
-    cols = (t[:, 0], t[:, 1], nrm[:, 0], nrm[:, 1], mesh.kind[own], mesh.coef[own], tau_c, d)
-    return own_panel_pv_rows(
-        *(np.ascontiguousarray(a) for a in cols),
-        grading_levels(mesh.length_m[own], d),
-        PV_INNER_LEVELS,
-        x,
-        barycentric_weights(p),
-        xq,
-        wq,
-    )
