@@ -443,7 +443,22 @@ class StackSpectrum:
         ranges = [self.exponent_range(t, z_targets, z_sources) for t in terms]
         c_min = min(r[0] + t.decay for r, t in zip(ranges, terms, strict=True))
         a_max = max(r[1] for r in ranges)
-        return hankel_rule(k_max, self.panel_width(r_max, c_min), a_max, self.pole_distance)
+        # Oscillation-limited panels: J0(k r) J0(k r') exp(-k a) varies like exp(i omega k)
+        # with |omega| <= hypot(2 r_max, a_max); the Gauss error may grow where the envelope
+        # B exp(-k c_min) k^moment has decayed, keeping every panel's share of ``tol`` below
+        # its share of [0, k_max] (B: twice the largest |coef - limit| seen on a k grid).
+        probe = k_max * np.linspace(0.0, 1.0, 65) ** 2
+        rem = self.terms(target, source, probe, k_max)
+        b = 2.0 * sum(float(np.max(np.abs(t.coef - t.limit))) for t in rem if not t.direct)
+        omega = math.hypot(2.0 * r_max, a_max)
+        budget = tol / (k_max * b) if b > 0 else math.inf
+        return hankel_rule(
+            k_max,
+            self.panel_width(0.0, c_min),
+            a_max,
+            self.pole_distance,
+            oscillation=(omega, c_min, moment, budget),
+        )
 
     @property
     def pole_distance(self) -> float:
@@ -474,20 +489,55 @@ class StackSpectrum:
         return min(widths)
 
 
+def _gauss_phase_error(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Phases theta (T,) and the n-point Gauss-Legendre error (T,) of int_{-1}^{1}
+    exp(i theta x) dx, made non-decreasing in theta (the odd part integrates exactly)."""
+    theta = np.arange(0.25, 40.0, 0.25)
+    x, w = gauss_legendre(n)
+    err = np.abs(np.cos(np.outer(theta, x)) @ w - 2.0 * np.sin(theta) / theta)
+    return theta, np.maximum.accumulate(err)
+
+
+_PHASES, _PHASE_ERRORS = _gauss_phase_error(GAUSS_NODES)
+#: Half-width phase of the fixed-width rule (5 / r_max panels): error at rounding level.
+_SAFE_PHASE = 5.0
+
+
+def _oscillation_width(k: float, oscillation: tuple[float, float, int, float]) -> float:
+    """Widest panel (1/m) starting at k whose Gauss error on exp(i omega k) times the envelope
+    exp(-k c) (k + 1/c)^moment stays below ``budget`` (``oscillation`` = omega, c, moment,
+    budget; :meth:`StackSpectrum.quadrature`)."""
+    omega, c, moment, budget = oscillation
+    envelope = math.exp(-k * c) * (k + 1.0 / c) ** moment
+    allowed = budget / envelope if envelope > 0 else math.inf
+    i = int(np.searchsorted(_PHASE_ERRORS, allowed, side="right")) - 1
+    theta = max(float(_PHASES[i]) if i >= 0 else 0.0, _SAFE_PHASE)
+    return 2.0 * theta / omega if omega > 0 else math.inf
+
+
 def hankel_rule(
-    k_max: float, width: float, a_max: float, pole_distance: float = math.inf
+    k_max: float,
+    width: float,
+    a_max: float,
+    pole_distance: float = math.inf,
+    oscillation: tuple[float, float, int, float] | None = None,
 ) -> HankelRule:
     """Composite Gauss-Legendre rule on [0, k_max]: the first panel at most 20 / a_max and
     ``pole_distance`` wide, each next one at most half its left end wider, none above
-    ``width``."""
+    ``width``; with ``oscillation`` = (omega, c, moment, budget) also none wider than
+    :func:`_oscillation_width` at its left end (panels widen as the envelope decays)."""
     first = min(width, pole_distance)
     if a_max > 0:
         first = min(first, _FIRST_PANEL_EXPONENT / a_max)
+    if oscillation is not None:
+        first = min(first, _oscillation_width(0.0, oscillation))
     edges = [0.0]
     h = first
     while edges[-1] < k_max:
         edges.append(min(edges[-1] + h, k_max))
         h = min(width, max(first, 0.5 * edges[-1]))
+        if oscillation is not None:
+            h = min(h, max(first, _oscillation_width(edges[-1], oscillation)))
     x, w = gauss_legendre(GAUSS_NODES)
     e = np.asarray(edges)
     a, b = e[:-1, None], e[1:, None]

@@ -276,33 +276,46 @@ class LayeredKernel:
                 rule = sp.quadrature(t, s, tg[:, 1], sc[:, 1], r_max, tol, int(field))
                 if rule is None:
                     continue
-                k, wk = rule.k, rule.w
-                src_fac = (
-                    j0(np.outer(sc[:, 0], k)) * (0.5 * sc[:, 0] * mesh.weights_m[cols])[:, None]
-                )
-                kr = np.outer(tg[:, 0], k)
-                tj0 = j0(kr)
-                tj1 = j1(kr) * k if field else None
-                # terms sharing a target factor share one product: sum their source sides
-                groups: dict[tuple[int, float], np.ndarray] = {}
-                src_exp: dict[tuple[int, float], np.ndarray] = {}
-                for term in sp.terms(int(t), int(s), k):
-                    if term.direct:
-                        continue
-                    key_s = (term.s_sign, term.s_ref)
-                    if key_s not in src_exp:
-                        src_exp[key_s] = src_fac * np.exp(
-                            -np.outer(term.source_length(sc[:, 1]), k)
-                        )
-                    side = src_exp[key_s] * (wk * (term.coef - term.limit))
-                    key_t = (term.t_sign, term.t_ref)
-                    groups[key_t] = groups[key_t] + side if key_t in groups else side
-                block = np.zeros((len(rows), len(cols), 2) if field else (len(rows), len(cols)))
-                for (t_sign, t_ref), side in groups.items():
-                    ua = np.exp(-np.outer(np.maximum(t_sign * (tg[:, 1] - t_ref), 0.0), k))
-                    if not field:
-                        block += (tj0 * ua) @ side.T
-                    else:
-                        block[..., 0] += (tj1 * ua) @ side.T
-                        block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
-                out[np.ix_(rows, cols)] += block
+                same = not field and targets is src and np.array_equal(rows, cols)
+                block = self._remainder_block(int(t), int(s), rule, tg, sc, same, field)
+                w_src = 0.5 * sc[:, 0] * mesh.weights_m[cols]
+                block *= w_src[:, None] if field else w_src
+                if len(rows) == out.shape[0] and len(cols) == out.shape[1]:
+                    out += block
+                else:
+                    out[np.ix_(rows, cols)] += block
+
+    def _remainder_block(self, t, s, rule, tg, sc, same: bool, field: bool) -> np.ndarray:
+        """Remainder (M, N) or (M, N, 2) of targets ``tg`` (M, 2) in slab t and sources
+        ``sc`` (N, 2) in slab s per unit ring weight r'/2 ds'. ``same``: the targets are the
+        sources (the collocation), so both sides share the Bessel and exponential factors and
+        the block is U diag(w) U^T."""
+        k, wk = rule.k, rule.w
+        sj0 = j0(np.outer(sc[:, 0], k))
+        tj0 = sj0 if same else j0(np.outer(tg[:, 0], k))
+        exps: dict[tuple[int, float, bool], np.ndarray] = {}
+
+        def decay(sign: int, ref: float, target: bool) -> np.ndarray:
+            key = (sign, ref, target and not same)
+            if key not in exps:
+                z = (tg if key[2] else sc)[:, 1]
+                exps[key] = np.exp(-np.outer(np.maximum(sign * (z - ref), 0.0), k))
+            return exps[key]
+
+        # terms sharing a target factor share one product: sum their source sides
+        groups: dict[tuple[int, float], np.ndarray] = {}
+        for term in self.spectrum.terms(t, s, k):
+            if term.direct:
+                continue
+            side = (sj0 * decay(term.s_sign, term.s_ref, False)) * (wk * (term.coef - term.limit))
+            key_t = (term.t_sign, term.t_ref)
+            groups[key_t] = groups[key_t] + side if key_t in groups else side
+        if not field:
+            return sum((tj0 * decay(*key, True)) @ side.T for key, side in groups.items())
+        tj1 = j1(np.outer(tg[:, 0], k)) * k
+        block = np.zeros((len(tg), len(sc), 2))
+        for (t_sign, t_ref), side in groups.items():
+            ua = decay(t_sign, t_ref, True)
+            block[..., 0] += (tj1 * ua) @ side.T
+            block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
+        return block
