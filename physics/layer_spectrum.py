@@ -404,18 +404,31 @@ class StackSpectrum:
         scale = min(self.exponent_range(t, z_targets, z_sources)[0] + t.decay for t in rem)
         if not scale > 0:
             raise ValueError(f"remainder without decay (decay length {scale:g} m)")
-        hi = 1.0 / scale
-        while self.tail_bound(target, source, hi, z_targets, z_sources, moment) > tol:
-            hi *= 2.0
-            if hi > 1e6 / scale:
-                break
-        lo = hi / 2.0
-        while hi - lo > 0.01 * hi:
-            mid = 0.5 * (lo + hi)
-            if self.tail_bound(target, source, mid, z_targets, z_sources, moment) > tol:
-                lo = mid
-            else:
-                hi = mid
+
+        def excess(k: float) -> float:
+            tb = self.tail_bound(target, source, k, z_targets, z_sources, moment)
+            return math.log(tb / tol) if tb > 0 else -math.inf
+
+        # log(tail_bound) falls about linearly in K (slope -a of the slowest term, a >= scale):
+        # step on that slope until the bound is met, then bracket the root by secant guesses
+        # tested 0.4 % to either side (a handful of bounds instead of a bisection)
+        lo, f_lo = 0.5 / scale, excess(0.5 / scale)
+        hi, f_hi = 1.0 / scale, excess(1.0 / scale)
+        while f_hi > 0 and hi <= 1e6 / scale:
+            lo, f_lo = hi, f_hi
+            hi = hi + max(f_hi / scale, 0.01 * hi)
+            f_hi = excess(hi)
+        if f_lo <= 0:
+            return lo
+        while hi - lo > 0.01 * hi and math.isfinite(f_hi):
+            guess = hi - f_hi * (hi - lo) / (f_hi - f_lo)
+            for k in (guess * 1.004, guess * 0.996):
+                if lo < k < hi:
+                    f = excess(k)
+                    if f > 0:
+                        lo, f_lo = k, f
+                    else:
+                        hi, f_hi = k, f
         return hi
 
     def quadrature(

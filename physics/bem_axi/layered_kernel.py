@@ -291,15 +291,15 @@ class LayeredKernel:
         sources (the collocation), so both sides share the Bessel and exponential factors and
         the block is U diag(w) U^T."""
         k, wk = rule.k, rule.w
-        sj0 = j0(np.outer(sc[:, 0], k))
-        tj0 = sj0 if same else j0(np.outer(tg[:, 0], k))
+        sj0 = _per_value(j0, sc[:, 0], k)
+        tj0 = sj0 if same else _per_value(j0, tg[:, 0], k)
         exps: dict[tuple[int, float, bool], np.ndarray] = {}
 
         def decay(sign: int, ref: float, target: bool) -> np.ndarray:
             key = (sign, ref, target and not same)
             if key not in exps:
                 z = (tg if key[2] else sc)[:, 1]
-                exps[key] = np.exp(-np.outer(np.maximum(sign * (z - ref), 0.0), k))
+                exps[key] = _per_value(np.exp, -np.maximum(sign * (z - ref), 0.0), k)
             return exps[key]
 
         # terms sharing a target factor share one product: sum their source sides
@@ -312,10 +312,17 @@ class LayeredKernel:
             groups[key_t] = groups[key_t] + side if key_t in groups else side
         if not field:
             return sum((tj0 * decay(*key, True)) @ side.T for key, side in groups.items())
-        tj1 = j1(np.outer(tg[:, 0], k)) * k
+        tj1 = _per_value(j1, tg[:, 0], k) * k
         block = np.zeros((len(tg), len(sc), 2))
         for (t_sign, t_ref), side in groups.items():
             ua = decay(t_sign, t_ref, True)
             block[..., 0] += (tj1 * ua) @ side.T
             block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
         return block
+
+
+def _per_value(fn, x: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """fn(x k) (M, Q) for values x (M,) and nodes k (Q,), evaluated once per distinct x
+    (nodes on a wall share their radius, nodes on a face their height)."""
+    xu, inv = np.unique(x, return_inverse=True)
+    return fn(np.outer(xu, k))[inv]
