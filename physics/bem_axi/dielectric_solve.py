@@ -124,6 +124,22 @@ class DielectricModel:
     chain_layouts: tuple[Layout, ...]
     size: float
 
+    @cached_property
+    def conductor_pieces(self) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...]:
+        """Per conductor, per piece of its curve (level-independent): the media (P, 2) on the
+        normal side and the other, the layer face it rests on (P,; NaN: none) and the arc
+        length (P,) m from the curve's start to the piece's end."""
+        out = []
+        for cond in self.layout.conductors:
+            pieces = cond.shape.pieces
+            media = piece_media(
+                self.geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'"
+            )
+            heights = [face_height(pc, self.layout.layer_stack, self.size) for pc in pieces]
+            ends = np.cumsum([pc.length for pc in pieces])
+            out.append((media, np.asarray(heights), ends))
+        return tuple(out)
+
 
 @lru_cache(maxsize=8)
 def dielectric_model(layout: Layout) -> DielectricModel:
@@ -362,29 +378,33 @@ class DielectricLevel:
         )
 
 
-def build_level_mesh(model: DielectricModel, level: int, order: int, rule: MeshRule | None = None):
+def build_level_mesh(
+    model: DielectricModel,
+    level: int,
+    order: int,
+    rule: MeshRule | None = None,
+    meshes: tuple[AxiMesh, ...] | None = None,
+):
     """Joined mesh and per-node data of one level: the media on conductor faces (Nc, 2), inside
     and outside interface nodes (Ni,), and the layer face each node rests on (N,; NaN: none).
-    ``rule`` grades the meshes (None: the default rule of ``order``)."""
-    layout = model.layout
-    mesh_c = build_mesh(model.mesh_layout, level, order, rule)
-    meshes = [mesh_c]
-    for lay in model.chain_layouts:
-        meshes.append(build_mesh(lay, level, order, rule))
-    mesh = _concat(meshes)
+    ``rule`` grades the meshes (None: the default rule of ``order``); ``meshes`` are those of
+    :func:`level_meshes` when already built."""
+    if meshes is None:
+        meshes = level_meshes(model, level, order, rule)
+    mesh_c = meshes[0]
+    mesh = _concat(list(meshes))
     nc = mesh_c.n_nodes
     normals = mesh.normals.copy()
     eps_face = np.empty((nc, 2))
     face_z = np.full(mesh.n_nodes, math.nan)
-    for ci, cond in enumerate(layout.conductors):
+    # the piece of a node: that of its panel, found by the arc length of the panel's middle
+    # (the graded mesh curves keep the conductors' pieces)
+    mid_arc = np.repeat(mesh_c.arc_m.reshape(-1, order).mean(axis=1), order)
+    for ci, (media, heights, ends) in enumerate(model.conductor_pieces):
         idx = np.nonzero(mesh_c.node_conductor == ci)[0]
-        media = piece_media(
-            model.geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'"
-        )
-        piece = node_piece(cond.shape, mesh_c.points_m[idx])
+        piece = np.searchsorted(ends[:-1], mid_arc[idx], side="right")
         eps_face[idx] = media[piece]
-        heights = [face_height(pc, layout.layer_stack, model.size) for pc in cond.shape.pieces]
-        face_z[idx] = np.asarray(heights)[piece]
+        face_z[idx] = heights[piece]
     iface_in, iface_out = [], []
     start = nc
     for ch, m in zip(model.geom.chains, meshes[1:], strict=True):
@@ -486,11 +506,17 @@ def background_sides(
 
 
 def solve_dielectric_level(
-    model: DielectricModel, level: int, order: int, rule: MeshRule | None = None
+    model: DielectricModel,
+    level: int,
+    order: int,
+    rule: MeshRule | None = None,
+    meshes: tuple[AxiMesh, ...] | None = None,
 ) -> DielectricLevel:
     """Assemble and solve one refinement level (one LU for every column)."""
     layout = model.layout
-    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(model, level, order, rule)
+    mesh, nc, eps_face, eps_in, eps_out, face_z = build_level_mesh(
+        model, level, order, rule, meshes
+    )
     kernel = LayeredKernel(
         layout.layer_stack,
         mesh.points_m[:, 1],
@@ -562,13 +588,14 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     rule = mesh_rule(order, min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
 
     def plan(level: int) -> LevelPlan:
-        n = _count_nodes(model, level, order, rule)
+        meshes = level_meshes(model, level, order, rule)
+        n = sum(m.n_nodes for m in meshes)
         return LevelPlan(
             level,
             n,
             DENSE_BYTES_PER_ENTRY * n * n,
             "dense solve",
-            lambda _: solve_dielectric_level(model, level, order, rule),
+            lambda _: solve_dielectric_level(model, level, order, rule, meshes),
         )
 
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
@@ -579,6 +606,11 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     return DielectricSolution(layout, model, refinement, order, rule)
 
 
-def _count_nodes(model: DielectricModel, level: int, order: int, rule: MeshRule) -> int:
-    n = build_mesh(model.mesh_layout, level, order, rule).n_nodes
-    return n + sum(build_mesh(lay, level, order, rule).n_nodes for lay in model.chain_layouts)
+def level_meshes(
+    model: DielectricModel, level: int, order: int, rule: MeshRule | None = None
+) -> tuple[AxiMesh, ...]:
+    """Conductor mesh and interface-chain meshes of one level (a level's plan builds them
+    once for its count and its solve)."""
+    return (build_mesh(model.mesh_layout, level, order, rule),) + tuple(
+        build_mesh(lay, level, order, rule) for lay in model.chain_layouts
+    )

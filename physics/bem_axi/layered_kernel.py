@@ -238,15 +238,19 @@ class LayeredKernel:
                 wd[s + 1, s] = (1.0 + sp.r_up[s]) / slab.eps_r
             if s > 0:
                 wd[s - 1, s] = (1.0 + sp.r_dn[s]) / slab.eps_r
-        w = wd[t_slab][:, s_slab]
-        out = direct * (w[..., None] if field else w)
+        ts, ss = np.unique(t_slab), np.unique(s_slab)
+        if len(ts) == 1 and len(ss) == 1:
+            out = direct * wd[ts[0], ss[0]]
+        else:
+            w = wd[t_slab][:, s_slab]
+            out = direct * (w[..., None] if field else w)
         for s in np.unique(p_slab):
             rows = np.nonzero(t_slab == s)[0]
             if not len(rows):
                 continue
             panels = np.nonzero(p_slab == s)[0]
             cols = (panels[:, None] * mesh.order + np.arange(mesh.order)).ravel()
-            sub = sub_mesh(mesh, panels)
+            sub = mesh if len(panels) == mesh.n_panels else sub_mesh(mesh, panels)
             slab = sp.slabs[s]
             for z0, r in ((slab.z_lo, sp.r_dn[s]), (slab.z_hi, sp.r_up[s])):
                 if r is None:
@@ -256,7 +260,7 @@ class LayeredKernel:
                 if np.any(on):
                     # a source resting on the face is its own mirror image
                     img[:, on] = direct[rows][:, cols[on]]
-                out[np.ix_(rows, cols)] += (r / slab.eps_r) * img
+                _add_block(out, rows, cols, (r / slab.eps_r) * img)
         if remainder:
             self._remainder(out, mesh, targets, t_slab, s_slab, field)
         return out
@@ -280,10 +284,7 @@ class LayeredKernel:
                 block = self._remainder_block(int(t), int(s), rule, tg, sc, same, field)
                 w_src = 0.5 * sc[:, 0] * mesh.weights_m[cols]
                 block *= w_src[:, None] if field else w_src
-                if len(rows) == out.shape[0] and len(cols) == out.shape[1]:
-                    out += block
-                else:
-                    out[np.ix_(rows, cols)] += block
+                _add_block(out, rows, cols, block)
 
     def _remainder_block(self, t, s, rule, tg, sc, same: bool, field: bool) -> np.ndarray:
         """Remainder (M, N) or (M, N, 2) of targets ``tg`` (M, 2) in slab t and sources
@@ -326,3 +327,12 @@ def _per_value(fn, x: np.ndarray, k: np.ndarray) -> np.ndarray:
     (nodes on a wall share their radius, nodes on a face their height)."""
     xu, inv = np.unique(x, return_inverse=True)
     return fn(np.outer(xu, k))[inv]
+
+
+def _add_block(out: np.ndarray, rows: np.ndarray, cols: np.ndarray, block: np.ndarray) -> None:
+    """out[rows, cols] += block (rows (M,), cols (N,) ascending); in place, without the
+    fancy-indexed copy when they cover the whole matrix."""
+    if len(rows) == out.shape[0] and len(cols) == out.shape[1]:
+        out += block
+    else:
+        out[np.ix_(rows, cols)] += block
