@@ -418,17 +418,17 @@ class StackSpectrum:
             lo, f_lo = hi, f_hi
             hi = hi + max(f_hi / scale, 0.01 * hi)
             f_hi = excess(hi)
-        if f_lo <= 0:
-            return lo
-        while hi - lo > 0.01 * hi and math.isfinite(f_hi):
-            guess = hi - f_hi * (hi - lo) / (f_hi - f_lo)
-            for k in (guess * 1.004, guess * 0.996):
-                if lo < k < hi:
-                    f = excess(k)
-                    if f > 0:
-                        lo, f_lo = k, f
-                    else:
-                        hi, f_hi = k, f
+        if f_lo <= 0 or f_hi > 0:
+            return lo if f_lo <= 0 else hi
+        while hi - lo > 0.01 * hi:
+            guess = hi - f_hi * (hi - lo) / (f_hi - f_lo) if math.isfinite(f_hi) else math.nan
+            tries = [k for k in (guess * 1.004, guess * 0.996) if lo < k < hi]
+            for k in tries or [0.5 * (lo + hi)]:
+                f = excess(k)
+                if f > 0:
+                    lo, f_lo = k, f
+                else:
+                    hi, f_hi = k, f
         return hi
 
     def quadrature(
