@@ -83,11 +83,12 @@ def main() -> None:
     p = probe_params()
     rows = []
     for name, layout in cases(p).items():
-        times, sol = [], None
+        times, cpu, sol = [], [], None
         for _ in range(repeats):
-            t0 = time.perf_counter()
+            t0, c0 = time.perf_counter(), time.process_time()
             sol = solve_axisymmetric(layout, rel_accuracy=1e-4)
             times.append(time.perf_counter() - t0)
+            cpu.append(time.process_time() - c0)
         ref = solve_axisymmetric(layout, rel_accuracy=1e-7)
         cref = ref.capacitance_matrix_F
         scale = np.sqrt(np.abs(np.outer(np.diag(cref), np.diag(cref))))
@@ -96,6 +97,7 @@ def main() -> None:
             (
                 name,
                 statistics.median(times),
+                statistics.median(cpu),
                 sol.n_unknowns,
                 sol.rel_error_estimate,
                 err,
@@ -103,14 +105,15 @@ def main() -> None:
                 ref.n_unknowns,
             )
         )
-    base = rows[0][1]
+    base, base_cpu = rows[0][1], rows[0][2]
     print(
-        f"{'case':<20} {'median s':>9} {'x bare':>7} {'unknowns':>9} {'est. err':>9} "
-        f"{'true err':>9} {'C_sense pF':>11} {'ref N':>7}"
+        f"{'case':<20} {'median s':>9} {'x bare':>7} {'cpu s':>7} {'x bare':>7} {'unknowns':>9} "
+        f"{'est. err':>9} {'true err':>9} {'C_sense pF':>11} {'ref N':>7}"
     )
-    for name, t, n, est, err, c, nref in rows:
+    for name, t, tc, n, est, err, c, nref in rows:
         print(
-            f"{name:<20} {t:9.3f} {t / base:7.2f} {n:9d} {est:9.2e} {err:9.2e} {c:11.6f} {nref:7d}"
+            f"{name:<20} {t:9.3f} {t / base:7.2f} {tc:7.3f} {tc / base_cpu:7.2f} {n:9d} "
+            f"{est:9.2e} {err:9.2e} {c:11.6f} {nref:7d}"
         )
 
 
