@@ -52,7 +52,12 @@ costs nothing extra.
 no wider than 20 / a_max (a_max the largest exponent) and than the distance of the nearest
 pole of the reflection denominators (at k = ln|G G'| / (2d) < 0, near 0 at high contrast),
 growing by at most half their left end (so exp(-k a) and the pole are resolved), then at most
-``width`` wide.
+``width`` wide. :meth:`StackSpectrum.quadrature` also limits each panel by the oscillation of
+J0(k r) J0(k r') exp(-k a) (like exp(i omega k), omega = hypot(2 r_max, a_max)): its half-width
+phase theta keeps the 16-point Gauss error of exp(i theta x) on [-1, 1] (tabulated at import)
+times the remainder's envelope B exp(-k c) k^moment at the panel below tol / K, so panels
+widen as the envelope decays (phases 5 .. 40 rad against a fixed 5 before: 2.3x fewer nodes
+for the film on a grounded plane, entries unchanged to 1e-15).
 
 API (stable): :class:`Slab`, :class:`SpectralTerm` (``coef``, ``limit``, ``t_sign``,
 ``t_ref``, ``s_sign``, ``s_ref``, ``bound``, ``decay``, ``direct``, ``target_length``,
@@ -404,18 +409,31 @@ class StackSpectrum:
         scale = min(self.exponent_range(t, z_targets, z_sources)[0] + t.decay for t in rem)
         if not scale > 0:
             raise ValueError(f"remainder without decay (decay length {scale:g} m)")
-        hi = 1.0 / scale
-        while self.tail_bound(target, source, hi, z_targets, z_sources, moment) > tol:
-            hi *= 2.0
-            if hi > 1e6 / scale:
-                break
-        lo = hi / 2.0
+
+        def excess(k: float) -> float:
+            tb = self.tail_bound(target, source, k, z_targets, z_sources, moment)
+            return math.log(tb / tol) if tb > 0 else -math.inf
+
+        # log(tail_bound) falls about linearly in K (slope -a of the slowest term, a >= scale):
+        # step on that slope until the bound is met, then bracket the root by secant guesses
+        # tested 0.4 % to either side (a handful of bounds instead of a bisection)
+        lo, f_lo = 0.5 / scale, excess(0.5 / scale)
+        hi, f_hi = 1.0 / scale, excess(1.0 / scale)
+        while f_hi > 0 and hi <= 1e6 / scale:
+            lo, f_lo = hi, f_hi
+            hi = hi + max(f_hi / scale, 0.01 * hi)
+            f_hi = excess(hi)
+        if f_lo <= 0 or f_hi > 0:
+            return lo if f_lo <= 0 else hi
         while hi - lo > 0.01 * hi:
-            mid = 0.5 * (lo + hi)
-            if self.tail_bound(target, source, mid, z_targets, z_sources, moment) > tol:
-                lo = mid
-            else:
-                hi = mid
+            guess = hi - f_hi * (hi - lo) / (f_hi - f_lo) if math.isfinite(f_hi) else math.nan
+            tries = [k for k in (guess * 1.004, guess * 0.996) if lo < k < hi]
+            for k in tries or [0.5 * (lo + hi)]:
+                f = excess(k)
+                if f > 0:
+                    lo, f_lo = k, f
+                else:
+                    hi, f_hi = k, f
         return hi
 
     def quadrature(
@@ -443,7 +461,22 @@ class StackSpectrum:
         ranges = [self.exponent_range(t, z_targets, z_sources) for t in terms]
         c_min = min(r[0] + t.decay for r, t in zip(ranges, terms, strict=True))
         a_max = max(r[1] for r in ranges)
-        return hankel_rule(k_max, self.panel_width(r_max, c_min), a_max, self.pole_distance)
+        # Oscillation-limited panels: J0(k r) J0(k r') exp(-k a) varies like exp(i omega k)
+        # with |omega| <= hypot(2 r_max, a_max); the Gauss error may grow where the envelope
+        # B exp(-k c_min) k^moment has decayed, keeping every panel's share of ``tol`` below
+        # its share of [0, k_max] (B: twice the largest |coef - limit| seen on a k grid).
+        probe = k_max * np.linspace(0.0, 1.0, 65) ** 2
+        rem = self.terms(target, source, probe, k_max)
+        b = 2.0 * sum(float(np.max(np.abs(t.coef - t.limit))) for t in rem if not t.direct)
+        omega = math.hypot(2.0 * r_max, a_max)
+        budget = tol / (k_max * b) if b > 0 else math.inf
+        return hankel_rule(
+            k_max,
+            self.panel_width(0.0, c_min),
+            a_max,
+            self.pole_distance,
+            oscillation=(omega, c_min, moment, budget),
+        )
 
     @property
     def pole_distance(self) -> float:
@@ -474,20 +507,55 @@ class StackSpectrum:
         return min(widths)
 
 
+def _gauss_phase_error(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Phases theta (T,) and the n-point Gauss-Legendre error (T,) of int_{-1}^{1}
+    exp(i theta x) dx, made non-decreasing in theta (the odd part integrates exactly)."""
+    theta = np.arange(0.25, 40.0, 0.25)
+    x, w = gauss_legendre(n)
+    err = np.abs(np.cos(np.outer(theta, x)) @ w - 2.0 * np.sin(theta) / theta)
+    return theta, np.maximum.accumulate(err)
+
+
+_PHASES, _PHASE_ERRORS = _gauss_phase_error(GAUSS_NODES)
+#: Half-width phase of the fixed-width rule (5 / r_max panels): error at rounding level.
+_SAFE_PHASE = 5.0
+
+
+def _oscillation_width(k: float, oscillation: tuple[float, float, int, float]) -> float:
+    """Widest panel (1/m) starting at k whose Gauss error on exp(i omega k) times the envelope
+    exp(-k c) (k + 1/c)^moment stays below ``budget`` (``oscillation`` = omega, c, moment,
+    budget; :meth:`StackSpectrum.quadrature`)."""
+    omega, c, moment, budget = oscillation
+    envelope = math.exp(-k * c) * (k + 1.0 / c) ** moment
+    allowed = budget / envelope if envelope > 0 else math.inf
+    i = int(np.searchsorted(_PHASE_ERRORS, allowed, side="right")) - 1
+    theta = max(float(_PHASES[i]) if i >= 0 else 0.0, _SAFE_PHASE)
+    return 2.0 * theta / omega if omega > 0 else math.inf
+
+
 def hankel_rule(
-    k_max: float, width: float, a_max: float, pole_distance: float = math.inf
+    k_max: float,
+    width: float,
+    a_max: float,
+    pole_distance: float = math.inf,
+    oscillation: tuple[float, float, int, float] | None = None,
 ) -> HankelRule:
     """Composite Gauss-Legendre rule on [0, k_max]: the first panel at most 20 / a_max and
     ``pole_distance`` wide, each next one at most half its left end wider, none above
-    ``width``."""
+    ``width``; with ``oscillation`` = (omega, c, moment, budget) also none wider than
+    :func:`_oscillation_width` at its left end (panels widen as the envelope decays)."""
     first = min(width, pole_distance)
     if a_max > 0:
         first = min(first, _FIRST_PANEL_EXPONENT / a_max)
+    if oscillation is not None:
+        first = min(first, _oscillation_width(0.0, oscillation))
     edges = [0.0]
     h = first
     while edges[-1] < k_max:
         edges.append(min(edges[-1] + h, k_max))
         h = min(width, max(first, 0.5 * edges[-1]))
+        if oscillation is not None:
+            h = min(h, max(first, _oscillation_width(edges[-1], oscillation)))
     x, w = gauss_legendre(GAUSS_NODES)
     e = np.asarray(edges)
     a, b = e[:-1, None], e[1:, None]

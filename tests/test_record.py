@@ -16,6 +16,7 @@ from elopt.optimizer.record import (
     JsonWarnings,
     design_from_json,
     design_json,
+    finite_or_none,
     strict_dumps,
 )
 from elopt.optimizer.store import StudyWriter, read_design
@@ -106,6 +107,16 @@ def test_json_is_strict_and_every_null_says_why():
     assert any("surface[a].sigma_C_per_m2 is undefined (inf)" in w for w in warnings)
     with pytest.raises(ValueError):
         strict_dumps({"x": math.nan})
+
+
+def test_an_undefined_value_is_reported_once_with_the_first_reason():
+    warnings = JsonWarnings(["score_fF is undefined (null): no specimen in the cell"])
+    assert finite_or_none(math.nan, "score_fF", warnings, "generic reason") is None
+    assert finite_or_none(math.nan, "other", warnings, "generic reason") is None
+    assert warnings == [
+        "score_fF is undefined (null): no specimen in the cell",
+        "other is undefined (nan): generic reason; written as null",
+    ]
 
 
 @pytest.mark.parametrize("number", [0, 4])

@@ -36,9 +36,14 @@ def test_specimen_is_a_layer_centred_on_the_mid_plane():
 
 
 def test_no_specimen_reports_no_inferred_permittivity():
-    m = FAMILY.evaluate(CELL, rel_accuracy=1e-4).metrics
+    ev = FAMILY.evaluate(CELL, rel_accuracy=1e-4)
+    m = ev.metrics
     assert m["specimen_eps_r_inferred"] != m["specimen_eps_r_inferred"]  # nan
     assert m["specimen_eps_r_error_pct"] != m["specimen_eps_r_error_pct"]
+    # ... and says why, so a user reads "no specimen", not "could not define it"
+    notes = ev.extra["metric_notes"]
+    assert "no specimen" in notes["specimen_eps_r_inferred"]
+    assert "no specimen" in notes["specimen_eps_r_error_pct"]
 
 
 def test_inferred_permittivity_tends_to_the_true_one_for_a_very_permittive_filling_specimen():

@@ -12,9 +12,10 @@ class JsonWarnings(list[str]):
     (an array with several undefined entries gives one line)."""
 
     def note(self, key: str, value: float, why: str) -> None:
-        line = f"{key} is undefined ({value}): {why}; written as null"
-        if line not in self:
-            self.append(line)
+        # One line per key: a reason given earlier (a family's note on the metric) stands.
+        if any(w.startswith(f"{key} is undefined ") for w in self):
+            return
+        self.append(f"{key} is undefined ({value}): {why}; written as null")
 
 
 def finite_or_none(value: Any, key: str, warnings: JsonWarnings, why: str) -> float | None:

@@ -14,6 +14,7 @@ from elopt.optimizer.report.numbers import short_number, shown_unit
 from elopt.optimizer.report.study_view import fixed_words, front_numbers, reruns, study_caution
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store import StudySnapshot, TrialArrays
+from elopt.physics.electrodes.cross_section import is_cross_section
 
 
 def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, number: int) -> None:
@@ -83,23 +84,35 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         _tolerance_table(console, h, c, number, tolerance)
 
     conductors = snap.conductor_names(number)
-    cap = Table(title="capacitance matrix (fF)", title_justify="left")
+    section = is_cross_section(h.family)
+    # A cross-section's matrix is per metre of length: pF/m reads like the family's metrics.
+    unit, scale = ("pF/m", 1e12) if section else ("fF", 1e15)
+    title = f"capacitance matrix ({unit})"
+    cap = Table(title=title, title_justify="left", min_width=len(title))
     cap.add_column("")
     for n in conductors:
         cap.add_column(n, justify="right")
     for i, n in enumerate(conductors):
-        cap.add_row(n, *[f"{v * 1e15:.5g}" for v in arrays.capacitance_F[i]])
+        cap.add_row(n, *[f"{v * scale:.5g}" for v in arrays.capacitance_F[i]])
     console.print(cap)
+    if "period_m" in info.get("extra", {}):
+        console.print("(the comb's interior periodic cell: one finger of each comb per period)")
 
     peak = c["peak_surface_field_V_per_m"][number]
     pc = int(c["peak_conductor"][number])
     where = conductors[pc] if 0 <= pc < len(conductors) else "?"
     kind = arrays.surface[0].kind if arrays.surface else "profile"
-    axes = ("x", "y", "z") if kind == "panels" else ("r", "z")
+    axes = ("x", "y", "z") if kind == "panels" else (("x", "z") if section else ("r", "z"))
     at = ", ".join(
         f"{a} = {v * 1e3:.4g} mm" for a, v in zip(axes, c["peak_location_m"][number], strict=False)
     )
     console.print(f"peak surface field {peak:.4g} V/m ({peak * 1e-6:.3g} kV/mm) on {where} at {at}")
+    whole = _metric_peak(h, c, number)
+    if info.get("extra", {}).get("peak_on_outer_fingers") and whole is not None:
+        console.print(
+            f"that is the interior cell's peak; over the whole comb the peak is {whole:.4g} V/m, "
+            "on an outer finger (the metric and the field limit use this one)"
+        )
     if c["peak_at_sharp_corner"][number]:
         console.print(
             Text(
@@ -117,6 +130,15 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
     caution = study_caution(snap)
     if caution:
         console.print(Text(caution, style="yellow"))
+
+
+def _metric_peak(h, c, number: int) -> float | None:
+    """The trial's peak-field metric (V/m), or None when the family does not report it."""
+    name = "peak_surface_field_V_per_m"
+    if name not in h.metric_names:
+        return None
+    value = float(c["metrics"][number, h.metric_names.index(name)])
+    return value if math.isfinite(value) else None
 
 
 def _tolerance_table(console: Console, h, c, number: int, tolerance: dict) -> None:

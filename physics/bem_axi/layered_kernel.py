@@ -238,15 +238,19 @@ class LayeredKernel:
                 wd[s + 1, s] = (1.0 + sp.r_up[s]) / slab.eps_r
             if s > 0:
                 wd[s - 1, s] = (1.0 + sp.r_dn[s]) / slab.eps_r
-        w = wd[t_slab][:, s_slab]
-        out = direct * (w[..., None] if field else w)
+        ts, ss = np.unique(t_slab), np.unique(s_slab)
+        if len(ts) == 1 and len(ss) == 1:
+            out = direct * wd[ts[0], ss[0]]
+        else:
+            w = wd[t_slab][:, s_slab]
+            out = direct * (w[..., None] if field else w)
         for s in np.unique(p_slab):
             rows = np.nonzero(t_slab == s)[0]
             if not len(rows):
                 continue
             panels = np.nonzero(p_slab == s)[0]
             cols = (panels[:, None] * mesh.order + np.arange(mesh.order)).ravel()
-            sub = sub_mesh(mesh, panels)
+            sub = mesh if len(panels) == mesh.n_panels else sub_mesh(mesh, panels)
             slab = sp.slabs[s]
             for z0, r in ((slab.z_lo, sp.r_dn[s]), (slab.z_hi, sp.r_up[s])):
                 if r is None:
@@ -256,7 +260,7 @@ class LayeredKernel:
                 if np.any(on):
                     # a source resting on the face is its own mirror image
                     img[:, on] = direct[rows][:, cols[on]]
-                out[np.ix_(rows, cols)] += (r / slab.eps_r) * img
+                _add_block(out, rows, cols, (r / slab.eps_r) * img)
         if remainder:
             self._remainder(out, mesh, targets, t_slab, s_slab, field)
         return out
@@ -276,33 +280,59 @@ class LayeredKernel:
                 rule = sp.quadrature(t, s, tg[:, 1], sc[:, 1], r_max, tol, int(field))
                 if rule is None:
                     continue
-                k, wk = rule.k, rule.w
-                src_fac = (
-                    j0(np.outer(sc[:, 0], k)) * (0.5 * sc[:, 0] * mesh.weights_m[cols])[:, None]
-                )
-                kr = np.outer(tg[:, 0], k)
-                tj0 = j0(kr)
-                tj1 = j1(kr) * k if field else None
-                # terms sharing a target factor share one product: sum their source sides
-                groups: dict[tuple[int, float], np.ndarray] = {}
-                src_exp: dict[tuple[int, float], np.ndarray] = {}
-                for term in sp.terms(int(t), int(s), k):
-                    if term.direct:
-                        continue
-                    key_s = (term.s_sign, term.s_ref)
-                    if key_s not in src_exp:
-                        src_exp[key_s] = src_fac * np.exp(
-                            -np.outer(term.source_length(sc[:, 1]), k)
-                        )
-                    side = src_exp[key_s] * (wk * (term.coef - term.limit))
-                    key_t = (term.t_sign, term.t_ref)
-                    groups[key_t] = groups[key_t] + side if key_t in groups else side
-                block = np.zeros((len(rows), len(cols), 2) if field else (len(rows), len(cols)))
-                for (t_sign, t_ref), side in groups.items():
-                    ua = np.exp(-np.outer(np.maximum(t_sign * (tg[:, 1] - t_ref), 0.0), k))
-                    if not field:
-                        block += (tj0 * ua) @ side.T
-                    else:
-                        block[..., 0] += (tj1 * ua) @ side.T
-                        block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
-                out[np.ix_(rows, cols)] += block
+                same = not field and targets is src and np.array_equal(rows, cols)
+                block = self._remainder_block(int(t), int(s), rule, tg, sc, same, field)
+                w_src = 0.5 * sc[:, 0] * mesh.weights_m[cols]
+                block *= w_src[:, None] if field else w_src
+                _add_block(out, rows, cols, block)
+
+    def _remainder_block(self, t, s, rule, tg, sc, same: bool, field: bool) -> np.ndarray:
+        """Remainder (M, N) or (M, N, 2) of targets ``tg`` (M, 2) in slab t and sources
+        ``sc`` (N, 2) in slab s per unit ring weight r'/2 ds'. ``same``: the targets are the
+        sources (the collocation), so both sides share the Bessel and exponential factors and
+        the block is U diag(w) U^T."""
+        k, wk = rule.k, rule.w
+        sj0 = _per_value(j0, sc[:, 0], k)
+        tj0 = sj0 if same else _per_value(j0, tg[:, 0], k)
+        exps: dict[tuple[int, float, bool], np.ndarray] = {}
+
+        def decay(sign: int, ref: float, target: bool) -> np.ndarray:
+            key = (sign, ref, target and not same)
+            if key not in exps:
+                z = (tg if key[2] else sc)[:, 1]
+                exps[key] = _per_value(np.exp, -np.maximum(sign * (z - ref), 0.0), k)
+            return exps[key]
+
+        # terms sharing a target factor share one product: sum their source sides
+        groups: dict[tuple[int, float], np.ndarray] = {}
+        for term in self.spectrum.terms(t, s, k):
+            if term.direct:
+                continue
+            side = (sj0 * decay(term.s_sign, term.s_ref, False)) * (wk * (term.coef - term.limit))
+            key_t = (term.t_sign, term.t_ref)
+            groups[key_t] = groups[key_t] + side if key_t in groups else side
+        if not field:
+            return sum((tj0 * decay(*key, True)) @ side.T for key, side in groups.items())
+        tj1 = _per_value(j1, tg[:, 0], k) * k
+        block = np.zeros((len(tg), len(sc), 2))
+        for (t_sign, t_ref), side in groups.items():
+            ua = decay(t_sign, t_ref, True)
+            block[..., 0] += (tj1 * ua) @ side.T
+            block[..., 1] += (t_sign * tj0 * ua * k) @ side.T
+        return block
+
+
+def _per_value(fn, x: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """fn(x k) (M, Q) for values x (M,) and nodes k (Q,), evaluated once per distinct x
+    (nodes on a wall share their radius, nodes on a face their height)."""
+    xu, inv = np.unique(x, return_inverse=True)
+    return fn(np.outer(xu, k))[inv]
+
+
+def _add_block(out: np.ndarray, rows: np.ndarray, cols: np.ndarray, block: np.ndarray) -> None:
+    """out[rows, cols] += block (rows (M,), cols (N,) ascending); in place, without the
+    fancy-indexed copy when they cover the whole matrix."""
+    if len(rows) == out.shape[0] and len(cols) == out.shape[1]:
+        out += block
+    else:
+        out[np.ix_(rows, cols)] += block

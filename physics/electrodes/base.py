@@ -230,7 +230,9 @@ class ElectrodeFamily(ABC):
     Class attributes: ``name`` (registry key), ``Params`` and ``Options`` (frozen dataclasses
     declared with :func:`parameter`), ``metrics`` (what :meth:`measure` returns, plus any of
     :data:`elopt.physics.electrodes.metrics.STANDARD` it lists: the pipeline fills those),
-    ``mirror_pair`` (the layout is one electrode above the mid-plane of a symmetric pair).
+    ``mirror_pair`` (the layout is one electrode above the mid-plane of a symmetric pair),
+    ``per_unit_length`` (the layout is a cross-section: its capacitances are per metre; listed
+    in :mod:`elopt.physics.electrodes.cross_section` too).
     """
 
     name: ClassVar[str]
@@ -238,6 +240,7 @@ class ElectrodeFamily(ABC):
     Options: ClassVar[type] = NoOptions
     metrics: ClassVar[tuple[MetricSpec, ...]]
     mirror_pair: ClassVar[bool] = False
+    per_unit_length: ClassVar[bool] = False
 
     # ------------------------------------------------------------------ declarations
 

@@ -84,6 +84,7 @@ class Coplanar(ElectrodeFamily):
     """Parallel coplanar strips on a planar layer stack (module docstring)."""
 
     name: ClassVar[str] = "coplanar"
+    per_unit_length: ClassVar[bool] = True
     Params: ClassVar[type] = CoplanarParams
     Options: ClassVar[type] = CoplanarOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (

@@ -107,6 +107,7 @@ class Interdigitated(ElectrodeFamily):
     """Interdigitated comb pair on a planar layer stack (module docstring)."""
 
     name: ClassVar[str] = "interdigitated"
+    per_unit_length: ClassVar[bool] = True
     Params: ClassVar[type] = InterdigitatedParams
     Options: ClassVar[type] = InterdigitatedOptions
     metrics: ClassVar[tuple[MetricSpec, ...]] = (

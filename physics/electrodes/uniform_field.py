@@ -256,4 +256,10 @@ class UniformField(SolvedByProfiles, ElectrodeFamily):
             "midplane_r_m": r_profile,
             "midplane_field_V_per_m": e_profile,
         }
+        if params.specimen_um <= 0:
+            why = "the cell holds no specimen (specimen_um = 0)"
+            extra["metric_notes"] = {
+                m.SPECIMEN_EPS_INFERRED.name: why,
+                m.SPECIMEN_EPS_ERROR.name: why,
+            }
         return Measured(metrics, extra)
