@@ -167,22 +167,6 @@ class DielectricModel:
 #: A junction exponent at least this is regular: the field stays finite there.
 REGULAR_EXPONENT = 1.0 - 1e-6
 
-    @cached_property
-    def conductor_pieces(self) -> tuple[tuple[np.ndarray, np.ndarray, np.ndarray], ...]:
-        """Per conductor, per piece of its curve (level-independent): the media (P, 2) on the
-        normal side and the other, the layer face it rests on (P,; NaN: none) and the arc
-        length (P,) m from the curve's start to the piece's end."""
-        out = []
-        for cond in self.layout.conductors:
-            pieces = cond.shape.pieces
-            media = piece_media(
-                self.geom, cond.shape, _normal_sign(cond.shape), f"conductor '{cond.name}'"
-            )
-            heights = [face_height(pc, self.layout.layer_stack, self.size) for pc in pieces]
-            ends = np.cumsum([pc.length for pc in pieces])
-            out.append((media, np.asarray(heights), ends))
-        return tuple(out)
-
 
 @lru_cache(maxsize=8)
 def dielectric_model(layout: Layout, loose: bool = False) -> DielectricModel:
