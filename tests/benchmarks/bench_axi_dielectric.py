@@ -22,22 +22,23 @@ decays), shares its Bessel and exponential factors between targets and sources a
 them once per distinct radius and height, and the level's meshes and conductor media are built
 once.
 
-Measured 2 Dec 2026, 17:52 UTC, back to back on main (dc16451, before) and after the
-bound-charge work (this branch, which includes the layered-kernel work), load average 14.7 on
-the two cores (this branch's test suite and other builds running), same columns:
-    before  bare                0.030   1.00  0.006   1.00   208  1.44e-05  4.38e-06
-            spacer eps_r 3      0.690  22.82  0.099  16.19   616  1.73e-06  1.38e-07
-            film 50 um eps_r 4  0.148   4.89  0.024   3.95   208  1.43e-05  4.35e-06
-    after   bare                0.034   1.00  0.006   1.00   208  1.44e-05  4.38e-06
-            spacer eps_r 3      0.089   2.64  0.015   2.38   256  5.65e-05  1.72e-05
-            film 50 um eps_r 4  0.085   2.50  0.011   1.80   208  1.43e-05  4.35e-06
-(a run at 17:48 with the ratio-4 rule for the spacer: 0.068 s, 2.27x wall, 2.56x CPU, 328
-unknowns). The spacer meets the 3x goal: its bound-charge rows are one compiled pass
-(bound_rows.py: the normal field summed at the node, the own panel by offset means on its
-near pieces only) instead of four field matrices; its junctions, where the spacer's faces meet
-the straight walls at right angles, are regular (wedge exponent 1, dielectric_geometry
-.junction_exponents) and graded like blunt corners, the interface ends not at all; regions
-without layers take a ratio-8 loose mesh rule; the estimate stays 3x above the true error.
+Measured 2 Dec 2026, 18:00 UTC, back to back on main (dc16451, before) and after the
+bound-charge work (this branch, which includes the layered-kernel work), 7 repeats, load
+average 18.4 on the two cores (other builds and test suites), same columns:
+    before  bare                0.021   1.00  0.006   1.00   208  1.44e-05  4.38e-06
+            spacer eps_r 3      0.381  17.88  0.093  16.92   616  1.73e-06  1.38e-07
+            film 50 um eps_r 4  0.096   4.48  0.023   4.17   208  1.43e-05  4.35e-06
+    after   bare                0.030   1.00  0.006   1.00   208  1.44e-05  4.38e-06
+            spacer eps_r 3      0.057   1.91  0.013   2.24   256  5.65e-05  1.72e-05
+            film 50 um eps_r 4  0.042   1.42  0.010   1.68   208  1.43e-05  4.35e-06
+(at 17:52, load 14.7: spacer 2.64x wall, 2.38x CPU; at 17:48 with the ratio-4 rule for the
+spacer: 2.27x wall, 2.56x CPU, 328 unknowns). The spacer meets the 3x goal: its
+bound-charge rows are one compiled pass (bound_rows.py: the normal field summed at the node,
+the own panel by offset means on its near pieces only) instead of four field matrices; its
+junctions, where the spacer's faces meet the straight walls at right angles, are regular
+(wedge exponent 1, dielectric_geometry.junction_exponents) and graded like blunt corners, the
+interface ends not at all; regions without layers take a ratio-8 loose mesh rule; the
+estimate stays 3x above the true error. A faster bare solve moves the ratio up.
 """
 
 from __future__ import annotations
