@@ -72,19 +72,20 @@ def single_layer(panels: Panels, targets: np.ndarray, period: float | None = Non
     y = panels.points
     w = panels.node_weights
     p = panels.order
-    d = x[:, None] - y[None, :]
     if period is None:
         with np.errstate(divide="ignore"):
-            a = -_INV_2PI * np.log(np.abs(d)) * w[None, :]
+            a = -_INV_2PI * np.log(np.abs(x[:, None] - y[None, :])) * w[None, :]
     else:
         a = periodic_log_matrix(x, y, w, period)
     # Near pairs: exact split of the logarithm.
     c = panels.center.copy()
     c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
-    dc = x[:, None] - c[None, :]
+    dx = x.real[:, None] - c.real[None, :]
     if period is not None:
-        dc = wrap(dc.real, period) + 1j * dc.imag
-    tq, pq = np.nonzero(np.abs(dc) < NEAR * panels.half[None, :])
+        dx = wrap(dx, period)
+    dz = x.imag[:, None] - c.imag[None, :]
+    reach = NEAR * panels.half
+    tq, pq = np.nonzero(dx * dx + dz * dz < (reach * reach)[None, :])
     if tq.size == 0:
         return a
     xq = x[tq]

@@ -47,32 +47,48 @@ def periodic_log_smooth(dx: np.ndarray, dz: np.ndarray, period: float) -> np.nda
 
 
 @numba.njit(cache=True)
-def _periodic_log_matrix(x, y, w, period, out):  # pragma: no cover - compiled
+def _periodic_log_matrix(x, y, w, period, symmetric, out):  # pragma: no cover - compiled
     c = 2.0 * math.pi / period
+    # sin(b/2) of b = c (x_t - y_k) from half-angle factors of each point: one product
+    # instead of a sine per pair; cos b = 1 - 2 sin^2(b/2); no wrapping needed (P is
+    # periodic in b through sin^2(b/2)).
+    ct, st = np.cos(0.5 * c * x.real), np.sin(0.5 * c * x.real)
+    cs, ss = np.cos(0.5 * c * y.real), np.sin(0.5 * c * y.real)
     for t in range(x.shape[0]):
-        for k in range(y.shape[0]):
-            dx = x[t].real - y[k].real
-            dx -= period * math.floor(dx / period + 0.5)
-            a = c * abs(x[t].imag - y[k].imag)
-            b = c * dx
+        for k in range(t if symmetric else 0, y.shape[0]):
+            sb = st[t] * cs[k] - ct[t] * ss[k]
+            dz = abs(x[t].imag - y[k].imag)
+            a = c * dz
             if a > 0.5:
+                # ln[2 (cosh a - cos b)] = a + ln((1 - e^-a)^2 + 4 e^-a sin^2(b/2)).
                 ea = math.exp(-a)
-                v = a + math.log1p(-2.0 * ea * math.cos(b) + ea * ea)
+                v = a + math.log((1.0 - ea) ** 2 + 4.0 * ea * sb * sb)
             else:
-                sa, sb = math.sinh(0.5 * a), math.sin(0.5 * b)
+                sa = math.sinh(0.5 * a) if dz != 0.0 else 0.0
                 q = 4.0 * (sa * sa + sb * sb)
                 v = math.log(q) if q > 0.0 else -math.inf
             out[t, k] = -v * w[k] / (4.0 * math.pi)
+            if symmetric:
+                out[k, t] = -v * w[t] / (4.0 * math.pi)
+
+
+def _mirror_pairs(x: np.ndarray, y: np.ndarray) -> bool:
+    """True when P(x_t - y_k) is symmetric in (t, k): the same abscissae, and the same heights
+    or heights whose sum is one constant (the points themselves or a copy reflected in a
+    horizontal line)."""
+    if x.size == 0 or x.shape != y.shape or not np.array_equal(x.real, y.real):
+        return False
+    tol = 1e-15 * max(float(np.abs(x.imag).max()), float(np.abs(y.imag).max()))
+    return bool(np.abs(x.imag - y.imag).max() <= tol or np.ptp(x.imag + y.imag) <= tol)
 
 
 def periodic_log_matrix(x: np.ndarray, y: np.ndarray, w: np.ndarray, period: float) -> np.ndarray:
-    """P(x_t - y_k) w_k (T, K) for complex targets x and sources y (compiled loop)."""
+    """P(x_t - y_k) w_k (T, K) for complex targets x and sources y (compiled loop; only one
+    triangle is evaluated when the pairs mirror, see ``_mirror_pairs``)."""
+    x = np.ascontiguousarray(x, dtype=complex)
+    y = np.ascontiguousarray(y, dtype=complex)
     out = np.empty((len(x), len(y)))
     _periodic_log_matrix(
-        np.ascontiguousarray(x, dtype=complex),
-        np.ascontiguousarray(y, dtype=complex),
-        np.ascontiguousarray(w, dtype=float),
-        float(period),
-        out,
+        x, y, np.ascontiguousarray(w, dtype=float), float(period), _mirror_pairs(x, y), out
     )
     return out
