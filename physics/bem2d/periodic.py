@@ -36,14 +36,51 @@ def periodic_log(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
     return -_INV_4PI * np.where(a > 0.5, big, small)
 
 
+@numba.njit(cache=True)
+def _height_factor(a):  # pragma: no cover - compiled
+    """exp(-a) for a > 0.5, else sinh(a / 2): the factor of ``_log_sum`` that needs a only."""
+    return math.exp(-a) if a > 0.5 else math.sinh(0.5 * a)
+
+
+@numba.njit(cache=True)
+def _log_sum(a, h, sb):  # pragma: no cover - compiled
+    """ln[2 (cosh a - cos b)] for a >= 0 from h = ``_height_factor(a)`` and sin(b/2);
+    -inf at a = b = 0."""
+    if a > 0.5:
+        # = a + ln((1 - e^-a)^2 + 4 e^-a sin^2(b/2)): no cancellation for any b.
+        return a + math.log((1.0 - h) ** 2 + 4.0 * h * sb * sb)
+    # = ln(4 (sinh^2(a/2) + sin^2(b/2))): precise as (a, b) -> 0.
+    q = 4.0 * (h * h + sb * sb)
+    return math.log(q) if q > 0.0 else -math.inf
+
+
+@numba.njit(cache=True)
+def _periodic_log_smooth(dx, dz, period, out):  # pragma: no cover - compiled
+    c = 2.0 * math.pi / period
+    at_zero = -2.0 * _INV_4PI * math.log(c)
+    for t in range(dx.shape[0]):
+        d = dx[t] - period * math.floor(dx[t] / period + 0.5)
+        r2 = d * d + dz[t] * dz[t]
+        if r2 == 0.0:
+            out[t] = at_zero
+        else:
+            a = c * abs(dz[t])
+            out[t] = _INV_4PI * (
+                math.log(r2) - _log_sum(a, _height_factor(a), math.sin(0.5 * c * d))
+            )
+
+
 def periodic_log_smooth(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
-    """S = P + ln(r)/(2 pi) with dx wrapped; the limit at r = 0."""
-    dxw = wrap(dx, period)
-    r2 = dxw * dxw + dz * dz
-    zero = r2 == 0.0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s = periodic_log(dxw, dz, period) + _INV_4PI * np.log(np.where(zero, 1.0, r2))
-    return np.where(zero, -2.0 * _INV_4PI * np.log(2.0 * np.pi / period), s)
+    """S = P + ln(r)/(2 pi) with dx wrapped; the limit at r = 0 (compiled loop)."""
+    dx, dz = np.broadcast_arrays(np.asarray(dx, dtype=float), np.asarray(dz, dtype=float))
+    out = np.empty(dx.shape)
+    _periodic_log_smooth(
+        np.ascontiguousarray(dx).ravel(),
+        np.ascontiguousarray(dz).ravel(),
+        float(period),
+        out.ravel(),
+    )
+    return out
 
 
 @numba.njit(cache=True)
@@ -54,19 +91,14 @@ def _periodic_log_matrix(x, y, w, period, symmetric, out):  # pragma: no cover -
     # periodic in b through sin^2(b/2)).
     ct, st = np.cos(0.5 * c * x.real), np.sin(0.5 * c * x.real)
     cs, ss = np.cos(0.5 * c * y.real), np.sin(0.5 * c * y.real)
+    a_last, h = -1.0, 0.0
     for t in range(x.shape[0]):
         for k in range(t if symmetric else 0, y.shape[0]):
             sb = st[t] * cs[k] - ct[t] * ss[k]
-            dz = abs(x[t].imag - y[k].imag)
-            a = c * dz
-            if a > 0.5:
-                # ln[2 (cosh a - cos b)] = a + ln((1 - e^-a)^2 + 4 e^-a sin^2(b/2)).
-                ea = math.exp(-a)
-                v = a + math.log((1.0 - ea) ** 2 + 4.0 * ea * sb * sb)
-            else:
-                sa = math.sinh(0.5 * a) if dz != 0.0 else 0.0
-                q = 4.0 * (sa * sa + sb * sb)
-                v = math.log(q) if q > 0.0 else -math.inf
+            a = c * abs(x[t].imag - y[k].imag)
+            if a != a_last:  # points on one horizontal line share the height factor
+                a_last, h = a, _height_factor(a)
+            v = _log_sum(a, h, sb)
             out[t, k] = -v * w[k] / (4.0 * math.pi)
             if symmetric:
                 out[k, t] = -v * w[t] / (4.0 * math.pi)

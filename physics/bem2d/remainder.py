@@ -24,16 +24,6 @@ def _rho(slabs: Slabs, k: np.ndarray, i: int, j: int) -> np.ndarray:
     return km - slabs.m_inf[j, i][None]
 
 
-def stack_key(slabs: Slabs) -> tuple:
-    """A hashable description of ``slabs`` (bounds, permittivities, plane)."""
-    return (
-        tuple(slabs.bottom_m.tolist()),
-        tuple(slabs.top_m.tolist()),
-        tuple(slabs.eps_F_per_m.tolist()),
-        slabs.ground_plane,
-    )
-
-
 #: Spectra of the periodic remainder by (stack, period, i, j): they depend only on the stack
 #: and the k-rule, so repeated solves of one stack (levels, trials, derivatives) share them.
 _SPECTRA: dict[tuple, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}
@@ -42,7 +32,7 @@ _SPECTRA_MAX = 256
 
 def _periodic_spectrum(slabs: Slabs, period: float, i: int, j: int):
     """k_n (n,), rho_pq(k_n) / k_n (n, 2, 2) real, and the largest |rho_pq / k| (2, 2)."""
-    key = (stack_key(slabs), float(period), i, j)
+    key = (slabs.key, float(period), i, j)
     hit = _SPECTRA.get(key)
     if hit is None:
         d_min = slabs.min_thickness_m
