@@ -55,19 +55,21 @@ def _log_sum(a, h, sb):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _periodic_log_smooth(dx, dz, period, out):  # pragma: no cover - compiled
+def smooth_value(dx, dz, period):  # pragma: no cover - compiled
+    """S(dx, dz) of one pair (see :func:`periodic_log_smooth`), for compiled callers."""
     c = 2.0 * math.pi / period
-    at_zero = -2.0 * _INV_4PI * math.log(c)
+    d = dx - period * math.floor(dx / period + 0.5)
+    r2 = d * d + dz * dz
+    if r2 == 0.0:
+        return -2.0 * _INV_4PI * math.log(c)
+    a = c * abs(dz)
+    return _INV_4PI * (math.log(r2) - _log_sum(a, _height_factor(a), math.sin(0.5 * c * d)))
+
+
+@numba.njit(cache=True)
+def _periodic_log_smooth(dx, dz, period, out):  # pragma: no cover - compiled
     for t in range(dx.shape[0]):
-        d = dx[t] - period * math.floor(dx[t] / period + 0.5)
-        r2 = d * d + dz[t] * dz[t]
-        if r2 == 0.0:
-            out[t] = at_zero
-        else:
-            a = c * abs(dz[t])
-            out[t] = _INV_4PI * (
-                math.log(r2) - _log_sum(a, _height_factor(a), math.sin(0.5 * c * d))
-            )
+        out[t] = smooth_value(dx[t], dz[t], period)
 
 
 def periodic_log_smooth(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
