@@ -38,44 +38,33 @@ def _lagrange_from_monomials(order: int) -> np.ndarray:
     return np.linalg.inv(np.vander(x, order, increasing=True))
 
 
-def log_moments(z: np.ndarray, order: int) -> np.ndarray:
-    """I[q, n] = int_{-1}^{1} t^n ln|t - z_q| dt (Q, order) for complex z (exact recurrence)."""
-    z = np.asarray(z, dtype=complex)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lp = np.log(np.abs(1.0 - z))
-        lm = np.log(np.abs(1.0 + z))
-        j = np.log(1.0 - z) - np.log(-1.0 - z)  # int dt / (t - z); real part exact on [-1, 1]
-    lp = np.where(np.isfinite(lp), lp, 0.0)
-    lm = np.where(np.isfinite(lm), lm, 0.0)
-    j = np.where(np.isfinite(j), j, 0.0)
-    out = np.empty((len(z), order))
-    for n in range(order):
+@numba.njit(cache=True)
+def _log_moments(z, out):  # pragma: no cover - compiled
+    """out[n] = int_{-1}^{1} t^n ln|t - z| dt (n < len(out)) for complex z (exact recurrence
+    on J_m = int t^(m-1) dt / (t - z), whose real part is exact on [-1, 1])."""
+    lp = math.log(abs(1.0 - z)) if z != 1.0 else 0.0
+    lm = math.log(abs(1.0 + z)) if z != -1.0 else 0.0
+    j = cmath.log(complex(1.0, 0.0) - z) - cmath.log(complex(-1.0, 0.0) - z)
+    if not (math.isfinite(j.real) and math.isfinite(j.imag)):
+        j = 0j
+    sign = 1.0
+    for n in range(out.shape[0]):
         m = n + 1
-        j = z * j + (1.0 - (-1.0) ** m) / m  # J_m from J_{m-1}
-        out[:, n] = (lp - (-1.0) ** m * lm - j.real) / m
-    return out
+        sign = -sign  # (-1)^m
+        j = z * j + (1.0 - sign) / m  # J_m from J_{m-1}
+        out[n] = (lp - sign * lm - j.real) / m
 
 
 @numba.njit(cache=True)
 def _near_block(xq, ts, nodes, half, gx, gw, lag, period, out):  # pragma: no cover
     """out[q, k]: the exact split of ``single_layer`` for target xq[q] (preimage ts[q]) and
     node k of its panel (nodes (Q, p), half (Q,)), with the periodic smooth part when
-    period > 0. The moments are those of :func:`log_moments`."""
+    period > 0."""
     p = gx.shape[0]
     mom = np.empty(p)
     for q in range(xq.shape[0]):
         z = ts[q]
-        lp = math.log(abs(1.0 - z)) if z != 1.0 else 0.0
-        lm = math.log(abs(1.0 + z)) if z != -1.0 else 0.0
-        j = cmath.log(complex(1.0, 0.0) - z) - cmath.log(complex(-1.0, 0.0) - z)
-        if not (math.isfinite(j.real) and math.isfinite(j.imag)):
-            j = 0j
-        sign = 1.0
-        for n in range(p):
-            m = n + 1
-            sign = -sign  # (-1)^m
-            j = z * j + (1.0 - sign) / m
-            mom[n] = (lp - sign * lm - j.real) / m
+        _log_moments(z, mom)
         h = half[q]
         for k in range(p):
             lw = 0.0
