@@ -108,7 +108,8 @@ def single_layer(panels: Panels, targets: np.ndarray, period: float | None = Non
         a = periodic_log_matrix(x, y, w, period)
     # Near pairs: exact split of the logarithm.
     c = panels.center.copy()
-    c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
+    if panels.is_arc.any():
+        c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
     dx = x.real[:, None] - c.real[None, :]
     if period is not None:
         dx = wrap(dx, period)
