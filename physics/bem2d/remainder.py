@@ -61,39 +61,42 @@ def _uniform(h: np.ndarray) -> bool:
 
 
 def _phase_factors(x: np.ndarray, period: float, n: int) -> np.ndarray:
-    """exp(i k_m x) for m = 1..n (X, n): powers of exp(i 2 pi x / lam) by a running product
-    (one complex exponential per point; the product's rounding grows like m eps, 1e-14 at
-    m = 100, below the 1e-13 tails of the series)."""
+    """cos(k_m x) and sin(k_m x) for m = 1..n as (X, 2, n): powers of exp(i 2 pi x / lam)
+    by a running product (one complex exponential per point; the product's rounding grows
+    like m eps, 1e-14 at m = 100, below the 1e-13 tails of the series)."""
     z = np.exp(2j * np.pi * np.asarray(x, dtype=float) / period)
-    return np.cumprod(np.broadcast_to(z[:, None], (len(z), n)), axis=1)
+    e = np.cumprod(np.broadcast_to(z[:, None], (len(z), n)), axis=1)
+    return np.stack([e.real, e.imag], axis=1)
 
 
 def _source_factors(memo, key, xs, period: float, n: int) -> np.ndarray:
-    """exp(i k_m x') (S, >= n), kept in ``memo`` under ``key`` when given (grown on demand)."""
+    """``_phase_factors`` of the sources (S, 2, >= n), kept in ``memo`` under ``key`` when
+    given (grown on demand)."""
     hit = None if memo is None else memo.get(key)
-    if hit is None or hit.shape[1] < n:
+    if hit is None or hit.shape[2] < n:
         hit = _phase_factors(xs, period, n)
         if memo is not None:
             memo[key] = hit
     return hit
 
 
-def _source_decay(memo, key, h, k, es) -> np.ndarray:
-    """exp(-k_m h) exp(i k_m x') (S, n), kept in ``memo``."""
+def _source_decay(memo, key, h, k, fs) -> np.ndarray:
+    """exp(-k_m h) times the factors ``fs`` (S, 2, n), kept in ``memo``."""
     hit = None if memo is None else memo.get(key)
-    if hit is None or hit.shape[1] < es.shape[1]:
-        hit = es * np.exp(-np.outer(h, k[: es.shape[1]]))
+    n = fs.shape[2]
+    if hit is None or hit.shape[2] < n:
+        hit = fs * np.exp(-np.outer(h, k[:n]))[:, None, :]
         if memo is not None:
             memo[key] = hit
     return hit
 
 
 def _cos_sum(ft: np.ndarray, fs: np.ndarray, coef: np.ndarray) -> np.ndarray:
-    """sum_m coef_m cos(k_m (x_t - x'_s)) (T, S) (coef (m,) or (T, m)) from the phase
-    factors: cos cos + sin sin as one real product."""
+    """sum_m coef_m cos(k_m (x_t - x'_s)) (T, S) (coef (m,) or (T, m)) from the factors
+    (T, 2, >= m) and (S, 2, >= m): cos cos + sin sin as one real product."""
     m = coef.shape[-1]
-    lhs = np.concatenate([ft.real[:, :m] * coef, ft.imag[:, :m] * coef], axis=1)
-    rhs = np.concatenate([fs.real[:, :m], fs.imag[:, :m]], axis=1)
+    lhs = (ft[:, :, :m] * coef[..., None, :]).reshape(len(ft), 2 * m)
+    rhs = fs[:, :, :m].reshape(len(fs), 2 * m)
     return lhs @ rhs.T
 
 
@@ -139,7 +142,7 @@ def periodic_remainder(
         else:
             for p, q, m in pairs:
                 u = np.exp(-np.outer(ht[:, p], kn[:m])) * rho[None, :m, p, q]
-                vs = _source_decay(memo, (float(period), j, q), hs[:, q], k, es[:, :n])
+                vs = _source_decay(memo, (float(period), j, q), hs[:, q], k, es[:, :, :n])
                 out += _cos_sum(et, vs, u)
     out *= 2.0 / period
     # The k = 0 mode and the extracted terms' linear parts: functions of z and z' only
