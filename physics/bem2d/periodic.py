@@ -56,7 +56,8 @@ def _log_sum(a, h, sb):  # pragma: no cover - compiled
 
 @numba.njit(cache=True)
 def smooth_value(dx, dz, period):  # pragma: no cover - compiled
-    """S(dx, dz) of one pair (see :func:`periodic_log_smooth`), for compiled callers."""
+    """S = P + ln(r)/(2 pi) of one pair (dx wrapped into the period), smooth near r = 0;
+    its limit -(1/2 pi) ln(2 pi / lam) at r = 0."""
     c = 2.0 * math.pi / period
     d = dx - period * math.floor(dx / period + 0.5)
     r2 = d * d + dz * dz
@@ -64,25 +65,6 @@ def smooth_value(dx, dz, period):  # pragma: no cover - compiled
         return -2.0 * _INV_4PI * math.log(c)
     a = c * abs(dz)
     return _INV_4PI * (math.log(r2) - _log_sum(a, _height_factor(a), math.sin(0.5 * c * d)))
-
-
-@numba.njit(cache=True)
-def _periodic_log_smooth(dx, dz, period, out):  # pragma: no cover - compiled
-    for t in range(dx.shape[0]):
-        out[t] = smooth_value(dx[t], dz[t], period)
-
-
-def periodic_log_smooth(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
-    """S = P + ln(r)/(2 pi) with dx wrapped; the limit at r = 0 (compiled loop)."""
-    dx, dz = np.broadcast_arrays(np.asarray(dx, dtype=float), np.asarray(dz, dtype=float))
-    out = np.empty(dx.shape)
-    _periodic_log_smooth(
-        np.ascontiguousarray(dx).ravel(),
-        np.ascontiguousarray(dz).ravel(),
-        float(period),
-        out.ravel(),
-    )
-    return out
 
 
 @numba.njit(cache=True)
