@@ -9,28 +9,15 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from elopt.physics.bem2d.layered_green import Slabs
 from elopt.physics.bem2d.mesh import build_panels
 from elopt.physics.bem2d.operators import single_layer
 from elopt.physics.bem2d.periodic import periodic_log, periodic_log_matrix
-from elopt.physics.bem2d.remainder import periodic_remainder
 from elopt.physics.bem2d.shapes import Piece
-from elopt.physics.media import LayerStack, PlanarLayer
 from elopt.physics.quadrature import gauss_legendre
 
 PERIOD = 3.0
 LINE = Piece(0.2 + 0.1j, 1.4 + 0.5j, None, 2, 2)
 ARC = Piece(1.0 + 0.0j, 0.0 + 1.0j, 0.0j, 1, 1)
-# A thin high-contrast layer between two others, over a ground plane (invented).
-STACK = LayerStack(
-    (
-        PlanarLayer("base", 6.0, 0.0, 1.0),
-        PlanarLayer("thin", 3.0, 1.0, 1.1),
-        PlanarLayer("film", 10.0, 1.1, 1.5),
-    ),
-    medium_eps_r=1.0,
-    ground_plane=True,
-)
 
 
 def reference_column(panels, panel: int, node: int, x: complex, period: float | None) -> float:
@@ -129,30 +116,3 @@ def test_periodic_matrix_matches_closed_form_on_mirrored_pairs():
         assert np.array_equal(same, np.isinf(got)), name
         scale = np.abs(ref[~same]).max()
         assert np.abs(got[~same] - ref[~same]).max() < 1e-12 * scale, name
-
-
-@pytest.mark.parametrize("mixed", [False, True], ids=["one-height", "mixed-heights"])
-def test_periodic_remainder_matrix_matches_pairwise(mixed):
-    # The matrix path (targets at the sources' abscissae share the phase factors, a memo kept
-    # between calls, one collapsed series when every point has one height) against one call
-    # per pair, whose single-point path tests/test_bem2d_kernel.py checks against the series.
-    slabs = Slabs.from_stack(STACK)
-    rng = np.random.default_rng(3)
-    xs = rng.uniform(-1.0, 1.0, 12)
-    zs = rng.uniform(1.0, 1.1, 12) if mixed else np.full(12, 1.04)
-    terms = slabs.image_terms(1, 1)
-    memo: dict = {}
-    for _ in range(2):  # the second call reads the memo
-        got = periodic_remainder(slabs, 2.0, 1, 1, xs, zs, xs, zs, terms, memo=memo)
-    ref = np.array(
-        [
-            [
-                periodic_remainder(
-                    slabs, 2.0, 1, 1, [xs[t] - xs[s]], [zs[t]], [0.0], [zs[s]], terms
-                )[0, 0]
-                for s in range(12)
-            ]
-            for t in range(12)
-        ]
-    )
-    assert np.abs(got - ref).max() < 1e-12 * np.abs(ref).max()
