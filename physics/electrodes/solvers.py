@@ -60,7 +60,7 @@ def check_coarse_mesh(family: str, layout: Layout, solve_options: SolveOptions) 
         return
     tightest = min(solve_options.rel_accuracy, solve_options.peak_rel_accuracy or 1.0)
     order = solve_options.order or default_order(tightest)
-    n0 = build_mesh(layout, 0, order, mesh_rule(order, tightest, conductors_only=True)).n_nodes
+    n0 = build_mesh(layout, 0, order, mesh_rule(order, tightest)).n_nodes
     if n0 > MAX_COARSE_UNKNOWNS:
         raise ElectrodeError(
             f"{family}: the coarsest mesh of this design already has {n0} unknowns, more than "
