@@ -9,8 +9,13 @@ pivoting, Bebendorf, Numer. Math. 86, 565 (2000)) and recompressed by a truncate
 to the relative tolerance ``tol`` of the block. Inadmissible leaf blocks are stored dense,
 with every entry from the accurate panel integrals. Entries of admissible blocks use the
 same distance-chosen rule (:mod:`.panel_integrals`), so the compressed matrix approximates
-exactly the dense one. Low-rank factors are stored in float32 (their relative rounding,
-6e-8, is far below the tolerances used).
+exactly the dense one. Dense blocks and low-rank factors are stored in float32 (their
+relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo C moved by
+less than 1e-7 against float64 near blocks).
+
+:func:`apply_once` forms the same blocks batch by batch and applies each as it is made, for a
+product or two at targets that will not be reused: nothing is stored, and the low-rank factors
+are not recompressed (storage is all recompression buys).
 
 The product runs on every core with a fixed split of the work, so repeated products are
 bit-identical.
@@ -282,7 +287,7 @@ def _near_blocks(
     r7,
     w7,
 ):
-    out = np.empty(offsets[-1])
+    out = np.empty(offsets[-1], np.float32)
     for b in prange(blocks.shape[0]):
         buf = np.empty(4)
         tri = np.empty((3, 3))
@@ -773,6 +778,189 @@ def _chunks(work: np.ndarray, n_chunks: int) -> np.ndarray:
     return np.maximum.accumulate(marks).astype(np.int64)
 
 
+@dataclass(frozen=True)
+class _Blocks:
+    """The block partition of one matrix and its data in tree order (what the kernels take)."""
+
+    targets: ClusterTree
+    sources: ClusterTree
+    near: np.ndarray
+    far: np.ndarray
+    kernel_args: tuple
+
+    @property
+    def tsz(self) -> np.ndarray:
+        return self.targets.end - self.targets.start
+
+    @property
+    def ssz(self) -> np.ndarray:
+        return self.sources.end - self.sources.start
+
+    @property
+    def tree_args(self) -> tuple:
+        t, s = self.targets, self.sources
+        ident_t = np.arange(len(t.perm), dtype=np.int64)
+        ident_s = np.arange(len(s.perm), dtype=np.int64)
+        return t.start, t.end, s.start, s.end, ident_t, ident_s
+
+
+def _partition_blocks(
+    panels: PanelSet,
+    targets: np.ndarray | None,
+    directions: np.ndarray | None,
+    eta: float,
+    leaf: int,
+) -> _Blocks:
+    corners, centroids, areas, diams = panels.kernel_arrays
+    pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
+    deriv = directions is not None
+    dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+    tt = cluster_tree(pts, pts, pts, leaf)
+    src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
+    far, near = _partition(
+        tt.lo,
+        tt.hi,
+        tt.child,
+        tt.end - tt.start,
+        src.lo,
+        src.hi,
+        src.child,
+        src.end - src.start,
+        eta,
+    )
+    # Order blocks by target cluster start so that chunks touch few rows.
+    near = near[np.lexsort((near[:, 1], tt.start[near[:, 0]]))]
+    far = far[np.lexsort((far[:, 1], tt.start[far[:, 0]]))]
+    # Panel and target data in tree order: the kernels then read memory in sequence
+    # (scattered reads cost several times the arithmetic of a far entry).
+    sp, tp = src.perm, tt.perm
+    corners = np.ascontiguousarray(corners[sp])
+    gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    kernel_args = (
+        np.ascontiguousarray(pts[tp]),
+        np.ascontiguousarray(dirs[tp]) if deriv else dirs,
+        deriv,
+        corners,
+        np.ascontiguousarray(centroids[sp]),
+        np.ascontiguousarray(areas[sp]),
+        np.ascontiguousarray(diams[sp]),
+        gp,
+        panels.ground_plane,
+        *pint.rules(),
+    )
+    return _Blocks(tt, src, near, far, kernel_args)
+
+
+def _near_values(bl: _Blocks, near: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Offsets (B + 1,) and float32 entries of the dense blocks ``near`` (B, 2), row-major."""
+    sizes = bl.tsz[near[:, 0]] * bl.ssz[near[:, 1]]
+    off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    return off, _near_blocks(near, *bl.tree_args, off, *bl.kernel_args)
+
+
+def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
+    """Per batch of far blocks (:func:`_batches`): (first, last, m, n, kmax, uoff, voff, U^T,
+    V, ranks), block b's U^T in ubig[uoff[b]:uoff[b + 1]] as (kmax[b], m[b]) rows, V
+    likewise."""
+    tsz, ssz = bl.tsz, bl.ssz
+    for b0, b1 in _batches(bl.far, tsz, ssz):
+        blk = bl.far[b0:b1]
+        m = tsz[blk[:, 0]]
+        n = ssz[blk[:, 1]]
+        kmax = np.minimum(np.minimum(m, n), MAX_RANK)
+        uoff = np.concatenate([[0], np.cumsum(m * kmax)]).astype(np.int64)
+        voff = np.concatenate([[0], np.cumsum(n * kmax)]).astype(np.int64)
+        ubig = np.zeros(uoff[-1])
+        vbig = np.zeros(voff[-1])
+        rk = np.zeros(len(blk), np.int64)
+        _aca_batch(
+            blk,
+            *bl.tree_args,
+            *bl.kernel_args,
+            tol,
+            MAX_RANK,
+            recompress,
+            uoff,
+            voff,
+            ubig,
+            vbig,
+            rk,
+        )
+        yield b0, b1, m, n, kmax, uoff, voff, ubig, vbig, rk
+
+
+@njit(cache=True)
+def _apply_near(blocks, off, t_start, t_end, s_start, s_end, vals, x, y):
+    """y (M, K) += the dense blocks times x (N, K), tree order."""
+    nk = x.shape[1]
+    for b in range(blocks.shape[0]):
+        t = blocks[b, 0]
+        s = blocks[b, 1]
+        k = off[b]
+        for i in range(t_start[t], t_end[t]):
+            for j in range(s_start[s], s_end[s]):
+                a = vals[k]
+                for c in range(nk):
+                    y[i, c] += a * x[j, c]
+                k += 1
+
+
+@njit(cache=True)
+def _apply_cross(blocks, kmax, uoff, voff, ubig, vbig, ranks, t_start, t_end, s_start, s_end, x, y):
+    """y (M, K) += U V x (N, K) for each block of one batch of cross approximations."""
+    nk = x.shape[1]
+    for b in range(blocks.shape[0]):
+        t = blocks[b, 0]
+        s = blocks[b, 1]
+        m = t_end[t] - t_start[t]
+        n = s_end[s] - s_start[s]
+        for q in range(ranks[b]):
+            z = np.zeros(nk)
+            vb = voff[b] + q * n
+            for j in range(n):
+                for c in range(nk):
+                    z[c] += vbig[vb + j] * x[s_start[s] + j, c]
+            ub = uoff[b] + q * m
+            for i in range(m):
+                for c in range(nk):
+                    y[t_start[t] + i, c] += ubig[ub + i] * z[c]
+
+
+#: Dense-block entries formed per step of :func:`apply_once` (float32: 4 bytes each).
+_NEAR_STEP = 2_000_000
+
+
+def apply_once(
+    panels: PanelSet,
+    density: np.ndarray,
+    *,
+    tol: float,
+    targets: np.ndarray,
+    directions: np.ndarray | None = None,
+    eta: float = ETA,
+    leaf: int = LEAF,
+) -> np.ndarray:
+    """(M, K): the product of the matrix :class:`HMatrix` would store for ``targets`` (M, 3)
+    (and ``directions``) with ``density`` (N, K), its blocks made and applied batch by batch
+    (module docstring); memory beyond the result is one batch."""
+    bl = _partition_blocks(panels, targets, directions, eta, leaf)
+    dens = np.asarray(density, dtype=float)
+    x = np.ascontiguousarray(dens.reshape(len(dens), -1)[bl.sources.perm])
+    y = np.zeros((len(bl.targets.perm), x.shape[1]))
+    ends = bl.tree_args[:4]
+    sizes = bl.tsz[bl.near[:, 0]] * bl.ssz[bl.near[:, 1]]
+    cut = np.searchsorted(np.cumsum(sizes), np.arange(_NEAR_STEP, sizes.sum(), _NEAR_STEP))
+    for part in np.split(bl.near, np.unique(cut + 1)):
+        if len(part):
+            off, vals = _near_values(bl, part)
+            _apply_near(part, off, *ends, vals, x, y)
+    for b0, b1, _, _, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, False):
+        _apply_cross(bl.far[b0:b1], kmax, uoff, voff, ubig, vbig, rk, *ends, x, y)
+    out = np.empty_like(y)
+    out[bl.targets.perm] = y
+    return out
+
+
 class HMatrix:
     """The collocation matrix of a panel set, or the (M, N) matrix of the potential (or of
     its derivative along ``directions`` (M, 3)) at arbitrary ``targets`` (M, 3); entries are
@@ -795,111 +983,20 @@ class HMatrix:
         recompress: bool = True,
     ) -> None:
         t0 = time.perf_counter()
-        corners, centroids, areas, diams = panels.kernel_arrays
-        pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
-        deriv = directions is not None
-        dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+        bl = _partition_blocks(panels, targets, directions, eta, leaf)
         self.n = panels.n
-        self.m = len(pts)
+        self.m = len(bl.targets.perm)
         self.tol = tol
-        self.targets = cluster_tree(pts, pts, pts, leaf)
-        src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
-        self.sources = src
-        tt = self.targets
-        far, near = _partition(
-            tt.lo,
-            tt.hi,
-            tt.child,
-            tt.end - tt.start,
-            src.lo,
-            src.hi,
-            src.child,
-            src.end - src.start,
-            eta,
-        )
-        # Order blocks by target cluster start so that chunks touch few rows.
-        near = near[np.lexsort((near[:, 1], tt.start[near[:, 0]]))]
-        far = far[np.lexsort((far[:, 1], tt.start[far[:, 0]]))]
-        tsz = tt.end - tt.start
-        ssz = src.end - src.start
+        self.targets = bl.targets
+        self.sources = bl.sources
+        near, far = bl.near, bl.far
+        tsz, ssz = bl.tsz, bl.ssz
         self.near_blocks = near
-        sizes = tsz[near[:, 0]] * ssz[near[:, 1]]
-        self.near_off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-        rules = pint.rules()
-        image = panels.ground_plane
-        # Panel and target data in tree order: the kernels then read memory in sequence
-        # (scattered reads cost several times the arithmetic of a far entry).
-        sp, tp = src.perm, tt.perm
-        corners = np.ascontiguousarray(corners[sp])
-        centroids = np.ascontiguousarray(centroids[sp])
-        areas = np.ascontiguousarray(areas[sp])
-        diams = np.ascontiguousarray(diams[sp])
-        gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
-        pts = np.ascontiguousarray(pts[tp])
-        if deriv:
-            dirs = np.ascontiguousarray(dirs[tp])
-        ident_t = np.arange(self.m, dtype=np.int64)
-        ident_s = np.arange(self.n, dtype=np.int64)
-        self.near_vals = _near_blocks(
-            near,
-            tt.start,
-            tt.end,
-            src.start,
-            src.end,
-            ident_t,
-            ident_s,
-            self.near_off,
-            pts,
-            dirs,
-            deriv,
-            corners,
-            centroids,
-            areas,
-            diams,
-            gp,
-            image,
-            *rules,
-        )
+        self.near_off, self.near_vals = _near_values(bl, near)
         self.time_near_s = time.perf_counter() - t0
         us, vs, ranks = [], [], []
-        for b0, b1 in _batches(far, tsz, ssz):
-            blk = far[b0:b1]
-            m = tsz[blk[:, 0]]
-            n = ssz[blk[:, 1]]
-            kmax = np.minimum(np.minimum(m, n), MAX_RANK)
-            uoff = np.concatenate([[0], np.cumsum(m * kmax)]).astype(np.int64)
-            voff = np.concatenate([[0], np.cumsum(n * kmax)]).astype(np.int64)
-            ubig = np.zeros(uoff[-1])
-            vbig = np.zeros(voff[-1])
-            rk = np.zeros(len(blk), np.int64)
-            _aca_batch(
-                blk,
-                tt.start,
-                tt.end,
-                src.start,
-                src.end,
-                ident_t,
-                ident_s,
-                pts,
-                dirs,
-                deriv,
-                corners,
-                centroids,
-                areas,
-                diams,
-                gp,
-                image,
-                *rules,
-                tol,
-                MAX_RANK,
-                recompress,
-                uoff,
-                voff,
-                ubig,
-                vbig,
-                rk,
-            )
-            for b in range(len(blk)):
+        for _, _, m, n, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, recompress):
+            for b in range(len(rk)):
                 r = int(rk[b])
                 ub = ubig[uoff[b] : uoff[b + 1]].reshape(kmax[b], m[b])[:r].T
                 vb = vbig[voff[b] : voff[b + 1]].reshape(kmax[b], n[b])[:r]
@@ -918,7 +1015,7 @@ class HMatrix:
         ].astype(np.int64)
         threads = numba.get_num_threads()
         n_chunks = max(1, threads)
-        self.near_chunks = _chunks(sizes, n_chunks)
+        self.near_chunks = _chunks(np.diff(self.near_off), n_chunks)
         self.far_chunks = _chunks(self.far_rank * (tsz[far[:, 0]] + ssz[far[:, 1]]), n_chunks)
         self.setup_s = time.perf_counter() - t0
 
