@@ -130,38 +130,54 @@ def accurate_pairs(
 
 
 def near_matrix(
-    panels: PanelSet, near_factor: float, diagonal: np.ndarray | None = None
+    panels: PanelSet,
+    near_factor: float,
+    diagonal: np.ndarray | None = None,
+    *,
+    rows: np.ndarray | None = None,
+    column_of: np.ndarray | None = None,
 ) -> sp.csr_matrix:
-    """Sparse (N, N) of the accurate system entries for pairs within ``near_factor``
+    """Sparse matrix of the accurate system entries for pairs within ``near_factor``
     diameters (both kinds of rows; on second-kind rows the identity and ``diagonal``
-    (N_i,), Gauss's share of K_jj, included)."""
+    (N_i,), Gauss's share of K_jj, included).
+
+    Rows: the panels ``rows`` (R,) (default all, N); columns: panel j adds to column
+    ``column_of[j]`` (N,) (default j; a symmetry's orbit index sums each orbit's columns).
+    """
     _, centroids, _, diams = panels.kernel_arrays
     normals = panels.mesh.normals
     iface = panels.interface
     scale = -2.0 * panels.contrast
-    rows, cols, vals = [], [], []
+    rows = np.arange(panels.n) if rows is None else np.asarray(rows, dtype=np.int64)
+    column_of = np.arange(panels.n) if column_of is None else np.asarray(column_of)
+    targets = np.ascontiguousarray(centroids[rows])
+    rr, cc, vals = [], [], []
     for image in (False, True) if panels.ground_plane else (False,):
         src = centroids.copy()
         if image:
             src[:, 2] = -src[:, 2]
-        ti, tj = near_pairs(centroids, src, near_factor * diams)
-        pair = accurate_pairs(panels, centroids, ti, tj, image)
+        ti, tj = near_pairs(targets, src, near_factor * diams)
+        pair = accurate_pairs(panels, targets, ti, tj, image)
+        row = rows[ti]
         v = np.where(
-            iface[ti],
-            scale[ti] * np.einsum("pc,pc->p", pair[:, 1:], normals[ti]),
+            iface[row],
+            scale[row] * np.einsum("pc,pc->p", pair[:, 1:], normals[row]),
             pair[:, 0],
         )
-        rows.append(ti)
-        cols.append(tj)
+        del pair
+        rr.append(ti)
+        cc.append(column_of[tj])
         vals.append(-v if image else v)
-    ii = np.nonzero(iface)[0]
-    rows.append(ii)
-    cols.append(ii)
-    extra = np.zeros(len(ii)) if diagonal is None else diagonal
-    vals.append(1.0 + scale[ii] * extra)
+    ii = np.nonzero(iface[rows])[0]
+    rr.append(ii)
+    cc.append(column_of[rows[ii]])
+    extra = (
+        np.zeros(len(ii)) if diagonal is None else diagonal[rows[ii] - panels.n_conductor_panels]
+    )
+    vals.append(1.0 + scale[rows[ii]] * extra)
     return sp.csr_matrix(
-        (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-        shape=(panels.n, panels.n),
+        (np.concatenate(vals), (np.concatenate(rr), np.concatenate(cc))),
+        shape=(len(rows), int(column_of.max()) + 1),
     )
 
 
