@@ -17,8 +17,10 @@ less than 1e-7 against float64 near blocks).
 product or two at targets that will not be reused: nothing is stored, and the low-rank factors
 are not recompressed (storage is all recompression buys).
 
-The product runs on every core with a fixed split of the work, so repeated products are
-bit-identical.
+The product runs on one core, in a fixed order of the work, so repeated products are
+bit-identical: it reads each stored entry once, and waiting for a second thread cost more
+than it saved (measured: 6 ms of CPU on one thread, 39 ms on two, for the 3,224 orbits of the
+guarded-pad demo's middle level on a loaded 2-core machine).
 """
 
 from __future__ import annotations
@@ -27,7 +29,6 @@ import math
 import time
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 from numba import njit, prange
 
@@ -35,8 +36,8 @@ from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.panels import PanelSet
 
 FOUR_PI = 4.0 * math.pi
-LEAF = 32
-ETA = 3.0
+LEAF = 16
+ETA = 4.0
 MAX_RANK = 48
 #: Entries with the target farther than this many panel sizes use the 3-point rule inline
 #: (its error there is below 1e-4 of the entry; measured effect on C below 1e-6).
@@ -44,7 +45,7 @@ FAR_RULE_FACTOR = 4.0
 _BATCH = 2048
 #: Largest scratch of one batch of cross approximations (float64 entries): bounds the peak
 #: memory, which whole batches of wide blocks at full rank otherwise dominate.
-_BATCH_SCRATCH = 2_000_000
+_BATCH_SCRATCH = 500_000
 
 
 @dataclass(frozen=True)
@@ -646,7 +647,7 @@ def _aca_batch(
         )
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True)
 def _matvec(
     x,
     n_t,
@@ -663,48 +664,41 @@ def _matvec(
     far_rank,
     u,
     v,
-    near_chunks,
-    far_chunks,
 ):
-    n_chunks = near_chunks.shape[0] - 1
-    acc = np.zeros((n_chunks, n_t))
-    for c in prange(n_chunks):
-        y = acc[c]
-        for b in range(near_chunks[c], near_chunks[c + 1]):
-            t = near_blocks[b, 0]
-            s = near_blocks[b, 1]
-            k = near_off[b]
-            for i in range(t_start[t], t_end[t]):
-                a = 0.0
-                for j in range(s_start[s], s_end[s]):
-                    a += near_vals[k] * x[j]
-                    k += 1
-                y[i] += a
-        for b in range(far_chunks[c], far_chunks[c + 1]):
-            t = far_blocks[b, 0]
-            s = far_blocks[b, 1]
-            r = far_rank[b]
-            n = s_end[s] - s_start[s]
-            m = t_end[t] - t_start[t]
-            vo = far_voff[b]
-            uo = far_uoff[b]
-            z = np.zeros(r)
+    """The product A x (tree order)."""
+    y = np.zeros(n_t)
+    for b in range(near_blocks.shape[0]):
+        t = near_blocks[b, 0]
+        s = near_blocks[b, 1]
+        k = near_off[b]
+        for i in range(t_start[t], t_end[t]):
+            a = 0.0
+            for j in range(s_start[s], s_end[s]):
+                a += near_vals[k] * x[j]
+                k += 1
+            y[i] += a
+    z = np.zeros(MAX_RANK)
+    for b in range(far_blocks.shape[0]):
+        t = far_blocks[b, 0]
+        s = far_blocks[b, 1]
+        r = far_rank[b]
+        n = s_end[s] - s_start[s]
+        m = t_end[t] - t_start[t]
+        vo = far_voff[b]
+        uo = far_uoff[b]
+        for q in range(r):
+            a = 0.0
+            base = vo + q * n
+            for j in range(n):
+                a += v[base + j] * x[s_start[s] + j]
+            z[q] = a
+        for i in range(m):
+            a = 0.0
+            base = uo + i * r
             for q in range(r):
-                a = 0.0
-                base = vo + q * n
-                for j in range(n):
-                    a += v[base + j] * x[s_start[s] + j]
-                z[q] = a
-            for i in range(m):
-                a = 0.0
-                base = uo + i * r
-                for q in range(r):
-                    a += u[base + q] * z[q]
-                y[t_start[t] + i] += a
-    out = np.zeros(n_t)
-    for c in range(n_chunks):
-        out += acc[c]
-    return out
+                a += u[base + q] * z[q]
+            y[t_start[t] + i] += a
+    return y
 
 
 @njit(cache=True)
@@ -768,14 +762,6 @@ def _batches(far: np.ndarray, tsz: np.ndarray, ssz: np.ndarray) -> list[tuple[in
         out.append((b0, b1))
         b0 = b1
     return out
-
-
-def _chunks(work: np.ndarray, n_chunks: int) -> np.ndarray:
-    """Split consecutive items of ``work`` into ``n_chunks`` runs of about equal total."""
-    cum = np.concatenate([[0.0], np.cumsum(work, dtype=float)])
-    marks = np.searchsorted(cum, np.linspace(0.0, cum[-1], n_chunks + 1))
-    marks[0], marks[-1] = 0, len(work)
-    return np.maximum.accumulate(marks).astype(np.int64)
 
 
 @dataclass(frozen=True)
@@ -863,15 +849,23 @@ def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
     V, ranks), block b's U^T in ubig[uoff[b]:uoff[b + 1]] as (kmax[b], m[b]) rows, V
     likewise."""
     tsz, ssz = bl.tsz, bl.ssz
-    for b0, b1 in _batches(bl.far, tsz, ssz):
+    batches = _batches(bl.far, tsz, ssz)
+    # One scratch for every batch (rows beyond a block's rank are never read): fresh arrays
+    # per batch left the heap fragmented, 50 MB above the stored blocks on the pad demo.
+    kall = np.minimum(np.minimum(tsz[bl.far[:, 0]], ssz[bl.far[:, 1]]), MAX_RANK)
+    need_u = np.concatenate([[0], np.cumsum(tsz[bl.far[:, 0]] * kall)])
+    need_v = np.concatenate([[0], np.cumsum(ssz[bl.far[:, 1]] * kall)])
+    ubuf = np.empty(max((int(need_u[b1] - need_u[b0]) for b0, b1 in batches), default=0))
+    vbuf = np.empty(max((int(need_v[b1] - need_v[b0]) for b0, b1 in batches), default=0))
+    for b0, b1 in batches:
         blk = bl.far[b0:b1]
         m = tsz[blk[:, 0]]
         n = ssz[blk[:, 1]]
-        kmax = np.minimum(np.minimum(m, n), MAX_RANK)
-        uoff = np.concatenate([[0], np.cumsum(m * kmax)]).astype(np.int64)
-        voff = np.concatenate([[0], np.cumsum(n * kmax)]).astype(np.int64)
-        ubig = np.zeros(uoff[-1])
-        vbig = np.zeros(voff[-1])
+        kmax = kall[b0:b1]
+        uoff = (need_u[b0 : b1 + 1] - need_u[b0]).astype(np.int64)
+        voff = (need_v[b0 : b1 + 1] - need_v[b0]).astype(np.int64)
+        ubig = ubuf[: uoff[-1]]
+        vbig = vbuf[: voff[-1]]
         rk = np.zeros(len(blk), np.int64)
         _aca_batch(
             blk,
@@ -924,6 +918,24 @@ def _apply_cross(blocks, kmax, uoff, voff, ubig, vbig, ranks, t_start, t_end, s_
             for i in range(m):
                 for c in range(nk):
                     y[t_start[t] + i, c] += ubig[ub + i] * z[c]
+
+
+@njit(cache=True)
+def _compact(m, n, kmax, uoff, voff, ubig, vbig, ranks, u32, v32):
+    """One batch's factors at their ranks into u32, v32, as the product reads them: U (m, r)
+    and V (r, n) of each block in turn, row-major."""
+    pu = 0
+    pv = 0
+    for b in range(ranks.shape[0]):
+        r = ranks[b]
+        for i in range(m[b]):
+            for q in range(r):
+                u32[pu] = ubig[uoff[b] + q * m[b] + i]
+                pu += 1
+        for q in range(r):
+            for j in range(n[b]):
+                v32[pv] = vbig[voff[b] + q * n[b] + j]
+                pv += 1
 
 
 #: Dense-block entries formed per step of :func:`apply_once` (float32: 4 bytes each).
@@ -994,29 +1006,25 @@ class HMatrix:
         self.near_blocks = near
         self.near_off, self.near_vals = _near_values(bl, near)
         self.time_near_s = time.perf_counter() - t0
-        us, vs, ranks = [], [], []
+        u, v = np.empty(0, np.float32), np.empty(0, np.float32)
+        ranks = []
         for _, _, m, n, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, recompress):
-            for b in range(len(rk)):
-                r = int(rk[b])
-                ub = ubig[uoff[b] : uoff[b + 1]].reshape(kmax[b], m[b])[:r].T
-                vb = vbig[voff[b] : voff[b + 1]].reshape(kmax[b], n[b])[:r]
-                us.append(np.ascontiguousarray(ub, dtype=np.float32).ravel())
-                vs.append(np.ascontiguousarray(vb, dtype=np.float32).ravel())
-                ranks.append(r)
+            at_u, at_v = len(u), len(v)
+            # In place (realloc): a list of parts joined at the end peaked at twice the size.
+            u.resize(at_u + int(np.sum(m * rk)), refcheck=False)
+            v.resize(at_v + int(np.sum(n * rk)), refcheck=False)
+            _compact(m, n, kmax, uoff, voff, ubig, vbig, rk, u[at_u:], v[at_v:])
+            ranks.append(rk)
         self.far_blocks = far
-        self.far_rank = np.asarray(ranks, np.int64)
-        self.u = np.concatenate(us) if us else np.zeros(0, np.float32)
-        self.v = np.concatenate(vs) if vs else np.zeros(0, np.float32)
+        self.far_rank = np.concatenate(ranks) if ranks else np.zeros(0, np.int64)
+        self.u = u
+        self.v = v
         self.far_uoff = np.concatenate([[0], np.cumsum(tsz[far[:, 0]] * self.far_rank)])[
             :-1
         ].astype(np.int64)
         self.far_voff = np.concatenate([[0], np.cumsum(ssz[far[:, 1]] * self.far_rank)])[
             :-1
         ].astype(np.int64)
-        threads = numba.get_num_threads()
-        n_chunks = max(1, threads)
-        self.near_chunks = _chunks(np.diff(self.near_off), n_chunks)
-        self.far_chunks = _chunks(self.far_rank * (tsz[far[:, 0]] + ssz[far[:, 1]]), n_chunks)
         self.setup_s = time.perf_counter() - t0
 
     @property
@@ -1052,7 +1060,7 @@ class HMatrix:
 
     def matvec(self, x: np.ndarray) -> np.ndarray:
         xs = np.ascontiguousarray(np.asarray(x, dtype=float)[self.sources.perm])
-        yp = _matvec(xs, self.m, *self._blocks, self.near_chunks, self.far_chunks)
+        yp = _matvec(xs, self.m, *self._blocks)
         y = np.empty(self.m)
         y[self.targets.perm] = yp
         return y

@@ -45,6 +45,7 @@ strictly inside one slab), and a conductor's free charge is (eps_f / eps_slab) s
 
 from __future__ import annotations
 
+import ctypes
 import math
 import time
 from typing import Any, Literal
@@ -132,6 +133,31 @@ def _rhs(layout: Layout, panels: PanelSet) -> np.ndarray:
     rhs[:nc, n] = e0 * panels.mesh.centroids_m[:nc, 2]
     rhs[nc:, n] = -2.0 * panels.contrast[nc:] * e0 * panels.mesh.normals[nc:, 2]
     return rhs
+
+
+#: glibc's mallopt parameter for the size from which allocations get their own mapping.
+_M_MMAP_THRESHOLD = -3
+
+
+def _map_large_arrays() -> None:
+    """Have the C library (glibc) serve allocations of 1 MB and more from mappings of their
+    own, given back to the OS when freed. By default it raises that threshold to the largest
+    block freed so far (up to 32 MB); arrays below it then come from the heap, which keeps
+    what is freed, so each level's peak stood on the previous one's scratch (measured on the
+    guarded-pad demo: 338 MB peak with the default, 327 MB with this)."""
+    try:
+        ctypes.CDLL(None).mallopt(_M_MMAP_THRESHOLD, 1 << 20)
+    except (OSError, AttributeError):
+        pass
+
+
+def _return_freed_memory() -> None:
+    """Hand freed heap (a finished level's, the meshing's) back to the OS where the C library
+    allows it (glibc keeps it for reuse otherwise)."""
+    try:
+        ctypes.CDLL(None).malloc_trim(0)
+    except (OSError, AttributeError):
+        pass
 
 
 def _prolongation(coarse: PanelSet, fine: PanelSet) -> np.ndarray:
@@ -261,6 +287,7 @@ def solve_3d(
     :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
     """
     opts = make_options(options, overrides)
+    _map_large_arrays()
     if method not in ("auto", "dense", "fast"):
         raise SolverError(f"method must be one of auto, dense, fast; got {method!r}")
     conductor_surfaces(layout)
@@ -287,7 +314,8 @@ def solve_3d(
             chosen = layered_method(method)
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
-            return solve_level(
+            _return_freed_memory()
+            result = solve_level(
                 layout,
                 panels,
                 method=chosen,
@@ -296,6 +324,8 @@ def solve_3d(
                 previous=previous,
                 symmetry=sym,
             )
+            _return_freed_memory()
+            return result
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
         if panels.background is not None:

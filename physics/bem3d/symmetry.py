@@ -173,7 +173,7 @@ class ReducedFastOperator(FastOperator):
         self.hmatrix = HMatrix(panels, tol=tol, targets=centroids[symmetry.reps])
         near = near_matrix(
             panels, PRECONDITIONER_FACTOR, rows=symmetry.reps, column_of=symmetry.orbit
-        ).tocsc()
+        )
         self.ilu = incomplete_lu(near)
         self.setup_s = time.perf_counter() - t0
         self.stored_bytes = self.hmatrix.nbytes + int(near.nnz * 12)
