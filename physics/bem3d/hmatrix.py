@@ -29,6 +29,7 @@ import math
 import time
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 from numba import njit, prange
 
@@ -841,7 +842,8 @@ def _near_values(bl: _Blocks, near: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     """Offsets (B + 1,) and float32 entries of the dense blocks ``near`` (B, 2), row-major."""
     sizes = bl.tsz[near[:, 0]] * bl.ssz[near[:, 1]]
     off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-    return off, _near_blocks(near, *bl.tree_args, off, *bl.kernel_args)
+    with numba.parallel_chunksize(1):
+        return off, _near_blocks(near, *bl.tree_args, off, *bl.kernel_args)
 
 
 def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
@@ -867,19 +869,20 @@ def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
         ubig = ubuf[: uoff[-1]]
         vbig = vbuf[: voff[-1]]
         rk = np.zeros(len(blk), np.int64)
-        _aca_batch(
-            blk,
-            *bl.tree_args,
-            *bl.kernel_args,
-            tol,
-            MAX_RANK,
-            recompress,
-            uoff,
-            voff,
-            ubig,
-            vbig,
-            rk,
-        )
+        with numba.parallel_chunksize(1):
+            _aca_batch(
+                blk,
+                *bl.tree_args,
+                *bl.kernel_args,
+                tol,
+                MAX_RANK,
+                recompress,
+                uoff,
+                voff,
+                ubig,
+                vbig,
+                rk,
+            )
         yield b0, b1, m, n, kmax, uoff, voff, ubig, vbig, rk
 
 
