@@ -10,8 +10,8 @@ to the relative tolerance ``tol`` of the block. Inadmissible leaf blocks are sto
 with every entry from the accurate panel integrals. Entries of admissible blocks use the
 same distance-chosen rule (:mod:`.panel_integrals`), so the compressed matrix approximates
 exactly the dense one. Dense blocks and low-rank factors are stored in float32 (their
-relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo C moved by
-less than 1e-7 against float64 near blocks).
+relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo's 6,448
+panels the scaled C moved by 4e-10 against float64 dense blocks).
 
 :func:`apply_once` forms the same blocks batch by batch and applies each as it is made, for a
 product or two at targets that will not be reused: nothing is stored, and the low-rank factors
