@@ -887,43 +887,6 @@ def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
 
 
 @njit(cache=True)
-def _apply_near(blocks, off, t_start, t_end, s_start, s_end, vals, x, y):
-    """y (M, K) += the dense blocks times x (N, K), tree order."""
-    nk = x.shape[1]
-    for b in range(blocks.shape[0]):
-        t = blocks[b, 0]
-        s = blocks[b, 1]
-        k = off[b]
-        for i in range(t_start[t], t_end[t]):
-            for j in range(s_start[s], s_end[s]):
-                a = vals[k]
-                for c in range(nk):
-                    y[i, c] += a * x[j, c]
-                k += 1
-
-
-@njit(cache=True)
-def _apply_cross(blocks, kmax, uoff, voff, ubig, vbig, ranks, t_start, t_end, s_start, s_end, x, y):
-    """y (M, K) += U V x (N, K) for each block of one batch of cross approximations."""
-    nk = x.shape[1]
-    for b in range(blocks.shape[0]):
-        t = blocks[b, 0]
-        s = blocks[b, 1]
-        m = t_end[t] - t_start[t]
-        n = s_end[s] - s_start[s]
-        for q in range(ranks[b]):
-            z = np.zeros(nk)
-            vb = voff[b] + q * n
-            for j in range(n):
-                for c in range(nk):
-                    z[c] += vbig[vb + j] * x[s_start[s] + j, c]
-            ub = uoff[b] + q * m
-            for i in range(m):
-                for c in range(nk):
-                    y[t_start[t] + i, c] += ubig[ub + i] * z[c]
-
-
-@njit(cache=True)
 def _compact(m, n, kmax, uoff, voff, ubig, vbig, ranks, u32, v32):
     """One batch's factors at their ranks into u32, v32, as the product reads them: U (m, r)
     and V (r, n) of each block in turn, row-major."""
@@ -963,14 +926,25 @@ def apply_once(
     x = np.ascontiguousarray(dens.reshape(len(dens), -1)[bl.sources.perm])
     y = np.zeros((len(bl.targets.perm), x.shape[1]))
     ends = bl.tree_args[:4]
+    no_blocks, no_off = np.zeros((0, 2), np.int64), np.zeros(1, np.int64)
+    no_vals = np.zeros(0, np.float32)
     sizes = bl.tsz[bl.near[:, 0]] * bl.ssz[bl.near[:, 1]]
     cut = np.searchsorted(np.cumsum(sizes), np.arange(_NEAR_STEP, sizes.sum(), _NEAR_STEP))
     for part in np.split(bl.near, np.unique(cut + 1)):
         if len(part):
             off, vals = _near_values(bl, part)
-            _apply_near(part, off, *ends, vals, x, y)
-    for b0, b1, _, _, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, False):
-        _apply_cross(bl.far[b0:b1], kmax, uoff, voff, ubig, vbig, rk, *ends, x, y)
+            far = (no_blocks, no_off[:0], no_off[:0], no_off[:0], no_vals, no_vals)
+            for c in range(x.shape[1]):
+                y[:, c] += _matvec(x[:, c].copy(), len(y), part, off, *ends, vals, *far)
+    for b0, b1, m, n, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, False):
+        u32 = np.empty(int(np.sum(m * rk)), np.float32)
+        v32 = np.empty(int(np.sum(n * rk)), np.float32)
+        _compact(m, n, kmax, uoff, voff, ubig, vbig, rk, u32, v32)
+        uo = np.concatenate([[0], np.cumsum(m * rk)[:-1]]).astype(np.int64)
+        vo = np.concatenate([[0], np.cumsum(n * rk)[:-1]]).astype(np.int64)
+        far = (bl.far[b0:b1], uo, vo, rk, u32, v32)
+        for c in range(x.shape[1]):
+            y[:, c] += _matvec(x[:, c].copy(), len(y), no_blocks, no_off, *ends, no_vals, *far)
     out = np.empty_like(y)
     out[bl.targets.perm] = y
     return out
