@@ -4,9 +4,9 @@ sum_j density_j * (1/4 pi) integral_j dA'/|x - x'| (minus the image panels' shar
 ground plane is present) and its gradient, for K densities at once. Small problems are summed
 directly, every pair with the distance-chosen rule of :mod:`.panel_integrals`; large ones
 through hierarchical matrices of the same entries (:func:`.hmatrix.apply_once`: made and
-applied block by block, never stored), compressed to ``tol`` (relative, per block). Points closer to a panel
-than a few panel sizes always get the closed form, so points just off a surface (one-sided
-limits) are exact for the discrete density.
+applied block by block, never stored), compressed to ``tol`` (relative, per block). Points
+closer to a panel than a few panel sizes always get the closed form, so points just off a
+surface (one-sided limits) are exact for the discrete density.
 """
 
 from __future__ import annotations

@@ -144,7 +144,7 @@ def _map_large_arrays() -> None:
     own, given back to the OS when freed. By default it raises that threshold to the largest
     block freed so far (up to 32 MB); arrays below it then come from the heap, which keeps
     what is freed, so each level's peak stood on the previous one's scratch (measured on the
-    guarded-pad demo: 338 MB peak with the default, 327 MB with this)."""
+    guarded-pad demo: 338 MiB peak with the default, 327 MiB with this)."""
     try:
         ctypes.CDLL(None).mallopt(_M_MMAP_THRESHOLD, 1 << 20)
     except (OSError, AttributeError):
