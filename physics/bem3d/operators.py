@@ -50,7 +50,8 @@ FOUR_PI = 4.0 * math.pi
 #: Pairs closer than this many diameters enter the preconditioner's near-field matrix.
 #: Measured on the guarded-pad demo's finest level (12,896 orbits, no starting guess): 1.2
 #: with fill factor 2 took 25 / 24 GMRES iterations with 650k near entries and 1.24M in the
-#: incomplete LU, 1.0 with fill factor 1 took 26 / 24 with 418k and 409k (11 MB less).
+#: incomplete LU, 1.0 with fill factor 1 took 26 / 24 with 418k and 409k (the demo's peak
+#: fell from 317 to 306 MB).
 PRECONDITIONER_FACTOR = 1.0
 #: Krylov vectors kept before GMRES restarts (its basis is allocated in full up front; the
 #: levels measured so far converge in under 40 iterations).
@@ -146,9 +147,9 @@ def near_matrix(
     rows: np.ndarray | None = None,
     column_of: np.ndarray | None = None,
 ) -> sp.csc_matrix:
-    """Sparse matrix (CSC, as the incomplete LU takes it) of the accurate system entries for pairs within ``near_factor``
-    diameters (both kinds of rows; on second-kind rows the identity and ``diagonal``
-    (N_i,), Gauss's share of K_jj, included).
+    """Sparse matrix (CSC, as the incomplete LU takes it) of the accurate system entries for
+    pairs within ``near_factor`` diameters (both kinds of rows; on second-kind rows the
+    identity and ``diagonal`` (N_i,), Gauss's share of K_jj, included).
 
     Rows: the panels ``rows`` (R,) (default all, N); columns: panel j adds to column
     ``column_of[j]`` (N,) (default j; a symmetry's orbit index sums each orbit's columns).
