@@ -37,6 +37,8 @@ from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.panels import PanelSet
 
 FOUR_PI = 4.0 * math.pi
+#: Leaf size and admissibility: on the guarded-pad demo's finest level (12,896 orbits) 16 / 4
+#: built in 3.4 s of CPU with 14 MB of dense blocks, 32 / 3 in 3.3 s with 35 MB (float32).
 LEAF = 16
 ETA = 4.0
 MAX_RANK = 48
