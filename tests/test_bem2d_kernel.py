@@ -91,6 +91,33 @@ def test_periodic_kernel_matches_series():
     assert ours == pytest.approx(ref, rel=1e-12)
 
 
+@pytest.mark.parametrize("mixed", [False, True], ids=["one-height", "mixed-heights"])
+def test_periodic_remainder_matrix_matches_pairwise(mixed):
+    # The matrix path (targets at the sources' abscissae share the phase factors, a memo kept
+    # between calls, one collapsed series when every point has one height) against one call
+    # per pair, whose single-point path test_periodic_kernel_matches_series checks against the series.
+    slabs = Slabs.from_stack(STACK)
+    rng = np.random.default_rng(3)
+    xs = rng.uniform(-1.0, 1.0, 12)
+    zs = rng.uniform(1.0, 1.1, 12) if mixed else np.full(12, 1.04)
+    terms = slabs.image_terms(1, 1)
+    memo: dict = {}
+    for _ in range(2):  # the second call reads the memo
+        got = periodic_remainder(slabs, 2.0, 1, 1, xs, zs, xs, zs, terms, memo=memo)
+    ref = np.array(
+        [
+            [
+                periodic_remainder(
+                    slabs, 2.0, 1, 1, [xs[t] - xs[s]], [zs[t]], [0.0], [zs[s]], terms
+                )[0, 0]
+                for s in range(12)
+            ]
+            for t in range(12)
+        ]
+    )
+    assert np.abs(got - ref).max() < 1e-12 * np.abs(ref).max()
+
+
 def test_open_remainder_table_matches_direct_sums():
     slabs = Slabs.from_stack(STACK)
     rng = np.random.default_rng(1)

@@ -10,7 +10,7 @@ from scipy import integrate
 
 from elopt.physics.bem3d import BoxSurface, solve_3d, sphere
 from elopt.physics.bem3d import panel_integrals as pint
-from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.hmatrix import HMatrix, apply_once, dense_rows
 from elopt.physics.bem3d.operators import dense_matrix
 from elopt.physics.bem3d.panels import discretise
 from elopt.physics.layout import Layout, driven
@@ -104,3 +104,19 @@ def test_fast_and_dense_solves_agree():
         dense.capacitance_matrix_F[0, 0], rel=1e-6
     )
     assert np.allclose(fast.sigma_C_per_m2, dense.sigma_C_per_m2, rtol=1e-4)
+
+
+@pytest.mark.parametrize("derivative", [False, True])
+def test_one_shot_product_matches_the_uncompressed_rows(derivative):
+    # Points on and above the ground plane, as the plane integrals and field maps use them;
+    # the reference is every entry computed (dense_rows), the product of the same matrix.
+    surface = BoxSurface((1.0, 1.0, 1.0), 0.25, center_m=(0.0, 0.0, 0.7))
+    panels = discretise(Layout((driven("b", surface, 1.0),), ground_plane=True), 0)
+    rng = np.random.default_rng(5)
+    targets = np.column_stack([rng.uniform(-2, 2, (900, 2)), rng.uniform(0.0, 0.1, 900)])
+    targets[:300, 2] = 0.0
+    directions = rng.standard_normal((900, 3)) if derivative else None
+    density = rng.standard_normal((panels.n, 2))
+    exact = dense_rows(panels, targets, directions) @ density
+    got = apply_once(panels, density, tol=1e-6, targets=targets, directions=directions)
+    assert np.linalg.norm(got - exact) < 2e-6 * np.linalg.norm(exact)

@@ -251,7 +251,7 @@ def test_stop_by_signal_records_in_flight_and_resume_finishes(tmp_path):
 def test_live_front_and_show_while_running_and_second_writer_refused(tmp_path, capsys):
     """front/show from another process while `elopt run` writes: they work, and the run goes
     on undisturbed to its budget with every reported trial stored."""
-    total = 30
+    total = 45
     cfg = guarded_disk_study(tmp_path, trials=total)
     out = tmp_path / "live.h5"
     proc = start_elopt("run", cfg, "--out", out, "--log-every", "0", cwd=tmp_path)
@@ -261,6 +261,10 @@ def test_live_front_and_show_while_running_and_second_writer_refused(tmp_path, c
         while not out.exists() or read_study(out).n_trials < 1:
             assert proc.poll() is None, proc.stderr.read()
             time.sleep(0.05)
+        # Started at once and in the background, as soon as the run has stored a trial: the
+        # second writer's start-up (imports) must not outlast the run's budget, even when the
+        # trials are quick and the machine is busy; nor may it hold up the reads below.
+        refused = start_elopt("resume", out, cwd=tmp_path)
         while proc.poll() is None:
             assert main(["front", str(out)]) == 0
             text = capsys.readouterr().out
@@ -270,17 +274,12 @@ def test_live_front_and_show_while_running_and_second_writer_refused(tmp_path, c
             counts.append(n)
             assert main(["show", str(out), str(n - 1)]) == 0
             assert f"trial {n - 1} of study probe" in capsys.readouterr().out
-            if refused is None:
-                # Started at once and in the background: the second writer's start-up must
-                # neither outlast the run's budget nor hold up these reads.
-                refused = start_elopt("resume", out, cwd=tmp_path)
             time.sleep(0.2)  # a person re-reading, not a busy loop competing for the cores
         stdout, stderr = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
             proc.kill()
     assert proc.returncode == 0, stderr
-    assert refused is not None
     _, refused_err = refused.communicate(timeout=120)
     assert refused.returncode == 2
     assert "another elopt process is writing this study" in refused_err

@@ -66,9 +66,13 @@ def potential_matrix(
                         break
                 else:
                     merged.append((c, eff))
-            block = np.zeros((len(rows), len(cols)))
+            block = np.zeros((len(rows), len(cols))) if not merged else None
             for c, eff in merged:
-                block += c * single_layer(sub, eff, period)
+                term = c * single_layer(sub, eff, period)
+                if block is None:
+                    block = term
+                else:
+                    block += term
             if slabs.layered:
                 if period is None:
                     r = open_remainder(
@@ -88,5 +92,7 @@ def potential_matrix(
                         memo=memo,
                     )
                 block += r * sub.node_weights[None, :]
+            if len(rows) == len(x) and len(cols) == panels.n:
+                return block  # one source slab, one target slab: the block is the matrix
             a[np.ix_(rows, cols)] = block
     return a

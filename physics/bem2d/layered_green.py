@@ -43,6 +43,10 @@ from elopt.physics.media import LayerStack
 #: Relative size of the spectral tails left out (periodic sums and ray integrals).
 TAIL = 1e-13
 
+#: k M at E = 0 and E = 1 by (stack key, which): they depend on the stack only.
+_LIMITS: dict[tuple, np.ndarray] = {}
+_LIMITS_MAX = 256
+
 
 @dataclass(frozen=True)
 class Slabs:
@@ -155,16 +159,35 @@ class Slabs:
         return out
 
     @cached_property
+    def key(self) -> tuple:
+        """A hashable description (bounds, permittivities, plane)."""
+        return (
+            tuple(self.bottom_m.tolist()),
+            tuple(self.top_m.tolist()),
+            tuple(self.eps_F_per_m.tolist()),
+            self.ground_plane,
+        )
+
+    def _limit(self, which: str, e: np.ndarray) -> np.ndarray:
+        """k M at the decay factors ``e`` (1, L) for every source slab, kept in ``_LIMITS``
+        under (``key``, ``which``): every solve of one stack shares them."""
+        hit = _LIMITS.get((self.key, which))
+        if hit is None:
+            if len(_LIMITS) >= _LIMITS_MAX:
+                _LIMITS.clear()
+            hit = np.stack([self.k_times_m(e, j)[0] for j in range(self.n)])
+            _LIMITS[(self.key, which)] = hit
+        return hit
+
+    @cached_property
     def m_inf(self) -> np.ndarray:
         """(L_src, L, 2, 2): k M at E = 0 (the single-interface images)."""
-        zero = np.zeros((1, self.n))
-        return np.stack([self.k_times_m(zero, j)[0] for j in range(self.n)])
+        return self._limit("inf", np.zeros((1, self.n)))
 
     @cached_property
     def m_zero(self) -> np.ndarray:
         """(L_src, L, 2, 2): k M as k -> 0 (E = 1 for the finite slabs)."""
-        one = np.where(np.isfinite(self.thickness_m), 1.0, 0.0)[None, :]
-        return np.stack([self.k_times_m(one, j)[0] for j in range(self.n)])
+        return self._limit("zero", np.where(np.isfinite(self.thickness_m), 1.0, 0.0)[None, :])
 
     def image_terms(self, i: int, j: int) -> list[tuple[float, int, float]]:
         """Exactly extracted log terms for targets in slab i, sources in slab j.
@@ -195,14 +218,32 @@ class Slabs:
         return terms
 
     # -- k = 0 mode of the periodic kernel --------------------------------------------------
-    def inverse_eps_integral(self, z_m: np.ndarray) -> np.ndarray:
-        """Phi(z) = int_0^z dzeta / eps(zeta) (M,) in m per (F/m)."""
-        z = np.asarray(z_m, dtype=float)
+    @cached_property
+    def _phi_knots(self) -> tuple[np.ndarray, np.ndarray]:
+        """Heights (K,) and Phi there: every finite bound and 0, with one point beyond each
+        end so that linear interpolation and extrapolation reproduce Phi everywhere."""
+        b = np.concatenate([self.bottom_m, self.top_m, [0.0]])
+        b = np.unique(b[np.isfinite(b)])
+        z = np.concatenate([[b[0] - 1.0], b, [b[-1] + 1.0]])
+        return z, self._phi_direct(z)
+
+    def _phi_direct(self, z: np.ndarray) -> np.ndarray:
         lo, hi = np.minimum(z, 0.0), np.maximum(z, 0.0)
         out = np.zeros_like(z)
         for a, b, eps in zip(self.bottom_m, self.top_m, self.eps_F_per_m, strict=True):
             out += np.maximum(np.minimum(hi, b) - np.maximum(lo, a), 0.0) / eps
         return np.sign(z) * out
+
+    def inverse_eps_integral(self, z_m: np.ndarray) -> np.ndarray:
+        """Phi(z) = int_0^z dzeta / eps(zeta) (M,) in m per (F/m): piecewise linear, so
+        interpolated between its knots (extrapolated linearly beyond the outer ones)."""
+        z = np.asarray(z_m, dtype=float)
+        kz, kp = self._phi_knots
+        out = np.interp(z, kz, kp)
+        lo, hi = z < kz[0], z > kz[-1]
+        out[lo] = kp[0] + (z[lo] - kz[0]) / self.eps_F_per_m[0]
+        out[hi] = kp[-1] + (z[hi] - kz[-1]) / self.eps_F_per_m[-1]
+        return out
 
     def zero_mode(self, zt: np.ndarray, zs: np.ndarray) -> np.ndarray:
         """g_0(z, z') (T, S) of the 1-D problem -(eps g')' = delta(z - z') (neutral cells)."""

@@ -125,45 +125,47 @@ def build_panels(
         for piece in pieces:
             fr = breakpoints(piece, h_max, level)
             length = piece.length_m
-            for u0, u1 in zip(fr[:-1], fr[1:], strict=True):
-                half = 0.5 * (u1 - u0) * length
-                if piece.center is None:
-                    p0 = piece.start + (piece.end - piece.start) * u0
-                    p1 = piece.start + (piece.end - piece.start) * u1
-                    mid, d = 0.5 * (p0 + p1), (p1 - p0) / abs(p1 - p0)
-                    nodes = mid + half * x * d
-                    tangent = np.full(order, d)
-                    rows["center"].append(mid)
-                    rows["direction"].append(d)
-                    rows["is_arc"].append(False)
-                    rows["radius"].append(0.0)
-                    rows["theta_mid"].append(0.0)
-                    rows["half_angle"].append(0.0)
-                else:
-                    c = piece.center
-                    r = abs(piece.start - c)
-                    a0 = math.atan2((piece.start - c).imag, (piece.start - c).real)
-                    sw = piece.sweep
-                    th0, th1 = a0 + sw * u0, a0 + sw * u1
-                    tm, dl = 0.5 * (th0 + th1), 0.5 * (th1 - th0)
-                    nodes = c + r * np.exp(1j * (tm + dl * x))
-                    tangent = 1j * np.exp(1j * (tm + dl * x)) * np.sign(dl)
-                    rows["center"].append(c)
-                    rows["direction"].append(0.0)
-                    rows["is_arc"].append(True)
-                    rows["radius"].append(r)
-                    rows["theta_mid"].append(tm)
-                    rows["half_angle"].append(dl)
-                rows["half"].append(half)
-                rows["nodes"].append(nodes)
-                # Closed shapes run counter-clockwise: outward is the tangent turned clockwise.
-                rows["normals"].append(1j * tangent if sheet else -1j * tangent)
-                rows["weights"].append(w * half)
-                rows["conductor"].append(ci)
-                rows["sheet"].append(sheet)
-                rows["arc_start"].append(arc0 + u0 * length)
+            u0, u1 = fr[:-1], fr[1:]
+            half = 0.5 * (u1 - u0) * length
+            k = len(half)
+            if piece.center is None:
+                p0 = piece.start + (piece.end - piece.start) * u0
+                p1 = piece.start + (piece.end - piece.start) * u1
+                mid, d = 0.5 * (p0 + p1), (p1 - p0) / np.abs(p1 - p0)
+                nodes = mid[:, None] + half[:, None] * x[None, :] * d[:, None]
+                tangent = np.broadcast_to(d[:, None], nodes.shape)
+                rows["center"].append(mid)
+                rows["direction"].append(d)
+                rows["is_arc"].append(np.zeros(k, dtype=bool))
+                rows["radius"].append(np.zeros(k))
+                rows["theta_mid"].append(np.zeros(k))
+                rows["half_angle"].append(np.zeros(k))
+            else:
+                c = piece.center
+                r = abs(piece.start - c)
+                a0 = math.atan2((piece.start - c).imag, (piece.start - c).real)
+                sw = piece.sweep
+                th0, th1 = a0 + sw * u0, a0 + sw * u1
+                tm, dl = 0.5 * (th0 + th1), 0.5 * (th1 - th0)
+                turn = np.exp(1j * (tm[:, None] + dl[:, None] * x[None, :]))
+                nodes = c + r * turn
+                tangent = 1j * turn * np.sign(dl)[:, None]
+                rows["center"].append(np.full(k, c, dtype=complex))
+                rows["direction"].append(np.zeros(k, dtype=complex))
+                rows["is_arc"].append(np.ones(k, dtype=bool))
+                rows["radius"].append(np.full(k, r))
+                rows["theta_mid"].append(tm)
+                rows["half_angle"].append(dl)
+            rows["half"].append(half)
+            rows["nodes"].append(nodes)
+            # Closed shapes run counter-clockwise: outward is the tangent turned clockwise.
+            rows["normals"].append(1j * tangent if sheet else -1j * tangent)
+            rows["weights"].append(w[None, :] * half[:, None])
+            rows["conductor"].append(np.full(k, ci))
+            rows["sheet"].append(np.full(k, sheet))
+            rows["arc_start"].append(arc0 + u0 * length)
             arc0 += length
-    arr = {k: np.asarray(v) for k, v in rows.items()}
+    arr = {k: np.concatenate(v) for k, v in rows.items()}
     return Panels(order=order, level=level, **arr)
 
 

@@ -15,12 +15,15 @@ panels), images (X reflected) and evaluation off the surface. In periodic mode t
 
 from __future__ import annotations
 
+import cmath
+import math
 from functools import lru_cache
 
+import numba
 import numpy as np
 
 from elopt.physics.bem2d.mesh import Panels
-from elopt.physics.bem2d.periodic import periodic_log_matrix, periodic_log_smooth, wrap
+from elopt.physics.bem2d.periodic import periodic_log_matrix, smooth_value, wrap
 from elopt.physics.quadrature import gauss_legendre
 
 #: Targets closer than this many half-lengths to a panel's centre get the exact split.
@@ -35,22 +38,48 @@ def _lagrange_from_monomials(order: int) -> np.ndarray:
     return np.linalg.inv(np.vander(x, order, increasing=True))
 
 
-def log_moments(z: np.ndarray, order: int) -> np.ndarray:
-    """I[q, n] = int_{-1}^{1} t^n ln|t - z_q| dt (Q, order) for complex z (exact recurrence)."""
-    z = np.asarray(z, dtype=complex)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        lp = np.log(np.abs(1.0 - z))
-        lm = np.log(np.abs(1.0 + z))
-        j = np.log(1.0 - z) - np.log(-1.0 - z)  # int dt / (t - z); real part exact on [-1, 1]
-    lp = np.where(np.isfinite(lp), lp, 0.0)
-    lm = np.where(np.isfinite(lm), lm, 0.0)
-    j = np.where(np.isfinite(j), j, 0.0)
-    out = np.empty((len(z), order))
-    for n in range(order):
+@numba.njit(cache=True)
+def _log_moments(z, out):  # pragma: no cover - compiled
+    """out[n] = int_{-1}^{1} t^n ln|t - z| dt (n < len(out)) for complex z (exact recurrence
+    on J_m = int t^(m-1) dt / (t - z), whose real part is exact on [-1, 1])."""
+    lp = math.log(abs(1.0 - z)) if z != 1.0 else 0.0
+    lm = math.log(abs(1.0 + z)) if z != -1.0 else 0.0
+    j = cmath.log(complex(1.0, 0.0) - z) - cmath.log(complex(-1.0, 0.0) - z)
+    if not (math.isfinite(j.real) and math.isfinite(j.imag)):
+        j = 0j
+    sign = 1.0
+    for n in range(out.shape[0]):
         m = n + 1
-        j = z * j + (1.0 - (-1.0) ** m) / m  # J_m from J_{m-1}
-        out[:, n] = (lp - (-1.0) ** m * lm - j.real) / m
-    return out
+        sign = -sign  # (-1)^m
+        j = z * j + (1.0 - sign) / m  # J_m from J_{m-1}
+        out[n] = (lp - sign * lm - j.real) / m
+
+
+@numba.njit(cache=True)
+def _near_block(xq, ts, nodes, half, gx, gw, lag, period, out):  # pragma: no cover
+    """out[q, k]: the exact split of ``single_layer`` for target xq[q] (preimage ts[q]) and
+    node k of its panel (nodes (Q, p), half (Q,)), with the periodic smooth part when
+    period > 0."""
+    p = gx.shape[0]
+    mom = np.empty(p)
+    for q in range(xq.shape[0]):
+        z = ts[q]
+        _log_moments(z, mom)
+        h = half[q]
+        for k in range(p):
+            lw = 0.0
+            for n in range(p):
+                lw += mom[n] * lag[n, k]
+            dn = xq[q] - nodes[q, k]
+            gap = abs(gx[k] - z)
+            if gap < 1e-12 or dn == 0.0:
+                sm = math.log(h)
+            else:
+                sm = math.log(abs(dn)) - math.log(gap)
+            v = -_INV_2PI * h * (lw + gw[k] * sm)
+            if period > 0.0:
+                v += smooth_value(dn.real, dn.imag, period) * (h * gw[k])
+            out[q, k] = v
 
 
 def preimage(panels: Panels, idx: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -72,19 +101,21 @@ def single_layer(panels: Panels, targets: np.ndarray, period: float | None = Non
     y = panels.points
     w = panels.node_weights
     p = panels.order
-    d = x[:, None] - y[None, :]
     if period is None:
         with np.errstate(divide="ignore"):
-            a = -_INV_2PI * np.log(np.abs(d)) * w[None, :]
+            a = -_INV_2PI * np.log(np.abs(x[:, None] - y[None, :])) * w[None, :]
     else:
         a = periodic_log_matrix(x, y, w, period)
     # Near pairs: exact split of the logarithm.
     c = panels.center.copy()
-    c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
-    dc = x[:, None] - c[None, :]
+    if panels.is_arc.any():
+        c[panels.is_arc] = panels.nodes[panels.is_arc].mean(axis=1)  # an arc's middle, roughly
+    dx = x.real[:, None] - c.real[None, :]
     if period is not None:
-        dc = wrap(dc.real, period) + 1j * dc.imag
-    tq, pq = np.nonzero(np.abs(dc) < NEAR * panels.half[None, :])
+        dx = wrap(dx, period)
+    dz = x.imag[:, None] - c.imag[None, :]
+    reach = NEAR * panels.half
+    tq, pq = np.nonzero(dx * dx + dz * dz < (reach * reach)[None, :])
     if tq.size == 0:
         return a
     xq = x[tq]
@@ -92,17 +123,18 @@ def single_layer(panels: Panels, targets: np.ndarray, period: float | None = Non
         xq = xq - period * np.round((xq - c[pq]).real / period)
     ts = preimage(panels, pq, xq)
     gx, gw = gauss_legendre(p)
-    nodes = panels.nodes[pq]  # (Q, p)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        smooth = np.log(np.abs(xq[:, None] - nodes)) - np.log(np.abs(gx[None, :] - ts[:, None]))
-    hit = (np.abs(gx[None, :] - ts[:, None]) < 1e-12) | (xq[:, None] == nodes)
-    half = panels.half[pq]
-    smooth = np.where(hit, np.log(half)[:, None], smooth)
-    lw = log_moments(ts, p) @ _lagrange_from_monomials(p)
-    block = -_INV_2PI * half[:, None] * (lw + gw[None, :] * smooth)
-    if period is not None:
-        dn = xq[:, None] - nodes
-        block += periodic_log_smooth(dn.real, dn.imag, period) * (half[:, None] * gw[None, :])
+    block = np.empty((len(pq), p))
+    _near_block(
+        xq,
+        ts,
+        np.ascontiguousarray(panels.nodes[pq]),
+        panels.half[pq],
+        gx,
+        gw,
+        _lagrange_from_monomials(p),
+        0.0 if period is None else float(period),
+        block,
+    )
     cols = pq[:, None] * p + np.arange(p)[None, :]
     a[tq[:, None], cols] = block
     return a

@@ -36,43 +36,79 @@ def periodic_log(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
     return -_INV_4PI * np.where(a > 0.5, big, small)
 
 
-def periodic_log_smooth(dx: np.ndarray, dz: np.ndarray, period: float) -> np.ndarray:
-    """S = P + ln(r)/(2 pi) with dx wrapped; the limit at r = 0."""
-    dxw = wrap(dx, period)
-    r2 = dxw * dxw + dz * dz
-    zero = r2 == 0.0
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s = periodic_log(dxw, dz, period) + _INV_4PI * np.log(np.where(zero, 1.0, r2))
-    return np.where(zero, -2.0 * _INV_4PI * np.log(2.0 * np.pi / period), s)
+@numba.njit(cache=True)
+def _height_factor(a):  # pragma: no cover - compiled
+    """exp(-a) for a > 0.5, else sinh(a / 2): the factor of ``_log_sum`` that needs a only."""
+    return math.exp(-a) if a > 0.5 else math.sinh(0.5 * a)
 
 
 @numba.njit(cache=True)
-def _periodic_log_matrix(x, y, w, period, out):  # pragma: no cover - compiled
+def _log_sum(a, h, sb):  # pragma: no cover - compiled
+    """ln[2 (cosh a - cos b)] for a >= 0 from h = ``_height_factor(a)`` and sin(b/2);
+    -inf at a = b = 0."""
+    if a > 0.5:
+        # = a + ln((1 - e^-a)^2 + 4 e^-a sin^2(b/2)): no cancellation for any b.
+        return a + math.log((1.0 - h) ** 2 + 4.0 * h * sb * sb)
+    # = ln(4 (sinh^2(a/2) + sin^2(b/2))): precise as (a, b) -> 0.
+    q = 4.0 * (h * h + sb * sb)
+    return math.log(q) if q > 0.0 else -math.inf
+
+
+@numba.njit(cache=True)
+def smooth_value(dx, dz, period):  # pragma: no cover - compiled
+    """S = P + ln(r)/(2 pi) of one pair (dx wrapped into the period), smooth near r = 0;
+    its limit -(1/2 pi) ln(2 pi / lam) at r = 0."""
     c = 2.0 * math.pi / period
+    d = dx - period * math.floor(dx / period + 0.5)
+    r2 = d * d + dz * dz
+    if r2 == 0.0:
+        return -2.0 * _INV_4PI * math.log(c)
+    a = c * abs(dz)
+    return _INV_4PI * (math.log(r2) - _log_sum(a, _height_factor(a), math.sin(0.5 * c * d)))
+
+
+@numba.njit(cache=True)
+def _periodic_log_matrix(x, y, w, period, symmetric, out):  # pragma: no cover - compiled
+    c = 2.0 * math.pi / period
+    # sin(b/2) of b = c (x_t - y_k) from half-angle factors of each point: one product
+    # instead of a sine per pair (the sine itself where it is small, |sin(b/2)| < 1e-2, so
+    # that its relative error stays below 1e-14); no wrapping needed for the product (P is
+    # periodic in b through sin^2(b/2)).
+    ct, st = np.cos(0.5 * c * x.real), np.sin(0.5 * c * x.real)
+    cs, ss = np.cos(0.5 * c * y.real), np.sin(0.5 * c * y.real)
+    a_last, h = -1.0, 0.0
     for t in range(x.shape[0]):
-        for k in range(y.shape[0]):
-            dx = x[t].real - y[k].real
-            dx -= period * math.floor(dx / period + 0.5)
+        for k in range(t if symmetric else 0, y.shape[0]):
+            sb = st[t] * cs[k] - ct[t] * ss[k]
+            if abs(sb) < 1e-2:  # close in x (mod period): the difference loses digits
+                d = x[t].real - y[k].real
+                sb = math.sin(0.5 * c * (d - period * math.floor(d / period + 0.5)))
             a = c * abs(x[t].imag - y[k].imag)
-            b = c * dx
-            if a > 0.5:
-                ea = math.exp(-a)
-                v = a + math.log1p(-2.0 * ea * math.cos(b) + ea * ea)
-            else:
-                sa, sb = math.sinh(0.5 * a), math.sin(0.5 * b)
-                q = 4.0 * (sa * sa + sb * sb)
-                v = math.log(q) if q > 0.0 else -math.inf
+            if a != a_last:  # points on one horizontal line share the height factor
+                a_last, h = a, _height_factor(a)
+            v = _log_sum(a, h, sb)
             out[t, k] = -v * w[k] / (4.0 * math.pi)
+            if symmetric:
+                out[k, t] = -v * w[t] / (4.0 * math.pi)
+
+
+def _mirror_pairs(x: np.ndarray, y: np.ndarray) -> bool:
+    """True when P(x_t - y_k) is symmetric in (t, k): the same abscissae, and the same heights
+    or heights whose sum is one constant (the points themselves or a copy reflected in a
+    horizontal line)."""
+    if x.size == 0 or x.shape != y.shape or not np.array_equal(x.real, y.real):
+        return False
+    tol = 1e-15 * max(float(np.abs(x.imag).max()), float(np.abs(y.imag).max()))
+    return bool(np.abs(x.imag - y.imag).max() <= tol or np.ptp(x.imag + y.imag) <= tol)
 
 
 def periodic_log_matrix(x: np.ndarray, y: np.ndarray, w: np.ndarray, period: float) -> np.ndarray:
-    """P(x_t - y_k) w_k (T, K) for complex targets x and sources y (compiled loop)."""
+    """P(x_t - y_k) w_k (T, K) for complex targets x and sources y (compiled loop; only one
+    triangle is evaluated when the pairs mirror, see ``_mirror_pairs``)."""
+    x = np.ascontiguousarray(x, dtype=complex)
+    y = np.ascontiguousarray(y, dtype=complex)
     out = np.empty((len(x), len(y)))
     _periodic_log_matrix(
-        np.ascontiguousarray(x, dtype=complex),
-        np.ascontiguousarray(y, dtype=complex),
-        np.ascontiguousarray(w, dtype=float),
-        float(period),
-        out,
+        x, y, np.ascontiguousarray(w, dtype=float), float(period), _mirror_pairs(x, y), out
     )
     return out

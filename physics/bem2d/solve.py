@@ -247,8 +247,11 @@ def solve_level(
         raise SolverError("2-D collocation matrix has non-finite entries; check the geometry")
     if not problem.grounded:
         # v_inf enters the conductors' rows only; the whole cross-section is neutral.
-        col = -cond.astype(float)[:, None]
-        a = np.block([[a, col], [w[None, :], np.zeros((1, 1))]])
+        bordered = np.zeros((nn + 1, nn + 1))
+        bordered[:nn, :nn] = a
+        bordered[:nn, nn] = -cond.astype(float)
+        bordered[nn, :nn] = w
+        a = bordered
         rhs = np.vstack([rhs, np.zeros((1, n + 1))])
     lu = scipy.linalg.lu_factor(a, check_finite=False)
     sol = scipy.linalg.lu_solve(lu, rhs, check_finite=False)

@@ -3,9 +3,10 @@
 sum_j density_j * (1/4 pi) integral_j dA'/|x - x'| (minus the image panels' share when a
 ground plane is present) and its gradient, for K densities at once. Small problems are summed
 directly, every pair with the distance-chosen rule of :mod:`.panel_integrals`; large ones
-through hierarchical matrices of the same entries (:mod:`.hmatrix`). Points closer to a panel
-than a few panel sizes always get the closed form, so points just off a surface (one-sided
-limits) are exact for the discrete density.
+through hierarchical matrices of the same entries (:func:`.hmatrix.apply_once`: made and
+applied block by block, never stored), compressed to ``tol`` (relative, per block). Points
+closer to a panel than a few panel sizes always get the closed form, so points just off a
+surface (one-sided limits) are exact for the discrete density.
 """
 
 from __future__ import annotations
@@ -13,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from elopt.physics.bem3d import panel_integrals as pint
-from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.hmatrix import apply_once
 from elopt.physics.bem3d.operators import FOUR_PI
 from elopt.physics.bem3d.panels import PanelSet
 
@@ -21,12 +22,12 @@ from elopt.physics.bem3d.panels import PanelSet
 DIRECT_PAIRS = 30_000_000
 #: Targets per block of the direct path (bounds the memory of one call).
 _BLOCK = 4096
-#: Relative tolerance of the compressed blocks used for evaluation.
+#: Default relative tolerance of the compressed blocks used for evaluation.
 EVAL_TOL = 1e-6
 
 
 def potential_and_gradient(
-    panels: PanelSet, density: np.ndarray, points_m: np.ndarray
+    panels: PanelSet, density: np.ndarray, points_m: np.ndarray, tol: float = EVAL_TOL
 ) -> tuple[np.ndarray, np.ndarray]:
     """Potential integrals (M, K) and gradients (M, 3, K) of ``density`` (N, K) at points."""
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
@@ -39,15 +40,18 @@ def potential_and_gradient(
     if m * panels.n <= DIRECT_PAIRS:
         return _direct(panels, dens, pts)
     grad = np.stack(
-        [directional_derivative(panels, dens, pts, np.tile(e, (m, 1))) for e in np.eye(3)], axis=1
+        [directional_derivative(panels, dens, pts, np.tile(e, (m, 1)), tol) for e in np.eye(3)],
+        axis=1,
     )
-    h = HMatrix(panels, tol=EVAL_TOL, targets=pts)
-    pot = np.stack([h.matvec(dens[:, c]) for c in range(k)], axis=1)
-    return pot, grad
+    return apply_once(panels, dens, tol=tol, targets=pts), grad
 
 
 def directional_derivative(
-    panels: PanelSet, density: np.ndarray, points_m: np.ndarray, directions: np.ndarray
+    panels: PanelSet,
+    density: np.ndarray,
+    points_m: np.ndarray,
+    directions: np.ndarray,
+    tol: float = EVAL_TOL,
 ) -> np.ndarray:
     """d . grad of the potential integrals (M, K) at points (M, 3) along directions (M, 3)."""
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
@@ -56,8 +60,7 @@ def directional_derivative(
     if panels.background is not None or len(pts) * panels.n <= DIRECT_PAIRS:
         _, grad = _direct(panels, dens, pts)
         return np.einsum("mck,mc->mk", grad, dirs)
-    h = HMatrix(panels, tol=EVAL_TOL, targets=pts, directions=dirs)
-    return np.stack([h.matvec(dens[:, c]) for c in range(dens.shape[1])], axis=1)
+    return apply_once(panels, dens, tol=tol, targets=pts, directions=dirs)
 
 
 def _columns(density: np.ndarray) -> np.ndarray:

@@ -9,11 +9,18 @@ pivoting, Bebendorf, Numer. Math. 86, 565 (2000)) and recompressed by a truncate
 to the relative tolerance ``tol`` of the block. Inadmissible leaf blocks are stored dense,
 with every entry from the accurate panel integrals. Entries of admissible blocks use the
 same distance-chosen rule (:mod:`.panel_integrals`), so the compressed matrix approximates
-exactly the dense one. Low-rank factors are stored in float32 (their relative rounding,
-6e-8, is far below the tolerances used).
+exactly the dense one. Dense blocks and low-rank factors are stored in float32 (their
+relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo's 6,448
+panels the scaled C moved by 4e-10 against float64 dense blocks).
 
-The product runs on every core with a fixed split of the work, so repeated products are
-bit-identical.
+:func:`apply_once` forms the same blocks batch by batch and applies each as it is made, for a
+product or two at targets that will not be reused: nothing is stored, and the low-rank factors
+are not recompressed (storage is all recompression buys).
+
+The product runs on one core, in a fixed order of the work, so repeated products are
+bit-identical: it reads each stored entry once, and waiting for a second thread cost more
+than it saved (measured: 6 ms of CPU on one thread, 39 ms on two, for the 3,224 orbits of the
+guarded-pad demo's middle level on a loaded 2-core machine).
 """
 
 from __future__ import annotations
@@ -30,8 +37,10 @@ from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.panels import PanelSet
 
 FOUR_PI = 4.0 * math.pi
-LEAF = 32
-ETA = 3.0
+#: Leaf size and admissibility: on the guarded-pad demo's finest level (12,896 orbits) 16 / 4
+#: built in 3.4 s of CPU with 14 MB of dense blocks, 32 / 3 in 3.3 s with 35 MB (float32).
+LEAF = 16
+ETA = 4.0
 MAX_RANK = 48
 #: Entries with the target farther than this many panel sizes use the 3-point rule inline
 #: (its error there is below 1e-4 of the entry; measured effect on C below 1e-6).
@@ -39,7 +48,7 @@ FAR_RULE_FACTOR = 4.0
 _BATCH = 2048
 #: Largest scratch of one batch of cross approximations (float64 entries): bounds the peak
 #: memory, which whole batches of wide blocks at full rank otherwise dominate.
-_BATCH_SCRATCH = 2_000_000
+_BATCH_SCRATCH = 500_000
 
 
 @dataclass(frozen=True)
@@ -282,7 +291,7 @@ def _near_blocks(
     r7,
     w7,
 ):
-    out = np.empty(offsets[-1])
+    out = np.empty(offsets[-1], np.float32)
     for b in prange(blocks.shape[0]):
         buf = np.empty(4)
         tri = np.empty((3, 3))
@@ -641,7 +650,7 @@ def _aca_batch(
         )
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True)
 def _matvec(
     x,
     n_t,
@@ -658,48 +667,41 @@ def _matvec(
     far_rank,
     u,
     v,
-    near_chunks,
-    far_chunks,
 ):
-    n_chunks = near_chunks.shape[0] - 1
-    acc = np.zeros((n_chunks, n_t))
-    for c in prange(n_chunks):
-        y = acc[c]
-        for b in range(near_chunks[c], near_chunks[c + 1]):
-            t = near_blocks[b, 0]
-            s = near_blocks[b, 1]
-            k = near_off[b]
-            for i in range(t_start[t], t_end[t]):
-                a = 0.0
-                for j in range(s_start[s], s_end[s]):
-                    a += near_vals[k] * x[j]
-                    k += 1
-                y[i] += a
-        for b in range(far_chunks[c], far_chunks[c + 1]):
-            t = far_blocks[b, 0]
-            s = far_blocks[b, 1]
-            r = far_rank[b]
-            n = s_end[s] - s_start[s]
-            m = t_end[t] - t_start[t]
-            vo = far_voff[b]
-            uo = far_uoff[b]
-            z = np.zeros(r)
+    """The product A x (tree order)."""
+    y = np.zeros(n_t)
+    for b in range(near_blocks.shape[0]):
+        t = near_blocks[b, 0]
+        s = near_blocks[b, 1]
+        k = near_off[b]
+        for i in range(t_start[t], t_end[t]):
+            a = 0.0
+            for j in range(s_start[s], s_end[s]):
+                a += near_vals[k] * x[j]
+                k += 1
+            y[i] += a
+    z = np.zeros(MAX_RANK)
+    for b in range(far_blocks.shape[0]):
+        t = far_blocks[b, 0]
+        s = far_blocks[b, 1]
+        r = far_rank[b]
+        n = s_end[s] - s_start[s]
+        m = t_end[t] - t_start[t]
+        vo = far_voff[b]
+        uo = far_uoff[b]
+        for q in range(r):
+            a = 0.0
+            base = vo + q * n
+            for j in range(n):
+                a += v[base + j] * x[s_start[s] + j]
+            z[q] = a
+        for i in range(m):
+            a = 0.0
+            base = uo + i * r
             for q in range(r):
-                a = 0.0
-                base = vo + q * n
-                for j in range(n):
-                    a += v[base + j] * x[s_start[s] + j]
-                z[q] = a
-            for i in range(m):
-                a = 0.0
-                base = uo + i * r
-                for q in range(r):
-                    a += u[base + q] * z[q]
-                y[t_start[t] + i] += a
-    out = np.zeros(n_t)
-    for c in range(n_chunks):
-        out += acc[c]
-    return out
+                a += u[base + q] * z[q]
+            y[t_start[t] + i] += a
+    return y
 
 
 @njit(cache=True)
@@ -765,12 +767,189 @@ def _batches(far: np.ndarray, tsz: np.ndarray, ssz: np.ndarray) -> list[tuple[in
     return out
 
 
-def _chunks(work: np.ndarray, n_chunks: int) -> np.ndarray:
-    """Split consecutive items of ``work`` into ``n_chunks`` runs of about equal total."""
-    cum = np.concatenate([[0.0], np.cumsum(work, dtype=float)])
-    marks = np.searchsorted(cum, np.linspace(0.0, cum[-1], n_chunks + 1))
-    marks[0], marks[-1] = 0, len(work)
-    return np.maximum.accumulate(marks).astype(np.int64)
+@dataclass(frozen=True)
+class _Blocks:
+    """The block partition of one matrix and its data in tree order (what the kernels take)."""
+
+    targets: ClusterTree
+    sources: ClusterTree
+    near: np.ndarray
+    far: np.ndarray
+    kernel_args: tuple
+
+    @property
+    def tsz(self) -> np.ndarray:
+        return self.targets.end - self.targets.start
+
+    @property
+    def ssz(self) -> np.ndarray:
+        return self.sources.end - self.sources.start
+
+    @property
+    def tree_args(self) -> tuple:
+        t, s = self.targets, self.sources
+        ident_t = np.arange(len(t.perm), dtype=np.int64)
+        ident_s = np.arange(len(s.perm), dtype=np.int64)
+        return t.start, t.end, s.start, s.end, ident_t, ident_s
+
+
+def _partition_blocks(
+    panels: PanelSet,
+    targets: np.ndarray | None,
+    directions: np.ndarray | None,
+    eta: float,
+    leaf: int,
+) -> _Blocks:
+    corners, centroids, areas, diams = panels.kernel_arrays
+    pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
+    deriv = directions is not None
+    dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+    tt = cluster_tree(pts, pts, pts, leaf)
+    src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
+    far, near = _partition(
+        tt.lo,
+        tt.hi,
+        tt.child,
+        tt.end - tt.start,
+        src.lo,
+        src.hi,
+        src.child,
+        src.end - src.start,
+        eta,
+    )
+    # Order blocks by target cluster start so that chunks touch few rows.
+    near = near[np.lexsort((near[:, 1], tt.start[near[:, 0]]))]
+    far = far[np.lexsort((far[:, 1], tt.start[far[:, 0]]))]
+    # Panel and target data in tree order: the kernels then read memory in sequence
+    # (scattered reads cost several times the arithmetic of a far entry).
+    sp, tp = src.perm, tt.perm
+    corners = np.ascontiguousarray(corners[sp])
+    gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    kernel_args = (
+        np.ascontiguousarray(pts[tp]),
+        np.ascontiguousarray(dirs[tp]) if deriv else dirs,
+        deriv,
+        corners,
+        np.ascontiguousarray(centroids[sp]),
+        np.ascontiguousarray(areas[sp]),
+        np.ascontiguousarray(diams[sp]),
+        gp,
+        panels.ground_plane,
+        *pint.rules(),
+    )
+    return _Blocks(tt, src, near, far, kernel_args)
+
+
+def _near_values(bl: _Blocks, near: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Offsets (B + 1,) and float32 entries of the dense blocks ``near`` (B, 2), row-major."""
+    sizes = bl.tsz[near[:, 0]] * bl.ssz[near[:, 1]]
+    off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    with numba.parallel_chunksize(1):
+        return off, _near_blocks(near, *bl.tree_args, off, *bl.kernel_args)
+
+
+def _cross_batches(bl: _Blocks, tol: float, recompress: bool):
+    """Per batch of far blocks (:func:`_batches`): (first, last, m, n, kmax, uoff, voff, U^T,
+    V, ranks), block b's U^T in ubig[uoff[b]:uoff[b + 1]] as (kmax[b], m[b]) rows, V
+    likewise."""
+    tsz, ssz = bl.tsz, bl.ssz
+    batches = _batches(bl.far, tsz, ssz)
+    # One scratch for every batch (rows beyond a block's rank are never read): fresh arrays
+    # per batch left the heap fragmented, 50 MB above the stored blocks on the pad demo.
+    kall = np.minimum(np.minimum(tsz[bl.far[:, 0]], ssz[bl.far[:, 1]]), MAX_RANK)
+    need_u = np.concatenate([[0], np.cumsum(tsz[bl.far[:, 0]] * kall)])
+    need_v = np.concatenate([[0], np.cumsum(ssz[bl.far[:, 1]] * kall)])
+    ubuf = np.empty(max((int(need_u[b1] - need_u[b0]) for b0, b1 in batches), default=0))
+    vbuf = np.empty(max((int(need_v[b1] - need_v[b0]) for b0, b1 in batches), default=0))
+    for b0, b1 in batches:
+        blk = bl.far[b0:b1]
+        m = tsz[blk[:, 0]]
+        n = ssz[blk[:, 1]]
+        kmax = kall[b0:b1]
+        uoff = (need_u[b0 : b1 + 1] - need_u[b0]).astype(np.int64)
+        voff = (need_v[b0 : b1 + 1] - need_v[b0]).astype(np.int64)
+        ubig = ubuf[: uoff[-1]]
+        vbig = vbuf[: voff[-1]]
+        rk = np.zeros(len(blk), np.int64)
+        with numba.parallel_chunksize(1):
+            _aca_batch(
+                blk,
+                *bl.tree_args,
+                *bl.kernel_args,
+                tol,
+                MAX_RANK,
+                recompress,
+                uoff,
+                voff,
+                ubig,
+                vbig,
+                rk,
+            )
+        yield b0, b1, m, n, kmax, uoff, voff, ubig, vbig, rk
+
+
+@njit(cache=True)
+def _compact(m, n, kmax, uoff, voff, ubig, vbig, ranks, u32, v32):
+    """One batch's factors at their ranks into u32, v32, as the product reads them: U (m, r)
+    and V (r, n) of each block in turn, row-major."""
+    pu = 0
+    pv = 0
+    for b in range(ranks.shape[0]):
+        r = ranks[b]
+        for i in range(m[b]):
+            for q in range(r):
+                u32[pu] = ubig[uoff[b] + q * m[b] + i]
+                pu += 1
+        for q in range(r):
+            for j in range(n[b]):
+                v32[pv] = vbig[voff[b] + q * n[b] + j]
+                pv += 1
+
+
+#: Dense-block entries formed per step of :func:`apply_once` (float32: 4 bytes each).
+_NEAR_STEP = 2_000_000
+
+
+def apply_once(
+    panels: PanelSet,
+    density: np.ndarray,
+    *,
+    tol: float,
+    targets: np.ndarray,
+    directions: np.ndarray | None = None,
+    eta: float = ETA,
+    leaf: int = LEAF,
+) -> np.ndarray:
+    """(M, K): the product of the matrix :class:`HMatrix` would store for ``targets`` (M, 3)
+    (and ``directions``) with ``density`` (N, K), its blocks made and applied batch by batch
+    (module docstring); memory beyond the result is one batch."""
+    bl = _partition_blocks(panels, targets, directions, eta, leaf)
+    dens = np.asarray(density, dtype=float)
+    x = np.ascontiguousarray(dens.reshape(len(dens), -1)[bl.sources.perm])
+    y = np.zeros((len(bl.targets.perm), x.shape[1]))
+    ends = bl.tree_args[:4]
+    no_blocks, no_off = np.zeros((0, 2), np.int64), np.zeros(1, np.int64)
+    no_vals = np.zeros(0, np.float32)
+    sizes = bl.tsz[bl.near[:, 0]] * bl.ssz[bl.near[:, 1]]
+    cut = np.searchsorted(np.cumsum(sizes), np.arange(_NEAR_STEP, sizes.sum(), _NEAR_STEP))
+    for part in np.split(bl.near, np.unique(cut + 1)):
+        if len(part):
+            off, vals = _near_values(bl, part)
+            far = (no_blocks, no_off[:0], no_off[:0], no_off[:0], no_vals, no_vals)
+            for c in range(x.shape[1]):
+                y[:, c] += _matvec(x[:, c].copy(), len(y), part, off, *ends, vals, *far)
+    for b0, b1, m, n, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, False):
+        u32 = np.empty(int(np.sum(m * rk)), np.float32)
+        v32 = np.empty(int(np.sum(n * rk)), np.float32)
+        _compact(m, n, kmax, uoff, voff, ubig, vbig, rk, u32, v32)
+        uo = np.concatenate([[0], np.cumsum(m * rk)[:-1]]).astype(np.int64)
+        vo = np.concatenate([[0], np.cumsum(n * rk)[:-1]]).astype(np.int64)
+        far = (bl.far[b0:b1], uo, vo, rk, u32, v32)
+        for c in range(x.shape[1]):
+            y[:, c] += _matvec(x[:, c].copy(), len(y), no_blocks, no_off, *ends, no_vals, *far)
+    out = np.empty_like(y)
+    out[bl.targets.perm] = y
+    return out
 
 
 class HMatrix:
@@ -795,131 +974,36 @@ class HMatrix:
         recompress: bool = True,
     ) -> None:
         t0 = time.perf_counter()
-        corners, centroids, areas, diams = panels.kernel_arrays
-        pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
-        deriv = directions is not None
-        dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+        bl = _partition_blocks(panels, targets, directions, eta, leaf)
         self.n = panels.n
-        self.m = len(pts)
+        self.m = len(bl.targets.perm)
         self.tol = tol
-        self.targets = cluster_tree(pts, pts, pts, leaf)
-        src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
-        self.sources = src
-        tt = self.targets
-        far, near = _partition(
-            tt.lo,
-            tt.hi,
-            tt.child,
-            tt.end - tt.start,
-            src.lo,
-            src.hi,
-            src.child,
-            src.end - src.start,
-            eta,
-        )
-        # Order blocks by target cluster start so that chunks touch few rows.
-        near = near[np.lexsort((near[:, 1], tt.start[near[:, 0]]))]
-        far = far[np.lexsort((far[:, 1], tt.start[far[:, 0]]))]
-        tsz = tt.end - tt.start
-        ssz = src.end - src.start
+        self.targets = bl.targets
+        self.sources = bl.sources
+        near, far = bl.near, bl.far
+        tsz, ssz = bl.tsz, bl.ssz
         self.near_blocks = near
-        sizes = tsz[near[:, 0]] * ssz[near[:, 1]]
-        self.near_off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-        rules = pint.rules()
-        image = panels.ground_plane
-        # Panel and target data in tree order: the kernels then read memory in sequence
-        # (scattered reads cost several times the arithmetic of a far entry).
-        sp, tp = src.perm, tt.perm
-        corners = np.ascontiguousarray(corners[sp])
-        centroids = np.ascontiguousarray(centroids[sp])
-        areas = np.ascontiguousarray(areas[sp])
-        diams = np.ascontiguousarray(diams[sp])
-        gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
-        pts = np.ascontiguousarray(pts[tp])
-        if deriv:
-            dirs = np.ascontiguousarray(dirs[tp])
-        ident_t = np.arange(self.m, dtype=np.int64)
-        ident_s = np.arange(self.n, dtype=np.int64)
-        self.near_vals = _near_blocks(
-            near,
-            tt.start,
-            tt.end,
-            src.start,
-            src.end,
-            ident_t,
-            ident_s,
-            self.near_off,
-            pts,
-            dirs,
-            deriv,
-            corners,
-            centroids,
-            areas,
-            diams,
-            gp,
-            image,
-            *rules,
-        )
+        self.near_off, self.near_vals = _near_values(bl, near)
         self.time_near_s = time.perf_counter() - t0
-        us, vs, ranks = [], [], []
-        for b0, b1 in _batches(far, tsz, ssz):
-            blk = far[b0:b1]
-            m = tsz[blk[:, 0]]
-            n = ssz[blk[:, 1]]
-            kmax = np.minimum(np.minimum(m, n), MAX_RANK)
-            uoff = np.concatenate([[0], np.cumsum(m * kmax)]).astype(np.int64)
-            voff = np.concatenate([[0], np.cumsum(n * kmax)]).astype(np.int64)
-            ubig = np.zeros(uoff[-1])
-            vbig = np.zeros(voff[-1])
-            rk = np.zeros(len(blk), np.int64)
-            _aca_batch(
-                blk,
-                tt.start,
-                tt.end,
-                src.start,
-                src.end,
-                ident_t,
-                ident_s,
-                pts,
-                dirs,
-                deriv,
-                corners,
-                centroids,
-                areas,
-                diams,
-                gp,
-                image,
-                *rules,
-                tol,
-                MAX_RANK,
-                recompress,
-                uoff,
-                voff,
-                ubig,
-                vbig,
-                rk,
-            )
-            for b in range(len(blk)):
-                r = int(rk[b])
-                ub = ubig[uoff[b] : uoff[b + 1]].reshape(kmax[b], m[b])[:r].T
-                vb = vbig[voff[b] : voff[b + 1]].reshape(kmax[b], n[b])[:r]
-                us.append(np.ascontiguousarray(ub, dtype=np.float32).ravel())
-                vs.append(np.ascontiguousarray(vb, dtype=np.float32).ravel())
-                ranks.append(r)
+        u, v = np.empty(0, np.float32), np.empty(0, np.float32)
+        ranks = []
+        for _, _, m, n, kmax, uoff, voff, ubig, vbig, rk in _cross_batches(bl, tol, recompress):
+            at_u, at_v = len(u), len(v)
+            # In place (realloc): a list of parts joined at the end peaked at twice the size.
+            u.resize(at_u + int(np.sum(m * rk)), refcheck=False)
+            v.resize(at_v + int(np.sum(n * rk)), refcheck=False)
+            _compact(m, n, kmax, uoff, voff, ubig, vbig, rk, u[at_u:], v[at_v:])
+            ranks.append(rk)
         self.far_blocks = far
-        self.far_rank = np.asarray(ranks, np.int64)
-        self.u = np.concatenate(us) if us else np.zeros(0, np.float32)
-        self.v = np.concatenate(vs) if vs else np.zeros(0, np.float32)
+        self.far_rank = np.concatenate(ranks) if ranks else np.zeros(0, np.int64)
+        self.u = u
+        self.v = v
         self.far_uoff = np.concatenate([[0], np.cumsum(tsz[far[:, 0]] * self.far_rank)])[
             :-1
         ].astype(np.int64)
         self.far_voff = np.concatenate([[0], np.cumsum(ssz[far[:, 1]] * self.far_rank)])[
             :-1
         ].astype(np.int64)
-        threads = numba.get_num_threads()
-        n_chunks = max(1, threads)
-        self.near_chunks = _chunks(sizes, n_chunks)
-        self.far_chunks = _chunks(self.far_rank * (tsz[far[:, 0]] + ssz[far[:, 1]]), n_chunks)
         self.setup_s = time.perf_counter() - t0
 
     @property
@@ -955,7 +1039,7 @@ class HMatrix:
 
     def matvec(self, x: np.ndarray) -> np.ndarray:
         xs = np.ascontiguousarray(np.asarray(x, dtype=float)[self.sources.perm])
-        yp = _matvec(xs, self.m, *self._blocks, self.near_chunks, self.far_chunks)
+        yp = _matvec(xs, self.m, *self._blocks)
         y = np.empty(self.m)
         y[self.targets.perm] = yp
         return y

@@ -18,7 +18,7 @@ from functools import cached_property
 
 import numpy as np
 
-from elopt.physics.bem3d.evaluate import directional_derivative, potential_and_gradient
+from elopt.physics.bem3d.evaluate import EVAL_TOL, directional_derivative, potential_and_gradient
 from elopt.physics.bem3d.operators import SolveStats
 from elopt.physics.bem3d.panels import PanelSet
 from elopt.physics.bem3d.plane_rule import plane_rule
@@ -170,6 +170,15 @@ class PanelSolution(ChargeSolution):
     def eps(self) -> float:
         return self.layout.eps_F_per_m
 
+    @property
+    def eval_tol(self) -> float:
+        """Compression tolerance of field evaluations: a tenth of the tightest request, at
+        most 1e-4 and at least :data:`~.evaluate.EVAL_TOL` (compressed blocks move a field by
+        about their tolerance, which then stays ten times below what was asked)."""
+        o = self.options
+        tight = min(o.rel_accuracy, o.peak_rel_accuracy or 1.0)
+        return max(EVAL_TOL, min(1e-4, 0.1 * tight))
+
     # -- fields anywhere ---------------------------------------------------------------------
     def _points(self, points_m: np.ndarray) -> np.ndarray:
         pts = np.atleast_2d(np.asarray(points_m, dtype=float))
@@ -180,7 +189,7 @@ class PanelSolution(ChargeSolution):
         return pts
 
     def _integrals(self, level: LevelResult3D, dens: np.ndarray, pts: np.ndarray):
-        return potential_and_gradient(level.panels, dens, pts)
+        return potential_and_gradient(level.panels, dens, pts, self.eval_tol)
 
     def potential_at(self, points_m: np.ndarray) -> np.ndarray:
         pts = self._points(points_m)
@@ -251,7 +260,7 @@ class PanelSolution(ChargeSolution):
         dens = self._fine.sigma_unit if columns is None else self._fine.sigma_unit[:, columns]
         up = np.tile([0.0, 0.0, 1.0], (len(pts), 1))
         # sigma_plane = eps E_z(z = 0+) = -d/dz of the potential integral (1/eps cancels).
-        return -directional_derivative(self._fine.panels, dens, pts, up)
+        return -directional_derivative(self._fine.panels, dens, pts, up, self.eval_tol)
 
     @cached_property
     def _plane_unit_on_rule(self) -> np.ndarray:

@@ -18,7 +18,6 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d import panel_integrals as pint
@@ -172,10 +171,9 @@ class ReducedFastOperator(FastOperator):
         self.n = symmetry.n_reduced
         _, centroids, _, _ = panels.kernel_arrays
         self.hmatrix = HMatrix(panels, tol=tol, targets=centroids[symmetry.reps])
-        fold = sp.csr_matrix(
-            (np.ones(panels.n), (np.arange(panels.n), symmetry.orbit)), shape=(panels.n, self.n)
+        near = near_matrix(
+            panels, PRECONDITIONER_FACTOR, rows=symmetry.reps, column_of=symmetry.orbit
         )
-        near = (near_matrix(panels, PRECONDITIONER_FACTOR)[symmetry.reps] @ fold).tocsc()
         self.ilu = incomplete_lu(near)
         self.setup_s = time.perf_counter() - t0
         self.stored_bytes = self.hmatrix.nbytes + int(near.nnz * 12)

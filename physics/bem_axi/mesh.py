@@ -174,6 +174,7 @@ def _piece_coefs(piece, ab: np.ndarray) -> tuple[int, np.ndarray]:
     raise TypeError(f"unsupported curve piece {type(piece).__name__}")
 
 
+@lru_cache(maxsize=64)
 def _orientation(curve: Curve) -> float:
     """+1 if the closed outline of a body/ring runs counter-clockwise in (r, z), else -1."""
     pts = curve.sample(16)
@@ -243,6 +244,17 @@ def _interval_lengths(piece, intervals) -> np.ndarray:
     return piece.length * half
 
 
+@lru_cache(maxsize=4096)
+def _panel_sizes(
+    piece, intervals: tuple[tuple[float, float], ...]
+) -> tuple[np.ndarray, np.ndarray]:
+    """Arc lengths (n,) and mid-parameter points (n, 2) of the parts of ``piece`` between
+    parameter pairs ``intervals``; cached, as grading and gap refinement re-test unchanged
+    pieces many times."""
+    ab = np.asarray(intervals, dtype=float).reshape(-1, 2)
+    return _interval_lengths(piece, intervals), piece.points(ab.mean(axis=1))
+
+
 def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]], ratio: float) -> None:
     """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
@@ -252,7 +264,7 @@ def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]], ratio: fl
         flat = [(k, j) for k, iv in enumerate(per_piece) for j in range(len(iv))]
         lengths = np.concatenate(
             [
-                _interval_lengths(piece, iv)
+                _panel_sizes(piece, tuple(iv))[0]
                 for piece, iv in zip(curve.pieces, per_piece, strict=True)
             ]
         ).tolist()
@@ -302,8 +314,10 @@ def build_mesh(
 
 
 def clear_mesh_cache() -> None:
-    """Forget the cached level-0 intervals (a benchmark times a trial's meshing with it)."""
-    _base_intervals.cache_clear()
+    """Forget the cached level-0 intervals and panel sizes (a benchmark times a trial's
+    meshing with it)."""
+    for cached in (_base_intervals, _panel_sizes, _orientation):
+        cached.cache_clear()
 
 
 @lru_cache(maxsize=8)
@@ -349,22 +363,16 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> None:
         for _ in range(40):
             # Every piece's panels against the cloud at once (a piece's splits do not change
             # another piece's test).
-            centres = np.concatenate(
-                [
-                    piece.points(np.array(iv).mean(axis=1))
-                    for piece, iv in zip(curve.pieces, intervals, strict=True)
-                ]
-            )
+            sizes = [
+                _panel_sizes(piece, tuple(iv))
+                for piece, iv in zip(curve.pieces, intervals, strict=True)
+            ]
+            centres = np.concatenate([c for _, c in sizes])
             gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
                 centres[:, None, 1] - cloud[None, :, 1]
             ) ** 2
             dist = np.sqrt(gap2.min(axis=1))
-            lengths = np.concatenate(
-                [
-                    _interval_lengths(piece, iv)
-                    for piece, iv in zip(curve.pieces, intervals, strict=True)
-                ]
-            )
+            lengths = np.concatenate([n for n, _ in sizes])
             bad = lengths > GAP_FACTOR * dist
             if not np.any(bad):
                 break

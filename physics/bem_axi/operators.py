@@ -14,11 +14,10 @@ from __future__ import annotations
 import numpy as np
 
 from elopt.physics.bem_axi.mesh import AxiMesh
+from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections
 from elopt.physics.bem_axi.ring_sums import (
     collocation_sum,
     field_sum,
-    foot_points,
-    near_rows,
     node_rows,
     potential_sum,
     self_rows,
@@ -27,9 +26,6 @@ from elopt.physics.quadrature import barycentric_weights, gauss_legendre, log_pr
 
 #: A panel is "near" a target closer than at least this many panel lengths (lower bound).
 NEAR_FACTOR = 1.0
-#: Deepest grading of the near-field sub-rules (2^-44 of a panel).
-_MAX_LEVELS = 44
-_MIRROR = np.array([1.0, -1.0])
 
 
 def entry_tolerance(p: int) -> float:
@@ -57,53 +53,9 @@ def near_factor(p: int, rel_error: float | None = None) -> float:
     return max(0.5 * (x0 - 1.0), NEAR_FACTOR)
 
 
-def _near_pairs(mesh: AxiMesh, targets: np.ndarray, mirror: bool) -> tuple[np.ndarray, np.ndarray]:
-    centres = mesh.center_m * _MIRROR if mirror else mesh.center_m
-    d2 = (targets[:, None, 0] - centres[None, :, 0]) ** 2 + (
-        targets[:, None, 1] - centres[None, :, 1]
-    ) ** 2
-    reach = (near_factor(mesh.order) + 0.5) * mesh.length_m
-    return np.nonzero(d2 < reach * reach)
-
-
 def _rule_order(p: int) -> int:
     """Gauss points per graded sub-piece: the kernel is not polynomial, so a little above p."""
     return max(p + 2, 6)
-
-
-def _near_rows(
-    mesh: AxiMesh, pts: np.ndarray, pj: np.ndarray, mirror: bool, field: bool
-) -> np.ndarray:
-    """Accurate rows (B, p, ncomp) of near (target, panel) pairs; sigma at panel nodes."""
-    p = mesh.order
-    tau_c, delta = foot_points(
-        np.ascontiguousarray(pts[:, 0]),
-        np.ascontiguousarray(pts[:, 1]),
-        mesh.kind[pj],
-        np.ascontiguousarray(mesh.coef[pj]),
-        mirror,
-    )
-    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
-    # so does the innermost once it is no longer than the distance: one level beyond
-    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
-    ratio = mesh.length_m[pj] / np.maximum(delta, 1e-300)
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
-    x, _ = gauss_legendre(p)
-    xq, wq = gauss_legendre(_rule_order(p))
-    return near_rows(
-        np.ascontiguousarray(pts[:, 0]),
-        np.ascontiguousarray(pts[:, 1]),
-        mesh.kind[pj],
-        np.ascontiguousarray(mesh.coef[pj]),
-        tau_c,
-        levels,
-        mirror,
-        field,
-        x,
-        barycentric_weights(p),
-        xq,
-        wq,
-    )
 
 
 def _far_pairs(mesh: AxiMesh, pts: np.ndarray, cols: np.ndarray, mirror: bool, field: bool):
@@ -122,24 +74,42 @@ def _far_pairs(mesh: AxiMesh, pts: np.ndarray, cols: np.ndarray, mirror: bool, f
 
 
 def _correct_near(
-    mat: np.ndarray, mesh: AxiMesh, targets: np.ndarray, mirror: bool, exclude_self: bool
+    mat: np.ndarray,
+    mesh: AxiMesh,
+    targets: np.ndarray,
+    mirror: bool,
+    exclude_self: bool,
+    rel_error: float | None = None,
 ) -> None:
-    """Replace the direct-rule value of near (target, panel) pairs by accurate rows (in place).
+    """Replace the direct-rule value of (target, panel) pairs closer than
+    (:func:`near_factor` + 1/2) panel lengths to the panel's centre by graded sub-rules, with
+    sigma interpolated from the panel's nodes (in place; :mod:`near_sums`).
 
     ``mat`` (M, N, ncomp) holds real-minus-image sums; image corrections enter with a minus.
     Each (target, node) pair occurs once, so a plain indexed add is exact.
     """
-    ti, pj = _near_pairs(mesh, targets, mirror)
-    if exclude_self:
-        keep = pj != ti // mesh.order
-        ti, pj = ti[keep], pj[keep]
-    if len(ti) == 0:
-        return
-    pts = targets[ti]
-    cols = pj[:, None] * mesh.order + np.arange(mesh.order)
-    field = mat.shape[2] == 2
-    delta = _near_rows(mesh, pts, pj, mirror, field) - _far_pairs(mesh, pts, cols, mirror, field)
-    mat[ti[:, None], cols] += -delta if mirror else delta
+    p = mesh.order
+    xq, wq = gauss_legendre(_rule_order(p))
+    add_near_corrections(
+        mat,
+        np.ascontiguousarray(targets[:, 0]),
+        np.ascontiguousarray(targets[:, 1]),
+        mesh.kind,
+        mesh.coef,
+        mesh.length_m,
+        np.ascontiguousarray(mesh.center_m[:, 0]),
+        np.ascontiguousarray(mesh.center_m[:, 1]),
+        (near_factor(p, rel_error) + 0.5) * mesh.length_m,
+        np.ascontiguousarray(mesh.points_m[:, 0]),
+        np.ascontiguousarray(mesh.points_m[:, 1]),
+        mesh.weights_m,
+        mirror,
+        exclude_self,
+        gauss_legendre(p)[0],
+        barycentric_weights(p),
+        xq,
+        wq,
+    )
 
 
 def _operator(
@@ -169,14 +139,17 @@ def field_matrix(mesh: AxiMesh, targets_m: np.ndarray, ground_plane: bool) -> np
     return _operator(mesh, targets_m, ground_plane, "field")
 
 
-def collocation_matrix(mesh: AxiMesh, ground_plane: bool) -> np.ndarray:
-    """A (N, N): potential at each node, with exact log-singular self-panel integration."""
+def collocation_matrix(
+    mesh: AxiMesh, ground_plane: bool, entry_error: float | None = None
+) -> np.ndarray:
+    """A (N, N): potential at each node, with exact log-singular self-panel integration;
+    off-panel entries to relative error ``entry_error`` (default :func:`entry_tolerance`)."""
     src = mesh.points_m
     r, z = np.ascontiguousarray(src[:, 0]), np.ascontiguousarray(src[:, 1])
     mat = collocation_sum(r, z, mesh.weights_m, ground_plane)[..., None]
-    _correct_near(mat, mesh, src, False, True)
+    _correct_near(mat, mesh, src, False, True, entry_error)
     if ground_plane:
-        _correct_near(mat, mesh, src, True, False)
+        _correct_near(mat, mesh, src, True, False, entry_error)
     mat = mat[..., 0]
     p = mesh.order
     idx = np.arange(mesh.n_panels)[:, None] * p + np.arange(p)
@@ -202,7 +175,7 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     tgt = mesh.points_m
     panel = np.repeat(np.arange(mesh.n_panels), p)
     ratio = 2.0 * mesh.length_m[panel] / np.maximum(tgt[:, 0], 1e-300)
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, _MAX_LEVELS).astype(np.int64)
+    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, MAX_LEVELS).astype(np.int64)
     rows = self_rows(
         np.ascontiguousarray(tgt[:, 0]),
         np.ascontiguousarray(tgt[:, 1]),

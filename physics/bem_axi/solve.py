@@ -39,7 +39,8 @@ DENSE_BYTES_PER_ENTRY = 32
 NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-12, 1e-10), 8: (1e-12, 1e-12)}
 
 
-#: Mesh rule of loose requests (COARSE_REQUEST and above) at up to 4 nodes per panel: ratio-4
+#: Mesh rule of loose requests (COARSE_REQUEST and above) at up to 4 nodes per panel of
+#: dielectric solves (conductors-only solves take CONDUCTOR_COARSE_RULE): ratio-4
 #: grading, three steps at level 0 and one per level, neighbours within a factor 4. Measured on
 #: the guarded probes of tests/benchmarks/bench_fem_compare.py: 1.4-2.5x fewer unknowns than
 #: the ratio-2 rule for the same 1e-4, the level-1 error still 4-15x below the change that
@@ -47,18 +48,38 @@ NOISE_FLOORS = {4: (3e-10, 1e-8), 6: (1e-12, 1e-10), 8: (1e-12, 1e-12)}
 #: probes where this one needs a third level.
 COARSE_RULE = MeshRule(corner_steps=3, steps_per_level=1, grade_ratio=4.0, balance_ratio=4.0)
 COARSE_REQUEST = 1e-4
+#: The coarse rule of conductors-only solves: ratio-8 grading, two steps at level 0 and one per
+#: level, neighbours within a factor 8. Measured on the guarded probes at 1e-4: 104 + 208
+#: unknowns (filleted) and 148 + 344 (sharp) against 132 + 264 and 196 + 440 with COARSE_RULE,
+#: the level-1 error 0.15-0.65 times the change that estimates it; the published cases pass the
+#: honesty tests with it (tests/test_error_estimate_honesty_coarse.py, *_loose.py). Dielectric
+#: solves keep COARSE_RULE (not measured with this one), and so does the families' check of the
+#: level-0 size (electrodes.solvers.check_coarse_mesh, whose refusal message a test quotes).
+CONDUCTOR_COARSE_RULE = MeshRule(
+    corner_steps=2, steps_per_level=1, grade_ratio=8.0, balance_ratio=8.0
+)
+#: Relative error of the collocation entries of a conductors-only solve at COARSE_REQUEST and
+#: looser (1e-8 otherwise at 4 nodes): the near zone shrinks from 2.5 to 1.5 panel lengths
+#: (assembly 15 % faster) and C of the guarded probes moves by 3e-8 at most, 3000 times below
+#: the request. Its noise floors (capacitance, peak), measured on the published cases: C levels
+#: off at 5e-8 (coaxial disks), the peak at 3.3e-7 (sphere).
+COARSE_ENTRY_ERROR = 1e-6
+COARSE_ENTRY_FLOORS = (1e-7, 1e-6)
 
 
-def mesh_rule(order: int, request: float) -> MeshRule:
-    """The mesh rule of a homogeneous solve with ``order`` nodes per panel for ``request``,
-    the tighter of its relative-accuracy requests."""
-    return COARSE_RULE if order <= 4 and request >= COARSE_REQUEST else default_rule(order)
+def mesh_rule(order: int, request: float, *, conductors_only: bool = False) -> MeshRule:
+    """The mesh rule of a solve with ``order`` nodes per panel for ``request``, the tighter of
+    its relative-accuracy requests; ``conductors_only``: a homogeneous layout's solve."""
+    if order > 4 or request < COARSE_REQUEST:
+        return default_rule(order)
+    return CONDUCTOR_COARSE_RULE if conductors_only else COARSE_RULE
 
 
-def solve_level(layout: Layout, mesh: AxiMesh) -> LevelResult:
-    """Factor the collocation matrix of ``mesh`` once and solve every excitation column."""
+def solve_level(layout: Layout, mesh: AxiMesh, entry_error: float | None = None) -> LevelResult:
+    """Factor the collocation matrix of ``mesh`` (off-panel entries to relative error
+    ``entry_error``, default the operators' own) once and solve every excitation column."""
     eps = layout.eps_F_per_m
-    a = collocation_matrix(mesh, layout.ground_plane)
+    a = collocation_matrix(mesh, layout.ground_plane, entry_error)
     if not np.all(np.isfinite(a)):
         raise SolverError("collocation matrix has non-finite entries; check the geometry")
     n = len(layout.conductors)
@@ -114,7 +135,8 @@ def solve_axisymmetric(
     if not 2 <= order <= 16:
         raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
 
-    rule = mesh_rule(order, tightest)
+    rule = mesh_rule(order, tightest, conductors_only=True)
+    entry_error = COARSE_ENTRY_ERROR if rule == CONDUCTOR_COARSE_RULE else None
 
     def plan(level: int) -> LevelPlan:
         mesh = build_mesh(layout, level, order, rule)
@@ -124,10 +146,12 @@ def solve_axisymmetric(
             n,
             DENSE_BYTES_PER_ENTRY * n * n,
             "dense solve",
-            lambda _: solve_level(layout, mesh),
+            lambda _: solve_level(layout, mesh, entry_error),
         )
 
     # Orders between (or below) the measured ones take the floors of the next lower (or 4).
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
+    if entry_error is not None:
+        floors = COARSE_ENTRY_FLOORS
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
     return AxisymmetricSolution(layout, refine(plan, opts, convergence))

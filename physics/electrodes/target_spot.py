@@ -11,7 +11,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.integrate import cumulative_simpson
 
 
 def _grid_counts(
@@ -53,6 +52,10 @@ def cumulative_on_plane(r_m: np.ndarray, density: np.ndarray) -> np.ndarray:
     Simpson's rule on the (non-uniform) grid: on the default grid it is about a thousand
     times closer to the solver's own plane quadrature than the trapezoid rule.
     """
+    # Imported here: scipy.integrate (with scipy.optimize) adds about 12 MB to every process
+    # that imports the electrode families, most of which never call this.
+    from scipy.integrate import cumulative_simpson
+
     return cumulative_simpson(density * 2.0 * np.pi * r_m, x=r_m, initial=0.0)
 
 

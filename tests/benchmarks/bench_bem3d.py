@@ -15,6 +15,25 @@ time, peak memory, panels per level, the error estimate against the true error (
 reference extrapolated from the previous discretisation's three levels up to 92,288 panels,
 stored; the "before" run checks it). Target: <= 8 s and <= 300 MB with 1e-3 met.
 
+Measured 2026-12-02 18:25-18:27 UTC, one run, main at e236b93 then this code back to back,
+on the 2-core machine loaded by other work (load average 11 before, 9 after: wall times are
+several times a quiet machine's; CPU and memory compare):
+
+    code      wall s  CPU s  peak MB  panels per level   estimate  true err  met
+    e236b93     71.6   18.0      647  1704/6448/25792     6.6e-4    2.0e-4   yes
+    now         25.2   12.5      306  1704/6448/25792     6.3e-4    2.2e-4   yes
+
+What changed: the plane integrals' evaluation no longer stores a 1e-6 compressed matrix
+(peak 617 MB there) but applies blocks to 1e-4 as they are made; the middle level (3,224
+orbits of 6,448 panels) is compressed instead of dense (4.9 s to 1.2 s); the finest level's
+preconditioner is assembled on the orbits only, a chunk of sources at a time, and is a third
+of its former size; dense blocks are float32; the product is serial (two threads waited on
+each other); freed memory goes back to the OS between levels; scipy.integrate loads only when
+used. Single-thread profile of the same solve (CPU s, resident MiB after): imports 1.0 (128),
+level 0 0.5 (190), level 1 1.3 (210), finest level's compressed matrix 3.7 (+66 stored), its
+preconditioner 0.5 (+5), GMRES 1.0 (31 iterations), plane integrals 2.2 (nothing kept). The
+peak (292 MiB = 306 MB) is the incomplete LU's scratch on top of the stored blocks.
+
     python tests/benchmarks/bench_bem3d.py --pad-only            # Part 3 alone
     python tests/benchmarks/bench_bem3d.py --pad-only --before   # with the previous mesh
 

@@ -1,8 +1,11 @@
 """The axisymmetric BEM against a general P2 finite-element solve of the same guarded probes.
 
-Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9] [--stages]`` (needs the
-``bench`` extra: scikit-fem and gmsh; about a minute). Prints one table, both times and their
-ratio; ``--stages`` first prints the BEM solve's CPU time per stage (median of the repeats).
+Run: ``python tests/benchmarks/bench_fem_compare.py [--repeats 9] [--stages] [--before DIR]``
+(needs the ``bench`` extra: scikit-fem and gmsh; about a minute). Prints one table, both times
+and their ratio; ``--stages`` first prints the BEM solve's CPU time per stage (median of the
+repeats); ``--before DIR`` first times the BEM of another copy of the package in the same run
+(DIR holds ``elopt/physics``; a child process imports it through PYTHONPATH) and prints its
+rows against the FEM too.
 
 Probes (guarded_disk family): sensor radius 2 mm, gap 0.1 mm, guard to 4 mm, thickness
 0.5 mm; (a) filleted 0.05 mm at 0.2 mm standoff, (b) sharp-cornered at 0.5 mm standoff. The
@@ -25,13 +28,31 @@ find a coarser mesh that still meets 1e-4 where there is one, and the coarsest s
 timed (meshing, assembly, solve and charge; median of the repeats): this favours the FEM, which
 is not charged for the search nor for an error estimate of its own. The truncation error is
 stated as the change of C_sense when R_out doubles on that mesh size.
+
+Measured 2026-12-02, ``--repeats 9 --before`` (the package before the conductors-only coarse
+rule, its 1e-6 entries and the compiled near pass), one run on the 2-core machine under heavy
+load (``uptime`` load average 15 at start and end; the full test suite ran beside it), so the
+wall times are noise and the CPU times the figure (ms, medians):
+
+    probe                     BEM cpu before -> after   N before -> after   FEM cpu   ratio
+    filleted 0.05 mm, 0.2 mm  10.5 -> 8.1               132+264 -> 104+208  78.7      7.5x -> 9.7x
+    sharp, 0.5 mm             16.9 -> 10.4              196+440 -> 148+344  66.2      3.9x -> 6.4x
+
+C_sense errors after: 2.7e-6 and 8.5e-8 (estimates 1.3e-5 and 1.8e-5 of the matrix). The 30x
+target is not met; what is left per solve (CPU ms, sharp probe, --stages, loaded): layout 0.7,
+level-0 grading 0.6, meshes 0.6, far sums 2.0, near panels 3.7 (before the 1e-6 entries),
+LU 2.8.
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import math
+import os
 import statistics
+import subprocess
+import sys
 import time
 
 import numpy as np
@@ -205,7 +226,7 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     layout = GuardedDisk().build(params)
     sol = bem_run(params, REQUEST)
     order = default_order(REQUEST)
-    rule = mesh_rule(order, REQUEST)
+    rule = mesh_rule(order, REQUEST, conductors_only=True)
     out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
     out["level-0 grading"] = cpu_ms(
         lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
@@ -229,12 +250,52 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     return out
 
 
+PROBES = (("filleted 0.05 mm, d 0.2 mm", 0.05, 0.2), ("sharp, d 0.5 mm", 0.0, 0.5))
+
+
+def bem_rows(repeats: int) -> list[dict]:
+    """Per probe: the BEM's median wall and CPU seconds at REQUEST, its C_sense error against
+    the 1e-9 reference, its estimate and its unknowns per level."""
+    out = []
+    for _, fillet_mm, standoff_mm in PROBES:
+        params = probe_params(fillet_mm, standoff_mm)
+        ref_sol = solve_axisymmetric(GuardedDisk().build(params), rel_accuracy=1e-9)
+        ref = sense_F(ref_sol.capacitance_matrix_F)
+        wall, cpu, sol = median_time(lambda p=params: bem_run(p, REQUEST), repeats)
+        out.append(
+            {
+                "wall": wall,
+                "cpu": cpu,
+                "err": abs(sense_F(sol.capacitance_matrix_F) / ref - 1.0),
+                "est": sol.rel_error_estimate,
+                "levels": [lv.n_unknowns for lv in sol.levels],
+                "ref": ref,
+                "ref_est": ref_sol.rel_error_estimate,
+            }
+        )
+    return out
+
+
+def rows_of_other_copy(package_dir: str, repeats: int) -> list[dict]:
+    """:func:`bem_rows` of the package under ``package_dir``, in a child process."""
+    env = dict(os.environ, PYTHONPATH=package_dir)
+    cmd = [sys.executable, __file__, "--bem-rows-only", "--repeats", str(repeats)]
+    done = subprocess.run(cmd, env=env, capture_output=True, text=True, check=True)
+    return json.loads(done.stdout.splitlines()[-1])
+
+
 def main() -> None:
     limit_blas_threads()  # one BLAS thread per process, as the elopt command runs
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeats", type=int, default=9)
     parser.add_argument("--stages", action="store_true", help="print the BEM's stage times")
+    parser.add_argument("--before", metavar="DIR", help="also time the BEM of this copy")
+    parser.add_argument("--bem-rows-only", action="store_true", help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.bem_rows_only:
+        print(json.dumps(bem_rows(args.repeats)))
+        return
+    before = rows_of_other_copy(args.before, args.repeats) if args.before else None
     if args.stages:
         for label, fillet_mm, standoff_mm in (("filleted", 0.05, 0.2), ("sharp", 0.0, 0.5)):
             stages = stage_times_ms(probe_params(fillet_mm, standoff_mm), args.repeats)
@@ -242,15 +303,9 @@ def main() -> None:
             for name, ms in stages.items():
                 print(f"  {name:32s} {ms:7.2f}")
     rows = []
-    for label, fillet_mm, standoff_mm in (
-        ("filleted 0.05 mm, d 0.2 mm", 0.05, 0.2),
-        ("sharp, d 0.5 mm", 0.0, 0.5),
-    ):
+    for (label, fillet_mm, standoff_mm), bem in zip(PROBES, bem_rows(args.repeats), strict=True):
         params = probe_params(fillet_mm, standoff_mm)
-        ref_sol = solve_axisymmetric(GuardedDisk().build(params), rel_accuracy=1e-9)
-        ref = sense_F(ref_sol.capacitance_matrix_F)
-        t_bem, c_bem, sol = median_time(lambda p=params: bem_run(p, REQUEST), args.repeats)
-        bem_err = abs(sense_F(sol.capacitance_matrix_F) / ref - 1.0)
+        ref = bem["ref"]
         r_out = 25.0 * (2.0 + 0.1 + 1.9) * MM
         chosen = coarsest_scale(params, ref, r_out)
         if chosen is None:
@@ -262,40 +317,33 @@ def main() -> None:
         )
         c_wide, _ = fem_sense_F(params, chosen, 2.0 * r_out)
         rows.append(
-            (
-                label,
-                t_bem,
-                c_bem,
-                bem_err,
-                sol.rel_error_estimate,
-                sol.n_unknowns,
-                t_fem,
-                cpu_fem,
-                abs(c_fem / ref - 1.0),
-                abs(c_wide / c_fem - 1.0),
-                chosen,
-                n_dofs,
-                ref_sol.rel_error_estimate,
-            )
+            (label, bem, t_fem, cpu_fem, abs(c_fem / ref - 1.0), abs(c_wide / c_fem - 1.0))
+            + (chosen, n_dofs)
         )
     print(
         f"request {REQUEST:g} on C_sense; BEM median of {args.repeats}, FEM median of "
-        f"{max(3, args.repeats // 3)} (meshing included in both)"
+        f"{max(3, args.repeats // 3)} (meshing included in both); N: unknowns per level"
     )
     print(
-        f"{'probe':28s} {'BEM ms':>8s} {'cpu ms':>7s} {'BEM err':>8s} {'estim.':>8s} {'N':>5s} "
-        f"{'FEM ms':>8s} {'cpu ms':>7s} {'FEM err':>8s} {'trunc.':>8s} {'scale':>5s} "
+        f"{'probe':34s} {'BEM ms':>7s} {'cpu ms':>7s} {'BEM err':>8s} {'estim.':>8s} "
+        f"{'N':>9s} {'FEM ms':>7s} {'cpu ms':>7s} {'FEM err':>8s} {'trunc.':>8s} {'scale':>5s} "
         f"{'DOFs':>6s} {'FEM/BEM wall':>12s} {'cpu':>6s}"
     )
-    for label, tb, cb, eb, est, n, tf, cf, ef, trunc, scale, dofs, _ in rows:
-        print(
-            f"{label:28s} {tb * 1e3:8.2f} {cb * 1e3:7.2f} {eb:8.1e} {est:8.1e} {n:5d} "
-            f"{tf * 1e3:8.1f} {cf * 1e3:7.1f} {ef:8.1e} {trunc:8.1e} {scale:5.2f} {dofs:6d} "
-            f"{tf / tb:11.1f}x {cf / cb:5.1f}x"
-        )
+    versions = [("", [r[1] for r in rows])]
+    if before is not None:
+        versions.insert(0, (" (before)", before))
+    for tag, bems in versions:
+        for (label, _, tf, cf, ef, trunc, scale, dofs), b in zip(rows, bems, strict=True):
+            n = "+".join(str(k) for k in b["levels"])
+            print(
+                f"{label + tag:34s} {b['wall'] * 1e3:7.2f} {b['cpu'] * 1e3:7.2f} {b['err']:8.1e} "
+                f"{b['est']:8.1e} {n:>9s} {tf * 1e3:7.1f} {cf * 1e3:7.1f} {ef:8.1e} "
+                f"{trunc:8.1e} {scale:5.2f} {dofs:6d} {tf / b['wall']:11.1f}x "
+                f"{cf / b['cpu']:5.1f}x"
+            )
     print(
         "references: BEM at 1e-9 (estimates "
-        + ", ".join(f"{r[-1]:.0e}" for r in rows)
+        + ", ".join(f"{r[1]['ref_est']:.0e}" for r in rows)
         + f"); target FEM/BEM >= {TARGET_RATIO:g}x (long-term 100x); trunc. = change of "
         "the FEM's C_sense when R_out doubles"
     )
