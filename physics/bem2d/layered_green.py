@@ -37,6 +37,7 @@ from functools import cached_property
 import numpy as np
 
 from elopt.physics.errors import GeometryError
+from elopt.physics.layer_spectrum import StackSpectrum
 from elopt.physics.layout import EPS0_F_PER_M
 from elopt.physics.media import LayerStack
 
@@ -52,6 +53,8 @@ class Slabs:
     top_m: np.ndarray
     eps_F_per_m: np.ndarray
     ground_plane: bool
+    #: distance (1/m) of the nearest pole of the spectral function from k = 0 (inf if none)
+    pole_distance_per_m: float = math.inf
 
     @classmethod
     def from_stack(cls, stack: LayerStack) -> Slabs:
@@ -68,7 +71,13 @@ class Slabs:
             if mid is None:
                 mid = hi - 1.0 if math.isfinite(hi) else (lo + 1.0 if math.isfinite(lo) else 0.0)
             eps.append(float(stack.eps_r_at(np.array([mid]))[0]) * EPS0_F_PER_M)
-        return cls(np.array(lows), np.array(highs), np.array(eps), bool(stack.ground_plane))
+        return cls(
+            np.array(lows),
+            np.array(highs),
+            np.array(eps),
+            bool(stack.ground_plane),
+            StackSpectrum(stack).pole_distance,
+        )
 
     @property
     def n(self) -> int:

@@ -168,8 +168,16 @@ def _ray_sums(xt, ht, xs, hs, kr, wr, rho, out):  # pragma: no cover - compiled
             out[t, s] = acc
 
 
-#: Chebyshev nodes per table panel (each panel spans one unit of asinh(length / d_min)).
+#: Chebyshev nodes per table panel (each panel spans 1 / per_unit of asinh(length / d_min)).
 TABLE_NODES = 8
+#: Interpolation error of a table with panels one unit of asinh wide, relative to the
+#: largest |F_pq| (measured 2e-7; F is analytic for Re w > -2 d_min).
+TABLE_ERROR = 2e-7
+#: The error aimed at relative to the kernel's own scale, after the cancellation between the
+#: (p, q) terms (below the solver's capacitance floor 1e-8).
+TABLE_TARGET = 1e-9
+#: Distance in asinh(length / d_min) from a table's edge to F's nearest singularity.
+SINGULAR_GAP = math.asinh(2.0)
 
 
 def _ray_setup(slabs: Slabs, i: int, j: int, extent_m: float):
@@ -187,7 +195,8 @@ def _ray_setup_uncached(slabs: Slabs, i: int, j: int, extent_m: float):
     fin = np.isfinite(slabs.thickness_m)
     big_l = float(slabs.thickness_m[fin].sum())
     d_big = extent_m + big_l
-    s, ws = octave_rule(0.05 / d_big, 40.0 / (d_min * math.cos(math.pi / 4)))
+    first = min(0.05 / d_big, slabs.pole_distance_per_m)
+    s, ws = octave_rule(first, 40.0 / (d_min * math.cos(math.pi / 4)))
     psi = 0.25 * math.pi * np.arange(RAYS) / (RAYS - 1)
     rot = np.exp(-1j * psi)
     kr = rot[:, None] * s[None, :]
@@ -231,7 +240,7 @@ def _bary(x, nodes, lam, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no cover
+def _table_sums(at, as_, dx, table, ell, per_unit, nodes, lam, upper, out):  # pragma: no cover
     m = nodes.shape[0]
     nv = table.shape[0] // m
     nu = table.shape[1] // m
@@ -239,8 +248,8 @@ def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no 
     bu = np.empty(m)
     for t in range(at.shape[0]):
         for s in range(t if upper else 0, as_.shape[0]):
-            v = math.asinh((at[t] + as_[s]) / ell)
-            u = math.asinh(abs(dx[t, s]) / ell)
+            v = per_unit * math.asinh((at[t] + as_[s]) / ell)
+            u = per_unit * math.asinh(abs(dx[t, s]) / ell)
             iv = min(int(v), nv - 1)
             iu = min(int(u), nu - 1)
             _bary(2.0 * (v - iv) - 1.0, nodes, lam, bv)
@@ -260,6 +269,40 @@ def _reciprocal(rho: np.ndarray) -> bool:
     symmetric in target and source, as reciprocity demands)."""
     scale = float(np.abs(rho).max()) if rho.size else 0.0
     return bool(np.allclose(rho[..., 0, 1], rho[..., 1, 0], rtol=1e-10, atol=1e-13 * scale))
+
+
+def cancellation(slabs: Slabs, i: int, j: int, m0: np.ndarray) -> float:
+    """How far the (p, q) parts of the open remainder exceed the kernel they sum to (>= 1).
+
+    Each F_pq carries about (m0_pq - M_inf_pq) / pi times a logarithm, while the kernel
+    between slabs i and j scales like 1 / (eps_i + eps_j) (the direct and transmitted
+    charges). Between a grounded plane and a much higher permittivity, or in a slab of much
+    higher permittivity than both neighbours, the k -> 0 system is nearly singular and the
+    m0_pq grow like the contrast while their sum stays finite."""
+    eps = slabs.eps_F_per_m
+    return max(1.0, float(np.abs(m0).max()) * (eps[i] + eps[j]))
+
+
+def _ellipse_ratio(per_unit: int) -> float:
+    """Bernstein ellipse ratio of a table panel 1 / per_unit wide whose nearest singularity
+    (w = -2 d_min, at asinh(-2) in the panel's variable) lies SINGULAR_GAP beyond its end."""
+    x = 1.0 + 2.0 * SINGULAR_GAP * per_unit
+    return x + math.sqrt(x * x - 1.0)
+
+
+def table_panels_per_unit(slabs: Slabs, i: int, j: int, m0: np.ndarray) -> int:
+    """Table panels per unit of asinh(length / d_min), a power of 2: one at low contrast; at
+    high contrast the fewest for which TABLE_ERROR, scaled by the ellipse ratios
+    (Chebyshev interpolation error ~ ratio^-TABLE_NODES), times the cancellation is at most
+    TABLE_TARGET."""
+    kappa = cancellation(slabs, i, j, m0)
+    per_unit = 1
+    while per_unit < 64:
+        gain = (_ellipse_ratio(1) / _ellipse_ratio(per_unit)) ** TABLE_NODES
+        if TABLE_ERROR * gain * kappa <= TABLE_TARGET:
+            break
+        per_unit *= 2
+    return per_unit
 
 
 def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float) -> np.ndarray:
@@ -283,6 +326,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
     )
     dx = xt[:, None] - xs[None, :]
     ell = slabs.min_thickness_m
+    per_unit = table_panels_per_unit(slabs, i, j, m0)
     nodes, lam = _cheb(TABLE_NODES)
     out = np.zeros((len(xt), len(xs)))
     for p in range(2):
@@ -292,11 +336,14 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
             if not np.isfinite(hs[:, q]).all():
                 continue
             if np.any(rho[:, :, p, q]):
-                nv = max(1, math.ceil(math.asinh((ht[:, p].max() + hs[:, q].max()) / ell)))
-                nu = max(1, math.ceil(math.asinh(np.abs(dx).max() / ell)))
+                a_max = ht[:, p].max() + hs[:, q].max()
+                nv = max(1, math.ceil(per_unit * math.asinh(a_max / ell)))
+                nu = max(1, math.ceil(per_unit * math.asinh(np.abs(dx).max() / ell)))
                 v = (np.arange(nv)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
                 u = (np.arange(nu)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
-                w = (ell * np.sinh(v))[:, None] + 1j * (ell * np.sinh(u))[None, :]
+                w = (ell * np.sinh(v / per_unit))[:, None] + 1j * (ell * np.sinh(u / per_unit))[
+                    None, :
+                ]
                 table = laplace_values(kr, wr, rho[:, :, p, q], w.ravel()).real
                 _table_sums(
                     np.ascontiguousarray(ht[:, p]),
@@ -304,6 +351,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                     dx,
                     table.reshape(nv * TABLE_NODES, nu * TABLE_NODES),
                     ell,
+                    float(per_unit),
                     nodes,
                     lam,
                     upper,
