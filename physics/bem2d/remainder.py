@@ -12,6 +12,7 @@ import math
 
 import numba
 import numpy as np
+import scipy.special
 
 from elopt.physics.bem2d.layered_green import TAIL, Slabs, octave_rule
 
@@ -181,8 +182,9 @@ SINGULAR_GAP = math.asinh(2.0)
 
 
 def _ray_setup(slabs: Slabs, i: int, j: int, extent_m: float):
-    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); m0 - M_inf; L.
-    Cached on ``slabs``."""
+    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); the far-field
+    coefficients m0 - M_inf (less the pole's R / delta); L; the pole near k = 0 (delta, R) or
+    None. Cached on ``slabs``."""
     cache = slabs.__dict__.setdefault("_spectra", {})
     key = ("open", extent_m, i, j)
     if key not in cache:
@@ -203,9 +205,19 @@ def _ray_setup_uncached(slabs: Slabs, i: int, j: int, extent_m: float):
     wr = (rot[:, None] * ws[None, :]) / math.pi
     kflat = kr.ravel()
     m0 = slabs.m_zero[j, i] - slabs.m_inf[j, i]
-    rho = _rho(slabs, kflat, i, j) - m0[None] * np.exp(-kflat * big_l)[:, None, None]
+    rho = _rho(slabs, kflat, i, j)
+    pole = slabs.near_pole(i, j)
+    if pole is not None:
+        # The pole's part goes to a closed form; near k = 0 the rest comes from Cauchy's
+        # integral (the interface system is too ill-conditioned there to subtract from).
+        rho = rho - pole.residue[None] / (kflat + pole.delta)[:, None, None]
+        inner = np.abs(kflat) <= 0.5 * pole.radius
+        inf = slabs.m_inf[j, i][None]
+        rho[inner] = pole.regular_part(kflat[inner]) - inf
+        m0 = pole.regular_part(np.zeros(1))[0].real - inf[0]
+    rho = rho - m0[None] * np.exp(-kflat * big_l)[:, None, None]
     rho = (rho / kflat[:, None, None]).reshape(RAYS, len(s), 2, 2)
-    return kr, wr, rho, m0, big_l
+    return kr, wr, rho, m0, big_l, pole
 
 
 def laplace_values(kr, wr, rho_pq, w: np.ndarray) -> np.ndarray:
@@ -314,7 +326,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
     interpolated; tests compare with the direct ray sums. When the targets are the sources
     (a slab with itself, F_01 = F_10) only the upper triangle is interpolated and mirrored.
     """
-    kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
+    kr, wr, rho, m0, big_l, pole = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     xt, xs = np.asarray(xt, dtype=float), np.asarray(xs, dtype=float)
@@ -359,17 +371,72 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                 )
     if upper:
         out = np.triu(out) + np.triu(out, 1).T
+    _add_closed_forms(out, ht, hs, dx, m0, big_l, pole)
+    return out
+
+
+def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
+    """Add to ``out`` (T, S) the parts of the open remainder taken out of the ray integrals:
+    the far field -(m0_pq / pi) ln|W + L| and the pole near k = 0, W = alpha_pq + i |dx|."""
+    if pole is not None:
+        delta, res = pole.delta, pole.residue
+        const = 0.0
     for p in range(2):
+        if not np.isfinite(ht[:, p]).all():
+            continue
         for q in range(2):
-            if m0[p, q] != 0.0 and np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all():
-                al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
-                out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + al * al)
+            if not np.isfinite(hs[:, q]).all():
+                continue
+            al = ht[:, p][:, None] + hs[:, q][None, :]
+            if m0[p, q] != 0.0:
+                out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + (al + big_l) ** 2)
+            if pole is not None and res[p, q] != 0.0:
+                c = res[p, q] / delta
+                const += c
+                out += (c / math.pi) * pole_transform(delta, al + 1j * np.abs(dx))
+    if pole is not None:
+        out += (const / math.pi) * (np.euler_gamma + math.log(delta))
+
+
+def pole_transform(delta: float, w: np.ndarray) -> np.ndarray:
+    """Re of int_0^inf (1/k - 1/(k + delta)) exp(-k w) dk less its value at w = 0,
+    gamma + ln(delta) (w complex (...), Re w >= 0; the 1/k part in the convention of the far
+    field, int exp(-k w) / k dk = -ln w). With z = delta w and e^z E1(z) =
+    e^z (-gamma - ln z + Ein(z)) it is (e^z - 1)(ln w + gamma + ln delta) - e^z Ein(z): small
+    where the pole's coefficient is large, so the (p, q) parts no longer cancel."""
+    w = np.asarray(w, dtype=complex)
+    z = delta * w
+    em1 = np.expm1(z)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lw = np.where(w == 0, 0.0, np.log(np.where(w == 0, 1.0, w)))
+    out = em1 * (lw + np.euler_gamma + math.log(delta)) - (em1 + 1.0) * _ein(z)
+    return out.real
+
+
+def _ein(z: np.ndarray) -> np.ndarray:
+    """Ein(z) = sum_{n>=1} (-1)^(n+1) z^n / (n n!) (entire); the series for |z| <= 1, else
+    E1(z) + ln z + gamma (scipy)."""
+    small = np.abs(z) <= 1.0
+    out = np.zeros_like(z)
+    zs = z[small]
+    if zs.size:
+        top = float(np.abs(zs).max())
+        n_terms = 1
+        while top > 0 and top ** (n_terms + 1) / math.factorial(n_terms + 1) > 1e-17:
+            n_terms += 1
+        acc = np.zeros_like(zs)
+        for n in range(n_terms, 0, -1):  # Horner in z
+            acc = zs * ((-1.0) ** (n + 1) / (n * math.factorial(n)) + acc)
+        out[small] = acc
+    zb = z[~small]
+    if zb.size:
+        out[~small] = scipy.special.exp1(zb) + np.log(zb) + np.euler_gamma
     return out
 
 
 def open_remainder_direct(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float):
     """The same remainder by direct ray sums for every pair (slow; the tests' reference)."""
-    kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
+    kr, wr, rho, m0, big_l, pole = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     out = np.zeros((len(xt), len(xs)))
@@ -383,11 +450,6 @@ def open_remainder_direct(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m
         np.ascontiguousarray(rho),
         out,
     )
-    dx2 = (np.asarray(xt)[:, None] - np.asarray(xs)[None, :]) ** 2
-    for p in range(2):
-        for q in range(2):
-            if m0[p, q] == 0.0 or not (np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all()):
-                continue
-            al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
-            out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx2 + al * al)
+    dx = np.asarray(xt, dtype=float)[:, None] - np.asarray(xs, dtype=float)[None, :]
+    _add_closed_forms(out, ht, hs, dx, m0, big_l, pole)
     return out
