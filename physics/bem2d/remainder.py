@@ -3,6 +3,11 @@
 ``periodic_remainder`` sums the spectral series; ``open_remainder`` takes the Laplace transforms
 F_pq(w) along rays k = s exp(-i psi) with psi = arg(w) / 2 (rounded to one of ``RAYS`` angles),
 so that neither exp(-k w) nor the slab factors exp(-k d) oscillate faster than they decay.
+At high contrast (a grounded plane under a much higher permittivity, a slab of much higher
+permittivity than its neighbours) k M has a pole at k = -delta near 0 (:meth:`Slabs.near_pole`):
+its part R / (k + delta) is transformed in closed form (:func:`pole_transform`) and the rest is
+taken near k = 0 from Cauchy's integral, since the (p, q) parts would otherwise grow like the
+contrast and cancel in the sum.
 Both return R (T, S) in V per (C/m) at target and source points; the caller weights columns.
 """
 
@@ -174,9 +179,6 @@ TABLE_NODES = 8
 #: Interpolation error of a table with panels one unit of asinh wide, relative to the
 #: largest |F_pq| (measured 2e-7; F is analytic for Re w > -2 d_min).
 TABLE_ERROR = 2e-7
-#: The error aimed at relative to the kernel's own scale, after the cancellation between the
-#: (p, q) terms (below the solver's capacitance floor 1e-8).
-TABLE_TARGET = 1e-9
 #: Distance in asinh(length / d_min) from a table's edge to F's nearest singularity.
 SINGULAR_GAP = math.asinh(2.0)
 
@@ -208,16 +210,27 @@ def _ray_setup_uncached(slabs: Slabs, i: int, j: int, extent_m: float):
     rho = _rho(slabs, kflat, i, j)
     pole = slabs.near_pole(i, j)
     if pole is not None:
-        # The pole's part goes to a closed form; near k = 0 the rest comes from Cauchy's
-        # integral (the interface system is too ill-conditioned there to subtract from).
-        rho = rho - pole.residue[None] / (kflat + pole.delta)[:, None, None]
+        # The pole's part R exp(-(k + delta) 2 L) / (k + delta) goes to a closed form (the
+        # factor keeps the rest decaying like exp(-k 2 d_min) and leaves the residue as it
+        # is); near k = 0 the rest comes from Cauchy's integral (the interface system is too
+        # ill-conditioned there to subtract from).
+        rho = rho - pole.residue[None] * _pole_part(kflat, pole.delta, 2 * big_l)
         inner = np.abs(kflat) <= 0.5 * pole.radius
-        inf = slabs.m_inf[j, i][None]
-        rho[inner] = pole.regular_part(kflat[inner]) - inf
-        m0 = pole.regular_part(np.zeros(1))[0].real - inf[0]
+        k_in = np.append(kflat[inner], 0.0)
+        shift = 2 * big_l
+        x = (k_in + pole.delta) * shift
+        entire = (-np.expm1(-x) / x * shift)[:, None, None]  # (1 - e^-x) / (k + delta)
+        rest = pole.regular_part(k_in) - slabs.m_inf[j, i][None] + pole.residue[None] * entire
+        rho[inner] = rest[:-1]
+        m0 = rest[-1].real
     rho = rho - m0[None] * np.exp(-kflat * big_l)[:, None, None]
     rho = (rho / kflat[:, None, None]).reshape(RAYS, len(s), 2, 2)
     return kr, wr, rho, m0, big_l, pole
+
+
+def _pole_part(k: np.ndarray, delta: float, shift: float) -> np.ndarray:
+    """exp(-(k + delta) shift) / (k + delta) (K, 1, 1)."""
+    return (np.exp(-(k + delta) * shift) / (k + delta))[:, None, None]
 
 
 def laplace_values(kr, wr, rho_pq, w: np.ndarray) -> np.ndarray:
@@ -303,15 +316,14 @@ def _ellipse_ratio(per_unit: int) -> float:
 
 
 def table_panels_per_unit(slabs: Slabs, i: int, j: int, m0: np.ndarray) -> int:
-    """Table panels per unit of asinh(length / d_min), a power of 2: one at low contrast; at
-    high contrast the fewest for which TABLE_ERROR, scaled by the ellipse ratios
-    (Chebyshev interpolation error ~ ratio^-TABLE_NODES), times the cancellation is at most
-    TABLE_TARGET."""
+    """Table panels per unit of asinh(length / d_min), a power of 2: one at low contrast;
+    where the (p, q) parts cancel, the fewest that keep the error against the kernel at the
+    low-contrast TABLE_ERROR (Chebyshev interpolation error ~ ellipse ratio^-TABLE_NODES)."""
     kappa = cancellation(slabs, i, j, m0)
     per_unit = 1
     while per_unit < 64:
         gain = (_ellipse_ratio(1) / _ellipse_ratio(per_unit)) ** TABLE_NODES
-        if TABLE_ERROR * gain * kappa <= TABLE_TARGET:
+        if gain * kappa <= 1.0:
             break
         per_unit *= 2
     return per_unit
@@ -377,7 +389,9 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
 
 def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
     """Add to ``out`` (T, S) the parts of the open remainder taken out of the ray integrals:
-    the far field -(m0_pq / pi) ln|W + L| and the pole near k = 0, W = alpha_pq + i |dx|."""
+    the far field -(m0_pq / pi) ln|W + L| and the pole near k = 0,
+    (R_pq exp(-2 delta L) / (pi delta)) Re(-ln(W + 2 L) - e^z E1(z)), z = delta (W + 2 L),
+    W = alpha_pq + i |dx| (the constant gamma + ln(delta) summed over (p, q) first)."""
     if pole is not None:
         delta, res = pole.delta, pole.residue
         const = 0.0
@@ -391,19 +405,20 @@ def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
             if m0[p, q] != 0.0:
                 out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + (al + big_l) ** 2)
             if pole is not None and res[p, q] != 0.0:
-                c = res[p, q] / delta
+                c = res[p, q] * math.exp(-2 * delta * big_l) / delta
                 const += c
-                out += (c / math.pi) * pole_transform(delta, al + 1j * np.abs(dx))
+                out += (c / math.pi) * pole_transform(delta, al + 2 * big_l + 1j * np.abs(dx))
     if pole is not None:
         out += (const / math.pi) * (np.euler_gamma + math.log(delta))
 
 
 def pole_transform(delta: float, w: np.ndarray) -> np.ndarray:
-    """Re of int_0^inf (1/k - 1/(k + delta)) exp(-k w) dk less its value at w = 0,
-    gamma + ln(delta) (w complex (...), Re w >= 0; the 1/k part in the convention of the far
-    field, int exp(-k w) / k dk = -ln w). With z = delta w and e^z E1(z) =
-    e^z (-gamma - ln z + Ein(z)) it is (e^z - 1)(ln w + gamma + ln delta) - e^z Ein(z): small
-    where the pole's coefficient is large, so the (p, q) parts no longer cancel."""
+    """Re of int_0^inf (1/k - 1/(k + delta)) exp(-k w) dk = Re(-ln w - e^z E1(z)), z = delta w,
+    less its value gamma + ln(delta) at w = 0 (w (T, S) complex, Re w >= 0, in m; delta in
+    1/m; the 1/k part in the far field's convention int exp(-k w) / k dk = -ln w). With
+    e^z E1(z) = e^z (-gamma - ln z + Ein(z)) (Abramowitz & Stegun 5.1.11) it is
+    (e^z - 1)(ln w + gamma + ln delta) - e^z Ein(z): of order delta |w| ln, so the (p, q)
+    parts, whose coefficients R_pq / delta grow like the contrast, no longer cancel."""
     w = np.asarray(w, dtype=complex)
     z = delta * w
     em1 = np.expm1(z)
