@@ -10,11 +10,10 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import tomllib
-from pathlib import Path
 
 import numpy as np
 import pytest
+from test_planar_sensitivity_sign import demo_params, mutual
 
 from elopt.physics.bem2d import Strip, solve_2d
 from elopt.physics.bem2d.layered_green import Slabs
@@ -27,8 +26,9 @@ SLAB_M = 3e-3
 EXTENT_M = 0.02
 
 
-def log_kernel(x: float, a: np.ndarray) -> np.ndarray:
-    """-(1/2 pi) ln hypot(x, a): potential times eps of a unit line charge at distance (x, a)."""
+def log_kernel(x, a):
+    """-(1/2 pi) ln hypot(x, a): potential times eps of a unit line charge at offsets (x, a)
+    (scalars or arrays that broadcast)."""
     return -np.log(np.hypot(x, a)) / (2 * math.pi)
 
 
@@ -97,14 +97,10 @@ def our_kernel(slabs: Slabs, xt: np.ndarray, zt: float, zs: float) -> np.ndarray
     i, j = (int(slabs.index(np.array([z]))[0]) for z in (zt, zs))
     v = np.zeros(len(xt))
     for c, s, t0 in slabs.image_terms(i, j):
-        v += c * log_kernel_array(xt, t0 + s * zt - zs)
+        v += c * log_kernel(xt, t0 + s * zt - zs)
     zt_a = np.full(len(xt), zt)
     v += open_remainder(slabs, i, j, xt, zt_a, np.zeros(1), np.array([zs]), EXTENT_M)[:, 0]
     return v * EPS0_F_PER_M
-
-
-def log_kernel_array(x: np.ndarray, a: float) -> np.ndarray:
-    return -np.log(np.hypot(x, a)) / (2 * math.pi)
 
 
 XT = np.array([0.0, 1e-3, 5e-3, 2e-2, 0.2])
@@ -135,51 +131,41 @@ def test_line_charge_over_grounded_high_permittivity_slab(eps_r):
     assert np.abs(ours - ref).max() < 1e-6 * np.abs(ref).max(), (ours, ref)
 
 
-DEMO = Path(__file__).resolve().parents[1] / "configs" / "coplanar_tank_level.toml"
-
-
-def tank_params() -> CoplanarParams:
-    geometry = dict(tomllib.loads(DEMO.read_text())["geometry"])
-    geometry.pop("family")
-    return CoplanarParams(**geometry)
-
-
-def mutual(c) -> float:
-    """Charge drawn onto the held strips 0 and 2 by the centre strip 1 at 1 V (F/m)."""
-    return -float(c[1, 0] + c[1, 2])
-
-
 def grounded_sheet_limit(p: CoplanarParams, rel_accuracy: float) -> float:
-    """The strips under a grounded sheet on the wall's face (1 m wide: 50 device widths), the
-    medium's limit as eps_r -> inf: an equipotential tied to the back plane by its infinite
-    extent (common practice, no source; tests/test_planar_sensitivity_sign.py)."""
+    """The strips under a grounded sheet on the wall's face, the medium's limit as
+    eps_r -> inf: an equipotential tied to the back plane by its infinite extent (common
+    practice, no source; tests/test_planar_sensitivity_sign.py). The sheet is 0.1 m wide:
+    between it and the back plane the strips' field decays like exp(-pi x / 4.6 mm), 1e-12
+    at its edges (measured: a 1 m sheet solved to 1e-6 differs by 2e-5 from this one at
+    1e-5, within the two estimates' sum)."""
     base = strips_layout(p, 1.0)
     top = (p.substrate_thickness_um + p.film_thickness_um) * 1e-6
-    sheet = driven("sheet", Strip(-0.5, 0.5, top), 0.0)
+    sheet = driven("sheet", Strip(-0.05, 0.05, top), 0.0)
     shielded = dataclasses.replace(base, conductors=(*base.conductors, sheet))
     return mutual(solve_2d(shielded, rel_accuracy=rel_accuracy).capacitance_matrix_F)
 
 
 @pytest.mark.slow
 def test_tank_mutual_falls_monotonically_to_the_grounded_sheet_limit():
-    p = tank_params()
+    p = demo_params()
     eps = (80.0, 1e3, 1e4, 1e5, 1e6)
     m = [mutual(solve_2d(strips_layout(p, e), rel_accuracy=1e-5).capacitance_matrix_F) for e in eps]
     limit = grounded_sheet_limit(p, 1e-5)
     assert all(a > b for a, b in zip(m, m[1:], strict=False)), m
     assert m[-1] > limit * (1 - 3e-5), (m, limit)
-    # The excess over the limit falls like 1 / eps_r (the medium's surface charge screens the
-    # wall's field up to a factor eps_wall / eps_r): a decade of eps_r, a decade of excess.
+    # The excess over the limit falls like 1 / eps_r up to logarithms: the wall's face
+    # reflects with r = (eps_wall - eps_r)/(eps_wall + eps_r) = -1 + O(eps_wall / eps_r)
+    # (docs/references.md item 15). Measured per decade from 1e3: 6.9, 7.6, 8.1.
     excess = [v / limit - 1 for v in m]
-    for a, b in zip(excess[1:3], excess[2:4], strict=False):
-        assert 5 < a / b < 20, excess
+    for a, b in zip(excess[1:], excess[2:], strict=False):
+        assert 5 < a / b < 12, excess
 
 
 @pytest.mark.slow
 def test_tank_error_estimate_is_honest_at_high_permittivity():
     # The demo's solve at eps_r 1e4 and rel_accuracy 1e-3 (the case once reported as -0.5 pF
     # with estimate 1.14): its estimate must cover the error against a 1e-6 solve.
-    p = tank_params()
+    p = demo_params()
     loose = solve_2d(strips_layout(p, 1e4), rel_accuracy=1e-3)
     tight = solve_2d(strips_layout(p, 1e4), rel_accuracy=1e-6)
     c, ref = mutual(loose.capacitance_matrix_F), mutual(tight.capacitance_matrix_F)
