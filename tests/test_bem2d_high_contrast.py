@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 import pytest
+from scipy.integrate import quad
+from test_bem2d_kernel import kernel, spectral
 from test_planar_sensitivity_sign import demo_params, mutual
 
 from elopt.physics.bem2d import Strip, solve_2d
@@ -174,3 +176,23 @@ def test_tank_error_estimate_is_honest_at_high_permittivity():
     true = relative_change(loose.capacitance_matrix_F, tight.capacitance_matrix_F)
     assert true <= loose.rel_error_estimate <= 1e-3, (true, loose.rel_error_estimate)
     assert tight.rel_error_estimate <= 1e-6
+
+
+@pytest.mark.parametrize("eps_r", [1e3, 1e5])
+def test_open_kernel_of_high_permittivity_slab_in_vacuum(eps_r):
+    # No grounded plane: a 1 m slab of eps_r between vacuum half-spaces (its pole near k = 0
+    # at about 2 / eps_r per m). Reference: G(x1) - G(x2) = (1/pi) int g(k) (cos k x1 -
+    # cos k x2) dk by scipy's quad, with break points graded towards that pole.
+    stack = LayerStack((PlanarLayer("slab", eps_r, 0.0, 1.0),), 1.0)
+    slabs = Slabs.from_stack(stack)
+    points = list(np.geomspace(0.1 / eps_r, 50.0, 40))
+    for zt, zs in ((1.3, 1.1), (0.5, 1.2), (0.3, 0.6)):
+        for x1, x2 in ((0.0, 0.7), (0.2, 3.0)):
+
+            def f(k, zt=zt, zs=zs, x1=x1, x2=x2):
+                return spectral(slabs, k, zt, zs) * (math.cos(k * x1) - math.cos(k * x2)) / math.pi
+
+            ref = quad(f, 0, 50, points=points, limit=5000, epsabs=0, epsrel=1e-12)[0]
+            ref += quad(f, 50, math.inf, limit=2000)[0]
+            ours = kernel(slabs, x1, zt, zs, None) - kernel(slabs, x2, zt, zs, None)
+            assert ours == pytest.approx(ref, rel=1e-8)
