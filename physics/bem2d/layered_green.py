@@ -25,7 +25,10 @@ The remainder ``rho_pq = M_pq - M_inf_pq / k`` (periodic: summed over n until ex
 is below 1e-13) or ``rho~ = rho - (m_0 - M_inf) exp(-k L) / k`` (open: a Laplace transform
 F(w) = (1/pi) int rho~(k) exp(-k w) dk at w = alpha + i |x - x'|, taken along a ray rotated into
 the right half-plane, where rho~ is analytic because every |reflection product| < 1) is smooth
-and evaluated at the quadrature nodes. Nothing is truncated beyond those 1e-13 tails.
+and evaluated at the quadrature nodes. Nothing is truncated beyond those 1e-13 tails. A pole
+of k M near k = 0 (high contrast: :meth:`Slabs.near_pole`) is taken out of rho~ before that
+(:mod:`elopt.physics.bem2d.remainder`); the ray rule's first panel is never wider than the
+pole's distance from 0 (``pole_distance`` of :mod:`elopt.physics.layer_spectrum`).
 """
 
 from __future__ import annotations
@@ -37,11 +40,19 @@ from functools import cached_property
 import numpy as np
 
 from elopt.physics.errors import GeometryError
+from elopt.physics.layer_spectrum import StackSpectrum
 from elopt.physics.layout import EPS0_F_PER_M
 from elopt.physics.media import LayerStack
 
 #: Relative size of the spectral tails left out (periodic sums and ray integrals).
 TAIL = 1e-13
+#: A pole of the spectral function closer to k = 0 than this over the stack's finite
+#: thickness is taken out of the open remainder in closed form (:meth:`Slabs.near_pole`).
+POLE_NEAR = 0.01
+#: Trapezoid nodes on the circle that locates that pole, and its radius times the finite
+#: thickness (inside it k M has no other pole; Cauchy's integral is used within half of it).
+POLE_NODES = 64
+POLE_CIRCLE = 0.5
 
 #: k M at E = 0 and E = 1 by (stack key, which): they depend on the stack only.
 _LIMITS: dict[tuple, np.ndarray] = {}
@@ -56,6 +67,8 @@ class Slabs:
     top_m: np.ndarray
     eps_F_per_m: np.ndarray
     ground_plane: bool
+    #: distance (1/m) of the nearest pole of the spectral function from k = 0 (inf if none)
+    pole_distance_per_m: float = math.inf
 
     @classmethod
     def from_stack(cls, stack: LayerStack) -> Slabs:
@@ -72,7 +85,13 @@ class Slabs:
             if mid is None:
                 mid = hi - 1.0 if math.isfinite(hi) else (lo + 1.0 if math.isfinite(lo) else 0.0)
             eps.append(float(stack.eps_r_at(np.array([mid]))[0]) * EPS0_F_PER_M)
-        return cls(np.array(lows), np.array(highs), np.array(eps), bool(stack.ground_plane))
+        return cls(
+            np.array(lows),
+            np.array(highs),
+            np.array(eps),
+            bool(stack.ground_plane),
+            StackSpectrum(stack).pole_distance,
+        )
 
     @property
     def n(self) -> int:
@@ -189,6 +208,48 @@ class Slabs:
         """(L_src, L, 2, 2): k M as k -> 0 (E = 1 for the finite slabs)."""
         return self._limit("zero", np.where(np.isfinite(self.thickness_m), 1.0, 0.0)[None, :])
 
+    def near_pole(self, i: int, j: int) -> NearPole | None:
+        """The pole of ``k M`` near k = 0 for targets in slab i, sources in slab j, or None.
+
+        Between a grounded plane and a much higher permittivity, or in a slab of much higher
+        permittivity than both neighbours, the interface system is nearly singular at k = 0:
+        a simple pole at k = -delta, delta ~ 1 / (contrast * d), whose residues make the
+        m0_pq grow like the contrast while their sum stays finite, and near which ``k M`` is
+        computed with a relative error ~ 1e-16 / (k d). Taken when ``pole_distance_per_m``
+        times the finite thickness L is below POLE_NEAR, from ``k M`` on the circle
+        |k| = POLE_CIRCLE / L, where the system is well conditioned (see :class:`NearPole`).
+        """
+        cache = self.__dict__.setdefault("_poles", {})
+        if (i, j) not in cache:
+            cache[(i, j)] = self._near_pole_uncached(i, j)
+        return cache[(i, j)]
+
+    def _near_pole_uncached(self, i: int, j: int) -> NearPole | None:
+        fin = np.isfinite(self.thickness_m)
+        total = float(self.thickness_m[fin].sum())
+        if not self.pole_distance_per_m * total < POLE_NEAR:
+            return None
+        radius = POLE_CIRCLE / total
+        k = radius * np.exp(2j * math.pi * (np.arange(POLE_NODES) + 0.5) / POLE_NODES)
+        km = self.k_times_m(self.decay_factors(k), j)[:, i]  # (N, 2, 2)
+        moments = [np.mean(km * (k**m)[:, None, None], axis=0) for m in (1, 2, 3)]
+        res = moments[0]
+        big = np.unravel_index(np.argmax(np.abs(res)), res.shape)
+        if abs(res[big]) == 0.0:
+            return None
+        pole = moments[1][big] / res[big]
+        single = abs(moments[2][big] / res[big] - pole * pole) <= 1e-6 * radius**2
+        real = abs(pole.imag) <= 1e-6 * radius and -0.1 * radius < pole.real < 0.0
+        if not (single and real):
+            return None
+        out = NearPole(-float(pole.real), res.real.copy(), k, km)
+        probe = np.array([0.5 * radius])
+        direct = self.k_times_m(self.decay_factors(probe), j)[:, i]
+        check = out.regular_part(probe) + out.residue / (probe[0] + out.delta)
+        if np.abs(check - direct).max() > 1e-9 * np.abs(direct).max():
+            return None
+        return out
+
     def image_terms(self, i: int, j: int) -> list[tuple[float, int, float]]:
         """Exactly extracted log terms for targets in slab i, sources in slab j.
 
@@ -251,6 +312,31 @@ class Slabs:
         if self.ground_plane:
             return np.minimum(pt[:, None], ps[None, :])
         return -0.5 * np.abs(pt[:, None] - ps[None, :])
+
+
+@dataclass(frozen=True)
+class NearPole:
+    """k M(k) = residue / (k + delta) + regular part, near k = 0 (:meth:`Slabs.near_pole`).
+
+    ``delta`` (1/m) and ``residue`` (2, 2) come from the moments of ``circle_km`` (N, 2, 2),
+    k M on the circle ``circle_k`` (N,); the regular part inside the circle is Cauchy's
+    integral of those values, which leaves out the principal part of every pole inside
+    exactly, whatever the accuracy of delta and the residue."""
+
+    delta: float
+    residue: np.ndarray
+    circle_k: np.ndarray
+    circle_km: np.ndarray
+
+    @property
+    def radius(self) -> float:
+        return float(np.abs(self.circle_k[0]))
+
+    def regular_part(self, k: np.ndarray) -> np.ndarray:
+        """k M - residue / (k + delta) (K, 2, 2) at |k| <= radius / 2 (complex or real k)."""
+        c = self.circle_k
+        kernel = c[None, :] / (c[None, :] - np.asarray(k)[:, None]) / len(c)  # (K, N)
+        return np.einsum("kn,npq->kpq", kernel, self.circle_km)
 
 
 def octave_rule(lo: float, hi: float, per_panel: int = 12) -> tuple[np.ndarray, np.ndarray]:

@@ -3,6 +3,11 @@
 ``periodic_remainder`` sums the spectral series; ``open_remainder`` takes the Laplace transforms
 F_pq(w) along rays k = s exp(-i psi) with psi = arg(w) / 2 (rounded to one of ``RAYS`` angles),
 so that neither exp(-k w) nor the slab factors exp(-k d) oscillate faster than they decay.
+At high contrast (a grounded plane under a much higher permittivity, a slab of much higher
+permittivity than its neighbours) k M has a pole at k = -delta near 0 (:meth:`Slabs.near_pole`):
+its part R / (k + delta) is transformed in closed form (:func:`pole_transform`) and the rest is
+taken near k = 0 from Cauchy's integral, since the (p, q) parts would otherwise grow like the
+contrast and cancel in the sum.
 Both return R (T, S) in V per (C/m) at target and source points; the caller weights columns.
 """
 
@@ -12,6 +17,7 @@ import math
 
 import numba
 import numpy as np
+import scipy.special
 
 from elopt.physics.bem2d.layered_green import TAIL, Slabs, octave_rule
 
@@ -179,13 +185,19 @@ def _ray_sums(xt, ht, xs, hs, kr, wr, rho, out):  # pragma: no cover - compiled
             out[t, s] = acc
 
 
-#: Chebyshev nodes per table panel (each panel spans one unit of asinh(length / d_min)).
+#: Chebyshev nodes per table panel (each panel spans 1 / per_unit of asinh(length / d_min)).
 TABLE_NODES = 8
+#: Interpolation error of a table with panels one unit of asinh wide, relative to the
+#: largest |F_pq| (measured 2e-7; F is analytic for Re w > -2 d_min).
+TABLE_ERROR = 2e-7
+#: Distance in asinh(length / d_min) from a table's edge to F's nearest singularity.
+SINGULAR_GAP = math.asinh(2.0)
 
 
 def _ray_setup(slabs: Slabs, i: int, j: int, extent_m: float):
-    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); m0 - M_inf; L.
-    Cached on ``slabs``."""
+    """Rays (A, Q) complex nodes, weights (with 1/pi) and rho~ (A, Q, 2, 2); the far-field
+    coefficients m0 - M_inf (less the pole's R / delta); L; the pole near k = 0 (delta, R) or
+    None. Cached on ``slabs``."""
     cache = slabs.__dict__.setdefault("_spectra", {})
     key = ("open", extent_m, i, j)
     if key not in cache:
@@ -198,16 +210,38 @@ def _ray_setup_uncached(slabs: Slabs, i: int, j: int, extent_m: float):
     fin = np.isfinite(slabs.thickness_m)
     big_l = float(slabs.thickness_m[fin].sum())
     d_big = extent_m + big_l
-    s, ws = octave_rule(0.05 / d_big, 40.0 / (d_min * math.cos(math.pi / 4)))
+    first = min(0.05 / d_big, slabs.pole_distance_per_m)
+    s, ws = octave_rule(first, 40.0 / (d_min * math.cos(math.pi / 4)))
     psi = 0.25 * math.pi * np.arange(RAYS) / (RAYS - 1)
     rot = np.exp(-1j * psi)
     kr = rot[:, None] * s[None, :]
     wr = (rot[:, None] * ws[None, :]) / math.pi
     kflat = kr.ravel()
     m0 = slabs.m_zero[j, i] - slabs.m_inf[j, i]
-    rho = _rho(slabs, kflat, i, j) - m0[None] * np.exp(-kflat * big_l)[:, None, None]
+    rho = _rho(slabs, kflat, i, j)
+    pole = slabs.near_pole(i, j)
+    if pole is not None:
+        # The pole's part R exp(-(k + delta) 2 L) / (k + delta) goes to a closed form (the
+        # factor keeps the rest decaying like exp(-k 2 d_min) and leaves the residue as it
+        # is); near k = 0 the rest comes from Cauchy's integral (the interface system is too
+        # ill-conditioned there to subtract from).
+        rho = rho - pole.residue[None] * _pole_part(kflat, pole.delta, 2 * big_l)
+        inner = np.abs(kflat) <= 0.5 * pole.radius
+        k_in = np.append(kflat[inner], 0.0)
+        shift = 2 * big_l
+        x = (k_in + pole.delta) * shift
+        entire = (-np.expm1(-x) / x * shift)[:, None, None]  # (1 - e^-x) / (k + delta)
+        rest = pole.regular_part(k_in) - slabs.m_inf[j, i][None] + pole.residue[None] * entire
+        rho[inner] = rest[:-1]
+        m0 = rest[-1].real
+    rho = rho - m0[None] * np.exp(-kflat * big_l)[:, None, None]
     rho = (rho / kflat[:, None, None]).reshape(RAYS, len(s), 2, 2)
-    return kr, wr, rho, m0, big_l
+    return kr, wr, rho, m0, big_l, pole
+
+
+def _pole_part(k: np.ndarray, delta: float, shift: float) -> np.ndarray:
+    """exp(-(k + delta) shift) / (k + delta) (K, 1, 1)."""
+    return (np.exp(-(k + delta) * shift) / (k + delta))[:, None, None]
 
 
 def laplace_values(kr, wr, rho_pq, w: np.ndarray) -> np.ndarray:
@@ -242,7 +276,7 @@ def _bary(x, nodes, lam, out):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True)
-def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no cover
+def _table_sums(at, as_, dx, table, ell, per_unit, nodes, lam, upper, out):  # pragma: no cover
     m = nodes.shape[0]
     nv = table.shape[0] // m
     nu = table.shape[1] // m
@@ -250,8 +284,8 @@ def _table_sums(at, as_, dx, table, ell, nodes, lam, upper, out):  # pragma: no 
     bu = np.empty(m)
     for t in range(at.shape[0]):
         for s in range(t if upper else 0, as_.shape[0]):
-            v = math.asinh((at[t] + as_[s]) / ell)
-            u = math.asinh(abs(dx[t, s]) / ell)
+            v = per_unit * math.asinh((at[t] + as_[s]) / ell)
+            u = per_unit * math.asinh(abs(dx[t, s]) / ell)
             iv = min(int(v), nv - 1)
             iu = min(int(u), nu - 1)
             _bary(2.0 * (v - iv) - 1.0, nodes, lam, bv)
@@ -273,6 +307,39 @@ def _reciprocal(rho: np.ndarray) -> bool:
     return bool(np.allclose(rho[..., 0, 1], rho[..., 1, 0], rtol=1e-10, atol=1e-13 * scale))
 
 
+def cancellation(slabs: Slabs, i: int, j: int, m0: np.ndarray) -> float:
+    """How far the (p, q) parts of the open remainder exceed the kernel they sum to (>= 1).
+
+    Each F_pq carries about (m0_pq - M_inf_pq) / pi times a logarithm, while the kernel
+    between slabs i and j scales like 1 / (eps_i + eps_j) (the direct and transmitted
+    charges). Between a grounded plane and a much higher permittivity, or in a slab of much
+    higher permittivity than both neighbours, the k -> 0 system is nearly singular and the
+    m0_pq grow like the contrast while their sum stays finite."""
+    eps = slabs.eps_F_per_m
+    return max(1.0, float(np.abs(m0).max()) * (eps[i] + eps[j]))
+
+
+def _ellipse_ratio(per_unit: int) -> float:
+    """Bernstein ellipse ratio of a table panel 1 / per_unit wide whose nearest singularity
+    (w = -2 d_min, at asinh(-2) in the panel's variable) lies SINGULAR_GAP beyond its end."""
+    x = 1.0 + 2.0 * SINGULAR_GAP * per_unit
+    return x + math.sqrt(x * x - 1.0)
+
+
+def table_panels_per_unit(slabs: Slabs, i: int, j: int, m0: np.ndarray) -> int:
+    """Table panels per unit of asinh(length / d_min), a power of 2: one at low contrast;
+    where the (p, q) parts cancel, the fewest that keep the error against the kernel at the
+    low-contrast TABLE_ERROR (Chebyshev interpolation error ~ ellipse ratio^-TABLE_NODES)."""
+    kappa = cancellation(slabs, i, j, m0)
+    per_unit = 1
+    while per_unit < 64:
+        gain = (_ellipse_ratio(1) / _ellipse_ratio(per_unit)) ** TABLE_NODES
+        if gain * kappa <= 1.0:
+            break
+        per_unit *= 2
+    return per_unit
+
+
 def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float) -> np.ndarray:
     """Remainder of the open (non-periodic) kernel for targets in slab i, sources in slab j.
 
@@ -282,7 +349,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
     interpolated; tests compare with the direct ray sums. When the targets are the sources
     (a slab with itself, F_01 = F_10) only the upper triangle is interpolated and mirrored.
     """
-    kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
+    kr, wr, rho, m0, big_l, pole = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     xt, xs = np.asarray(xt, dtype=float), np.asarray(xs, dtype=float)
@@ -294,6 +361,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
     )
     dx = xt[:, None] - xs[None, :]
     ell = slabs.min_thickness_m
+    per_unit = table_panels_per_unit(slabs, i, j, m0)
     nodes, lam = _cheb(TABLE_NODES)
     out = np.zeros((len(xt), len(xs)))
     for p in range(2):
@@ -303,11 +371,14 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
             if not np.isfinite(hs[:, q]).all():
                 continue
             if np.any(rho[:, :, p, q]):
-                nv = max(1, math.ceil(math.asinh((ht[:, p].max() + hs[:, q].max()) / ell)))
-                nu = max(1, math.ceil(math.asinh(np.abs(dx).max() / ell)))
+                a_max = ht[:, p].max() + hs[:, q].max()
+                nv = max(1, math.ceil(per_unit * math.asinh(a_max / ell)))
+                nu = max(1, math.ceil(per_unit * math.asinh(np.abs(dx).max() / ell)))
                 v = (np.arange(nv)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
                 u = (np.arange(nu)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
-                w = (ell * np.sinh(v))[:, None] + 1j * (ell * np.sinh(u))[None, :]
+                w = (ell * np.sinh(v / per_unit))[:, None] + 1j * (ell * np.sinh(u / per_unit))[
+                    None, :
+                ]
                 table = laplace_values(kr, wr, rho[:, :, p, q], w.ravel()).real
                 _table_sums(
                     np.ascontiguousarray(ht[:, p]),
@@ -315,6 +386,7 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                     dx,
                     table.reshape(nv * TABLE_NODES, nu * TABLE_NODES),
                     ell,
+                    float(per_unit),
                     nodes,
                     lam,
                     upper,
@@ -322,17 +394,75 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
                 )
     if upper:
         out = np.triu(out) + np.triu(out, 1).T
+    _add_closed_forms(out, ht, hs, dx, m0, big_l, pole)
+    return out
+
+
+def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
+    """Add to ``out`` (T, S) the parts of the open remainder taken out of the ray integrals:
+    the far field -(m0_pq / pi) ln|W + L| and the pole near k = 0,
+    (R_pq exp(-2 delta L) / (pi delta)) Re(-ln(W + 2 L) - e^z E1(z)), z = delta (W + 2 L),
+    W = alpha_pq + i |dx| (the constant gamma + ln(delta) summed over (p, q) first)."""
+    if pole is not None:
+        delta, res = pole.delta, pole.residue
+        const = 0.0
     for p in range(2):
+        if not np.isfinite(ht[:, p]).all():
+            continue
         for q in range(2):
-            if m0[p, q] != 0.0 and np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all():
-                al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
-                out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + al * al)
+            if not np.isfinite(hs[:, q]).all():
+                continue
+            al = ht[:, p][:, None] + hs[:, q][None, :]
+            if m0[p, q] != 0.0:
+                out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + (al + big_l) ** 2)
+            if pole is not None and res[p, q] != 0.0:
+                c = res[p, q] * math.exp(-2 * delta * big_l) / delta
+                const += c
+                out += (c / math.pi) * pole_transform(delta, al + 2 * big_l + 1j * np.abs(dx))
+    if pole is not None:
+        out += (const / math.pi) * (np.euler_gamma + math.log(delta))
+
+
+def pole_transform(delta: float, w: np.ndarray) -> np.ndarray:
+    """Re of int_0^inf (1/k - 1/(k + delta)) exp(-k w) dk = Re(-ln w - e^z E1(z)), z = delta w,
+    less its value gamma + ln(delta) at w = 0 (w (T, S) complex, Re w >= 0, in m; delta in
+    1/m; the 1/k part in the far field's convention int exp(-k w) / k dk = -ln w). With
+    e^z E1(z) = e^z (-gamma - ln z + Ein(z)) (Abramowitz & Stegun 5.1.11) it is
+    (e^z - 1)(ln w + gamma + ln delta) - e^z Ein(z): of order delta |w| ln, so the (p, q)
+    parts, whose coefficients R_pq / delta grow like the contrast, no longer cancel."""
+    w = np.asarray(w, dtype=complex)
+    z = delta * w
+    em1 = np.expm1(z)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        lw = np.where(w == 0, 0.0, np.log(np.where(w == 0, 1.0, w)))
+    out = em1 * (lw + np.euler_gamma + math.log(delta)) - (em1 + 1.0) * _ein(z)
+    return out.real
+
+
+def _ein(z: np.ndarray) -> np.ndarray:
+    """Ein(z) = sum_{n>=1} (-1)^(n+1) z^n / (n n!) (entire); the series for |z| <= 1, else
+    E1(z) + ln z + gamma (scipy)."""
+    small = np.abs(z) <= 1.0
+    out = np.zeros_like(z)
+    zs = z[small]
+    if zs.size:
+        top = float(np.abs(zs).max())
+        n_terms = 1
+        while top > 0 and top ** (n_terms + 1) / math.factorial(n_terms + 1) > 1e-17:
+            n_terms += 1
+        acc = np.zeros_like(zs)
+        for n in range(n_terms, 0, -1):  # Horner in z
+            acc = zs * ((-1.0) ** (n + 1) / (n * math.factorial(n)) + acc)
+        out[small] = acc
+    zb = z[~small]
+    if zb.size:
+        out[~small] = scipy.special.exp1(zb) + np.log(zb) + np.euler_gamma
     return out
 
 
 def open_remainder_direct(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float):
     """The same remainder by direct ray sums for every pair (slow; the tests' reference)."""
-    kr, wr, rho, m0, big_l = _ray_setup(slabs, i, j, extent_m)
+    kr, wr, rho, m0, big_l, pole = _ray_setup(slabs, i, j, extent_m)
     ht = slabs.heights(zt, np.full(len(zt), i))
     hs = slabs.heights(zs, np.full(len(zs), j))
     out = np.zeros((len(xt), len(xs)))
@@ -346,11 +476,6 @@ def open_remainder_direct(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m
         np.ascontiguousarray(rho),
         out,
     )
-    dx2 = (np.asarray(xt)[:, None] - np.asarray(xs)[None, :]) ** 2
-    for p in range(2):
-        for q in range(2):
-            if m0[p, q] == 0.0 or not (np.isfinite(ht[:, p]).all() and np.isfinite(hs[:, q]).all()):
-                continue
-            al = ht[:, p][:, None] + hs[:, q][None, :] + big_l
-            out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx2 + al * al)
+    dx = np.asarray(xt, dtype=float)[:, None] - np.asarray(xs, dtype=float)[None, :]
+    _add_closed_forms(out, ht, hs, dx, m0, big_l, pole)
     return out
