@@ -39,10 +39,11 @@ from numba import njit, prange
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.layer_tables import (
+    TABLE_CACHE,
     TABLE_REL_TOL,
     RemainderTable,
     SpectralTerm,
-    build_table,
+    TableRange,
     hermite_uv,
 )
 from elopt.physics.errors import GeometryError, SolverError
@@ -300,8 +301,12 @@ class LayeredBackground:
                 placements.append(Placement(st, float(alpha), term.t_sign, term.s_sign))
         return images, placements
 
-    def _tables(self, placements, targets, sources) -> tuple[np.ndarray, np.ndarray]:
-        """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair."""
+    def _tables(
+        self, placements, targets, sources, t: int, s: int
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair
+        (targets in slab t, sources in slab s), from :data:`layer_tables.TABLE_CACHE` when a
+        kept group covers them (levels and companion solves on one stack share them)."""
         lo = np.minimum(targets.min(axis=0), sources.min(axis=0))
         hi = np.maximum(targets.max(axis=0), sources.max(axis=0))
         rho_max = float(np.hypot(*(hi[:2] - lo[:2]))) * 1.001 + 1e-12 * self.size
@@ -313,11 +318,9 @@ class LayeredBackground:
             a_lo = max(p.alpha + min(at) + min(as_), 0.0)
             a_hi = max(p.alpha + max(at) + max(as_), 0.0)
             ranges.append((a_lo, a_hi))
-        rho_scale = min(r[0] + p.term.delta for r, p in zip(ranges, placements, strict=True))
-        built = [
-            build_table(p.term, rho_max, a_lo, a_hi, self.size, self.table_rel_tol, rho_scale)
-            for p, (a_lo, a_hi) in zip(placements, ranges, strict=True)
-        ]
+        want = TableRange(rho_max, tuple(ranges), self.size, self.table_rel_tol)
+        key = (self.stack, t, s)
+        built = TABLE_CACHE.tables(key, [p.term for p in placements], want)
         self.tables = built
         nu = max(t.values.shape[0] for t in built)
         nv = max(t.values.shape[1] for t in built)
@@ -331,25 +334,31 @@ class LayeredBackground:
         return tabs, prm
 
     # -- operators -----------------------------------------------------------------------------
-    def dense_matrix(self, panels) -> np.ndarray:
+    def dense_matrix(self, panels, rows: np.ndarray | None = None) -> np.ndarray:
         """(N, N) rows at the centroids, in the units of
         :func:`elopt.physics.bem3d.operators.dense_matrix`: the single layer S on conductor
         rows; on interface rows the normal derivative K of the layered kernel times the
         permittivity of the body's slab (its direct part the homogeneous K, so the jump of a
-        sheet is sigma there), without the identity, the contrast or Gauss's diagonal."""
+        sheet is sigma there), without the identity, the contrast or Gauss's diagonal.
+
+        ``rows`` (M,): only these panels' rows, (M, N); the remainder tables are those of the
+        whole level's targets, so the rows equal those of the full matrix bit for bit.
+        """
         corners, centroids, areas, diams = panels.kernel_arrays
         nc = panels.n_conductor_panels
         normals = panels.mesh.normals
         rules = pint.rules()
-        out = np.empty((panels.n, panels.n))
+        sel = np.arange(panels.n) if rows is None else np.asarray(rows, dtype=np.int64)
+        out = np.empty((len(sel), panels.n))
         if self.kind == "two_half_spaces":
-            st = ss = self._side(centroids[:, 2])
+            st, ss = self._side(centroids[sel, 2]), self._side(centroids[:, 2])
             mirrored = _mapped(corners, centroids, 2.0 * self.z_i, -1.0)
             parts = ((corners, centroids), mirrored)
-            for rows, kind in ((np.arange(nc), "S"), (np.arange(nc, panels.n), "K")):
-                if not len(rows):
+            for pos, kind in ((np.nonzero(sel < nc)[0], "S"), (np.nonzero(sel >= nc)[0], "K")):
+                if not len(pos):
                     continue
-                tgt = np.ascontiguousarray(centroids[rows])
+                r = sel[pos]
+                tgt = np.ascontiguousarray(centroids[r])
                 if kind == "S":
                     d, m = (
                         pint.dense_potential_matrix(tgt, c, g, areas, diams, False, *rules)
@@ -357,31 +366,32 @@ class LayeredBackground:
                     )
                 else:
                     d, m = (
-                        gradient_matrix(tgt, normals[rows], c, g, areas, diams) * FOUR_PI
+                        gradient_matrix(tgt, normals[r], c, g, areas, diams) * FOUR_PI
                         for c, g in parts
                     )
                 block = np.empty(d.shape)
                 for a in (-1, 0, 1):
                     for b in (-1, 0, 1):
-                        sel = np.ix_(st[rows] == a, ss == b)
+                        cells = np.ix_(st[pos] == a, ss == b)
                         wd, wi = self._half_space_weights(a, b)
                         if kind == "K":
                             scale = (self.e_hi if a > 0 else self.e_lo) / self.eps_medium
                             wd, wi = wd * scale, wi * scale
-                        block[sel] = d[sel] * wd + m[sel] * wi
-                out[rows] = block / FOUR_PI
+                        block[cells] = d[cells] * wd + m[cells] * wi
+                out[pos] = block / FOUR_PI
             return out
         slabs = self.source_slabs(panels)
         eps = np.array([sl.eps_r for sl in self.spectrum.slabs])
-        for rows, cols, tgt, part, t, s in self._slab_pairs(panels, centroids, slabs):
-            pot = rows < nc
+        for pos, cols, tgt, part, t, s in self._slab_pairs(panels, centroids[sel], slabs[sel]):
+            span = centroids[slabs == t]
+            pot = sel[pos] < nc
             if np.any(pot):
-                block = self._block(tgt[pot], part, t, s, None)[:, 0]
-                out[np.ix_(rows[pot], cols)] = block * (self.eps_medium / FOUR_PI)
+                block = self._block(tgt[pot], part, t, s, None, span=span)[:, 0]
+                out[np.ix_(pos[pot], cols)] = block * (self.eps_medium / FOUR_PI)
             if not np.all(pot):
-                r = rows[~pot]
-                block = self._block(tgt[~pot], part, t, s, None, normals[r])[:, 0]
-                out[np.ix_(r, cols)] = block * (eps[t] / FOUR_PI)
+                r = sel[pos[~pot]]
+                block = self._block(tgt[~pot], part, t, s, None, normals[r], span=span)[:, 0]
+                out[np.ix_(pos[~pot], cols)] = block * (eps[t] / FOUR_PI)
         return out
 
     def _slab_pairs(self, panels, pts: np.ndarray, slabs: np.ndarray):
@@ -405,10 +415,12 @@ class LayeredBackground:
         s: int,
         dens: np.ndarray | None,
         dirs: np.ndarray | None = None,
+        span: np.ndarray | None = None,
     ):
         """Targets (M, 3) in slab t, panels ``part`` in slab s: the matrix (M, 1, N) of
         potential integrals (with ``dirs`` (M, 3): of their derivatives along dirs), or with
-        ``dens`` (N, K) the sums (M, 4, K)."""
+        ``dens`` (N, K) the sums (M, 4, K). The remainder tables cover the targets ``span``
+        (default ``tgt``)."""
         images, placements = self.slab_terms(t, s)
         rules = pint.rules()
         n = len(part.areas)
@@ -425,7 +437,8 @@ class LayeredBackground:
             v *= coef
             acc += v
         if placements:
-            tabs, prm = self._tables(placements, tgt, part.corners.reshape(-1, 3))
+            span = tgt if span is None else span
+            tabs, prm = self._tables(placements, span, part.corners.reshape(-1, 3), t, s)
             rules_ = source_rules(part, float(np.min(prm[:, 10])))
             factors = np.array(self.factors)
             if dens is None:
@@ -683,10 +696,14 @@ def layered_background(
     return LayeredBackground(stack, heights, float(mesh.size_m), bodies)
 
 
-def extra_dense_bytes(n_panels: int) -> int:
+def extra_dense_bytes(n_panels: int, n_rows: int | None = None) -> int:
     """Memory beyond the homogeneous dense estimate while a layered matrix is assembled: two
-    more (N, N) blocks (the block being built and one image's integrals)."""
-    return 2 * 8 * n_panels * n_panels
+    more (N, N) blocks (the block being built and one image's integrals); with ``n_rows``
+    (a mirror-reduced matrix built that many rows at a time) four (n_rows, N) blocks (the
+    rows, the block being built, one image's integrals, the remainder)."""
+    if n_rows is None:
+        return 2 * 8 * n_panels * n_panels
+    return 4 * 8 * n_rows * n_panels
 
 
 def layered_method(method: str) -> str:
