@@ -15,7 +15,13 @@ from elopt.physics.bem3d.layer_tables import (
     TableCache,
     TableRange,
 )
-from elopt.physics.bem3d.layered_green import LayeredBackground, extra_dense_bytes
+from elopt.physics.bem3d.layered_green import (
+    LayeredBackground,
+    _Part,
+    extra_dense_bytes,
+    remainder_matrix,
+    source_rules,
+)
 from elopt.physics.bem3d.operators import dense_matrix
 from elopt.physics.bem3d.panels import discretise
 from elopt.physics.bem3d.solve import estimate_memory_bytes
@@ -175,3 +181,20 @@ def test_a_kept_table_serves_covered_requests_only_and_to_the_tolerance():
     series = -(1 - r * r) * np.sum(r**n / np.hypot(rho, a + 2 * (n + 1) * d), axis=0)
     value = kept.evaluate(rho, a)[0]
     assert np.max(np.abs(value - series)) <= TABLE_REL_TOL * np.max(np.abs(series))
+
+
+def test_flat_copper_remainder_equals_the_general_rule():
+    # The bicubic table at one exponent is the cubic Hermite patch in u of its values there:
+    # copper at one height takes the collapsed 1-D patches, the same matrix to rounding.
+    panels = discretise(_key(target=False), 0)
+    bg = panels.background
+    corners, centroids, areas, diams = panels.kernel_arrays
+    (s,) = np.unique(bg.source_slabs(panels))
+    part = _Part(corners, centroids, areas, diams)
+    _, placements = bg.slab_terms(int(s), int(s))
+    tabs, prm = bg._tables(placements, centroids, corners.reshape(-1, 3), int(s), int(s))
+    rules = source_rules(part, float(np.min(prm[:, 10])))
+    factors = np.array(bg.factors)
+    general = remainder_matrix(centroids, rules, factors, tabs, prm)
+    flat = remainder_matrix(centroids, rules, factors, tabs, prm, flat=True)
+    assert np.allclose(flat, general, rtol=1e-12, atol=1e-13 * np.max(np.abs(general)))
