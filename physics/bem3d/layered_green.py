@@ -442,7 +442,7 @@ class LayeredBackground:
             rules_ = source_rules(part, float(np.min(prm[:, 10])))
             factors = np.array(self.factors)
             if dens is None:
-                flat = dirs is None and _one_height(span) and _one_height(part.corners)
+                flat = dirs is None and _one_height(part.corners)
                 rem = remainder_matrix(tgt, rules_, factors, tabs, prm, dirs, flat=flat)
                 acc += rem[:, None, :]
             else:
@@ -629,7 +629,7 @@ def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums, dirs) -> 
 
 
 def _one_height(points: np.ndarray) -> bool:
-    """Whether every point (..., 3) lies at one height (flat copper on a board face)."""
+    """Whether every point (..., 3) lies at one height (copper on a board face)."""
     z = points[..., 2]
     return bool(np.all(z == z.flat[0]))
 
@@ -670,12 +670,18 @@ def _line_value(line, prm, rho) -> float:
 
 
 @njit(cache=True, parallel=True)
-def _flat_remainder(targets, rules, factors, line, prm, amin, matrix) -> None:
-    """:func:`_remainder`'s matrix when targets and panels lie at one height each: the same
-    rule per pair (chosen by the same length), T from the collapsed 1-D patches."""
+def _flat_remainder(targets, rules, factors, tabs, prm, zs, matrix) -> None:
+    """:func:`_remainder`'s matrix for panels lying flat at one height zs: per target the
+    tables collapsed to 1-D patches at its exponents (:func:`_collapse`), then the same rule
+    per pair (chosen by the same length) with T from the patches."""
     cen, area, diam, p3, w3, p7, w7, pf, wf = rules
     for i in prange(targets.shape[0]):
-        tx, ty = targets[i, 0], targets[i, 1]
+        tx, ty, tz = targets[i, 0], targets[i, 1], targets[i, 2]
+        line = np.empty((prm.shape[0], tabs.shape[1], 2))
+        _collapse(tabs, prm, tz, zs, line)
+        amin = np.inf
+        for k in range(prm.shape[0]):
+            amin = min(amin, prm[k, 5] + prm[k, 6] * tz + prm[k, 7] * zs + prm[k, 1])
         for j in range(cen.shape[0]):
             dx = tx - cen[j, 0]
             dy = ty - cen[j, 1]
@@ -700,16 +706,12 @@ def _flat_remainder(targets, rules, factors, line, prm, amin, matrix) -> None:
 def remainder_matrix(targets, rules, factors, tabs, prm, dirs=None, flat=False) -> np.ndarray:
     """(M, N): the remainder integrated over every panel at every target (``rules`` from
     :func:`source_rules`, ``factors`` :data:`RULE_FACTORS`), or its derivative along
-    ``dirs`` (M, 3). ``flat``: every target at one height and every panel flat at one
-    height (then the tables are collapsed to 1-D patches in rho first; the same values to
-    rounding; measured 5 times faster on the demo key's copper, 1628 x 1628 pairs)."""
+    ``dirs`` (M, 3). ``flat``: every panel lies flat at one height (then the tables are
+    collapsed per target to 1-D patches in rho: the same values to rounding; measured 5
+    times faster on the demo key's copper, 1628 x 1628 pairs)."""
     out = np.empty((len(targets), len(rules[0])))
     if flat and dirs is None and len(targets) and len(rules[0]):
-        zt, zs = float(targets[0, 2]), float(rules[0][0, 2])
-        line = np.empty((prm.shape[0], tabs.shape[1], 2))
-        _collapse(tabs, prm, zt, zs, line)
-        amin = float(np.min(prm[:, 5] + prm[:, 6] * zt + prm[:, 7] * zs + prm[:, 1]))
-        _flat_remainder(targets, rules, factors, line, prm, amin, out)
+        _flat_remainder(targets, rules, factors, tabs, prm, float(rules[0][0, 2]), out)
         return out
     d = np.zeros((0, 3)) if dirs is None else np.ascontiguousarray(dirs, dtype=float)
     _remainder(targets, rules, factors, tabs, prm, np.zeros((0, 1)), out, np.zeros((0, 4, 1)), d)
