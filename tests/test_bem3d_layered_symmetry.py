@@ -7,6 +7,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from test_board_pad import ROUND
 
 from elopt.physics.bem3d import solve_3d, sphere
 from elopt.physics.bem3d.layer_tables import (
@@ -32,21 +33,8 @@ from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import DielectricRegion, LayerStack, PlanarLayer
 
-#: A small round key on a grounded board under a glass cover (invented), finger above.
-KEY = BoardPadParams(
-    pad_shape="round",
-    pad_length_mm=6.0,
-    clearance_mm=0.8,
-    pour_size_mm=12.0,
-    board_thickness_mm=1.0,
-    board_eps_r=4.4,
-    cover_thickness_mm=1.0,
-    cover_eps_r=7.0,
-    target_distance_mm=1.0,
-    drive_V=3.3,
-    target_size_mm=6.0,
-    finger_length_mm=10.0,
-)
+#: The small round key of the family's tests on a glass-epoxy board under a glass cover.
+KEY = replace(ROUND, board_eps_r=4.4, cover_eps_r=7.0)
 
 
 def _key(params: BoardPadParams = KEY, *, target: bool = True) -> Layout:

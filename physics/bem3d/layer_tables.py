@@ -216,6 +216,8 @@ def _covers(tab: RemainderTable, term: SpectralTerm, lo: float, hi: float, want:
     for it: its range holds the request, its cutoff reaches the request's, and its measured
     interpolation error is within ``rel_tol`` of the largest |T| at its nodes inside the
     request."""
+    if lo + term.delta <= 0.0:
+        return False  # no table serves it: building one gives the error
     if want.rho_max > tab.lam * math.sinh(tab.hu * (tab.values.shape[0] - 1)) * (1 + 1e-12):
         return False
     v_lo, v_hi = math.log(lo + term.delta), math.log(hi + term.delta)

@@ -574,10 +574,22 @@ def _add_point(tx, ty, tz, sx, sy, sz, w, tabs, prm, buf, res, acc) -> None:
     acc[3] += w * res[2]
 
 
+@njit(cache=True, inline="always")
+def _near_rule(length, diam, factors, rules):
+    """Points and weights of the rule for a pair ``length`` long to a panel ``diam`` wide
+    (nearer than factors[0] diameters): the 3-point, 7-point or sub-triangle rule of
+    :func:`source_rules`."""
+    if length >= factors[1] * diam:
+        return rules[3], rules[4]
+    if length >= factors[2] * diam:
+        return rules[5], rules[6]
+    return rules[7], rules[8]
+
+
 @njit(cache=True)
 def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
     """acc = remainder (value, gradient) at target t of panel j, rule chosen by the length."""
-    cen, area, diam, p3, w3, p7, w7, pf, wf = rules
+    cen, area, diam = rules[0], rules[1], rules[2]
     for c in range(4):
         acc[c] = 0.0
     dx = t[0] - cen[j, 0]
@@ -590,12 +602,7 @@ def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
         c = cen[j]
         _add_point(t[0], t[1], t[2], c[0], c[1], c[2], area[j], tabs, prm, buf, res, acc)
         return
-    if length >= factors[1] * diam[j]:
-        pts, wts = p3, w3
-    elif length >= factors[2] * diam[j]:
-        pts, wts = p7, w7
-    else:
-        pts, wts = pf, wf
+    pts, wts = _near_rule(length, diam[j], factors, rules)
     for q in range(pts.shape[1]):
         s = pts[j, q]
         _add_point(t[0], t[1], t[2], s[0], s[1], s[2], wts[j, q], tabs, prm, buf, res, acc)
@@ -674,7 +681,7 @@ def _flat_remainder(targets, rules, factors, tabs, prm, zs, matrix) -> None:
     """:func:`_remainder`'s matrix for panels lying flat at one height zs: per target the
     tables collapsed to 1-D patches at its exponents (:func:`_collapse`), then the same rule
     per pair (chosen by the same length) with T from the patches."""
-    cen, area, diam, p3, w3, p7, w7, pf, wf = rules
+    cen, area, diam = rules[0], rules[1], rules[2]
     for i in prange(targets.shape[0]):
         tx, ty, tz = targets[i, 0], targets[i, 1], targets[i, 2]
         line = np.empty((prm.shape[0], tabs.shape[1], 2))
@@ -689,12 +696,7 @@ def _flat_remainder(targets, rules, factors, tabs, prm, zs, matrix) -> None:
             if length >= factors[0] * diam[j]:
                 matrix[i, j] = area[j] * _line_value(line, prm, math.sqrt(dx * dx + dy * dy))
                 continue
-            if length >= factors[1] * diam[j]:
-                pts, wts = p3, w3
-            elif length >= factors[2] * diam[j]:
-                pts, wts = p7, w7
-            else:
-                pts, wts = pf, wf
+            pts, wts = _near_rule(length, diam[j], factors, rules)
             acc = 0.0
             for q in range(pts.shape[1]):
                 ex = tx - pts[j, q, 0]
