@@ -20,6 +20,11 @@ d2T/drho da are tabulated on a uniform grid in u = asinh(rho / lam), v = ln(a + 
 interpolated by bicubic Hermite patches (error O(h^4)). The grid is halved until the
 interpolation error measured against the integral itself at every cell centre is below
 ``rel_tol`` times the largest |T| of the table (:attr:`RemainderTable.error`).
+
+Tables depend on the stack and the ranges of rho and a only, so :data:`TABLE_CACHE` keeps them
+across refinement levels and across the solves of one design on the same stack: a kept group
+serves a request whose ranges it covers, whose cutoff it reaches and whose tolerance its
+measured error meets (:class:`TableCache`).
 """
 
 from __future__ import annotations

@@ -3,8 +3,8 @@
 When the panels of conductors in a homogeneous medium or in horizontal planar layers (and
 which conductor owns each) are unchanged by the reflection x -> -x, or y -> -y, or both, and
 every excitation is too (unit potentials per conductor: yes, when each conductor is its own
-mirror image; the applied field along z: always; the ground plane z = 0:
-always), the solution is symmetric: sigma is equal on the panels of one orbit. The collocation
+mirror image; the applied field along z: always; the ground plane z = 0: always), the
+solution is symmetric: sigma is equal on the panels of one orbit. The collocation
 equations at one panel per orbit, with the columns of each orbit summed, then give the same
 densities as the full system (dense: :func:`reduced_matrix`; compressed:
 :class:`ReducedFastOperator`), with |G| times fewer unknowns for a group G of 2 or 4
