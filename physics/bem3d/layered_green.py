@@ -452,7 +452,28 @@ class LayeredBackground:
     def potential_and_gradient(
         self, panels, dens: np.ndarray, pts: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
-        """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points."""
+        """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points.
+
+        When the panels, the densities and the points are mirror symmetric (the field
+        samples of a symmetric solve), the points of one orbit are computed once and the
+        others take their mirrored values (the kernel keeps the mirrors)."""
+        orbits = _symmetric_points(panels, dens, pts)
+        if orbits is None:
+            return self._potential_and_gradient(panels, dens, pts)
+        pot_r, grad_r = self._potential_and_gradient(panels, dens, pts[orbits.reps], pts)
+        pot = np.empty((len(pts), dens.shape[1]))
+        grad = np.empty((len(pts), 3, dens.shape[1]))
+        for img, flip in zip(orbits.images, _mirror_signs(orbits.planes), strict=True):
+            idx = img[orbits.reps]
+            pot[idx] = pot_r
+            grad[idx] = grad_r * flip[None, :, None]
+        return pot, grad
+
+    def _potential_and_gradient(
+        self, panels, dens: np.ndarray, pts: np.ndarray, span: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """As :meth:`potential_and_gradient` on every point; the remainder tables cover the
+        points ``span`` (default ``pts``)."""
         corners, centroids, areas, diams = panels.kernel_arrays
         out = np.zeros((len(pts), 4, dens.shape[1]))
         if self.kind == "two_half_spaces":
@@ -471,14 +492,43 @@ class LayeredBackground:
                     out[rows] += wd * d[rows] + wi * m[rows]
             out /= FOUR_PI
             return out[:, 0], out[:, 1:]
+        span_slabs = None if span is None else self.target_slabs(span)
         for rows, cols, tgt, part, t, s in self._slab_pairs(panels, pts, self.target_slabs(pts)):
-            out[rows] += self._block(tgt, part, t, s, np.ascontiguousarray(dens[cols]))
+            sp = None if span is None else span[span_slabs == t]
+            out[rows] += self._block(tgt, part, t, s, np.ascontiguousarray(dens[cols]), span=sp)
         out *= self.eps_medium / FOUR_PI
         return out[:, 0], out[:, 1:]
 
     def eps_r_at(self, points: np.ndarray) -> np.ndarray:
         """Background permittivity (M,) at points (M, 3) (on an interface: the value above)."""
         return self.stack.eps_r_at(np.asarray(points)[:, 2])
+
+
+def _mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
+    """Gradient signs (3,) per group element, in the order of
+    :attr:`elopt.physics.bem3d.symmetry.MirrorSymmetry.images` (identity, each plane, both)."""
+    flips = [np.ones(3)]
+    for name in planes:
+        f = np.ones(3)
+        f["xy".index(name)] = -1.0
+        flips.append(f)
+    if len(planes) == 2:
+        flips.append(flips[1] * flips[2])
+    return flips
+
+
+def _symmetric_points(panels, dens: np.ndarray, pts: np.ndarray):
+    """Orbits of the points under the panels' mirror symmetry when the densities (N, K) are
+    the same on every orbit and the points (M, 3) map onto themselves, else None."""
+    from elopt.physics.bem3d.symmetry import mirror_symmetry, point_orbits
+
+    sym = mirror_symmetry(panels)
+    if sym is None or len(pts) < 2:
+        return None
+    tol = 1e-12 * float(np.max(np.abs(dens)))
+    if any(np.max(np.abs(dens[img] - dens)) > tol for img in sym.images[1:]):
+        return None
+    return point_orbits(pts, sym.planes, panels.mesh.size_m)
 
 
 def _split_bary(m: int) -> np.ndarray:
