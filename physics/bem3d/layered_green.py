@@ -20,7 +20,14 @@ source panel mapped to z* = t_ref - t_sign s_sign (z' - s_ref) (a mirror in a sl
 the source itself for the direct and the transmitted terms), integrated over the panel by the
 closed-form / Gauss rules of :mod:`.panel_integrals`. The smooth remainder coef - limit is
 tabulated in (rho, a) by :mod:`.layer_tables` and integrated over each panel by a rule chosen
-from its length (:data:`RULE_FACTORS`).
+from its length (:data:`RULE_FACTORS`). Panels lying flat at one height (copper on a board
+face) take the tables collapsed per target to 1-D patches in rho (:func:`_collapse`); the
+tables are kept across levels and solves of one stack (``layer_tables.TABLE_CACHE``).
+
+*Mirror symmetry*: the kernel depends on the horizontal distance and the two heights only, so
+a level symmetric in x = 0 and / or y = 0 is solved on one panel per orbit
+(:mod:`.symmetry`), its rows assembled by :meth:`LayeredBackground.dense_matrix` a block at a
+time, and fields at symmetric points of symmetric densities are computed once per orbit.
 
 *Dielectric bodies* (:mod:`.bodies`) lie strictly inside one slab (or one half-space). Their
 rows (:meth:`LayeredBackground.dense_matrix`) are the normal derivative of the same kernel:
