@@ -7,7 +7,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
-from test_board_pad import ROUND
+from test_board_pad import RECT, ROUND
 
 from elopt.physics.bem3d import solve_3d, sphere
 from elopt.physics.bem3d.layer_tables import (
@@ -212,3 +212,20 @@ def test_fields_at_mirror_symmetric_points_are_computed_once_per_orbit():
             strict=True,
         )
     )
+
+
+@pytest.mark.parametrize(
+    ("params", "planes"),
+    [
+        (KEY, ("x", "y")),
+        (replace(RECT, target_kind="finger", finger_length_mm=10.0), ("x", "y")),
+        (replace(RECT, target_offset_mm=1.0), ("y",)),
+    ],
+)
+def test_board_pad_meshes_are_mirror_symmetric_at_every_level(params, planes):
+    # Round copper and fingers are rings mirrored from one quarter; a hatched pour has a
+    # node on each axis; a target off the axis along x keeps only the y mirror.
+    layout = _key(params)
+    for level in (0, 1):
+        sym = mirror_symmetry(discretise(layout, level, check=False))
+        assert sym is not None and sym.planes == planes
