@@ -51,6 +51,7 @@ from elopt.physics.bem3d.layer_tables import (
     RemainderTable,
     SpectralTerm,
     TableRange,
+    build_tables,
     hermite_uv,
 )
 from elopt.physics.errors import GeometryError, SolverError
@@ -309,11 +310,12 @@ class LayeredBackground:
         return images, placements
 
     def _tables(
-        self, placements, targets, sources, t: int, s: int
+        self, placements, targets, sources, t: int | None = None, s: int | None = None
     ) -> tuple[np.ndarray, np.ndarray]:
         """Tables (T, NU, NV, 4) and parameters (T, 11) covering every target-source pair
         (targets in slab t, sources in slab s), from :data:`layer_tables.TABLE_CACHE` when a
-        kept group covers them (levels and companion solves on one stack share them)."""
+        kept group covers them (levels and companion solves on one stack share them; without
+        the slabs t and s they are built afresh)."""
         lo = np.minimum(targets.min(axis=0), sources.min(axis=0))
         hi = np.maximum(targets.max(axis=0), sources.max(axis=0))
         rho_max = float(np.hypot(*(hi[:2] - lo[:2]))) * 1.001 + 1e-12 * self.size
@@ -326,8 +328,11 @@ class LayeredBackground:
             a_hi = max(p.alpha + max(at) + max(as_), 0.0)
             ranges.append((a_lo, a_hi))
         want = TableRange(rho_max, tuple(ranges), self.size, self.table_rel_tol)
-        key = (self.stack, t, s)
-        built = TABLE_CACHE.tables(key, [p.term for p in placements], want)
+        terms = [p.term for p in placements]
+        if t is None or s is None:
+            built = build_tables(terms, want)
+        else:
+            built = TABLE_CACHE.tables((self.stack, t, s), terms, want)
         self.tables = built
         nu = max(t.values.shape[0] for t in built)
         nv = max(t.values.shape[1] for t in built)
