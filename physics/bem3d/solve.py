@@ -66,10 +66,12 @@ from elopt.physics.bem3d.operators import (
 from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
 from elopt.physics.bem3d.symmetry import (
+    ROWS,
     MirrorSymmetry,
     ReducedFastOperator,
     mirror_symmetry,
     reduced_matrix,
+    symmetry_refusal,
 )
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
@@ -284,7 +286,9 @@ def solve_3d(
     ``symmetry`` lets a level whose panels are mirror symmetric in x and/or y be solved on one
     panel per orbit (conductors only, see :mod:`.symmetry`).
     Planar layers (``layout.layers``) enter through the layered Green's function of
-    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
+    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused), on
+    one panel per orbit when symmetric (the reduced matrix assembled a block of rows at a
+    time).
     """
     opts = make_options(options, overrides)
     _map_large_arrays()
@@ -328,9 +332,11 @@ def solve_3d(
             return result
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
+        note = f"{chosen} solve"
         if panels.background is not None:
-            need += extra_dense_bytes(panels.n)
-        note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
+            need += extra_dense_bytes(panels.n, None if sym is None else min(ROWS, n_solved))
+            refused = symmetry_refusal(panels) if symmetry else None
+            note += ", planar layers" + (f" ({refused})" if refused else "")
         return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by
