@@ -37,7 +37,7 @@ from the previous level's densities and preconditioned by an incomplete LU of th
 memory a level needs is estimated before anything is allocated, and refused with the
 numbers when it exceeds what the machine has.
 
-With planar layers (:mod:`.layered_green`, dense path) G is the stack's Green's function and
+With planar layers (:mod:`.layered_green`; compressed by :mod:`.hmatrix_layered`) G is the stack's Green's function and
 every panel's sigma radiates as a charge in the slab eps_slab it lies in: a body's rows keep
 the form above with K the layered kernel's normal derivative times eps_slab (bodies lie
 strictly inside one slab), and a conductor's free charge is (eps_f / eps_slab) sigma.
@@ -54,6 +54,7 @@ import scipy.linalg
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d.bodies import region_surfaces
+from elopt.physics.bem3d.hmatrix_layered import LayeredFastOperator, layered_fast_bytes
 from elopt.physics.bem3d.layered_green import extra_dense_bytes, layered_method
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
@@ -105,6 +106,8 @@ def estimate_memory_bytes(
     if method == "dense":
         r = n if n_reduced is None else n_reduced
         return base + 8 * r * r
+    if panels.background is not None:
+        return base + layered_fast_bytes(panels)
     _, centroids, _, diams = panels.kernel_arrays
     rng = np.random.default_rng(0)
     sample = rng.choice(n, size=min(n, 2000), replace=False)
@@ -170,7 +173,9 @@ def solve_level(
             x = scipy.linalg.lu_solve(lu, rhs[symmetry.reps], check_finite=False)[symmetry.orbit]
         stats.solve_s = time.perf_counter() - t1
     else:
-        if symmetry is None:
+        if panels.background is not None:
+            op = LayeredFastOperator(panels, tol=aca_tol)
+        elif symmetry is None:
             op = FastOperator(panels, tol=aca_tol)
         else:
             op = ReducedFastOperator(panels, symmetry, tol=aca_tol)
@@ -254,7 +259,8 @@ def solve_3d(
     panel per orbit ("auto" then compares the orbit count with the dense limit; conductors
     only, see :mod:`.symmetry`).
     Planar layers (``layout.layers``) enter through the layered Green's function of
-    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
+    :mod:`.layered_green`, compressed by :mod:`.hmatrix_layered` on fast levels (with
+    dielectric bodies such levels are solved densely; ``method="fast"`` is refused).
     """
     opts = make_options(options, overrides)
     if method not in ("auto", "dense", "fast"):
@@ -279,7 +285,9 @@ def solve_3d(
         if method == "auto":
             chosen = "dense" if n_solved <= DENSE_MAX_PANELS else "fast"
         if panels.background is not None:
-            chosen = layered_method(method)
+            chosen = layered_method(method, chosen, panels.n_conductor_panels < panels.n)
+            if chosen == "fast":
+                sym, n_solved = None, panels.n
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             return solve_level(
@@ -293,7 +301,7 @@ def solve_3d(
             )
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
-        if panels.background is not None:
+        if panels.background is not None and chosen == "dense":
             need += extra_dense_bytes(panels.n)
         note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
         return LevelPlan(level, panels.n, need, note, run)
