@@ -59,6 +59,8 @@ from elopt.physics.bem3d.operators import (
 from elopt.physics.errors import SolverError
 
 FOUR_PI = 4.0 * math.pi
+#: Neighbours within this many panel sizes measure how much of a part is stored densely.
+NEAR_SHARE_FACTOR = 8.0
 
 
 @dataclass(frozen=True)
@@ -310,12 +312,17 @@ class RemainderPart:
 
 
 def kernel_parts(
-    bg: LayeredBackground, panels, pts: np.ndarray, slabs: np.ndarray | None = None
+    bg: LayeredBackground,
+    panels,
+    pts: np.ndarray,
+    slabs: np.ndarray | None = None,
+    tables: bool = True,
 ) -> list[ImagePart | RemainderPart]:
     """The parts whose weighted sum is the layered potential integral (as
     :meth:`LayeredBackground.potential_and_gradient`, times eps_medium / 4 pi) at ``pts``
     (M, 3). ``slabs`` (M,): the target slab of each point (default: where it lies; the
-    collocation rows pass their panels' slabs)."""
+    collocation rows pass their panels' slabs). Without ``tables`` the remainder parts carry
+    no tables (for estimates)."""
     corners, centroids, areas, diams = panels.kernel_arrays
     parts: list[ImagePart | RemainderPart] = []
     if bg.kind == "two_half_spaces":
@@ -338,7 +345,11 @@ def kernel_parts(
         for coef, (c, m) in _distinct_images(images, part):
             parts.append(ImagePart(rows, cols, coef * bg.eps_medium, c, m))
         if placements:
-            tabs, prm = bg._tables(placements, tgt, part.corners.reshape(-1, 3))
+            tabs, prm = (
+                bg._tables(placements, tgt, part.corners.reshape(-1, 3))
+                if tables
+                else (None, None)
+            )
             parts.append(RemainderPart(rows, cols, bg.eps_medium / FOUR_PI, tabs, prm))
     return parts
 
@@ -396,6 +407,22 @@ class LayeredHMatrix:
         return out
 
 
+def compressed_integrals(
+    panels, dens: np.ndarray, pts: np.ndarray, tol: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points
+    (M, 3) as :meth:`LayeredBackground.potential_and_gradient`, by :class:`LayeredHMatrix`
+    (relative tolerance ``tol`` per block)."""
+    m, k = len(pts), dens.shape[1]
+    out = np.empty((m, 4, k))
+    for c, dirs in enumerate([None, *(np.tile(e, (m, 1)) for e in np.eye(3))]):
+        h = LayeredHMatrix(panels, tol=tol, targets=pts, directions=dirs)
+        for q in range(k):
+            out[:, c, q] = h.matvec(dens[:, q])
+        del h
+    return out[:, 0], out[:, 1:]
+
+
 def layered_near_matrix(panels, near_factor: float) -> sp.csr_matrix:
     """Sparse (N, N) of the accurate image entries of the conductor rows for pairs whose
     (mapped) panel lies within ``near_factor`` diameters (the remainder, smooth, is left
@@ -446,7 +473,33 @@ class LayeredFastOperator(FastOperator):
 
 
 def layered_fast_bytes(panels) -> int:
-    """Bytes of :class:`LayeredFastOperator` for ``panels`` (estimated before it is built)."""
+    """Bytes of :class:`LayeredFastOperator` for ``panels``, estimated before it is built.
+
+    Per kernel part with R target rows and C source panels, as the homogeneous estimate of
+    :func:`elopt.physics.bem3d.solve.estimate_memory_bytes` (5 kB of near blocks per row, 0.5
+    kB per tree level of low-rank factors): the near blocks scaled by how many of a sample of
+    targets' near neighbours (within :data:`NEAR_SHARE_FACTOR` panel sizes) the part's
+    (mapped) panels give, relative to the unmapped panels (an image far from every target
+    has none), and the factors by (R + C) / 2; the preconditioner by its near pairs.
+    """
+    bg = panels.background
+    _, centroids, _, diams = panels.kernel_arrays
     n = panels.n
     levels = max(1.0, math.log2(max(n, 64) / 32.0))
-    return int(4 * n * (5000 + 500 * levels))
+    slabs = None if bg.kind == "two_half_spaces" else bg.source_slabs(panels)
+    rng = np.random.default_rng(0)
+    total = 0.0
+    for p in kernel_parts(bg, panels, centroids, slabs, tables=False):
+        pick = p.rows[rng.choice(len(p.rows), size=min(len(p.rows), 500), replace=False)]
+        tgt = centroids[pick]
+        own, _ = near_pairs(tgt, centroids[p.cols], NEAR_SHARE_FACTOR * diams[p.cols])
+        share, pre = 1.0, 0.0
+        if isinstance(p, ImagePart):
+            mine, _ = near_pairs(tgt, p.centroids, NEAR_SHARE_FACTOR * diams[p.cols])
+            share = len(mine) / max(len(own), 1)
+            ti, _ = near_pairs(tgt, p.centroids, PRECONDITIONER_FACTOR * diams[p.cols])
+            pre = len(ti) * len(p.rows) / len(pick)
+        rows = len(p.rows)
+        total += rows * share * 5000 + 0.5 * (rows + len(p.cols)) * 500 * levels
+        total += pre * (56 + 12 * 6)
+    return int(total)
