@@ -16,7 +16,7 @@ from elopt.physics.bem3d.mesh import TriangleMesh
 from elopt.physics.bem3d.operators import dense_matrix
 from elopt.physics.bem3d.panels import PanelSet, discretise
 from elopt.physics.bem_axi.solve import solve_axisymmetric
-from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.errors import GeometryError
 from elopt.physics.geometry import Arc, Curve
 from elopt.physics.layout import EPS0_F_PER_M as EPS0
 from elopt.physics.layout import Layout, driven

@@ -116,6 +116,8 @@ def test_memory_estimate_bounds_the_stored_operator(operator_pair):
 
 
 def test_a_level_that_does_not_fit_is_refused_in_one_line():
-    with pytest.raises(SolverError, match="would need about .* fast solve, planar layers") as info:
+    with pytest.raises(
+        SolverError, match=r"would need about .*\(fast solve, planar layers\)"
+    ) as info:
         solve_3d(_pad_layout(), max_level=0, method="fast", memory_limit_bytes=10**6, strict=False)
     assert "\n" not in str(info.value)

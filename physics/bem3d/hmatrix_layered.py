@@ -335,9 +335,7 @@ def kernel_parts(
                 wd, wi = bg._half_space_weights(int(a), int(b))
                 parts.append(ImagePart(rows, cols, wd, corners[cols], centroids[cols]))
                 if wi != 0.0:
-                    parts.append(
-                        ImagePart(rows, cols, wi, mirrored[0][cols], mirrored[1][cols])
-                    )
+                    parts.append(ImagePart(rows, cols, wi, mirrored[0][cols], mirrored[1][cols]))
         return parts
     slabs = bg.target_slabs(pts) if slabs is None else slabs
     for rows, cols, tgt, part, t, s in bg._slab_pairs(panels, pts, slabs):
@@ -346,9 +344,7 @@ def kernel_parts(
             parts.append(ImagePart(rows, cols, coef * bg.eps_medium, c, m))
         if placements:
             tabs, prm = (
-                bg._tables(placements, tgt, part.corners.reshape(-1, 3))
-                if tables
-                else (None, None)
+                bg._tables(placements, tgt, part.corners.reshape(-1, 3)) if tables else (None, None)
             )
             parts.append(RemainderPart(rows, cols, bg.eps_medium / FOUR_PI, tabs, prm))
     return parts
@@ -378,9 +374,7 @@ class LayeredHMatrix:
         for p in kernel_parts(bg, panels, pts, slabs):
             dirs = None if directions is None else directions[p.rows]
             if isinstance(p, ImagePart):
-                src = _Sources(
-                    (p.corners, p.centroids, areas[p.cols], diams[p.cols]), len(p.cols)
-                )
+                src = _Sources((p.corners, p.centroids, areas[p.cols], diams[p.cols]), len(p.cols))
                 h = HMatrix(src, tol=tol, targets=pts[p.rows], directions=dirs)
             else:
                 c, g, a, d = (arr[p.cols] for arr in panels.kernel_arrays)
