@@ -4,13 +4,12 @@ memory estimate, and method selection."""
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
+from test_bem3d_layers import BOARD, BOARD_STACK, E_LO, HALF, PAD_R
 
 from elopt.physics import geometry as geo
-from elopt.physics.bem3d import revolved_layout, solve_3d
+from elopt.physics.bem3d import revolved_layout, solve_3d, sphere
 from elopt.physics.bem3d.hmatrix_layered import LayeredFastOperator, layered_fast_bytes
 from elopt.physics.bem3d.operators import SolveStats, dense_matrix
 from elopt.physics.bem3d.panels import discretise
@@ -18,20 +17,12 @@ from elopt.physics.bem3d.solve import DENSE_MAX_PANELS, estimate_memory_bytes
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import EPS0_F_PER_M as EPS0
 from elopt.physics.layout import Layout, driven
-from elopt.physics.media import PlanarLayer
 
-E_LO = 4.0
-HALF = (PlanarLayer("lower", E_LO, -math.inf, 0.0),)
-# A pad on a board over a ground plane under an air gap and a cover (as test_bem3d_layers).
-BOARD, AIR, COVER, PAD_R = 2.0**-9, 2.0**-11, 2.0**-9, 2.0**-7
-BOARD_STACK = (
-    PlanarLayer("board", 4.4, 0.0, BOARD),
-    PlanarLayer("cover", 3.0, BOARD + AIR, BOARD + AIR + COVER),
-)
 TOL = 1e-5
 
 
 def _pad_layout() -> Layout:
+    # a pad on a board over a ground plane under an air gap and a cover, as test_bem3d_layers
     pad = Layout(
         (driven("pad", geo.disk(PAD_R, BOARD), 1.0),), ground_plane=True, layers=BOARD_STACK
     )
@@ -39,8 +30,6 @@ def _pad_layout() -> Layout:
 
 
 def _ball_layout() -> Layout:
-    from elopt.physics.bem3d import sphere
-
     return Layout((driven("ball", sphere(0.5, (0.2, -0.1, 0.7)), 1.0),), layers=HALF)
 
 

@@ -14,6 +14,7 @@ import numpy as np
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.hmatrix_layered import compressed_integrals
 from elopt.physics.bem3d.operators import FOUR_PI
 from elopt.physics.bem3d.panels import PanelSet
 
@@ -53,6 +54,8 @@ def directional_derivative(
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
     dirs = np.ascontiguousarray(directions, dtype=float)
     dens = _columns(density)
+    if panels.background is not None and len(pts) * panels.n > DIRECT_PAIRS:
+        return compressed_integrals(panels, dens, pts, EVAL_TOL, dirs)
     if panels.background is not None or len(pts) * panels.n <= DIRECT_PAIRS:
         _, grad = _direct(panels, dens, pts)
         return np.einsum("mck,mc->mk", grad, dirs)

@@ -402,18 +402,24 @@ class LayeredHMatrix:
 
 
 def compressed_integrals(
-    panels, dens: np.ndarray, pts: np.ndarray, tol: float
-) -> tuple[np.ndarray, np.ndarray]:
+    panels, dens: np.ndarray, pts: np.ndarray, tol: float, directions: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray] | np.ndarray:
     """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points
     (M, 3) as :meth:`LayeredBackground.potential_and_gradient`, by :class:`LayeredHMatrix`
-    (relative tolerance ``tol`` per block)."""
+    (relative tolerance ``tol`` per block); with ``directions`` (M, 3) only the derivatives
+    along them (M, K)."""
     m, k = len(pts), dens.shape[1]
-    out = np.empty((m, 4, k))
-    for c, dirs in enumerate([None, *(np.tile(e, (m, 1)) for e in np.eye(3))]):
+    wanted = (
+        [None, *(np.tile(e, (m, 1)) for e in np.eye(3))] if directions is None else [directions]
+    )
+    out = np.empty((m, len(wanted), k))
+    for c, dirs in enumerate(wanted):
         h = LayeredHMatrix(panels, tol=tol, targets=pts, directions=dirs)
         for q in range(k):
             out[:, c, q] = h.matvec(dens[:, q])
         del h
+    if directions is not None:
+        return out[:, 0]
     return out[:, 0], out[:, 1:]
 
 
