@@ -3,9 +3,10 @@
 sum_j density_j * (1/4 pi) integral_j dA'/|x - x'| (minus the image panels' share when a
 ground plane is present) and its gradient, for K densities at once. Small problems are summed
 directly, every pair with the distance-chosen rule of :mod:`.panel_integrals`; large ones
-through hierarchical matrices of the same entries (:mod:`.hmatrix`). Points closer to a panel
-than a few panel sizes always get the closed form, so points just off a surface (one-sided
-limits) are exact for the discrete density.
+through hierarchical matrices of the same entries (:mod:`.hmatrix`; with planar layers
+:mod:`.hmatrix_layered`). Points closer to a panel than a few panel sizes always get the
+closed form, so points just off a surface (one-sided limits) are exact for the discrete
+density.
 """
 
 from __future__ import annotations
@@ -36,6 +37,8 @@ def potential_and_gradient(
     if m == 0:
         return np.zeros((0, k)), np.zeros((0, 3, k))
     if panels.background is not None:  # planar layers: the layered Green's function
+        if m * panels.n > DIRECT_PAIRS:
+            return compressed_integrals(panels, dens, pts, EVAL_TOL)
         return panels.background.potential_and_gradient(panels, dens, pts)
     if m * panels.n <= DIRECT_PAIRS:
         return _direct(panels, dens, pts)

@@ -438,13 +438,7 @@ class LayeredBackground:
     def potential_and_gradient(
         self, panels, dens: np.ndarray, pts: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
-        """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points
-        (compressed, :mod:`.hmatrix_layered`, above the direct path's number of pairs)."""
-        from elopt.physics.bem3d.evaluate import DIRECT_PAIRS, EVAL_TOL
-        from elopt.physics.bem3d.hmatrix_layered import compressed_integrals
-
-        if len(pts) * panels.n > DIRECT_PAIRS:
-            return compressed_integrals(panels, dens, pts, EVAL_TOL)
+        """Potential integrals (M, K) and gradients (M, 3, K) of densities (N, K) at points."""
         corners, centroids, areas, diams = panels.kernel_arrays
         out = np.zeros((len(pts), 4, dens.shape[1]))
         if self.kind == "two_half_spaces":

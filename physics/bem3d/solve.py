@@ -37,10 +37,11 @@ from the previous level's densities and preconditioned by an incomplete LU of th
 memory a level needs is estimated before anything is allocated, and refused with the
 numbers when it exceeds what the machine has.
 
-With planar layers (:mod:`.layered_green`; compressed by :mod:`.hmatrix_layered`) G is the stack's Green's function and
-every panel's sigma radiates as a charge in the slab eps_slab it lies in: a body's rows keep
-the form above with K the layered kernel's normal derivative times eps_slab (bodies lie
-strictly inside one slab), and a conductor's free charge is (eps_f / eps_slab) sigma.
+With planar layers (:mod:`.layered_green`; compressed by :mod:`.hmatrix_layered`) G is the
+stack's Green's function and every panel's sigma radiates as a charge in the slab eps_slab it
+lies in: a body's rows keep the form above with K the layered kernel's normal derivative
+times eps_slab (bodies lie strictly inside one slab), and a conductor's free charge is
+(eps_f / eps_slab) sigma.
 """
 
 from __future__ import annotations
