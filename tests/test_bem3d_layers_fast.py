@@ -116,6 +116,7 @@ def test_a_level_that_does_not_fit_is_refused_in_one_line():
     assert "\n" not in str(info.value)
 
 
+@pytest.mark.slow
 def test_compressed_evaluation_agrees_with_the_direct_sums():
     # Self-consistency (common practice, no source): points just off both faces of the pad
     # (where the pad's own image on the board face is nearest) and above it; the compressed
