@@ -318,9 +318,9 @@ def kernel_parts(
     slabs: np.ndarray | None = None,
     tables: bool = True,
 ) -> list[ImagePart | RemainderPart]:
-    """The parts whose weighted sum is the layered potential integral (as
-    :meth:`LayeredBackground.potential_and_gradient`, times eps_medium / 4 pi) at ``pts``
-    (M, 3). ``slabs`` (M,): the target slab of each point (default: where it lies; the
+    """The parts whose weighted sum is the layered potential integral at ``pts`` (M, 3) in
+    the units of :meth:`LayeredBackground.potential_and_gradient` (the image parts' entries
+    being :class:`HMatrix`'s, the remainder's those of its tables). ``slabs`` (M,): the target slab of each point (default: where it lies; the
     collocation rows pass their panels' slabs). Without ``tables`` the remainder parts carry
     no tables (for estimates)."""
     corners, centroids, areas, diams = panels.kernel_arrays
@@ -352,8 +352,8 @@ def kernel_parts(
 
 class LayeredHMatrix:
     """The (M, N) layered matrix at ``targets`` (M, 3) (the derivative along ``directions``
-    (M, 3)) in the units of :class:`HMatrix` times eps_medium: the weighted sum of one
-    compressed matrix per kernel part. Products as :class:`HMatrix`."""
+    (M, 3)) in the units of :meth:`LayeredBackground.dense_matrix`: the weighted sum of one
+    compressed matrix per kernel part (:func:`kernel_parts`). Products as :class:`HMatrix`."""
 
     def __init__(
         self,
