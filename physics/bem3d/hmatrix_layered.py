@@ -12,7 +12,9 @@ machinery of the homogeneous fast path:
   is one admissible block of low rank;
 - the remainder part (:class:`RemainderHMatrix`) is compressed the same way (cluster trees,
   the same admissibility, ACA with SVD recompression), its entries the compiled table lookup
-  of :mod:`.layered_green` with the same length-chosen rules as the dense path.
+  of :mod:`.layered_green` with the same length-chosen rules as the dense path; its blocks
+  are stored as sparse matrices (products by scipy), which depends on nothing of
+  :class:`HMatrix`'s storage.
 
 The operator is the weighted sum of the parts over every (target slab, source slab) pair, so
 it approximates exactly the dense layered matrix, to the compression tolerance. Conductor rows
@@ -25,7 +27,6 @@ import math
 import time
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 import scipy.sparse as sp
 from numba import njit, prange
@@ -37,7 +38,6 @@ from elopt.physics.bem3d.hmatrix import (
     MAX_RANK,
     HMatrix,
     _batches,
-    _chunks,
     _partition,
     _recompress,
     cluster_tree,
@@ -209,12 +209,57 @@ def _remainder_far(
         )  # fmt: skip
 
 
-class RemainderHMatrix(HMatrix):
+@njit(cache=True)
+def _block_entries(blocks, ranks, t_start, t_end, s_start, s_end, t_perm, s_perm):
+    """Row and column indices of stored entries, in their storage order: without ``ranks``
+    (empty) the dense blocks (row-major); else the factors U (m, r) of every block, then its
+    V (r, n), the rank index counted over all blocks."""
+    low = ranks.shape[0] > 0
+    n_u = 0
+    n_v = 0
+    for b in range(blocks.shape[0]):
+        m = t_end[blocks[b, 0]] - t_start[blocks[b, 0]]
+        n = s_end[blocks[b, 1]] - s_start[blocks[b, 1]]
+        r = ranks[b] if low else n
+        n_u += m * r
+        n_v += r * n if low else 0
+    ur = np.empty(n_u, np.int64)
+    uc = np.empty(n_u, np.int64)
+    vr = np.empty(n_v, np.int64)
+    vc = np.empty(n_v, np.int64)
+    ku = 0
+    kv = 0
+    base = 0
+    for b in range(blocks.shape[0]):
+        t = blocks[b, 0]
+        s = blocks[b, 1]
+        r = ranks[b] if low else 0
+        for i in range(t_start[t], t_end[t]):
+            if low:
+                for q in range(r):
+                    ur[ku] = t_perm[i]
+                    uc[ku] = base + q
+                    ku += 1
+            else:
+                for j in range(s_start[s], s_end[s]):
+                    ur[ku] = t_perm[i]
+                    uc[ku] = s_perm[j]
+                    ku += 1
+        for q in range(r):
+            for j in range(s_start[s], s_end[s]):
+                vr[kv] = base + q
+                vc[kv] = s_perm[j]
+                kv += 1
+        base += r
+    return ur, uc, vr, vc
+
+
+class RemainderHMatrix:
     """The (M, N) matrix of the tabulated remainder at ``targets`` (M, 3) (its derivative
-    along ``directions`` (M, 3)) of the panels ``part``, compressed as :class:`HMatrix`
-    (same trees, admissibility, ACA and storage; the product and its transpose are
-    inherited). Entries are those of :func:`elopt.physics.bem3d.layered_green.
-    remainder_matrix` (not divided by 4 pi)."""
+    along ``directions`` (M, 3)) of the panels ``part``, compressed as :class:`HMatrix` (same
+    trees, admissibility, ACA with SVD recompression). Entries are those of
+    :func:`elopt.physics.bem3d.layered_green.remainder_matrix` (not divided by 4 pi). The
+    dense blocks are kept as one sparse matrix, the low-rank factors as two (float32)."""
 
     def __init__(
         self,
@@ -231,60 +276,61 @@ class RemainderHMatrix(HMatrix):
         pts = np.ascontiguousarray(targets, dtype=float)
         deriv = directions is not None
         dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
-        self.n = len(part.areas)
-        self.m = len(pts)
-        self.tol = tol
+        n, m = len(part.areas), len(pts)
         tt = cluster_tree(pts, pts, pts, LEAF)
         src = cluster_tree(part.centroids, part.corners.min(axis=1), part.corners.max(axis=1), LEAF)
-        self.targets, self.sources = tt, src
         tsz, ssz = tt.end - tt.start, src.end - src.start
         far, near = _partition(tt.lo, tt.hi, tt.child, tsz, src.lo, src.hi, src.child, ssz, ETA)
-        near = near[np.lexsort((near[:, 1], tt.start[near[:, 0]]))]
-        far = far[np.lexsort((far[:, 1], tt.start[far[:, 0]]))]
         rules = source_rules(part, float(np.min(prm[:, 10])))
         rules = tuple(np.ascontiguousarray(r[src.perm]) for r in rules)
         pts = np.ascontiguousarray(pts[tt.perm])
         if deriv:
             dirs = np.ascontiguousarray(dirs[tt.perm])
         kernel = (pts, dirs, deriv, rules, factors, tabs, prm)
-        sizes = tsz[near[:, 0]] * ssz[near[:, 1]]
-        self.near_blocks = near
-        self.near_off = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-        self.near_vals = _remainder_near(
-            near, tt.start, tt.end, src.start, src.end, self.near_off, *kernel
-        )
+        trees = (tt.start, tt.end, src.start, src.end)
+        offsets = np.concatenate([[0], np.cumsum(tsz[near[:, 0]] * ssz[near[:, 1]])])
+        vals = _remainder_near(near, *trees, offsets.astype(np.int64), *kernel)
+        none = np.zeros(0, np.int64)
+        rows, cols, _, _ = _block_entries(near, none, *trees, tt.perm, src.perm)
+        self.near = sp.csr_matrix((vals, (rows, cols)), shape=(m, n))
         self.time_near_s = time.perf_counter() - t0
         us, vs, ranks = [], [], []
         for b0, b1 in _batches(far, tsz, ssz):
             blk = far[b0:b1]
-            m, n = tsz[blk[:, 0]], ssz[blk[:, 1]]
-            kmax = np.minimum(np.minimum(m, n), MAX_RANK)
-            uoff = np.concatenate([[0], np.cumsum(m * kmax)]).astype(np.int64)
-            voff = np.concatenate([[0], np.cumsum(n * kmax)]).astype(np.int64)
+            bm, bn = tsz[blk[:, 0]], ssz[blk[:, 1]]
+            kmax = np.minimum(np.minimum(bm, bn), MAX_RANK)
+            uoff = np.concatenate([[0], np.cumsum(bm * kmax)]).astype(np.int64)
+            voff = np.concatenate([[0], np.cumsum(bn * kmax)]).astype(np.int64)
             ubig, vbig = np.zeros(uoff[-1]), np.zeros(voff[-1])
             rk = np.zeros(len(blk), np.int64)
-            _remainder_far(
-                blk, tt.start, tt.end, src.start, src.end, *kernel, tol, uoff, voff, ubig, vbig, rk
-            )
+            _remainder_far(blk, *trees, *kernel, tol, uoff, voff, ubig, vbig, rk)
             for b in range(len(blk)):
                 r = int(rk[b])
-                ub = ubig[uoff[b] : uoff[b + 1]].reshape(kmax[b], m[b])[:r].T
-                vb = vbig[voff[b] : voff[b + 1]].reshape(kmax[b], n[b])[:r]
+                ub = ubig[uoff[b] : uoff[b + 1]].reshape(kmax[b], bm[b])[:r].T
+                vb = vbig[voff[b] : voff[b + 1]].reshape(kmax[b], bn[b])[:r]
                 us.append(np.ascontiguousarray(ub, dtype=np.float32).ravel())
                 vs.append(np.ascontiguousarray(vb, dtype=np.float32).ravel())
                 ranks.append(r)
-        self.far_blocks = far
-        self.far_rank = np.asarray(ranks, np.int64)
-        self.u = np.concatenate(us) if us else np.zeros(0, np.float32)
-        self.v = np.concatenate(vs) if vs else np.zeros(0, np.float32)
-        self.far_uoff = np.concatenate([[0], np.cumsum(tsz[far[:, 0]] * self.far_rank)])[:-1]
-        self.far_voff = np.concatenate([[0], np.cumsum(ssz[far[:, 1]] * self.far_rank)])[:-1]
-        self.far_uoff = self.far_uoff.astype(np.int64)
-        self.far_voff = self.far_voff.astype(np.int64)
-        n_chunks = max(1, numba.get_num_threads())
-        self.near_chunks = _chunks(sizes, n_chunks)
-        self.far_chunks = _chunks(self.far_rank * (tsz[far[:, 0]] + ssz[far[:, 1]]), n_chunks)
+        rk = np.asarray(ranks, np.int64)
+        ur, uc, vr, vc = _block_entries(far, rk, *trees, tt.perm, src.perm)
+        total = int(rk.sum())
+        u = np.concatenate(us) if us else np.zeros(0, np.float32)
+        v = np.concatenate(vs) if vs else np.zeros(0, np.float32)
+        self.u = sp.csr_matrix((u, (ur, uc)), shape=(m, total))
+        self.v = sp.csr_matrix((v, (vr, vc)), shape=(total, n))
         self.setup_s = time.perf_counter() - t0
+
+    @property
+    def nbytes(self) -> int:
+        return sum(
+            a.data.nbytes + a.indices.nbytes + a.indptr.nbytes for a in (self.near, self.u, self.v)
+        )
+
+    def matvec(self, x: np.ndarray) -> np.ndarray:
+        return self.near @ x + self.u @ (self.v @ x)
+
+    def rmatvec(self, w: np.ndarray) -> np.ndarray:
+        return self.near.T @ w + self.v.T @ (self.u.T @ w)
 
 
 @dataclass(frozen=True)
@@ -369,7 +415,7 @@ class LayeredHMatrix:
         _, _, areas, diams = panels.kernel_arrays
         pts = np.ascontiguousarray(targets, dtype=float)
         self.n, self.m = panels.n, len(pts)
-        self.terms: list[tuple[np.ndarray, np.ndarray, float, HMatrix]] = []
+        self.terms: list[tuple[np.ndarray, np.ndarray, float, HMatrix | RemainderHMatrix]] = []
         factors = np.array(bg.factors)
         for p in kernel_parts(bg, panels, pts, slabs):
             dirs = None if directions is None else directions[p.rows]
