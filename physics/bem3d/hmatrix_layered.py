@@ -211,7 +211,8 @@ def _remainder_far(
 
 @njit(cache=True)
 def _block_entries(blocks, ranks, t_start, t_end, s_start, s_end, t_perm, s_perm):
-    """Row and column indices of stored entries, in their storage order: without ``ranks``
+    """Row and column indices (int32: they only address one part's rows, panels and ranks)
+    of stored entries, in their storage order: without ``ranks``
     (empty) the dense blocks (row-major); else the factors U (m, r) of every block, then its
     V (r, n), the rank index counted over all blocks."""
     low = ranks.shape[0] > 0
@@ -223,10 +224,10 @@ def _block_entries(blocks, ranks, t_start, t_end, s_start, s_end, t_perm, s_perm
         r = ranks[b] if low else n
         n_u += m * r
         n_v += r * n if low else 0
-    ur = np.empty(n_u, np.int64)
-    uc = np.empty(n_u, np.int64)
-    vr = np.empty(n_v, np.int64)
-    vc = np.empty(n_v, np.int64)
+    ur = np.empty(n_u, np.int32)
+    uc = np.empty(n_u, np.int32)
+    vr = np.empty(n_v, np.int32)
+    vc = np.empty(n_v, np.int32)
     ku = 0
     kv = 0
     base = 0
