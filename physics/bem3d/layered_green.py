@@ -851,12 +851,18 @@ def extra_dense_bytes(n_panels: int, n_rows: int | None = None) -> int:
     return 4 * 8 * n_rows * n_panels
 
 
-def layered_method(method: str) -> str:
-    """The solve method of a level with planar layers: dense (the hierarchical matrix does not
-    take the layered kernel yet; large levels are refused by the memory estimate)."""
-    if method == "fast":
-        raise SolverError(
-            "method='fast' does not take planar layers yet; use method='dense' or 'auto' "
-            "(layered levels are solved densely, within the memory limit)"
-        )
-    return "dense"
+def layered_method(method: str, chosen: str, bodies: bool) -> str:
+    """The solve method of a level with planar layers, given the one ``chosen`` for its size
+    (``method`` "auto": dense up to the dense limit, else fast): the compressed layered
+    operator (:mod:`.hmatrix_layered`) takes conductors only, so with dielectric ``bodies``
+    "auto" stays dense (large levels are refused by the memory estimate) and "fast" is
+    refused."""
+    if chosen == "fast" and bodies:
+        if method == "fast":
+            raise SolverError(
+                "method='fast' does not take planar layers with dielectric bodies yet; use "
+                "method='dense' or 'auto' (such levels are solved densely, within the memory "
+                "limit)"
+            )
+        return "dense"
+    return chosen
