@@ -4,9 +4,10 @@ sum_j density_j * (1/4 pi) integral_j dA'/|x - x'| (minus the image panels' shar
 ground plane is present) and its gradient, for K densities at once. Small problems are summed
 directly, every pair with the distance-chosen rule of :mod:`.panel_integrals`; large ones
 through hierarchical matrices of the same entries (:func:`.hmatrix.apply_once`: made and
-applied block by block, never stored), compressed to ``tol`` (relative, per block). Points
-closer to a panel than a few panel sizes always get the closed form, so points just off a
-surface (one-sided limits) are exact for the discrete density.
+applied block by block, never stored, compressed to ``tol`` relative per block; with planar
+layers :mod:`.hmatrix_layered`). Points closer to a panel than a few panel sizes always get
+the closed form, so points just off a surface (one-sided limits) are exact for the discrete
+density.
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ import numpy as np
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import apply_once
+from elopt.physics.bem3d.hmatrix_layered import compressed_integrals
 from elopt.physics.bem3d.operators import FOUR_PI
 from elopt.physics.bem3d.panels import PanelSet
 
@@ -36,6 +38,8 @@ def potential_and_gradient(
     if m == 0:
         return np.zeros((0, k)), np.zeros((0, 3, k))
     if panels.background is not None:  # planar layers: the layered Green's function
+        if m * panels.n > DIRECT_PAIRS:
+            return compressed_integrals(panels, dens, pts, EVAL_TOL)
         return panels.background.potential_and_gradient(panels, dens, pts)
     if m * panels.n <= DIRECT_PAIRS:
         return _direct(panels, dens, pts)
@@ -57,6 +61,8 @@ def directional_derivative(
     pts = np.ascontiguousarray(np.atleast_2d(np.asarray(points_m, dtype=float)))
     dirs = np.ascontiguousarray(directions, dtype=float)
     dens = _columns(density)
+    if panels.background is not None and len(pts) * panels.n > DIRECT_PAIRS:
+        return compressed_integrals(panels, dens, pts, EVAL_TOL, dirs)
     if panels.background is not None or len(pts) * panels.n <= DIRECT_PAIRS:
         _, grad = _direct(panels, dens, pts)
         return np.einsum("mck,mc->mk", grad, dirs)

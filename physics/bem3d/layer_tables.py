@@ -20,6 +20,11 @@ d2T/drho da are tabulated on a uniform grid in u = asinh(rho / lam), v = ln(a + 
 interpolated by bicubic Hermite patches (error O(h^4)). The grid is halved until the
 interpolation error measured against the integral itself at every cell centre is below
 ``rel_tol`` times the largest |T| of the table (:attr:`RemainderTable.error`).
+
+Tables depend on the stack and the ranges of rho and a only, so :data:`TABLE_CACHE` keeps them
+across refinement levels and across the solves of one design on the same stack: a kept group
+serves a request whose ranges it covers, whose cutoff it reaches and whose tolerance its
+measured error meets (:class:`TableCache`).
 """
 
 from __future__ import annotations
@@ -101,6 +106,7 @@ class RemainderTable:
     error: float
     scale: float
     n_k: int
+    k_max: float = math.inf  # the Hankel cutoff the values were integrated to (1/m)
 
     def evaluate(self, rho: np.ndarray, a: np.ndarray) -> tuple[np.ndarray, ...]:
         """T, dT/drho, dT/da (M,) at horizontal distances rho and exponents a (M,)."""
@@ -183,9 +189,100 @@ def build_table(
                     f"the finest grid step {step:g}"
                 )
             return RemainderTable(
-                values, rs, term.delta, table.hu, v0, table.hv, err, scale, len(k)
+                values, rs, term.delta, table.hu, v0, table.hv, err, scale, len(k), k_max
             )
         step *= 0.5
+
+
+@dataclass(frozen=True)
+class TableRange:
+    """What a group of tables evaluated together must cover: 0 <= rho <= ``rho_max``, per
+    term a range (a_lo, a_hi) of the exponent, the layout size (m) that sets the Hankel
+    cutoff, and the interpolation tolerance."""
+
+    rho_max: float
+    ranges: tuple[tuple[float, float], ...]
+    size: float
+    rel_tol: float
+
+
+def build_tables(terms: list[SpectralTerm], want: TableRange) -> list[RemainderTable]:
+    """Tables of ``terms`` over ``want``, sharing the length of u (the smallest lam)."""
+    pairs = list(zip(terms, want.ranges, strict=True))
+    rho_scale = min(lo + term.delta for term, (lo, _) in pairs)
+    return [
+        build_table(term, want.rho_max, lo, hi, want.size, want.rel_tol, rho_scale)
+        for term, (lo, hi) in pairs
+    ]
+
+
+def _covers(tab: RemainderTable, term: SpectralTerm, lo: float, hi: float, want: TableRange):
+    """Whether ``tab`` serves the exponent range lo..hi of ``want`` as well as a table built
+    for it: its range holds the request, its cutoff reaches the request's, and its measured
+    interpolation error is within ``rel_tol`` of the largest |T| at its nodes inside the
+    request."""
+    if lo + term.delta <= 0.0:
+        return False  # no table serves it: building one gives the error
+    if want.rho_max > tab.lam * math.sinh(tab.hu * (tab.values.shape[0] - 1)) * (1 + 1e-12):
+        return False
+    v_lo, v_hi = math.log(lo + term.delta), math.log(hi + term.delta)
+    v_top = tab.v0 + tab.hv * (tab.values.shape[1] - 1)
+    if v_lo < tab.v0 - 1e-12 or v_hi > v_top + 1e-12:
+        return False
+    if cutoff(lo + term.delta, want.size, term.bound) > tab.k_max:
+        return False
+    nu = min(tab.values.shape[0], math.ceil(math.asinh(want.rho_max / tab.lam) / tab.hu) + 1)
+    j0_ = max(0, math.floor((v_lo - tab.v0) / tab.hv))
+    j1_ = min(tab.values.shape[1], math.ceil((v_hi - tab.v0) / tab.hv) + 1)
+    inside = float(np.max(np.abs(tab.values[:nu, j0_:j1_, 0])))
+    return tab.error * tab.scale <= want.rel_tol * inside
+
+
+class TableCache:
+    """Remainder tables kept across levels and solves of one layer stack.
+
+    The tables depend on the stack, the slabs of targets and sources and the ranges they
+    cover, not on the panels; every refinement level of a layout (and every companion solve
+    on the same stack) asks for nearly the same ranges. A request is served by a cached group
+    when every table covers it (:func:`_covers`), else built and kept (at most
+    ``max_groups`` groups, the oldest dropped). ``hits`` and ``misses`` count requests.
+    """
+
+    def __init__(self, max_groups: int = 64) -> None:
+        self.max_groups = max_groups
+        self._groups: list[tuple[object, TableRange, list[RemainderTable]]] = []
+        self.hits = 0
+        self.misses = 0
+
+    def clear(self) -> None:
+        self._groups.clear()
+        self.hits = self.misses = 0
+
+    def tables(
+        self, key: object, terms: list[SpectralTerm], want: TableRange
+    ) -> list[RemainderTable]:
+        """The tables (one per term) for ``want``; ``key`` names the stack and the slabs (the
+        same key must always mean the same terms)."""
+        for k, have, tabs in self._groups:
+            if (
+                k == key
+                and have.rel_tol <= want.rel_tol
+                and all(
+                    _covers(tab, term, lo, hi, want)
+                    for tab, term, (lo, hi) in zip(tabs, terms, want.ranges, strict=True)
+                )
+            ):
+                self.hits += 1
+                return tabs
+        self.misses += 1
+        tabs = build_tables(terms, want)
+        self._groups.append((key, want, tabs))
+        del self._groups[: -self.max_groups]
+        return tabs
+
+
+#: The process's cache of remainder tables (:class:`TableCache`).
+TABLE_CACHE = TableCache()
 
 
 @njit(cache=True, inline="always")

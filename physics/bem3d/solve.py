@@ -37,10 +37,11 @@ from the previous level's densities and preconditioned by an incomplete LU of th
 memory a level needs is estimated before anything is allocated, and refused with the
 numbers when it exceeds what the machine has.
 
-With planar layers (:mod:`.layered_green`, dense path) G is the stack's Green's function and
-every panel's sigma radiates as a charge in the slab eps_slab it lies in: a body's rows keep
-the form above with K the layered kernel's normal derivative times eps_slab (bodies lie
-strictly inside one slab), and a conductor's free charge is (eps_f / eps_slab) sigma.
+With planar layers (:mod:`.layered_green`; compressed by :mod:`.hmatrix_layered`) G is the
+stack's Green's function and every panel's sigma radiates as a charge in the slab eps_slab it
+lies in: a body's rows keep the form above with K the layered kernel's normal derivative
+times eps_slab (bodies lie strictly inside one slab), and a conductor's free charge is
+(eps_f / eps_slab) sigma.
 """
 
 from __future__ import annotations
@@ -55,6 +56,7 @@ import scipy.linalg
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d.bodies import region_surfaces
+from elopt.physics.bem3d.hmatrix_layered import LayeredFastOperator, layered_fast_bytes
 from elopt.physics.bem3d.layered_green import extra_dense_bytes, layered_method
 from elopt.physics.bem3d.near_pairs import near_pairs
 from elopt.physics.bem3d.operators import (
@@ -66,10 +68,12 @@ from elopt.physics.bem3d.operators import (
 from elopt.physics.bem3d.panels import PanelSet, conductor_surfaces, discretise
 from elopt.physics.bem3d.solution import LevelResult3D, PanelSolution
 from elopt.physics.bem3d.symmetry import (
+    ROWS,
     MirrorSymmetry,
     ReducedFastOperator,
     mirror_symmetry,
     reduced_matrix,
+    symmetry_refusal,
 )
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import EPS0_F_PER_M, Layout
@@ -110,6 +114,8 @@ def estimate_memory_bytes(
     if method == "dense":
         r = n if n_reduced is None else n_reduced
         return base + 8 * r * r
+    if panels.background is not None:
+        return base + layered_fast_bytes(panels)
     _, centroids, _, diams = panels.kernel_arrays
     rng = np.random.default_rng(0)
     sample = rng.choice(n, size=min(n, 2000), replace=False)
@@ -200,7 +206,9 @@ def solve_level(
             x = scipy.linalg.lu_solve(lu, rhs[symmetry.reps], check_finite=False)[symmetry.orbit]
         stats.solve_s = time.perf_counter() - t1
     else:
-        if symmetry is None:
+        if panels.background is not None:
+            op = LayeredFastOperator(panels, tol=aca_tol)
+        elif symmetry is None:
             op = FastOperator(panels, tol=aca_tol)
         else:
             op = ReducedFastOperator(panels, symmetry, tol=aca_tol)
@@ -284,7 +292,10 @@ def solve_3d(
     ``symmetry`` lets a level whose panels are mirror symmetric in x and/or y be solved on one
     panel per orbit (conductors only, see :mod:`.symmetry`).
     Planar layers (``layout.layers``) enter through the layered Green's function of
-    :mod:`.layered_green`; such levels are solved densely (``method="fast"`` is refused).
+    :mod:`.layered_green`: dense levels on one panel per orbit when symmetric (the reduced
+    matrix assembled a block of rows at a time), fast levels compressed by
+    :mod:`.hmatrix_layered` (with dielectric bodies such levels are solved densely;
+    ``method="fast"`` is refused).
     """
     opts = make_options(options, overrides)
     _map_large_arrays()
@@ -309,9 +320,17 @@ def solve_3d(
         chosen = method
         if method == "auto":
             dense = n_solved * panels.n <= DENSE_MAX_ENTRIES
+            if panels.background is not None and sym is not None:
+                # Layered entries cost far more than free-space ones and the compressed
+                # layered operator drops the symmetry: measured on the board-pad demo, a
+                # symmetric dense level of 11852 panels (2963 orbits) took less than half the
+                # CPU time of the same level compressed.
+                dense = n_solved <= DENSE_MAX_PANELS
             chosen = "dense" if dense else "fast"
         if panels.background is not None:
-            chosen = layered_method(method)
+            chosen = layered_method(method, chosen, panels.n_conductor_panels < panels.n)
+            if chosen == "fast":
+                sym, n_solved = None, panels.n
 
         def run(previous: LevelResult3D | None) -> LevelResult3D:
             _return_freed_memory()
@@ -328,9 +347,12 @@ def solve_3d(
             return result
 
         need = estimate_memory_bytes(panels, chosen, n_columns, None if sym is None else n_solved)
+        note = f"{chosen} solve"
         if panels.background is not None:
-            need += extra_dense_bytes(panels.n)
-        note = f"{chosen} solve" + (", planar layers" if panels.background is not None else "")
+            if chosen == "dense":
+                need += extra_dense_bytes(panels.n, None if sym is None else min(ROWS, n_solved))
+            refused = symmetry_refusal(panels) if symmetry else None
+            note += ", planar layers" + (f" ({refused})" if refused else "")
         return LevelPlan(level, panels.n, need, note, run)
 
     # Measured (tests/benchmarks/measure_error_estimate.py): successive changes of C shrink by

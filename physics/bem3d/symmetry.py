@@ -1,9 +1,10 @@
 """Mirror symmetry of a panel set: a solve on one panel per orbit.
 
-When the panels of conductors in a homogeneous medium (and which conductor owns each) are
-unchanged by the reflection x -> -x, or y -> -y, or both, and every excitation is too (unit potentials per conductor: yes, when each
-conductor is its own mirror image; the applied field along z: always; the ground plane z = 0:
-always), the solution is symmetric: sigma is equal on the panels of one orbit. The collocation
+When the panels of conductors in a homogeneous medium or in horizontal planar layers (and
+which conductor owns each) are unchanged by the reflection x -> -x, or y -> -y, or both, and
+every excitation is too (unit potentials per conductor: yes, when each conductor is its own
+mirror image; the applied field along z: always; the ground plane z = 0: always), the
+solution is symmetric: sigma is equal on the panels of one orbit. The collocation
 equations at one panel per orbit, with the columns of each orbit summed, then give the same
 densities as the full system (dense: :func:`reduced_matrix`; compressed:
 :class:`ReducedFastOperator`), with |G| times fewer unknowns for a group G of 2 or 4
@@ -18,6 +19,7 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d import panel_integrals as pint
@@ -107,11 +109,22 @@ def _orbits(maps: dict[str, np.ndarray], n: int) -> MirrorSymmetry:
     return MirrorSymmetry(img, reps, orbit.reshape(-1), tuple(maps))
 
 
+def symmetry_refusal(panels: PanelSet) -> str | None:
+    """Why a level is solved without its mirror symmetry whatever its shape (None: it may be
+    reduced). Dielectric bodies: their second-kind rows (and Gauss's diagonal) are not
+    reduced here."""
+    if panels.n_conductor_panels < panels.n:
+        return "no mirror symmetry with dielectric bodies"
+    return None
+
+
 def mirror_symmetry(panels: PanelSet) -> MirrorSymmetry | None:
     """The reflections x -> -x and y -> -y that map the panel set onto itself, as orbits (None
-    when neither does, and for levels with dielectric interfaces or planar layers, whose
-    operators the reduction here does not cover)."""
-    if panels.n_conductor_panels < panels.n or panels.background is not None:
+    when neither does, and when :func:`symmetry_refusal` gives a reason).
+
+    Planar layers (horizontal, so their Green's function depends on the horizontal distance
+    and the two heights only) keep every mirror in a vertical plane through the origin."""
+    if symmetry_refusal(panels) is not None:
         return None
     found = {name: _mirror_map(panels, axis) for name, axis in (("x", 0), ("y", 1))}
     maps = {k: v for k, v in found.items() if v is not None}
@@ -135,9 +148,33 @@ def point_orbits(
     return _orbits(maps, len(points_m)) if maps else None
 
 
+def orbit_fold(symmetry: MirrorSymmetry) -> sp.csr_matrix:
+    """(N, R) sparse: 1 where panel i lies in orbit r (sums a row's columns per orbit)."""
+    n = symmetry.orbit.size
+    return sp.csr_matrix(
+        (np.ones(n), (np.arange(n), symmetry.orbit)), shape=(n, symmetry.n_reduced)
+    )
+
+
+def layered_reduced_matrix(panels: PanelSet, symmetry: MirrorSymmetry) -> np.ndarray:
+    """(R, R) as :func:`reduced_matrix` for a level in planar layers: the representatives'
+    rows of the layered matrix, ``ROWS`` at a time (ROWS x N held, not N x N), each folded
+    per orbit. The rows are those of the full matrix bit for bit (the remainder tables
+    cover the whole level)."""
+    reps = symmetry.reps
+    fold_t = orbit_fold(symmetry).T.tocsr()
+    out = np.empty((len(reps), len(reps)))
+    for s in range(0, len(reps), ROWS):
+        block = panels.background.dense_matrix(panels, reps[s : s + ROWS])
+        out[s : s + ROWS] = (fold_t @ block.T).T
+    return out
+
+
 def reduced_matrix(panels: PanelSet, symmetry: MirrorSymmetry) -> np.ndarray:
     """(R, R) collocation matrix on the orbits: rows at the representatives' centroids,
     columns the summed entries of each orbit's panels (1/4 pi included, as dense_matrix)."""
+    if panels.background is not None:
+        return layered_reduced_matrix(panels, symmetry)
     corners, centroids, areas, diams = panels.kernel_arrays
     reps = symmetry.reps
     weights = symmetry.column_weights()
