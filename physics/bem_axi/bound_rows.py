@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import AxiMesh
+from elopt.physics.bem_axi.mesh import KIND_SEGMENT, AxiMesh
 from elopt.physics.bem_axi.operators import _far_pairs, _rule_order, near_factor
 from elopt.physics.bem_axi.ring_sums import (
     foot_points,
@@ -38,10 +38,15 @@ _MIRROR = np.array([1.0, -1.0])
 
 
 def principal_normal_field_matrix(
-    mesh: AxiMesh, rows: np.ndarray, delta_m: np.ndarray, ground_plane: bool
+    mesh: AxiMesh,
+    rows: np.ndarray,
+    delta_m: np.ndarray,
+    ground_plane: bool,
+    entry_error: float | None = None,
 ) -> np.ndarray:
     """PV (R, N) at nodes ``rows`` (R,) along their mesh normals; ``delta_m`` (R, 1) m is the
-    own panel's offset d (module text). Image panels in z = 0 enter with -sigma."""
+    own panel's offset d (module text); off-panel entries to relative error ``entry_error``
+    (default :func:`operators.entry_tolerance`). Image panels in z = 0 enter with -sigma."""
     p = mesh.order
     t = np.ascontiguousarray(mesh.points_m[rows])
     nrm = np.ascontiguousarray(mesh.normals[rows])
@@ -54,12 +59,18 @@ def principal_normal_field_matrix(
         ground_plane,
     )
     own = np.asarray(rows) // p
+    # a ring in the horizontal plane of a target has no normal (z) field there, nor a mean of
+    # it at +-d: coplanar flat panels add nothing to a target whose normal is vertical
+    flat_z = np.where(
+        (mesh.kind == KIND_SEGMENT) & (mesh.coef[:, 1] == mesh.coef[:, 3]), mesh.coef[:, 1], np.nan
+    )
+    vertical = nrm[:, 0] == 0.0
     for mirror in (False, True) if ground_plane else (False,):
         centres = mesh.center_m * _MIRROR if mirror else mesh.center_m
-        reach = (near_factor(p) + 0.5) * mesh.length_m
+        reach = (near_factor(p, entry_error) + 0.5) * mesh.length_m
         ti, pj = np.nonzero(np.sum((t[:, None] - centres[None]) ** 2, axis=2) < reach**2)
         if not mirror:
-            keep = pj != own[ti]
+            keep = (pj != own[ti]) & ~(vertical[ti] & (flat_z[pj] == t[ti, 1]))
             ti, pj = ti[keep], pj[keep]
         if len(ti) == 0:
             continue
@@ -68,9 +79,12 @@ def principal_normal_field_matrix(
         d = _graded_rows(mesh, pts, pj, mirror) - _far_pairs(mesh, pts, cols, mirror, True)
         dn = np.einsum("bkc,bc->bk", d, nrm[ti])
         mat[ti[:, None], cols] += -dn if mirror else dn
-    own_cols = own[:, None] * p + np.arange(p)
-    far = np.einsum("bkc,bc->bk", _far_pairs(mesh, t, own_cols, False, True), nrm)
-    mat[np.arange(len(own))[:, None], own_cols] += _own_panel_rows(mesh, t, nrm, own, delta_m) - far
+    sel = np.nonzero(~(vertical & (flat_z[own] == t[:, 1])))[0]
+    if len(sel):
+        own_cols = own[sel, None] * p + np.arange(p)
+        far = np.einsum("bkc,bc->bk", _far_pairs(mesh, t[sel], own_cols, False, True), nrm[sel])
+        pv = _own_panel_rows(mesh, t[sel], nrm[sel], own[sel], delta_m[sel])
+        mat[sel[:, None], own_cols] += pv - far
     return mat
 
 
