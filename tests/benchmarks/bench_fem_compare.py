@@ -42,6 +42,10 @@ C_sense errors after: 2.7e-6 and 8.5e-8 (estimates 1.3e-5 and 1.8e-5 of the matr
 target is not met; what is left per solve (CPU ms, sharp probe, --stages, loaded): layout 0.7,
 level-0 grading 0.6, meshes 0.6, far sums 2.0, near panels 3.7 (before the 1e-6 entries),
 LU 2.8.
+
+Re-run after the merges on a near-idle machine (2 Dec 2026 18:40, load 0.8), 9 repeats:
+filleted BEM 6.42 ms vs FEM 79.1 ms (12.3x), sharp 9.56 ms vs 66.0 ms (6.9x); BEM errors
+2.7e-6 / 8.5e-8 against estimates 1.3e-5 / 1.8e-5. The 30x target is not met.
 """
 
 from __future__ import annotations
