@@ -384,6 +384,60 @@ def dense_rows(
 
 
 @njit(cache=True)
+def _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c):
+    """ACA step, row half: subtract the k crosses found so far from ``row`` (n,), the block's
+    row ``i_star``, in place; return the unused column of its largest residual, or -1 when
+    the residual row is zero (already represented). Shared by every entry kernel."""
+    for q in range(k):
+        u = ubuf[q, i_star]
+        for j in range(n):
+            row[j] -= u * vbuf[q, j]
+    j_star = -1
+    best = 0.0
+    for j in range(n):
+        if not used_c[j] and abs(row[j]) > best:
+            best = abs(row[j])
+            j_star = j
+    return j_star
+
+
+@njit(cache=True)
+def _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r):
+    """ACA step, column half: subtract the k crosses from ``col`` (m,), the block's column
+    ``j_star``, in place, store cross k (U^T row col, V row row / piv), and return
+    (|u_k|^2 |v_k|^2, the growth of the approximation's squared Frobenius norm, the unused
+    row of col's largest entry or -1)."""
+    for q in range(k):
+        v = vbuf[q, j_star]
+        for i in range(m):
+            col[i] -= ubuf[q, i] * v
+    uu = 0.0
+    for i in range(m):
+        ubuf[k, i] = col[i]
+        uu += col[i] * col[i]
+    vv = 0.0
+    for j in range(n):
+        vbuf[k, j] = row[j] / piv
+        vv += vbuf[k, j] * vbuf[k, j]
+    cross = 0.0
+    for q in range(k):
+        a = 0.0
+        for i in range(m):
+            a += ubuf[q, i] * col[i]
+        c = 0.0
+        for j in range(n):
+            c += vbuf[q, j] * vbuf[k, j]
+        cross += a * c
+    best = -1.0
+    i_next = -1
+    for i in range(m):
+        if not used_r[i] and abs(col[i]) > best:
+            best = abs(col[i])
+            i_next = i
+    return uu * vv, uu * vv + 2.0 * cross, i_next
+
+
+@njit(cache=True)
 def _aca_block(
     rows,
     cols,
@@ -443,17 +497,8 @@ def _aca_block(
                 tri,
                 cen,
             )
-        for q in range(k):
-            u = ubuf[q, i_star]
-            for j in range(n):
-                row[j] -= u * vbuf[q, j]
-        j_star = -1
-        best = 0.0
-        for j in range(n):
-            if not used_c[j] and abs(row[j]) > best:
-                best = abs(row[j])
-                j_star = j
-        if j_star < 0 or best == 0.0:
+        j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
+        if j_star < 0:
             # This row is already represented; try the next unused row.
             nxt = -1
             for i in range(m):
@@ -489,40 +534,10 @@ def _aca_block(
                 tri,
                 cen,
             )
-        for q in range(k):
-            v = vbuf[q, j_star]
-            for i in range(m):
-                col[i] -= ubuf[q, i] * v
-        for i in range(m):
-            ubuf[k, i] = col[i]
-        for j in range(n):
-            vbuf[k, j] = row[j] / piv
-        uu = 0.0
-        for i in range(m):
-            uu += col[i] * col[i]
-        vv = 0.0
-        for j in range(n):
-            vv += vbuf[k, j] * vbuf[k, j]
-        cross = 0.0
-        for q in range(k):
-            a = 0.0
-            for i in range(m):
-                a += ubuf[q, i] * col[i]
-            c = 0.0
-            for j in range(n):
-                c += vbuf[q, j] * vbuf[k, j]
-            cross += a * c
-        norm2 += uu * vv + 2.0 * cross
+        last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
+        norm2 += grow
         k += 1
-        if uu * vv <= tol * tol * norm2:
-            break
-        best = -1.0
-        i_star = -1
-        for i in range(m):
-            if not used_r[i] and abs(col[i]) > best:
-                best = abs(col[i])
-                i_star = i
-        if i_star < 0:
+        if last <= tol * tol * norm2 or i_star < 0:
             break
     if k <= 1 or not recompress:
         return k

@@ -37,6 +37,8 @@ from elopt.physics.bem3d.hmatrix import (
     LEAF,
     MAX_RANK,
     HMatrix,
+    _aca_row_pivot,
+    _aca_take_cross,
     _batches,
     _partition,
     _recompress,
@@ -126,16 +128,7 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
             row[j] = _remainder_entry(
                 r0 + i_star, c0 + j, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc
             )
-        for q in range(k):
-            u = ubuf[q, i_star]
-            for j in range(n):
-                row[j] -= u * vbuf[q, j]
-        j_star = -1
-        best = 0.0
-        for j in range(n):
-            if not used_c[j] and abs(row[j]) > best:
-                best = abs(row[j])
-                j_star = j
+        j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
             nxt = -1
             for i in range(m):
@@ -152,38 +145,10 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
             col[i] = _remainder_entry(
                 r0 + i, c0 + j_star, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc
             )
-        for q in range(k):
-            v = vbuf[q, j_star]
-            for i in range(m):
-                col[i] -= ubuf[q, i] * v
-        uu = 0.0
-        for i in range(m):
-            ubuf[k, i] = col[i]
-            uu += col[i] * col[i]
-        vv = 0.0
-        for j in range(n):
-            vbuf[k, j] = row[j] / piv
-            vv += vbuf[k, j] * vbuf[k, j]
-        cross = 0.0
-        for q in range(k):
-            a = 0.0
-            for i in range(m):
-                a += ubuf[q, i] * col[i]
-            c = 0.0
-            for j in range(n):
-                c += vbuf[q, j] * vbuf[k, j]
-            cross += a * c
-        norm2 += uu * vv + 2.0 * cross
+        last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
+        norm2 += grow
         k += 1
-        if uu * vv <= tol * tol * norm2:
-            break
-        best = -1.0
-        i_star = -1
-        for i in range(m):
-            if not used_r[i] and abs(col[i]) > best:
-                best = abs(col[i])
-                i_star = i
-        if i_star < 0:
+        if last <= tol * tol * norm2 or i_star < 0:
             break
     if k <= 1:
         return k
