@@ -124,15 +124,12 @@ def periodic_remainder(
     hs = slabs.heights(zs, np.full(len(zs), j))
     scale = float(peak.max()) if peak.size else 0.0
     pairs = []
-    for p in range(2):
-        if not np.isfinite(ht[:, p]).all():
+    for p, q in _defined_pairs(ht, hs):
+        if peak[p, q] == 0.0:
             continue
-        for q in range(2):
-            if not np.isfinite(hs[:, q]).all() or peak[p, q] == 0.0:
-                continue
-            m = _terms_needed(k, rho[:, p, q], ht[:, p].min() + hs[:, q].min(), scale)
-            if m:
-                pairs.append((p, q, m))
+        m = _terms_needed(k, rho[:, p, q], ht[:, p].min() + hs[:, q].min(), scale)
+        if m:
+            pairs.append((p, q, m))
     level = _uniform(zt) and _uniform(zs)
     out = np.zeros((len(zt), len(zs)))
     if pairs:
@@ -364,38 +361,39 @@ def open_remainder(slabs: Slabs, i: int, j: int, xt, zt, xs, zs, extent_m: float
     per_unit = table_panels_per_unit(slabs, i, j, m0)
     nodes, lam = _cheb(TABLE_NODES)
     out = np.zeros((len(xt), len(xs)))
-    for p in range(2):
-        if not np.isfinite(ht[:, p]).all():
-            continue
-        for q in range(2):
-            if not np.isfinite(hs[:, q]).all():
-                continue
-            if np.any(rho[:, :, p, q]):
-                a_max = ht[:, p].max() + hs[:, q].max()
-                nv = max(1, math.ceil(per_unit * math.asinh(a_max / ell)))
-                nu = max(1, math.ceil(per_unit * math.asinh(np.abs(dx).max() / ell)))
-                v = (np.arange(nv)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
-                u = (np.arange(nu)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
-                w = (ell * np.sinh(v / per_unit))[:, None] + 1j * (ell * np.sinh(u / per_unit))[
-                    None, :
-                ]
-                table = laplace_values(kr, wr, rho[:, :, p, q], w.ravel()).real
-                _table_sums(
-                    np.ascontiguousarray(ht[:, p]),
-                    np.ascontiguousarray(hs[:, q]),
-                    dx,
-                    table.reshape(nv * TABLE_NODES, nu * TABLE_NODES),
-                    ell,
-                    float(per_unit),
-                    nodes,
-                    lam,
-                    upper,
-                    out,
-                )
+    for p, q in _defined_pairs(ht, hs):
+        if np.any(rho[:, :, p, q]):
+            a_max = ht[:, p].max() + hs[:, q].max()
+            nv = max(1, math.ceil(per_unit * math.asinh(a_max / ell)))
+            nu = max(1, math.ceil(per_unit * math.asinh(np.abs(dx).max() / ell)))
+            v = (np.arange(nv)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
+            u = (np.arange(nu)[:, None] + 0.5 * (nodes[None, :] + 1.0)).ravel()
+            w = (ell * np.sinh(v / per_unit))[:, None] + 1j * (ell * np.sinh(u / per_unit))[None, :]
+            table = laplace_values(kr, wr, rho[:, :, p, q], w.ravel()).real
+            _table_sums(
+                np.ascontiguousarray(ht[:, p]),
+                np.ascontiguousarray(hs[:, q]),
+                dx,
+                table.reshape(nv * TABLE_NODES, nu * TABLE_NODES),
+                ell,
+                float(per_unit),
+                nodes,
+                lam,
+                upper,
+                out,
+            )
     if upper:
         out = np.triu(out) + np.triu(out, 1).T
     _add_closed_forms(out, ht, hs, dx, m0, big_l, pole)
     return out
+
+
+def _defined_pairs(ht: np.ndarray, hs: np.ndarray) -> list[tuple[int, int]]:
+    """(p, q) of the target heights ``ht`` (T, 2) and source heights ``hs`` (S, 2) that are
+    finite at every point (a half-space has only one bounded factor)."""
+    ps = [p for p in range(2) if np.isfinite(ht[:, p]).all()]
+    qs = [q for q in range(2) if np.isfinite(hs[:, q]).all()]
+    return [(p, q) for p in ps for q in qs]
 
 
 def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
@@ -406,19 +404,14 @@ def _add_closed_forms(out, ht, hs, dx, m0, big_l: float, pole) -> None:
     if pole is not None:
         delta, res = pole.delta, pole.residue
         const = 0.0
-    for p in range(2):
-        if not np.isfinite(ht[:, p]).all():
-            continue
-        for q in range(2):
-            if not np.isfinite(hs[:, q]).all():
-                continue
-            al = ht[:, p][:, None] + hs[:, q][None, :]
-            if m0[p, q] != 0.0:
-                out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + (al + big_l) ** 2)
-            if pole is not None and res[p, q] != 0.0:
-                c = res[p, q] * math.exp(-2 * delta * big_l) / delta
-                const += c
-                out += (c / math.pi) * pole_transform(delta, al + 2 * big_l + 1j * np.abs(dx))
+    for p, q in _defined_pairs(ht, hs):
+        al = ht[:, p][:, None] + hs[:, q][None, :]
+        if m0[p, q] != 0.0:
+            out -= (m0[p, q] / math.pi) * 0.5 * np.log(dx * dx + (al + big_l) ** 2)
+        if pole is not None and res[p, q] != 0.0:
+            c = res[p, q] * math.exp(-2 * delta * big_l) / delta
+            const += c
+            out += (c / math.pi) * pole_transform(delta, al + 2 * big_l + 1j * np.abs(dx))
     if pole is not None:
         out += (const / math.pi) * (np.euler_gamma + math.log(delta))
 

@@ -402,6 +402,15 @@ def _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c):
 
 
 @njit(cache=True)
+def _first_unused(used):
+    """Index of the first False in ``used``, or -1."""
+    for i in range(used.shape[0]):
+        if not used[i]:
+            return i
+    return -1
+
+
+@njit(cache=True)
 def _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r):
     """ACA step, column half: subtract the k crosses from ``col`` (m,), the block's column
     ``j_star``, in place, store cross k (U^T row col, V row row / piv), and return
@@ -500,14 +509,9 @@ def _aca_block(
         j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
             # This row is already represented; try the next unused row.
-            nxt = -1
-            for i in range(m):
-                if not used_r[i]:
-                    nxt = i
-                    break
-            if nxt < 0:
+            i_star = _first_unused(used_r)
+            if i_star < 0:
                 break
-            i_star = nxt
             continue
         used_c[j_star] = True
         piv = row[j_star]

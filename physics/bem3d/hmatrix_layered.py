@@ -40,6 +40,7 @@ from elopt.physics.bem3d.hmatrix import (
     _aca_row_pivot,
     _aca_take_cross,
     _batches,
+    _first_unused,
     _partition,
     _recompress,
     cluster_tree,
@@ -130,14 +131,9 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
             )
         j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
-            nxt = -1
-            for i in range(m):
-                if not used_r[i]:
-                    nxt = i
-                    break
-            if nxt < 0:
+            i_star = _first_unused(used_r)
+            if i_star < 0:
                 break
-            i_star = nxt
             continue
         used_c[j_star] = True
         piv = row[j_star]

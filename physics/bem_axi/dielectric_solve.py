@@ -68,6 +68,7 @@ from elopt.physics.bem_axi.operators import collocation_matrix
 from elopt.physics.bem_axi.solve import (
     COARSE_ENTRY_ERROR,
     COARSE_RULE,
+    CONDUCTOR_COARSE_RULE,
     DENSE_BYTES_PER_ENTRY,
     default_order,
     mesh_rule,
@@ -167,11 +168,11 @@ class DielectricModel:
 
 
 #: Mesh rule of loose requests (the homogeneous solver's COARSE_RULE would apply) for
-#: layouts with regions but no layers: ratio-8 grading, two steps at level 0 and one per
+#: layouts with regions but no layers: the conductors-only solves' ratio-8 grading, two steps at level 0 and one per
 #: level, neighbours within a factor 8. Measured on the spindle probe with a spacer
 #: (tests/benchmarks/bench_axi_dielectric.py): 128 + 256 unknowns against 164 + 328, the
 #: level-1 error 0.32 times the change that estimates it; the dielectric honesty tests pass.
-REGION_COARSE_RULE = MeshRule(corner_steps=2, steps_per_level=1, grade_ratio=8.0, balance_ratio=8.0)
+REGION_COARSE_RULE = CONDUCTOR_COARSE_RULE
 #: Relative error of the conductor and bound-charge rows' entries with REGION_COARSE_RULE
 #: (the homogeneous solve's COARSE_ENTRY_ERROR; 1e-8 otherwise), and the noise floors it sets
 #: (capacitance, peak). Measured as the change against 1e-8 entries, levels 0-3, on the
@@ -669,13 +670,14 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
 
     opts = make_options(options, overrides)
     order = opts.order
+    tightest = min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0)
     if order is None:
-        order = default_order(min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
+        order = default_order(tightest)
     if not 2 <= order <= 16:
         raise SolverError(f"order (nodes per panel) must lie in [2, 16], got {order}")
     # the homogeneous solver's rule for this request (coarser grading for loose requests);
     # regions without layers take the ratio-8 one of REGION_COARSE_RULE there
-    rule = mesh_rule(order, min(opts.rel_accuracy, opts.peak_rel_accuracy or 1.0))
+    rule = mesh_rule(order, tightest)
     loose = rule == COARSE_RULE
     entry_error = None
     if loose and not layout.layers:
