@@ -9,6 +9,11 @@ half-space z > 0, and a uniform field ``applied_field_V_per_m`` along +z is appl
 ````shape`` is a :class:`elopt.physics.geometry.Curve` for bodies of revolution; the 3-D solver takes
 triangle surfaces there instead. Insulators other than the medium are ``layers`` (planar, infinite
 in extent) and ``regions`` (bounded bodies), described in :mod:`elopt.physics.media`.
+
+``estimate_covers`` names the conductors a design is measured on: the solvers' error estimate
+and the accuracy request then cover the capacitance entries (i, j) among them only (the
+others, e.g. a grounded finger's own C_tt that no metric reads, are still solved and
+reported). Empty: every conductor.
 """
 
 from __future__ import annotations
@@ -62,11 +67,16 @@ class Layout:
     applied_field_V_per_m: float = 0.0
     layers: tuple[PlanarLayer, ...] = ()
     regions: tuple[DielectricRegion, ...] = ()
+    estimate_covers: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "conductors", tuple(self.conductors))
         object.__setattr__(self, "layers", tuple(self.layers))
         object.__setattr__(self, "regions", tuple(self.regions))
+        covers = self.estimate_covers
+        object.__setattr__(
+            self, "estimate_covers", (covers,) if isinstance(covers, str) else tuple(covers)
+        )
         if not self.conductors:
             raise GeometryError("layout: needs at least one conductor")
         if not (math.isfinite(self.eps_r) and self.eps_r >= 1.0):
@@ -80,6 +90,7 @@ class Layout:
         dup = {n for n in names if names.count(n) > 1}
         if dup:
             raise GeometryError(f"layout: conductor names must be unique, repeated: {sorted(dup)}")
+        self._validate_estimate_covers()
         if all(isinstance(c.shape, Curve) for c in self.conductors):
             self._validate_curves()
 
@@ -101,6 +112,32 @@ class Layout:
     @property
     def names(self) -> tuple[str, ...]:
         return tuple(c.name for c in self.conductors)
+
+    @property
+    def estimate_indices(self) -> tuple[int, ...]:
+        """Indices (ascending) of the conductors whose capacitance entries the error estimate
+        covers: every conductor unless ``estimate_covers`` names some."""
+        if not self.estimate_covers:
+            return tuple(range(len(self.conductors)))
+        return tuple(sorted(self.index(name) for name in self.estimate_covers))
+
+    @property
+    def estimated_names(self) -> tuple[str, ...]:
+        """Names of the conductors whose entries the error estimate covers, layout order."""
+        return tuple(self.names[i] for i in self.estimate_indices)
+
+    def _validate_estimate_covers(self) -> None:
+        names = self.names
+        for name in self.estimate_covers:
+            if name not in names:
+                raise GeometryError(
+                    f"layout: estimate_covers names {name!r}, not a conductor; the conductors "
+                    f"are {', '.join(names)}"
+                )
+        if len(set(self.estimate_covers)) != len(self.estimate_covers):
+            raise GeometryError(
+                f"layout: estimate_covers = {list(self.estimate_covers)} names a conductor twice"
+            )
 
     def index(self, name: str) -> int:
         try:

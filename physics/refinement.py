@@ -18,6 +18,12 @@ change. Every estimate is multiplied by :data:`SAFETY` and kept above the solver
 noise floor (quadrature and round-off errors that refinement does not reduce). The capacitance matrix is not symmetrised:
 half its largest scaled asymmetry |C_ij - C_ji| is added, since the exact matrix is symmetric.
 
+Covered entries. A layout may name the conductors its design is measured on
+(``Layout.estimate_covers``); the solvers pass their indices as ``covered``, and the changes and
+asymmetry above are then taken over the entries (i, j) with i and j both covered (e.g. only
+C_pad,pad when a grounded finger's own C_tt is read by no metric). The request and the stop
+test judge that estimate; the same estimate over every entry is kept as ``matrix``.
+
 SAFETY, PRIOR_RATIO and each solver's :class:`Convergence` (noise floors) were measured on the
 published cases (and a guarded probe against its own fine solve) by
 tests/benchmarks/measure_error_estimate.py; tests/test_error_estimate_honesty.py checks the
@@ -82,7 +88,8 @@ class SolveOptions:
     """What a solve is asked for; the same names and defaults in every solver.
 
     ``rel_accuracy``: estimated relative error of the capacitance matrix (entry (i, j)
-    relative to sqrt(C_ii C_jj)) at which refinement stops. ``peak_rel_accuracy``: a separate
+    relative to sqrt(C_ii C_jj); only the entries among the conductors the layout names in
+    ``estimate_covers``, when it names any) at which refinement stops. ``peak_rel_accuracy``: a separate
     request on the peak surface field (None: none; a peak at a sharp edge, which has no limit,
     is exempt). ``max_level``: finest level solved (levels from 0). ``max_unknowns``: largest
     system solved. ``order``: solver-specific discretisation order (axisymmetric: nodes per
@@ -189,17 +196,22 @@ class LevelPlan:
 class ErrorEstimate:
     """Relative error estimates of the finest level.
 
-    ``capacitance``: of the capacitance matrix (tail estimate plus half the asymmetry);
-    ``asymmetry``: largest |C_ij - C_ji| / sqrt(C_ii C_jj); ``ratio``: observed ratio of the
-    last two changes of C (None below three levels); ``peaks``: per conductor;
-    ``peak``: of the largest peak over all conductors (the design number). The peak
-    estimates need the levels' peak searches, so ``peak_source`` computes them on first use.
+    ``capacitance``: of the covered entries of the capacitance matrix (tail estimate plus half
+    the asymmetry; every entry unless the layout names conductors); ``asymmetry``: largest
+    |C_ij - C_ji| / sqrt(C_ii C_jj) over them; ``ratio``: observed ratio of the last two
+    changes (None below three levels); ``peaks``: per conductor; ``peak``: of the largest peak
+    over all conductors (the design number); ``matrix``: ``capacitance``'s estimate over every
+    entry; ``covered``: the conductor indices whose entries (i, j) ``capacitance`` covers
+    (None: all). The peak estimates need the levels' peak searches, so ``peak_source``
+    computes them on first use.
     """
 
     capacitance: float
     asymmetry: float
     ratio: float | None
     peak_source: Callable[[], tuple[tuple[float, ...], float]] = field(repr=False, compare=False)
+    matrix: float = math.inf
+    covered: tuple[int, ...] | None = None
 
     @cached_property
     def _peak_pair(self) -> tuple[tuple[float, ...], float]:
@@ -299,15 +311,32 @@ def peak_estimate(fields_V_per_m: Sequence[float], convergence: Convergence) -> 
     return max(SAFETY * bare, convergence.peak_floor)
 
 
-def estimate_error(levels: Sequence[SolvedLevel], convergence: Convergence) -> ErrorEstimate:
-    """The :class:`ErrorEstimate` of the finest of ``levels`` (coarse to fine); its peak
-    estimates run the levels' peak searches when first asked for."""
-    caps = [np.asarray(lv.capacitance_F, dtype=float) for lv in levels]
-    fine = caps[-1]
+def capacitance_estimate(
+    caps: Sequence[np.ndarray], convergence: Convergence
+) -> tuple[float, float, float | None]:
+    """(estimate, scaled asymmetry, observed ratio) of the finest of the capacitance matrices
+    ``caps`` (coarse to fine, each (n, n)) over all their entries."""
     changes = [relative_change(b, a) for a, b in zip(caps, caps[1:], strict=False)]
     bare, ratio = tail_estimate(changes[-2:], convergence.prior_ratio)
-    asym = scaled_asymmetry(fine)
-    cap_est = max(SAFETY * bare, convergence.capacitance_floor) + 0.5 * asym
+    asym = scaled_asymmetry(caps[-1])
+    return max(SAFETY * bare, convergence.capacitance_floor) + 0.5 * asym, asym, ratio
+
+
+def estimate_error(
+    levels: Sequence[SolvedLevel],
+    convergence: Convergence,
+    covered: Sequence[int] | None = None,
+) -> ErrorEstimate:
+    """The :class:`ErrorEstimate` of the finest of ``levels`` (coarse to fine) over the
+    entries (i, j) with i and j in ``covered`` (conductor indices; None: every entry); its
+    peak estimates run the levels' peak searches when first asked for."""
+    caps = [np.asarray(lv.capacitance_F, dtype=float) for lv in levels]
+    matrix_est, asym, ratio = capacitance_estimate(caps, convergence)
+    cap_est = matrix_est
+    kept = None if covered is None else tuple(int(i) for i in covered)
+    if kept is not None and len(kept) < len(caps[-1]):
+        sub = np.ix_(kept, kept)
+        cap_est, asym, ratio = capacitance_estimate([c[sub] for c in caps], convergence)
     last = tuple(levels[-3:])
 
     def peak_estimates() -> tuple[tuple[float, ...], float]:
@@ -315,7 +344,7 @@ def estimate_error(levels: Sequence[SolvedLevel], convergence: Convergence) -> E
         per = tuple(peak_estimate(fields[:, c], convergence) for c in range(fields.shape[1]))
         return per, peak_estimate(fields.max(axis=1), convergence)
 
-    return ErrorEstimate(cap_est, asym, ratio, peak_estimates)
+    return ErrorEstimate(cap_est, asym, ratio, peak_estimates, matrix_est, kept)
 
 
 def peak_request_met(level: SolvedLevel, estimate: ErrorEstimate, request: float | None) -> bool:
@@ -333,8 +362,12 @@ def refine(
     *,
     start_level: int = 0,
     memory_limit_bytes: int | None = None,
+    covered: Sequence[int] | None = None,
 ) -> Refinement:
     """Solve levels ``start_level``, ... until the estimate meets the requests.
+
+    ``covered``: the conductor indices whose capacitance entries the estimate and the request
+    cover (None: every entry; see :func:`estimate_error`).
 
     Stops before a level whose unknowns exceed ``options.max_unknowns`` or whose memory need
     exceeds ``memory_limit_bytes`` (default :data:`MEMORY_SHARE` of the available memory);
@@ -377,7 +410,7 @@ def refine(
             break
         levels.append(plan.solve(levels[-1] if levels else None))
         if len(levels) >= 2:
-            estimate = estimate_error(levels, convergence)
+            estimate = estimate_error(levels, convergence, covered)
             if estimate.capacitance <= options.rel_accuracy and peak_request_met(
                 levels[-1], estimate, options.peak_rel_accuracy
             ):
@@ -397,9 +430,15 @@ def _not_met_message(
     levels: list[Any], estimate: ErrorEstimate, options: SolveOptions, stop: StopReason
 ) -> str:
     fine = levels[-1]
+    covered = estimate.covered
+    scope = (
+        ""
+        if covered is None or len(covered) == len(fine.capacitance_F)
+        else f" (entries among conductors {', '.join(map(str, covered))}, layout order from 0)"
+    )
     what = (
         f"rel_accuracy = {options.rel_accuracy:g} was not met: the capacitance's estimated "
-        f"error is {estimate.capacitance:.2g}"
+        f"error{scope} is {estimate.capacitance:.2g}"
     )
     if estimate.capacitance <= options.rel_accuracy:
         what = (

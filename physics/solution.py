@@ -15,6 +15,7 @@ present) is the reference conductor and is not a row.
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any, Literal
 
@@ -49,6 +50,16 @@ def excitation_potentials(
         rhs = q - applied_charges_C[fl] - capacitance_F[np.ix_(fl, ~fl)] @ volts[~fl]
         volts[fl] = np.linalg.solve(capacitance_F[np.ix_(fl, fl)], rhs)
     return volts
+
+
+def covered_entries_text(covers: Sequence[str], names: Sequence[str]) -> str:
+    """Which capacitance entries an error estimate covers, in words: "the capacitance
+    matrix" (every conductor), "C[pad, pad]" (one) or "the entries among pad, pour"."""
+    if len(covers) == len(names):
+        return "the capacitance matrix"
+    if len(covers) == 1:
+        return f"C[{covers[0]}, {covers[0]}]"
+    return f"the entries among {', '.join(covers)}"
 
 
 @dataclass(frozen=True)
@@ -105,7 +116,9 @@ class ChargeSolution(ABC):
     Guarantees: ``capacitance_matrix_F`` is (n, n) for n conductors in layout order;
     ``charges_C`` and ``potentials_V`` are (n,) at the layout's excitation (floating
     conductors' potentials solved for); ``rel_error_estimate`` estimates the largest error
-    of an entry (i, j) of C relative to sqrt(C_ii C_jj) (see :mod:`elopt.physics.refinement`);
+    of an entry (i, j) of C relative to sqrt(C_ii C_jj) over the entries among the conductors
+    ``estimate_covers`` names (every conductor unless the layout names some; see
+    :mod:`elopt.physics.refinement`), ``matrix_rel_error_estimate`` the same over every entry;
     ``accuracy_met`` says whether every request of ``options`` was met (``requested_accuracy``
     is ``options.rel_accuracy``); ``stop_reason`` why refinement stopped.
     """
@@ -138,6 +151,24 @@ class ChargeSolution(ABC):
         self.rel_error_estimate = float(refinement.estimate.capacitance)
         self.requested_accuracy = float(refinement.options.rel_accuracy)
         self.accuracy_met = bool(refinement.accuracy_met)
+
+    @property
+    def estimate_covers(self) -> tuple[str, ...]:
+        """The conductors (layout order) whose entries (i, j) ``rel_error_estimate`` covers."""
+        return self.layout.estimated_names
+
+    @property
+    def estimate_scope(self) -> str:
+        """The entries ``rel_error_estimate`` covers, in words (:func:`covered_entries_text`)."""
+        return covered_entries_text(self.estimate_covers, self.layout.names)
+
+    @property
+    def matrix_rel_error_estimate(self) -> float:
+        """``rel_error_estimate``'s estimate taken over every entry of C (the same number
+        when the estimate covers every conductor)."""
+        if len(self.estimate_covers) == len(self.layout.conductors):
+            return float(self.rel_error_estimate)
+        return float(self.error_estimate.matrix)
 
     def _take_finest_level(self) -> Any:
         """C, the excitation's potentials and densities, and the charges from the finest level

@@ -156,16 +156,21 @@ def case_sphere_above_plane() -> list[CheckResult]:
     ]
 
 
-def love_disk_pair_capacitance(k: float, nodes: int = 400) -> float:
-    """C / (eps0 R) of two coaxial disks at +-V/2, spacing k R, from Love's equation.
-
-    f(x) - (1/pi) int_{-1}^{1} k / (k^2 + (x - t)^2) f(t) dt = 1, C = 4 eps0 R int_0^1 f dt,
-    solved by Gauss-Legendre Nystrom (Love 1949; docs/references.md item 7).
-    """
+def love_integral(k: float, sign: float, nodes: int = 400) -> float:
+    """int_0^1 f dt for Love's equation of two coaxial disks of radius R, spacing k R:
+    f(x) - sign (1/pi) int_{-1}^{1} k / (k^2 + (x - t)^2) f(t) dt = 1, sign +1 for disks at
+    opposite potentials, -1 for equal ones; solved by Gauss-Legendre Nystrom (Love 1949;
+    docs/references.md item 7)."""
     x, w = np.polynomial.legendre.leggauss(nodes)
     kernel = (k / np.pi) / (k**2 + (x[:, None] - x[None, :]) ** 2) * w[None, :]
-    f = np.linalg.solve(np.eye(nodes) - kernel, np.ones(nodes))
-    return float(2.0 * np.sum(w * f))
+    f = np.linalg.solve(np.eye(nodes) - sign * kernel, np.ones(nodes))
+    return float(0.5 * np.sum(w * f))
+
+
+def love_disk_pair_capacitance(k: float, nodes: int = 400) -> float:
+    """C / (eps0 R) of two coaxial disks at +-V/2, spacing k R, from Love's equation:
+    C = 4 eps0 R int_0^1 f dt (:func:`love_integral`, opposite potentials)."""
+    return 4.0 * love_integral(k, 1.0, nodes)
 
 
 def kirchhoff_disk_pair_capacitance(k: float) -> tuple[float, float]:

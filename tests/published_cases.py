@@ -177,3 +177,73 @@ CASES: tuple[PublishedCase, ...] = (
 
 def cases_for(solver: str) -> tuple[PublishedCase, ...]:
     return tuple(c for c in CASES if solver in c.solvers)
+
+
+# ---------------------------------------------------------------- estimates of some entries
+# Two conductors, the first driven ("pad"), the second grounded ("target"); each layout's
+# error estimate covers the pad only (Layout.estimate_covers), and ``capacitance_F`` is the
+# reference of that covered entry C_pad,pad.
+
+
+def _disk_with_grounded_disk(k: float, h_3d: float) -> Callable[[str], Layout]:
+    def build(solver: str) -> Layout:
+        pad, target = geo.disk(1.0, 0.0), geo.disk(1.0, k)
+        if solver != "axi":
+            pad, target = RevolvedSurface(pad, h_3d), RevolvedSurface(target, h_3d)
+        return Layout(
+            (driven("pad", pad, 1.0), driven("target", target, 0.0)), estimate_covers=("pad",)
+        )
+
+    return build
+
+
+def _sphere_with_grounded_sphere(b: float, c: float, h_3d: float) -> Callable[[str], Layout]:
+    def build(solver: str) -> Layout:
+        pad, target = geo.sphere(1.0), geo.sphere(b, center_z=c)
+        if solver != "axi":
+            pad, target = RevolvedSurface(pad, h_3d), RevolvedSurface(target, b * h_3d)
+        return Layout(
+            (driven("pad", pad, 1.0), driven("target", target, 0.0)), estimate_covers=("pad",)
+        )
+
+    return build
+
+
+COVERED_CASES: tuple[PublishedCase, ...] = (
+    PublishedCase(
+        "disk, grounded coaxial disk at d/R = 1",
+        7,
+        _disk_with_grounded_disk(1.0, 0.5),
+        ref.love_disk_pair_coefficients(1.0)[0] * EPS0_F_PER_M,
+        None,
+        BOTH,
+    ),
+    PublishedCase(
+        "disk, grounded coaxial disk at d/R = 0.1",
+        7,
+        _disk_with_grounded_disk(0.1, 0.1),
+        ref.love_disk_pair_coefficients(0.1)[0] * EPS0_F_PER_M,
+        None,
+        ("axi",),
+    ),
+    PublishedCase(
+        "sphere, grounded sphere 0.25 R at gap 0.1 R",
+        21,
+        _sphere_with_grounded_sphere(0.25, 1.35, 0.2),
+        ref.two_sphere_coefficients(1.0, 0.25, 1.35)[0],
+        None,
+        ("axi",),
+    ),
+    PublishedCase(
+        "sphere, grounded sphere 0.5 R at gap 0.5 R",
+        21,
+        _sphere_with_grounded_sphere(0.5, 2.0, 0.45),
+        ref.two_sphere_coefficients(1.0, 0.5, 2.0)[0],
+        None,
+        BOTH,
+    ),
+)
+
+
+def covered_cases_for(solver: str) -> tuple[PublishedCase, ...]:
+    return tuple(c for c in COVERED_CASES if solver in c.solvers)

@@ -16,6 +16,7 @@ from elopt.physics.layout import EPS0_F_PER_M
 from elopt.physics.validation import (
     kirchhoff_disk_pair_capacitance,
     love_disk_pair_capacitance,
+    love_integral,
     sphere_above_plane_series,
 )
 
@@ -31,10 +32,13 @@ __all__ = [
     "ellipsoid_peak_field_V_per_m",
     "kirchhoff_disk_pair_capacitance",
     "love_disk_pair_capacitance",
+    "love_disk_pair_coefficients",
     "sphere_above_plane_capacitance_F",
     "sphere_above_plane_series",
     "sphere_capacitance_F",
     "sphere_in_field_density_C_per_m2",
+    "two_sphere_coefficients",
+    "two_sphere_images",
     "SPHERE_IN_FIELD_ENHANCEMENT",
 ]
 
@@ -104,3 +108,50 @@ def sphere_in_field_density_C_per_m2(points_m: np.ndarray, field_V_per_m: float)
     p = np.asarray(points_m, dtype=float)
     cos_t = p[:, -1] / np.linalg.norm(p, axis=1)
     return SPHERE_IN_FIELD_ENHANCEMENT * EPS0_F_PER_M * field_V_per_m * cos_t
+
+
+def love_disk_pair_coefficients(k: float, nodes: int = 400) -> tuple[float, float]:
+    """Maxwell coefficients (C_11, C_12) / (eps0 R) of two equal coaxial disks, spacing k R:
+    equal potentials give each disk 8 eps0 R V int f+ (Love's equation with the kernel's sign
+    for like potentials), opposite ones C_11 - C_12 = 8 eps0 R int f-, so
+    C_11 = 4 (int f+ + int f-) and C_12 = 4 (int f+ - int f-) (docs/references.md item 7;
+    the like-potential sign from memory, checked in tests/test_error_estimate_honesty_covered.py
+    against the far-apart limit)."""
+    like, opposite = love_integral(k, -1.0, nodes), love_integral(k, 1.0, nodes)
+    return 4.0 * (like + opposite), 4.0 * (like - opposite)
+
+
+def two_sphere_coefficients(a_m: float, b_m: float, c_m: float) -> tuple[float, float, float]:
+    """Maxwell coefficients (C_aa, C_ab, C_bb) in F of spheres of radii a and b, centres c
+    apart, in vacuum: with cosh U = (c^2 - a^2 - b^2) / (2 a b), in units of 4 pi eps0,
+    C_aa = a b sinh U sum_{n>=0} 1 / (a sinh nU + b sinh (n+1)U) (a and b swapped for C_bb),
+    C_ab = -(a b / c) sinh U sum_{n>=1} 1 / sinh nU (docs/references.md item 21: Smythe,
+    series from memory, checked against :func:`two_sphere_images`)."""
+    u = math.acosh((c_m**2 - a_m**2 - b_m**2) / (2.0 * a_m * b_m))
+    n = np.arange(0, int(600.0 / u))
+    sh = np.sinh(u)
+
+    def own(p: float, q: float) -> float:
+        return float(p * q * sh * np.sum(1.0 / (p * np.sinh(n * u) + q * np.sinh((n + 1) * u))))
+
+    mutual = -(a_m * b_m / c_m) * sh * float(np.sum(1.0 / np.sinh(n[1:] * u)))
+    return FOUR_PI_EPS0 * own(a_m, b_m), FOUR_PI_EPS0 * mutual, FOUR_PI_EPS0 * own(b_m, a_m)
+
+
+def two_sphere_images(a_m: float, b_m: float, c_m: float, terms: int = 400) -> tuple[float, float]:
+    """(C_aa, C_ba) in F of the same two spheres by Kelvin's images: a charge 4 pi eps0 a at
+    the centre of sphere a (at 1 V), each image in the other sphere q' = -q R / d at R^2 / d
+    from its centre (docs/references.md item 21: method of images)."""
+    q, x = a_m, 0.0  # charge (units 4 pi eps0) and its position along the line of centres
+    on_a, q_a, q_b = True, a_m, 0.0
+    for _ in range(terms):
+        if on_a:
+            d = c_m - x
+            q, x = -q * b_m / d, c_m - b_m * b_m / d
+            q_b += q
+        else:
+            d = x
+            q, x = -q * a_m / d, a_m * a_m / d
+            q_a += q
+        on_a = not on_a
+    return FOUR_PI_EPS0 * q_a, FOUR_PI_EPS0 * q_b

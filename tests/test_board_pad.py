@@ -251,6 +251,11 @@ def test_signal_agrees_with_the_axisymmetric_solver(round_evaluation):
     assert abs(c3 - c_base) <= ev.extra["baseline_rel_error_estimate"] * c_base
     signal3 = ev.metrics["touch_signal_fF"] * 1e-15
     assert abs(signal3 - (c_touch - c_base)) <= ev.extra["touch_signal_error_estimate_F"]
+    # The touch solve's estimate covers C_pad,pad, the one entry its metrics read: it holds
+    # against the same independent solve.
+    sol = ev.solution
+    assert sol.estimate_covers == ("pad",) and sol.estimate_scope == "C[pad, pad]"
+    assert abs(sol.capacitance_matrix_F[0, 0] / c_touch - 1) <= sol.rel_error_estimate
 
 
 def test_rectangular_hatched_pad_under_a_plate_and_an_offset_finger():
@@ -318,6 +323,10 @@ def test_command_line_solve_of_an_air_key_gives_strict_json(tmp_path, capsys):
     out = json.loads(capsys.readouterr().out)
     text = json.dumps(out)
     assert "touch_signal_fF" in text and "NaN" not in text
+    # The record says which entries the estimate covers, and the whole matrix's estimate.
+    assert out["relative_error_estimate_covers"] == ["pad"]
+    assert out["matrix_relative_error_estimate"] >= 0.0
+    assert [c["name"] for c in out["conductors"]] == ["pad", "pour", "target"]
 
 
 def test_a_study_trial_in_air_takes_text_and_flag_parameters_as_fixed_values():

@@ -119,8 +119,22 @@ def test_an_undefined_value_is_reported_once_with_the_first_reason():
     ]
 
 
-@pytest.mark.parametrize("number", [0, 4])
+@pytest.mark.parametrize("number", [0, 1, 4])
 def test_json_round_trip(number):
     d = design_for(number)
     back = design_from_json(json.loads(strict_dumps(design_json(d, JsonWarnings()))))
     assert_same_design(back, d)
+
+
+def test_the_record_says_which_entries_the_estimate_covers():
+    # A record written before the covered entries were recorded covers every conductor and
+    # its whole-matrix estimate is its estimate.
+    old = design_json(design_for(0), JsonWarnings())
+    for key in ("relative_error_estimate_covers", "matrix_relative_error_estimate"):
+        del old[key]
+    back = design_from_json(old)
+    assert back.estimate_covers == ("a", "b")
+    assert back.matrix_estimate == back.relative_error_estimate
+    restricted = design_json(design_for(1), JsonWarnings())
+    assert restricted["relative_error_estimate_covers"] == ["a"]
+    assert restricted["matrix_relative_error_estimate"] == pytest.approx(6e-4)

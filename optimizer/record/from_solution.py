@@ -72,4 +72,6 @@ def design_record(
             for k, v in extra.items()
             if isinstance(v, (str, int, float, bool)) and k not in _OWN_FIELDS
         },
+        relative_error_estimate_covers=tuple(sol.estimate_covers),
+        matrix_relative_error_estimate=float(sol.matrix_rel_error_estimate),
     )

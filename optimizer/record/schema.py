@@ -11,6 +11,7 @@ panel centroids (x, y, z) with no arc length; open sheets list each face apart).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -55,7 +56,12 @@ class ConductorRecord:
 class DesignRecord:
     """One solved design. ``capacitance_matrix_F`` (n, n) Maxwell matrix in conductor order;
     ``charges_C`` and ``potentials_V`` (n,) at the excitation; ``metrics`` by unit-suffixed
-    name (NaN: undefined); ``surface`` one entry per conductor (may be empty when not kept)."""
+    name (NaN: undefined); ``surface`` one entry per conductor (may be empty when not kept).
+    ``relative_error_estimate`` covers the entries (i, j) among the conductors
+    ``relative_error_estimate_covers`` names (empty: every conductor, as in records written
+    before it existed); ``matrix_relative_error_estimate`` is the same estimate over every
+    entry (NaN: not recorded, i.e. the same as ``relative_error_estimate``). Read both through
+    :attr:`estimate_covers` and :attr:`matrix_estimate`."""
 
     family: str
     parameters: dict[str, Any]
@@ -76,10 +82,25 @@ class DesignRecord:
     metric_units: dict[str, str]
     surface: tuple[SurfaceSamples, ...] = ()
     extra: dict[str, str | int | float | bool] = field(default_factory=dict)
+    relative_error_estimate_covers: tuple[str, ...] = ()
+    matrix_relative_error_estimate: float = math.nan
 
     @property
     def conductor_names(self) -> tuple[str, ...]:
         return tuple(c.name for c in self.conductors)
+
+    @property
+    def estimate_covers(self) -> tuple[str, ...]:
+        """The conductors whose entries (i, j) ``relative_error_estimate`` covers."""
+        return self.relative_error_estimate_covers or self.conductor_names
+
+    @property
+    def matrix_estimate(self) -> float:
+        """The error estimate over every entry of the capacitance matrix."""
+        covers_all = len(self.estimate_covers) == len(self.conductors)
+        if covers_all or math.isnan(self.matrix_relative_error_estimate):
+            return self.relative_error_estimate
+        return self.matrix_relative_error_estimate
 
     @property
     def surface_kind(self) -> SurfaceKind | None:
@@ -152,6 +173,10 @@ def design_json(d: DesignRecord, warnings: JsonWarnings) -> dict[str, Any]:
         ),
         "relative_error_estimate": finite_or_none(
             d.relative_error_estimate, "relative_error_estimate", warnings, one_level
+        ),
+        "relative_error_estimate_covers": list(d.estimate_covers),
+        "matrix_relative_error_estimate": finite_or_none(
+            d.matrix_estimate, "matrix_relative_error_estimate", warnings, one_level
         ),
         "requested_accuracy": float(d.requested_accuracy),
         "accuracy_met": bool(d.accuracy_met),
@@ -226,6 +251,10 @@ def design_from_json(obj: dict[str, Any]) -> DesignRecord:
             rel_error_estimate=float(_nan_for_none(obj["peak_rel_error_estimate"])),
         ),
         relative_error_estimate=float(_nan_for_none(obj["relative_error_estimate"])),
+        relative_error_estimate_covers=tuple(obj.get("relative_error_estimate_covers", ())),
+        matrix_relative_error_estimate=float(
+            _nan_for_none(obj.get("matrix_relative_error_estimate"))
+        ),
         requested_accuracy=float(obj["requested_accuracy"]),
         accuracy_met=bool(obj["accuracy_met"]),
         n_unknowns=int(obj["n_unknowns"]),

@@ -59,8 +59,8 @@ def solve_warnings(spec: SolveSpec, evaluation: Evaluation) -> list[str]:
             out.append(f"{name} is undefined (null): {why}")
     if not sol.accuracy_met:
         out.append(
-            f"the solver stopped at an estimated relative error of {sol.rel_error_estimate:.2g}, "
-            f"above the requested {sol.requested_accuracy:.2g}"
+            f"the solver stopped at an estimated relative error of {sol.rel_error_estimate:.2g} "
+            f"of {sol.estimate_scope}, above the requested {sol.requested_accuracy:.2g}"
         )
     return out
 

@@ -8,6 +8,7 @@ come from :mod:`elopt.optimizer.record` (warnings, caution) and the family's met
 from __future__ import annotations
 
 import dataclasses
+from typing import TYPE_CHECKING
 
 import numpy as np
 from rich.console import Console
@@ -22,6 +23,9 @@ from elopt.optimizer.report.section_picture import section_picture
 from elopt.optimizer.report.textplot import Series, line_plot
 from elopt.physics.electrodes.base import ElectrodeFamily, Evaluation, parameter_units
 from elopt.physics.electrodes.target_spot import cumulative_on_plane
+
+if TYPE_CHECKING:
+    from elopt.physics.solution import ChargeSolution
 
 
 def _num(v: float) -> str:
@@ -133,12 +137,19 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
     out.append(
         Text(
             f"Solver: {sol.n_unknowns} unknowns, refinement level {getattr(sol, 'level', '?')}, "
-            f"estimated relative error {sol.rel_error_estimate:.2g} "
-            f"(asked {sol.requested_accuracy:.2g})",
+            f"estimated relative error {sol.rel_error_estimate:.2g} of {sol.estimate_scope} "
+            f"(asked {sol.requested_accuracy:.2g}){_matrix_note(sol)}",
             style="dim",
         )
     )
     return out
+
+
+def _matrix_note(sol: ChargeSolution) -> str:
+    """The estimate over every entry, when the solver's estimate covers fewer."""
+    if len(sol.estimate_covers) == len(sol.layout.conductors):
+        return ""
+    return f"; every entry: {sol.matrix_rel_error_estimate:.2g}"
 
 
 def _profile_lines(family: ElectrodeFamily, evaluation: Evaluation) -> list[str]:

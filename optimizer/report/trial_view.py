@@ -15,6 +15,7 @@ from elopt.optimizer.report.study_view import fixed_words, front_numbers, reruns
 from elopt.optimizer.report.textplot import Series, line_plot, scatter
 from elopt.optimizer.store import StudySnapshot, TrialArrays
 from elopt.physics.electrodes.cross_section import is_cross_section
+from elopt.physics.solution import covered_entries_text
 
 
 def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, number: int) -> None:
@@ -123,7 +124,17 @@ def render_trial(console: Console, snap: StudySnapshot, arrays: TrialArrays, num
         )
     err = c["relative_error_estimate"][number]
     met = "met" if c["accuracy_met"][number] else "NOT met"
-    console.print(f"solve error estimate {err:.2g} (requested accuracy {met})")
+    covers = info.get("relative_error_estimate_covers") or conductors
+    whole_matrix = info.get("matrix_relative_error_estimate")
+    every = (
+        f"; every entry {whole_matrix:.2g}"
+        if len(covers) < len(conductors) and isinstance(whole_matrix, (int, float))
+        else ""
+    )
+    console.print(
+        f"solve error estimate {err:.2g} of {covered_entries_text(covers, conductors)} "
+        f"(requested accuracy {met}){every}"
+    )
     console.print()
     for text in sigma_plot(arrays):
         console.print(Text(text))

@@ -397,6 +397,10 @@ def design_of(snap: StudySnapshot, arrays: TrialArrays, number: int) -> DesignRe
         metric_units=dict(zip(h.metric_names, h.metric_units, strict=True)),
         surface=arrays.surface,
         extra=extra,
+        relative_error_estimate_covers=tuple(info.get("relative_error_estimate_covers", ())),
+        matrix_relative_error_estimate=_float_list([info.get("matrix_relative_error_estimate")], 1)[
+            0
+        ],
     )
 
 

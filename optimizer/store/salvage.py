@@ -72,7 +72,15 @@ _FILL: dict[str, float] = {
 }
 
 #: Keys of a trial's text that the writer derives from its design (re-derived on the copy).
-_DESIGN_TEXT = ("conductors", "conductor_drive", "potentials_V", "charges_C", "ground_plane")
+_DESIGN_TEXT = (
+    "conductors",
+    "conductor_drive",
+    "potentials_V",
+    "charges_C",
+    "ground_plane",
+    "relative_error_estimate_covers",
+    "matrix_relative_error_estimate",
+)
 
 
 @dataclass

@@ -309,6 +309,8 @@ def _design_text(d: DesignRecord) -> dict[str, Any]:
         "charges_C": [float(v) for v in d.charges_C],
         "ground_plane": bool(d.ground_plane),
         "sense_capacitance_meaning": d.sense_capacitance_meaning,
+        "relative_error_estimate_covers": list(d.estimate_covers),
+        "matrix_relative_error_estimate": float(d.matrix_estimate),
         **({"extra": dict(d.extra)} if d.extra else {}),
     }
 

@@ -335,5 +335,5 @@ def solve_2d(
             lambda _prev: solve_level(problem, mesh_level, order, panels),
         )
 
-    refinement = refine(plan, opts, CONVERGENCE)
+    refinement = refine(plan, opts, CONVERGENCE, covered=layout.estimate_indices)
     return Solution2D(problem, refinement)

@@ -369,6 +369,7 @@ def solve_3d(
         convergence,
         start_level=start_level,
         memory_limit_bytes=memory_limit_bytes,
+        covered=layout.estimate_indices,
     )
     caps = [lv.capacitance_F for lv in refinement.levels]
     extrapolated, rate = richardson(caps, refinement.levels[-1].panels.all_smooth)

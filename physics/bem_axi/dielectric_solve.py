@@ -702,7 +702,7 @@ def solve_dielectric(layout: Layout, options: SolveOptions | None = None, **over
     # the two-level prior ratio is the shared measured one (changes shrank by 0.01 - 0.08 per
     # level on the dielectric test layouts, below it)
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
-    refinement = refine(plan, opts, convergence)
+    refinement = refine(plan, opts, convergence, covered=layout.estimate_indices)
     return DielectricSolution(layout, model, refinement, order, rule)
 
 

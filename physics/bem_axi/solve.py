@@ -154,4 +154,5 @@ def solve_axisymmetric(
     if entry_error is not None:
         floors = COARSE_ENTRY_FLOORS
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
-    return AxisymmetricSolution(layout, refine(plan, opts, convergence))
+    refinement = refine(plan, opts, convergence, covered=layout.estimate_indices)
+    return AxisymmetricSolution(layout, refinement)

@@ -26,6 +26,9 @@ the entry C_pad,pad of the Maxwell matrix. One evaluation solves three designs: 
 present: the main solution, its peak field), the baseline (no target) and the film (no
 target, the water film on). Signal = C_touch - C_baseline; film shift = C_film - C_baseline;
 the false-trigger margin is signal / film shift (how many times a touch outweighs the film).
+Every metric reads the pad's C_pad,pad only, so each layout declares the pad as the conductor
+its error estimate and accuracy request cover (``Layout.estimate_covers``): the finger's own
+capacitance and the pour's entries are solved and reported but not judged.
 The signal is taken on the finest refinement level both solves reached (same pad and pour
 mesh: their discretisation errors largely cancel) and its error estimated from how the
 difference itself changes from level to level (:func:`level_matched_change`).
@@ -380,6 +383,7 @@ class BoardPad(SolvedByPanels, ElectrodeFamily):
             eps_r=eps_r,
             ground_plane=bool(p.back_ground),
             layers=board_layers(p, film=case.film),
+            estimate_covers=(PAD,),
         )
         refuse_too_many_panels(self.name, estimated_panels(layout), panel_size_cause(p, options, h))
         return layout

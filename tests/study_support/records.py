@@ -82,6 +82,9 @@ def design_for(number: int) -> DesignRecord:
         metric_units={"size_mm": "mm", "score_fF": "fF", "peak_surface_field_V_per_m": "V/m"},
         surface=(_surface("a", 0, number), _surface("b", 1, number)),
         extra={"note": f"trial {number}"},
+        # every third trial's estimate covers conductor "a" only
+        relative_error_estimate_covers=("a",) if number % 3 == 1 else (),
+        matrix_relative_error_estimate=3e-4 * (1 + k) if number % 3 == 1 else float("nan"),
     )
 
 
@@ -114,6 +117,8 @@ def assert_same_design(stored: DesignRecord, given: DesignRecord) -> None:
         "sense_capacitance_meaning",
         "peak",
         "relative_error_estimate",
+        "estimate_covers",
+        "matrix_estimate",
         "requested_accuracy",
         "accuracy_met",
         "n_unknowns",
