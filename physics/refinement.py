@@ -347,6 +347,37 @@ def estimate_error(
     return ErrorEstimate(cap_est, asym, ratio, peak_estimates, matrix_est, kept)
 
 
+def quantity_estimate(
+    values: Sequence[float], floor: float, prior_ratio: float = PRIOR_RATIO
+) -> float:
+    """Error estimate, in the values' unit, of the last of one quantity's values over the
+    levels (coarse to fine), from its own changes: SAFETY times the larger of their geometric
+    tail (:func:`tail_estimate` with ``prior_ratio`` for two levels) and ``floor`` (the
+    solvers' noise floor in the quantity's unit); NaN with fewer than two values."""
+    if len(values) < 2:
+        return math.nan
+    changes = [abs(b - a) for a, b in zip(values, values[1:], strict=False)]
+    return SAFETY * max(tail_estimate(changes[-2:], prior_ratio)[0], floor)
+
+
+def combination_estimate(
+    levels: Sequence[SolvedLevel],
+    convergence: Convergence,
+    value: Callable[[np.ndarray], float],
+) -> float:
+    """Relative error estimate of ``value(C)`` on the finest of ``levels``, a linear
+    combination of a few capacitance entries (e.g. a mutual capacitance -(C_10 + C_12)),
+    from how that combination itself changes over the levels (:func:`quantity_estimate`,
+    floor: the noise floor of each entry, sqrt(C_ii C_jj) times ``capacitance_floor``, summed
+    through ``value``); NaN with one level. A small combination of large entries can carry a
+    larger relative error than any entry of the matrix estimate."""
+    caps = [np.asarray(lv.capacitance_F, dtype=float) for lv in levels]
+    values = [float(value(c)) for c in caps]
+    d = np.sqrt(np.abs(np.diag(caps[-1])))
+    floor = convergence.capacitance_floor * abs(float(value(np.outer(d, d))))
+    return quantity_estimate(values, floor, convergence.prior_ratio) / abs(values[-1])
+
+
 def peak_request_met(level: SolvedLevel, estimate: ErrorEstimate, request: float | None) -> bool:
     """Whether the largest peak is within ``request`` (a peak at a sharp edge is exempt)."""
     if request is None:

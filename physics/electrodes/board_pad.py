@@ -74,7 +74,7 @@ from elopt.physics.electrodes.solvers import (
 )
 from elopt.physics.layout import Layout, driven
 from elopt.physics.media import PlanarLayer
-from elopt.physics.refinement import RATIO_CEILING, RATIO_FLOOR, SAFETY, SolveOptions
+from elopt.physics.refinement import SolveOptions, quantity_estimate
 from elopt.physics.solution import ChargeSolution
 
 MM = 1e-3
@@ -446,6 +446,11 @@ class BoardPad(SolvedByPanels, ElectrodeFamily):
         return Measured(metrics, extra)
 
 
+#: Ratio of successive changes a level-matched difference assumes with two levels (its tail is
+#: then its change; measured below in :func:`level_matched_change`).
+TWO_LEVEL_DIFFERENCE_RATIO = 0.5
+
+
 def level_matched_change(
     changed: ChargeSolution, reference: ChargeSolution, k: int
 ) -> tuple[float, float]:
@@ -457,7 +462,8 @@ def level_matched_change(
     levels or more the geometric tail d_L r / (1 - r) of its changes d (observed ratio r,
     floored and capped as in :mod:`elopt.physics.refinement`), with two the change itself;
     never below the solvers' noise floor on both capacitances (errors refinement does not
-    reduce, e.g. kernel tables, need not cancel); all times SAFETY. Measured against the
+    reduce, e.g. kernel tables, need not cancel); all times SAFETY
+    (:func:`~elopt.physics.refinement.quantity_estimate`). Measured against the
     axisymmetric solver: a water film's shift on a layered board was off by 1.4 to 4.5 times
     its two-level change, and by 1.05 times the floor term.
     """
@@ -466,16 +472,10 @@ def level_matched_change(
         float(changed.levels[i].capacitance_F[k, k] - reference.levels[i].capacitance_F[k, k])
         for i in range(common)
     ]
-    if common < 2:
-        return values[-1], math.nan
-    d = [abs(b - a) for a, b in zip(values, values[1:], strict=False)]
-    tail = d[-1]
-    if common > 2 and d[-2] > 0:
-        r = max(RATIO_FLOOR, d[-1] / d[-2])
-        tail = d[-1] if r > RATIO_CEILING else d[-1] * r / (1.0 - r)
     floor = max(changed.convergence.capacitance_floor, reference.convergence.capacitance_floor)
     c_both = abs(changed.capacitance_matrix_F[k, k]) + abs(reference.capacitance_matrix_F[k, k])
-    return values[-1], SAFETY * max(tail, floor * float(c_both))
+    err = quantity_estimate(values, floor * float(c_both), prior_ratio=TWO_LEVEL_DIFFERENCE_RATIO)
+    return values[-1], err
 
 
 __all__ = [

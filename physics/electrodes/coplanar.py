@@ -29,7 +29,7 @@ from elopt.physics.electrodes.base import (
 from elopt.physics.electrodes.rules import RuleBook
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout, driven
-from elopt.physics.refinement import SolveOptions
+from elopt.physics.refinement import SolveOptions, combination_estimate
 from elopt.physics.solution import ChargeSolution
 
 UM = ps.UM
@@ -159,6 +159,10 @@ class Coplanar(ElectrodeFamily):
         extra: dict[str, Any] = {
             "sense_capacitance_F": metrics["capacitance_pF"] * 1e-12,
             "sense_capacitance_meaning": meaning,
+            # the sense capacitance combines entries of C: its own estimate, from its changes
+            "sense_capacitance_rel_error_estimate": combination_estimate(
+                sol.levels, sol.convergence, value
+            ),
             "metric_notes": pf.metric_notes(sens, bool(p.back_plane)),
         }
         return Measured(metrics=metrics, extra=extra)

@@ -76,9 +76,12 @@ for name, case in cases.items():
     layout = family.build(case, eps_r=spec.eps_r, options=options)
     sol = family.solve(layout, solve_options=settings, options=options)
     solutions[name] = sol
+    k = layout.index("pad")
     rows.append({"case": name, "s": time.perf_counter() - t0,
                  "panels": [lv.panels.n for lv in sol.levels],
-                 "estimate": sol.rel_error_estimate, "met": bool(sol.accuracy_met)})
+                 "estimate": sol.rel_error_estimate, "met": bool(sol.accuracy_met),
+                 "scope": sol.estimate_scope, "matrix": sol.matrix_rel_error_estimate,
+                 "c_pp": [float(lv.capacitance_F[k, k]) for lv in sol.levels]})
 touch = solutions.pop("touch")
 measured = family.measure(params, options, touch, solutions)
 print(json.dumps({
@@ -92,11 +95,69 @@ print(json.dumps({
 """
 
 
+#: One finer level of the touch and baseline solves, dense (--reference): C_pad,pad only.
+_REFERENCE = r"""
+import dataclasses, json, sys, time
+from elopt.optimizer.config.solve_config import read_solve_config
+from elopt.physics.bem3d import solve_3d
+from elopt.physics.electrodes.board_pad import neutral_layers_removed
+from elopt.physics.electrodes.registry import get_family
+from elopt.physics.threads import limit_blas_threads
+limit_blas_threads()
+spec = read_solve_config(sys.argv[1])
+family = get_family(spec.family)
+level = int(sys.argv[2])
+options = dataclasses.replace(spec.options, max_level=level)
+params = spec.params
+if sys.argv[3] == "air":
+    params = dataclasses.replace(params, board_eps_r=1.0, cover_eps_r=1.0, film_eps_r=1.0)
+cases = {"touch": params, **family.companion_designs(params, options)}
+out = {}
+for name in ("touch", "baseline"):
+    t0 = time.process_time()
+    layout = neutral_layers_removed(family.build(cases[name], eps_r=spec.eps_r, options=options))
+    sol = solve_3d(layout, rel_accuracy=1e-3, start_level=level, max_level=level, method="dense")
+    k = layout.index("pad")
+    out[name] = {"c_pp": float(sol.capacitance_matrix_F[k, k]), "panels": sol.levels[-1].panels.n,
+                 "cpu_s": time.process_time() - t0}
+print(json.dumps(out))
+"""
+
+
+def _reference_lines(rows: list[dict], finer: dict, level: int) -> list[str]:
+    """True error of each solve's finest C_pad,pad against one finer level (a lower bound)
+    and against the Richardson value of the last three levels with their observed ratio."""
+    out = [
+        f"reference: level {level} solved densely; true error of C_pad,pad on the finest level "
+        "solved above"
+    ]
+    for row in rows:
+        if row["case"] not in finer:
+            continue
+        ref = finer[row["case"]]
+        c = [*row["c_pp"], ref["c_pp"]]
+        r = (c[-1] - c[-2]) / (c[-2] - c[-3])
+        rich = c[-1] + (c[-1] - c[-2]) * r / (1.0 - r)
+        out.append(
+            f"  {row['case']:<9} C_pp {c[-2] * 1e12:.5f} pF; level {level} ({ref['panels']} "
+            f"panels, {ref['cpu_s']:.0f} s CPU) {c[-1] * 1e12:.5f} pF: error >= "
+            f"{abs(c[-2] / c[-1] - 1):.2g}; Richardson (ratio {r:.3f}) {rich * 1e12:.5f} pF: "
+            f"error {abs(c[-2] / rich - 1):.2g}; estimate {row['estimate']:.2g}"
+        )
+    return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--max-level", type=int, default=-1, help="default: the demo's")
     parser.add_argument("--request", type=float, default=1e-3)
     parser.add_argument("--air", action="store_true", help="every permittivity 1")
+    parser.add_argument(
+        "--reference",
+        action="store_true",
+        help="also solve touch and baseline one level finer, densely (--max-level 2: about "
+        "2.4 GB and 2 CPU minutes), for the true error of C_pad,pad",
+    )
     args = parser.parse_args()
     medium = "air" if args.air else "layers"
     out = subprocess.run(
@@ -106,13 +167,30 @@ def main() -> None:
         check=True,
     )
     r = json.loads(out.stdout.strip().splitlines()[-1])
+    finer_level = max(len(row["panels"]) for row in r["rows"])
+    finer = None
+    if args.reference:
+        ref = subprocess.run(
+            [sys.executable, "-c", _REFERENCE, str(CONFIG), str(finer_level), medium],
+            capture_output=True,
+            text=True,
+            check=True,
+        )
+        finer = json.loads(ref.stdout.strip().splitlines()[-1])
     medium = "in air (every permittivity 1)" if r["air"] else "with board, glass and film layers"
     print(f"Board touch pad demo {CONFIG.name}, {medium}, request {r['request']:g}")
-    print(f"{'solve':<10}{'panels per level':<24}{'seconds':>9}{'estimate':>10}{'met':>5}")
+    print(
+        f"{'solve':<10}{'panels per level':<24}{'seconds':>9}{'estimate':>10}{'met':>5}"
+        f"  {'of':<14}{'every entry':>12}{'met':>5}"
+    )
     for row in r["rows"]:
         panels = "/".join(str(n) for n in row["panels"])
         met = "yes" if row["met"] else "no"
-        print(f"{row['case']:<10}{panels:<24}{row['s']:>9.1f}{row['estimate']:>10.2g}{met:>5}")
+        matrix_met = "yes" if row["matrix"] <= r["request"] else "no"
+        print(
+            f"{row['case']:<10}{panels:<24}{row['s']:>9.1f}{row['estimate']:>10.2g}{met:>5}"
+            f"  {row['scope']:<14}{row['matrix']:>12.2g}{matrix_met:>5}"
+        )
     m = r["metrics"]
     load = os.getloadavg()[0]
     print(
@@ -128,6 +206,9 @@ def main() -> None:
         f"film shift {m['film_shift_fF']:.2f} fF, false-trigger margin "
         f"{m['false_trigger_margin']:.3g}"
     )
+    if finer is not None:
+        for line in _reference_lines(r["rows"], finer, finer_level):
+            print(line)
 
 
 if __name__ == "__main__":

@@ -1,6 +1,7 @@
 """Measure the safety factor of the refinement loop's error estimate on the published cases.
 
-Solves every case of tests/published_cases.py level by level (axisymmetric: 4, 6 and 8 nodes
+Solves every case of tests/published_cases.py (the two-conductor cases whose estimate
+covers their first conductor's C_00 among them) level by level (axisymmetric: 4, 6 and 8 nodes
 per panel; 3-D: flat triangles), and at every level from the third on compares the true
 error (against docs/references.md) with the bare geometric-tail estimate d r / (1 - r) of
 elopt.physics.refinement (safety factor 1, no noise floor; 3-D peaks: the larger of the last two
@@ -27,7 +28,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from published_cases import cases_for  # noqa: E402
+from published_cases import cases_for, covered_cases_for  # noqa: E402
 from test_axi_conductor_facts import _probe  # noqa: E402
 
 from elopt.physics import refinement  # noqa: E402
@@ -86,7 +87,7 @@ def main() -> None:
         f" {'true pk':>9} {'bare':>9} {'ratio':>6}"
     )
     for solver, order in runs:
-        for case in cases_for(solver):
+        for case in cases_for(solver) + covered_cases_for(solver):
             t0 = time.perf_counter()
             levels = _levels(solver, case, order)
             caps = [lv.capacitance_F[0, 0] for lv in levels]
