@@ -66,12 +66,10 @@ def test_coplanar_strips_on_interface(eps_below):
     assert top + bot == pytest.approx(sol.charges_C[0], rel=1e-12)
 
 
-def test_coplanar_waveguide_on_substrate():
-    # docs/references.md item 18 (Wen 1969): C' = 2 eps0 (eps_r + 1) K(k)/K(k'),
-    # k = s/(s + 2w), ground planes semi-infinite. Ours are 25 (s + 2w) wide: measured with
-    # widths 10, 25, 50, 100 (s + 2w) the deficit falls as about width^-2 (-4.9e-4, -8.4e-5,
-    # -2.2e-5, -1.5e-5 at the solver's 1e-5 floor), so about -8e-5 of finite-ground effect is
-    # left: finite grounds must give less than the formula, by less than 1.5e-4.
+def coplanar_waveguide() -> tuple[Layout, float]:
+    """A centre strip 1 m wide with 0.5 m slots to grounds 50 m wide on a semi-infinite
+    substrate of eps_r 10, and the formula's C' / eps0 for semi-infinite grounds
+    (docs/references.md item 18, Wen 1969: 2 (eps_r + 1) K(k)/K(k'), k = s/(s + 2w))."""
     s, w, eps_r, g = 1.0, 0.5, 10.0, 50.0
     lay = Layout(
         (
@@ -81,8 +79,17 @@ def test_coplanar_waveguide_on_substrate():
         ),
         layers=(PlanarLayer("substrate", eps_r, -INF, 0.0),),
     )
+    return lay, 2.0 * (eps_r + 1.0) * k_ratio(s / (s + 2 * w))
+
+
+def test_coplanar_waveguide_on_substrate():
+    # docs/references.md item 18 (Wen 1969), ground planes semi-infinite. Ours are 25 (s + 2w)
+    # wide: measured with widths 10, 25, 50, 100 (s + 2w) the deficit falls as about width^-2
+    # (-4.9e-4, -8.4e-5, -2.2e-5, -1.5e-5 at the solver's 1e-5 floor), so about -8e-5 of
+    # finite-ground effect is left: finite grounds must give less than the formula, by less
+    # than 1.5e-4.
+    lay, exact = coplanar_waveguide()
     sol = solve_2d(lay, rel_accuracy=1e-5)
-    exact = 2.0 * (eps_r + 1.0) * k_ratio(s / (s + 2 * w))
     c = sol.capacitance_matrix_F[0, 0] / EPS0_F_PER_M
     assert -1.5e-4 < c / exact - 1.0 < 0.0
 

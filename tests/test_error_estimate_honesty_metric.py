@@ -9,13 +9,12 @@ level to level; the coplanar family reports it as ``sense_capacitance_rel_error_
 from __future__ import annotations
 
 import pytest
-from test_bem2d_published import INF, k_ratio
+from test_bem2d_published import coplanar_waveguide
 from test_planar_sensitivity_sign import demo_params, mutual
 
-from elopt.physics.bem2d import Strip, solve_2d
+from elopt.physics.bem2d import solve_2d
 from elopt.physics.electrodes.coplanar import Coplanar, strips_layout
-from elopt.physics.layout import EPS0_F_PER_M, Layout, driven
-from elopt.physics.media import PlanarLayer
+from elopt.physics.layout import EPS0_F_PER_M
 from elopt.physics.refinement import combination_estimate
 
 REQUESTS = (1e-2, 3e-3, 1e-3, 3e-4, 1e-4)
@@ -32,17 +31,9 @@ def test_coplanar_waveguide_mutual_is_within_its_own_estimate(request_):
     # below the formula by less than 1.5e-4 (measured there, about 8e-5), so the true error
     # is judged against the estimate plus that bound. Without a back plane the mutual
     # capacitance is C_00 itself (measured: its estimate equals the matrix estimate).
-    s, w, eps_r, g = 1.0, 0.5, 10.0, 50.0
-    lay = Layout(
-        (
-            driven("centre", Strip(-s / 2, s / 2, 0.0), 1.0),
-            driven("gnd_left", Strip(-s / 2 - w - g, -s / 2 - w, 0.0), 0.0),
-            driven("gnd_right", Strip(s / 2 + w, s / 2 + w + g, 0.0), 0.0),
-        ),
-        layers=(PlanarLayer("substrate", eps_r, -INF, 0.0),),
-    )
+    lay, exact_over_eps0 = coplanar_waveguide()
     sol = solve_2d(lay, rel_accuracy=request_)
-    exact = 2.0 * (eps_r + 1.0) * k_ratio(s / (s + 2 * w)) * EPS0_F_PER_M
+    exact = exact_over_eps0 * EPS0_F_PER_M
     true = abs(_centre_to_grounds(sol.capacitance_matrix_F) / exact - 1.0)
     finite_grounds = 1.5e-4
     est = combination_estimate(sol.levels, sol.convergence, _centre_to_grounds)
