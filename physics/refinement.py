@@ -89,12 +89,13 @@ class SolveOptions:
 
     ``rel_accuracy``: estimated relative error of the capacitance matrix (entry (i, j)
     relative to sqrt(C_ii C_jj); only the entries among the conductors the layout names in
-    ``estimate_covers``, when it names any) at which refinement stops. ``peak_rel_accuracy``: a separate
-    request on the peak surface field (None: none; a peak at a sharp edge, which has no limit,
-    is exempt). ``max_level``: finest level solved (levels from 0). ``max_unknowns``: largest
-    system solved. ``order``: solver-specific discretisation order (axisymmetric: nodes per
-    panel), None = chosen from the accuracy. ``strict``: raise :class:`SolverError` when a
-    request is not met instead of returning with ``accuracy_met`` False.
+    ``estimate_covers``, when it names any) at which refinement stops.
+    ``peak_rel_accuracy``: a separate request on the peak surface field (None: none; a peak at
+    a sharp edge, which has no limit, is exempt). ``max_level``: finest level solved (levels
+    from 0). ``max_unknowns``: largest system solved. ``order``: solver-specific
+    discretisation order (axisymmetric: nodes per panel), None = chosen from the accuracy.
+    ``strict``: raise :class:`SolverError` when a request is not met instead of returning with
+    ``accuracy_met`` False.
     """
 
     rel_accuracy: float = 1e-4

@@ -26,7 +26,8 @@ from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.layout import Layout, driven
 from elopt.physics.refinement import SolveOptions
 
-#: Loose requests replayed on one solve at the tightest (as tests/test_error_estimate_honesty_loose.py).
+#: Loose requests replayed on one solve at the tightest (as in
+#: tests/test_error_estimate_honesty_loose.py).
 LOOSE_REQUESTS = (1e-3, 5e-4, 2e-4, COARSE_REQUEST)
 
 
