@@ -3,7 +3,9 @@
 A case is one conductor whose capacitance (and, where the surface is smooth, peak surface
 field) is known from docs/references.md; ``layout(solver)`` builds it for "axi" (generating
 curves) or "3d" (triangle surfaces). Used by the conformance suite, the error-estimate honesty
-test and tests/benchmarks/measure_error_estimate.py.
+test and tests/benchmarks/measure_error_estimate.py. ``COVERED_CASES`` are pairs (a driven pad
+beside a grounded target) whose layouts' error estimate covers the pad only, with the
+published C_pad,pad (tests/test_error_estimate_honesty_covered.py).
 """
 
 from __future__ import annotations
