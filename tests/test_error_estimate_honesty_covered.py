@@ -19,12 +19,12 @@ import pytest
 import reference_values as ref
 import test_error_estimate_honesty as honesty
 from published_cases import covered_cases_for
+from test_error_estimate_honesty_loose import loose_records
 
 from elopt.physics import geometry as geo
 from elopt.physics.bem_axi.solve import COARSE_REQUEST, solve_axisymmetric
 from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.layout import Layout, driven
-from elopt.physics.refinement import SolveOptions
 
 #: Loose requests replayed on one solve at the tightest (as in
 #: tests/test_error_estimate_honesty_loose.py).
@@ -77,24 +77,12 @@ def test_two_sphere_series_matches_kelvin_images(radii):
     assert c_bb == pytest.approx(swapped_aa, rel=1e-12)
 
 
-def _loose_records() -> list:
-    rows = []
-    for case in covered_cases_for("axi"):
-        layout = case.layout("axi")
-        sol = solve_axisymmetric(layout, rel_accuracy=min(LOOSE_REQUESTS))
-        solved = honesty._Solved(sol.levels, sol.convergence, layout.estimate_indices)
-        for req in LOOSE_REQUESTS:
-            run = honesty._replay(solved, SolveOptions(rel_accuracy=req))
-            true = abs(run.levels[-1].capacitance_F[0, 0] / case.capacitance_F - 1)
-            rows.append((f"axi loose {case.name}", req, true, run.estimate.capacitance, run))
-    return rows
-
-
 @pytest.fixture(scope="module")
 def records():
     axi = honesty._records("axi", covered_cases_for("axi"))[0]
     d3 = honesty._records("3d", covered_cases_for("3d"))[0]
-    return {"C": axi + d3 + _loose_records()}
+    loose = loose_records(covered_cases_for("axi"), LOOSE_REQUESTS)
+    return {"C": axi + d3 + loose}
 
 
 @pytest.mark.slow
