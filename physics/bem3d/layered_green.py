@@ -469,13 +469,13 @@ class LayeredBackground:
         When the panels, the densities and the points are mirror symmetric (the field
         samples of a symmetric solve), the points of one orbit are computed once and the
         others take their mirrored values (the kernel keeps the mirrors)."""
-        orbits = _symmetric_points(panels, dens, pts)
+        orbits = symmetric_points(panels, dens, pts)
         if orbits is None:
             return self._potential_and_gradient(panels, dens, pts)
         pot_r, grad_r = self._potential_and_gradient(panels, dens, pts[orbits.reps], pts)
         pot = np.empty((len(pts), dens.shape[1]))
         grad = np.empty((len(pts), 3, dens.shape[1]))
-        for img, flip in zip(orbits.images, _mirror_signs(orbits.planes), strict=True):
+        for img, flip in zip(orbits.images, mirror_signs(orbits.planes), strict=True):
             idx = img[orbits.reps]
             pot[idx] = pot_r
             grad[idx] = grad_r * flip[None, :, None]
@@ -516,7 +516,7 @@ class LayeredBackground:
         return self.stack.eps_r_at(np.asarray(points)[:, 2])
 
 
-def _mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
+def mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
     """Gradient signs (3,) per group element, in the order of
     :attr:`elopt.physics.bem3d.symmetry.MirrorSymmetry.images` (identity, each plane, both)."""
     flips = [np.ones(3)]
@@ -529,7 +529,7 @@ def _mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
     return flips
 
 
-def _symmetric_points(panels, dens: np.ndarray, pts: np.ndarray):
+def symmetric_points(panels, dens: np.ndarray, pts: np.ndarray):
     """Orbits of the points under the panels' mirror symmetry when the densities (N, K) are
     the same on every orbit and the points (M, 3) map onto themselves, else None."""
     from elopt.physics.bem3d.symmetry import mirror_symmetry, point_orbits
