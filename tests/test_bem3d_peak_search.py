@@ -9,6 +9,7 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from test_board_pad import COARSE, ROUND
 
 from elopt.physics.bem3d import solve_3d
 from elopt.physics.bem3d.faces import face_samples
@@ -19,30 +20,14 @@ from elopt.physics.bem3d.peak_search import (
 )
 from elopt.physics.electrodes.board_pad import (
     BoardPad,
-    BoardPadOptions,
-    BoardPadParams,
     neutral_layers_removed,
 )
 from elopt.physics.refinement import peaks_per_conductor
 
-#: A small round key on a glass-epoxy board under glass (permittivities: common practice, no
-#: source), and the same geometry in air.
-LAYERED = BoardPadParams(
-    pad_shape="round",
-    pad_length_mm=6.0,
-    clearance_mm=0.8,
-    pour_size_mm=12.0,
-    board_thickness_mm=1.0,
-    board_eps_r=4.4,
-    cover_thickness_mm=1.0,
-    cover_eps_r=7.0,
-    target_distance_mm=1.0,
-    drive_V=3.3,
-    target_size_mm=6.0,
-    finger_length_mm=10.0,
-)
-AIR = replace(LAYERED, board_eps_r=1.0, cover_eps_r=1.0)
-OPTIONS = BoardPadOptions(mesh_step_mm=1.5, max_level=1)
+#: The small round key of the board tests on a glass-epoxy board under glass (permittivities:
+#: common practice, no source), and in air.
+LAYERED = replace(ROUND, board_eps_r=4.4, cover_eps_r=7.0)
+AIR = ROUND
 
 
 def exhaustive_peaks(level):
@@ -55,7 +40,7 @@ def exhaustive_peaks(level):
 
 
 def solved(params, pour_V=0.0):
-    layout = neutral_layers_removed(BoardPad().build(params, options=OPTIONS))
+    layout = neutral_layers_removed(BoardPad().build(params, options=COARSE))
     if pour_V:
         pad, pour, target = layout.conductors
         layout = replace(layout, conductors=(pad, replace(pour, potential_V=pour_V), target))
