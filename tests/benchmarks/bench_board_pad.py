@@ -38,6 +38,32 @@ touch solve does not meet 1e-3. What remains
 last three levels 20 s; by share of the profiled time the general remainder kernel (copper
 rows over finger panels, field sums at the peak-search probes) 53 %, the image integrals
 19 %, the flat remainder 12 %, the tables 3 %, LU 2 %.
+
+Peak search (3 Dec 2026): the peak estimate needs the touch solve's peak on each of its last
+three levels, and every sheet face of the pad and pour was sampled (a field sum over all
+panels at a probe just off each face: 18,224 samples on the finest level through the
+compressed layered path). Now only the faces that can hold a conductor's peak are sampled
+(``physics/bem3d/peak_search.py``: 88 / 160 / 312 of 440 / 1628 / 6372 sheet panels), with
+the same peak (``tests/test_bem3d_peak_search.py``). ``--max-level 2``, before (main 02c8a3a,
+a second worktree) and after run back to back, three pairs on the shared machine (load
+average from /proc/loadavg at the start of each run; the wall times follow the load):
+
+                              before (main 02c8a3a)     after
+    pair 1 wall / CPU         108.5 s / 37.9 s (8.9)    24.1 s / 17.7 s (7.9)
+    pair 2 wall / CPU         96.3 s / 37.8 s (9.9)     45.4 s / 18.0 s (10.2)
+    pair 3 wall / CPU         89.4 s / 38.2 s (9.9)     35.6 s / 17.2 s (8.8)
+    median CPU, ratio         37.9 s                    17.7 s (0.47)
+    peak resident memory      623 MB                    449 MB
+    estimates, signal         2.0e-3 / 7.5e-4 / 7.5e-4, 134.57 +- 0.99 fF (both)
+    peak field                1.85e5 V/m (both; the mirror image of the same panel)
+
+After, per level (wall at load about 7, dense on one panel per orbit): touch setup 0.4 /
+1.3 / 11.9 s, solve 0.0 / 0.0 / 0.6 s; baseline 0.1 / 0.3 / 3.1 s; film 0.1 / 0.2 / 3.6 s;
+peak searches of the touch levels 0.4 / 0.5 / 1.3 s CPU (the finest was 12.7 s wall, 20 s
+CPU). The solves now dominate (about 15 of the 18 CPU seconds): the layered matrix of the
+touch's finest level (flat and general remainder, image integrals), then the baseline's
+and film's finest levels. One of the three runs was under 30 s wall at load 7.9; no run was
+made on an idle machine.
 """
 
 from __future__ import annotations
