@@ -17,6 +17,7 @@ import numpy as np
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import apply_once
 from elopt.physics.bem3d.hmatrix_layered import compressed_integrals
+from elopt.physics.bem3d.layered_green import mirror_signs, symmetric_points
 from elopt.physics.bem3d.operators import FOUR_PI
 from elopt.physics.bem3d.panels import PanelSet
 
@@ -62,11 +63,30 @@ def directional_derivative(
     dirs = np.ascontiguousarray(directions, dtype=float)
     dens = _columns(density)
     if panels.background is not None and len(pts) * panels.n > DIRECT_PAIRS:
+        orbits = mirrored_directions(panels, dens, pts, dirs)
+        if orbits is not None:
+            reps = orbits.reps
+            return compressed_integrals(panels, dens, pts[reps], EVAL_TOL, dirs[reps])[orbits.orbit]
         return compressed_integrals(panels, dens, pts, EVAL_TOL, dirs)
     if panels.background is not None or len(pts) * panels.n <= DIRECT_PAIRS:
         _, grad = _direct(panels, dens, pts)
         return np.einsum("mck,mc->mk", grad, dirs)
     return apply_once(panels, dens, tol=tol, targets=pts, directions=dirs)
+
+
+def mirrored_directions(panels: PanelSet, dens: np.ndarray, pts: np.ndarray, dirs: np.ndarray):
+    """Orbits of the points (M, 3) when the panels, the densities (N, K), the points and the
+    directions (M, 3) are mirror symmetric (the image of a point's direction is its image's
+    direction, as the normals of a face's samples), else None: a derivative along the
+    direction is then the same at every point of an orbit."""
+    orbits = symmetric_points(panels, dens, pts)
+    if orbits is None:
+        return None
+    tol = 1e-12 * float(np.max(np.abs(dirs)))
+    for img, flip in zip(orbits.images[1:], mirror_signs(orbits.planes)[1:], strict=True):
+        if np.max(np.abs(dirs[img] - dirs * flip)) > tol:
+            return None
+    return orbits
 
 
 def _columns(density: np.ndarray) -> np.ndarray:

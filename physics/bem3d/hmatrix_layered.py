@@ -79,7 +79,7 @@ class _Sources:
 @njit(cache=True)
 def _remainder_entry(i, j, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc):
     """The remainder of panel j at target i (its derivative along dirs[i] when ``deriv``)."""
-    _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+    _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc, not deriv)
     if deriv:
         return acc[1] * dirs[i, 0] + acc[2] * dirs[i, 1] + acc[3] * dirs[i, 2]
     return acc[0]

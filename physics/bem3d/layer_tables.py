@@ -298,15 +298,28 @@ def _basis(t: float):
     return h0, h1, g0, g1, dh0, dh1, dg0, dg1
 
 
+@njit(cache=True, inline="always")
+def _cell(nu, nv, hu, v0, hv, u, v):
+    """The table cell (i, j) holding (u, v) (the last one beyond the ends) and the position
+    (t, s) in it, in cell widths."""
+    x = u / hu
+    i = min(max(int(x), 0), nu - 2)
+    y = (v - v0) / hv
+    j = min(max(int(y), 0), nv - 2)
+    return i, x - i, j, y - j
+
+
+@njit(cache=True, inline="always")
+def _corner(tab, i, j, hu, hv):
+    """Value and derivatives at node (i, j) scaled to cell widths: T, hu T_u, hv T_v,
+    hu hv T_uv."""
+    return tab[i, j, 0], tab[i, j, 1] * hu, tab[i, j, 2] * hv, tab[i, j, 3] * hu * hv
+
+
 @njit(cache=True)
 def hermite_uv(tab, nu, nv, hu, v0, hv, u, v, out) -> None:
     """out[:3] = T, dT/du, dT/dv at (u, v) by the bicubic Hermite patch of its cell."""
-    x = u / hu
-    i = min(max(int(x), 0), nu - 2)
-    t = x - i
-    y = (v - v0) / hv
-    j = min(max(int(y), 0), nv - 2)
-    s = y - j
+    i, t, j, s = _cell(nu, nv, hu, v0, hv, u, v)
     hx0, hx1, gx0, gx1, dhx0, dhx1, dgx0, dgx1 = _basis(t)
     hy0, hy1, gy0, gy1, dhy0, dhy1, dgy0, dgy1 = _basis(s)
     f = 0.0
@@ -322,16 +335,32 @@ def hermite_uv(tab, nu, nv, hu, v0, hv, u, v, out) -> None:
             gy = gy0 if q == 0 else gy1
             dhy = dhy0 if q == 0 else dhy1
             dgy = dgy0 if q == 0 else dgy1
-            c0 = tab[i + p, j + q, 0]
-            c1 = tab[i + p, j + q, 1] * hu
-            c2 = tab[i + p, j + q, 2] * hv
-            c3 = tab[i + p, j + q, 3] * hu * hv
+            c0, c1, c2, c3 = _corner(tab, i + p, j + q, hu, hv)
             f += hx * hy * c0 + gx * hy * c1 + hx * gy * c2 + gx * gy * c3
             fu += dhx * hy * c0 + dgx * hy * c1 + dhx * gy * c2 + dgx * gy * c3
             fv += hx * dhy * c0 + gx * dhy * c1 + hx * dgy * c2 + gx * dgy * c3
     out[0] = f
     out[1] = fu / hu
     out[2] = fv / hv
+
+
+@njit(cache=True, inline="always")
+def hermite_value(tab, nu, nv, hu, v0, hv, u, v) -> float:
+    """T at (u, v): :func:`hermite_uv`'s first output alone (the same sums in the same
+    order, so the same value), for entries that need no derivative."""
+    i, t, j, s = _cell(nu, nv, hu, v0, hv, u, v)
+    hx0, hx1, gx0, gx1, _, _, _, _ = _basis(t)
+    hy0, hy1, gy0, gy1, _, _, _, _ = _basis(s)
+    f = 0.0
+    for p in range(2):
+        hx = hx0 if p == 0 else hx1
+        gx = gx0 if p == 0 else gx1
+        for q in range(2):
+            hy = hy0 if q == 0 else hy1
+            gy = gy0 if q == 0 else gy1
+            c0, c1, c2, c3 = _corner(tab, i + p, j + q, hu, hv)
+            f += hx * hy * c0 + gx * hy * c1 + hx * gy * c2 + gx * gy * c3
+    return f
 
 
 @njit(cache=True)

@@ -53,6 +53,7 @@ from elopt.physics.bem3d.layer_tables import (
     TableRange,
     build_tables,
     hermite_uv,
+    hermite_value,
 )
 from elopt.physics.errors import GeometryError, SolverError
 from elopt.physics.layer_spectrum import StackSpectrum
@@ -469,13 +470,13 @@ class LayeredBackground:
         When the panels, the densities and the points are mirror symmetric (the field
         samples of a symmetric solve), the points of one orbit are computed once and the
         others take their mirrored values (the kernel keeps the mirrors)."""
-        orbits = _symmetric_points(panels, dens, pts)
+        orbits = symmetric_points(panels, dens, pts)
         if orbits is None:
             return self._potential_and_gradient(panels, dens, pts)
         pot_r, grad_r = self._potential_and_gradient(panels, dens, pts[orbits.reps], pts)
         pot = np.empty((len(pts), dens.shape[1]))
         grad = np.empty((len(pts), 3, dens.shape[1]))
-        for img, flip in zip(orbits.images, _mirror_signs(orbits.planes), strict=True):
+        for img, flip in zip(orbits.images, mirror_signs(orbits.planes), strict=True):
             idx = img[orbits.reps]
             pot[idx] = pot_r
             grad[idx] = grad_r * flip[None, :, None]
@@ -516,7 +517,7 @@ class LayeredBackground:
         return self.stack.eps_r_at(np.asarray(points)[:, 2])
 
 
-def _mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
+def mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
     """Gradient signs (3,) per group element, in the order of
     :attr:`elopt.physics.bem3d.symmetry.MirrorSymmetry.images` (identity, each plane, both)."""
     flips = [np.ones(3)]
@@ -529,7 +530,7 @@ def _mirror_signs(planes: tuple[str, ...]) -> list[np.ndarray]:
     return flips
 
 
-def _symmetric_points(panels, dens: np.ndarray, pts: np.ndarray):
+def symmetric_points(panels, dens: np.ndarray, pts: np.ndarray):
     """Orbits of the points under the panels' mirror symmetry when the densities (N, K) are
     the same on every orbit and the points (M, 3) map onto themselves, else None."""
     from elopt.physics.bem3d.symmetry import mirror_symmetry, point_orbits
@@ -595,8 +596,9 @@ def _sums(pts, corners, centroids, areas, diams, dens) -> np.ndarray:
 
 
 @njit(cache=True, inline="always")
-def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
-    """res = (sum T, sum dT/drho, sum dT/dz) over the placed terms at one pair."""
+def _terms_at(tabs, prm, rho, zt, zs, buf, res, value_only) -> None:
+    """res = (sum T, sum dT/drho, sum dT/dz) over the placed terms at one pair (with
+    ``value_only`` res[0] alone)."""
     rs = prm[0, 0]
     u = math.asinh(rho / rs)
     f = 0.0
@@ -604,6 +606,10 @@ def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
     fz = 0.0
     for t in range(prm.shape[0]):
         ad = max(prm[t, 5] + prm[t, 6] * zt + prm[t, 7] * zs + prm[t, 1], prm[t, 10])
+        if value_only:
+            nu, nv = int(prm[t, 8]), int(prm[t, 9])
+            f += hermite_value(tabs[t], nu, nv, prm[t, 2], prm[t, 3], prm[t, 4], u, math.log(ad))
+            continue
         hermite_uv(
             tabs[t],
             int(prm[t, 8]),
@@ -619,17 +625,21 @@ def _terms_at(tabs, prm, rho, zt, zs, buf, res) -> None:
         fr += buf[1]
         fz += buf[2] / ad * prm[t, 6]
     res[0] = f
+    if value_only:
+        return
     res[1] = fr / math.sqrt(rho * rho + rs * rs)
     res[2] = fz
 
 
 @njit(cache=True, inline="always")
-def _add_point(tx, ty, tz, sx, sy, sz, w, tabs, prm, buf, res, acc) -> None:
+def _add_point(tx, ty, tz, sx, sy, sz, w, tabs, prm, buf, res, acc, value_only) -> None:
     dx = tx - sx
     dy = ty - sy
     rho = math.sqrt(dx * dx + dy * dy)
-    _terms_at(tabs, prm, rho, tz, sz, buf, res)
+    _terms_at(tabs, prm, rho, tz, sz, buf, res, value_only)
     acc[0] += w * res[0]
+    if value_only:
+        return
     if rho > 0.0:
         acc[1] += w * res[1] * dx / rho
         acc[2] += w * res[1] * dy / rho
@@ -649,8 +659,9 @@ def _near_rule(length, diam, factors, rules):
 
 
 @njit(cache=True)
-def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
-    """acc = remainder (value, gradient) at target t of panel j, rule chosen by the length."""
+def _panel(t, j, rules, factors, tabs, prm, buf, res, acc, value_only) -> None:
+    """acc = remainder (value, gradient) at target t of panel j, rule chosen by the length
+    (with ``value_only`` acc[0] alone)."""
     cen, area, diam = rules[0], rules[1], rules[2]
     for c in range(4):
         acc[c] = 0.0
@@ -662,12 +673,16 @@ def _panel(t, j, rules, factors, tabs, prm, buf, res, acc) -> None:
     length = math.sqrt(dx * dx + dy * dy + amin * amin)
     if length >= factors[0] * diam[j]:
         c = cen[j]
-        _add_point(t[0], t[1], t[2], c[0], c[1], c[2], area[j], tabs, prm, buf, res, acc)
+        _add_point(
+            t[0], t[1], t[2], c[0], c[1], c[2], area[j], tabs, prm, buf, res, acc, value_only
+        )
         return
     pts, wts = _near_rule(length, diam[j], factors, rules)
     for q in range(pts.shape[1]):
         s = pts[j, q]
-        _add_point(t[0], t[1], t[2], s[0], s[1], s[2], wts[j, q], tabs, prm, buf, res, acc)
+        _add_point(
+            t[0], t[1], t[2], s[0], s[1], s[2], wts[j, q], tabs, prm, buf, res, acc, value_only
+        )
 
 
 @njit(cache=True, parallel=True)
@@ -685,7 +700,7 @@ def _remainder(targets, rules, factors, tabs, prm, dens, matrix, sums, dirs) -> 
         res = np.empty(3)
         acc = np.empty(4)
         for j in range(n):
-            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc)
+            _panel(targets[i], j, rules, factors, tabs, prm, buf, res, acc, fill and not along)
             if fill and along:
                 d = dirs[i]
                 matrix[i, j] = acc[1] * d[0] + acc[2] * d[1] + acc[3] * d[2]

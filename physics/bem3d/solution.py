@@ -19,17 +19,16 @@ from functools import cached_property
 import numpy as np
 
 from elopt.physics.bem3d.evaluate import EVAL_TOL, directional_derivative, potential_and_gradient
+from elopt.physics.bem3d.faces import face_samples
 from elopt.physics.bem3d.operators import SolveStats
 from elopt.physics.bem3d.panels import PanelSet
+from elopt.physics.bem3d.peak_search import searched_peaks
 from elopt.physics.bem3d.plane_rule import plane_rule
 from elopt.physics.bem3d.symmetry import mirror_symmetry, point_orbits
 from elopt.physics.errors import SolverError
-from elopt.physics.layout import EPS0_F_PER_M, Layout
-from elopt.physics.refinement import LevelPeak, Refinement, peaks_per_conductor
+from elopt.physics.layout import Layout
+from elopt.physics.refinement import LevelPeak, Refinement
 from elopt.physics.solution import ChargeSolution, SurfaceSamples, excitation_potentials
-
-#: Points for the one-sided field of a sheet face sit this many panel sizes off the panel.
-_FACE_OFFSET = 1e-7
 
 
 @dataclass(frozen=True, eq=False)
@@ -62,82 +61,13 @@ class LevelResult3D:
         return face_samples(self, self.layout, sigma[:, None], applied=True)
 
     def peaks(self) -> tuple[LevelPeak, ...]:
-        """Peak surface field per conductor at the excitation: the largest face sample."""
+        """Peak surface field per conductor at the excitation: the largest face sample, found
+        by :func:`.peak_search.searched_peaks` (the faces that can hold it)."""
         return self._peaks
 
     @cached_property
     def _peaks(self) -> tuple[LevelPeak, ...]:
-        s = self.excitation_samples
-        field = np.abs(s["sigma"][:, 0]) / s["eps_F_per_m"]
-        singular = self.panels.feature[s["panel"]]
-        return peaks_per_conductor(self.layout.names, s["owner"], field, s["points_m"], singular)
-
-
-def face_samples(level: LevelResult3D, layout: Layout, dens: np.ndarray, applied: bool) -> dict:
-    """Free-charge samples of every conductor panel (closed: one; sheet: one per face) for
-    total densities (N, K) of every panel.
-
-    Keys: ``points_m`` (S, 3), ``normals`` (S, 3), ``panel`` (S,) panel index, ``owner`` (S,),
-    ``face`` (S,) 0 / +1 / -1, ``sigma`` (S, K) the free density on that face, ``area_m2``
-    (S,), ``eps_F_per_m`` (S,) the permittivity of the medium touching that face.
-    """
-    p = level.panels
-    mesh = p.mesh
-    nc = p.n_conductor_panels
-    idx = np.arange(nc)
-    sheet = np.nonzero(p.sheet)[0]
-    keep = idx[~p.sheet[:nc]]
-    points = [mesh.centroids_m[keep]]
-    normals = [mesh.normals[keep]]
-    panel = [keep]
-    face = [np.zeros(len(keep), dtype=np.int8)]
-    sigma = [dens[keep]]
-    if len(sheet):
-        # Each sheet panel gives its two faces: sigma_face = eps_m E . n_face just off it.
-        offset = (_FACE_OFFSET * mesh.diameters_m[sheet])[:, None] * mesh.normals[sheet]
-        c = mesh.centroids_m[sheet]
-        probes = np.concatenate([c + offset, c - offset])
-        n2 = np.concatenate([mesh.normals[sheet], -mesh.normals[sheet]])
-        # eps_m E . n = -grad(pot integral) . n (the 1/eps_m of the potential cancels).
-        on_face = -directional_derivative(p, dens, probes, n2)
-        if applied:
-            on_face += (layout.eps_F_per_m * layout.applied_field_V_per_m * n2[:, 2])[:, None]
-        points += [c, c]
-        normals += [mesh.normals[sheet], -mesh.normals[sheet]]
-        panel += [sheet, sheet]
-        face += [np.ones(len(sheet), dtype=np.int8), -np.ones(len(sheet), dtype=np.int8)]
-        sigma += [on_face[: len(sheet)], on_face[len(sheet) :]]
-    panel_all = np.concatenate(panel)
-    normals_all = np.concatenate(normals)
-    points_all = np.concatenate(points)
-    # The total density is eps_m E_n outside; the free one eps_f E_n (module text of .solve).
-    eps_face = EPS0_F_PER_M * p.eps_front[panel_all]
-    ratio = eps_face / layout.eps_F_per_m
-    if p.background is not None:
-        # planar layers: closed panels carry the free density already; on a sheet face
-        # -grad . n of the potential integrals is eps_m E . n, its free charge eps_face E . n
-        # with eps_face that of the layer just outside
-        # (a conductor inside a body: the body's eps_front, its density sigma radiating in
-        # the slab eps_slab, so the free one is eps_front / eps_slab of it)
-        off = (_FACE_OFFSET * mesh.diameters_m[panel_all])[:, None] * normals_all
-        touch, slab = p.eps_front[panel_all], p.eps_slab[panel_all]
-        coated = touch != slab
-        eps_face = EPS0_F_PER_M * np.where(coated, touch, p.background.eps_r_at(points_all + off))
-        ratio = np.where(
-            np.concatenate(face) != 0,
-            eps_face / layout.eps_F_per_m,
-            np.where(coated, touch / slab, 1.0),
-        )
-    return {
-        "points_m": points_all,
-        "normals": normals_all,
-        "panel": panel_all,
-        "owner": p.owner[panel_all],
-        "face": np.concatenate(face),
-        "sigma": np.concatenate(sigma) * ratio[:, None],
-        "area_m2": mesh.areas_m2[panel_all],
-        "eps_F_per_m": eps_face,
-    }
+        return searched_peaks(self)
 
 
 class PanelSolution(ChargeSolution):

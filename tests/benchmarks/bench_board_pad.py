@@ -59,6 +59,37 @@ and 24992 panels; the compressed layered path at that level lost about 1 % of th
 entries, so the reference is dense). The pad-only estimate of the baseline is above its
 whole-matrix one: the matrix's largest change moved from the pour (level 1) to the pad
 (level 2), which made the matrix's observed ratio smaller than the pad's own.
+
+Peak search (3 Dec 2026): the peak estimate needs the touch solve's peak on each of its last
+three levels, and every sheet face of the pad and pour was sampled (a field sum over all
+panels at a probe just off each face: 18,224 samples on the finest level through the
+compressed layered path). Now only the faces that can hold a conductor's peak are sampled
+(``physics/bem3d/peak_search.py``: 88 / 160 / 312 of 440 / 1628 / 6372 sheet panels), with
+the same peak (``tests/test_bem3d_peak_search.py``); the layered remainder's matrix entries
+read the tables' values without their derivatives (the same entries bit for bit).
+``--max-level 2``, before (main 02c8a3a, a second worktree) and after run back to back on
+the shared machine (load average from /proc/loadavg at the start of each run; the wall
+times follow the load, CPU seconds are the process's own):
+
+                              before (main 02c8a3a)     after
+    pair 1 wall / CPU (load)  78.8 s / 38.1 s (8.2)     33.9 s / 16.5 s (6.6)
+    pair 2 wall / CPU (load)  76.1 s / 38.0 s (6.8)     28.0 s / 16.5 s (6.6)
+    CPU, after / before                                 0.43
+    peak resident memory      623 MB                    449 MB
+    estimates, signal         2.0e-3 / 7.5e-4 / 7.5e-4, 134.57 +- 0.99 fF (both)
+    peak field                1.85e5 V/m (both; the mirror image of the same panel)
+
+(Three earlier pairs with the peak search alone, load 8-10: 37.9 / 37.8 / 38.2 s CPU before,
+17.7 / 18.0 / 17.2 s after; 24.1 to 45.4 s wall after.) After, per level (wall at load about
+7, dense on one panel per orbit): touch setup 0.4 / 1.3 / 11.9 s, solve 0.0 / 0.0 / 0.6 s;
+baseline 0.1 / 0.3 / 3.1 s; film 0.1 / 0.2 / 3.6 s; peak searches of the touch levels 0.4 /
+0.5 / 1.3 s CPU (the finest was 12.7 s wall, 20 s CPU). The solves now dominate (about 14 of
+the 16.5 CPU seconds; the touch solve 9.0 s of them): the layered matrix of the touch's
+finest level (general remainder of copper rows over finger panels and finger rows, image
+integrals, flat copper remainder), then the baseline's and film's finest levels. Wall times
+under 30 s were measured at load 6.6 (28.0 s) and 7.9 (24.1 s); no run was made on an idle
+machine, where the wall time should be below the 16.5 CPU seconds (the kernels run on both
+cores) but was not measured.
 """
 
 from __future__ import annotations
