@@ -267,6 +267,81 @@ def _entry(
     return v / (4.0 * math.pi)
 
 
+@njit(cache=True)
+def _orbit_entry(
+    i,
+    targets,
+    dirs,
+    deriv,
+    j,
+    corners,
+    centroids,
+    areas,
+    diams,
+    gp,
+    image,
+    mirror_w,
+    r3,
+    w3,
+    r7,
+    w7,
+    buf,
+    tri,
+    cen,
+):
+    """:func:`_entry` summed over the mirror images of panel j: targets (G M, 3) hold the M
+    targets reflected by each of the G group elements (element 0 the identity), and the
+    integral over the image of panel j under element g is that over panel j at the reflected
+    target, weighted by ``mirror_w[g, j]`` (0 for an image already counted). With G = 1 it is
+    :func:`_entry` itself."""
+    v = _entry(
+        i,
+        targets,
+        dirs,
+        deriv,
+        j,
+        corners,
+        centroids,
+        areas,
+        diams,
+        gp,
+        image,
+        r3,
+        w3,
+        r7,
+        w7,
+        buf,
+        tri,
+        cen,
+    )
+    n_group = mirror_w.shape[0]
+    m = targets.shape[0] // n_group
+    for g in range(1, n_group):
+        w = mirror_w[g, j]
+        if w != 0.0:
+            v += w * _entry(
+                g * m + i,
+                targets,
+                dirs,
+                deriv,
+                j,
+                corners,
+                centroids,
+                areas,
+                diams,
+                gp,
+                image,
+                r3,
+                w3,
+                r7,
+                w7,
+                buf,
+                tri,
+                cen,
+            )
+    return v
+
+
 @njit(cache=True, parallel=True)
 def _near_blocks(
     blocks,
@@ -286,6 +361,7 @@ def _near_blocks(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
@@ -302,7 +378,7 @@ def _near_blocks(
         for ii in range(t_start[t], t_end[t]):
             i = t_perm[ii]
             for jj in range(s_start[s], s_end[s]):
-                out[k] = _entry(
+                out[k] = _orbit_entry(
                     i,
                     targets,
                     dirs,
@@ -314,6 +390,7 @@ def _near_blocks(
                     diams,
                     gp,
                     image,
+                    mirror_w,
                     r3,
                     w3,
                     r7,
@@ -459,6 +536,7 @@ def _aca_block(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
@@ -486,7 +564,7 @@ def _aca_block(
         used_r[i_star] = True
         row = np.empty(n)
         for j in range(n):
-            row[j] = _entry(
+            row[j] = _orbit_entry(
                 rows[i_star],
                 targets,
                 dirs,
@@ -498,6 +576,7 @@ def _aca_block(
                 diams,
                 gp,
                 image,
+                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -518,7 +597,7 @@ def _aca_block(
         col = np.empty(m)
         jj = cols[j_star]
         for i in range(m):
-            col[i] = _entry(
+            col[i] = _orbit_entry(
                 rows[i],
                 targets,
                 dirs,
@@ -530,6 +609,7 @@ def _aca_block(
                 diams,
                 gp,
                 image,
+                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -622,6 +702,7 @@ def _aca_batch(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
@@ -657,6 +738,7 @@ def _aca_batch(
             diams,
             gp,
             image,
+            mirror_w,
             r3,
             w3,
             r7,
@@ -812,17 +894,40 @@ class _Blocks:
         return t.start, t.end, s.start, s.end, ident_t, ident_s
 
 
+@dataclass(frozen=True)
+class MirrorFold:
+    """Columns summed over mirror images: column r is the sum over the group elements g of
+    ``weights[g, r]`` times the column of the image under g of panel ``sources[r]`` (R,).
+    ``signs`` (G, 3): each element's reflection of coordinates (row 0 the identity, all +1).
+
+    Valid in a compressed matrix when the targets and the ``sources`` lie in one closed
+    quadrant of the mirror planes: a reflected target is then at least as far from a source
+    cluster as the target itself, so a block admissible for the target is so for its images.
+    """
+
+    sources: np.ndarray
+    signs: np.ndarray
+    weights: np.ndarray
+
+
 def _partition_blocks(
     panels: PanelSet,
     targets: np.ndarray | None,
     directions: np.ndarray | None,
     eta: float,
     leaf: int,
+    fold: MirrorFold | None = None,
 ) -> _Blocks:
     corners, centroids, areas, diams = panels.kernel_arrays
     pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
     deriv = directions is not None
     dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+    if fold is None:
+        signs, weights = np.ones((1, 3)), np.ones((1, len(corners)))
+    else:
+        k = fold.sources
+        corners, centroids, areas, diams = corners[k], centroids[k], areas[k], diams[k]
+        signs, weights = np.asarray(fold.signs, float), np.asarray(fold.weights, float)
     tt = cluster_tree(pts, pts, pts, leaf)
     src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
     far, near = _partition(
@@ -844,9 +949,10 @@ def _partition_blocks(
     sp, tp = src.perm, tt.perm
     corners = np.ascontiguousarray(corners[sp])
     gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    # Targets (and directions) reflected by each group element, one after the other.
     kernel_args = (
-        np.ascontiguousarray(pts[tp]),
-        np.ascontiguousarray(dirs[tp]) if deriv else dirs,
+        np.ascontiguousarray(np.concatenate([pts[tp] * g for g in signs])),
+        np.ascontiguousarray(np.concatenate([dirs[tp] * g for g in signs])) if deriv else dirs,
         deriv,
         corners,
         np.ascontiguousarray(centroids[sp]),
@@ -854,6 +960,7 @@ def _partition_blocks(
         np.ascontiguousarray(diams[sp]),
         gp,
         panels.ground_plane,
+        np.ascontiguousarray(weights[:, sp]),
         *pint.rules(),
     )
     return _Blocks(tt, src, near, far, kernel_args)
@@ -978,7 +1085,8 @@ class HMatrix:
 
     ``recompress`` truncates each cross approximation by SVD (default). Without it a matrix
     for a product or two builds about 20 % faster but stores about 30 % more (measured on the
-    guarded-pad demo's plane rule).
+    guarded-pad demo's plane rule). With a ``fold`` the columns are the R (< N) orbit sums
+    of :class:`MirrorFold` (the matrix is then (M, R)).
     """
 
     def __init__(
@@ -991,10 +1099,11 @@ class HMatrix:
         eta: float = ETA,
         leaf: int = LEAF,
         recompress: bool = True,
+        fold: MirrorFold | None = None,
     ) -> None:
         t0 = time.perf_counter()
-        bl = _partition_blocks(panels, targets, directions, eta, leaf)
-        self.n = panels.n
+        bl = _partition_blocks(panels, targets, directions, eta, leaf, fold)
+        self.n = len(bl.sources.perm)
         self.m = len(bl.targets.perm)
         self.tol = tol
         self.targets = bl.targets
