@@ -48,7 +48,7 @@ FAR_RULE_FACTOR = 4.0
 _BATCH = 2048
 #: Largest scratch of one batch of cross approximations (float64 entries): bounds the peak
 #: memory, which whole batches of wide blocks at full rank otherwise dominate.
-_BATCH_SCRATCH = 500_000
+_BATCH_SCRATCH = 200_000
 
 
 @dataclass(frozen=True)
