@@ -13,6 +13,11 @@ exactly the dense one. Dense blocks and low-rank factors are stored in float32 (
 relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo's 6,448
 panels the scaled C moved by 4e-10 against float64 dense blocks).
 
+With a :class:`MirrorFold` (a mirror-symmetric solve, :mod:`.symmetry`) the columns are the
+sums over each orbit of panels: an entry adds the panel's integral at the target's mirror
+images (the integral over an image panel equals the one over the panel at the reflected
+target), so the orbit matrix (R, R) is stored instead of the representatives' rows (R, N).
+
 :func:`apply_once` forms the same blocks batch by batch and applies each as it is made, for a
 product or two at targets that will not be reused: nothing is stored, and the low-rank factors
 are not recompressed (storage is all recompression buys).
