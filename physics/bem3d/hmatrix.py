@@ -53,7 +53,7 @@ FAR_RULE_FACTOR = 4.0
 _BATCH = 2048
 #: Largest scratch of one batch of cross approximations (float64 entries): bounds the peak
 #: memory, which whole batches of wide blocks at full rank otherwise dominate.
-_BATCH_SCRATCH = 200_000
+_BATCH_SCRATCH = 500_000
 
 
 @dataclass(frozen=True)
@@ -272,8 +272,8 @@ def _entry(
     return v / (4.0 * math.pi)
 
 
-@njit(cache=True)
-def _orbit_entry(
+@njit(cache=True, inline="always")
+def _mirror_terms(
     i,
     targets,
     dirs,
@@ -294,33 +294,14 @@ def _orbit_entry(
     tri,
     cen,
 ):
-    """:func:`_entry` summed over the mirror images of panel j: targets (G M, 3) hold the M
-    targets reflected by each of the G group elements (element 0 the identity), and the
-    integral over the image of panel j under element g is that over panel j at the reflected
-    target, weighted by ``mirror_w[g, j]`` (0 for an image already counted). With G = 1 it is
-    :func:`_entry` itself."""
-    v = _entry(
-        i,
-        targets,
-        dirs,
-        deriv,
-        j,
-        corners,
-        centroids,
-        areas,
-        diams,
-        gp,
-        image,
-        r3,
-        w3,
-        r7,
-        w7,
-        buf,
-        tri,
-        cen,
-    )
+    """What the mirror images of panel j add to :func:`_entry` at target i: targets (G M, 3)
+    hold the M targets reflected by each of the G group elements (element 0 the identity),
+    and the integral over the image of panel j under element g is that over panel j at the
+    reflected target, weighted by ``mirror_w[g, j]`` (0 for an image already counted).
+    Called only when G > 1, so that the unfolded entries keep :func:`_entry` inline."""
     n_group = mirror_w.shape[0]
     m = targets.shape[0] // n_group
+    v = 0.0
     for g in range(1, n_group):
         w = mirror_w[g, j]
         if w != 0.0:
@@ -373,6 +354,7 @@ def _near_blocks(
     w7,
 ):
     out = np.empty(offsets[-1], np.float32)
+    folded = mirror_w.shape[0] > 1
     for b in prange(blocks.shape[0]):
         buf = np.empty(4)
         tri = np.empty((3, 3))
@@ -383,7 +365,7 @@ def _near_blocks(
         for ii in range(t_start[t], t_end[t]):
             i = t_perm[ii]
             for jj in range(s_start[s], s_end[s]):
-                out[k] = _orbit_entry(
+                v = _entry(
                     i,
                     targets,
                     dirs,
@@ -395,7 +377,6 @@ def _near_blocks(
                     diams,
                     gp,
                     image,
-                    mirror_w,
                     r3,
                     w3,
                     r7,
@@ -404,6 +385,29 @@ def _near_blocks(
                     tri,
                     cen,
                 )
+                if folded:
+                    v += _mirror_terms(
+                        i,
+                        targets,
+                        dirs,
+                        deriv,
+                        s_perm[jj],
+                        corners,
+                        centroids,
+                        areas,
+                        diams,
+                        gp,
+                        image,
+                        mirror_w,
+                        r3,
+                        w3,
+                        r7,
+                        w7,
+                        buf,
+                        tri,
+                        cen,
+                    )
+                out[k] = v
                 k += 1
     return out
 
@@ -556,6 +560,7 @@ def _aca_block(
     k; U^T in ubuf[:k, :m], V in vbuf[:k, :n]."""
     m = rows.shape[0]
     n = cols.shape[0]
+    folded = mirror_w.shape[0] > 1
     buf = np.empty(4)
     tri = np.empty((3, 3))
     cen = np.empty(3)
@@ -569,7 +574,7 @@ def _aca_block(
         used_r[i_star] = True
         row = np.empty(n)
         for j in range(n):
-            row[j] = _orbit_entry(
+            v = _entry(
                 rows[i_star],
                 targets,
                 dirs,
@@ -581,7 +586,6 @@ def _aca_block(
                 diams,
                 gp,
                 image,
-                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -590,6 +594,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i_star],
+                    targets,
+                    dirs,
+                    deriv,
+                    cols[j],
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            row[j] = v
         j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
             # This row is already represented; try the next unused row.
@@ -602,7 +629,7 @@ def _aca_block(
         col = np.empty(m)
         jj = cols[j_star]
         for i in range(m):
-            col[i] = _orbit_entry(
+            v = _entry(
                 rows[i],
                 targets,
                 dirs,
@@ -614,7 +641,6 @@ def _aca_block(
                 diams,
                 gp,
                 image,
-                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -623,6 +649,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i],
+                    targets,
+                    dirs,
+                    deriv,
+                    jj,
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            col[i] = v
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
         norm2 += grow
         k += 1
