@@ -298,8 +298,7 @@ def _mirror_terms(
     hold the M targets reflected by each of the G group elements (element 0 the identity),
     and the integral over the image of panel j under element g is that over panel j at the
     reflected target, weighted by ``mirror_w[g, j]`` (0 for an image already counted).
-    Behind a branch in :func:`_folded_entry`: a call per entry made the unfolded products 50 %
-    slower."""
+    Called only when G > 1, so that the unfolded entries keep :func:`_entry` inline."""
     n_group = mirror_w.shape[0]
     m = targets.shape[0] // n_group
     v = 0.0
@@ -329,74 +328,6 @@ def _mirror_terms(
     return v
 
 
-@njit(cache=True, inline="always")
-def _folded_entry(
-    i,
-    targets,
-    dirs,
-    deriv,
-    j,
-    corners,
-    centroids,
-    areas,
-    diams,
-    gp,
-    image,
-    mirror_w,
-    r3,
-    w3,
-    r7,
-    w7,
-    buf,
-    tri,
-    cen,
-):
-    """The entry of target i and panel j with the mirror images' terms of a fold (G > 1)."""
-    v = _entry(
-        i,
-        targets,
-        dirs,
-        deriv,
-        j,
-        corners,
-        centroids,
-        areas,
-        diams,
-        gp,
-        image,
-        r3,
-        w3,
-        r7,
-        w7,
-        buf,
-        tri,
-        cen,
-    )
-    if mirror_w.shape[0] > 1:
-        v += _mirror_terms(
-            i,
-            targets,
-            dirs,
-            deriv,
-            j,
-            corners,
-            centroids,
-            areas,
-            diams,
-            gp,
-            image,
-            mirror_w,
-            r3,
-            w3,
-            r7,
-            w7,
-            buf,
-            tri,
-            cen,
-        )
-    return v
-
-
 @njit(cache=True, parallel=True)
 def _near_blocks(
     blocks,
@@ -423,6 +354,7 @@ def _near_blocks(
     w7,
 ):
     out = np.empty(offsets[-1], np.float32)
+    folded = mirror_w.shape[0] > 1
     for b in prange(blocks.shape[0]):
         buf = np.empty(4)
         tri = np.empty((3, 3))
@@ -433,7 +365,7 @@ def _near_blocks(
         for ii in range(t_start[t], t_end[t]):
             i = t_perm[ii]
             for jj in range(s_start[s], s_end[s]):
-                out[k] = _folded_entry(
+                v = _entry(
                     i,
                     targets,
                     dirs,
@@ -445,7 +377,6 @@ def _near_blocks(
                     diams,
                     gp,
                     image,
-                    mirror_w,
                     r3,
                     w3,
                     r7,
@@ -454,6 +385,29 @@ def _near_blocks(
                     tri,
                     cen,
                 )
+                if folded:
+                    v += _mirror_terms(
+                        i,
+                        targets,
+                        dirs,
+                        deriv,
+                        s_perm[jj],
+                        corners,
+                        centroids,
+                        areas,
+                        diams,
+                        gp,
+                        image,
+                        mirror_w,
+                        r3,
+                        w3,
+                        r7,
+                        w7,
+                        buf,
+                        tri,
+                        cen,
+                    )
+                out[k] = v
                 k += 1
     return out
 
@@ -606,6 +560,7 @@ def _aca_block(
     k; U^T in ubuf[:k, :m], V in vbuf[:k, :n]."""
     m = rows.shape[0]
     n = cols.shape[0]
+    folded = mirror_w.shape[0] > 1
     buf = np.empty(4)
     tri = np.empty((3, 3))
     cen = np.empty(3)
@@ -619,7 +574,7 @@ def _aca_block(
         used_r[i_star] = True
         row = np.empty(n)
         for j in range(n):
-            row[j] = _folded_entry(
+            v = _entry(
                 rows[i_star],
                 targets,
                 dirs,
@@ -631,7 +586,6 @@ def _aca_block(
                 diams,
                 gp,
                 image,
-                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -640,6 +594,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i_star],
+                    targets,
+                    dirs,
+                    deriv,
+                    cols[j],
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            row[j] = v
         j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
             # This row is already represented; try the next unused row.
@@ -652,7 +629,7 @@ def _aca_block(
         col = np.empty(m)
         jj = cols[j_star]
         for i in range(m):
-            col[i] = _folded_entry(
+            v = _entry(
                 rows[i],
                 targets,
                 dirs,
@@ -664,7 +641,6 @@ def _aca_block(
                 diams,
                 gp,
                 image,
-                mirror_w,
                 r3,
                 w3,
                 r7,
@@ -673,6 +649,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i],
+                    targets,
+                    dirs,
+                    deriv,
+                    jj,
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            col[i] = v
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
         norm2 += grow
         k += 1
