@@ -13,6 +13,11 @@ exactly the dense one. Dense blocks and low-rank factors are stored in float32 (
 relative rounding, 6e-8, is far below the tolerances used; on the guarded-pad demo's 6,448
 panels the scaled C moved by 4e-10 against float64 dense blocks).
 
+With a :class:`MirrorFold` (a mirror-symmetric solve, :mod:`.symmetry`) the columns are the
+sums over each orbit of panels: an entry adds the panel's integral at the target's mirror
+images (the integral over an image panel equals the one over the panel at the reflected
+target), so the orbit matrix (R, R) is stored instead of the representatives' rows (R, N).
+
 :func:`apply_once` forms the same blocks batch by batch and applies each as it is made, for a
 product or two at targets that will not be reused: nothing is stored, and the low-rank factors
 are not recompressed (storage is all recompression buys).
@@ -267,6 +272,62 @@ def _entry(
     return v / (4.0 * math.pi)
 
 
+@njit(cache=True, inline="always")
+def _mirror_terms(
+    i,
+    targets,
+    dirs,
+    deriv,
+    j,
+    corners,
+    centroids,
+    areas,
+    diams,
+    gp,
+    image,
+    mirror_w,
+    r3,
+    w3,
+    r7,
+    w7,
+    buf,
+    tri,
+    cen,
+):
+    """What the mirror images of panel j add to :func:`_entry` at target i: targets (G M, 3)
+    hold the M targets reflected by each of the G group elements (element 0 the identity),
+    and the integral over the image of panel j under element g is that over panel j at the
+    reflected target, weighted by ``mirror_w[g, j]`` (0 for an image already counted).
+    Called only when G > 1, so that the unfolded entries keep :func:`_entry` inline."""
+    n_group = mirror_w.shape[0]
+    m = targets.shape[0] // n_group
+    v = 0.0
+    for g in range(1, n_group):
+        w = mirror_w[g, j]
+        if w != 0.0:
+            v += w * _entry(
+                g * m + i,
+                targets,
+                dirs,
+                deriv,
+                j,
+                corners,
+                centroids,
+                areas,
+                diams,
+                gp,
+                image,
+                r3,
+                w3,
+                r7,
+                w7,
+                buf,
+                tri,
+                cen,
+            )
+    return v
+
+
 @njit(cache=True, parallel=True)
 def _near_blocks(
     blocks,
@@ -286,12 +347,14 @@ def _near_blocks(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
     w7,
 ):
     out = np.empty(offsets[-1], np.float32)
+    folded = mirror_w.shape[0] > 1
     for b in prange(blocks.shape[0]):
         buf = np.empty(4)
         tri = np.empty((3, 3))
@@ -302,7 +365,7 @@ def _near_blocks(
         for ii in range(t_start[t], t_end[t]):
             i = t_perm[ii]
             for jj in range(s_start[s], s_end[s]):
-                out[k] = _entry(
+                v = _entry(
                     i,
                     targets,
                     dirs,
@@ -322,6 +385,29 @@ def _near_blocks(
                     tri,
                     cen,
                 )
+                if folded:
+                    v += _mirror_terms(
+                        i,
+                        targets,
+                        dirs,
+                        deriv,
+                        s_perm[jj],
+                        corners,
+                        centroids,
+                        areas,
+                        diams,
+                        gp,
+                        image,
+                        mirror_w,
+                        r3,
+                        w3,
+                        r7,
+                        w7,
+                        buf,
+                        tri,
+                        cen,
+                    )
+                out[k] = v
                 k += 1
     return out
 
@@ -459,6 +545,7 @@ def _aca_block(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
@@ -473,6 +560,7 @@ def _aca_block(
     k; U^T in ubuf[:k, :m], V in vbuf[:k, :n]."""
     m = rows.shape[0]
     n = cols.shape[0]
+    folded = mirror_w.shape[0] > 1
     buf = np.empty(4)
     tri = np.empty((3, 3))
     cen = np.empty(3)
@@ -486,7 +574,7 @@ def _aca_block(
         used_r[i_star] = True
         row = np.empty(n)
         for j in range(n):
-            row[j] = _entry(
+            v = _entry(
                 rows[i_star],
                 targets,
                 dirs,
@@ -506,6 +594,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i_star],
+                    targets,
+                    dirs,
+                    deriv,
+                    cols[j],
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            row[j] = v
         j_star = _aca_row_pivot(row, ubuf, vbuf, i_star, k, n, used_c)
         if j_star < 0:
             # This row is already represented; try the next unused row.
@@ -518,7 +629,7 @@ def _aca_block(
         col = np.empty(m)
         jj = cols[j_star]
         for i in range(m):
-            col[i] = _entry(
+            v = _entry(
                 rows[i],
                 targets,
                 dirs,
@@ -538,6 +649,29 @@ def _aca_block(
                 tri,
                 cen,
             )
+            if folded:
+                v += _mirror_terms(
+                    rows[i],
+                    targets,
+                    dirs,
+                    deriv,
+                    jj,
+                    corners,
+                    centroids,
+                    areas,
+                    diams,
+                    gp,
+                    image,
+                    mirror_w,
+                    r3,
+                    w3,
+                    r7,
+                    w7,
+                    buf,
+                    tri,
+                    cen,
+                )
+            col[i] = v
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
         norm2 += grow
         k += 1
@@ -622,6 +756,7 @@ def _aca_batch(
     diams,
     gp,
     image,
+    mirror_w,
     r3,
     w3,
     r7,
@@ -657,6 +792,7 @@ def _aca_batch(
             diams,
             gp,
             image,
+            mirror_w,
             r3,
             w3,
             r7,
@@ -812,17 +948,40 @@ class _Blocks:
         return t.start, t.end, s.start, s.end, ident_t, ident_s
 
 
+@dataclass(frozen=True)
+class MirrorFold:
+    """Columns summed over mirror images: column r is the sum over the group elements g of
+    ``weights[g, r]`` times the column of the image under g of panel ``sources[r]`` (R,).
+    ``signs`` (G, 3): each element's reflection of coordinates (row 0 the identity, all +1).
+
+    Valid in a compressed matrix when the targets and the ``sources`` lie in one closed
+    quadrant of the mirror planes: a reflected target is then at least as far from a source
+    cluster as the target itself, so a block admissible for the target is so for its images.
+    """
+
+    sources: np.ndarray
+    signs: np.ndarray
+    weights: np.ndarray
+
+
 def _partition_blocks(
     panels: PanelSet,
     targets: np.ndarray | None,
     directions: np.ndarray | None,
     eta: float,
     leaf: int,
+    fold: MirrorFold | None = None,
 ) -> _Blocks:
     corners, centroids, areas, diams = panels.kernel_arrays
     pts = centroids if targets is None else np.ascontiguousarray(targets, dtype=float)
     deriv = directions is not None
     dirs = np.ascontiguousarray(directions if deriv else np.zeros((1, 3)), dtype=float)
+    if fold is None:
+        signs, weights = np.ones((1, 3)), np.ones((1, len(corners)))
+    else:
+        k = fold.sources
+        corners, centroids, areas, diams = corners[k], centroids[k], areas[k], diams[k]
+        signs, weights = np.asarray(fold.signs, float), np.asarray(fold.weights, float)
     tt = cluster_tree(pts, pts, pts, leaf)
     src = cluster_tree(centroids, corners.min(axis=1), corners.max(axis=1), leaf)
     far, near = _partition(
@@ -844,9 +1003,10 @@ def _partition_blocks(
     sp, tp = src.perm, tt.perm
     corners = np.ascontiguousarray(corners[sp])
     gp = np.ascontiguousarray(np.einsum("qk,tkc->tqc", pint.RULE3_BARY, corners))
+    # Targets (and directions) reflected by each group element, one after the other.
     kernel_args = (
-        np.ascontiguousarray(pts[tp]),
-        np.ascontiguousarray(dirs[tp]) if deriv else dirs,
+        np.ascontiguousarray(np.concatenate([pts[tp] * g for g in signs])),
+        np.ascontiguousarray(np.concatenate([dirs[tp] * g for g in signs])) if deriv else dirs,
         deriv,
         corners,
         np.ascontiguousarray(centroids[sp]),
@@ -854,6 +1014,7 @@ def _partition_blocks(
         np.ascontiguousarray(diams[sp]),
         gp,
         panels.ground_plane,
+        np.ascontiguousarray(weights[:, sp]),
         *pint.rules(),
     )
     return _Blocks(tt, src, near, far, kernel_args)
@@ -978,7 +1139,8 @@ class HMatrix:
 
     ``recompress`` truncates each cross approximation by SVD (default). Without it a matrix
     for a product or two builds about 20 % faster but stores about 30 % more (measured on the
-    guarded-pad demo's plane rule).
+    guarded-pad demo's plane rule). With a ``fold`` the columns are the R (< N) orbit sums
+    of :class:`MirrorFold` (the matrix is then (M, R)).
     """
 
     def __init__(
@@ -991,10 +1153,11 @@ class HMatrix:
         eta: float = ETA,
         leaf: int = LEAF,
         recompress: bool = True,
+        fold: MirrorFold | None = None,
     ) -> None:
         t0 = time.perf_counter()
-        bl = _partition_blocks(panels, targets, directions, eta, leaf)
-        self.n = panels.n
+        bl = _partition_blocks(panels, targets, directions, eta, leaf, fold)
+        self.n = len(bl.sources.perm)
         self.m = len(bl.targets.perm)
         self.tol = tol
         self.targets = bl.targets

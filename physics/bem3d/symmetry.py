@@ -23,7 +23,7 @@ import scipy.sparse as sp
 from scipy.spatial import cKDTree
 
 from elopt.physics.bem3d import panel_integrals as pint
-from elopt.physics.bem3d.hmatrix import HMatrix
+from elopt.physics.bem3d.hmatrix import HMatrix, MirrorFold
 from elopt.physics.bem3d.operators import (
     FOUR_PI,
     PRECONDITIONER_FACTOR,
@@ -59,14 +59,32 @@ class MirrorSymmetry:
     def n_reduced(self) -> int:
         return int(self.reps.size)
 
-    def column_weights(self) -> np.ndarray:
+    def column_weights(self, members: np.ndarray | None = None) -> np.ndarray:
         """(G, R): 1 where group element g gives a panel of the orbit not given by an earlier
-        element (an orbit of a panel on a symmetry plane has fewer than G members), else 0."""
-        img = self.images[:, self.reps]
+        element (an orbit of a panel on a symmetry plane has fewer than G members), else 0;
+        the images taken of ``members`` (R,), one panel per orbit (default ``reps``)."""
+        img = self.images[:, self.reps if members is None else members]
         w = np.ones(img.shape)
         for g in range(1, len(img)):
             w[g] = np.all(img[:g] != img[g], axis=0)
         return w
+
+    def reflection_signs(self) -> np.ndarray:
+        """(G, 3): the coordinate signs of each group element, in the order of ``images``."""
+        signs = [np.ones(3)]
+        for name in self.planes:
+            signs.append(np.where(np.arange(3) == "xy".index(name), -1.0, 1.0))
+        if len(self.planes) == 2:
+            signs.append(signs[1] * signs[2])
+        return np.stack(signs)
+
+    def quadrant_members(self, centroids: np.ndarray) -> np.ndarray:
+        """(R,): the panel of each orbit whose centroid (N, 3) lies in the closed quadrant of
+        non-negative reflected coordinates (largest sum of them)."""
+        img = self.images[:, self.reps]
+        axes = ["xy".index(name) for name in self.planes]
+        score = centroids[img][:, :, axes].sum(axis=2)
+        return img[np.argmax(score, axis=0), np.arange(img.shape[1])]
 
 
 def _point_map(points: np.ndarray, axis: int, tol: float) -> np.ndarray | None:
@@ -207,20 +225,27 @@ class ReducedFastOperator(FastOperator):
         self.symmetry = symmetry
         self.n = symmetry.n_reduced
         _, centroids, _, _ = panels.kernel_arrays
-        self.hmatrix = HMatrix(panels, tol=tol, targets=centroids[symmetry.reps])
-        near = near_matrix(
-            panels, PRECONDITIONER_FACTOR, rows=symmetry.reps, column_of=symmetry.orbit
+        # Rows and columns on the orbits' members in one quadrant (what MirrorFold needs):
+        # (R, R) stored instead of the representatives' (R, N) rows.
+        self.rows = symmetry.quadrant_members(centroids)
+        fold = MirrorFold(
+            self.rows, symmetry.reflection_signs(), symmetry.column_weights(self.rows)
         )
+        # The preconditioner first: its assembly's scratch then does not stand on the
+        # compressed matrix (measured on the guarded-pad demo: peak 274 MiB after, 269 before).
+        near = near_matrix(panels, PRECONDITIONER_FACTOR, rows=self.rows, column_of=symmetry.orbit)
         self.ilu = incomplete_lu(near)
+        near_bytes = int(near.nnz * 12)
+        del near
+        self.hmatrix = HMatrix(panels, tol=tol, targets=centroids[self.rows], fold=fold)
         self.setup_s = time.perf_counter() - t0
-        self.stored_bytes = self.hmatrix.nbytes + int(near.nnz * 12)
+        self.stored_bytes = self.hmatrix.nbytes + near_bytes
 
     def matvec(self, x: np.ndarray) -> np.ndarray:
-        return self.hmatrix.matvec(x[self.symmetry.orbit])
+        return self.hmatrix.matvec(x)
 
     def solve(
         self, rhs: np.ndarray, rtol: float, stats: SolveStats, x0: np.ndarray | None = None
     ) -> np.ndarray:
-        s = self.symmetry
-        x = super().solve(rhs[s.reps], rtol, stats, None if x0 is None else x0[s.reps])
-        return x[s.orbit]
+        x = super().solve(rhs[self.rows], rtol, stats, None if x0 is None else x0[self.rows])
+        return x[self.symmetry.orbit]

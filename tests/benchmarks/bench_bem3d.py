@@ -21,7 +21,7 @@ several times a quiet machine's; CPU and memory compare):
 
     code      wall s  CPU s  peak MB  panels per level   estimate  true err  met
     e236b93     71.6   18.0      647  1704/6448/25792     6.6e-4    2.0e-4   yes
-    now         25.2   12.5      306  1704/6448/25792     6.3e-4    2.2e-4   yes
+    then        25.2   12.5      306  1704/6448/25792     6.3e-4    2.2e-4   yes
 
 What changed: the plane integrals' evaluation no longer stores a 1e-6 compressed matrix
 (peak 617 MB there) but applies blocks to 1e-4 as they are made; the middle level (3,224
@@ -33,6 +33,28 @@ used. Single-thread profile of the same solve (CPU s, resident MiB after): impor
 level 0 0.5 (190), level 1 1.3 (210), finest level's compressed matrix 3.7 (+66 stored), its
 preconditioner 0.5 (+5), GMRES 1.0 (31 iterations), plane integrals 2.2 (nothing kept). The
 peak (292 MiB = 306 MB) is the incomplete LU's scratch on top of the stored blocks.
+
+Measured 2026-12-03 04:20 UTC, main at 02c8a3a (a second worktree) and this code,
+alternately in one session on a near-idle machine (load average 1.4-1.6):
+
+    code      wall s  CPU s  peak MB  panels per level   estimate  true err  met
+    02c8a3a      5.7    9.2      307  1704/6448/25792     6.3e-4    2.2e-4   yes
+    now          6.0    9.9      283  1704/6448/25792     6.3e-4    2.3e-4   yes
+    02c8a3a      5.6    9.2      306  1704/6448/25792     6.3e-4    2.2e-4   yes
+    now          5.9    9.8      283  1704/6448/25792     6.3e-4    2.3e-4   yes
+
+What changed: a compressed symmetric level stores the (R, R) orbit matrix (each orbit's
+columns summed in the entries, hmatrix.MirrorFold) instead of the representatives' (R, N)
+rows: 43 MiB instead of 61 on the finest level (12,896 orbits), products 3-4 times faster, its
+build 0.8 s more CPU (3.6 -> 4.4 s: the mirror terms), the plane integrals 0.2 s more (2.5 ->
+2.7 s: the fold's branch in the shared kernels); the preconditioner is assembled before the
+compressed matrix, and the build's freed scratch goes back to the OS before GMRES. Resident
+MiB on the same path (one process, sampled): 131 after the imports (numpy 14, numba 64, scipy
+28, elopt 13: all used), 178 after the first compiled call (numba's code generator: 47), 212
+before the finest level (the loaded kernels, the finest panels 12), 217 with its
+preconditioner, 266-270 at the end of its compressed matrix's build (the peak, 270 MiB = 283
+MB; 292 MiB on main); GMRES stays below it and the plane integrals after the solve below 236.
+The 300 MB target is met with 17 MB to spare; 270 MB is not reached.
 
     python tests/benchmarks/bench_bem3d.py --pad-only            # Part 3 alone
     python tests/benchmarks/bench_bem3d.py --pad-only --before   # with the previous mesh
