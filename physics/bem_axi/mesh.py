@@ -8,7 +8,9 @@ ground-plane image across a narrow gap are no longer than ``gap_factor`` times t
 :class:`MeshRule` gives the grading ratio, the balance factor and the grading steps.
 
 Refinement level ``level`` halves every level-0 panel ``level`` times and adds the rule's
-grading steps per level at singular corners, so meshes of successive levels are nested.
+grading steps per level at singular corners. With ratio-2 grading, meshes of successive levels
+are nested; coarser ratios grade each level's corner panels afresh from the split level-0
+panel, so there only level 0 nests in level 1.
 """
 
 from __future__ import annotations
