@@ -278,24 +278,9 @@ def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
     """Points (n, 2) at the parameter midpoints of a curve's panels."""
     _, piece_kind, piece_spec = _curve_pieces(curve)
-    k = panels.piece
-    mid_t = 0.5 * (panels.t0 + panels.t1)
-    mids = np.empty((len(k), 2))
-    kinds = piece_kind[k]
-    spec = piece_spec[k]
-    seg = kinds == KIND_SEGMENT
-    if seg.any():
-        t, sp = mid_t[seg][:, None], spec[seg]
-        mids[seg] = 0.5 * (1 - t) * sp[:, 0:2] + 0.5 * (1 + t) * sp[:, 2:4]
-    arc = kinds == KIND_ARC
-    if arc.any():
-        sp = spec[arc]
-        ang = sp[:, 3] + 0.5 * (mid_t[arc] + 1) * sp[:, 4]
-        mids[arc] = sp[:, 0:2] + sp[:, 2:3] * np.stack([np.cos(ang), np.sin(ang)], axis=-1)
-    for j in np.nonzero(piece_kind == KIND_ELLIPSE)[0].tolist():
-        sel = k == j
-        mids[sel] = curve.pieces[j].points(mid_t[sel])
-    return mids
+    mid = 0.5 * (panels.t0 + panels.t1)
+    kind, coef = _panel_coefs(piece_kind, piece_spec, panels.piece, mid, mid)
+    return panel_geometry(kind, coef, np.full((len(mid), 1), -1.0))[0][:, 0, :]
 
 
 def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
@@ -438,10 +423,17 @@ def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
     )
 
 
-def _panel_coefs(base: _BasePanels, piece: np.ndarray, t0: np.ndarray, t1: np.ndarray):
-    """Kind (P,) and coefficients (P, 5) of the panels (piece, t0, t1) for panel_geometry."""
-    kind = base.kind[piece]
-    sp = base.spec[piece]
+def _panel_coefs(
+    piece_kind: np.ndarray,
+    piece_spec: np.ndarray,
+    piece: np.ndarray,
+    t0: np.ndarray,
+    t1: np.ndarray,
+):
+    """Kind (P,) and coefficients (P, 5) for :func:`panel_geometry` of the panels (piece, t0,
+    t1) (P,) of pieces with kinds (n,) and :func:`_piece_spec` rows (n, 5)."""
+    kind = piece_kind[piece]
+    sp = piece_spec[piece]
     coef = np.empty((len(piece), 5))
     seg = kind == KIND_SEGMENT
     if np.any(seg):
@@ -523,7 +515,7 @@ def _assemble_mesh(
     order: int,
 ) -> AxiMesh:
     xg, wg = gauss_legendre(order)
-    kind_a, coef_a = _panel_coefs(base, piece, t0, t1)
+    kind_a, coef_a = _panel_coefs(base.kind, base.spec, piece, t0, t1)
     conductor_a = base.conductor[piece]
     first, last = _piece_ends(piece)
     at_corner = np.zeros(len(piece), dtype=bool)
