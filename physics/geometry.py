@@ -215,11 +215,41 @@ class Curve:
         return "sheet"
 
     def sample(self, per_piece: int = 32) -> np.ndarray:
-        """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2)."""
-        t = np.linspace(-1.0, 1.0, per_piece + 1)
-        parts = [p.points(t)[:-1] for p in self.pieces]
-        parts.append(np.asarray([self.end]))
-        return np.concatenate(parts)
+        """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2) (a new
+        array each call; the points are computed once per curve and count)."""
+        if per_piece not in self._samples:
+            self._samples[per_piece] = self._sample(per_piece)
+        return self._samples[per_piece].copy()
+
+    @cached_property
+    def _samples(self) -> dict[int, np.ndarray]:
+        return {}
+
+    def _sample(self, per_piece: int) -> np.ndarray:
+        # Segments and arcs of every piece at once, by the formulas of their points().
+        t = np.linspace(-1.0, 1.0, per_piece + 1)[:-1]
+        out = np.empty((len(self.pieces), per_piece, 2))
+        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
+        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
+        if seg:
+            a = np.asarray([self.pieces[k].start for k in seg])[:, None, :]
+            b = np.asarray([self.pieces[k].end for k in seg])[:, None, :]
+            out[seg] = 0.5 * (1 - t)[None, :, None] * a + 0.5 * (1 + t)[None, :, None] * b
+        if arc:
+            spec = np.asarray(
+                [
+                    (*p.center, p.radius, p.start_angle, p.sweep)
+                    for p in (self.pieces[k] for k in arc)
+                ]
+            )
+            ang = spec[:, 3:4] + 0.5 * (t + 1)[None, :] * spec[:, 4:5]
+            out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
+                [np.cos(ang), np.sin(ang)], axis=-1
+            )
+        for k, p in enumerate(self.pieces):
+            if not isinstance(p, (Segment, Arc)):
+                out[k] = p.points(t)
+        return np.concatenate([out.reshape(-1, 2), np.asarray([self.end])])
 
     def corners(self) -> tuple[Corner, ...]:
         """Joints with a tangent break and free sheet ends (never points on the axis)."""

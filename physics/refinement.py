@@ -9,11 +9,13 @@ surface field), let d_k be the scaled change between levels k-1 and k (capacitan
 (i, j) scaled by sqrt(C_ii C_jj), the peak by its own value). With the observed ratio
 r = d_L / d_(L-1) (not below :data:`RATIO_FLOOR`, for peaks :data:`PEAK_RATIO_FLOOR`) the
 remaining error of level L is, as in Richardson extrapolation with the observed order, the
-geometric tail d_L r / (1 - r). With two levels only, the ratio is :data:`PRIOR_RATIO`
-(measured); when the changes do not shrink (r above :data:`RATIO_CEILING`) the tail is d_L
-itself. A solver whose peak field does not converge regularly (the 3-D peak is the largest
-panel value, whose panel moves between levels) says so, and its peak estimate is the larger of
-the last two changes; a regular peak's is at least :data:`PEAK_RATIO_FLOOR` times the previous
+geometric tail d_L r / (1 - r). With two levels only, the ratio is the solver's prior
+(:data:`PRIOR_RATIO` unless it measured its own); when the changes do not shrink (r above :data:`RATIO_CEILING`) the tail is d_L
+itself, and when they collapse (r below the solver's ``collapse_ratio``: a coarse first level
+far off, the next ones converging slowly) the prior ratio is used instead of r. A solver
+whose peak field does not converge regularly (the 3-D peak is the largest panel value, whose
+panel moves between levels) says so, and its peak estimate is the larger of the last two
+changes; a regular peak's is at least :data:`PEAK_RATIO_FLOOR` times the previous
 change. Every estimate is multiplied by :data:`SAFETY` and kept above the solver's measured
 noise floor (quadrature and round-off errors that refinement does not reduce). The capacitance matrix is not symmetrised:
 half its largest scaled asymmetry |C_ij - C_ji| is added, since the exact matrix is symmetric.
@@ -26,7 +28,8 @@ test judge that estimate; the same estimate over every entry is kept as ``matrix
 
 SAFETY, PRIOR_RATIO and each solver's :class:`Convergence` (noise floors) were measured on the
 published cases (and a guarded probe against its own fine solve) by
-tests/benchmarks/measure_error_estimate.py; tests/test_error_estimate_honesty.py checks the
+tests/benchmarks/measure_error_estimate.py (the conductors-only coarse axisymmetric solve's
+prior and collapse ratios on a grid of guarded probes, measure_error_estimate_probes.py); tests/test_error_estimate_honesty.py checks the
 result: true error <= estimate in >= 95 % of the cases, never above 3x.
 """
 
@@ -76,13 +79,17 @@ class Convergence:
 
     ``capacitance_floor`` / ``peak_floor``: relative errors refinement does not reduce
     (quadrature tolerances, round-off); ``peak_regular``: the peak converges geometrically;
-    ``prior_ratio``: ratio of successive changes assumed with only two levels.
+    ``prior_ratio``: ratio of successive changes assumed with only two levels;
+    ``collapse_ratio``: an observed ratio of the changes of C below it is a pre-asymptotic
+    collapse (a coarse first level far off, the next ones converging slowly), not a rate, and
+    the prior ratio is used instead (0: every observed ratio is taken, floored at RATIO_FLOOR).
     """
 
     capacitance_floor: float
     peak_floor: float
     peak_regular: bool = True
     prior_ratio: float = PRIOR_RATIO
+    collapse_ratio: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -269,11 +276,15 @@ def relative_change(c_new: np.ndarray, c_old: np.ndarray) -> float:
 
 
 def tail_estimate(
-    changes: Sequence[float], prior_ratio: float, ratio_floor: float = RATIO_FLOOR
+    changes: Sequence[float],
+    prior_ratio: float,
+    ratio_floor: float = RATIO_FLOOR,
+    collapse_ratio: float = 0.0,
 ) -> tuple[float, float | None]:
     """Bare error estimate (no safety factor, no noise floor) of the last level from the scaled
     changes d_1..d_L between levels, and the observed ratio (None with one change); the ratio
-    used is at least ``ratio_floor``."""
+    used is at least ``ratio_floor``, and ``prior_ratio`` when the observed one is below
+    ``collapse_ratio``."""
     if not changes:
         return math.inf, None
     d = float(changes[-1])
@@ -284,7 +295,7 @@ def tail_estimate(
         observed = d / prev if prev > 0 else (0.0 if d == 0 else math.inf)
         if observed > RATIO_CEILING:
             return d, observed
-        r = max(observed, ratio_floor)
+        r = prior_ratio if observed < collapse_ratio else max(observed, ratio_floor)
     return d * r / (1.0 - r), observed
 
 
@@ -320,7 +331,9 @@ def capacitance_estimate(
     """(estimate, scaled asymmetry, observed ratio) of the finest of the capacitance matrices
     ``caps`` (coarse to fine, each (n, n)) over all their entries."""
     changes = [relative_change(b, a) for a, b in zip(caps, caps[1:], strict=False)]
-    bare, ratio = tail_estimate(changes[-2:], convergence.prior_ratio)
+    bare, ratio = tail_estimate(
+        changes[-2:], convergence.prior_ratio, collapse_ratio=convergence.collapse_ratio
+    )
     asym = scaled_asymmetry(caps[-1])
     return max(SAFETY * bare, convergence.capacitance_floor) + 0.5 * asym, asym, ratio
 

@@ -8,7 +8,9 @@ ground-plane image across a narrow gap are no longer than ``gap_factor`` times t
 :class:`MeshRule` gives the grading ratio, the balance factor and the grading steps.
 
 Refinement level ``level`` halves every level-0 panel ``level`` times and adds the rule's
-grading steps per level at singular corners, so meshes of successive levels are nested.
+grading steps per level at singular corners. With ratio-2 grading, meshes of successive levels
+are nested; coarser ratios grade each level's corner panels afresh from the split level-0
+panel, so there only level 0 nests in level 1.
 """
 
 from __future__ import annotations
@@ -152,28 +154,6 @@ def panel_geometry(kind: np.ndarray, coef: np.ndarray, tau: np.ndarray):
     return pts, der
 
 
-def _piece_coefs(piece, ab: np.ndarray) -> tuple[int, np.ndarray]:
-    """Kind and coefficients (n, 5) of the parts of ``piece`` between parameters ab (n, 2)."""
-    t0, t1 = ab[:, 0], ab[:, 1]
-    out = np.zeros((len(ab), 5))
-    if isinstance(piece, Segment):
-        out[:, 0:2] = piece.points(t0)
-        out[:, 2:4] = piece.points(t1)
-        return KIND_SEGMENT, out
-    if isinstance(piece, Arc):
-        out[:, 0:3] = (piece.center[0], piece.center[1], piece.radius)
-        out[:, 3] = piece.start_angle + 0.5 * (t0 + 1) * piece.sweep
-        out[:, 4] = piece.start_angle + 0.5 * (t1 + 1) * piece.sweep
-        return KIND_ARC, out
-    if isinstance(piece, EllipseArc):
-        span = piece.end_u - piece.start_u
-        out[:, 0:3] = (piece.center_z, piece.semi_axis_r, piece.semi_axis_z)
-        out[:, 3] = piece.start_u + 0.5 * (t0 + 1) * span
-        out[:, 4] = piece.start_u + 0.5 * (t1 + 1) * span
-        return KIND_ELLIPSE, out
-    raise TypeError(f"unsupported curve piece {type(piece).__name__}")
-
-
 @lru_cache(maxsize=64)
 def _orientation(curve: Curve) -> float:
     """+1 if the closed outline of a body/ring runs counter-clockwise in (r, z), else -1."""
@@ -244,44 +224,80 @@ def _interval_lengths(piece, intervals) -> np.ndarray:
     return piece.length * half
 
 
-@lru_cache(maxsize=4096)
-def _panel_sizes(
-    piece, intervals: tuple[tuple[float, float], ...]
-) -> tuple[np.ndarray, np.ndarray]:
-    """Arc lengths (n,) and mid-parameter points (n, 2) of the parts of ``piece`` between
-    parameter pairs ``intervals``; cached, as grading and gap refinement re-test unchanged
-    pieces many times."""
-    ab = np.asarray(intervals, dtype=float).reshape(-1, 2)
-    return _interval_lengths(piece, intervals), piece.points(ab.mean(axis=1))
+@dataclass(frozen=True)
+class _CurvePanels:
+    """Panels of one conductor's curve as flat arrays (n,), piece-major along the curve:
+    ``piece`` (index into the curve's pieces) and parameters ``t0`` < ``t1``."""
+
+    piece: np.ndarray
+    t0: np.ndarray
+    t1: np.ndarray
+
+    @staticmethod
+    def of(per_piece: list[list[tuple[float, float]]]) -> _CurvePanels:
+        piece = np.repeat(np.arange(len(per_piece)), [len(iv) for iv in per_piece])
+        ab = np.asarray([ab for iv in per_piece for ab in iv], dtype=float).reshape(-1, 2)
+        return _CurvePanels(piece, ab[:, 0], ab[:, 1])
+
+    def split(self, mask: np.ndarray) -> _CurvePanels:
+        """These panels with every panel of ``mask`` (n,) halved in parameter."""
+        reps = np.where(mask, 2, 1)
+        idx = np.repeat(np.arange(len(self.piece)), reps)
+        t0, t1 = self.t0[idx], self.t1[idx]
+        cut = np.nonzero(mask)[0]
+        first = (np.cumsum(reps) - reps)[cut]
+        mid = 0.5 * (self.t0[cut] + self.t1[cut])
+        t1[first] = mid
+        t0[first + 1] = mid
+        return _CurvePanels(self.piece[idx], t0, t1)
 
 
-def _balance(curve: Curve, per_piece: list[list[tuple[float, float]]], ratio: float) -> None:
+@lru_cache(maxsize=64)
+def _curve_pieces(curve: Curve) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per piece of ``curve``: arc length (n,), kind (n,) and :func:`_piece_spec` (n, 5)."""
+    specs = [_piece_spec(p) for p in curve.pieces]
+    return (
+        np.asarray([p.length for p in curve.pieces]),
+        np.asarray([k for k, _ in specs]),
+        np.asarray([sp for _, sp in specs], dtype=float).reshape(-1, 5),
+    )
+
+
+def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
+    """Arc lengths (n,) of a curve's panels."""
+    piece_length, piece_kind, _ = _curve_pieces(curve)
+    lengths = piece_length[panels.piece] * (0.5 * (panels.t1 - panels.t0))
+    if (piece_kind == KIND_ELLIPSE).any():
+        for j in np.nonzero(piece_kind == KIND_ELLIPSE)[0].tolist():
+            sel = panels.piece == j
+            ab = np.stack([panels.t0[sel], panels.t1[sel]], axis=1)
+            lengths[sel] = _interval_lengths(curve.pieces[j], ab)
+    return lengths
+
+
+def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
+    """Points (n, 2) at the parameter midpoints of a curve's panels."""
+    _, piece_kind, piece_spec = _curve_pieces(curve)
+    mid = 0.5 * (panels.t0 + panels.t1)
+    kind, coef = _panel_coefs(piece_kind, piece_spec, panels.piece, mid, mid)
+    return panel_geometry(kind, coef, np.full((len(mid), 1), -1.0))[0][:, 0, :]
+
+
+def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
     """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
-    changed = True
-    while changed:
-        changed = False
-        flat = [(k, j) for k, iv in enumerate(per_piece) for j in range(len(iv))]
-        lengths = np.concatenate(
-            [
-                _panel_sizes(piece, tuple(iv))[0]
-                for piece, iv in zip(curve.pieces, per_piece, strict=True)
-            ]
-        ).tolist()
-        n = len(flat)
-        split = set()
-        for i in range(n - 1 + int(closed)):
-            a, b = i, (i + 1) % n
-            if lengths[a] > ratio * lengths[b] * (1 + 1e-9):
-                split.add(flat[a])
-            elif lengths[b] > ratio * lengths[a] * (1 + 1e-9):
-                split.add(flat[b])
-        if split:
-            changed = True
-            for k, j in sorted(split, reverse=True):
-                a0, b0 = per_piece[k][j]
-                m = 0.5 * (a0 + b0)
-                per_piece[k][j : j + 1] = [(a0, m), (m, b0)]
+    while True:
+        lengths = _curve_lengths(curve, panels)
+        n = len(lengths)
+        a = np.arange(n - 1 + int(closed))
+        b = (a + 1) % n
+        la, lb = lengths[a], lengths[b]
+        mask = np.zeros(n, dtype=bool)
+        mask[a[la > ratio * lb * (1 + 1e-9)]] = True
+        mask[b[lb > ratio * la * (1 + 1e-9)]] = True
+        if not mask.any():
+            return panels
+        panels = panels.split(mask)
 
 
 def build_mesh(
@@ -295,34 +311,156 @@ def build_mesh(
     """
     if rule is None:
         rule = default_rule(order)
-    per_conductor = []
+    base = _base_panels(layout, rule)
     frac = np.linspace(0.0, 1.0, 2**level + 1)
-    for curve, base, corner_ends in _base_intervals(layout, rule):
-        intervals = []
-        for iv in base:
-            ab = np.asarray(iv, dtype=float)
-            edges = ab[:, :1] + (ab[:, 1:] - ab[:, :1]) * frac  # (n, 2**level + 1)
-            intervals.append(
-                list(
-                    zip(edges[:, :-1].ravel().tolist(), edges[:, 1:].ravel().tolist(), strict=True)
-                )
-            )
-        for k, at_end in corner_ends:
-            _grade_towards(intervals[k], at_end, rule.steps_per_level * level, rule.grade_ratio)
-        per_conductor.append((curve, intervals, corner_ends))
-    return _assemble_mesh(layout, per_conductor, level, order)
+    edges = base.t0[:, None] + (base.t1 - base.t0)[:, None] * frac  # (M, 2**level + 1)
+    piece = np.repeat(base.piece, 2**level)
+    t0, t1 = edges[:, :-1].ravel(), edges[:, 1:].ravel()
+    steps = rule.steps_per_level * level
+    if steps and base.corner_ends:
+        first, last = _piece_ends(piece)
+        drop, extra = [], []
+        for k, at_end in base.corner_ends:
+            j = last[k] if at_end else first[k]
+            cuts = _graded_edges(float(t0[j]), float(t1[j]), at_end, steps, rule.grade_ratio)
+            drop.append(j)
+            extra.append((np.full(len(cuts) - 1, k), cuts[:-1], cuts[1:]))
+        keep = np.ones(len(piece), dtype=bool)
+        keep[drop] = False
+        piece = np.concatenate([piece[keep]] + [e[0] for e in extra])
+        t0 = np.concatenate([t0[keep]] + [np.asarray(e[1]) for e in extra])
+        t1 = np.concatenate([t1[keep]] + [np.asarray(e[2]) for e in extra])
+        order_ = np.lexsort((t0, piece))
+        piece, t0, t1 = piece[order_], t0[order_], t1[order_]
+    return _assemble_mesh(layout, base, piece, t0, t1, level, order)
+
+
+def _piece_ends(piece: np.ndarray) -> tuple[dict[int, int], dict[int, int]]:
+    """Index of the first and of the last panel of every piece in ``piece`` (sorted, (P,))."""
+    ids, first, counts = np.unique(piece, return_index=True, return_counts=True)
+    return (
+        dict(zip(ids.tolist(), first.tolist(), strict=True)),
+        dict(zip(ids.tolist(), (first + counts - 1).tolist(), strict=True)),
+    )
+
+
+def _graded_edges(a: float, b: float, at_end: bool, times: int, ratio: float) -> list[float]:
+    """Edges of the parameter interval (a, b) cut ``times`` times at 1/``ratio`` of the
+    interval touching one end from that end, as :func:`_grade_towards` cuts it."""
+    iv = [(a, b)]
+    _grade_towards(iv, at_end, times, ratio)
+    return [iv[0][0]] + [e for _, e in iv]
+
+
+@dataclass(frozen=True)
+class _BasePanels:
+    """Level-0 panels of a layout as flat arrays (M,), piece-major in layout order: ``piece``
+    (index into ``pieces``), parameters ``t0`` < ``t1``; per piece (n,): ``pieces``,
+    ``conductor``, ``kind``, ``spec`` (n, 5) (segment: start and end points; arc: centre,
+    radius, start angle, sweep; ellipse arc: centre z, semi-axes, start parameter, span);
+    ``corner_ends``: (piece, at_end) of every singular corner, graded further per level;
+    ``signs`` (conductors,): orientation of each conductor's normal.
+    """
+
+    piece: np.ndarray
+    t0: np.ndarray
+    t1: np.ndarray
+    pieces: tuple
+    conductor: np.ndarray
+    kind: np.ndarray
+    spec: np.ndarray
+    corner_ends: tuple[tuple[int, bool], ...]
+    signs: np.ndarray
+
+
+def _piece_spec(piece) -> tuple[int, tuple[float, ...]]:
+    if isinstance(piece, Segment):
+        return KIND_SEGMENT, (*piece.start, *piece.end, 0.0)
+    if isinstance(piece, Arc):
+        return KIND_ARC, (*piece.center, piece.radius, piece.start_angle, piece.sweep)
+    if isinstance(piece, EllipseArc):
+        span = piece.end_u - piece.start_u
+        return KIND_ELLIPSE, (
+            piece.center_z,
+            piece.semi_axis_r,
+            piece.semi_axis_z,
+            piece.start_u,
+            span,
+        )
+    raise TypeError(f"unsupported curve piece {type(piece).__name__}")
+
+
+@lru_cache(maxsize=8)
+def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
+    pieces, conductor, kind, spec, piece_id, t0, t1 = [], [], [], [], [], [], []
+    corners = []
+    for ci, (curve, panels, corner_ends) in enumerate(_base_intervals(layout, rule)):
+        offset = len(pieces)
+        for pc in curve.pieces:
+            kd, sp = _piece_spec(pc)
+            pieces.append(pc)
+            conductor.append(ci)
+            kind.append(kd)
+            spec.append(sp)
+        piece_id.append(panels.piece + offset)
+        t0.append(panels.t0)
+        t1.append(panels.t1)
+        for k, at_end in sorted(corner_ends):
+            corners.append((offset + k, at_end))
+    signs = np.array(
+        [_orientation(c.shape) if c.shape.kind != "sheet" else 1.0 for c in layout.conductors]
+    )
+    return _BasePanels(
+        piece=np.concatenate(piece_id).astype(np.int64),
+        t0=np.concatenate(t0),
+        t1=np.concatenate(t1),
+        pieces=tuple(pieces),
+        conductor=np.asarray(conductor, dtype=np.int64),
+        kind=np.asarray(kind, dtype=np.int64),
+        spec=np.asarray(spec, dtype=float).reshape(-1, 5),
+        corner_ends=tuple(corners),
+        signs=signs,
+    )
+
+
+def _panel_coefs(
+    piece_kind: np.ndarray,
+    piece_spec: np.ndarray,
+    piece: np.ndarray,
+    t0: np.ndarray,
+    t1: np.ndarray,
+):
+    """Kind (P,) and coefficients (P, 5) for :func:`panel_geometry` of the panels (piece, t0,
+    t1) (P,) of pieces with kinds (n,) and :func:`_piece_spec` rows (n, 5)."""
+    kind = piece_kind[piece]
+    sp = piece_spec[piece]
+    coef = np.empty((len(piece), 5))
+    seg = kind == KIND_SEGMENT
+    if np.any(seg):
+        s, a0, a1 = sp[seg], t0[seg][:, None], t1[seg][:, None]
+        coef[seg, 0:2] = 0.5 * (1 - a0) * s[:, 0:2] + 0.5 * (1 + a0) * s[:, 2:4]
+        coef[seg, 2:4] = 0.5 * (1 - a1) * s[:, 0:2] + 0.5 * (1 + a1) * s[:, 2:4]
+        coef[seg, 4] = 0.0
+    rest = ~seg
+    if np.any(rest):
+        s = sp[rest]
+        coef[rest, 0:3] = s[:, 0:3]
+        coef[rest, 3] = s[:, 3] + 0.5 * (t0[rest] + 1) * s[:, 4]
+        coef[rest, 4] = s[:, 3] + 0.5 * (t1[rest] + 1) * s[:, 4]
+    return kind, coef
 
 
 def clear_mesh_cache() -> None:
     """Forget the cached level-0 intervals and panel sizes (a benchmark times a trial's
     meshing with it)."""
-    for cached in (_base_intervals, _panel_sizes, _orientation):
+    for cached in (_base_panels, _base_intervals, _curve_pieces, _orientation):
         cached.cache_clear()
 
 
 @lru_cache(maxsize=8)
 def _base_intervals(layout: Layout, rule: MeshRule):
-    """Level-0 parameter intervals per piece of every conductor, and its singular corner ends."""
+    """Level-0 panels (:class:`_CurvePanels`) of every conductor's curve, and its singular
+    corner ends (piece, at_end)."""
     per_conductor = []
     for cond in layout.conductors:
         curve: Curve = cond.shape
@@ -338,88 +476,63 @@ def _base_intervals(layout: Layout, rule: MeshRule):
                 _grade_towards(intervals[k], at_end, times, rule.grade_ratio)
                 if corner.singular:
                     corner_ends.add((k, at_end))
-        _balance(curve, intervals, rule.balance_ratio)
-        per_conductor.append((curve, intervals, frozenset(corner_ends)))
-    _refine_gaps(layout, per_conductor, rule.balance_ratio)
-    return tuple(
-        (curve, tuple(tuple(iv) for iv in intervals), ends)
-        for curve, intervals, ends in per_conductor
-    )
+        panels = _balance(curve, _CurvePanels.of(intervals), rule.balance_ratio)
+        per_conductor.append((curve, panels, frozenset(corner_ends)))
+    return tuple(_refine_gaps(layout, per_conductor, rule.balance_ratio))
 
 
-def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> None:
+def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
     """Split panels longer than GAP_FACTOR times their distance to other surfaces/images."""
     samples = [cond.shape.sample(24) for cond in layout.conductors]
-    clouds = []
-    for ci in range(len(samples)):
+    out = []
+    for ci, (curve, panels, ends) in enumerate(per_conductor):
         others = [samples[j] for j in range(len(samples)) if j != ci]
         if layout.ground_plane:
             others += [s * np.array([1.0, -1.0]) for s in samples]
-        clouds.append(np.concatenate(others) if others else None)
-    for ci, (curve, intervals, _) in enumerate(per_conductor):
-        cloud = clouds[ci]
-        if cloud is None:
-            continue
-        for _ in range(40):
-            # Every piece's panels against the cloud at once (a piece's splits do not change
-            # another piece's test).
-            sizes = [
-                _panel_sizes(piece, tuple(iv))
-                for piece, iv in zip(curve.pieces, intervals, strict=True)
-            ]
-            centres = np.concatenate([c for _, c in sizes])
-            gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
-                centres[:, None, 1] - cloud[None, :, 1]
-            ) ** 2
-            dist = np.sqrt(gap2.min(axis=1))
-            lengths = np.concatenate([n for n, _ in sizes])
-            bad = lengths > GAP_FACTOR * dist
-            if not np.any(bad):
-                break
-            start = 0
-            for iv in intervals:
-                n = len(iv)
-                for j in np.nonzero(bad[start : start + n])[0][::-1]:
-                    a, b = iv[j]
-                    m = 0.5 * (a + b)
-                    iv[j : j + 1] = [(a, m), (m, b)]
-                start += n
-            _balance(curve, intervals, balance_ratio)
+        if others:
+            cloud = np.concatenate(others)
+            for _ in range(40):
+                lengths = _curve_lengths(curve, panels)
+                centres = _curve_midpoints(curve, panels)
+                gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
+                    centres[:, None, 1] - cloud[None, :, 1]
+                ) ** 2
+                bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
+                if not bad.any():
+                    break
+                panels = _balance(curve, panels.split(bad), balance_ratio)
+        out.append((curve, panels, ends))
+    return out
 
 
-def _assemble_mesh(layout: Layout, per_conductor, level: int, order: int) -> AxiMesh:
+def _assemble_mesh(
+    layout: Layout,
+    base: _BasePanels,
+    piece: np.ndarray,
+    t0: np.ndarray,
+    t1: np.ndarray,
+    level: int,
+    order: int,
+) -> AxiMesh:
     xg, wg = gauss_legendre(order)
-    conductor, kind, coef, at_corner = [], [], [], []
-    for ci, (curve, intervals, corner_ends) in enumerate(per_conductor):
-        for k, piece in enumerate(curve.pieces):
-            ab = np.asarray(intervals[k], dtype=float)
-            kd, cf = _piece_coefs(piece, ab)
-            n = len(ab)
-            conductor.append(np.full(n, ci))
-            kind.append(np.full(n, kd))
-            coef.append(cf)
-            touches = np.zeros(n, dtype=bool)
-            touches[0] |= (k, False) in corner_ends
-            touches[-1] |= (k, True) in corner_ends
-            at_corner.append(touches)
-    conductor_a = np.concatenate(conductor).astype(np.int64)
-    kind_a = np.concatenate(kind).astype(np.int64)
-    coef_a = np.concatenate(coef)
+    kind_a, coef_a = _panel_coefs(base.kind, base.spec, piece, t0, t1)
+    conductor_a = base.conductor[piece]
+    first, last = _piece_ends(piece)
+    at_corner = np.zeros(len(piece), dtype=bool)
+    for k, at_end in base.corner_ends:
+        at_corner[last[k] if at_end else first[k]] = True
     tau = np.broadcast_to(xg, (len(kind_a), order))
     pts, der = panel_geometry(kind_a, coef_a, tau)
     jac = np.linalg.norm(der, axis=-1)
     tang = der / jac[..., None]
-    signs = np.array(
-        [_orientation(c.shape) if c.shape.kind != "sheet" else 1.0 for c in layout.conductors]
-    )
-    sgn = signs[conductor_a][:, None, None]
+    sgn = base.signs[conductor_a][:, None, None]
     normals = sgn * np.stack([tang[..., 1], -tang[..., 0]], axis=-1)
     weights = jac * wg
     length = weights.sum(axis=1)
     # Arc length from the start of each conductor's curve to the start of each panel.
     ends = np.cumsum(length)
-    first = np.searchsorted(conductor_a, conductor_a)
-    arc_start = ends - length - np.where(first > 0, ends[first - 1], 0.0)
+    first_of = np.searchsorted(conductor_a, conductor_a)
+    arc_start = ends - length - np.where(first_of > 0, ends[first_of - 1], 0.0)
     arc = arc_start[:, None] + 0.5 * (xg + 1.0) * length[:, None]
     center, _ = panel_geometry(kind_a, coef_a, np.zeros((len(kind_a), 1)))
     return AxiMesh(
@@ -430,7 +543,7 @@ def _assemble_mesh(layout: Layout, per_conductor, level: int, order: int) -> Axi
         coef=coef_a,
         length_m=length,
         center_m=center[:, 0, :],
-        at_corner=np.concatenate(at_corner),
+        at_corner=at_corner,
         points_m=pts.reshape(-1, 2),
         tangents=tang.reshape(-1, 2),
         normals=normals.reshape(-1, 2),

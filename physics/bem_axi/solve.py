@@ -65,6 +65,19 @@ CONDUCTOR_COARSE_RULE = MeshRule(
 #: off at 5e-8 (coaxial disks), the peak at 3.3e-7 (sphere).
 COARSE_ENTRY_ERROR = 1e-6
 COARSE_ENTRY_FLOORS = (1e-7, 1e-6)
+#: The estimate's prior ratio and collapse ratio (refinement.Convergence) with
+#: CONDUCTOR_COARSE_RULE, measured on a grid of 52 guarded probes against their own 1e-8
+#: solves (tests/benchmarks/measure_error_estimate_probes.py, requests 1e-3 - 1e-4): with the
+#: common prior 1/3 and no collapse ratio, 25 of 156 (probe, request) pairs had a true error
+#: above the estimate: 21 two-level stops up to 1.52 times it (small fillets, whose first
+#: halving barely moves the error) and 4 three-level stops up to 11.2 times it (a first
+#: change 200 times the second, floored at RATIO_FLOOR). Prior 0.45 (the two-level estimate
+#: 1.64 times the change) and collapse 0.03 (the smallest ratio measured on the published
+#: cases, refinement.RATIO_FLOOR's note): none above it, the largest 0.94 times it, and the
+#: same levels (mean 453 unknowns at 1e-4). The published cases still pass the honesty tests
+#: (tests/test_error_estimate_honesty_coarse.py, *_loose.py).
+COARSE_PRIOR_RATIO = 0.45
+COARSE_COLLAPSE_RATIO = 0.03
 
 
 def mesh_rule(order: int, request: float, *, conductors_only: bool = False) -> MeshRule:
@@ -151,8 +164,14 @@ def solve_axisymmetric(
 
     # Orders between (or below) the measured ones take the floors of the next lower (or 4).
     floors = NOISE_FLOORS[max((p for p in NOISE_FLOORS if p <= order), default=4)]
-    if entry_error is not None:
-        floors = COARSE_ENTRY_FLOORS
     convergence = Convergence(capacitance_floor=floors[0], peak_floor=floors[1])
-    refinement = refine(plan, opts, convergence, covered=layout.estimate_indices)
-    return AxisymmetricSolution(layout, refinement)
+    if entry_error is not None:
+        convergence = Convergence(
+            capacitance_floor=COARSE_ENTRY_FLOORS[0],
+            peak_floor=COARSE_ENTRY_FLOORS[1],
+            prior_ratio=COARSE_PRIOR_RATIO,
+            collapse_ratio=COARSE_COLLAPSE_RATIO,
+        )
+    return AxisymmetricSolution(
+        layout, refine(plan, opts, convergence, covered=layout.estimate_indices)
+    )

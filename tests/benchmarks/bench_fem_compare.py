@@ -46,6 +46,28 @@ LU 2.8.
 Re-run after the merges on a near-idle machine (2 Dec 2026 18:40, load 0.8), 9 repeats:
 filleted BEM 6.42 ms vs FEM 79.1 ms (12.3x), sharp 9.56 ms vs 66.0 ms (6.9x); BEM errors
 2.7e-6 / 8.5e-8 against estimates 1.3e-5 / 1.8e-5. The 30x target is not met.
+
+3 Dec 2026 04:02, ``--repeats 9 --before`` (main's package at 02c8a3a against the axilevels
+branch: meshes built from flat arrays, curve samples computed once, the coarse solve's prior
+ratio 0.45 and collapse ratio 0.03), one run under heavy load (``uptime`` load average 7.0 at
+start, 6.4 at end, the test suite running beside it), so the wall times are noise and the CPU
+times the figure (ms, medians):
+
+    probe                     BEM cpu before -> after   N (both)    FEM cpu   ratio
+    filleted 0.05 mm, 0.2 mm  6.22 -> 5.42              104+208     71.3      11.5x -> 13.1x
+    sharp, 0.5 mm             8.40 -> 7.90              148+344     59.8      7.1x -> 7.6x
+
+Same levels and C (errors 2.7e-6 / 8.5e-8); the estimates are 2.2e-5 / 3.0e-5 instead of
+1.3e-5 / 1.8e-5 (the two-level estimate is 1.64 times the change, measured honest on a grid
+of guarded probes by measure_error_estimate_probes.py). Level 0 alone already has matrix
+errors of 2.1e-5 / 1.5e-5 against the 1e-9 reference; level 1 (2.3 times the unknowns, about
+three quarters of the solve) is paid for the estimate. No cheaper honest pair was found: the
+sharp probe's level 0 needs both corner steps (one fewer: 6.7e-4 off); coarser gap or bulk
+rules that stay as honest on the guarded-probe grid save 4 - 7 % of the unknowns here, those
+saving about 20 % are not (up to 50 times under the true error there); a partner of one node
+less per panel on the same panels is not honest at sheet edges (coaxial disks d/R = 0.1: the
+3 -> 4 node change 7.0e-6, the error 1.6e-5; a disk is 5.3e-6 off at 4 nodes, 5.4e-6 at 5).
+The 30x target is not met.
 """
 
 from __future__ import annotations
