@@ -14,7 +14,15 @@ import math
 import numpy as np
 from numba import njit
 
-from elopt.physics.bem_axi.ring_sums import foot_points, near_rows, node_rows
+from elopt.physics.bem_axi.ring_sums import (
+    batch_edges,
+    foot_points,
+    near_rows,
+    node_rows,
+    panel_point,
+    ring_m1_scale,
+    scaled_k,
+)
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
 MAX_LEVELS = 44
@@ -56,6 +64,141 @@ def _pairs(
 
 
 @njit(cache=True)
+def _near_plan(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    kind: np.ndarray,
+    coef: np.ndarray,
+    length: np.ndarray,
+    centre_r: np.ndarray,
+    centre_z: np.ndarray,
+    reach: np.ndarray,
+    order: int,
+    mirror: bool,
+    exclude_self: bool,
+):
+    """Near (target, panel) pairs (B,) ``ti``, ``pj``, the target points, the panels' kinds and
+    coefficients, the foot-point parameters and the grading depths (:func:`_pairs`)."""
+    ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, order, mirror, exclude_self)
+    n = ti.shape[0]
+    pr = np.empty(n)
+    pz = np.empty(n)
+    kd = np.empty(n, np.int64)
+    cf = np.empty((n, coef.shape[1]))
+    for b in range(n):
+        pr[b] = tr[ti[b]]
+        pz[b] = tz[ti[b]]
+        kd[b] = kind[pj[b]]
+        cf[b] = coef[pj[b]]
+    tau_c, delta = foot_points(pr, pz, kd, cf, mirror)
+    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
+    # so does the innermost once it is no longer than the distance: one level beyond
+    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
+    levels = np.empty(n, np.int64)
+    for b in range(n):
+        ratio = length[pj[b]] / max(delta[b], 1e-300)
+        lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
+        levels[b] = min(max(lv, 1), MAX_LEVELS)
+    return ti, pj, pr, pz, kd, cf, tau_c, levels
+
+
+@njit(cache=True)
+def _add_field_rows(
+    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, bary, xq, wq
+) -> None:
+    """(graded rule - node rule) of the field of the pairs into ``mat`` (M, N, 2)."""
+    p = x.shape[0]
+    n = ti.shape[0]
+    cols = np.empty((n, p), np.int64)
+    for b in range(n):
+        for k in range(p):
+            cols[b, k] = pj[b] * p + k
+    good = near_rows(pr, pz, kd, cf, tau_c, levels, mirror, True, x, bary, xq, wq)
+    direct = node_rows(pr, pz, sr, sz, w, cols, mirror, True)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(n):
+        for k in range(p):
+            for c in range(2):
+                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+
+
+@njit(cache=True, error_model="numpy")
+def _potential_params(
+    b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
+    pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel (the node rule the
+    far sum used), then the graded sub-rule points of :func:`ring_sums.near_rows`."""
+    p = x.shape[0]
+    total = start[b1] - start[b0]
+    m1 = np.empty(total)
+    scale = np.empty(total)
+    tau_out = np.empty(total)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(b0, b1):
+        e = start[b] - start[b0]
+        t_r, t_z = pr[b], pz[b]
+        for k in range(p):
+            j = pj[b] * p + k
+            m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], sr[j] * w[j])
+            tau_out[e] = x[k]
+            e += 1
+        tc = tau_c[b]
+        c = cf[b]
+        straight = kd[b] == 0
+        if straight:  # the point is linear in tau and the length element constant
+            jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1])
+        for side in (1.0, -1.0):
+            span = 1.0 - tc if side > 0 else tc + 1.0
+            if span <= 0.0:
+                continue
+            hi = span
+            for k in range(levels[b]):
+                lo = 0.0 if k == levels[b] - 1 else 0.5 * hi
+                mid = 0.5 * (hi + lo)
+                half = 0.5 * (hi - lo)
+                hi = lo
+                for q in range(xq.shape[0]):
+                    tau = tc + side * (mid + half * xq[q])
+                    if straight:
+                        s = 0.5 * (tau + 1.0)
+                        rs = c[0] + s * (c[2] - c[0])
+                        zs = c[1] + s * (c[3] - c[1])
+                    else:
+                        rs, zs, jac = panel_point(kd[b], c, tau)
+                    m1[e], scale[e] = ring_m1_scale(t_r, t_z, rs, sgn * zs, rs * wq[q] * half * jac)
+                    tau_out[e] = tau
+                    e += 1
+    return m1, scale, tau_out
+
+
+@njit(cache=True, error_model="numpy")
+def _add_potential_rows(mat, v, tau, b0, b1, start, ti, pj, mirror, x, bary) -> None:
+    """Add (graded rule - node rule) of pairs b0..b1-1 into ``mat`` (M, N) from the values
+    ``v`` in the order of :func:`_potential_params`; sigma on the graded points is the panel's
+    Lagrange interpolant (product form: no division, exact at the nodes)."""
+    p = x.shape[0]
+    acc = np.empty(p)
+    pre = np.empty(p + 1)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(b0, b1):
+        e0 = start[b] - start[b0]
+        e1 = start[b + 1] - start[b0]
+        for k in range(p):
+            acc[k] = -v[e0 + k]
+        for e in range(e0 + p, e1):
+            t = tau[e]
+            pre[0] = 1.0
+            for k in range(p):
+                pre[k + 1] = pre[k] * (t - x[k])
+            suf = v[e]
+            for k in range(p - 1, -1, -1):
+                acc[k] += bary[k] * pre[k] * suf
+                suf *= t - x[k]
+        for k in range(p):
+            mat[ti[b], pj[b] * p + k] += sgn * acc[k]
+
+
 def add_near_corrections(
     mat: np.ndarray,
     tr: np.ndarray,
@@ -79,38 +222,28 @@ def add_near_corrections(
     """Add (graded rule - node rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
     in place; image pairs (``mirror``) enter with a minus, as ``mat`` holds real-minus-image
     sums. Targets (M,) ``tr``, ``tz``; panels (P,) ``kind``, ``coef`` (P, 5), ``length``,
-    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x)."""
+    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x).
+
+    The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
+    logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
-    ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, p, mirror, exclude_self)
-    n = ti.shape[0]
-    if n == 0:
+    plan = _near_plan(
+        tr, tz, kind, coef, length, centre_r, centre_z, reach, p, mirror, exclude_self
+    )
+    ti, pj, pr, pz, kd, cf, tau_c, levels = plan
+    if len(ti) == 0:
         return
-    field = mat.shape[2] == 2
-    pr = np.empty(n)
-    pz = np.empty(n)
-    kd = np.empty(n, np.int64)
-    cf = np.empty((n, coef.shape[1]))
-    cols = np.empty((n, p), np.int64)
-    for b in range(n):
-        pr[b] = tr[ti[b]]
-        pz[b] = tz[ti[b]]
-        kd[b] = kind[pj[b]]
-        cf[b] = coef[pj[b]]
-        for k in range(p):
-            cols[b, k] = pj[b] * p + k
-    tau_c, delta = foot_points(pr, pz, kd, cf, mirror)
-    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
-    # so does the innermost once it is no longer than the distance: one level beyond
-    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
-    levels = np.empty(n, np.int64)
-    for b in range(n):
-        ratio = length[pj[b]] / max(delta[b], 1e-300)
-        lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
-        levels[b] = min(max(lv, 1), MAX_LEVELS)
-    good = near_rows(pr, pz, kd, cf, tau_c, levels, mirror, field, x, bary, xq, wq)
-    direct = node_rows(pr, pz, sr, sz, w, cols, mirror, field)
-    sgn = -1.0 if mirror else 1.0
-    for b in range(n):
-        for k in range(p):
-            for c in range(mat.shape[2]):
-                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+    if mat.shape[2] == 2:
+        _add_field_rows(mat, *plan, sr, sz, w, mirror, x, bary, xq, wq)
+        return
+    sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
+    counts = p + len(xq) * levels * sides
+    start = np.concatenate(([0], np.cumsum(counts)))
+    edges = batch_edges(counts)
+    mat2 = mat[..., 0]
+    for b0, b1 in zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True):
+        m1, scale, tau = _potential_params(
+            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+        )
+        v = scaled_k(m1, scale)
+        _add_potential_rows(mat2, v, tau, b0, b1, start, ti, pj, mirror, x, bary)
