@@ -1,10 +1,11 @@
-"""Compiled near-field correction of the axisymmetric operators (numba), in one pass.
+"""Compiled near-field correction of the axisymmetric operators (numba).
 
 The far sums of :mod:`elopt.physics.bem_axi.ring_sums` give every (target, node) entry by the
 source panel's own Gauss rule. For (target, panel) pairs closer than a reach, this pass swaps
 that value for the graded sub-rule of ``ring_sums.near_rows``: it finds the pairs, their foot
-points and grading depths, and adds (accurate - node rule) into the matrix, with no Python
-between the steps (the per-call array work there cost as much as the rules themselves).
+points and grading depths in one compiled call, and adds (accurate - node rule) into the
+matrix; the potential's evaluations (node rule and sub-rules alike) go through the batched
+``ring_sums.scaled_k`` and ``ring_sums.lagrange_rows``.
 """
 
 from __future__ import annotations
@@ -15,13 +16,12 @@ import numpy as np
 from numba import njit
 
 from elopt.physics.bem_axi.ring_sums import (
-    batch_edges,
     foot_points,
+    lagrange_sums,
     near_rows,
     node_rows,
     panel_point,
     ring_m1_scale,
-    scaled_k,
 )
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
@@ -43,23 +43,21 @@ def _pairs(
     centre (mirrored in z = 0 when ``mirror``); a node's own panel left out on request."""
     m, n_p = tr.shape[0], centre_r.shape[0]
     sgn = -1.0 if mirror else 1.0
-    ti = np.empty(m * 8, np.int64)
-    pj = np.empty(m * 8, np.int64)
+    ti = np.empty(m * 8 + n_p, np.int64)
+    pj = np.empty(m * 8 + n_p, np.int64)
     count = 0
     for i in range(m):
+        if count + n_p > ti.shape[0]:
+            ti = np.concatenate((ti, np.empty(ti.shape[0], np.int64)))
+            pj = np.concatenate((pj, np.empty(pj.shape[0], np.int64)))
+        own = i // order if exclude_self else -1
+        # Branch-free: every panel is written, the count moves on for the close ones.
         for j in range(n_p):
             dr = tr[i] - centre_r[j]
             dz = tz[i] - sgn * centre_z[j]
-            if dr * dr + dz * dz >= reach[j] * reach[j]:
-                continue
-            if exclude_self and i // order == j:
-                continue
-            if count == ti.shape[0]:
-                ti = np.concatenate((ti, np.empty(count, np.int64)))
-                pj = np.concatenate((pj, np.empty(count, np.int64)))
             ti[count] = i
             pj[count] = j
-            count += 1
+            count += (dr * dr + dz * dz < reach[j] * reach[j]) & (j != own)
     return ti[:count], pj[:count]
 
 
@@ -127,8 +125,9 @@ def _potential_params(
     b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
-    pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel (the node rule the
-    far sum used), then the graded sub-rule points of :func:`ring_sums.near_rows`."""
+    pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel, negated at tau = x_k
+    (the node rule the far sum holds, taken out), then the graded sub-rule points of
+    :func:`ring_sums.near_rows`."""
     p = x.shape[0]
     total = start[b1] - start[b0]
     m1 = np.empty(total)
@@ -140,7 +139,7 @@ def _potential_params(
         t_r, t_z = pr[b], pz[b]
         for k in range(p):
             j = pj[b] * p + k
-            m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], sr[j] * w[j])
+            m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
             tau_out[e] = x[k]
             e += 1
         tc = tau_c[b]
@@ -170,33 +169,6 @@ def _potential_params(
                     tau_out[e] = tau
                     e += 1
     return m1, scale, tau_out
-
-
-@njit(cache=True, error_model="numpy")
-def _add_potential_rows(mat, v, tau, b0, b1, start, ti, pj, mirror, x, bary) -> None:
-    """Add (graded rule - node rule) of pairs b0..b1-1 into ``mat`` (M, N) from the values
-    ``v`` in the order of :func:`_potential_params`; sigma on the graded points is the panel's
-    Lagrange interpolant (product form: no division, exact at the nodes)."""
-    p = x.shape[0]
-    acc = np.empty(p)
-    pre = np.empty(p + 1)
-    sgn = -1.0 if mirror else 1.0
-    for b in range(b0, b1):
-        e0 = start[b] - start[b0]
-        e1 = start[b + 1] - start[b0]
-        for k in range(p):
-            acc[k] = -v[e0 + k]
-        for e in range(e0 + p, e1):
-            t = tau[e]
-            pre[0] = 1.0
-            for k in range(p):
-                pre[k + 1] = pre[k] * (t - x[k])
-            suf = v[e]
-            for k in range(p - 1, -1, -1):
-                acc[k] += bary[k] * pre[k] * suf
-                suf *= t - x[k]
-        for k in range(p):
-            mat[ti[b], pj[b] * p + k] += sgn * acc[k]
 
 
 def add_near_corrections(
@@ -238,12 +210,12 @@ def add_near_corrections(
         return
     sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
     counts = p + len(xq) * levels * sides
-    start = np.concatenate(([0], np.cumsum(counts)))
-    edges = batch_edges(counts)
-    mat2 = mat[..., 0]
-    for b0, b1 in zip(edges[:-1].tolist(), edges[1:].tolist(), strict=True):
-        m1, scale, tau = _potential_params(
+
+    def params(b0: int, b1: int, start: np.ndarray):
+        return _potential_params(
             b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
         )
-        v = scaled_k(m1, scale)
-        _add_potential_rows(mat2, v, tau, b0, b1, start, ti, pj, mirror, x, bary)
+
+    rows = lagrange_sums(params, counts, x, bary)
+    cols = pj[:, None] * p + np.arange(p)
+    mat[ti[:, None], cols, 0] += -rows if mirror else rows

@@ -1,13 +1,19 @@
-"""Compiled far-field sums of the ring kernels (numba): the hot loops of the solver.
+"""Compiled sums of the ring kernels (numba): the hot loops of the solver.
 
 ``potential_sum`` and ``field_sum`` fill target-by-source matrices with the ring kernels of
-:mod:`elopt.physics.bem_axi.ring_kernels`, real sources minus their images in z = 0 when asked, times the
-source quadrature weights. The complete elliptic integrals come from the arithmetic-geometric
-K from Moshier's rational-log approximation, E with K from the arithmetic-geometric mean,
+:mod:`elopt.physics.bem_axi.ring_kernels`, real sources minus their images in z = 0 when
+asked, times the source quadrature weights. K comes from Moshier's rational-log
+approximation, E with K from the arithmetic-geometric mean,
 E(m) = K(m) (1 - sum 2^(n-1) c_n^2) (DLMF 19.8.6). Coincident target and source give 0 (the
-caller supplies the singular self terms). The near-field rules loop over graded sub-pieces
-without padded temporaries; ``tests/benchmarks/bench_axi.py`` compares the far sum with the
-vectorised scipy form.
+caller supplies the singular self terms).
+
+The potential of the collocation matrix (``collocation_sum``, the self rows here and the
+near rows of :mod:`near_sums`) is evaluated in batches instead: a compiled pass lists each
+evaluation's m1 and scale, numpy's vectorised logarithm and a loop the compiler vectorises
+give ``scaled_k``, and a last pass sums the values into the matrix or into Lagrange rows (a
+scalar logarithm per value cost as much as the rest of the kernel together). The near-field
+rules of the field loop over graded sub-pieces without padded temporaries;
+``tests/benchmarks/bench_axi.py`` compares the far sum with the vectorised scipy form.
 """
 
 from __future__ import annotations
@@ -119,10 +125,11 @@ def potential_sum(
     return out
 
 
-#: Most (target, source) pairs per batch of the vectorised sums: temporaries of 128 kB
-#: however large the mesh (measured on a 344-node collocation sum: batches of 2^16 pairs
-#: took twice as long, their fresh pages faulting in on every call).
-BATCH_PAIRS = 1 << 14
+#: Most (target, source) pairs per batch of the vectorised sums: temporaries of 64 kB
+#: however large the mesh, below the C library's threshold for fresh pages (measured on the
+#: guarded probes: batches of 2^16 pairs made the 344-node collocation sum twice as slow,
+#: their fresh pages faulting in on every call; 2^13 beat 2^14 by 10 % per solve).
+BATCH_PAIRS = 1 << 13
 _INV_PI = 1.0 / math.pi
 
 
@@ -506,6 +513,78 @@ def own_panel_pv_rows(
 
 
 @njit(cache=True)
+def lagrange_coefficients(x: np.ndarray, bary: np.ndarray) -> np.ndarray:
+    """(p, p): entry (j, k) the coefficient of t^j in the Lagrange polynomial l_k on nodes
+    ``x`` (barycentric weights ``bary``)."""
+    p = x.shape[0]
+    out = np.zeros((p, p))
+    c = np.empty(p)
+    for k in range(p):
+        c[:] = 0.0
+        c[0] = bary[k]
+        deg = 0
+        for m in range(p):
+            if m == k:
+                continue
+            for d in range(deg + 1, 0, -1):  # c *= (t - x[m])
+                c[d] = c[d - 1] - x[m] * c[d]
+            c[0] = -x[m] * c[0]
+            deg += 1
+        out[:, k] = c
+    return out
+
+
+@njit(cache=True, error_model="numpy")
+def lagrange_rows(
+    v: np.ndarray,
+    tau: np.ndarray,
+    start: np.ndarray,
+    b0: int,
+    b1: int,
+    x: np.ndarray,
+    bary: np.ndarray,
+    out: np.ndarray,
+) -> None:
+    """Add sum_e v[e] l_k(tau[e]) over the evaluations e of each group b0..b1-1 (from
+    ``start[b] - start[b0]`` in ``v``, ``tau``) into ``out[b, k]``; l_k the Lagrange basis on
+    nodes ``x`` in [-1, 1].
+
+    The moments sum_e v[e] tau[e]^j are taken first and turned into the basis by
+    :func:`lagrange_coefficients`: half the time of the basis at every point. Measured
+    against that (random points and values): differences 2e-16 of sum |v| up to 8 nodes,
+    1.3e-12 at 16.
+    """
+    p = x.shape[0]
+    coef = lagrange_coefficients(x, bary)
+    mom = np.empty(p)
+    for b in range(b0, b1):
+        mom[:] = 0.0
+        for e in range(start[b] - start[b0], start[b + 1] - start[b0]):
+            t = tau[e]
+            power = v[e]
+            for j in range(p):
+                mom[j] += power
+                power *= t
+        for k in range(p):
+            s = 0.0
+            for j in range(p):
+                s += mom[j] * coef[j, k]
+            out[b, k] += s
+
+
+def lagrange_sums(params, counts: np.ndarray, x: np.ndarray, bary: np.ndarray) -> np.ndarray:
+    """(B, p): :func:`lagrange_rows` of groups with ``counts`` (B,) evaluations each, whose
+    m1, scale and tau ``params(b0, b1, start)`` returns for groups b0..b1-1, in batches of
+    about ``BATCH_PAIRS`` through :func:`scaled_k`."""
+    start = np.concatenate(([0], np.cumsum(counts)))
+    out = np.zeros((len(counts), len(x)))
+    edges = batch_edges(counts).tolist()
+    for b0, b1 in zip(edges[:-1], edges[1:], strict=True):
+        m1, scale, tau = params(b0, b1, start)
+        lagrange_rows(scaled_k(m1, scale), tau, start, b0, b1, x, bary, out)
+    return out
+
+
 def self_rows(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -521,48 +600,71 @@ def self_rows(
 ) -> np.ndarray:
     """Self-panel rows (B, p): target on its own panel at parameter ``tau_t[b]``.
 
-    Graded as in :func:`near_rows`; the two innermost pieces use the exact split
+    Each panel is cut at the target and graded towards it as in :func:`near_rows`
+    (``levels[b]`` pieces per side); the two innermost pieces use the exact split
     K(m) = A(m1) - K(m1) ln(m1) / pi with the logarithm integrated by the product weights
-    ``logw_end`` (singularity at the piece's end u = -1).
+    ``logw_end`` (singularity at the piece's end u = -1). The kernel goes through
+    :func:`scaled_k` in batches.
     """
-    n_t = tr.shape[0]
-    p = x.shape[0]
-    out = np.zeros((n_t, p))
-    lag = np.empty(p)
-    for b in range(n_t):
+    sides = (tau_t < 1.0).astype(np.int64) + (tau_t > -1.0)
+    counts = sides * (levels + 1) * len(xq)
+
+    def params(b0: int, b1: int, start: np.ndarray):
+        return _self_params(b0, b1, start, tr, tz, kind, coef, tau_t, levels, xq, wq, logw_end)
+
+    return lagrange_sums(params, counts, x, bary)
+
+
+@njit(cache=True, error_model="numpy")
+def _self_params(
+    b0, b1, start, tr, tz, kind, coef, tau_t, levels, xq, wq, logw_end
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """m1, scale and tau of the evaluations of targets b0..b1-1 of :func:`self_rows`, in the
+    order :func:`self_counts` counts them: per piece its Gauss points; the innermost piece
+    per side adds, per point, the logarithmic part K(m) with parameter m = 4 r r' / rho_plus^2
+    (``scaled_k`` takes its complement m1 = 1 - m)."""
+    total = start[b1] - start[b0]
+    m1 = np.empty(total)
+    scale = np.empty(total)
+    tau_out = np.empty(total)
+    for b in range(b0, b1):
+        e = start[b] - start[b0]
         tc = tau_t[b]
         r, z = tr[b], tz[b]
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
             if span <= 0.0:
                 continue
+            hi = span
             for k in range(levels[b]):
-                hi = 2.0 ** (-k)
                 inner = k == levels[b] - 1
-                lo = 0.0 if inner else 2.0 ** (-(k + 1))
-                mid = 0.5 * (hi + lo) * span
-                half = 0.5 * (hi - lo) * span
+                lo = 0.0 if inner else 0.5 * hi
+                mid = 0.5 * (hi + lo)
+                half = 0.5 * (hi - lo)
+                hi = lo
                 for q in range(xq.shape[0]):
                     dist = mid + half * xq[q]
                     tau = tc + side * dist
                     rs, zs, jac = panel_point(kind[b], coef[b], tau)
-                    _lagrange(tau, x, bary, lag)
+                    dz = z - zs
+                    inv = 1.0 / ((r + rs) ** 2 + dz * dz)
+                    pref = rs * math.sqrt(inv) * _INV_PI * half * jac
+                    m1[e] = ((r - rs) ** 2 + dz * dz) * inv
+                    scale[e] = pref * wq[q]
+                    tau_out[e] = tau
+                    e += 1
                     if inner:
-                        dz = z - zs
-                        rp2 = (r + rs) ** 2 + dz * dz
-                        rm2 = (r - rs) ** 2 + dz * dz
-                        m1 = rm2 / rp2
-                        pref = rs / (math.pi * math.sqrt(rp2))
-                        k_m = _ellip_k(m1)
-                        k_m1 = _ellip_k(4.0 * r * rs / rp2)
-                        f1 = pref * (k_m + (2.0 / math.pi) * k_m1 * math.log(dist))
-                        f2 = -pref * (2.0 / math.pi) * k_m1
-                        v = half * jac * (wq[q] * f1 + (wq[q] * math.log(half) + logw_end[q]) * f2)
-                    else:
-                        v = _ring_phi(r, z, rs, zs) * wq[q] * half * jac
-                    for j in range(p):
-                        out[b, j] += v * lag[j]
-    return out
+                        # K(m) = A(m1) - K(m1) ln(m1) / pi, the logarithm in m1 ~ dist^2
+                        # integrated by the product weights: the K(m1) part's scale.
+                        m1[e] = 4.0 * r * rs * inv
+                        scale[e] = (
+                            pref
+                            * (2.0 / math.pi)
+                            * (wq[q] * (math.log(dist) - math.log(half)) - logw_end[q])
+                        )
+                        tau_out[e] = tau
+                        e += 1
+    return m1, scale, tau_out
 
 
 @njit(cache=True)
