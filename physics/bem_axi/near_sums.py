@@ -171,6 +171,15 @@ def _potential_params(
     return m1, scale, tau_out
 
 
+@njit(cache=True)
+def _add_rows(mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, sgn: float):
+    """mat[ti[b], pj[b] * p + k] += sgn * rows[b, k] (each (target, node) pair once)."""
+    p = rows.shape[1]
+    for b in range(ti.shape[0]):
+        for k in range(p):
+            mat[ti[b], pj[b] * p + k] += sgn * rows[b, k]
+
+
 def add_near_corrections(
     mat: np.ndarray,
     tr: np.ndarray,
@@ -216,6 +225,4 @@ def add_near_corrections(
             b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
         )
 
-    rows = lagrange_sums(params, counts, x, bary)
-    cols = pj[:, None] * p + np.arange(p)
-    mat[ti[:, None], cols, 0] += -rows if mirror else rows
+    _add_rows(mat[..., 0], ti, pj, lagrange_sums(params, counts, x, bary), -1.0 if mirror else 1.0)

@@ -221,7 +221,13 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     """Median CPU ms per stage of the BEM solve at REQUEST (levels as the solve takes them)."""
     from elopt.physics.bem_axi import operators
     from elopt.physics.bem_axi.ring_sums import collocation_sum
-    from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_level
+    from elopt.physics.bem_axi.solve import (
+        COARSE_ENTRY_ERROR,
+        CONDUCTOR_COARSE_RULE,
+        default_order,
+        mesh_rule,
+        solve_level,
+    )
     from elopt.physics.refinement import estimate_error
 
     def cpu_ms(fn) -> float:
@@ -231,6 +237,7 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     sol = bem_run(params, REQUEST)
     order = default_order(REQUEST)
     rule = mesh_rule(order, REQUEST, conductors_only=True)
+    entry_error = COARSE_ENTRY_ERROR if rule == CONDUCTOR_COARSE_RULE else None
     out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
     out["level-0 grading"] = cpu_ms(
         lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
@@ -242,15 +249,17 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
         r, z = m.points_m[:, 0].copy(), m.points_m[:, 1].copy()
         far = cpu_ms(lambda r=r, z=z, w=m.weights_m: collocation_sum(r, z, w, layout.ground_plane))
         own = cpu_ms(lambda m=m: operators._self_blocks(m))
-        whole = cpu_ms(lambda m=m: operators.collocation_matrix(m, layout.ground_plane))
+        whole = cpu_ms(
+            lambda m=m: operators.collocation_matrix(m, layout.ground_plane, entry_error)
+        )
         out[f"{tag} far sum"] = far
         out[f"{tag} self panels"] = own
         out[f"{tag} near panels"] = whole - far - own
-        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m)) - whole
+        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m, entry_error)) - whole
     out["estimate (C)"] = cpu_ms(lambda: estimate_error(sol.levels, sol.convergence).capacitance)
     out["peak search (only when asked)"] = cpu_ms(
-        lambda: [solve_level(layout, lv.mesh).peaks() for lv in sol.levels]
-    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh) for lv in sol.levels])
+        lambda: [solve_level(layout, lv.mesh, entry_error).peaks() for lv in sol.levels]
+    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh, entry_error) for lv in sol.levels])
     return out
 
 
