@@ -208,6 +208,8 @@ def add_near_corrections(
     The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
     logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
+    if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
+        return  # every image centre is out of reach of every target (all above z = 0)
     plan = _near_plan(
         tr, tz, kind, coef, length, centre_r, centre_z, reach, p, mirror, exclude_self
     )
