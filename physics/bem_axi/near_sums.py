@@ -20,8 +20,8 @@ from elopt.physics.bem_axi.ring_sums import (
     lagrange_sums,
     near_rows,
     node_rows,
-    panel_point,
     ring_m1_scale,
+    subrule_points,
 )
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
@@ -126,13 +126,12 @@ def _potential_params(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
     pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel, negated at tau = x_k
-    (the node rule the far sum holds, taken out), then the graded sub-rule points of
-    :func:`ring_sums.near_rows`."""
+    (the node rule the far sum holds, taken out), then the points of
+    :func:`ring_sums.subrule_points`."""
     p = x.shape[0]
     total = start[b1] - start[b0]
-    m1 = np.empty(total)
-    scale = np.empty(total)
-    tau_out = np.empty(total)
+    m1, scale, tau_out = np.empty(total), np.empty(total), np.empty(total)
+    rs, zs, wt = np.empty(total), np.empty(total), np.empty(total)
     sgn = -1.0 if mirror else 1.0
     for b in range(b0, b1):
         e = start[b] - start[b0]
@@ -142,32 +141,9 @@ def _potential_params(
             m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
             tau_out[e] = x[k]
             e += 1
-        tc = tau_c[b]
-        c = cf[b]
-        straight = kd[b] == 0
-        if straight:  # the point is linear in tau and the length element constant
-            jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1])
-        for side in (1.0, -1.0):
-            span = 1.0 - tc if side > 0 else tc + 1.0
-            if span <= 0.0:
-                continue
-            hi = span
-            for k in range(levels[b]):
-                lo = 0.0 if k == levels[b] - 1 else 0.5 * hi
-                mid = 0.5 * (hi + lo)
-                half = 0.5 * (hi - lo)
-                hi = lo
-                for q in range(xq.shape[0]):
-                    tau = tc + side * (mid + half * xq[q])
-                    if straight:
-                        s = 0.5 * (tau + 1.0)
-                        rs = c[0] + s * (c[2] - c[0])
-                        zs = c[1] + s * (c[3] - c[1])
-                    else:
-                        rs, zs, jac = panel_point(kd[b], c, tau)
-                    m1[e], scale[e] = ring_m1_scale(t_r, t_z, rs, sgn * zs, rs * wq[q] * half * jac)
-                    tau_out[e] = tau
-                    e += 1
+        e1 = subrule_points(kd[b], cf[b], tau_c[b], levels[b], xq, wq, rs, zs, wt, tau_out, e)
+        for g in range(e, e1):
+            m1[g], scale[g] = ring_m1_scale(t_r, t_z, rs[g], sgn * zs[g], rs[g] * wt[g])
     return m1, scale, tau_out
 
 

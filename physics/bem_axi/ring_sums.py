@@ -378,6 +378,47 @@ def _lagrange(tau: float, x: np.ndarray, bary: np.ndarray, out: np.ndarray) -> N
 
 
 @njit(cache=True)
+def subrule_points(
+    kind: int,
+    c: np.ndarray,
+    tc: float,
+    levels: int,
+    xq: np.ndarray,
+    wq: np.ndarray,
+    rs: np.ndarray,
+    zs: np.ndarray,
+    wt: np.ndarray,
+    tau: np.ndarray,
+    e: int,
+) -> int:
+    """The graded sub-rule of one panel (``kind``, coefficients ``c``) cut at ``tc``: ratio 2
+    towards the cut, ``levels`` pieces per side, the innermost touching it, each piece the
+    Gauss rule (xq, wq). Writes points ``rs``, ``zs``, weights ``wt`` (Gauss weight times
+    half-width times length element) and parameters ``tau`` from index ``e``; returns the
+    next index."""
+    straight = kind == 0  # the point is linear in tau and the length element constant
+    jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1]) if straight else 0.0
+    for side in (1.0, -1.0):
+        span = 1.0 - tc if side > 0 else tc + 1.0
+        if span <= 0.0:
+            continue
+        for k in range(levels):
+            mid, half = graded_piece(k, levels, span)
+            for q in range(xq.shape[0]):
+                t = tc + side * (mid + half * xq[q])
+                if straight:
+                    s = 0.5 * (t + 1.0)
+                    rs[e] = c[0] + s * (c[2] - c[0])
+                    zs[e] = c[1] + s * (c[3] - c[1])
+                else:
+                    rs[e], zs[e], jac = panel_point(kind, c, t)
+                wt[e] = wq[q] * half * jac
+                tau[e] = t
+                e += 1
+    return e
+
+
+@njit(cache=True)
 def near_rows(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -394,63 +435,42 @@ def near_rows(
 ) -> np.ndarray:
     """Accurate rows (B, p, ncomp) for near (target, panel) pairs.
 
-    Each panel is cut at ``tau_c[b]`` and graded towards it (ratio 2, ``levels[b]`` pieces per
-    side, the innermost touching the cut); every piece takes the Gauss rule (xq, wq); sigma is
-    the panel's Lagrange interpolant on nodes ``x`` (barycentric weights ``bary``).
+    Each panel takes the graded sub-rule of :func:`subrule_points` cut at ``tau_c[b]`` with
+    ``levels[b]`` pieces per side; sigma is the panel's Lagrange interpolant on nodes ``x``
+    (barycentric weights ``bary``).
     """
     n_pairs = tr.shape[0]
     p = x.shape[0]
     ncomp = 2 if field else 1
     out = np.zeros((n_pairs, p, ncomp))
     lag = np.empty(p)
+    size = 2 * xq.shape[0] * (levels.max() if n_pairs else 0)
+    rs, zs, wt, tau = np.empty(size), np.empty(size), np.empty(size), np.empty(size)
     for b in range(n_pairs):
-        tc = tau_c[b]
         t_r, t_z = tr[b], tz[b]
-        c = coef[b]
-        # Segments: the point is linear in tau and the length element constant.
-        straight = kind[b] == 0
-        seg_jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1]) if straight else 0.0
-        for side in (1.0, -1.0):
-            span = 1.0 - tc if side > 0 else tc + 1.0
-            if span <= 0.0:
-                continue
-            for k in range(levels[b]):
-                hi = 2.0 ** (-k)
-                lo = 0.0 if k == levels[b] - 1 else 2.0 ** (-(k + 1))
-                mid = 0.5 * (hi + lo) * span
-                half = 0.5 * (hi - lo) * span
-                for q in range(xq.shape[0]):
-                    tau = tc + side * (mid + half * xq[q])
-                    if straight:
-                        s = 0.5 * (tau + 1.0)
-                        rs = c[0] + s * (c[2] - c[0])
-                        zs = c[1] + s * (c[3] - c[1])
-                        jac = seg_jac
-                    else:
-                        rs, zs, jac = panel_point(kind[b], c, tau)
-                    if mirror:
-                        zs = -zs
-                    wt = wq[q] * half * jac
-                    _lagrange(tau, x, bary, lag)
-                    if field:
-                        er, ez = _ring_e(t_r, t_z, rs, zs)
-                        for j in range(p):
-                            out[b, j, 0] += er * wt * lag[j]
-                            out[b, j, 1] += ez * wt * lag[j]
-                    else:
-                        v = _ring_phi(t_r, t_z, rs, zs) * wt
-                        for j in range(p):
-                            out[b, j, 0] += v * lag[j]
+        n = subrule_points(kind[b], coef[b], tau_c[b], levels[b], xq, wq, rs, zs, wt, tau, 0)
+        for e in range(n):
+            z_s = -zs[e] if mirror else zs[e]
+            _lagrange(tau[e], x, bary, lag)
+            if field:
+                er, ez = _ring_e(t_r, t_z, rs[e], z_s)
+                for j in range(p):
+                    out[b, j, 0] += er * wt[e] * lag[j]
+                    out[b, j, 1] += ez * wt[e] * lag[j]
+            else:
+                v = _ring_phi(t_r, t_z, rs[e], z_s) * wt[e]
+                for j in range(p):
+                    out[b, j, 0] += v * lag[j]
     return out
 
 
 @njit(cache=True)
-def _graded_piece(k: int, levels: int, span: float) -> tuple[float, float]:
+def graded_piece(k: int, levels: int, span: float) -> tuple[float, float]:
     """Midpoint and half-width (reference units from the cut) of piece ``k`` of ``levels``
     graded towards a cut ``span`` from the panel's end (ratio 2, the last touching the cut)."""
-    hi = 2.0 ** (-k)
-    lo = 0.0 if k == levels - 1 else 2.0 ** (-(k + 1))
-    return 0.5 * (hi + lo) * span, 0.5 * (hi - lo) * span
+    hi = math.ldexp(span, -k)
+    lo = 0.0 if k == levels - 1 else 0.5 * hi
+    return 0.5 * (hi + lo), 0.5 * (hi - lo)
 
 
 @njit(cache=True)
@@ -492,7 +512,7 @@ def own_panel_pv_rows(
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
             for k in range(levels[b] if span > 0.0 else 0):
-                mid, half = _graded_piece(k, levels[b], span)
+                mid, half = graded_piece(k, levels[b], span)
                 inner = k >= levels[b] - n_inner
                 for q in range(xq.shape[0]):
                     tau = tc + side * (mid + half * xq[q])
@@ -635,13 +655,9 @@ def _self_params(
             span = 1.0 - tc if side > 0 else tc + 1.0
             if span <= 0.0:
                 continue
-            hi = span
             for k in range(levels[b]):
                 inner = k == levels[b] - 1
-                lo = 0.0 if inner else 0.5 * hi
-                mid = 0.5 * (hi + lo)
-                half = 0.5 * (hi - lo)
-                hi = lo
+                mid, half = graded_piece(k, levels[b], span)
                 for q in range(xq.shape[0]):
                     dist = mid + half * xq[q]
                     tau = tc + side * dist
