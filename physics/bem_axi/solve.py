@@ -88,9 +88,8 @@ def solve_level(layout: Layout, mesh: AxiMesh, entry_error: float | None = None)
     rhs[np.arange(mesh.n_nodes), owner] = 1.0
     rhs[:, n] = layout.applied_field_V_per_m * mesh.points_m[:, 1]
     sol = eps * solve_dense(a, rhs)
-    area = mesh.ring_area_m2
-    charges = np.zeros((n, n + 1))
-    np.add.at(charges, owner, sol * area[:, None])
+    # Charge per conductor: the one-hot owner columns of rhs sum the ring charges.
+    charges = rhs[:, :n].T @ (sol * mesh.ring_area_m2[:, None])
     return LevelResult(
         layout=layout,
         mesh=mesh,
