@@ -104,15 +104,14 @@ def solve_dense(a: np.ndarray, rhs: np.ndarray) -> np.ndarray:
     """x (N, k) with a x = rhs, by one LU of ``a`` (N, N), C-ordered, overwritten.
 
     LAPACK factors the transpose, which is ``a`` itself in Fortran order, and solves with it
-    transposed: no reordering copy (``scipy.linalg.lu_factor`` makes one; measured 30 % of
-    the factorisation at N = 344).
+    transposed: no reordering copy (``scipy.linalg.lu_factor`` makes one; factor and solve
+    measured 0.99 -> 0.93 ms at N = 344, one BLAS thread, loaded machine).
     """
     getrf, getrs = scipy.linalg.get_lapack_funcs(("getrf", "getrs"), (a,))
     lu, piv, info = getrf(a.T, overwrite_a=True)
     if info != 0:
         raise SolverError(f"collocation matrix is singular (LAPACK getrf info {info})")
-    x, info = getrs(lu, piv, rhs, trans=1)
-    return x
+    return getrs(lu, piv, rhs, trans=1)[0]
 
 
 def default_order(rel_accuracy: float) -> int:
