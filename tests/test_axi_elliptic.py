@@ -97,3 +97,11 @@ def test_batched_collocation_sum_matches_the_scipy_ring_potential(monkeypatch):
     np.testing.assert_allclose(
         ring_sums.collocation_sum(r, z, w, True), real - image, rtol=1e-12, atol=1e-15
     )
+    # Runs of 3 nodes (panels) leave their own real pairs to the self rule, images kept.
+    own = np.arange(57)[:, None] // 3 == np.arange(57)[None, :] // 3
+    np.testing.assert_allclose(
+        ring_sums.collocation_sum(r, z, w, True, own_run=3),
+        np.where(own, 0.0, real) - image,
+        rtol=1e-12,
+        atol=1e-15,
+    )

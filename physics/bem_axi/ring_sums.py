@@ -213,7 +213,14 @@ def _collocation_params(
 
 @njit(cache=True, error_model="numpy")
 def _collocation_fill(
-    v: np.ndarray, r: np.ndarray, w: np.ndarray, image: bool, i0: int, i1: int, out: np.ndarray
+    v: np.ndarray,
+    r: np.ndarray,
+    w: np.ndarray,
+    image: bool,
+    own_run: int,
+    i0: int,
+    i1: int,
+    out: np.ndarray,
 ) -> None:
     """Rows and columns i0..i1-1 of :func:`collocation_sum` from the pair values ``v``
     (order of :func:`_collocation_params`)."""
@@ -223,8 +230,9 @@ def _collocation_fill(
         rw_i = r[i] * w[i]
         img = c + n - 1 - i
         out[i, i] = -v[img] * rw_i if image else 0.0
+        own_end = (i // own_run + 1) * own_run if own_run > 0 else i + 1
         for j in range(i + 1, n):
-            x = v[c + j - i - 1]
+            x = v[c + j - i - 1] if j >= own_end else 0.0
             if image:
                 x -= v[img + j - i]
             out[i, j] = x * r[j] * w[j]
@@ -241,8 +249,12 @@ def batch_edges(counts: np.ndarray) -> np.ndarray:
     return np.unique(np.concatenate(([0], cuts, [len(counts)])))
 
 
-def collocation_sum(r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool) -> np.ndarray:
-    """(N, N): :func:`potential_sum` with the nodes as both targets and sources.
+def collocation_sum(
+    r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool, own_run: int = 0
+) -> np.ndarray:
+    """(N, N): :func:`potential_sum` with the nodes as both targets and sources; with
+    ``own_run`` > 0, nodes in runs of that many (a panel's) leave out their own run's real
+    pairs (the self rule replaces them) and keep the images.
 
     The kernel divided by r' is symmetric, so each pair is evaluated once: half the work. The
     pairs go through :func:`scaled_k` in batches of about ``BATCH_PAIRS``.
@@ -254,7 +266,7 @@ def collocation_sum(r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool) ->
     edges = batch_edges(per_row)
     for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
         m1, scale = _collocation_params(r, z, image, int(i0), int(i1))
-        _collocation_fill(scaled_k(m1, scale), r, w, image, int(i0), int(i1), out)
+        _collocation_fill(scaled_k(m1, scale), r, w, image, own_run, int(i0), int(i1), out)
     return out
 
 
