@@ -50,21 +50,23 @@ filleted BEM 6.42 ms vs FEM 79.1 ms (12.3x), sharp 9.56 ms vs 66.0 ms (6.9x); BE
 Measured 3 Dec 2026 after the batched kernel values (the collocation matrix's potential values
 listed by compiled passes, K through numpy's vectorised logarithm, near and self rules summed
 into Lagrange rows from moments; LU of the transpose without a reordering copy), ``--repeats 9
---stages --before`` (main's package at 02c8a3a), two runs on the 2-core machine shared with
-other work (``uptime`` load average 6.3 -> 8.0 and 8.5 -> 9.5 from start to end), CPU ms,
-medians:
+--stages --before`` (main's package at 02c8a3a), three runs on the 2-core machine shared with
+other work (``uptime`` load average 6.3 -> 8.0, 8.5 -> 9.5 and 6.6 -> 7.3 from start to end;
+runs 1 and 2 before the last small commits, run 3 the final code), CPU ms, medians:
 
     probe                     run   BEM cpu before -> after   FEM cpu   FEM/BEM cpu
     filleted 0.05 mm, 0.2 mm  1     6.17 -> 5.56              70.7      11.5x -> 12.7x
                               2     6.23 -> 5.84              73.3      11.8x -> 12.6x
+                              3     6.18 -> 5.74              71.4      11.5x -> 12.4x
     sharp, 0.5 mm             1     8.16 -> 6.42              58.5       7.2x ->  9.1x
                               2     8.43 -> 6.95              61.0       7.2x ->  8.8x
+                              3     8.32 -> 6.69              58.6       7.0x ->  8.8x
 
 Unknowns, errors and estimates unchanged (the entries equal main's to 3e-15). The 30x target
-is not met. Per solve after (CPU ms, sharp probe, --stages, run 1; the stage table now times
-the solve's own 1e-6 entries): layout 0.62, level-0 grading 0.54, meshes 0.58, far sums 0.76
-(1.86 on an idle machine before), self panels 0.35, near panels 1.54, LU and solve 1.39; the
-filleted probe spends 3.4 of its 5.6 ms in layout, grading and meshes.
+is not met. Per solve after (CPU ms, --stages, run 3; the stage table now times the solve's
+own 1e-6 entries), sharp probe: layout 0.65, level-0 grading 0.53, meshes 0.59, far sums 0.76
+(1.86 on an idle machine before), self panels 0.35, near panels 1.57, LU and solve 1.40; the
+filleted probe spends 3.0 of its 5.7 ms in layout, grading and meshes.
 """
 
 from __future__ import annotations
