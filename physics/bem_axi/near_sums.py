@@ -1,10 +1,11 @@
-"""Compiled near-field correction of the axisymmetric operators (numba), in one pass.
+"""Compiled near-field correction of the axisymmetric operators (numba).
 
 The far sums of :mod:`elopt.physics.bem_axi.ring_sums` give every (target, node) entry by the
 source panel's own Gauss rule. For (target, panel) pairs closer than a reach, this pass swaps
 that value for the graded sub-rule of ``ring_sums.near_rows``: it finds the pairs, their foot
-points and grading depths, and adds (accurate - node rule) into the matrix, with no Python
-between the steps (the per-call array work there cost as much as the rules themselves).
+points and grading depths in one compiled call, and adds (accurate - node rule) into the
+matrix; the potential's evaluations (node rule and sub-rules alike) go through the batched
+``ring_sums.scaled_k`` and ``ring_sums.lagrange_rows``.
 """
 
 from __future__ import annotations
@@ -14,7 +15,14 @@ import math
 import numpy as np
 from numba import njit
 
-from elopt.physics.bem_axi.ring_sums import foot_points, near_rows, node_rows
+from elopt.physics.bem_axi.ring_sums import (
+    foot_points,
+    lagrange_sums,
+    near_rows,
+    node_rows,
+    ring_m1_scale,
+    subrule_points,
+)
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
 MAX_LEVELS = 44
@@ -35,27 +43,119 @@ def _pairs(
     centre (mirrored in z = 0 when ``mirror``); a node's own panel left out on request."""
     m, n_p = tr.shape[0], centre_r.shape[0]
     sgn = -1.0 if mirror else 1.0
-    ti = np.empty(m * 8, np.int64)
-    pj = np.empty(m * 8, np.int64)
+    ti = np.empty(m * 8 + n_p, np.int64)
+    pj = np.empty(m * 8 + n_p, np.int64)
     count = 0
     for i in range(m):
+        if count + n_p > ti.shape[0]:
+            ti = np.concatenate((ti, np.empty(ti.shape[0], np.int64)))
+            pj = np.concatenate((pj, np.empty(pj.shape[0], np.int64)))
+        own = i // order if exclude_self else -1
+        # Branch-free: every panel is written, the count moves on for the close ones.
         for j in range(n_p):
             dr = tr[i] - centre_r[j]
             dz = tz[i] - sgn * centre_z[j]
-            if dr * dr + dz * dz >= reach[j] * reach[j]:
-                continue
-            if exclude_self and i // order == j:
-                continue
-            if count == ti.shape[0]:
-                ti = np.concatenate((ti, np.empty(count, np.int64)))
-                pj = np.concatenate((pj, np.empty(count, np.int64)))
             ti[count] = i
             pj[count] = j
-            count += 1
+            count += (dr * dr + dz * dz < reach[j] * reach[j]) & (j != own)
     return ti[:count], pj[:count]
 
 
 @njit(cache=True)
+def _near_plan(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    kind: np.ndarray,
+    coef: np.ndarray,
+    length: np.ndarray,
+    centre_r: np.ndarray,
+    centre_z: np.ndarray,
+    reach: np.ndarray,
+    order: int,
+    mirror: bool,
+    exclude_self: bool,
+):
+    """Near (target, panel) pairs (B,) ``ti``, ``pj``, the target points, the panels' kinds and
+    coefficients, the foot-point parameters and the grading depths (:func:`_pairs`)."""
+    ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, order, mirror, exclude_self)
+    n = ti.shape[0]
+    pr = np.empty(n)
+    pz = np.empty(n)
+    kd = np.empty(n, np.int64)
+    cf = np.empty((n, coef.shape[1]))
+    for b in range(n):
+        pr[b] = tr[ti[b]]
+        pz[b] = tz[ti[b]]
+        kd[b] = kind[pj[b]]
+        cf[b] = coef[pj[b]]
+    tau_c, delta = foot_points(pr, pz, kd, cf, mirror)
+    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
+    # so does the innermost once it is no longer than the distance: one level beyond
+    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
+    levels = np.empty(n, np.int64)
+    for b in range(n):
+        ratio = length[pj[b]] / max(delta[b], 1e-300)
+        lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
+        levels[b] = min(max(lv, 1), MAX_LEVELS)
+    return ti, pj, pr, pz, kd, cf, tau_c, levels
+
+
+@njit(cache=True)
+def _add_field_rows(
+    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, bary, xq, wq
+) -> None:
+    """(graded rule - node rule) of the field of the pairs into ``mat`` (M, N, 2)."""
+    p = x.shape[0]
+    n = ti.shape[0]
+    cols = np.empty((n, p), np.int64)
+    for b in range(n):
+        for k in range(p):
+            cols[b, k] = pj[b] * p + k
+    good = near_rows(pr, pz, kd, cf, tau_c, levels, mirror, True, x, bary, xq, wq)
+    direct = node_rows(pr, pz, sr, sz, w, cols, mirror, True)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(n):
+        for k in range(p):
+            for c in range(2):
+                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+
+
+@njit(cache=True, error_model="numpy")
+def _potential_params(
+    b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
+    pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel, negated at tau = x_k
+    (the node rule the far sum holds, taken out), then the points of
+    :func:`ring_sums.subrule_points`."""
+    p = x.shape[0]
+    total = start[b1] - start[b0]
+    m1, scale, tau_out = np.empty(total), np.empty(total), np.empty(total)
+    rs, zs, wt = np.empty(total), np.empty(total), np.empty(total)
+    sgn = -1.0 if mirror else 1.0
+    for b in range(b0, b1):
+        e = start[b] - start[b0]
+        t_r, t_z = pr[b], pz[b]
+        for k in range(p):
+            j = pj[b] * p + k
+            m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
+            tau_out[e] = x[k]
+            e += 1
+        e1 = subrule_points(kd[b], cf[b], tau_c[b], levels[b], xq, wq, rs, zs, wt, tau_out, e)
+        for g in range(e, e1):
+            m1[g], scale[g] = ring_m1_scale(t_r, t_z, rs[g], sgn * zs[g], rs[g] * wt[g])
+    return m1, scale, tau_out
+
+
+@njit(cache=True)
+def _add_rows(mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, sgn: float):
+    """mat[ti[b], pj[b] * p + k] += sgn * rows[b, k] (each (target, node) pair once)."""
+    p = rows.shape[1]
+    for b in range(ti.shape[0]):
+        for k in range(p):
+            mat[ti[b], pj[b] * p + k] += sgn * rows[b, k]
+
+
 def add_near_corrections(
     mat: np.ndarray,
     tr: np.ndarray,
@@ -79,38 +179,28 @@ def add_near_corrections(
     """Add (graded rule - node rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
     in place; image pairs (``mirror``) enter with a minus, as ``mat`` holds real-minus-image
     sums. Targets (M,) ``tr``, ``tz``; panels (P,) ``kind``, ``coef`` (P, 5), ``length``,
-    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x)."""
+    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x).
+
+    The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
+    logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
-    ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, p, mirror, exclude_self)
-    n = ti.shape[0]
-    if n == 0:
+    if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
+        return  # every image centre is out of reach of every target (all above z = 0)
+    plan = _near_plan(
+        tr, tz, kind, coef, length, centre_r, centre_z, reach, p, mirror, exclude_self
+    )
+    ti, pj, pr, pz, kd, cf, tau_c, levels = plan
+    if len(ti) == 0:
         return
-    field = mat.shape[2] == 2
-    pr = np.empty(n)
-    pz = np.empty(n)
-    kd = np.empty(n, np.int64)
-    cf = np.empty((n, coef.shape[1]))
-    cols = np.empty((n, p), np.int64)
-    for b in range(n):
-        pr[b] = tr[ti[b]]
-        pz[b] = tz[ti[b]]
-        kd[b] = kind[pj[b]]
-        cf[b] = coef[pj[b]]
-        for k in range(p):
-            cols[b, k] = pj[b] * p + k
-    tau_c, delta = foot_points(pr, pz, kd, cf, mirror)
-    # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
-    # so does the innermost once it is no longer than the distance: one level beyond
-    # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
-    levels = np.empty(n, np.int64)
-    for b in range(n):
-        ratio = length[pj[b]] / max(delta[b], 1e-300)
-        lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
-        levels[b] = min(max(lv, 1), MAX_LEVELS)
-    good = near_rows(pr, pz, kd, cf, tau_c, levels, mirror, field, x, bary, xq, wq)
-    direct = node_rows(pr, pz, sr, sz, w, cols, mirror, field)
-    sgn = -1.0 if mirror else 1.0
-    for b in range(n):
-        for k in range(p):
-            for c in range(mat.shape[2]):
-                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+    if mat.shape[2] == 2:
+        _add_field_rows(mat, *plan, sr, sz, w, mirror, x, bary, xq, wq)
+        return
+    sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
+    counts = p + len(xq) * levels * sides
+
+    def params(b0: int, b1: int, start: np.ndarray):
+        return _potential_params(
+            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+        )
+
+    _add_rows(mat[..., 0], ti, pj, lagrange_sums(params, counts, x, bary), -1.0 if mirror else 1.0)

@@ -146,16 +146,14 @@ def collocation_matrix(
     off-panel entries to relative error ``entry_error`` (default :func:`entry_tolerance`)."""
     src = mesh.points_m
     r, z = np.ascontiguousarray(src[:, 0]), np.ascontiguousarray(src[:, 1])
-    mat = collocation_sum(r, z, mesh.weights_m, ground_plane)[..., None]
+    p = mesh.order
+    mat = collocation_sum(r, z, mesh.weights_m, ground_plane, own_run=p)[..., None]
     _correct_near(mat, mesh, src, False, True, entry_error)
     if ground_plane:
         _correct_near(mat, mesh, src, True, False, entry_error)
     mat = mat[..., 0]
-    p = mesh.order
     idx = np.arange(mesh.n_panels)[:, None] * p + np.arange(p)
-    own = np.repeat(idx, p, axis=0)
-    far_self = _far_pairs(mesh, src, own, False, False).reshape(mesh.n_panels, p, p)
-    mat[idx[:, :, None], idx[:, None, :]] += _self_blocks(mesh) - far_self
+    mat[idx[:, :, None], idx[:, None, :]] += _self_blocks(mesh)
     return mat
 
 

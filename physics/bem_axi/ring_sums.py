@@ -1,13 +1,19 @@
-"""Compiled far-field sums of the ring kernels (numba): the hot loops of the solver.
+"""Compiled sums of the ring kernels (numba): the hot loops of the solver.
 
 ``potential_sum`` and ``field_sum`` fill target-by-source matrices with the ring kernels of
-:mod:`elopt.physics.bem_axi.ring_kernels`, real sources minus their images in z = 0 when asked, times the
-source quadrature weights. The complete elliptic integrals come from the arithmetic-geometric
-K from Moshier's rational-log approximation, E with K from the arithmetic-geometric mean,
+:mod:`elopt.physics.bem_axi.ring_kernels`, real sources minus their images in z = 0 when
+asked, times the source quadrature weights. K comes from Moshier's rational-log
+approximation, E with K from the arithmetic-geometric mean,
 E(m) = K(m) (1 - sum 2^(n-1) c_n^2) (DLMF 19.8.6). Coincident target and source give 0 (the
-caller supplies the singular self terms). The near-field rules loop over graded sub-pieces
-without padded temporaries; ``tests/benchmarks/bench_axi.py`` compares the far sum with the
-vectorised scipy form.
+caller supplies the singular self terms).
+
+The potential of the collocation matrix (``collocation_sum``, the self rows here and the
+near rows of :mod:`near_sums`) is evaluated in batches instead: a compiled pass lists each
+evaluation's m1 and scale, numpy's vectorised logarithm and a loop the compiler vectorises
+give ``scaled_k``, and a last pass sums the values into the matrix or into Lagrange rows (a
+scalar logarithm per value cost as much as the rest of the kernel together). The near-field
+rules of the field loop over graded sub-pieces without padded temporaries;
+``tests/benchmarks/bench_axi.py`` compares the far sum with the vectorised scipy form.
 """
 
 from __future__ import annotations
@@ -119,38 +125,148 @@ def potential_sum(
     return out
 
 
+#: Most (target, source) pairs per batch of the vectorised sums: temporaries of 64 kB
+#: however large the mesh, below the C library's threshold for fresh pages (measured on the
+#: guarded probes: batches of 2^16 pairs made the 344-node collocation sum twice as slow,
+#: their fresh pages faulting in on every call; 2^13 beat 2^14 by 10 % per solve).
+BATCH_PAIRS = 1 << 13
+_INV_PI = 1.0 / math.pi
+
+
+def scaled_k(m1: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """``scale * K(1 - m1)`` elementwise for m1 (B,) in (0, 1].
+
+    The rational-log form of :func:`_ellip_k` (no asymptotic branch: below 1.1e-16 the
+    polynomials equal their values at 0 to the last bit), with numpy's vectorised logarithm and
+    a compiled loop the compiler vectorises; about ten times faster per value than the scalar
+    function in a loop."""
+    return _scaled_k(m1, np.log(m1), scale)
+
+
+@njit(cache=True, error_model="numpy")
+def _scaled_k(m1: np.ndarray, log_m1: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    out = np.empty_like(m1)
+    for c in range(m1.shape[0]):
+        x = m1[c]
+        p = _K_P[0]
+        q = _K_Q[0]
+        for i in range(1, 11):
+            p = p * x + _K_P[i]
+            q = q * x + _K_Q[i]
+        out[c] = (p - log_m1[c] * q) * scale[c]
+    return out
+
+
 @njit(cache=True)
-def _ring_sym(r: float, z: float, rs: float, zs: float) -> float:
-    """K(m) / (pi rho_plus): the ring potential without its factor r', symmetric in the
-    target and the source (and so for a source and its image)."""
+def ring_m1_scale(r: float, z: float, rs: float, zs: float, factor: float):
+    """m1 = rho_minus^2 / rho_plus^2 and factor / (pi rho_plus): the ring potential is
+    K(1 - m1) times the second (0 for a coincident point: m1 = 1, scale 0)."""
     dz = z - zs
     a = r + rs
     b = r - rs
-    rp2 = a * a + dz * dz
+    inv = 1.0 / (a * a + dz * dz)
     rm2 = b * b + dz * dz
     if rm2 == 0.0:
-        return 0.0
-    return _ellip_k(rm2 / rp2) / (math.pi * math.sqrt(rp2))
+        return 1.0, 0.0
+    return rm2 * inv, factor * math.sqrt(inv) * _INV_PI
 
 
-@njit(cache=True)
-def collocation_sum(r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool) -> np.ndarray:
-    """(N, N): :func:`potential_sum` with the nodes as both targets and sources.
+@njit(cache=True, error_model="numpy")
+def _collocation_params(
+    r: np.ndarray, z: np.ndarray, image: bool, i0: int, i1: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """m1 and 1 / (pi rho_plus) (B,) of the node pairs of rows i0..i1-1: per row i the
+    sources j > i, then (``image``) the mirrored sources j >= i. A coincident pair gets
+    m1 = 1 and a zero scale (value 0)."""
+    n = r.shape[0]
+    total = 0
+    for i in range(i0, i1):
+        total += n - 1 - i + (n - i if image else 0)
+    m1 = np.empty(total)
+    scale = np.empty(total)
+    c = 0
+    for i in range(i0, i1):
+        ri = r[i]
+        zi = z[i]
+        for j in range(i + 1, n):
+            k = c + j - i - 1
+            dz = zi - z[j]
+            a = ri + r[j]
+            b = ri - r[j]
+            inv = 1.0 / (a * a + dz * dz)
+            rm2 = b * b + dz * dz
+            m1[k] = rm2 * inv if rm2 > 0.0 else 1.0
+            scale[k] = math.sqrt(inv) * _INV_PI if rm2 > 0.0 else 0.0
+        c += n - 1 - i
+        if image:
+            for j in range(i, n):
+                k = c + j - i
+                dz = zi + z[j]
+                a = ri + r[j]
+                b = ri - r[j]
+                inv = 1.0 / (a * a + dz * dz)
+                m1[k] = (b * b + dz * dz) * inv
+                scale[k] = math.sqrt(inv) * _INV_PI
+            c += n - i
+    return m1, scale
 
-    The kernel divided by r' is symmetric, so each pair is evaluated once: half the work.
+
+@njit(cache=True, error_model="numpy")
+def _collocation_fill(
+    v: np.ndarray,
+    r: np.ndarray,
+    w: np.ndarray,
+    image: bool,
+    own_run: int,
+    i0: int,
+    i1: int,
+    out: np.ndarray,
+) -> None:
+    """Rows and columns i0..i1-1 of :func:`collocation_sum` from the pair values ``v``
+    (order of :func:`_collocation_params`)."""
+    n = r.shape[0]
+    c = 0
+    for i in range(i0, i1):
+        rw_i = r[i] * w[i]
+        img = c + n - 1 - i
+        out[i, i] = -v[img] * rw_i if image else 0.0
+        own_end = (i // own_run + 1) * own_run if own_run > 0 else i + 1
+        for j in range(i + 1, n):
+            x = v[c + j - i - 1] if j >= own_end else 0.0
+            if image:
+                x -= v[img + j - i]
+            out[i, j] = x * r[j] * w[j]
+            out[j, i] = x * rw_i
+        c = img + (n - i if image else 0)
+
+
+def batch_edges(counts: np.ndarray) -> np.ndarray:
+    """Edges (k + 1,) cutting items with ``counts`` (n,) values each into consecutive batches
+    of about ``BATCH_PAIRS`` values (at least one item per batch)."""
+    cum = np.cumsum(counts)
+    total = int(cum[-1]) if len(cum) else 0
+    cuts = np.searchsorted(cum, np.arange(BATCH_PAIRS, total, BATCH_PAIRS), side="right")
+    return np.unique(np.concatenate(([0], cuts, [len(counts)])))
+
+
+def collocation_sum(
+    r: np.ndarray, z: np.ndarray, w: np.ndarray, image: bool, own_run: int = 0
+) -> np.ndarray:
+    """(N, N): :func:`potential_sum` with the nodes as both targets and sources; with
+    ``own_run`` > 0, nodes in runs of that many (a panel's) leave out their own run's real
+    pairs (the self rule replaces them) and keep the images.
+
+    The kernel divided by r' is symmetric, so each pair is evaluated once: half the work. The
+    pairs go through :func:`scaled_k` in batches of about ``BATCH_PAIRS``.
     """
     n = r.shape[0]
     out = np.empty((n, n))
-    for i in range(n):
-        ri = r[i]
-        zi = z[i]
-        out[i, i] = -_ring_sym(ri, zi, ri, -zi) * ri * w[i] if image else 0.0
-        for j in range(i + 1, n):
-            v = _ring_sym(ri, zi, r[j], z[j])
-            if image:
-                v -= _ring_sym(ri, zi, r[j], -z[j])
-            out[i, j] = v * r[j] * w[j]
-            out[j, i] = v * ri * w[i]
+    rows = np.arange(n)
+    per_row = n - 1 - rows + (n - rows if image else 0)
+    edges = batch_edges(per_row)
+    for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
+        m1, scale = _collocation_params(r, z, image, int(i0), int(i1))
+        _collocation_fill(scaled_k(m1, scale), r, w, image, own_run, int(i0), int(i1), out)
     return out
 
 
@@ -230,7 +346,7 @@ def normal_field_sum(
 
 
 @njit(cache=True)
-def _panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, float]:
+def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, float]:
     """(r, z, |d(point)/d(tau)|) of a panel (see elopt.physics.bem_axi.mesh.panel_geometry)."""
     s = 0.5 * (tau + 1.0)
     if kind == 0:
@@ -274,6 +390,47 @@ def _lagrange(tau: float, x: np.ndarray, bary: np.ndarray, out: np.ndarray) -> N
 
 
 @njit(cache=True)
+def subrule_points(
+    kind: int,
+    c: np.ndarray,
+    tc: float,
+    levels: int,
+    xq: np.ndarray,
+    wq: np.ndarray,
+    rs: np.ndarray,
+    zs: np.ndarray,
+    wt: np.ndarray,
+    tau: np.ndarray,
+    e: int,
+) -> int:
+    """The graded sub-rule of one panel (``kind``, coefficients ``c``) cut at ``tc``: ratio 2
+    towards the cut, ``levels`` pieces per side, the innermost touching it, each piece the
+    Gauss rule (xq, wq). Writes points ``rs``, ``zs``, weights ``wt`` (Gauss weight times
+    half-width times length element) and parameters ``tau`` from index ``e``; returns the
+    next index."""
+    straight = kind == 0  # the point is linear in tau and the length element constant
+    jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1]) if straight else 0.0
+    for side in (1.0, -1.0):
+        span = 1.0 - tc if side > 0 else tc + 1.0
+        if span <= 0.0:
+            continue
+        for k in range(levels):
+            mid, half = graded_piece(k, levels, span)
+            for q in range(xq.shape[0]):
+                t = tc + side * (mid + half * xq[q])
+                if straight:
+                    s = 0.5 * (t + 1.0)
+                    rs[e] = c[0] + s * (c[2] - c[0])
+                    zs[e] = c[1] + s * (c[3] - c[1])
+                else:
+                    rs[e], zs[e], jac = panel_point(kind, c, t)
+                wt[e] = wq[q] * half * jac
+                tau[e] = t
+                e += 1
+    return e
+
+
+@njit(cache=True)
 def near_rows(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -290,63 +447,42 @@ def near_rows(
 ) -> np.ndarray:
     """Accurate rows (B, p, ncomp) for near (target, panel) pairs.
 
-    Each panel is cut at ``tau_c[b]`` and graded towards it (ratio 2, ``levels[b]`` pieces per
-    side, the innermost touching the cut); every piece takes the Gauss rule (xq, wq); sigma is
-    the panel's Lagrange interpolant on nodes ``x`` (barycentric weights ``bary``).
+    Each panel takes the graded sub-rule of :func:`subrule_points` cut at ``tau_c[b]`` with
+    ``levels[b]`` pieces per side; sigma is the panel's Lagrange interpolant on nodes ``x``
+    (barycentric weights ``bary``).
     """
     n_pairs = tr.shape[0]
     p = x.shape[0]
     ncomp = 2 if field else 1
     out = np.zeros((n_pairs, p, ncomp))
     lag = np.empty(p)
+    size = 2 * xq.shape[0] * (levels.max() if n_pairs else 0)
+    rs, zs, wt, tau = np.empty(size), np.empty(size), np.empty(size), np.empty(size)
     for b in range(n_pairs):
-        tc = tau_c[b]
         t_r, t_z = tr[b], tz[b]
-        c = coef[b]
-        # Segments: the point is linear in tau and the length element constant.
-        straight = kind[b] == 0
-        seg_jac = 0.5 * math.hypot(c[2] - c[0], c[3] - c[1]) if straight else 0.0
-        for side in (1.0, -1.0):
-            span = 1.0 - tc if side > 0 else tc + 1.0
-            if span <= 0.0:
-                continue
-            for k in range(levels[b]):
-                hi = 2.0 ** (-k)
-                lo = 0.0 if k == levels[b] - 1 else 2.0 ** (-(k + 1))
-                mid = 0.5 * (hi + lo) * span
-                half = 0.5 * (hi - lo) * span
-                for q in range(xq.shape[0]):
-                    tau = tc + side * (mid + half * xq[q])
-                    if straight:
-                        s = 0.5 * (tau + 1.0)
-                        rs = c[0] + s * (c[2] - c[0])
-                        zs = c[1] + s * (c[3] - c[1])
-                        jac = seg_jac
-                    else:
-                        rs, zs, jac = _panel_point(kind[b], c, tau)
-                    if mirror:
-                        zs = -zs
-                    wt = wq[q] * half * jac
-                    _lagrange(tau, x, bary, lag)
-                    if field:
-                        er, ez = _ring_e(t_r, t_z, rs, zs)
-                        for j in range(p):
-                            out[b, j, 0] += er * wt * lag[j]
-                            out[b, j, 1] += ez * wt * lag[j]
-                    else:
-                        v = _ring_phi(t_r, t_z, rs, zs) * wt
-                        for j in range(p):
-                            out[b, j, 0] += v * lag[j]
+        n = subrule_points(kind[b], coef[b], tau_c[b], levels[b], xq, wq, rs, zs, wt, tau, 0)
+        for e in range(n):
+            z_s = -zs[e] if mirror else zs[e]
+            _lagrange(tau[e], x, bary, lag)
+            if field:
+                er, ez = _ring_e(t_r, t_z, rs[e], z_s)
+                for j in range(p):
+                    out[b, j, 0] += er * wt[e] * lag[j]
+                    out[b, j, 1] += ez * wt[e] * lag[j]
+            else:
+                v = _ring_phi(t_r, t_z, rs[e], z_s) * wt[e]
+                for j in range(p):
+                    out[b, j, 0] += v * lag[j]
     return out
 
 
 @njit(cache=True)
-def _graded_piece(k: int, levels: int, span: float) -> tuple[float, float]:
+def graded_piece(k: int, levels: int, span: float) -> tuple[float, float]:
     """Midpoint and half-width (reference units from the cut) of piece ``k`` of ``levels``
     graded towards a cut ``span`` from the panel's end (ratio 2, the last touching the cut)."""
-    hi = 2.0 ** (-k)
-    lo = 0.0 if k == levels - 1 else 2.0 ** (-(k + 1))
-    return 0.5 * (hi + lo) * span, 0.5 * (hi - lo) * span
+    hi = math.ldexp(span, -k)
+    lo = 0.0 if k == levels - 1 else 0.5 * hi
+    return 0.5 * (hi + lo), 0.5 * (hi - lo)
 
 
 @njit(cache=True)
@@ -388,11 +524,11 @@ def own_panel_pv_rows(
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
             for k in range(levels[b] if span > 0.0 else 0):
-                mid, half = _graded_piece(k, levels[b], span)
+                mid, half = graded_piece(k, levels[b], span)
                 inner = k >= levels[b] - n_inner
                 for q in range(xq.shape[0]):
                     tau = tc + side * (mid + half * xq[q])
-                    rs, zs, jac = _panel_point(kind[b], c, tau)
+                    rs, zs, jac = panel_point(kind[b], c, tau)
                     if inner:
                         v = 0.0
                         for o in range(6):
@@ -409,6 +545,78 @@ def own_panel_pv_rows(
 
 
 @njit(cache=True)
+def lagrange_coefficients(x: np.ndarray, bary: np.ndarray) -> np.ndarray:
+    """(p, p): entry (j, k) the coefficient of t^j in the Lagrange polynomial l_k on nodes
+    ``x`` (barycentric weights ``bary``)."""
+    p = x.shape[0]
+    out = np.zeros((p, p))
+    c = np.empty(p)
+    for k in range(p):
+        c[:] = 0.0
+        c[0] = bary[k]
+        deg = 0
+        for m in range(p):
+            if m == k:
+                continue
+            for d in range(deg + 1, 0, -1):  # c *= (t - x[m])
+                c[d] = c[d - 1] - x[m] * c[d]
+            c[0] = -x[m] * c[0]
+            deg += 1
+        out[:, k] = c
+    return out
+
+
+@njit(cache=True, error_model="numpy")
+def lagrange_rows(
+    v: np.ndarray,
+    tau: np.ndarray,
+    start: np.ndarray,
+    b0: int,
+    b1: int,
+    x: np.ndarray,
+    bary: np.ndarray,
+    out: np.ndarray,
+) -> None:
+    """Add sum_e v[e] l_k(tau[e]) over the evaluations e of each group b0..b1-1 (from
+    ``start[b] - start[b0]`` in ``v``, ``tau``) into ``out[b, k]``; l_k the Lagrange basis on
+    nodes ``x`` in [-1, 1].
+
+    The moments sum_e v[e] tau[e]^j are taken first and turned into the basis by
+    :func:`lagrange_coefficients`: half the time of the basis at every point. Measured
+    against that (random points and values): differences 2e-16 of sum |v| up to 8 nodes,
+    1.3e-12 at 16.
+    """
+    p = x.shape[0]
+    coef = lagrange_coefficients(x, bary)
+    mom = np.empty(p)
+    for b in range(b0, b1):
+        mom[:] = 0.0
+        for e in range(start[b] - start[b0], start[b + 1] - start[b0]):
+            t = tau[e]
+            power = v[e]
+            for j in range(p):
+                mom[j] += power
+                power *= t
+        for k in range(p):
+            s = 0.0
+            for j in range(p):
+                s += mom[j] * coef[j, k]
+            out[b, k] += s
+
+
+def lagrange_sums(params, counts: np.ndarray, x: np.ndarray, bary: np.ndarray) -> np.ndarray:
+    """(B, p): :func:`lagrange_rows` of groups with ``counts`` (B,) evaluations each, whose
+    m1, scale and tau ``params(b0, b1, start)`` returns for groups b0..b1-1, in batches of
+    about ``BATCH_PAIRS`` through :func:`scaled_k`."""
+    start = np.concatenate(([0], np.cumsum(counts)))
+    out = np.zeros((len(counts), len(x)))
+    edges = batch_edges(counts).tolist()
+    for b0, b1 in zip(edges[:-1], edges[1:], strict=True):
+        m1, scale, tau = params(b0, b1, start)
+        lagrange_rows(scaled_k(m1, scale), tau, start, b0, b1, x, bary, out)
+    return out
+
+
 def self_rows(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -424,15 +632,35 @@ def self_rows(
 ) -> np.ndarray:
     """Self-panel rows (B, p): target on its own panel at parameter ``tau_t[b]``.
 
-    Graded as in :func:`near_rows`; the two innermost pieces use the exact split
+    Each panel is cut at the target and graded towards it as in :func:`near_rows`
+    (``levels[b]`` pieces per side); the two innermost pieces use the exact split
     K(m) = A(m1) - K(m1) ln(m1) / pi with the logarithm integrated by the product weights
-    ``logw_end`` (singularity at the piece's end u = -1).
+    ``logw_end`` (singularity at the piece's end u = -1). The kernel goes through
+    :func:`scaled_k` in batches.
     """
-    n_t = tr.shape[0]
-    p = x.shape[0]
-    out = np.zeros((n_t, p))
-    lag = np.empty(p)
-    for b in range(n_t):
+    sides = (tau_t < 1.0).astype(np.int64) + (tau_t > -1.0)
+    counts = sides * (levels + 1) * len(xq)
+
+    def params(b0: int, b1: int, start: np.ndarray):
+        return _self_params(b0, b1, start, tr, tz, kind, coef, tau_t, levels, xq, wq, logw_end)
+
+    return lagrange_sums(params, counts, x, bary)
+
+
+@njit(cache=True, error_model="numpy")
+def _self_params(
+    b0, b1, start, tr, tz, kind, coef, tau_t, levels, xq, wq, logw_end
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """m1, scale and tau of the evaluations of targets b0..b1-1 of :func:`self_rows`, in the
+    order :func:`self_counts` counts them: per piece its Gauss points; the innermost piece
+    per side adds, per point, the logarithmic part K(m) with parameter m = 4 r r' / rho_plus^2
+    (``scaled_k`` takes its complement m1 = 1 - m)."""
+    total = start[b1] - start[b0]
+    m1 = np.empty(total)
+    scale = np.empty(total)
+    tau_out = np.empty(total)
+    for b in range(b0, b1):
+        e = start[b] - start[b0]
         tc = tau_t[b]
         r, z = tr[b], tz[b]
         for side in (1.0, -1.0):
@@ -440,32 +668,31 @@ def self_rows(
             if span <= 0.0:
                 continue
             for k in range(levels[b]):
-                hi = 2.0 ** (-k)
                 inner = k == levels[b] - 1
-                lo = 0.0 if inner else 2.0 ** (-(k + 1))
-                mid = 0.5 * (hi + lo) * span
-                half = 0.5 * (hi - lo) * span
+                mid, half = graded_piece(k, levels[b], span)
                 for q in range(xq.shape[0]):
                     dist = mid + half * xq[q]
                     tau = tc + side * dist
-                    rs, zs, jac = _panel_point(kind[b], coef[b], tau)
-                    _lagrange(tau, x, bary, lag)
+                    rs, zs, jac = panel_point(kind[b], coef[b], tau)
+                    dz = z - zs
+                    inv = 1.0 / ((r + rs) ** 2 + dz * dz)
+                    pref = rs * math.sqrt(inv) * _INV_PI * half * jac
+                    m1[e] = ((r - rs) ** 2 + dz * dz) * inv
+                    scale[e] = pref * wq[q]
+                    tau_out[e] = tau
+                    e += 1
                     if inner:
-                        dz = z - zs
-                        rp2 = (r + rs) ** 2 + dz * dz
-                        rm2 = (r - rs) ** 2 + dz * dz
-                        m1 = rm2 / rp2
-                        pref = rs / (math.pi * math.sqrt(rp2))
-                        k_m = _ellip_k(m1)
-                        k_m1 = _ellip_k(4.0 * r * rs / rp2)
-                        f1 = pref * (k_m + (2.0 / math.pi) * k_m1 * math.log(dist))
-                        f2 = -pref * (2.0 / math.pi) * k_m1
-                        v = half * jac * (wq[q] * f1 + (wq[q] * math.log(half) + logw_end[q]) * f2)
-                    else:
-                        v = _ring_phi(r, z, rs, zs) * wq[q] * half * jac
-                    for j in range(p):
-                        out[b, j] += v * lag[j]
-    return out
+                        # K(m) = A(m1) - K(m1) ln(m1) / pi, the logarithm in m1 ~ dist^2
+                        # integrated by the product weights: the K(m1) part's scale.
+                        m1[e] = 4.0 * r * rs * inv
+                        scale[e] = (
+                            pref
+                            * (2.0 / math.pi)
+                            * (wq[q] * (math.log(dist) - math.log(half)) - logw_end[q])
+                        )
+                        tau_out[e] = tau
+                        e += 1
+    return m1, scale, tau_out
 
 
 @njit(cache=True)
@@ -510,7 +737,7 @@ def foot_points(
             for _ in range(4):
                 for k in range(33):
                     t = min(max(center + width * (k / 16.0 - 1.0), -1.0), 1.0)
-                    pr, pz, _ = _panel_point(kind[b], c, t)
+                    pr, pz, _ = panel_point(kind[b], c, t)
                     d = math.hypot(r - pr, z - pz)
                     if d < best_d:
                         best, best_d = t, d

@@ -68,6 +68,27 @@ saving about 20 % are not (up to 50 times under the true error there); a partner
 less per panel on the same panels is not honest at sheet edges (coaxial disks d/R = 0.1: the
 3 -> 4 node change 7.0e-6, the error 1.6e-5; a disk is 5.3e-6 off at 4 nodes, 5.4e-6 at 5).
 The 30x target is not met.
+
+Measured 3 Dec 2026 after the batched kernel values (the collocation matrix's potential values
+listed by compiled passes, K through numpy's vectorised logarithm, near and self rules summed
+into Lagrange rows from moments; LU of the transpose without a reordering copy), ``--repeats 9
+--stages --before`` (main's package at 02c8a3a), three runs on the 2-core machine shared with
+other work (``uptime`` load average 6.3 -> 8.0, 8.5 -> 9.5 and 6.6 -> 7.3 from start to end;
+runs 1 and 2 before the last small commits, run 3 the final code), CPU ms, medians:
+
+    probe                     run   BEM cpu before -> after   FEM cpu   FEM/BEM cpu
+    filleted 0.05 mm, 0.2 mm  1     6.17 -> 5.56              70.7      11.5x -> 12.7x
+                              2     6.23 -> 5.84              73.3      11.8x -> 12.6x
+                              3     6.18 -> 5.74              71.4      11.5x -> 12.4x
+    sharp, 0.5 mm             1     8.16 -> 6.42              58.5       7.2x ->  9.1x
+                              2     8.43 -> 6.95              61.0       7.2x ->  8.8x
+                              3     8.32 -> 6.69              58.6       7.0x ->  8.8x
+
+Unknowns, errors and estimates unchanged (the entries equal main's to 3e-15). The 30x target
+is not met. Per solve after (CPU ms, --stages, run 3; the stage table now times the solve's
+own 1e-6 entries), sharp probe: layout 0.65, level-0 grading 0.53, meshes 0.59, far sums 0.76
+(1.86 on an idle machine before), self panels 0.35, near panels 1.57, LU and solve 1.40; the
+filleted probe spends 3.0 of its 5.7 ms in layout, grading and meshes.
 """
 
 from __future__ import annotations
@@ -243,7 +264,13 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     """Median CPU ms per stage of the BEM solve at REQUEST (levels as the solve takes them)."""
     from elopt.physics.bem_axi import operators
     from elopt.physics.bem_axi.ring_sums import collocation_sum
-    from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_level
+    from elopt.physics.bem_axi.solve import (
+        COARSE_ENTRY_ERROR,
+        CONDUCTOR_COARSE_RULE,
+        default_order,
+        mesh_rule,
+        solve_level,
+    )
     from elopt.physics.refinement import estimate_error
 
     def cpu_ms(fn) -> float:
@@ -253,6 +280,7 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
     sol = bem_run(params, REQUEST)
     order = default_order(REQUEST)
     rule = mesh_rule(order, REQUEST, conductors_only=True)
+    entry_error = COARSE_ENTRY_ERROR if rule == CONDUCTOR_COARSE_RULE else None
     out = {"layout": cpu_ms(lambda: GuardedDisk().build(params))}
     out["level-0 grading"] = cpu_ms(
         lambda: (axi_mesh.clear_mesh_cache(), axi_mesh.build_mesh(layout, 0, order, rule))
@@ -264,15 +292,17 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
         r, z = m.points_m[:, 0].copy(), m.points_m[:, 1].copy()
         far = cpu_ms(lambda r=r, z=z, w=m.weights_m: collocation_sum(r, z, w, layout.ground_plane))
         own = cpu_ms(lambda m=m: operators._self_blocks(m))
-        whole = cpu_ms(lambda m=m: operators.collocation_matrix(m, layout.ground_plane))
+        whole = cpu_ms(
+            lambda m=m: operators.collocation_matrix(m, layout.ground_plane, entry_error)
+        )
         out[f"{tag} far sum"] = far
         out[f"{tag} self panels"] = own
         out[f"{tag} near panels"] = whole - far - own
-        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m)) - whole
+        out[f"{tag} LU and solve"] = cpu_ms(lambda m=m: solve_level(layout, m, entry_error)) - whole
     out["estimate (C)"] = cpu_ms(lambda: estimate_error(sol.levels, sol.convergence).capacitance)
     out["peak search (only when asked)"] = cpu_ms(
-        lambda: [solve_level(layout, lv.mesh).peaks() for lv in sol.levels]
-    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh) for lv in sol.levels])
+        lambda: [solve_level(layout, lv.mesh, entry_error).peaks() for lv in sol.levels]
+    ) - cpu_ms(lambda: [solve_level(layout, lv.mesh, entry_error) for lv in sol.levels])
     return out
 
 
