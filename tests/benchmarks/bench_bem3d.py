@@ -69,6 +69,10 @@ closed form C/(4 pi eps0 a) = 1.6 (docs/references.md item 11).
 Re-run of part 3 after the merges on a near-idle machine (2 Dec 2026 18:38, load 1.2):
 6.4 s wall, 10.1 s CPU, peak 307 MB, 1704/6448/25792 panels, estimate 6.3e-4, true 2.2e-4
 (8 s met; 300 MB not met: 215 MB before the finest level, whose compressed matrix adds 69).
+
+Lead's re-run of ``--pad-only`` on the merged main, near-idle machine (3 Dec 2026 05:16,
+load 1.1-1.3): 5.9 s wall, 9.8 s CPU, 284 MB, estimate 6.3e-4, true error 2.3e-4, met.
+The first run after an edit of hmatrix.py recompiles its numba kernels (7.8 s, 317 MB).
 """
 
 from __future__ import annotations

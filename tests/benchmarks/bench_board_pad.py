@@ -90,6 +90,12 @@ integrals, flat copper remainder), then the baseline's and film's finest levels.
 under 30 s were measured at load 6.6 (28.0 s) and 7.9 (24.1 s); no run was made on an idle
 machine, where the wall time should be below the 16.5 CPU seconds (the kernels run on both
 cores) but was not measured.
+
+Lead's re-run on the merged main, near-idle machine (3 Dec 2026 05:16, load 1.0-1.1),
+``--max-level 2``, second run (the first after the merge recompiled numba kernels: 20.1 s,
+532 MB): solves 5.1 / 1.5 / 1.5 s, total 9.3 s wall, 15.9 s CPU, peak 450 MB; estimates
+of C[pad, pad] 9.8e-4 / 8.4e-4 / 8.4e-4, all met (over every entry 2.0e-3 / 7.5e-4 /
+7.5e-4); signal 134.57 fF +- 0.99 fF. Goal (< 30 s, < 1 GB, request met) met.
 """
 
 from __future__ import annotations

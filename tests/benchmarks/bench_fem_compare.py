@@ -89,6 +89,16 @@ is not met. Per solve after (CPU ms, --stages, run 3; the stage table now times 
 own 1e-6 entries), sharp probe: layout 0.65, level-0 grading 0.53, meshes 0.59, far sums 0.76
 (1.86 on an idle machine before), self panels 0.35, near panels 1.57, LU and solve 1.40; the
 filleted probe spends 3.0 of its 5.7 ms in layout, grading and meshes.
+
+Lead's re-run on the merged main (both branches above and the covered-entries change),
+near-idle machine (3 Dec 2026 05:17, load 1.1-1.3), ``--repeats 9 --before`` (main at
+02c8a3a), ms, medians:
+
+    probe                     BEM cpu before -> after   FEM cpu   FEM/BEM cpu
+    filleted 0.05 mm, 0.2 mm  5.94 -> 5.08              70.0      11.8x -> 13.8x
+    sharp, 0.5 mm             8.07 -> 6.48              58.8       7.3x ->  9.1x
+
+The 30x target is not met.
 """
 
 from __future__ import annotations
