@@ -5,20 +5,21 @@ how much memory, and a thunk that solves it). The loop here decides which levels
 estimates the error of the finest one, says why it stopped, and raises in strict mode.
 
 Error estimate. For a quantity X solved on levels 0..L (the capacitance matrix, or the peak
-surface field), let d_k be the scaled change between levels k-1 and k (capacitance entry
-(i, j) scaled by sqrt(C_ii C_jj), the peak by its own value). With the observed ratio
-r = d_L / d_(L-1) (not below :data:`RATIO_FLOOR`, for peaks :data:`PEAK_RATIO_FLOOR`) the
-remaining error of level L is, as in Richardson extrapolation with the observed order, the
-geometric tail d_L r / (1 - r). With two levels only, the ratio is the solver's prior
-(:data:`PRIOR_RATIO` unless it measured its own); when the changes do not shrink (r above :data:`RATIO_CEILING`) the tail is d_L
-itself, and when they collapse (r below the solver's ``collapse_ratio``: a coarse first level
-far off, the next ones converging slowly) the prior ratio is used instead of r. A solver
+surface field), let d_k be the scaled change between levels k-1 and k (capacitance entry (i, j)
+scaled by sqrt(C_ii C_jj), the peak by its own value). With the observed ratio r = d_L / d_(L-1)
+(not below :data:`RATIO_FLOOR`, for peaks :data:`PEAK_RATIO_FLOOR`) the remaining error of
+level L is, as in Richardson extrapolation with the observed order, the geometric tail
+d_L r / (1 - r). With two levels only, the ratio is the solver's prior (:data:`PRIOR_RATIO`
+unless it measured its own); when the changes do not shrink (r above :data:`RATIO_CEILING`) the
+tail is d_L itself, and when they collapse (r below the solver's ``collapse_ratio``: a coarse first
+level far off, the next ones converging slowly) the prior ratio is used instead of r. A solver
 whose peak field does not converge regularly (the 3-D peak is the largest panel value, whose
 panel moves between levels) says so, and its peak estimate is the larger of the last two
-changes; a regular peak's is at least :data:`PEAK_RATIO_FLOOR` times the previous
-change. Every estimate is multiplied by :data:`SAFETY` and kept above the solver's measured
-noise floor (quadrature and round-off errors that refinement does not reduce). The capacitance matrix is not symmetrised:
-half its largest scaled asymmetry |C_ij - C_ji| is added, since the exact matrix is symmetric.
+changes; a regular peak's is at least :data:`PEAK_RATIO_FLOOR` times the previous change. Every
+estimate is multiplied by :data:`SAFETY` and kept above the solver's measured noise floor
+(quadrature and round-off errors that refinement does not reduce). The capacitance matrix is not
+symmetrised: half its largest scaled asymmetry |C_ij - C_ji| is added, since the exact matrix is
+symmetric.
 
 Covered entries. A layout may name the conductors its design is measured on
 (``Layout.estimate_covers``); the solvers pass their indices as ``covered``, and the changes and
@@ -29,8 +30,9 @@ test judge that estimate; the same estimate over every entry is kept as ``matrix
 SAFETY, PRIOR_RATIO and each solver's :class:`Convergence` (noise floors) were measured on the
 published cases (and a guarded probe against its own fine solve) by
 tests/benchmarks/measure_error_estimate.py (the conductors-only coarse axisymmetric solve's
-prior and collapse ratios on a grid of guarded probes, measure_error_estimate_probes.py); tests/test_error_estimate_honesty.py checks the
-result: true error <= estimate in >= 95 % of the cases, never above 3x.
+prior and collapse ratios on a grid of guarded probes, measure_error_estimate_probes.py);
+tests/test_error_estimate_honesty.py checks the result: true error <= estimate in >= 95 % of the
+cases, never above 3x.
 """
 
 from __future__ import annotations

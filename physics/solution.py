@@ -163,11 +163,14 @@ class ChargeSolution(ABC):
         return covered_entries_text(self.estimate_covers, self.layout.names)
 
     @property
+    def estimate_covers_all(self) -> bool:
+        """Whether ``rel_error_estimate`` covers every entry of C."""
+        return len(self.estimate_covers) == len(self.layout.conductors)
+
+    @property
     def matrix_rel_error_estimate(self) -> float:
         """``rel_error_estimate``'s estimate taken over every entry of C (the same number
         when the estimate covers every conductor)."""
-        if len(self.estimate_covers) == len(self.layout.conductors):
-            return float(self.rel_error_estimate)
         return float(self.error_estimate.matrix)
 
     def _take_finest_level(self) -> Any:

@@ -147,7 +147,7 @@ def _peak_lines(spec: SolveSpec, evaluation: Evaluation) -> list[Text]:
 
 def _matrix_note(sol: ChargeSolution) -> str:
     """The estimate over every entry, when the solver's estimate covers fewer."""
-    if len(sol.estimate_covers) == len(sol.layout.conductors):
+    if sol.estimate_covers_all:
         return ""
     return f"; every entry: {sol.matrix_rel_error_estimate:.2g}"
 
