@@ -171,6 +171,8 @@ class ChargeSolution(ABC):
     def matrix_rel_error_estimate(self) -> float:
         """``rel_error_estimate``'s estimate taken over every entry of C (the same number
         when the estimate covers every conductor)."""
+        if self.estimate_covers_all:
+            return float(self.rel_error_estimate)
         return float(self.error_estimate.matrix)
 
     def _take_finest_level(self) -> Any:
