@@ -33,6 +33,7 @@ from numba import njit, prange
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import (
+    ACA_CONFIRM,
     ETA,
     LEAF,
     MAX_RANK,
@@ -40,9 +41,12 @@ from elopt.physics.bem3d.hmatrix import (
     _aca_row_pivot,
     _aca_take_cross,
     _batches,
+    _check_rows,
     _first_unused,
     _partition,
     _recompress,
+    _residual_norm2,
+    _small_run,
     cluster_tree,
 )
 from elopt.physics.bem3d.layered_green import (
@@ -109,8 +113,9 @@ def _remainder_near(
 @njit(cache=True)
 def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol, ubuf, vbuf):
     """ACA with partial pivoting of the remainder block rows r0:r1, panels c0:c1 (tree
-    order), then SVD recompression (as :mod:`.hmatrix`). Returns the rank k; U^T in
-    ubuf[:k, :m], V in vbuf[:k, :n]."""
+    order), ended as :func:`elopt.physics.bem3d.hmatrix._aca_block` (small crosses and a
+    check of sampled rows), then SVD recompression. Returns the rank k; U^T in ubuf[:k, :m],
+    V in vbuf[:k, :n]."""
     m = r1 - r0
     n = c1 - c0
     buf = np.empty(3)
@@ -119,11 +124,13 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
     used_r = np.zeros(m, np.bool_)
     used_c = np.zeros(n, np.bool_)
     norm2 = 0.0
+    small = 0
     k = 0
     i_star = 0
     row = np.empty(n)
     col = np.empty(m)
-    for _ in range(min(MAX_RANK, m, n)):
+    kmax = min(MAX_RANK, m, n)
+    while k < kmax:
         used_r[i_star] = True
         for j in range(n):
             row[j] = _remainder_entry(
@@ -144,8 +151,27 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
         norm2 += grow
         k += 1
-        if last <= tol * tol * norm2 or i_star < 0:
+        small = _small_run(last, norm2, tol, small)
+        if i_star < 0:
             break
+        if small < ACA_CONFIRM:
+            continue
+        picks = _check_rows(m, used_r, k)
+        total = 0.0
+        worst = -1.0
+        for i in picks:
+            for j in range(n):
+                row[j] = _remainder_entry(
+                    r0 + i, c0 + j, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc
+                )
+            r2 = _residual_norm2(row, ubuf, vbuf, i, k, n)
+            total += r2
+            if r2 > worst:
+                worst = r2
+                i_star = i
+        if total * m <= tol * tol * norm2 * max(len(picks), 1):
+            break
+        small = 0
     if k <= 1:
         return k
     return _recompress(ubuf, vbuf, k, m, n, tol)
