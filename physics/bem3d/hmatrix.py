@@ -6,7 +6,10 @@ bisection along the longest side of each cluster's bounding box, down to leaves 
 max(diam t, diam s) <= ETA * dist(t, s): the kernel is smooth there and the block is
 replaced by a low-rank product U V found by adaptive cross approximation (ACA with partial
 pivoting, Bebendorf, Numer. Math. 86, 565 (2000)) and recompressed by a truncated SVD, both
-to the relative tolerance ``tol`` of the block. Inadmissible leaf blocks are stored dense,
+to the relative tolerance ``tol`` of the block. The cross approximation ends when
+:data:`ACA_CONFIRM` crosses in a row are small against the approximation and the residuals
+of :data:`ACA_CHECK_ROWS` sampled unused rows agree (else the worst of them is the next
+pivot): the small crosses alone can miss part of a block. Inadmissible leaf blocks are stored dense,
 with every entry from the accurate panel integrals. Entries of admissible blocks use the
 same distance-chosen rule (:mod:`.panel_integrals`), so the compressed matrix approximates
 exactly the dense one. Dense blocks and low-rank factors are stored in float32 (their
