@@ -546,12 +546,21 @@ def _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r):
     return uu * vv, uu * vv + 2.0 * cross, i_next
 
 
+#: What a cross approximation does after a cross (:func:`_after_cross`).
+ACA_GO_ON, ACA_STOP, ACA_CHECK = 0, 1, 2
+
+
 @njit(cache=True, inline="always")
-def _small_run(last: float, norm2: float, tol: float, run: int) -> int:
-    """The run of consecutive small crosses after one whose squared size is ``last`` (the
-    approximation's squared Frobenius norm ``norm2``): run + 1 when it is below tol^2 norm2,
-    else 0."""
-    return run + 1 if last <= tol * tol * norm2 else 0
+def _after_cross(last, grow, norm2, k, tol, small, i_next):
+    """Book a cross whose squared size is ``last`` (the approximation's squared Frobenius
+    norm grows by ``grow`` from ``norm2``; k crosses before it; ``small`` small crosses in a
+    row before it; ``i_next`` the next pivot row, -1 for none). Returns (norm2, k, small,
+    :data:`ACA_GO_ON` / :data:`ACA_STOP` / :data:`ACA_CHECK`: check sampled rows)."""
+    norm2 += grow
+    small = small + 1 if last <= tol * tol * norm2 else 0
+    if i_next < 0:
+        return norm2, k + 1, small, ACA_STOP
+    return norm2, k + 1, small, ACA_CHECK if small >= ACA_CONFIRM else ACA_GO_ON
 
 
 @njit(cache=True)
@@ -580,15 +589,28 @@ def _check_rows(m: int, used_r: np.ndarray, k: int) -> np.ndarray:
 
 
 @njit(cache=True)
-def _residual_norm2(row, ubuf, vbuf, i, k, n) -> float:
-    """Squared norm of the block's row i (``row`` (n,), overwritten) minus the k crosses."""
-    r2 = 0.0
-    for j in range(n):
-        v = row[j]
-        for q in range(k):
-            v -= ubuf[q, i] * vbuf[q, j]
-        r2 += v * v
-    return r2
+def _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol) -> int:
+    """-1 when the residuals of the block's rows ``picks`` (entries ``checked`` (>= P, n))
+    confirm the k crosses: the squared Frobenius error extrapolated from them (times m / P)
+    below tol^2 ``norm2``; else the row of the largest residual (the next pivot)."""
+    total = 0.0
+    worst = -1.0
+    i_worst = -1
+    for q in range(len(picks)):
+        i = picks[q]
+        r2 = 0.0
+        for j in range(n):
+            v = checked[q, j]
+            for c in range(k):
+                v -= ubuf[c, i] * vbuf[c, j]
+            r2 += v * v
+        total += r2
+        if r2 > worst:
+            worst = r2
+            i_worst = i
+    if total * m <= tol * tol * norm2 * max(len(picks), 1):
+        return -1
+    return i_worst
 
 
 @njit(cache=True, inline="always")
@@ -645,6 +667,7 @@ def _aca_block(
     used_c = np.zeros(n, np.bool_)
     row = np.empty(n)
     col = np.empty(m)
+    checked = np.empty((ACA_CHECK_ROWS, n))
     norm2 = 0.0
     small = 0
     k = 0
@@ -672,28 +695,20 @@ def _aca_block(
                 gp, image, mirror_w, r3, w3, r7, w7, buf, tri, cen,
             )  # fmt: skip
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
-        norm2 += grow
-        k += 1
-        small = _small_run(last, norm2, tol, small)
-        if i_star < 0:
+        norm2, k, small, step = _after_cross(last, grow, norm2, k, tol, small, i_star)
+        if step == ACA_STOP:
             break
-        if small < ACA_CONFIRM:
+        if step == ACA_GO_ON:
             continue
         picks = _check_rows(m, used_r, k)
-        total = 0.0
-        worst = -1.0
-        for i in picks:
+        for q in range(len(picks)):
             for j in range(n):
-                row[j] = _block_entry(
-                    rows[i], cols[j], targets, dirs, deriv, corners, centroids, areas, diams,
-                    gp, image, mirror_w, r3, w3, r7, w7, buf, tri, cen,
+                checked[q, j] = _block_entry(
+                    rows[picks[q]], cols[j], targets, dirs, deriv, corners, centroids, areas,
+                    diams, gp, image, mirror_w, r3, w3, r7, w7, buf, tri, cen,
                 )  # fmt: skip
-            r2 = _residual_norm2(row, ubuf, vbuf, i, k, n)
-            total += r2
-            if r2 > worst:
-                worst = r2
-                i_star = i
-        if total * m <= tol * tol * norm2 * max(len(picks), 1):
+        i_star = _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol)
+        if i_star < 0:
             break
         small = 0
     if k <= 1 or not recompress:

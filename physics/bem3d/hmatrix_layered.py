@@ -33,20 +33,22 @@ from numba import njit, prange
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import (
-    ACA_CONFIRM,
+    ACA_CHECK_ROWS,
+    ACA_GO_ON,
+    ACA_STOP,
     ETA,
     LEAF,
     MAX_RANK,
     HMatrix,
     _aca_row_pivot,
     _aca_take_cross,
+    _after_cross,
     _batches,
     _check_rows,
+    _check_verdict,
     _first_unused,
     _partition,
     _recompress,
-    _residual_norm2,
-    _small_run,
     cluster_tree,
 )
 from elopt.physics.bem3d.layered_green import (
@@ -129,6 +131,7 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
     i_star = 0
     row = np.empty(n)
     col = np.empty(m)
+    checked = np.empty((ACA_CHECK_ROWS, n))
     kmax = min(MAX_RANK, m, n)
     while k < kmax:
         used_r[i_star] = True
@@ -149,27 +152,20 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
                 r0 + i, c0 + j_star, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc
             )
         last, grow, i_star = _aca_take_cross(ubuf, vbuf, col, row, piv, j_star, k, m, n, used_r)
-        norm2 += grow
-        k += 1
-        small = _small_run(last, norm2, tol, small)
-        if i_star < 0:
+        norm2, k, small, step = _after_cross(last, grow, norm2, k, tol, small, i_star)
+        if step == ACA_STOP:
             break
-        if small < ACA_CONFIRM:
+        if step == ACA_GO_ON:
             continue
         picks = _check_rows(m, used_r, k)
-        total = 0.0
-        worst = -1.0
-        for i in picks:
+        for q in range(len(picks)):
             for j in range(n):
-                row[j] = _remainder_entry(
-                    r0 + i, c0 + j, targets, dirs, deriv, rules, factors, tabs, prm, buf, res, acc
-                )
-            r2 = _residual_norm2(row, ubuf, vbuf, i, k, n)
-            total += r2
-            if r2 > worst:
-                worst = r2
-                i_star = i
-        if total * m <= tol * tol * norm2 * max(len(picks), 1):
+                checked[q, j] = _remainder_entry(
+                    r0 + picks[q], c0 + j, targets, dirs, deriv, rules, factors, tabs, prm, buf,
+                    res, acc,
+                )  # fmt: skip
+        i_star = _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol)
+        if i_star < 0:
             break
         small = 0
     if k <= 1:
