@@ -8,7 +8,7 @@ replaced by a low-rank product U V found by adaptive cross approximation (ACA wi
 pivoting, Bebendorf, Numer. Math. 86, 565 (2000)) and recompressed by a truncated SVD, both
 to the relative tolerance ``tol`` of the block. The cross approximation ends when
 :data:`ACA_CONFIRM` crosses in a row are small against the approximation and the residuals
-of :data:`ACA_CHECK_ROWS` sampled unused rows agree (else the worst of them is the next
+at :data:`ACA_CHECK_ENTRIES` sampled entries agree (else the worst of them is the next
 pivot): the small crosses alone can miss part of a block. Inadmissible leaf blocks are stored dense,
 with every entry from the accurate panel integrals. Entries of admissible blocks use the
 same distance-chosen rule (:mod:`.panel_integrals`), so the compressed matrix approximates
@@ -55,12 +55,12 @@ MAX_RANK = 48
 #: board-pad demo's touch solve, 3108 panels: a 740 x 814 finger-copper remainder block
 #: estimated 7e-5 after one cross, still 1.2e-2 off; tests/test_bem3d_layers_aca.py).
 ACA_CONFIRM = 2
-#: ... and when the residuals of this many sampled unused rows confirm it: the squared
-#: Frobenius error extrapolated from them (times m / rows) below tol^2 times the
-#: approximation's, else the worst of them is the next pivot. A run of small crosses alone
-#: missed too (the same demo at 11852 panels: a 1370 x 1370 finger block 18 tol off after
-#: three small crosses; with the check every block within 2.9 tol).
-ACA_CHECK_ROWS = 4
+#: ... and when the residuals of this many sampled entries in unused rows confirm it: the
+#: squared Frobenius error extrapolated from them (times m n / entries) below tol^2 times the
+#: approximation's, else the row of the worst of them is the next pivot. A run of small
+#: crosses alone missed too (the same demo at 11852 panels: a 1370 x 1370 finger block 18
+#: tol off after three small crosses; with the check every block within 2.3 tol).
+ACA_CHECK_ENTRIES = 32
 #: Entries with the target farther than this many panel sizes use the 3-point rule inline
 #: (its error there is below 1e-4 of the entry; measured effect on C below 1e-6).
 FAR_RULE_FACTOR = 4.0
@@ -564,51 +564,46 @@ def _after_cross(last, grow, norm2, k, tol, small, i_next):
 
 
 @njit(cache=True)
-def _check_rows(m: int, used_r: np.ndarray, k: int) -> np.ndarray:
-    """:data:`ACA_CHECK_ROWS` rows of a block of m rows not yet used as pivots, spread over
-    the block (tree order is spatial) by the golden-ratio sequence from step k (a later
-    check reads other rows); fewer when the block has fewer unused rows."""
-    out = np.empty(ACA_CHECK_ROWS, np.int64)
-    c = 0
-    for q in range(ACA_CHECK_ROWS):
-        x = 0.5 + (k * ACA_CHECK_ROWS + q + 1) * 0.6180339887498949
+def _check_entries(m: int, n: int, used_r: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Rows and columns of :data:`ACA_CHECK_ENTRIES` entries of an (m, n) block in rows not
+    yet used as pivots, spread over it (tree order is spatial) by the two-dimensional
+    golden-ratio sequence from step k (a later check reads others); none when every row is
+    used."""
+    rows = np.empty(ACA_CHECK_ENTRIES, np.int64)
+    cols = np.empty(ACA_CHECK_ENTRIES, np.int64)
+    for q in range(ACA_CHECK_ENTRIES):
+        t = k * ACA_CHECK_ENTRIES + q + 1
+        x = 0.5 + t * 0.7548776662466927
+        y = 0.5 + t * 0.5698402909980532
         i = int((x - math.floor(x)) * m)
         for _ in range(m):
             if not used_r[i]:
                 break
             i = (i + 1) % m
         if used_r[i]:
-            break
-        dup = False
-        for p in range(c):
-            dup = dup or out[p] == i
-        if not dup:
-            out[c] = i
-            c += 1
-    return out[:c]
+            return rows[:0], cols[:0]
+        rows[q] = i
+        cols[q] = int((y - math.floor(y)) * n)
+    return rows, cols
 
 
 @njit(cache=True)
-def _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol) -> int:
-    """-1 when the residuals of the block's rows ``picks`` (entries ``checked`` (>= P, n))
-    confirm the k crosses: the squared Frobenius error extrapolated from them (times m / P)
-    below tol^2 ``norm2``; else the row of the largest residual (the next pivot)."""
+def _check_verdict(vals, rows, cols, ubuf, vbuf, k, m, n, norm2, tol) -> int:
+    """-1 when the residuals at the sampled entries (``vals`` at ``rows``, ``cols``, P of
+    them) confirm the k crosses: the squared Frobenius error extrapolated from them (times
+    m n / P) below tol^2 ``norm2``; else the row of the largest residual (the next pivot)."""
     total = 0.0
     worst = -1.0
     i_worst = -1
-    for q in range(len(picks)):
-        i = picks[q]
-        r2 = 0.0
-        for j in range(n):
-            v = checked[q, j]
-            for c in range(k):
-                v -= ubuf[c, i] * vbuf[c, j]
-            r2 += v * v
-        total += r2
-        if r2 > worst:
-            worst = r2
-            i_worst = i
-    if total * m <= tol * tol * norm2 * max(len(picks), 1):
+    for q in range(len(rows)):
+        v = vals[q]
+        for c in range(k):
+            v -= ubuf[c, rows[q]] * vbuf[c, cols[q]]
+        total += v * v
+        if v * v > worst:
+            worst = v * v
+            i_worst = rows[q]
+    if total * m * n <= tol * tol * norm2 * max(len(rows), 1):
         return -1
     return i_worst
 
@@ -656,8 +651,8 @@ def _aca_block(
     vbuf,
 ):
     """ACA with partial pivoting (+ SVD recompression when ``recompress``), ended by
-    :data:`ACA_CONFIRM` small crosses and a passed check of sampled rows
-    (:func:`_check_rows`). Returns the rank k; U^T in ubuf[:k, :m], V in vbuf[:k, :n]."""
+    :data:`ACA_CONFIRM` small crosses and a passed check of sampled entries
+    (:func:`_check_entries`). Returns the rank k; U^T in ubuf[:k, :m], V in vbuf[:k, :n]."""
     m = rows.shape[0]
     n = cols.shape[0]
     buf = np.empty(4)
@@ -667,7 +662,7 @@ def _aca_block(
     used_c = np.zeros(n, np.bool_)
     row = np.empty(n)
     col = np.empty(m)
-    checked = np.empty((ACA_CHECK_ROWS, n))
+    checked = np.empty(ACA_CHECK_ENTRIES)
     norm2 = 0.0
     small = 0
     k = 0
@@ -700,14 +695,13 @@ def _aca_block(
             break
         if step == ACA_GO_ON:
             continue
-        picks = _check_rows(m, used_r, k)
-        for q in range(len(picks)):
-            for j in range(n):
-                checked[q, j] = _block_entry(
-                    rows[picks[q]], cols[j], targets, dirs, deriv, corners, centroids, areas,
-                    diams, gp, image, mirror_w, r3, w3, r7, w7, buf, tri, cen,
-                )  # fmt: skip
-        i_star = _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol)
+        ci, cj = _check_entries(m, n, used_r, k)
+        for q in range(len(ci)):
+            checked[q] = _block_entry(
+                rows[ci[q]], cols[cj[q]], targets, dirs, deriv, corners, centroids, areas, diams,
+                gp, image, mirror_w, r3, w3, r7, w7, buf, tri, cen,
+            )  # fmt: skip
+        i_star = _check_verdict(checked, ci, cj, ubuf, vbuf, k, m, n, norm2, tol)
         if i_star < 0:
             break
         small = 0

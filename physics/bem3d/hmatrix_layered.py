@@ -33,7 +33,7 @@ from numba import njit, prange
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.hmatrix import (
-    ACA_CHECK_ROWS,
+    ACA_CHECK_ENTRIES,
     ACA_GO_ON,
     ACA_STOP,
     ETA,
@@ -44,7 +44,7 @@ from elopt.physics.bem3d.hmatrix import (
     _aca_take_cross,
     _after_cross,
     _batches,
-    _check_rows,
+    _check_entries,
     _check_verdict,
     _first_unused,
     _partition,
@@ -116,7 +116,7 @@ def _remainder_near(
 def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol, ubuf, vbuf):
     """ACA with partial pivoting of the remainder block rows r0:r1, panels c0:c1 (tree
     order), ended as :func:`elopt.physics.bem3d.hmatrix._aca_block` (small crosses and a
-    check of sampled rows), then SVD recompression. Returns the rank k; U^T in ubuf[:k, :m],
+    check of sampled entries), then SVD recompression. Returns the rank k; U^T in ubuf[:k, :m],
     V in vbuf[:k, :n]."""
     m = r1 - r0
     n = c1 - c0
@@ -131,7 +131,7 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
     i_star = 0
     row = np.empty(n)
     col = np.empty(m)
-    checked = np.empty((ACA_CHECK_ROWS, n))
+    checked = np.empty(ACA_CHECK_ENTRIES)
     kmax = min(MAX_RANK, m, n)
     while k < kmax:
         used_r[i_star] = True
@@ -157,14 +157,13 @@ def _cross(r0, r1, c0, c1, targets, dirs, deriv, rules, factors, tabs, prm, tol,
             break
         if step == ACA_GO_ON:
             continue
-        picks = _check_rows(m, used_r, k)
-        for q in range(len(picks)):
-            for j in range(n):
-                checked[q, j] = _remainder_entry(
-                    r0 + picks[q], c0 + j, targets, dirs, deriv, rules, factors, tabs, prm, buf,
-                    res, acc,
-                )  # fmt: skip
-        i_star = _check_verdict(checked, picks, ubuf, vbuf, k, n, m, norm2, tol)
+        ci, cj = _check_entries(m, n, used_r, k)
+        for q in range(len(ci)):
+            checked[q] = _remainder_entry(
+                r0 + ci[q], c0 + cj[q], targets, dirs, deriv, rules, factors, tabs, prm, buf,
+                res, acc,
+            )  # fmt: skip
+        i_star = _check_verdict(checked, ci, cj, ubuf, vbuf, k, m, n, norm2, tol)
         if i_star < 0:
             break
         small = 0
