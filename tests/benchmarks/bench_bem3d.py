@@ -56,6 +56,12 @@ preconditioner, 266-270 at the end of its compressed matrix's build (the peak, 2
 MB; 292 MiB on main); GMRES stays below it and the plane integrals after the solve below 236.
 The 300 MB target is met with 17 MB to spare; 270 MB is not reached.
 
+Measured 2026-12-03 07:13-07:16 UTC, main d11f2b6 and the cross approximation that ends only
+after a check of sampled entries (hmatrix.ACA_CHECK_ENTRIES), alternately in one sitting
+(load 2.9-3.7): 11.4 / 11.4 s CPU before, 14.9 / 14.9 s after, 284 / 285 MB, estimate 6.3e-4
+before and 6.2e-4 after, true error 2.3e-4 in all four. The check costs CPU here without a measured gain on this
+demo (it fixed blocks of the layered board-pad solve; see bench_board_pad.py).
+
     python tests/benchmarks/bench_bem3d.py --pad-only            # Part 3 alone
     python tests/benchmarks/bench_bem3d.py --pad-only --before   # with the previous mesh
 

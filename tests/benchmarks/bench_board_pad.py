@@ -100,29 +100,27 @@ of C[pad, pad] 9.8e-4 / 8.4e-4 / 8.4e-4, all met (over every entry 2.0e-3 / 7.5e
 The compressed layered path's 1 % at level 3 (3 Dec 2026): its cross approximation stopped at
 the first small cross, which left blocks of the finger's rows and columns up to 20 times their
 tolerance off (the pivot rows missed part of the block; not the admissibility: the worst block
-was well separated). It now ends after two small crosses in a row confirmed by the residuals of
-4 sampled rows (hmatrix.ACA_CONFIRM, ACA_CHECK_ROWS; tests/test_bem3d_layers_aca.py). The touch
-solve at 1e-3, levels 2 (dense on orbits) and 3 (46,720 panels, compressed), main d11f2b6
-(each after a warm-up that compiled its kernels) then this code, one sitting (load 1.1-1.9),
-against level 3 solved densely (pF):
+was well separated). It now ends after two small crosses in a row confirmed by the residuals at
+32 sampled entries (hmatrix.ACA_CONFIRM, ACA_CHECK_ENTRIES; tests/test_bem3d_layers_aca.py).
+The touch solve at 1e-3, levels 2 (dense on orbits) and 3 (46,720 panels, compressed), main
+d11f2b6 then this code, each after a warm-up that compiled its kernels, one sitting (load
+2.8-3.4), against level 3 solved densely (pF):
 
                           main d11f2b6   now        dense level 3
     C[target, target]     1.60960        1.59440    1.59437
     C[target, pad]        -0.30512       -0.29957   -0.29957
-    C[pad, target]        -0.30045       -0.29965   -0.29959
-    C[pad, pad]           5.90729        5.90679    5.90663
-    estimate, every entry 1.1e-2         7.9e-4     (from levels 2-3)
-    level 3 setup / GMRES 21.3 / 16.4 s  34.5 / 16.9 s (wall)
+    C[pad, target]        -0.30045       -0.29963   -0.29959
+    C[pad, pad]           5.90729        5.90680    5.90663
+    estimate, every entry 1.1e-2         7.8e-4     (from levels 2-3)
+    level 3 setup / GMRES 24.8 / 16.4 s  31.9 / 16.6 s (wall)
     GMRES iterations      49/64/34       50/64/34   (per column)
-    process CPU, peak     47.2 s, 745 MB 57.7 s, 751 MB
+    process CPU, peak     47.6 s, 746 MB 54.8 s, 751 MB
 
-The setup costs more: the checks and the crosses the early stops skipped (not split further;
-the same operator built at level 2, 11,852 panels: 5.2 s CPU on main, 6.8-7.2 s now, 73 MB
-stored both).
-
-``--max-level 2`` (dense levels only but the peak search's compressed sums), alternately
-main and now in one sitting (load 2.6): 16.0 / 16.0 s CPU and 449 MB before, 16.2 / 16.2 s
-and 450 MB after (wall 13.8 / 13.3 s and 10.8 / 12.0 s); the same estimates and metrics.
+``--max-level 2`` (dense levels; the peak search's sums compressed), main and now alternately
+in the same sitting (load 2.9-3.7): 16.2 / 16.5 s CPU before, 17.3 / 16.3 s after, 449 MB
+all four (wall 12.1 / 16.6 s and 16.7 / 12.5 s); the same estimates and metrics. The
+guarded-pad demo (bench_bem3d.py --pad-only, homogeneous compressed path) in the same runs:
+11.4 / 11.4 s CPU before, 14.9 / 14.9 s after, 284 / 285 MB, the same true error.
 """
 
 from __future__ import annotations
