@@ -50,16 +50,17 @@ FOUR_PI = 4.0 * math.pi
 LEAF = 16
 ETA = 4.0
 MAX_RANK = 48
-#: A cross approximation may end after this many consecutive crosses below the tolerance:
-#: one small cross alone can come from a pivot row that misses part of the block (the
-#: board-pad demo's touch solve, 3108 panels: a 740 x 814 finger-copper remainder block
-#: estimated 7e-5 after one cross, still 1.2e-2 off; tests/test_bem3d_layers_aca.py).
-ACA_CONFIRM = 2
-#: ... and when the residuals of this many sampled entries in unused rows confirm it: the
-#: squared Frobenius error extrapolated from them (times m n / entries) below tol^2 times the
-#: approximation's, else the row of the worst of them is the next pivot. A run of small
-#: crosses alone missed too (the same demo at 11852 panels: a 1370 x 1370 finger block 18
-#: tol off after three small crosses; with the check every block within 2.3 tol).
+#: A cross approximation may end after this many consecutive crosses below the tolerance ...
+ACA_CONFIRM = 1
+#: ... when the residuals of this many sampled entries in unused rows confirm it: the squared
+#: Frobenius error extrapolated from them (times m n / entries) below tol^2 times the
+#: approximation's, else the row of the worst of them is the next pivot. The small cross
+#: alone missed parts of blocks (the board-pad demo's touch solve, 3108 panels: a 740 x 814
+#: finger-copper remainder block estimated 7e-5 after one cross, still 1.2e-2 off; at 11852
+#: panels a 1370 x 1370 finger block 18 tol off even after three small crosses). With the
+#: check every block at 11852 panels is within 2.7 tol (within 2.3 tol with two small
+#: crosses asked for, which cost the guarded-pad demo 1 s more CPU; measured 3 Dec 2026,
+#: tests/test_bem3d_layers_aca.py).
 ACA_CHECK_ENTRIES = 32
 #: Entries with the target farther than this many panel sizes use the 3-point rule inline
 #: (its error there is below 1e-4 of the entry; measured effect on C below 1e-6).
