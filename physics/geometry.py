@@ -101,13 +101,20 @@ class Arc:
     def length(self) -> float:
         return abs(self.sweep) * self.radius
 
-    @property
+    @cached_property
     def start(self) -> tuple[float, float]:
-        return tuple(self.points(np.array([-1.0]))[0])
+        return self._point_at(self.start_angle)
 
-    @property
+    @cached_property
     def end(self) -> tuple[float, float]:
-        return tuple(self.points(np.array([1.0]))[0])
+        return self._point_at(self.start_angle + self.sweep)
+
+    def _point_at(self, angle: float) -> tuple[float, float]:
+        """The point at ``angle``: :meth:`points`' formulas (numpy's cos and sin), bit for bit."""
+        return (
+            self.center[0] + self.radius * np.cos(angle),
+            self.center[1] + self.radius * np.sin(angle),
+        )
 
     def _angles(self, t: np.ndarray) -> np.ndarray:
         return self.start_angle + 0.5 * (np.asarray(t, dtype=float) + 1) * self.sweep
@@ -185,6 +192,14 @@ class Curve:
                     f"{format_point(b)} (gap {gap:.3g} m); consecutive pieces must join"
                 )
 
+    def __hash__(self) -> int:
+        return self._hash
+
+    @cached_property
+    def _hash(self) -> int:
+        # Hashed once: the meshes' caches are keyed by layouts, which hash their curves.
+        return hash(self.pieces)
+
     @property
     def start(self) -> tuple[float, float]:
         return self.pieces[0].start
@@ -200,7 +215,7 @@ class Curve:
     @cached_property
     def size(self) -> float:
         """Largest extent of the curve in metres (for tolerances)."""
-        pts = self.sample(4)
+        pts = self.sample(16)[::4]  # the points of sample(4), bit for bit
         return float(np.max(np.ptp(pts, axis=0))) or self.pieces[0].length
 
     @cached_property
@@ -216,10 +231,17 @@ class Curve:
 
     def sample(self, per_piece: int = 32) -> np.ndarray:
         """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2) (a new
-        array each call; the points are computed once per curve and count)."""
-        if per_piece not in self._samples:
-            self._samples[per_piece] = self._sample(per_piece)
-        return self._samples[per_piece].copy()
+        array each call; the points are computed once per curve and count, or taken from a
+        count that is a multiple of it: the same parameters give the same points)."""
+        pts = self._samples.get(per_piece)
+        if pts is None:
+            finer = [k for k in self._samples if k % per_piece == 0]
+            if finer:
+                pts = self._samples[finer[0]][:: finer[0] // per_piece]
+            else:
+                pts = self._sample(per_piece)
+            self._samples[per_piece] = pts
+        return pts.copy()
 
     @cached_property
     def _samples(self) -> dict[int, np.ndarray]:

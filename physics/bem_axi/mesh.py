@@ -276,11 +276,33 @@ def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 
 
 def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
-    """Points (n, 2) at the parameter midpoints of a curve's panels."""
+    """Points (n, 2) at the parameter midpoints of a curve's panels (the formulas of
+    :func:`_panel_coefs` and :func:`panel_geometry` at a panel's start, for one point each)."""
     _, piece_kind, piece_spec = _curve_pieces(curve)
     mid = 0.5 * (panels.t0 + panels.t1)
-    kind, coef = _panel_coefs(piece_kind, piece_spec, panels.piece, mid, mid)
-    return panel_geometry(kind, coef, np.full((len(mid), 1), -1.0))[0][:, 0, :]
+    kind = piece_kind[panels.piece]
+    sp = piece_spec[panels.piece]
+    out = np.empty((len(mid), 2))
+    seg = kind == KIND_SEGMENT
+    if seg.all():
+        m = mid[:, None]
+        return 0.5 * (1 - m) * sp[:, 0:2] + 0.5 * (1 + m) * sp[:, 2:4]
+    if seg.any():
+        m = mid[seg][:, None]
+        out[seg] = 0.5 * (1 - m) * sp[seg, 0:2] + 0.5 * (1 + m) * sp[seg, 2:4]
+    for k in (KIND_ARC, KIND_ELLIPSE):
+        sel = kind == k
+        if not sel.any():
+            continue
+        c = sp[sel]
+        ang = c[:, 3] + 0.5 * (mid[sel] + 1) * c[:, 4]
+        if k == KIND_ARC:  # (cr, cz, R, a0, sweep)
+            out[sel, 0] = c[:, 0] + c[:, 2] * np.cos(ang)
+            out[sel, 1] = c[:, 1] + c[:, 2] * np.sin(ang)
+        else:  # (cz, a, b, u0, span)
+            out[sel, 0] = c[:, 1] * np.cos(ang)
+            out[sel, 1] = c[:, 0] + c[:, 2] * np.sin(ang)
+    return out
 
 
 def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
