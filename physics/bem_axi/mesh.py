@@ -359,11 +359,10 @@ def build_mesh(
 
 def _piece_ends(piece: np.ndarray) -> tuple[dict[int, int], dict[int, int]]:
     """Index of the first and of the last panel of every piece in ``piece`` (sorted, (P,))."""
-    ids, first, counts = np.unique(piece, return_index=True, return_counts=True)
-    return (
-        dict(zip(ids.tolist(), first.tolist(), strict=True)),
-        dict(zip(ids.tolist(), (first + counts - 1).tolist(), strict=True)),
-    )
+    first = np.flatnonzero(np.diff(piece, prepend=-1))
+    ids = piece[first].tolist()
+    last = np.append(first[1:], len(piece)) - 1
+    return dict(zip(ids, first.tolist(), strict=True)), dict(zip(ids, last.tolist(), strict=True))
 
 
 def _graded_edges(a: float, b: float, at_end: bool, times: int, ratio: float) -> list[float]:
@@ -543,8 +542,10 @@ def _assemble_mesh(
     at_corner = np.zeros(len(piece), dtype=bool)
     for k, at_end in base.corner_ends:
         at_corner[last[k] if at_end else first[k]] = True
-    tau = np.broadcast_to(xg, (len(kind_a), order))
+    # The nodes and, last, the centre (tau = 0) of every panel in one call.
+    tau = np.broadcast_to(np.append(xg, 0.0), (len(kind_a), order + 1))
     pts, der = panel_geometry(kind_a, coef_a, tau)
+    center, pts, der = pts[:, order], pts[:, :order], der[:, :order]
     jac = np.linalg.norm(der, axis=-1)
     tang = der / jac[..., None]
     sgn = base.signs[conductor_a][:, None, None]
@@ -556,7 +557,6 @@ def _assemble_mesh(
     first_of = np.searchsorted(conductor_a, conductor_a)
     arc_start = ends - length - np.where(first_of > 0, ends[first_of - 1], 0.0)
     arc = arc_start[:, None] + 0.5 * (xg + 1.0) * length[:, None]
-    center, _ = panel_geometry(kind_a, coef_a, np.zeros((len(kind_a), 1)))
     return AxiMesh(
         order=order,
         level=level,
@@ -564,7 +564,7 @@ def _assemble_mesh(
         kind=kind_a,
         coef=coef_a,
         length_m=length,
-        center_m=center[:, 0, :],
+        center_m=center,
         at_corner=at_corner,
         points_m=pts.reshape(-1, 2),
         tangents=tang.reshape(-1, 2),
