@@ -176,10 +176,15 @@ def _initial_intervals(curve: Curve, level: int) -> list[list[tuple[float, float
             edges = _equal_turning_edges(piece, max(n, 1), ELLIPSE_TURN_ANGLE, level)
             out.append([(float(edges[i]), float(edges[i + 1])) for i in range(len(edges) - 1)])
             continue
-        n = max(n, 1) * 2**level
-        edges = np.linspace(-1.0, 1.0, n + 1)
-        out.append([(float(edges[i]), float(edges[i + 1])) for i in range(n)])
+        out.append(list(_equal_intervals(max(n, 1) * 2**level)))
     return out
+
+
+@lru_cache(maxsize=64)
+def _equal_intervals(n: int) -> tuple[tuple[float, float], ...]:
+    """The ``n`` equal parameter intervals of [-1, 1] (edges by ``np.linspace``)."""
+    edges = np.linspace(-1.0, 1.0, n + 1).tolist()
+    return tuple(zip(edges[:-1], edges[1:], strict=True))
 
 
 def _equal_turning_edges(piece: EllipseArc, n_min: int, max_turn: float, level: int) -> np.ndarray:
