@@ -247,31 +247,35 @@ class Curve:
     def _samples(self) -> dict[int, np.ndarray]:
         return {}
 
+    @cached_property
+    def _piece_table(self) -> tuple:
+        """Indices and point formulas' data of the segments (ends (n, 1, 2) each) and of the
+        arcs (centre, radius, start angle, sweep (n, 5)), for :meth:`_sample`."""
+        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
+        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
+        a = np.asarray([self.pieces[k].start for k in seg]).reshape(-1, 1, 2)
+        b = np.asarray([self.pieces[k].end for k in seg]).reshape(-1, 1, 2)
+        spec = np.asarray(
+            [(*p.center, p.radius, p.start_angle, p.sweep) for p in (self.pieces[k] for k in arc)]
+        ).reshape(-1, 5)
+        other = [k for k, p in enumerate(self.pieces) if not isinstance(p, (Segment, Arc))]
+        return seg, a, b, arc, spec, other, np.asarray([self.end])
+
     def _sample(self, per_piece: int) -> np.ndarray:
         # Segments and arcs of every piece at once, by the formulas of their points().
         t = np.linspace(-1.0, 1.0, per_piece + 1)[:-1]
         out = np.empty((len(self.pieces), per_piece, 2))
-        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
-        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
+        seg, a, b, arc, spec, other, end = self._piece_table
         if seg:
-            a = np.asarray([self.pieces[k].start for k in seg])[:, None, :]
-            b = np.asarray([self.pieces[k].end for k in seg])[:, None, :]
             out[seg] = 0.5 * (1 - t)[None, :, None] * a + 0.5 * (1 + t)[None, :, None] * b
         if arc:
-            spec = np.asarray(
-                [
-                    (*p.center, p.radius, p.start_angle, p.sweep)
-                    for p in (self.pieces[k] for k in arc)
-                ]
-            )
             ang = spec[:, 3:4] + 0.5 * (t + 1)[None, :] * spec[:, 4:5]
             out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
                 [np.cos(ang), np.sin(ang)], axis=-1
             )
-        for k, p in enumerate(self.pieces):
-            if not isinstance(p, (Segment, Arc)):
-                out[k] = p.points(t)
-        return np.concatenate([out.reshape(-1, 2), np.asarray([self.end])])
+        for k in other:
+            out[k] = self.pieces[k].points(t)
+        return np.concatenate([out.reshape(-1, 2), end])
 
     def corners(self) -> tuple[Corner, ...]:
         """Joints with a tangent break and free sheet ends (never points on the axis)."""
