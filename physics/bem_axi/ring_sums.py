@@ -246,7 +246,8 @@ def batch_edges(counts: np.ndarray) -> np.ndarray:
     cum = np.cumsum(counts)
     total = int(cum[-1]) if len(cum) else 0
     cuts = np.searchsorted(cum, np.arange(BATCH_PAIRS, total, BATCH_PAIRS), side="right")
-    return np.unique(np.concatenate(([0], cuts, [len(counts)])))
+    edges = np.concatenate(([0], cuts, [len(counts)]))  # non-decreasing: drop repeats
+    return edges[np.diff(edges, prepend=-1) != 0]
 
 
 def collocation_sum(
