@@ -291,8 +291,8 @@ class Curve:
         for i in joints:
             a = self.pieces[i]
             b = self.pieces[(i + 1) % n]
-            ta = a.tangents(np.array([1.0]))[0]
-            tb = b.tangents(np.array([-1.0]))[0]
+            ta = _end_tangent(a, True)
+            tb = _end_tangent(b, False)
             turn = math.atan2(ta[0] * tb[1] - ta[1] * tb[0], float(ta @ tb))
             if abs(turn) < 1e-6:
                 continue
@@ -329,6 +329,19 @@ class Curve:
                 f"conductor '{name}': the generating curve intersects itself near "
                 f"(r, z) = ({hit[0]:.6g}, {hit[1]:.6g}) m"
             )
+
+
+def _end_tangent(piece, at_end: bool) -> np.ndarray:
+    """Unit tangent (2,) of ``piece`` at its end (or start): its ``tangents`` at t = +-1 by the
+    same formulas, bit for bit, without their (1, 2) arrays for segments and arcs."""
+    if isinstance(piece, Segment):
+        length = piece.length
+        return np.array([(piece.end[k] - piece.start[k]) / length for k in (0, 1)])
+    if isinstance(piece, Arc):
+        a = piece.start_angle + piece.sweep if at_end else piece.start_angle
+        turn = math.copysign(1.0, piece.sweep)
+        return np.array([turn * -np.sin(a), turn * np.cos(a)])
+    return piece.tangents(np.array([1.0 if at_end else -1.0]))[0]
 
 
 def _chords_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
