@@ -366,12 +366,13 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
     tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
     lo = chords.min(axis=1) - tol
     hi = chords.max(axis=1) + tol
-    meet = (lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0])
-    meet &= (lo[:, None, 1] <= hi[None, :, 1]) & (lo[None, :, 1] <= hi[:, None, 1])
-    meet = np.triu(meet, k=2)
+    # Pairs overlapping in r first (row-major, the order of np.triu_indices), then in z and
+    # at least two chords apart: the boxes' test on the few pairs left.
+    i, j = np.nonzero((lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0]))
+    keep = (j >= i + 2) & (lo[i, 1] <= hi[j, 1]) & (lo[j, 1] <= hi[i, 1])
     if closed and m > 2:
-        meet[0, m - 1] = False
-    i, j = np.nonzero(meet)  # row-major: the order of np.triu_indices
+        keep &= (i != 0) | (j != m - 1)
+    i, j = i[keep], j[keep]
     if len(i) == 0:
         return None
     bad = _chords_cross(chords[i], chords[j])
