@@ -368,7 +368,8 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
     hi = chords.max(axis=1) + tol
     # Pairs overlapping in r first (row-major, the order of np.triu_indices), then in z and
     # at least two chords apart: the boxes' test on the few pairs left.
-    i, j = np.nonzero((lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0]))
+    lo_r, hi_r = lo[:, 0].copy(), hi[:, 0].copy()
+    i, j = np.divmod(np.flatnonzero((lo_r[:, None] <= hi_r) & (lo_r <= hi_r[:, None])), m)
     keep = (j >= i + 2) & (lo[i, 1] <= hi[j, 1]) & (lo[j, 1] <= hi[i, 1])
     if closed and m > 2:
         keep &= (i != 0) | (j != m - 1)
