@@ -516,13 +516,11 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
         if layout.ground_plane:
             others += [s * np.array([1.0, -1.0]) for s in samples]
         if others:
-            cloud = np.concatenate(others)
+            cloud_r, cloud_z = np.concatenate(others).T.copy()  # contiguous columns
             for _ in range(40):
                 lengths = _curve_lengths(curve, panels)
                 centres = _curve_midpoints(curve, panels)
-                gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
-                    centres[:, None, 1] - cloud[None, :, 1]
-                ) ** 2
+                gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
                 bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
                 if not bad.any():
                     break
