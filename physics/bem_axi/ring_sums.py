@@ -601,18 +601,41 @@ def lagrange_rows(
     coef = lagrange_coefficients(x, bary)
     mom = np.empty(p)
     for b in range(b0, b1):
-        mom[:] = 0.0
-        for e in range(start[b] - start[b0], start[b + 1] - start[b0]):
-            t = tau[e]
-            power = v[e]
-            for j in range(p):
-                mom[j] += power
-                power *= t
+        e0, e1 = start[b] - start[b0], start[b + 1] - start[b0]
+        if p == 4:
+            mom[0], mom[1], mom[2], mom[3] = _moments4(v, tau, e0, e1)
+        else:
+            mom[:] = 0.0
+            for e in range(e0, e1):
+                t = tau[e]
+                power = v[e]
+                for j in range(p):
+                    mom[j] += power
+                    power *= t
         for k in range(p):
             s = 0.0
             for j in range(p):
                 s += mom[j] * coef[j, k]
             out[b, k] += s
+
+
+@njit(cache=True, error_model="numpy")
+def _moments4(v: np.ndarray, tau: np.ndarray, e0: int, e1: int):
+    """The moments sum_e v[e] tau[e]^j, j = 0..3, over e0..e1-1 of :func:`lagrange_rows` for
+    four nodes (the loose requests' order), summed in the same order in registers instead of
+    an array: half the time, the same bits."""
+    m0 = m1 = m2 = m3 = 0.0
+    for e in range(e0, e1):
+        t = tau[e]
+        power = v[e]
+        m0 += power
+        power *= t
+        m1 += power
+        power *= t
+        m2 += power
+        power *= t
+        m3 += power
+    return m0, m1, m2, m3
 
 
 def lagrange_sums(params, counts: np.ndarray, x: np.ndarray, bary: np.ndarray) -> np.ndarray:
