@@ -122,9 +122,12 @@ stalls at 1.5e-12 of the solution, the matrix's condition number being 1.1e5); f
 layout 0.70, grading 0.47, meshes 0.14 + 0.16. The compiled passes are near their cost per
 kernel value (far sum 5 ns per pair; the near rules' points and scales 5 ns per evaluation,
 18 ns with the logarithm, K, the Lagrange rows and the pair search); what remains is the
-level pair's size and the Python of layout and meshes. Re-run on the final code (06:48, the
-gap test's contiguous columns added; load average 2.6 at start and end): filleted 4.86 ->
-3.82 ms (14.5x -> 18.4x), sharp 6.27 -> 5.53 ms (9.2x -> 10.4x). The 30x target is not met.
+level pair's size and the Python of layout and meshes (stages of this first run). Re-runs:
+06:48 (the gap test's contiguous columns added; load 2.6 at start and end): filleted 4.86 ->
+3.82 ms (14.5x -> 18.4x), sharp 6.27 -> 5.53 ms (9.2x -> 10.4x); 06:50 on the final code
+(the Lagrange moments at four nodes in registers added; load 1.5 -> 1.8): filleted 4.88 ->
+3.84 ms (14.3x -> 18.2x), sharp 6.32 -> 5.43 ms (9.3x -> 10.8x; near panels 0.40 + 0.73).
+The 30x target is not met.
 """
 
 from __future__ import annotations
