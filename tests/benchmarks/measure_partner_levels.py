@@ -70,6 +70,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from bench_fem_compare import PROBES as BENCH_PROBES  # noqa: E402
+from bench_fem_compare import probe_params  # noqa: E402
 from measure_error_estimate_probes import REFERENCE_REQUEST, REQUESTS, probes  # noqa: E402
 
 from elopt.physics.bem_axi import mesh as axi_mesh  # noqa: E402
@@ -82,7 +84,7 @@ from elopt.physics.bem_axi.solve import (  # noqa: E402
     solve_axisymmetric,
     solve_level,
 )
-from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams  # noqa: E402
+from elopt.physics.electrodes.guarded_disk import GuardedDisk  # noqa: E402
 from elopt.physics.layout import Layout  # noqa: E402
 from elopt.physics.quadrature import barycentric_weights, gauss_legendre  # noqa: E402
 from elopt.physics.refinement import (  # noqa: E402
@@ -245,20 +247,7 @@ def main() -> None:
                 true = relative_change(out.levels[-1].capacitance_F, ref)
                 unknowns = sum(lv.n_unknowns for lv in out.levels)
                 rows[name].append((req, true, out.estimate.capacitance, unknowns))
-    bench = [
-        GuardedDisk().build(
-            GuardedDiskParams(
-                sensor_radius_mm=2.0,
-                guard_gap_mm=0.1,
-                guard_width_mm=1.9,
-                thickness_mm=0.5,
-                fillet_mm=fillet,
-                standoff_mm=standoff,
-                drive_V=1.0,
-            )
-        )
-        for fillet, standoff in ((0.05, 0.2), (0.0, 0.5))
-    ]
+    bench = [GuardedDisk().build(probe_params(f, s)) for _, f, s in BENCH_PROBES]
     print(f"prior ratio {args.prior:g}; {len(rows['level 1'])} (probe, request) pairs")
     print("partner    above  worst  mean N at 1e-4  L0+L1 cpu ms filleted  sharp")
     for name, partner in PARTNERS.items():
