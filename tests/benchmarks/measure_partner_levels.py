@@ -107,7 +107,7 @@ Partner = tuple[Callable | None, int]
 
 def partner_mesh(layout: Layout, halve: np.ndarray, steps: int, order: int):
     """Level-0 panels with those of ``halve`` (M,) halved, ``steps`` more grading cuts at every
-    singular corner, ``order`` nodes per panel."""
+    singular corner, ``order`` nodes per panel (the mesh says level ``steps``)."""
     base = axi_mesh._base_panels(layout, RULE)
     panels = axi_mesh._CurvePanels(base.piece, base.t0, base.t1).split(halve)
     piece, t0, t1 = panels.piece, panels.t0.copy(), panels.t1.copy()
@@ -122,7 +122,7 @@ def partner_mesh(layout: Layout, halve: np.ndarray, steps: int, order: int):
             t0 = np.concatenate([t0[:j], cuts[:-1], t0[j + 1 :]])
             t1 = np.concatenate([t1[:j], cuts[1:], t1[j + 1 :]])
             first, last = axi_mesh._piece_ends(piece)
-    return axi_mesh._assemble_mesh(layout, base, piece, t0, t1, 1, order)
+    return axi_mesh._assemble_mesh(layout, base, piece, t0, t1, steps, order)
 
 
 def jump_marks(theta: float) -> Callable:
