@@ -101,13 +101,20 @@ class Arc:
     def length(self) -> float:
         return abs(self.sweep) * self.radius
 
-    @property
+    @cached_property
     def start(self) -> tuple[float, float]:
-        return tuple(self.points(np.array([-1.0]))[0])
+        return self._point_at(self.start_angle)
 
-    @property
+    @cached_property
     def end(self) -> tuple[float, float]:
-        return tuple(self.points(np.array([1.0]))[0])
+        return self._point_at(self.start_angle + self.sweep)
+
+    def _point_at(self, angle: float) -> tuple[float, float]:
+        """The point at ``angle``: :meth:`points`' formulas (numpy's cos and sin), bit for bit."""
+        return (
+            self.center[0] + self.radius * np.cos(angle),
+            self.center[1] + self.radius * np.sin(angle),
+        )
 
     def _angles(self, t: np.ndarray) -> np.ndarray:
         return self.start_angle + 0.5 * (np.asarray(t, dtype=float) + 1) * self.sweep
@@ -185,6 +192,14 @@ class Curve:
                     f"{format_point(b)} (gap {gap:.3g} m); consecutive pieces must join"
                 )
 
+    def __hash__(self) -> int:
+        return self._hash
+
+    @cached_property
+    def _hash(self) -> int:
+        # Hashed once: the meshes' caches are keyed by layouts, which hash their curves.
+        return hash(self.pieces)
+
     @property
     def start(self) -> tuple[float, float]:
         return self.pieces[0].start
@@ -200,7 +215,7 @@ class Curve:
     @cached_property
     def size(self) -> float:
         """Largest extent of the curve in metres (for tolerances)."""
-        pts = self.sample(4)
+        pts = self.sample(16)[::4]  # the points of sample(4), bit for bit
         return float(np.max(np.ptp(pts, axis=0))) or self.pieces[0].length
 
     @cached_property
@@ -216,40 +231,51 @@ class Curve:
 
     def sample(self, per_piece: int = 32) -> np.ndarray:
         """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2) (a new
-        array each call; the points are computed once per curve and count)."""
-        if per_piece not in self._samples:
-            self._samples[per_piece] = self._sample(per_piece)
-        return self._samples[per_piece].copy()
+        array each call; the points are computed once per curve and count, or taken from a
+        count that is a multiple of it: the same parameters give the same points)."""
+        pts = self._samples.get(per_piece)
+        if pts is None:
+            finer = [k for k in self._samples if k % per_piece == 0]
+            if finer:
+                pts = self._samples[finer[0]][:: finer[0] // per_piece]
+            else:
+                pts = self._sample(per_piece)
+            self._samples[per_piece] = pts
+        return pts.copy()
 
     @cached_property
     def _samples(self) -> dict[int, np.ndarray]:
         return {}
 
+    @cached_property
+    def _piece_table(self) -> tuple:
+        """Indices and point formulas' data of the segments (ends (n, 1, 2) each) and of the
+        arcs (centre, radius, start angle, sweep (n, 5)), for :meth:`_sample`."""
+        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
+        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
+        a = np.asarray([self.pieces[k].start for k in seg]).reshape(-1, 1, 2)
+        b = np.asarray([self.pieces[k].end for k in seg]).reshape(-1, 1, 2)
+        spec = np.asarray(
+            [(*p.center, p.radius, p.start_angle, p.sweep) for p in (self.pieces[k] for k in arc)]
+        ).reshape(-1, 5)
+        other = [k for k, p in enumerate(self.pieces) if not isinstance(p, (Segment, Arc))]
+        return seg, a, b, arc, spec, other, np.asarray([self.end])
+
     def _sample(self, per_piece: int) -> np.ndarray:
         # Segments and arcs of every piece at once, by the formulas of their points().
         t = np.linspace(-1.0, 1.0, per_piece + 1)[:-1]
         out = np.empty((len(self.pieces), per_piece, 2))
-        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
-        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
+        seg, a, b, arc, spec, other, end = self._piece_table
         if seg:
-            a = np.asarray([self.pieces[k].start for k in seg])[:, None, :]
-            b = np.asarray([self.pieces[k].end for k in seg])[:, None, :]
             out[seg] = 0.5 * (1 - t)[None, :, None] * a + 0.5 * (1 + t)[None, :, None] * b
         if arc:
-            spec = np.asarray(
-                [
-                    (*p.center, p.radius, p.start_angle, p.sweep)
-                    for p in (self.pieces[k] for k in arc)
-                ]
-            )
             ang = spec[:, 3:4] + 0.5 * (t + 1)[None, :] * spec[:, 4:5]
             out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
                 [np.cos(ang), np.sin(ang)], axis=-1
             )
-        for k, p in enumerate(self.pieces):
-            if not isinstance(p, (Segment, Arc)):
-                out[k] = p.points(t)
-        return np.concatenate([out.reshape(-1, 2), np.asarray([self.end])])
+        for k in other:
+            out[k] = self.pieces[k].points(t)
+        return np.concatenate([out.reshape(-1, 2), end])
 
     def corners(self) -> tuple[Corner, ...]:
         """Joints with a tangent break and free sheet ends (never points on the axis)."""
@@ -265,8 +291,8 @@ class Curve:
         for i in joints:
             a = self.pieces[i]
             b = self.pieces[(i + 1) % n]
-            ta = a.tangents(np.array([1.0]))[0]
-            tb = b.tangents(np.array([-1.0]))[0]
+            ta = _end_tangent(a, True)
+            tb = _end_tangent(b, False)
             turn = math.atan2(ta[0] * tb[1] - ta[1] * tb[0], float(ta @ tb))
             if abs(turn) < 1e-6:
                 continue
@@ -305,6 +331,19 @@ class Curve:
             )
 
 
+def _end_tangent(piece, at_end: bool) -> np.ndarray:
+    """Unit tangent (2,) of ``piece`` at its end (or start): its ``tangents`` at t = +-1 by the
+    same formulas, bit for bit, without their (1, 2) arrays for segments and arcs."""
+    if isinstance(piece, Segment):
+        length = piece.length
+        return np.array([(piece.end[k] - piece.start[k]) / length for k in (0, 1)])
+    if isinstance(piece, Arc):
+        a = piece.start_angle + piece.sweep if at_end else piece.start_angle
+        turn = math.copysign(1.0, piece.sweep)
+        return np.array([turn * -np.sin(a), turn * np.cos(a)])
+    return piece.tangents(np.array([1.0 if at_end else -1.0]))[0]
+
+
 def _chords_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     """Proper-intersection test of chords p (K,2,2) against q (K,2,2), pair by pair -> (K,)."""
     a, b, c, d = p[:, 0], p[:, 1], q[:, 0], q[:, 1]
@@ -327,12 +366,14 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
     tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
     lo = chords.min(axis=1) - tol
     hi = chords.max(axis=1) + tol
-    meet = (lo[:, None, 0] <= hi[None, :, 0]) & (lo[None, :, 0] <= hi[:, None, 0])
-    meet &= (lo[:, None, 1] <= hi[None, :, 1]) & (lo[None, :, 1] <= hi[:, None, 1])
-    meet = np.triu(meet, k=2)
+    # Pairs overlapping in r first (row-major, the order of np.triu_indices), then in z and
+    # at least two chords apart: the boxes' test on the few pairs left.
+    lo_r, hi_r = lo[:, 0].copy(), hi[:, 0].copy()
+    i, j = np.divmod(np.flatnonzero((lo_r[:, None] <= hi_r) & (lo_r <= hi_r[:, None])), m)
+    keep = (j >= i + 2) & (lo[i, 1] <= hi[j, 1]) & (lo[j, 1] <= hi[i, 1])
     if closed and m > 2:
-        meet[0, m - 1] = False
-    i, j = np.nonzero(meet)  # row-major: the order of np.triu_indices
+        keep &= (i != 0) | (j != m - 1)
+    i, j = i[keep], j[keep]
     if len(i) == 0:
         return None
     bad = _chords_cross(chords[i], chords[j])

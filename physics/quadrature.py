@@ -55,6 +55,14 @@ def log_product_weights(targets: np.ndarray, p: int) -> np.ndarray:
     return out
 
 
+@lru_cache(maxsize=16)
+def end_log_weights(p: int) -> np.ndarray:
+    """:func:`log_product_weights` (p,) of the target -1 (a panel's end), computed once."""
+    out = log_product_weights(np.array([-1.0]), p)[0]
+    out.setflags(write=False)
+    return out
+
+
 def lagrange_matrix(t: np.ndarray, p: int) -> np.ndarray:
     """Values of the p Lagrange basis polynomials on the Gauss nodes at points ``t``.
 

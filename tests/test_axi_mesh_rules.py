@@ -86,7 +86,8 @@ def test_level_zero_panels_respect_the_gap_rule_and_flag_their_corners(fillet_mm
 
 def test_curve_samples_lie_on_the_pieces_and_are_fresh_arrays():
     curve = geo.rounded_polyline([(0.0, 1.0), (2.0, 1.0), (2.0, 1.5), (0.0, 1.5)], 0.1)
-    for per_piece in (1, 7, 16):
+    # Counts that divide one computed before are taken from it (its size computed 16).
+    for per_piece in (1, 7, 16, 2, 4, 8, 48, 24, 12, 6, 3):
         t = np.linspace(-1.0, 1.0, per_piece + 1)
         expected = np.concatenate([p.points(t)[:-1] for p in curve.pieces] + [[curve.end]])
         got = curve.sample(per_piece)

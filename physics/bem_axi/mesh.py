@@ -176,10 +176,15 @@ def _initial_intervals(curve: Curve, level: int) -> list[list[tuple[float, float
             edges = _equal_turning_edges(piece, max(n, 1), ELLIPSE_TURN_ANGLE, level)
             out.append([(float(edges[i]), float(edges[i + 1])) for i in range(len(edges) - 1)])
             continue
-        n = max(n, 1) * 2**level
-        edges = np.linspace(-1.0, 1.0, n + 1)
-        out.append([(float(edges[i]), float(edges[i + 1])) for i in range(n)])
+        out.append(list(_equal_intervals(max(n, 1) * 2**level)))
     return out
+
+
+@lru_cache(maxsize=64)
+def _equal_intervals(n: int) -> tuple[tuple[float, float], ...]:
+    """The ``n`` equal parameter intervals of [-1, 1] (edges by ``np.linspace``)."""
+    edges = np.linspace(-1.0, 1.0, n + 1).tolist()
+    return tuple(zip(edges[:-1], edges[1:], strict=True))
 
 
 def _equal_turning_edges(piece: EllipseArc, n_min: int, max_turn: float, level: int) -> np.ndarray:
@@ -276,11 +281,33 @@ def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 
 
 def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
-    """Points (n, 2) at the parameter midpoints of a curve's panels."""
+    """Points (n, 2) at the parameter midpoints of a curve's panels (the formulas of
+    :func:`_panel_coefs` and :func:`panel_geometry` at a panel's start, for one point each)."""
     _, piece_kind, piece_spec = _curve_pieces(curve)
     mid = 0.5 * (panels.t0 + panels.t1)
-    kind, coef = _panel_coefs(piece_kind, piece_spec, panels.piece, mid, mid)
-    return panel_geometry(kind, coef, np.full((len(mid), 1), -1.0))[0][:, 0, :]
+    kind = piece_kind[panels.piece]
+    sp = piece_spec[panels.piece]
+    out = np.empty((len(mid), 2))
+    seg = kind == KIND_SEGMENT
+    if seg.all():
+        m = mid[:, None]
+        return 0.5 * (1 - m) * sp[:, 0:2] + 0.5 * (1 + m) * sp[:, 2:4]
+    if seg.any():
+        m = mid[seg][:, None]
+        out[seg] = 0.5 * (1 - m) * sp[seg, 0:2] + 0.5 * (1 + m) * sp[seg, 2:4]
+    for k in (KIND_ARC, KIND_ELLIPSE):
+        sel = kind == k
+        if not sel.any():
+            continue
+        c = sp[sel]
+        ang = c[:, 3] + 0.5 * (mid[sel] + 1) * c[:, 4]
+        if k == KIND_ARC:  # (cr, cz, R, a0, sweep)
+            out[sel, 0] = c[:, 0] + c[:, 2] * np.cos(ang)
+            out[sel, 1] = c[:, 1] + c[:, 2] * np.sin(ang)
+        else:  # (cz, a, b, u0, span)
+            out[sel, 0] = c[:, 1] * np.cos(ang)
+            out[sel, 1] = c[:, 0] + c[:, 2] * np.sin(ang)
+    return out
 
 
 def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
@@ -337,11 +364,10 @@ def build_mesh(
 
 def _piece_ends(piece: np.ndarray) -> tuple[dict[int, int], dict[int, int]]:
     """Index of the first and of the last panel of every piece in ``piece`` (sorted, (P,))."""
-    ids, first, counts = np.unique(piece, return_index=True, return_counts=True)
-    return (
-        dict(zip(ids.tolist(), first.tolist(), strict=True)),
-        dict(zip(ids.tolist(), (first + counts - 1).tolist(), strict=True)),
-    )
+    first = np.flatnonzero(np.diff(piece, prepend=-1))
+    ids = piece[first].tolist()
+    last = np.append(first[1:], len(piece)) - 1
+    return dict(zip(ids, first.tolist(), strict=True)), dict(zip(ids, last.tolist(), strict=True))
 
 
 def _graded_edges(a: float, b: float, at_end: bool, times: int, ratio: float) -> list[float]:
@@ -490,13 +516,11 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
         if layout.ground_plane:
             others += [s * np.array([1.0, -1.0]) for s in samples]
         if others:
-            cloud = np.concatenate(others)
+            cloud_r, cloud_z = np.concatenate(others).T.copy()  # contiguous columns
             for _ in range(40):
                 lengths = _curve_lengths(curve, panels)
                 centres = _curve_midpoints(curve, panels)
-                gap2 = (centres[:, None, 0] - cloud[None, :, 0]) ** 2 + (
-                    centres[:, None, 1] - cloud[None, :, 1]
-                ) ** 2
+                gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
                 bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
                 if not bad.any():
                     break
@@ -521,8 +545,10 @@ def _assemble_mesh(
     at_corner = np.zeros(len(piece), dtype=bool)
     for k, at_end in base.corner_ends:
         at_corner[last[k] if at_end else first[k]] = True
-    tau = np.broadcast_to(xg, (len(kind_a), order))
+    # The nodes and, last, the centre (tau = 0) of every panel in one call.
+    tau = np.broadcast_to(np.append(xg, 0.0), (len(kind_a), order + 1))
     pts, der = panel_geometry(kind_a, coef_a, tau)
+    center, pts, der = pts[:, order], pts[:, :order], der[:, :order]
     jac = np.linalg.norm(der, axis=-1)
     tang = der / jac[..., None]
     sgn = base.signs[conductor_a][:, None, None]
@@ -534,7 +560,6 @@ def _assemble_mesh(
     first_of = np.searchsorted(conductor_a, conductor_a)
     arc_start = ends - length - np.where(first_of > 0, ends[first_of - 1], 0.0)
     arc = arc_start[:, None] + 0.5 * (xg + 1.0) * length[:, None]
-    center, _ = panel_geometry(kind_a, coef_a, np.zeros((len(kind_a), 1)))
     return AxiMesh(
         order=order,
         level=level,
@@ -542,7 +567,7 @@ def _assemble_mesh(
         kind=kind_a,
         coef=coef_a,
         length_m=length,
-        center_m=center[:, 0, :],
+        center_m=center,
         at_corner=at_corner,
         points_m=pts.reshape(-1, 2),
         tangents=tang.reshape(-1, 2),

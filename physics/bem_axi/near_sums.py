@@ -17,11 +17,13 @@ from numba import njit
 
 from elopt.physics.bem_axi.ring_sums import (
     foot_points,
+    graded_piece,
     lagrange_sums,
     near_rows,
     node_rows,
     ring_m1_scale,
-    subrule_points,
+    straight_jac,
+    subrule_point,
 )
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
@@ -126,12 +128,13 @@ def _potential_params(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
     pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel, negated at tau = x_k
-    (the node rule the far sum holds, taken out), then the points of
-    :func:`ring_sums.subrule_points`."""
+    (the node rule the far sum holds, taken out), then the points of the graded sub-rule of
+    :func:`ring_sums.subrule_points`, computed here in the same order and by the same formulas
+    without its point arrays (half the time)."""
     p = x.shape[0]
+    nq = xq.shape[0]
     total = start[b1] - start[b0]
     m1, scale, tau_out = np.empty(total), np.empty(total), np.empty(total)
-    rs, zs, wt = np.empty(total), np.empty(total), np.empty(total)
     sgn = -1.0 if mirror else 1.0
     for b in range(b0, b1):
         e = start[b] - start[b0]
@@ -141,9 +144,21 @@ def _potential_params(
             m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
             tau_out[e] = x[k]
             e += 1
-        e1 = subrule_points(kd[b], cf[b], tau_c[b], levels[b], xq, wq, rs, zs, wt, tau_out, e)
-        for g in range(e, e1):
-            m1[g], scale[g] = ring_m1_scale(t_r, t_z, rs[g], sgn * zs[g], rs[g] * wt[g])
+        kind, c, tc, lv = kd[b], cf[b], tau_c[b], levels[b]
+        jac = straight_jac(kind, c)
+        for side in (1.0, -1.0):
+            span = 1.0 - tc if side > 0 else tc + 1.0
+            if span <= 0.0:
+                continue
+            for k in range(lv):
+                mid, half = graded_piece(k, lv, span)
+                for q in range(nq):
+                    t = tc + side * (mid + half * xq[q])
+                    rs, zs, jac = subrule_point(kind, c, t, jac)
+                    factor = rs * (wq[q] * half * jac)
+                    m1[e], scale[e] = ring_m1_scale(t_r, t_z, rs, sgn * zs, factor)
+                    tau_out[e] = t
+                    e += 1
     return m1, scale, tau_out
 
 

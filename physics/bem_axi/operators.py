@@ -22,7 +22,7 @@ from elopt.physics.bem_axi.ring_sums import (
     potential_sum,
     self_rows,
 )
-from elopt.physics.quadrature import barycentric_weights, gauss_legendre, log_product_weights
+from elopt.physics.quadrature import barycentric_weights, end_log_weights, gauss_legendre
 
 #: A panel is "near" a target closer than at least this many panel lengths (lower bound).
 NEAR_FACTOR = 1.0
@@ -169,7 +169,7 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     x, _ = gauss_legendre(p)
     xq, _ = gauss_legendre(_rule_order(p))
     wq = gauss_legendre(_rule_order(p))[1]
-    logw_end = log_product_weights(np.array([-1.0]), len(xq))[0]
+    logw_end = end_log_weights(len(xq))
     tgt = mesh.points_m
     panel = np.repeat(np.arange(mesh.n_panels), p)
     ratio = 2.0 * mesh.length_m[panel] / np.maximum(tgt[:, 0], 1e-300)

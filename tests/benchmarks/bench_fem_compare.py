@@ -99,6 +99,35 @@ near-idle machine (3 Dec 2026 05:17, load 1.1-1.3), ``--repeats 9 --before`` (ma
     sharp, 0.5 mm             8.07 -> 6.48              58.8       7.3x ->  9.1x
 
 The 30x target is not met.
+
+3 Dec 2026 06:40, ``--repeats 9 --stages --before`` (main's package at d11f2b6 against the
+axifast branch: the per-level cost only; meshes, densities and C bit for bit main's on the
+16 layouts compared (guarded probes at 1e-3 - 1e-6, a sphere over the plane, a spheroid with
+a floating disk in an applied field, coaxial disks); near and self rules' sub-rule
+points computed where used, straight panels' length element once per panel; curve hashes,
+samples, arc ends and end tangents computed once; the gap test's midpoints and the meshes'
+panel centres without a general geometry pass; the self-intersection check's candidate pairs
+by r-overlap first), one run, ``uptime`` load average 1.5 at start and 1.6 at end (other
+helpers' runs beside it), CPU ms, medians:
+
+    probe                     BEM cpu before -> after   FEM cpu   FEM/BEM cpu
+    filleted 0.05 mm, 0.2 mm  4.89 -> 3.88              70.4      14.4x -> 18.1x
+    sharp, 0.5 mm             6.34 -> 5.58              58.6       9.2x -> 10.5x
+
+Unknowns (104 + 208, 148 + 344), errors and estimates unchanged. Per solve after (--stages,
+CPU ms), sharp probe: layout 0.49, level-0 grading 0.34, meshes 0.12 + 0.22, far sums
+0.13 + 0.63, self panels 0.10 + 0.19, near panels 0.44 + 0.78, LU and solve 0.21 + 1.16
+(getrf and getrs of N = 344 alone: 0.88; a float32 LU with float64 refinement was slower and
+stalls at 1.5e-12 of the solution, the matrix's condition number being 1.1e5); filleted:
+layout 0.70, grading 0.47, meshes 0.14 + 0.16. The compiled passes are near their cost per
+kernel value (far sum 5 ns per pair; the near rules' points and scales 5 ns per evaluation,
+18 ns with the logarithm, K, the Lagrange rows and the pair search); what remains is the
+level pair's size and the Python of layout and meshes (stages of this first run). Re-runs:
+06:48 (the gap test's contiguous columns added; load 2.6 at start and end): filleted 4.86 ->
+3.82 ms (14.5x -> 18.4x), sharp 6.27 -> 5.53 ms (9.2x -> 10.4x); 06:50 on the final code
+(the Lagrange moments at four nodes in registers added; load 1.5 -> 1.8): filleted 4.88 ->
+3.84 ms (14.3x -> 18.2x), sharp 6.32 -> 5.43 ms (9.3x -> 10.8x; near panels 0.40 + 0.73).
+The 30x target is not met.
 """
 
 from __future__ import annotations
