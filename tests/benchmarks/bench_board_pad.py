@@ -100,27 +100,27 @@ of C[pad, pad] 9.8e-4 / 8.4e-4 / 8.4e-4, all met (over every entry 2.0e-3 / 7.5e
 The compressed layered path's 1 % at level 3 (3 Dec 2026): its cross approximation stopped at
 the first small cross, which left blocks of the finger's rows and columns up to 20 times their
 tolerance off (the pivot rows missed part of the block; not the admissibility: the worst block
-was well separated). It now ends after two small crosses in a row confirmed by the residuals at
-32 sampled entries (hmatrix.ACA_CONFIRM, ACA_CHECK_ENTRIES; tests/test_bem3d_layers_aca.py).
-The touch solve at 1e-3, levels 2 (dense on orbits) and 3 (46,720 panels, compressed), main
-d11f2b6 then this code, each after a warm-up that compiled its kernels, one sitting (load
-2.8-3.4), against level 3 solved densely (pF):
+was well separated). A small cross now ends it only when the residuals at 32 sampled entries
+confirm it (hmatrix.ACA_CHECK_ENTRIES; tests/test_bem3d_layers_aca.py). The touch solve at
+1e-3, levels 2 (dense on orbits) and 3 (46,720 panels, compressed), against level 3 solved
+densely (pF); main d11f2b6 07:10 (load 2.8) and 07:29-07:30 (load 0.8-1.4, two runs), this
+code 07:27 (load 1.3), each after a warm-up that compiled its kernels:
 
-                          main d11f2b6   now        dense level 3
-    C[target, target]     1.60960        1.59440    1.59437
-    C[target, pad]        -0.30512       -0.29957   -0.29957
-    C[pad, target]        -0.30045       -0.29963   -0.29959
-    C[pad, pad]           5.90729        5.90680    5.90663
-    estimate, every entry 1.1e-2         7.8e-4     (from levels 2-3)
-    level 3 setup / GMRES 24.8 / 16.4 s  31.9 / 16.6 s (wall)
-    GMRES iterations      49/64/34       50/64/34   (per column)
-    process CPU, peak     47.6 s, 746 MB 54.8 s, 751 MB
+                          main d11f2b6        now        dense level 3
+    C[target, target]     1.60960             1.59441    1.59437
+    C[target, pad]        -0.30512            -0.29960   -0.29957
+    C[pad, target]        -0.30045            -0.29962   -0.29959
+    C[pad, pad]           5.90729             5.90674    5.90663
+    estimate, every entry 1.1e-2              8.2e-4     (from levels 2-3)
+    level 3 setup, wall   24.8 / 13.9 s       16.8 s     (load 2.8 / 1.4; 1.3)
+    GMRES iterations      49/64/34            50/64/34   (per column)
+    process CPU           47.6 / 51.1 / 45.1 s  49.7 s
+    peak resident memory  746 / 810 / 746 MB    751 MB
 
 ``--max-level 2`` (dense levels; the peak search's sums compressed), main and now alternately
-in the same sitting (load 2.9-3.7): 16.2 / 16.5 s CPU before, 17.3 / 16.3 s after, 449 MB
-all four (wall 12.1 / 16.6 s and 16.7 / 12.5 s); the same estimates and metrics. The
-guarded-pad demo (bench_bem3d.py --pad-only, homogeneous compressed path) in the same runs:
-11.4 / 11.4 s CPU before, 14.9 / 14.9 s after, 284 / 285 MB, the same true error.
+in one sitting (07:29-07:31, load 0.9-1.5): 16.2 / 16.3 s CPU, 9.6 / 9.7 s wall before,
+16.2 / 16.1 s CPU, 9.6 / 9.5 s wall after, 449-450 MB all four; the same estimates and
+metrics. The guarded-pad demo pays 2.5 s of CPU for the check (bench_bem3d.py).
 """
 
 from __future__ import annotations
