@@ -74,7 +74,9 @@ Lead, 3 Dec 2026 07:50 (load 1.1-1.3), main c607c80 (the cross's rows and column
 inline helper ``_block_entry``) and the same with the entry and its mirror terms spelled out
 in those loops (the code now), alternately: 7.4 / 7.4 s wall, 12.5 / 12.4 s CPU, 285 MB
 before; 6.5 / 6.5 s, 10.8 / 10.8 s, 284 MB after; the same estimate (6.4e-4) and true error
-(2.2e-4). Most of the 2.5 s above was the helper, not the check.
+(2.2e-4). A second sitting at 07:56 (load 1.5), c607c80 against the code now, alternately:
+7.7 / 7.8 s wall, 12.8 / 12.9 s CPU before; 6.9 / 6.9 s, 11.2 / 11.2 s after, 285 MB all
+four. Most of the 2.5 s above was the helper, not the check.
 
     python tests/benchmarks/bench_bem3d.py --pad-only            # Part 3 alone
     python tests/benchmarks/bench_bem3d.py --pad-only --before   # with the previous mesh
