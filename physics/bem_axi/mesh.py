@@ -343,23 +343,31 @@ def build_mesh(
     edges = base.t0[:, None] + (base.t1 - base.t0)[:, None] * frac  # (M, 2**level + 1)
     piece = np.repeat(base.piece, 2**level)
     t0, t1 = edges[:, :-1].ravel(), edges[:, 1:].ravel()
-    steps = rule.steps_per_level * level
-    if steps and base.corner_ends:
-        first, last = _piece_ends(piece)
-        drop, extra = [], []
-        for k, at_end in base.corner_ends:
-            j = last[k] if at_end else first[k]
-            cuts = _graded_edges(float(t0[j]), float(t1[j]), at_end, steps, rule.grade_ratio)
-            drop.append(j)
-            extra.append((np.full(len(cuts) - 1, k), cuts[:-1], cuts[1:]))
-        keep = np.ones(len(piece), dtype=bool)
-        keep[drop] = False
-        piece = np.concatenate([piece[keep]] + [e[0] for e in extra])
-        t0 = np.concatenate([t0[keep]] + [np.asarray(e[1]) for e in extra])
-        t1 = np.concatenate([t1[keep]] + [np.asarray(e[2]) for e in extra])
-        order_ = np.lexsort((t0, piece))
-        piece, t0, t1 = piece[order_], t0[order_], t1[order_]
+    piece, t0, t1 = _grade_corners(base, piece, t0, t1, rule.steps_per_level * level, rule)
     return _assemble_mesh(layout, base, piece, t0, t1, level, order)
+
+
+def _grade_corners(
+    base: _BasePanels, piece: np.ndarray, t0: np.ndarray, t1: np.ndarray, steps: int, rule: MeshRule
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Panels (piece, t0, t1; each (M,), sorted by piece and parameter) with the panel at each
+    of ``base``'s singular corners cut ``steps`` times towards it (``rule.grade_ratio``)."""
+    if not steps or not base.corner_ends:
+        return piece, t0, t1
+    first, last = _piece_ends(piece)
+    drop, extra = [], []
+    for k, at_end in base.corner_ends:
+        j = last[k] if at_end else first[k]
+        cuts = _graded_edges(float(t0[j]), float(t1[j]), at_end, steps, rule.grade_ratio)
+        drop.append(j)
+        extra.append((np.full(len(cuts) - 1, k), cuts[:-1], cuts[1:]))
+    keep = np.ones(len(piece), dtype=bool)
+    keep[drop] = False
+    piece = np.concatenate([piece[keep]] + [e[0] for e in extra])
+    t0 = np.concatenate([t0[keep]] + [np.asarray(e[1]) for e in extra])
+    t1 = np.concatenate([t1[keep]] + [np.asarray(e[2]) for e in extra])
+    order = np.lexsort((t0, piece))
+    return piece[order], t0[order], t1[order]
 
 
 def _piece_ends(piece: np.ndarray) -> tuple[dict[int, int], dict[int, int]]:

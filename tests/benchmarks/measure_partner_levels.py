@@ -88,7 +88,7 @@ from elopt.physics.bem_axi.solve import (  # noqa: E402
 )
 from elopt.physics.electrodes.guarded_disk import GuardedDisk  # noqa: E402
 from elopt.physics.layout import Layout  # noqa: E402
-from elopt.physics.quadrature import barycentric_weights, gauss_legendre  # noqa: E402
+from elopt.physics.quadrature import lagrange_matrix  # noqa: E402
 from elopt.physics.refinement import (  # noqa: E402
     Convergence,
     LevelPlan,
@@ -110,18 +110,7 @@ def partner_mesh(layout: Layout, halve: np.ndarray, steps: int, order: int):
     singular corner, ``order`` nodes per panel (the mesh says level ``steps``)."""
     base = axi_mesh._base_panels(layout, RULE)
     panels = axi_mesh._CurvePanels(base.piece, base.t0, base.t1).split(halve)
-    piece, t0, t1 = panels.piece, panels.t0.copy(), panels.t1.copy()
-    if base.corner_ends:
-        first, last = axi_mesh._piece_ends(piece)
-        for k, at_end in base.corner_ends:
-            j = last[k] if at_end else first[k]
-            cuts = axi_mesh._graded_edges(
-                float(t0[j]), float(t1[j]), at_end, steps, RULE.grade_ratio
-            )
-            piece = np.concatenate([piece[:j], np.full(len(cuts) - 1, k), piece[j + 1 :]])
-            t0 = np.concatenate([t0[:j], cuts[:-1], t0[j + 1 :]])
-            t1 = np.concatenate([t1[:j], cuts[1:], t1[j + 1 :]])
-            first, last = axi_mesh._piece_ends(piece)
+    piece, t0, t1 = axi_mesh._grade_corners(base, panels.piece, panels.t0, panels.t1, steps, RULE)
     return axi_mesh._assemble_mesh(layout, base, piece, t0, t1, steps, order)
 
 
@@ -129,12 +118,7 @@ def jump_marks(theta: float) -> Callable:
     """Doerfler marking of level 0's panels by the density jumps at their ends."""
 
     def marks(layout: Layout, mesh0, level0) -> np.ndarray:
-        x, _ = gauss_legendre(ORDER)
-        bw = barycentric_weights(ORDER)
-        ends = []
-        for t in (-1.0, 1.0):
-            w = bw / (t - x)
-            ends.append(w / w.sum())
+        ends = lagrange_matrix(np.array([-1.0, 1.0]), ORDER)
         sig = level0.sigma_unit.reshape(mesh0.n_panels, ORDER, -1)
         start, end = (np.einsum("k,pkn->pn", w, sig) for w in ends)
         base = axi_mesh._base_panels(layout, RULE)
