@@ -13,6 +13,7 @@ Curves are immutable values; every piece has a constant-speed parametrisation
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -263,13 +264,13 @@ class Curve:
 
     def _sample(self, per_piece: int) -> np.ndarray:
         # Segments and arcs of every piece at once, by the formulas of their points().
-        t = np.linspace(-1.0, 1.0, per_piece + 1)[:-1]
+        t, before, after = _chord_parameters(per_piece)
         out = np.empty((len(self.pieces), per_piece, 2))
         seg, a, b, arc, spec, other, end = self._piece_table
         if seg:
-            out[seg] = 0.5 * (1 - t)[None, :, None] * a + 0.5 * (1 + t)[None, :, None] * b
+            out[seg] = before[None, :, None] * a + after[None, :, None] * b
         if arc:
-            ang = spec[:, 3:4] + 0.5 * (t + 1)[None, :] * spec[:, 4:5]
+            ang = spec[:, 3:4] + after[None, :] * spec[:, 4:5]
             out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
                 [np.cos(ang), np.sin(ang)], axis=-1
             )
@@ -305,6 +306,22 @@ class Curve:
                 out.append(Corner(self.end, n - 1, True, 0.0))
         return tuple(out)
 
+    @cached_property
+    def _outline_box(self) -> tuple[float, float, float, float] | None:
+        """(r_lo, z_lo, r_hi, z_hi) around the curve, widened (see outside_outline_box)."""
+        r, z = [], []
+        for p in self.pieces:
+            if isinstance(p, Segment):
+                r += (p.start[0], p.end[0])
+                z += (p.start[1], p.end[1])
+            elif isinstance(p, Arc):
+                r += (p.center[0] - p.radius, p.center[0] + p.radius)
+                z += (p.center[1] - p.radius, p.center[1] + p.radius)
+            else:
+                return None
+        margin = 1e-6 * self.size
+        return min(r) - margin, min(z) - margin, max(r) + margin, max(z) + margin
+
     def validate(self, name: str) -> None:
         """Raise GeometryError naming ``name`` if the curve crosses the axis or itself."""
         pts = self.sample(16)
@@ -329,6 +346,18 @@ class Curve:
                 f"conductor '{name}': the generating curve intersects itself near "
                 f"(r, z) = ({hit[0]:.6g}, {hit[1]:.6g}) m"
             )
+
+
+@functools.cache
+def _chord_parameters(per_piece: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Parameters t (per_piece,) of :meth:`Curve.sample`'s points on a piece (its end left
+    to the next piece), and the point formulas' weights 0.5 (1 - t) and 0.5 (1 + t); read-only,
+    computed once per count."""
+    t = np.linspace(-1.0, 1.0, per_piece + 1)[:-1]
+    out = (t, 0.5 * (1 - t), 0.5 * (1 + t))
+    for x in out:
+        x.flags.writeable = False
+    return out
 
 
 def _end_tangent(piece, at_end: bool) -> np.ndarray:
@@ -361,21 +390,21 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
 
     Only pairs of chords whose bounding boxes (widened by the touching tolerance) overlap can
     cross or touch; the exact tests run on those pairs alone."""
-    chords = np.stack([pts[:-1], pts[1:]], axis=1)
-    m = len(chords)
-    tol = 1e-9 * float(np.max(np.ptp(pts, axis=0)))
-    lo = chords.min(axis=1) - tol
-    hi = chords.max(axis=1) + tol
+    m = len(pts) - 1
+    tol = 1e-9 * float(np.max(pts.max(axis=0) - pts.min(axis=0)))
+    r, z = pts[:, 0], pts[:, 1]
+    lo_r, hi_r = np.minimum(r[:-1], r[1:]) - tol, np.maximum(r[:-1], r[1:]) + tol
+    lo_z, hi_z = np.minimum(z[:-1], z[1:]) - tol, np.maximum(z[:-1], z[1:]) + tol
     # Pairs overlapping in r first (row-major, the order of np.triu_indices), then in z and
     # at least two chords apart: the boxes' test on the few pairs left.
-    lo_r, hi_r = lo[:, 0].copy(), hi[:, 0].copy()
     i, j = np.divmod(np.flatnonzero((lo_r[:, None] <= hi_r) & (lo_r <= hi_r[:, None])), m)
-    keep = (j >= i + 2) & (lo[i, 1] <= hi[j, 1]) & (lo[j, 1] <= hi[i, 1])
+    keep = (j >= i + 2) & (lo_z[i] <= hi_z[j]) & (lo_z[j] <= hi_z[i])
     if closed and m > 2:
         keep &= (i != 0) | (j != m - 1)
     i, j = i[keep], j[keep]
     if len(i) == 0:
         return None
+    chords = np.stack([pts[:-1], pts[1:]], axis=1)
     bad = _chords_cross(chords[i], chords[j])
     a, d = chords[:, 0], chords[:, 1] - chords[:, 0]
     length2 = np.maximum(np.einsum("kc,kc->k", d, d), 1e-300)
@@ -430,6 +459,20 @@ def point_in_region(points: np.ndarray, outline: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         xc = x0 + (y - y0) * (x1 - x0) / (y1 - y0)
     return np.sum(straddle & (x < xc), axis=1) % 2 == 1
+
+
+def outside_outline_box(curve: Curve, point: Sequence[float]) -> bool:
+    """True when ``point`` (r, z) lies outside a box around every point of ``curve`` (its
+    segments' ends, its arcs' centres +- radius), widened by 1e-6 of the curve's size; False
+    when it may lie inside or the curve has other pieces. Outside, :func:`point_in_region`
+    against :func:`closed_outline` is False too: the box holds the outline's vertices, and a
+    ray from beyond them crosses the closed outline an even number of times (or none), which
+    the widening keeps true under rounding."""
+    box = curve._outline_box
+    if box is None:
+        return False
+    r, z = float(point[0]), float(point[1])
+    return r < box[0] or z < box[1] or r > box[2] or z > box[3]
 
 
 def closed_outline(curve: Curve) -> np.ndarray | None:

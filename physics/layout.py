@@ -26,7 +26,13 @@ from typing import Any
 import numpy as np
 
 from elopt.physics.errors import GeometryError
-from elopt.physics.geometry import Curve, closed_outline, point_in_region, polyline_distance
+from elopt.physics.geometry import (
+    Curve,
+    closed_outline,
+    outside_outline_box,
+    point_in_region,
+    polyline_distance,
+)
 from elopt.physics.media import DielectricRegion, LayerStack, PlanarLayer
 
 EPS0_F_PER_M = 8.8541878128e-12
@@ -179,6 +185,8 @@ def _check_apart(a: Conductor, pa: np.ndarray, b: Conductor, pb: np.ndarray) -> 
                 "apart"
             )
     for inner, pin, outer in ((a, pa, b), (b, pb, a)):
+        if outside_outline_box(outer.shape, pin[0]):
+            continue
         outline = closed_outline(outer.shape)
         if outline is not None and point_in_region(pin[:1], outline)[0]:
             raise GeometryError(
