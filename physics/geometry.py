@@ -390,18 +390,10 @@ def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, floa
 
     Only pairs of chords whose bounding boxes (widened by the touching tolerance) overlap can
     cross or touch; the exact tests run on those pairs alone."""
-    m = len(pts) - 1
+    from elopt.physics.chord_pairs import overlapping_pairs  # compiled: loaded on first use
+
     tol = 1e-9 * float(np.max(pts.max(axis=0) - pts.min(axis=0)))
-    r, z = pts[:, 0], pts[:, 1]
-    lo_r, hi_r = np.minimum(r[:-1], r[1:]) - tol, np.maximum(r[:-1], r[1:]) + tol
-    lo_z, hi_z = np.minimum(z[:-1], z[1:]) - tol, np.maximum(z[:-1], z[1:]) + tol
-    # Pairs overlapping in r first (row-major, the order of np.triu_indices), then in z and
-    # at least two chords apart: the boxes' test on the few pairs left.
-    i, j = np.divmod(np.flatnonzero((lo_r[:, None] <= hi_r) & (lo_r <= hi_r[:, None])), m)
-    keep = (j >= i + 2) & (lo_z[i] <= hi_z[j]) & (lo_z[j] <= hi_z[i])
-    if closed and m > 2:
-        keep &= (i != 0) | (j != m - 1)
-    i, j = i[keep], j[keep]
+    i, j = overlapping_pairs(pts, tol, closed)
     if len(i) == 0:
         return None
     chords = np.stack([pts[:-1], pts[1:]], axis=1)
