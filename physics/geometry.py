@@ -499,27 +499,31 @@ def rounded_polyline(
     so that every fillet up to the limit builds. A fillet arc shorter than the curves' join
     tolerance is left a sharp corner.
     """
-    v = [np.asarray(p, dtype=float) for p in vertices]
+    # Plain floats for the elementwise arithmetic (the same IEEE operations as numpy's on the
+    # 2-vectors); lengths, dot products and tangents stay numpy's (BLAS's dot rounds
+    # differently from the written-out sum), so that the pieces are the same to the bit.
+    v = [(float(p[0]), float(p[1])) for p in vertices]
     if len(v) < 2:
         raise GeometryError(f"{name}: needs at least two vertices")
     if fillet_radius < 0 or not math.isfinite(fillet_radius):
         raise GeometryError(
             f"{name}: fillet radius must be finite and >= 0, got {float(fillet_radius):.6g} m"
         )
-    extent = float(np.max(np.ptp(np.asarray(v), axis=0)))
+    extent = max(max(p[c] for p in v) - min(p[c] for p in v) for c in (0, 1))
     n = len(v)
-    edge = [v[k + 1] - v[k] for k in range(n - 1)]
-    lengths = np.array([float(np.linalg.norm(e)) for e in edge])
+    edge = np.array([(v[k + 1][0] - v[k][0], v[k + 1][1] - v[k][1]) for k in range(n - 1)])
+    lengths = np.array([math.sqrt(e.dot(e)) for e in edge])
     for k in range(n - 1):
         if lengths[k] == 0:
             raise GeometryError(
                 f"{name}: two consecutive corners repeat the point {format_point(v[k])}"
             )
-    units = [e / ln for e, ln in zip(edge, lengths, strict=True)]
+    unit_array = edge / lengths[:, None]
+    units = unit_array.tolist()
     turns = np.zeros(n)
     for k in range(1, n - 1):
-        u1, u2 = units[k - 1], units[k]
-        turns[k] = math.atan2(u1[0] * u2[1] - u1[1] * u2[0], float(u1 @ u2))
+        (a0, a1), (b0, b1) = units[k - 1], units[k]
+        turns[k] = math.atan2(a0 * b1 - a1 * b0, float(unit_array[k - 1] @ unit_array[k]))
     rounded = (np.abs(turns) >= 1e-12) & (
         fillet_radius * np.abs(turns) > 16 * JOIN_TOLERANCE * extent
     )
@@ -532,22 +536,29 @@ def rounded_polyline(
                 f"{name}: fillets of radius {fillet_radius:.6g} m overlap on the edge from "
                 f"{format_point(v[k])} to {format_point(v[k + 1])} (length {lengths[k]:.6g} m)"
             )
+    back, turn, is_rounded = backs.tolist(), turns.tolist(), rounded.tolist()
+    tangent_list = tangent.tolist()
     pieces: list[Piece] = []
     prev = v[0]
     for k in range(1, n):
-        p_in = v[k] - backs[k] * units[k - 1] if k < n - 1 else v[k]
-        if np.linalg.norm(p_in - prev) > JOIN_TOLERANCE * extent:
-            pieces.append(Segment(tuple(prev), tuple(p_in)))
-        if k == n - 1 or not rounded[k]:
+        p_in = v[k]
+        if k < n - 1:
+            u = units[k - 1]
+            p_in = (p_in[0] - back[k] * u[0], p_in[1] - back[k] * u[1])
+        step = np.array((p_in[0] - prev[0], p_in[1] - prev[1]))
+        if math.sqrt(step.dot(step)) > JOIN_TOLERANCE * extent:
+            pieces.append(Segment(prev, p_in))
+        if k == n - 1 or not is_rounded[k]:
             prev = p_in
             continue
-        radius = backs[k] / tangent[k]
+        radius = back[k] / tangent_list[k]
         u1 = units[k - 1]
-        normal = np.array([-u1[1], u1[0]]) * math.copysign(1.0, turns[k])
-        center = p_in + radius * normal
+        side = math.copysign(1.0, turn[k])
+        center = (p_in[0] + radius * (-u1[1] * side), p_in[1] + radius * (u1[0] * side))
         a0 = math.atan2(p_in[1] - center[1], p_in[0] - center[0])
-        pieces.append(Arc((center[0], center[1]), radius, a0, a0 + turns[k]))
-        prev = v[k] + backs[k] * units[k]
+        pieces.append(Arc(center, radius, a0, a0 + turn[k]))
+        u2 = units[k]
+        prev = (v[k][0] + back[k] * u2[0], v[k][1] + back[k] * u2[1])
     return Curve(tuple(pieces))
 
 
