@@ -352,7 +352,7 @@ def test_warnings_before_a_refusal_stay_off_the_error_line(capsys, monkeypatch, 
 def test_a_nanometre_guard_gap_is_refused_before_any_solve():
     p = GuardedDiskParams(2.0, 1e-6, 1.5, 1.0, 0.1, 0.5, 10.0)
     t0 = time.perf_counter()
-    with pytest.raises(ElectrodeError, match="2408 unknowns, more than 2000"):
+    with pytest.raises(ElectrodeError, match="2368 unknowns, more than 2000"):
         GuardedDisk().evaluate(p, rel_accuracy=1e-3)
     assert time.perf_counter() - t0 < 20.0  # one level-0 mesh, no solve
 

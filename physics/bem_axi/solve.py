@@ -53,8 +53,8 @@ COARSE_REQUEST = 1e-4
 #: unknowns (filleted) and 148 + 344 (sharp) against 132 + 264 and 196 + 440 with COARSE_RULE,
 #: the level-1 error 0.15-0.65 times the change that estimates it; the published cases pass the
 #: honesty tests with it (tests/test_error_estimate_honesty_coarse.py, *_loose.py). Dielectric
-#: solves keep COARSE_RULE (not measured with this one), and so does the families' check of the
-#: level-0 size (electrodes.solvers.check_coarse_mesh, whose refusal message a test quotes).
+#: solves keep COARSE_RULE (not measured with this one); the families' check of the level-0
+#: size (electrodes.solvers.check_coarse_mesh) takes this rule, as the solve after it does.
 CONDUCTOR_COARSE_RULE = MeshRule(
     corner_steps=2, steps_per_level=1, grade_ratio=8.0, balance_ratio=8.0
 )
