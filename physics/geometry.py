@@ -385,15 +385,47 @@ def _chords_cross(p: np.ndarray, q: np.ndarray) -> np.ndarray:
     return (o1 * o2 < 0) & (o3 * o4 < 0)
 
 
+def _overlapping_chord_pairs(
+    pts: np.ndarray, tol: float, closed: bool
+) -> tuple[np.ndarray, np.ndarray]:
+    """Chords (i, i + 1) and (j, j + 1) of the polyline ``pts`` (M, 2), i < j and at least two
+    apart, whose bounding boxes widened by ``tol`` overlap, in row-major order (i, then j);
+    ``closed``: the first and the last chord are neighbours too (more than two chords).
+    Returns i and j (K,) int64.
+
+    A sweep along r instead of all m^2 pairs (a 144-chord guard ring: 78 -> 25 us): with the
+    chords sorted by their lower r, a chord's r-range meets exactly those later in that order
+    whose lower r is at most its upper r (theirs reach past its lower r already)."""
+    r, z = pts[:, 0], pts[:, 1]
+    lo_r, hi_r = np.minimum(r[:-1], r[1:]) - tol, np.maximum(r[:-1], r[1:]) + tol
+    m = len(lo_r)
+    by_lo = np.argsort(lo_r, kind="stable")
+    ends = np.searchsorted(lo_r[by_lo], hi_r[by_lo], side="right")
+    count = np.maximum(ends - np.arange(m) - 1, 0)  # later partners per sorted position
+    total = int(count.sum())
+    none = np.empty(0, np.int64)
+    if total == 0:
+        return none, none
+    first = np.repeat(np.arange(m), count)
+    second = np.arange(total) - np.repeat(np.cumsum(count) - count, count) + first + 1
+    a, b = by_lo[first], by_lo[second]
+    i, j = np.minimum(a, b), np.maximum(a, b)
+    lo_z, hi_z = np.minimum(z[:-1], z[1:]) - tol, np.maximum(z[:-1], z[1:]) + tol
+    keep = (j >= i + 2) & (lo_z[i] <= hi_z[j]) & (lo_z[j] <= hi_z[i])
+    if closed and m > 2:
+        keep &= (i != 0) | (j != m - 1)
+    i, j = i[keep].astype(np.int64), j[keep].astype(np.int64)
+    row_major = np.lexsort((j, i))
+    return i[row_major], j[row_major]
+
+
 def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, float] | None:
     """A point where two non-adjacent chords of the polyline cross or touch, else None.
 
     Only pairs of chords whose bounding boxes (widened by the touching tolerance) overlap can
     cross or touch; the exact tests run on those pairs alone."""
-    from elopt.physics.chord_pairs import overlapping_pairs  # compiled: loaded on first use
-
     tol = 1e-9 * float(np.max(pts.max(axis=0) - pts.min(axis=0)))
-    i, j = overlapping_pairs(pts, tol, closed)
+    i, j = _overlapping_chord_pairs(pts, tol, closed)
     if len(i) == 0:
         return None
     chords = np.stack([pts[:-1], pts[1:]], axis=1)

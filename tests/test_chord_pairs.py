@@ -1,5 +1,5 @@
-"""The compiled chord-pair search of the self-intersection check against all pairs compared
-by numpy (the boxes' overlap test written out), on random polylines."""
+"""The self-intersection check's chord-pair search (a sweep along r) against all pairs
+compared (the boxes' overlap test written out), on random polylines."""
 
 from __future__ import annotations
 
@@ -7,7 +7,6 @@ import numpy as np
 import pytest
 
 from elopt.physics import geometry as geo
-from elopt.physics.chord_pairs import overlapping_pairs
 
 
 def all_pairs(pts: np.ndarray, tol: float, closed: bool) -> tuple[np.ndarray, np.ndarray]:
@@ -23,13 +22,16 @@ def all_pairs(pts: np.ndarray, tol: float, closed: bool) -> tuple[np.ndarray, np
 
 @pytest.mark.parametrize("seed", range(6))
 @pytest.mark.parametrize("closed", [False, True])
-def test_pairs_match_the_all_pairs_comparison(seed, closed):
+@pytest.mark.parametrize("grid", [False, True])
+def test_pairs_match_the_all_pairs_comparison(seed, closed, grid):
     rng = np.random.default_rng(seed)
     pts = np.cumsum(rng.standard_normal((40 + 30 * seed, 2)), axis=0)
+    if grid:  # vertices on whole r: equal r-ranges, vertical chords
+        pts[:, 0] = np.round(pts[:, 0])
     if closed:
         pts[-1] = pts[0]
     tol = 0.05 * seed
-    got = overlapping_pairs(pts, tol, closed)
+    got = geo._overlapping_chord_pairs(pts, tol, closed)
     want = all_pairs(pts, tol, closed)
     assert len(want[0]) > 0
     for g, w in zip(got, want, strict=True):
@@ -39,7 +41,7 @@ def test_pairs_match_the_all_pairs_comparison(seed, closed):
 
 def test_short_polylines_have_no_pairs():
     for n in (2, 3):
-        i, j = overlapping_pairs(np.zeros((n, 2)), 1.0, True)
+        i, j = geo._overlapping_chord_pairs(np.zeros((n, 2)), 1.0, True)
         assert len(i) == len(j) == 0
 
 
