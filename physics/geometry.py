@@ -217,7 +217,8 @@ class Curve:
     def size(self) -> float:
         """Largest extent of the curve in metres (for tolerances)."""
         pts = self.sample(16)[::4]  # the points of sample(4), bit for bit
-        return float(np.max(np.ptp(pts, axis=0))) or self.pieces[0].length
+        r, z = pts[:, 0], pts[:, 1]
+        return float(max(r.max() - r.min(), z.max() - z.min())) or self.pieces[0].length
 
     @cached_property
     def kind(self) -> CurveKind:

@@ -7,6 +7,7 @@ parameters, their values and the relation, so that a user fixes a config in one 
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import fields
 from typing import Any
@@ -17,6 +18,13 @@ from elopt.physics.errors import ElectrodeError
 
 def _fmt(value: float) -> str:
     return f"{value:.6g}"
+
+
+@functools.cache
+def _declared_fields(cls: type) -> tuple[tuple[str, Any], ...]:
+    """(name, ParameterInfo or None) of every field of the dataclass ``cls``, in field order
+    (read once per class: a study validates every trial's parameters)."""
+    return tuple((f.name, f.metadata.get(PARAMETER_INFO)) for f in fields(cls))
 
 
 class RuleBook:
@@ -33,22 +41,21 @@ class RuleBook:
     def finite(self) -> bool:
         """Every numeric field must be finite; returns False (and records it) otherwise."""
         ok = True
-        for f in fields(self.params):
-            v = getattr(self.params, f.name)
+        for name, _ in _declared_fields(type(self.params)):
+            v = getattr(self.params, name)
             if isinstance(v, bool) or not isinstance(v, (int, float)):
-                self.broken.append(f"{f.name} = {v!r} must be a number")
+                self.broken.append(f"{name} = {v!r} must be a number")
                 ok = False
             elif not math.isfinite(v):
-                self.broken.append(f"{f.name} = {v!r} must be finite")
+                self.broken.append(f"{name} = {v!r} must be finite")
                 ok = False
         return ok
 
     def declared(self) -> None:
         """Check every field against the range declared in its metadata (:func:`parameter`)."""
-        for f in fields(self.params):
-            info = f.metadata.get(PARAMETER_INFO)
+        for name, info in _declared_fields(type(self.params)):
             if info is not None:
-                broken = info.broken_rule(f.name, getattr(self.params, f.name))
+                broken = info.broken_rule(name, getattr(self.params, name))
                 if broken:
                     self.broken.append(broken)
 
