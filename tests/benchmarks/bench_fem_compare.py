@@ -128,6 +128,31 @@ level pair's size and the Python of layout and meshes (stages of this first run)
 (the Lagrange moments at four nodes in registers added; load 1.5 -> 1.8): filleted 4.88 ->
 3.84 ms (14.3x -> 18.2x), sharp 6.32 -> 5.43 ms (9.3x -> 10.8x; near panels 0.40 + 0.73).
 The 30x target is not met.
+
+3 Dec 2026 09:02, ``--repeats 9 --stages --before`` (main at ccfbebf against the axicost
+branch: the layout check's chord pairs by a sweep along r and its containment test skipped
+by a box around the curve, rounded_polyline on plain floats, the chord parameters of
+Curve.sample once per count; curves, samples, meshes and C bit for bit main's on 15 layouts),
+``uptime`` load average 1.6 at start, 1.7 at end (other helpers' runs beside it), CPU ms:
+
+    probe                     BEM cpu before -> after   FEM cpu   FEM/BEM cpu
+    filleted 0.05 mm, 0.2 mm  3.99 -> 3.73              74.6      18.7x -> 20.0x
+    sharp, 0.5 mm             5.38 -> 5.34              62.1      11.6x -> 11.6x
+
+Nine repeats leave about 0.2 ms of noise; the same trial (``bem_run``) timed 300 times in
+each of three alternating before/after process pairs (same load): filleted 3.79 / 3.85 /
+3.91 -> 3.50 / 3.59 / 3.72 ms, sharp 5.44 / 5.43 / 5.72 -> 5.22 / 5.19 / 5.35 ms; the layout
+alone 0.87 -> 0.55 ms (filleted) and 0.67 -> 0.44 ms (sharp). A study trial also pays the
+families' level-0 size check, which meshed with another rule than the solve's and so graded
+level 0 twice; with the solve's rule (build, check and solve, 300 times): filleted 4.76 ->
+3.92 ms, sharp 6.17 -> 5.61 ms. The LU is what it was: a float32 LU refined with float64
+residuals (LAPACK's dsgesv scheme, stopping at the backward-error test) took 1.17 ms against
+1.05 at N = 344 (sgetrf 0.74 ms with its cast, dgetrf 1.04; two refinement steps), 0.38
+against 0.29 at N = 208, and first paid at N = 732 (6.9 against 7.6 ms); its solutions
+differ from the float64 LU's by 1.5e-12 (relative, N = 344, condition number 1.1e5). Two
+BLAS threads cost as much CPU as one at N = 344 and twice as much at 600. The 30x target is
+not met; what is left per solve is the discretisation (grading, meshes, entries: 2.0 of the
+filleted probe's 3.7 ms) and the LUs (1.4 ms of the sharp probe's 5.3).
 """
 
 from __future__ import annotations
