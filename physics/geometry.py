@@ -261,23 +261,33 @@ class Curve:
             [(*p.center, p.radius, p.start_angle, p.sweep) for p in (self.pieces[k] for k in arc)]
         ).reshape(-1, 5)
         other = [k for k, p in enumerate(self.pieces) if not isinstance(p, (Segment, Arc))]
-        return seg, a, b, arc, spec, other, np.asarray([self.end])
+        return (
+            np.array(seg, np.intp),
+            a,
+            b,
+            np.array(arc, np.intp),
+            spec,
+            other,
+            np.asarray([self.end]),
+        )
 
     def _sample(self, per_piece: int) -> np.ndarray:
         # Segments and arcs of every piece at once, by the formulas of their points().
         t, before, after = _chord_parameters(per_piece)
-        out = np.empty((len(self.pieces), per_piece, 2))
         seg, a, b, arc, spec, other, end = self._piece_table
-        if seg:
+        flat = np.empty((len(self.pieces) * per_piece + 1, 2))
+        out = flat[:-1].reshape(len(self.pieces), per_piece, 2)
+        if len(seg):
             out[seg] = before[None, :, None] * a + after[None, :, None] * b
-        if arc:
+        if len(arc):
             ang = spec[:, 3:4] + after[None, :] * spec[:, 4:5]
             out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
                 [np.cos(ang), np.sin(ang)], axis=-1
             )
         for k in other:
             out[k] = self.pieces[k].points(t)
-        return np.concatenate([out.reshape(-1, 2), end])
+        flat[-1] = end[0]
+        return flat
 
     def corners(self) -> tuple[Corner, ...]:
         """Joints with a tangent break and free sheet ends (never points on the axis)."""
