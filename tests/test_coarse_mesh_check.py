@@ -3,6 +3,8 @@ rule), so that the solve reuses its grading."""
 
 from __future__ import annotations
 
+import functools
+
 import pytest
 
 from elopt.physics.bem_axi import mesh as axi_mesh
@@ -37,7 +39,7 @@ def test_the_solve_after_the_check_grades_no_second_time(monkeypatch):
     monkeypatch.setattr(
         axi_mesh,
         "_base_intervals",
-        axi_mesh.lru_cache(maxsize=8)(lambda lay, rule: graded.append(rule) or grade(lay, rule)),
+        functools.lru_cache(maxsize=8)(lambda lay, rule: graded.append(rule) or grade(lay, rule)),
     )
     family.solve(layout, solve_options=options, options=None)
     assert len(graded) == 1
