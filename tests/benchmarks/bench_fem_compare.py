@@ -139,6 +139,9 @@ Curve.sample once per count; curves, samples, meshes and C bit for bit main's on
     filleted 0.05 mm, 0.2 mm  3.99 -> 3.73              74.6      18.7x -> 20.0x
     sharp, 0.5 mm             5.38 -> 5.34              62.1      11.6x -> 11.6x
 
+A second sitting at 09:16 on the final branch (load 2.7): filleted 3.77 -> 3.55 ms (19.0x ->
+20.1x), sharp 5.36 -> 5.29 ms (11.1x -> 11.3x); GuardedDisk.build alone, 3000 times in
+alternating processes: 663 / 646 -> 356 / 358 us (filleted), 467 / 478 -> 273 / 272 us (sharp).
 Nine repeats leave about 0.2 ms of noise; the same trial (``bem_run``) timed 300 times in
 each of three alternating before/after process pairs (same load): filleted 3.79 / 3.85 /
 3.91 -> 3.50 / 3.59 / 3.72 ms, sharp 5.44 / 5.43 / 5.72 -> 5.22 / 5.19 / 5.35 ms; the layout
