@@ -313,6 +313,13 @@ def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
     """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
+    piece_length, piece_kind, _ = _curve_pieces(curve)
+    if (piece_kind != KIND_ELLIPSE).all():
+        from elopt.physics.bem_axi.grading_kernels import balance_panels
+
+        return _CurvePanels(
+            *balance_panels(piece_length, *_flat_panels(panels), closed, float(ratio))
+        )
     while True:
         lengths = _curve_lengths(curve, panels)
         n = len(lengths)
@@ -325,6 +332,15 @@ def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
         if not mask.any():
             return panels
         panels = panels.split(mask)
+
+
+def _flat_panels(panels: _CurvePanels) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``panels``' piece (int64), t0, t1 (float) as contiguous arrays (one compiled variant)."""
+    return (
+        np.ascontiguousarray(panels.piece, dtype=np.int64),
+        np.ascontiguousarray(panels.t0, dtype=float),
+        np.ascontiguousarray(panels.t1, dtype=float),
+    )
 
 
 def build_mesh(
@@ -516,25 +532,67 @@ def _base_intervals(layout: Layout, rule: MeshRule):
 
 
 def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
-    """Split panels longer than GAP_FACTOR times their distance to other surfaces/images."""
+    """Split panels longer than GAP_FACTOR times their distance to other surfaces/images.
+
+    The cloud of distances is every conductor's ``sample(24)`` and, over a ground plane, their
+    images; a conductor's own samples (not its image) are left out for its panels."""
     samples = [cond.shape.sample(24) for cond in layout.conductors]
+    bounds = np.cumsum([0] + [len(s) for s in samples]).tolist()
+    if layout.ground_plane:
+        samples += [s * np.array([1.0, -1.0]) for s in samples]
+    cloud = np.concatenate(samples)
+    cloud_r, cloud_z = cloud.T.copy()  # contiguous columns
     out = []
     for ci, (curve, panels, ends) in enumerate(per_conductor):
-        others = [samples[j] for j in range(len(samples)) if j != ci]
-        if layout.ground_plane:
-            others += [s * np.array([1.0, -1.0]) for s in samples]
-        if others:
-            cloud_r, cloud_z = np.concatenate(others).T.copy()  # contiguous columns
-            for _ in range(40):
-                lengths = _curve_lengths(curve, panels)
-                centres = _curve_midpoints(curve, panels)
-                gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
-                bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
-                if not bad.any():
-                    break
-                panels = _balance(curve, panels.split(bad), balance_ratio)
+        lo, hi = bounds[ci], bounds[ci + 1]
+        if hi - lo < len(cloud):
+            panels = _refine_curve_gaps(curve, panels, balance_ratio, cloud_r, cloud_z, lo, hi)
         out.append((curve, panels, ends))
     return out
+
+
+def _refine_curve_gaps(
+    curve: Curve,
+    panels: _CurvePanels,
+    balance_ratio: float,
+    cloud_r: np.ndarray,
+    cloud_z: np.ndarray,
+    lo: int,
+    hi: int,
+) -> _CurvePanels:
+    """:func:`_refine_gaps` for one curve against the cloud (m,) less its points lo..hi-1."""
+    piece_length, piece_kind, piece_spec = _curve_pieces(curve)
+    rounds = 40
+    if (piece_kind != KIND_ELLIPSE).all():
+        from elopt.physics.bem_axi.grading_kernels import refine_gap_panels
+
+        return _CurvePanels(
+            *refine_gap_panels(
+                piece_kind,
+                piece_spec,
+                piece_length,
+                *_flat_panels(panels),
+                curve.kind == "ring",
+                float(balance_ratio),
+                cloud_r,
+                cloud_z,
+                lo,
+                hi,
+                GAP_FACTOR,
+                rounds,
+            )
+        )
+    cloud_r = np.concatenate([cloud_r[:lo], cloud_r[hi:]])
+    cloud_z = np.concatenate([cloud_z[:lo], cloud_z[hi:]])
+    for _ in range(rounds):
+        lengths = _curve_lengths(curve, panels)
+        centres = _curve_midpoints(curve, panels)
+        gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
+        bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
+        if not bad.any():
+            break
+        panels = _balance(curve, panels.split(bad), balance_ratio)
+    return panels
 
 
 def _assemble_mesh(

@@ -1,0 +1,158 @@
+"""Compiled passes of the level-0 grading of one curve's panels (segments and arcs).
+
+Panels are flat arrays (n,): ``piece`` (index into the curve's pieces), parameters ``t0`` <
+``t1``; per piece: ``kind`` (``mesh.KIND_SEGMENT`` 0 or ``mesh.KIND_ARC`` 1), ``spec`` (n, 5)
+(``mesh._piece_spec``) and arc length ``piece_length`` (m). :func:`balance_panels` splits
+panels until neighbours differ in length by at most ``ratio``; :func:`refine_gap_panels` then
+splits panels longer than ``gap_factor`` times their distance to a cloud of points (the other
+conductors' and the images' samples) and balances again, testing only panels new since the
+last test (an unchanged panel passed it before). Every value is computed by the same formulas,
+in the same order of operations, as the numpy functions of ``mesh.py`` (``_curve_lengths``,
+``_curve_midpoints``, ``_CurvePanels.split``), so the panels are theirs bit for bit
+(``tests/test_axi_grading_kernels.py``). Curves with ellipse arcs (lengths by quadrature) stay
+on the numpy path. Compiled on first use (cached on disk); ``mesh.py`` imports this module only
+when it grades a curve.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True)
+def _lengths(piece_length, piece, t0, t1):
+    out = np.empty(len(piece))
+    for i in range(len(piece)):
+        out[i] = piece_length[piece[i]] * (0.5 * (t1[i] - t0[i]))
+    return out
+
+
+@njit(cache=True)
+def _split(piece, t0, t1, fresh, mask, count):
+    """The panels with the ``count`` panels of ``mask`` halved in parameter; the halves are
+    flagged fresh, the other panels keep their flag."""
+    n = len(piece) + count
+    p2 = np.empty(n, np.int64)
+    a2 = np.empty(n)
+    b2 = np.empty(n)
+    f2 = np.empty(n, np.bool_)
+    j = 0
+    for i in range(len(piece)):
+        if mask[i]:
+            mid = 0.5 * (t0[i] + t1[i])
+            p2[j] = piece[i]
+            a2[j] = t0[i]
+            b2[j] = mid
+            f2[j] = True
+            p2[j + 1] = piece[i]
+            a2[j + 1] = mid
+            b2[j + 1] = t1[i]
+            f2[j + 1] = True
+            j += 2
+        else:
+            p2[j] = piece[i]
+            a2[j] = t0[i]
+            b2[j] = t1[i]
+            f2[j] = fresh[i]
+            j += 1
+    return p2, a2, b2, f2
+
+
+@njit(cache=True)
+def _balance(piece_length, piece, t0, t1, fresh, closed, ratio):
+    while True:
+        lengths = _lengths(piece_length, piece, t0, t1)
+        n = len(lengths)
+        mask = np.zeros(n, np.bool_)
+        count = 0
+        for a in range(n - 1 + int(closed)):
+            b = (a + 1) % n
+            la, lb = lengths[a], lengths[b]
+            if la > ratio * lb * (1 + 1e-9) and not mask[a]:
+                mask[a] = True
+                count += 1
+            if lb > ratio * la * (1 + 1e-9) and not mask[b]:
+                mask[b] = True
+                count += 1
+        if count == 0:
+            return piece, t0, t1, fresh
+        piece, t0, t1, fresh = _split(piece, t0, t1, fresh, mask, count)
+
+
+@njit(cache=True)
+def balance_panels(piece_length, piece, t0, t1, closed, ratio):
+    """Panels (piece, t0, t1) split until neighbours differ by at most a factor ``ratio``
+    (``closed``: the last panel neighbours the first)."""
+    fresh = np.zeros(len(piece), np.bool_)
+    piece, t0, t1, fresh = _balance(piece_length, piece, t0, t1, fresh, closed, ratio)
+    return piece, t0, t1
+
+
+@njit(cache=True)
+def _midpoint(kind, s, m):
+    """Point (r, z) at parameter ``m`` of a segment or arc piece with spec row ``s``."""
+    if kind == 0:
+        w0 = 0.5 * (1 - m)
+        w1 = 0.5 * (1 + m)
+        return w0 * s[0] + w1 * s[2], w0 * s[1] + w1 * s[3]
+    ang = s[3] + 0.5 * (m + 1) * s[4]
+    return s[0] + s[2] * math.cos(ang), s[1] + s[2] * math.sin(ang)
+
+
+@njit(cache=True)
+def _nearest2(cr, cz, cloud_r, cloud_z, lo, hi, best):
+    """The smaller of ``best`` and the least squared distance (m^2) from (cr, cz) to the
+    cloud points lo..hi-1."""
+    for j in range(lo, hi):
+        dr = cr - cloud_r[j]
+        dz = cz - cloud_z[j]
+        d2 = dr * dr + dz * dz
+        if d2 < best:
+            best = d2
+    return best
+
+
+@njit(cache=True)
+def refine_gap_panels(
+    kind,
+    spec,
+    piece_length,
+    piece,
+    t0,
+    t1,
+    closed,
+    ratio,
+    cloud_r,
+    cloud_z,
+    skip_lo,
+    skip_hi,
+    gap_factor,
+    rounds,
+):
+    """Panels split (and balanced within ``ratio``) until none is longer than ``gap_factor``
+    times the distance from its parameter midpoint to the nearest cloud point (m) outside
+    indices [``skip_lo``, ``skip_hi``) (the curve's own samples), at most ``rounds`` times."""
+    fresh = np.ones(len(piece), np.bool_)
+    n_cloud = len(cloud_r)
+    for _ in range(rounds):
+        lengths = _lengths(piece_length, piece, t0, t1)
+        mask = np.zeros(len(piece), np.bool_)
+        count = 0
+        for i in range(len(piece)):
+            if not fresh[i]:
+                continue
+            cr, cz = _midpoint(kind[piece[i]], spec[piece[i]], 0.5 * (t0[i] + t1[i]))
+            best = _nearest2(cr, cz, cloud_r, cloud_z, 0, skip_lo, np.inf)
+            best = _nearest2(cr, cz, cloud_r, cloud_z, skip_hi, n_cloud, best)
+            if lengths[i] > gap_factor * math.sqrt(best):
+                mask[i] = True
+                count += 1
+        if count == 0:
+            break
+        fresh = np.zeros(len(piece), np.bool_)
+        piece, t0, t1, fresh = _split(piece, t0, t1, fresh, mask, count)
+        piece, t0, t1, fresh = _balance(piece_length, piece, t0, t1, fresh, closed, ratio)
+    return piece, t0, t1
