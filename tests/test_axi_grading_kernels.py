@@ -34,7 +34,7 @@ MM = 1e-3
 
 
 def _ref_lengths(curve, panels) -> np.ndarray:
-    piece_length, piece_kind, _ = mesh._curve_pieces(curve)
+    piece_length, piece_kind, _, _ = mesh._curve_pieces(curve)
     lengths = piece_length[panels.piece] * (0.5 * (panels.t1 - panels.t0))
     for j in np.nonzero(piece_kind == mesh.KIND_ELLIPSE)[0].tolist():
         sel = panels.piece == j
@@ -44,7 +44,7 @@ def _ref_lengths(curve, panels) -> np.ndarray:
 
 
 def _ref_midpoints(curve, panels) -> np.ndarray:
-    _, piece_kind, piece_spec = mesh._curve_pieces(curve)
+    _, piece_kind, piece_spec, _ = mesh._curve_pieces(curve)
     mid = 0.5 * (panels.t0 + panels.t1)
     kind = piece_kind[panels.piece]
     sp = piece_spec[panels.piece]

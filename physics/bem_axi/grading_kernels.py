@@ -102,16 +102,65 @@ def _midpoint(kind, s, m):
     return s[0] + s[2] * math.cos(ang), s[1] + s[2] * math.sin(ang)
 
 
+#: Cloud points per box of the nearest-point search.
+CHUNK = 16
+
+
 @njit(cache=True)
-def _nearest2(cr, cz, cloud_r, cloud_z, lo, hi, best):
-    """The smaller of ``best`` and the least squared distance (m^2) from (cr, cz) to the
-    cloud points lo..hi-1."""
-    for j in range(lo, hi):
-        dr = cr - cloud_r[j]
-        dz = cz - cloud_z[j]
-        d2 = dr * dr + dz * dz
-        if d2 < best:
-            best = d2
+def _chunks(cloud_r, cloud_z, skip_lo, skip_hi):
+    """Boxes of runs of at most CHUNK cloud points outside [skip_lo, skip_hi): rows (start,
+    stop) (k, 2) and (r_min, r_max, z_min, z_max) (k, 4)."""
+    n = len(cloud_r)
+    k = (skip_lo + CHUNK - 1) // CHUNK + (n - skip_hi + CHUNK - 1) // CHUNK
+    ends = np.empty((k, 2), np.int64)
+    box = np.empty((k, 4))
+    c = 0
+    for lo, hi in ((0, skip_lo), (skip_hi, n)):
+        for a in range(lo, hi, CHUNK):
+            b = min(a + CHUNK, hi)
+            ends[c, 0], ends[c, 1] = a, b
+            box[c, 0] = cloud_r[a:b].min()
+            box[c, 1] = cloud_r[a:b].max()
+            box[c, 2] = cloud_z[a:b].min()
+            box[c, 3] = cloud_z[a:b].max()
+            c += 1
+    return ends, box
+
+
+@njit(cache=True)
+def _box_bound2(c, lo, hi):
+    """A lower bound of (c - x)**2 as rounded for every x in [lo, hi] (rounding is monotonic,
+    so the nearest edge's rounded square is not above any member's)."""
+    if c > hi:
+        d = c - hi
+    elif c < lo:
+        d = c - lo
+    else:
+        return 0.0
+    return d * d
+
+
+@njit(cache=True)
+def _nearest2(cr, cz, cloud_r, cloud_z, ends, box, bound):
+    """The least squared distance (m^2) from (cr, cz) to the boxed cloud points, exactly as
+    the plain minimum over all of them: a box is skipped only when its lower bound is not
+    below the least distance found so far (``bound``: scratch (k,))."""
+    first = 0
+    for c in range(len(ends)):
+        bound[c] = _box_bound2(cr, box[c, 0], box[c, 1]) + _box_bound2(cz, box[c, 2], box[c, 3])
+        if bound[c] < bound[first]:
+            first = c
+    best = np.inf
+    for k in range(-1, len(ends)):
+        c = first if k < 0 else k
+        if (k >= 0 and c == first) or bound[c] >= best:
+            continue
+        for j in range(ends[c, 0], ends[c, 1]):
+            dr = cr - cloud_r[j]
+            dz = cz - cloud_z[j]
+            d2 = dr * dr + dz * dz
+            if d2 < best:
+                best = d2
     return best
 
 
@@ -136,7 +185,8 @@ def refine_gap_panels(
     times the distance from its parameter midpoint to the nearest cloud point (m) outside
     indices [``skip_lo``, ``skip_hi``) (the curve's own samples), at most ``rounds`` times."""
     fresh = np.ones(len(piece), np.bool_)
-    n_cloud = len(cloud_r)
+    ends, box = _chunks(cloud_r, cloud_z, skip_lo, skip_hi)
+    bound = np.empty(len(ends))
     for _ in range(rounds):
         lengths = _lengths(piece_length, piece, t0, t1)
         mask = np.zeros(len(piece), np.bool_)
@@ -145,8 +195,7 @@ def refine_gap_panels(
             if not fresh[i]:
                 continue
             cr, cz = _midpoint(kind[piece[i]], spec[piece[i]], 0.5 * (t0[i] + t1[i]))
-            best = _nearest2(cr, cz, cloud_r, cloud_z, 0, skip_lo, np.inf)
-            best = _nearest2(cr, cz, cloud_r, cloud_z, skip_hi, n_cloud, best)
+            best = _nearest2(cr, cz, cloud_r, cloud_z, ends, box, bound)
             if lengths[i] > gap_factor * math.sqrt(best):
                 mask[i] = True
                 count += 1

@@ -46,6 +46,8 @@ def corner_levels(order: int) -> int:
 
 #: A panel is at most this many times its distance to another conductor or an image.
 GAP_FACTOR = 2.0
+#: (r, z) -> (r, -z): a point's image in the ground plane.
+_MIRROR_Z = np.array([1.0, -1.0])
 
 
 @dataclass(frozen=True)
@@ -258,19 +260,22 @@ class _CurvePanels:
 
 
 @lru_cache(maxsize=64)
-def _curve_pieces(curve: Curve) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Per piece of ``curve``: arc length (n,), kind (n,) and :func:`_piece_spec` (n, 5)."""
+def _curve_pieces(curve: Curve) -> tuple[np.ndarray, np.ndarray, np.ndarray, bool]:
+    """Per piece of ``curve``: arc length (n,), kind (n,) and :func:`_piece_spec` (n, 5); and
+    whether every piece is a segment or an arc (graded by :mod:`grading_kernels`)."""
     specs = [_piece_spec(p) for p in curve.pieces]
+    kinds = [k for k, _ in specs]
     return (
         np.asarray([p.length for p in curve.pieces]),
-        np.asarray([k for k, _ in specs]),
+        np.asarray(kinds, dtype=np.int64),
         np.asarray([sp for _, sp in specs], dtype=float).reshape(-1, 5),
+        KIND_ELLIPSE not in kinds,
     )
 
 
 def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
     """Arc lengths (n,) of a curve's panels."""
-    piece_length, piece_kind, _ = _curve_pieces(curve)
+    piece_length, piece_kind, _, _ = _curve_pieces(curve)
     lengths = piece_length[panels.piece] * (0.5 * (panels.t1 - panels.t0))
     if (piece_kind == KIND_ELLIPSE).any():
         for j in np.nonzero(piece_kind == KIND_ELLIPSE)[0].tolist():
@@ -283,7 +288,7 @@ def _curve_lengths(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
     """Points (n, 2) at the parameter midpoints of a curve's panels (the formulas of
     :func:`_panel_coefs` and :func:`panel_geometry` at a panel's start, for one point each)."""
-    _, piece_kind, piece_spec = _curve_pieces(curve)
+    _, piece_kind, piece_spec, _ = _curve_pieces(curve)
     mid = 0.5 * (panels.t0 + panels.t1)
     kind = piece_kind[panels.piece]
     sp = piece_spec[panels.piece]
@@ -313,8 +318,8 @@ def _curve_midpoints(curve: Curve, panels: _CurvePanels) -> np.ndarray:
 def _balance(curve: Curve, panels: _CurvePanels, ratio: float) -> _CurvePanels:
     """Split panels until neighbours along the curve differ by at most a factor ``ratio``."""
     closed = curve.kind == "ring"
-    piece_length, piece_kind, _ = _curve_pieces(curve)
-    if (piece_kind != KIND_ELLIPSE).all():
+    piece_length, _, _, compiled = _curve_pieces(curve)
+    if compiled:
         from elopt.physics.bem_axi.grading_kernels import balance_panels
 
         return _CurvePanels(
@@ -538,9 +543,9 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
     images; a conductor's own samples (not its image) are left out for its panels."""
     samples = [cond.shape.sample(24) for cond in layout.conductors]
     bounds = np.cumsum([0] + [len(s) for s in samples]).tolist()
-    if layout.ground_plane:
-        samples += [s * np.array([1.0, -1.0]) for s in samples]
     cloud = np.concatenate(samples)
+    if layout.ground_plane:
+        cloud = np.concatenate([cloud, cloud * _MIRROR_Z])
     cloud_r, cloud_z = cloud.T.copy()  # contiguous columns
     out = []
     for ci, (curve, panels, ends) in enumerate(per_conductor):
@@ -561,9 +566,9 @@ def _refine_curve_gaps(
     hi: int,
 ) -> _CurvePanels:
     """:func:`_refine_gaps` for one curve against the cloud (m,) less its points lo..hi-1."""
-    piece_length, piece_kind, piece_spec = _curve_pieces(curve)
+    piece_length, piece_kind, piece_spec, compiled = _curve_pieces(curve)
     rounds = 40
-    if (piece_kind != KIND_ELLIPSE).all():
+    if compiled:
         from elopt.physics.bem_axi.grading_kernels import refine_gap_panels
 
         return _CurvePanels(
