@@ -242,9 +242,11 @@ class _CurvePanels:
 
     @staticmethod
     def of(per_piece: list[list[tuple[float, float]]]) -> _CurvePanels:
-        piece = np.repeat(np.arange(len(per_piece)), [len(iv) for iv in per_piece])
-        ab = np.asarray([ab for iv in per_piece for ab in iv], dtype=float).reshape(-1, 2)
-        return _CurvePanels(piece, ab[:, 0], ab[:, 1])
+        return _CurvePanels(
+            np.array([k for k, iv in enumerate(per_piece) for _ in iv], dtype=np.int64),
+            np.array([a for iv in per_piece for a, _ in iv], dtype=float),
+            np.array([b for iv in per_piece for _, b in iv], dtype=float),
+        )
 
     def split(self, mask: np.ndarray) -> _CurvePanels:
         """These panels with every panel of ``mask`` (n,) halved in parameter."""
@@ -266,9 +268,9 @@ def _curve_pieces(curve: Curve) -> tuple[np.ndarray, np.ndarray, np.ndarray, boo
     specs = [_piece_spec(p) for p in curve.pieces]
     kinds = [k for k, _ in specs]
     return (
-        np.asarray([p.length for p in curve.pieces]),
-        np.asarray(kinds, dtype=np.int64),
-        np.asarray([sp for _, sp in specs], dtype=float).reshape(-1, 5),
+        np.array([p.length for p in curve.pieces], dtype=float),
+        np.array(kinds, dtype=np.int64),
+        np.array([v for _, sp in specs for v in sp], dtype=float).reshape(-1, 5),
         KIND_ELLIPSE not in kinds,
     )
 
