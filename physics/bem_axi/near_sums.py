@@ -104,9 +104,10 @@ def _near_plan(
 
 @njit(cache=True)
 def _add_field_rows(
-    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, bary, xq, wq
+    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, scale, mirror, x, bary, xq, wq
 ) -> None:
-    """(graded rule - node rule) of the field of the pairs into ``mat`` (M, N, 2)."""
+    """(graded rule, its columns times ``scale`` (N,) - node rule) of the field of the pairs
+    into ``mat`` (M, N, 2)."""
     p = x.shape[0]
     n = ti.shape[0]
     cols = np.empty((n, p), np.int64)
@@ -119,7 +120,9 @@ def _add_field_rows(
     for b in range(n):
         for k in range(p):
             for c in range(2):
-                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+                mat[ti[b], cols[b, k], c] += sgn * (
+                    good[b, k, c] * scale[cols[b, k]] - direct[b, k, c]
+                )
 
 
 @njit(cache=True, error_model="numpy")
@@ -163,12 +166,16 @@ def _potential_params(
 
 
 @njit(cache=True)
-def _add_rows(mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, sgn: float):
-    """mat[ti[b], pj[b] * p + k] += sgn * rows[b, k] (each (target, node) pair once)."""
+def _add_rows(
+    mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, scale: np.ndarray, sgn: float
+):
+    """mat[ti[b], j] += sgn * rows[b, k] * scale[j], j = pj[b] * p + k (each (target, node)
+    pair once)."""
     p = rows.shape[1]
     for b in range(ti.shape[0]):
         for k in range(p):
-            mat[ti[b], pj[b] * p + k] += sgn * rows[b, k]
+            j = pj[b] * p + k
+            mat[ti[b], j] += sgn * rows[b, k] * scale[j]
 
 
 def add_near_corrections(
@@ -184,6 +191,7 @@ def add_near_corrections(
     sr: np.ndarray,
     sz: np.ndarray,
     w: np.ndarray,
+    scale: np.ndarray,
     mirror: bool,
     exclude_self: bool,
     x: np.ndarray,
@@ -194,7 +202,9 @@ def add_near_corrections(
     """Add (graded rule - node rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
     in place; image pairs (``mirror``) enter with a minus, as ``mat`` holds real-minus-image
     sums. Targets (M,) ``tr``, ``tz``; panels (P,) ``kind``, ``coef`` (P, 5), ``length``,
-    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x).
+    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``, ``scale`` (``mesh.interp_jac``: a
+    mapped panel's sub-rules interpolate sigma times it); nodes per panel p = len(x).
+    ``length`` sets the grading depth (a mapped panel's scaled by its map power).
 
     The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
     logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
@@ -208,14 +218,17 @@ def add_near_corrections(
     if len(ti) == 0:
         return
     if mat.shape[2] == 2:
-        _add_field_rows(mat, *plan, sr, sz, w, mirror, x, bary, xq, wq)
+        _add_field_rows(mat, *plan, sr, sz, w, scale, mirror, x, bary, xq, wq)
         return
     sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
     counts = p + len(xq) * levels * sides
 
+    w_interp = w / scale  # the node rule's weights of the interpolated quantity
+
     def params(b0: int, b1: int, start: np.ndarray):
         return _potential_params(
-            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w_interp, mirror, x, xq, wq
         )
 
-    _add_rows(mat[..., 0], ti, pj, lagrange_sums(params, counts, x, bary), -1.0 if mirror else 1.0)
+    rows = lagrange_sums(params, counts, x, bary)
+    _add_rows(mat[..., 0], ti, pj, rows, scale, -1.0 if mirror else 1.0)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import AxiMesh
+from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh
 from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections
 from elopt.physics.bem_axi.ring_sums import (
     collocation_sum,
@@ -90,19 +90,21 @@ def _correct_near(
     """
     p = mesh.order
     xq, wq = gauss_legendre(_rule_order(p))
+    power = _map_powers(mesh)
     add_near_corrections(
         mat,
         np.ascontiguousarray(targets[:, 0]),
         np.ascontiguousarray(targets[:, 1]),
         mesh.kind,
         mesh.coef,
-        mesh.length_m,
+        mesh.length_m * power,
         np.ascontiguousarray(mesh.center_m[:, 0]),
         np.ascontiguousarray(mesh.center_m[:, 1]),
-        (near_factor(p, rel_error) + 0.5) * mesh.length_m,
+        (near_factor(p, rel_error) * power + np.where(power > 1, 1.0, 0.5)) * mesh.length_m,
         np.ascontiguousarray(mesh.points_m[:, 0]),
         np.ascontiguousarray(mesh.points_m[:, 1]),
         mesh.weights_m,
+        mesh.density_scale,
         mirror,
         exclude_self,
         gauss_legendre(p)[0],
@@ -110,6 +112,16 @@ def _correct_near(
         xq,
         wq,
     )
+
+
+def _map_powers(mesh: AxiMesh) -> np.ndarray:
+    """Per panel (P,): 1, or a mapped panel's map power m.
+
+    A mapped panel's nodes lie up to m times sparser in its parameter than a straight
+    panel's at its far end, so its Gauss rule needs m times the distance (its centre, tau = 0,
+    lies 1/2^m of the way from the corner: the reach counts from there plus a whole length),
+    and its near sub-rules grade as for a panel m times as long."""
+    return np.where(mesh.kind == KIND_MAPPED, np.abs(mesh.coef[:, 4]), 1.0)
 
 
 def _operator(
@@ -164,6 +176,10 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     piece is short against the target's distance to the axis (the kernel's smooth part varies
     on that scale). Outer pieces take Gauss rules on the full kernel; the two innermost pieces
     take the split K(m) = A(m1) - K(m1) ln(m1)/pi, whose logarithm is integrated exactly.
+    On a mapped panel the smooth part of that split, ln(|y(t) - y(t_i)| / |t - t_i|), is
+    singular about the target's parameter distance d_c to the corner away from it (the map's
+    u^m - u_i^m has its other roots there), so the innermost piece is also at most d_c / 2
+    long; its rows interpolate sigma times the length element and are scaled by the nodes'.
     """
     p = mesh.order
     x, _ = gauss_legendre(p)
@@ -173,6 +189,11 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     tgt = mesh.points_m
     panel = np.repeat(np.arange(mesh.n_panels), p)
     ratio = 2.0 * mesh.length_m[panel] / np.maximum(tgt[:, 0], 1e-300)
+    mapped = mesh.kind[panel] == KIND_MAPPED
+    if mapped.any():
+        tau_t = np.tile(x, mesh.n_panels)
+        to_corner = np.where(mesh.coef[panel, 4] > 0, tau_t + 1.0, 1.0 - tau_t)
+        ratio = np.where(mapped, np.maximum(ratio, 4.0 / to_corner), ratio)
     levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, MAX_LEVELS).astype(np.int64)
     rows = self_rows(
         np.ascontiguousarray(tgt[:, 0]),
@@ -187,4 +208,4 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
         wq,
         logw_end,
     )
-    return rows.reshape(mesh.n_panels, p, p)
+    return rows.reshape(mesh.n_panels, p, p) * mesh.density_scale.reshape(-1, 1, p)

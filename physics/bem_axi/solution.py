@@ -13,7 +13,7 @@ from functools import cached_property
 
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import AxiMesh, panel_geometry
+from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh, panel_geometry
 from elopt.physics.bem_axi.operators import field_matrix, potential_matrix
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
@@ -225,14 +225,31 @@ def _peaks(level: LevelResult, layout: Layout) -> tuple[LevelPeak, ...]:
     faces = level.faces
     p = mesh.order
     # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
-    tau = np.linspace(-1.0, 1.0, 4 * p + 1)
-    lag = lagrange_matrix(tau, p).T
-    vals = np.maximum(
-        np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
-    )
-    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
-    owner = np.repeat(mesh.conductor, len(tau))
-    singular = np.repeat(mesh.at_corner, len(tau))
+    tau = np.broadcast_to(np.linspace(-1.0, 1.0, 4 * p + 1), (mesh.n_panels, 4 * p + 1))
+    mapped = mesh.kind == KIND_MAPPED
+    if mapped.any():
+        # A mapped panel's density s^(alpha - 1) is unbounded at its corner: sampled from its
+        # node nearest the corner on (sigma there is as a graded panel's own corner value).
+        tau = tau.copy()
+        x0 = gauss_legendre(p)[0][0]
+        inner = x0 + 0.5 * (tau[mapped] + 1.0) * (1.0 - x0)
+        tau[mapped] = np.where(mesh.coef[mapped, 4:5] > 0, inner, -inner[:, ::-1])
+    pts, der = panel_geometry(mesh.kind, mesh.coef, tau)
+    if mapped.any():
+        lag = lagrange_matrix(tau, p)  # (P, S, p)
+        # q = sigma * interp_jac is the panel's polynomial; sigma = q / the length element.
+        scale_at = np.where(mapped[:, None], np.linalg.norm(der, axis=-1), 1.0)
+        vals = np.zeros(tau.shape)
+        for col in range(2):
+            q = (faces[:, col] * mesh.density_scale).reshape(-1, p)
+            vals = np.maximum(vals, np.abs(np.einsum("bsk,bk->bs", lag, q) / scale_at))
+    else:
+        lag = lagrange_matrix(tau[0], p).T
+        vals = np.maximum(
+            np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
+        )
+    owner = np.repeat(mesh.conductor, tau.shape[1])
+    singular = np.repeat(mesh.at_corner, tau.shape[1])
     return peaks_per_conductor(
         layout.names, owner, vals.ravel() / layout.eps_F_per_m, pts.reshape(-1, 2), singular
     )

@@ -56,7 +56,7 @@ COARSE_REQUEST = 1e-4
 #: solves keep COARSE_RULE (not measured with this one), and so does the families' check of the
 #: level-0 size (electrodes.solvers.check_coarse_mesh, whose refusal message a test quotes).
 CONDUCTOR_COARSE_RULE = MeshRule(
-    corner_steps=2, steps_per_level=1, grade_ratio=8.0, balance_ratio=8.0
+    corner_steps=2, steps_per_level=1, grade_ratio=8.0, balance_ratio=8.0, mapped_steps=0
 )
 #: Relative error of the collocation entries of a conductors-only solve at COARSE_REQUEST and
 #: looser (1e-8 otherwise at 4 nodes): the near zone shrinks from 2.5 to 1.5 panel lengths
