@@ -635,6 +635,8 @@ def _assemble_mesh(
     tau = np.broadcast_to(np.append(xg, 0.0), (len(kind_a), order + 1))
     pts, der = panel_geometry(kind_a, coef_a, tau)
     center, pts, der = pts[:, order], pts[:, :order], der[:, :order]
+    if mapped.any():  # a mapped panel's centre: the chord's midpoint (tau = 0 is off it)
+        center[mapped] = 0.5 * (coef_a[mapped, 0:2] + coef_a[mapped, 2:4])
     jac = np.linalg.norm(der, axis=-1)
     tang = der / jac[..., None]
     sgn = base.signs[conductor_a][:, None, None]

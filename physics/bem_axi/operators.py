@@ -100,7 +100,7 @@ def _correct_near(
         mesh.length_m * power,
         np.ascontiguousarray(mesh.center_m[:, 0]),
         np.ascontiguousarray(mesh.center_m[:, 1]),
-        (near_factor(p, rel_error) * power + np.where(power > 1, 1.0, 0.5)) * mesh.length_m,
+        (near_factor(p, rel_error) * power + 0.5) * mesh.length_m,
         np.ascontiguousarray(mesh.points_m[:, 0]),
         np.ascontiguousarray(mesh.points_m[:, 1]),
         mesh.weights_m,
@@ -118,9 +118,8 @@ def _map_powers(mesh: AxiMesh) -> np.ndarray:
     """Per panel (P,): 1, or a mapped panel's map power m.
 
     A mapped panel's nodes lie up to m times sparser in its parameter than a straight
-    panel's at its far end, so its Gauss rule needs m times the distance (its centre, tau = 0,
-    lies 1/2^m of the way from the corner: the reach counts from there plus a whole length),
-    and its near sub-rules grade as for a panel m times as long."""
+    panel's at its far end, so its Gauss rule needs m times the distance, and its near
+    sub-rules grade as for a panel m times as long."""
     return np.where(mesh.kind == KIND_MAPPED, np.abs(mesh.coef[:, 4]), 1.0)
 
 

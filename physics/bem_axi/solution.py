@@ -225,34 +225,42 @@ def _peaks(level: LevelResult, layout: Layout) -> tuple[LevelPeak, ...]:
     faces = level.faces
     p = mesh.order
     # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
-    tau = np.broadcast_to(np.linspace(-1.0, 1.0, 4 * p + 1), (mesh.n_panels, 4 * p + 1))
+    tau = np.linspace(-1.0, 1.0, 4 * p + 1)
     mapped = mesh.kind == KIND_MAPPED
     if mapped.any():
         # A mapped panel's density s^(alpha - 1) is unbounded at its corner: sampled from its
         # node nearest the corner on (sigma there is as a graded panel's own corner value).
-        tau = tau.copy()
         x0 = gauss_legendre(p)[0][0]
-        inner = x0 + 0.5 * (tau[mapped] + 1.0) * (1.0 - x0)
-        tau[mapped] = np.where(mesh.coef[mapped, 4:5] > 0, inner, -inner[:, ::-1])
-    pts, der = panel_geometry(mesh.kind, mesh.coef, tau)
-    if mapped.any():
-        lag = lagrange_matrix(tau, p)  # (P, S, p)
-        # q = sigma * interp_jac is the panel's polynomial; sigma = q / the length element.
-        scale_at = np.where(mapped[:, None], np.linalg.norm(der, axis=-1), 1.0)
-        vals = np.zeros(tau.shape)
-        for col in range(2):
-            q = (faces[:, col] * mesh.density_scale).reshape(-1, p)
-            vals = np.maximum(vals, np.abs(np.einsum("bsk,bk->bs", lag, q) / scale_at))
-    else:
-        lag = lagrange_matrix(tau[0], p).T
-        vals = np.maximum(
-            np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
-        )
-    owner = np.repeat(mesh.conductor, tau.shape[1])
-    singular = np.repeat(mesh.at_corner, tau.shape[1])
+        inner = x0 + 0.5 * (tau + 1.0) * (1.0 - x0)
+        tau = np.tile(tau, (mesh.n_panels, 1))
+        tau[mapped] = np.where(mesh.coef[mapped, 4:5] > 0, inner, -inner[::-1])
+    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, 4 * p + 1)))
+    vals = np.maximum(
+        np.abs(panel_densities(mesh, faces[:, 0], tau)),
+        np.abs(panel_densities(mesh, faces[:, 1], tau)),
+    )
+    owner = np.repeat(mesh.conductor, 4 * p + 1)
+    singular = np.repeat(mesh.at_corner, 4 * p + 1)
     return peaks_per_conductor(
         layout.names, owner, vals.ravel() / layout.eps_F_per_m, pts.reshape(-1, 2), singular
     )
+
+
+def panel_densities(mesh: AxiMesh, sigma: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Density (P, S) at parameters ``tau`` ((S,) on every panel, or (P, S)) from node values
+    ``sigma`` (N,): each panel's Lagrange interpolant; on a mapped corner panel that of sigma
+    times the length element (``mesh.interp_jac``), divided by the element at ``tau``."""
+    p = mesh.order
+    mapped = mesh.kind == KIND_MAPPED
+    if tau.ndim == 1 and not mapped.any():
+        return sigma.reshape(-1, p) @ lagrange_matrix(tau, p).T
+    tau = np.broadcast_to(tau, (mesh.n_panels, tau.shape[-1]))
+    q = (sigma * mesh.density_scale).reshape(-1, p)
+    values = np.einsum("bsk,bk->bs", lagrange_matrix(tau, p), q)
+    if not mapped.any():
+        return values
+    _, der = panel_geometry(mesh.kind, mesh.coef, tau)
+    return values / np.where(mapped[:, None], np.linalg.norm(der, axis=-1), 1.0)
 
 
 def _plane_quadrature(mesh: AxiMesh) -> tuple[np.ndarray, np.ndarray]:
