@@ -11,6 +11,8 @@ The grounded plane z = 0 enters through image panels at (r, -z) carrying -sigma.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh
@@ -90,23 +92,25 @@ def _correct_near(
     """
     p = mesh.order
     xq, wq = gauss_legendre(_rule_order(p))
-    power = _map_powers(mesh)
+    factor = near_factor(p, rel_error)
+    rho = _bernstein_rho(factor)
     add_near_corrections(
         mat,
         np.ascontiguousarray(targets[:, 0]),
         np.ascontiguousarray(targets[:, 1]),
         mesh.kind,
         mesh.coef,
-        mesh.length_m * power,
+        mesh.length_m,
         np.ascontiguousarray(mesh.center_m[:, 0]),
         np.ascontiguousarray(mesh.center_m[:, 1]),
-        (near_factor(p, rel_error) * power + 0.5) * mesh.length_m,
+        _reach(mesh, factor, rho),
         np.ascontiguousarray(mesh.points_m[:, 0]),
         np.ascontiguousarray(mesh.points_m[:, 1]),
         mesh.weights_m,
         mesh.density_scale,
         mirror,
         exclude_self,
+        rho,
         gauss_legendre(p)[0],
         barycentric_weights(p),
         xq,
@@ -114,13 +118,25 @@ def _correct_near(
     )
 
 
-def _map_powers(mesh: AxiMesh) -> np.ndarray:
-    """Per panel (P,): 1, or a mapped panel's map power m.
+def _bernstein_rho(factor: float) -> float:
+    """The Bernstein-ellipse parameter of a point ``factor`` panel lengths past a panel's end
+    (:func:`near_factor`'s ellipse)."""
+    x0 = 1.0 + 2.0 * factor
+    return x0 + math.sqrt(x0 * x0 - 1.0)
 
-    A mapped panel's nodes lie up to m times sparser in its parameter than a straight
-    panel's at its far end, so its Gauss rule needs m times the distance, and its near
-    sub-rules grade as for a panel m times as long."""
-    return np.where(mesh.kind == KIND_MAPPED, np.abs(mesh.coef[:, 4]), 1.0)
+
+def _reach(mesh: AxiMesh, factor: float, rho: float) -> np.ndarray:
+    """Distance (P,) from each panel's centre beyond which its node rule is accurate: the
+    panel's length times ``factor`` + 1/2; a mapped panel's (chord fraction u^m), the
+    Bernstein ellipse ``rho`` about its parameter interval reaches |u| up to
+    1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord lengths from its corner (the
+    near pass then takes only the pairs inside that ellipse)."""
+    reach = (factor + 0.5) * mesh.length_m
+    mapped = mesh.kind == KIND_MAPPED
+    if mapped.any():
+        u_max = 0.5 + 0.25 * (rho + 1.0 / rho)
+        reach[mapped] = (u_max ** np.abs(mesh.coef[mapped, 4]) + 0.5) * mesh.length_m[mapped]
+    return reach
 
 
 def _operator(
