@@ -399,6 +399,12 @@ def build_mesh(
     return _assemble_mesh(layout, base, piece, t0, t1, level, order)
 
 
+def level_zero_unknowns(layout: Layout, order: int, rule: MeshRule | None = None) -> int:
+    """Nodes of ``build_mesh(layout, 0, order, rule)`` without assembling it (its panels are
+    the cached level-0 panels)."""
+    return len(_base_panels(layout, rule or default_rule(order)).piece) * order
+
+
 def _grade_corners(
     base: _BasePanels, piece: np.ndarray, t0: np.ndarray, t1: np.ndarray, steps: int, rule: MeshRule
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
