@@ -94,7 +94,7 @@ def default_rule(order: int) -> MeshRule:
 class AxiMesh:
     """Panels of all conductors; node arrays have N = P * order rows, panel-major.
 
-    Per panel (P,): ``conductor`` index, ``kind`` (segment/arc/ellipse), ``coef`` (P, 5)
+    Per panel (P,): ``conductor`` index, ``kind`` (segment/arc/ellipse/mapped), ``coef`` (P, 5)
     sub-piece coefficients, ``length_m``, ``center_m`` (P, 2), ``at_corner`` (touches a
     singular corner). Per node (N,): ``points_m`` (N, 2), ``tangents`` (N, 2), ``normals``
     (N, 2) outward (for sheets: the tangent turned clockwise), ``jac_m`` arc length per unit
