@@ -30,39 +30,101 @@ DEMO = Path(__file__).resolve().parents[2] / "configs" / "study_spindle_runout.t
 TARGETS_S = {"--help": 0.3, "front": 1.0}
 
 
+def _design(header, rng: np.random.Generator, metrics: np.ndarray, samples: int):
+    """A made-up solved design of the demo's layout: two conductors, ``samples`` surface
+    samples each (timing only)."""
+    from elopt.optimizer.record import ConductorRecord, DesignRecord, PeakRecord, SurfaceSamples
+
+    names = ("sensor", "guard")
+    surface = tuple(
+        SurfaceSamples(
+            conductor=name,
+            kind="profile",
+            points_m=rng.uniform(0, 1e-3, (samples, 2)),
+            sigma_C_per_m2=rng.uniform(0, 1e-6, samples),
+            field_V_per_m=rng.uniform(0, 1e6, samples),
+            area_m2=rng.uniform(1e-9, 1e-8, samples),
+            face=np.zeros(samples, dtype=np.int8),
+            normal=np.tile([0.0, 1.0], (samples, 1)),
+            arc_length_m=np.sort(rng.uniform(0, 1e-2, samples)),
+        )
+        for name in names
+    )
+    params = dict(
+        zip(header.parameter_names, rng.uniform(0.1, 4.0, len(header.parameter_names)), strict=True)
+    )
+    return DesignRecord(
+        family=header.family,
+        parameters=params,
+        parameter_units=dict(zip(header.parameter_names, header.parameter_units, strict=True)),
+        conductors=(ConductorRecord(names[0], 1.0, None), ConductorRecord(names[1], 1.0, None)),
+        ground_plane=True,
+        capacitance_matrix_F=np.eye(2) * 1e-13,
+        charges_C=np.array([1e-13, 1e-13]),
+        potentials_V=np.ones(2),
+        sense_capacitance_F=1e-13,
+        sense_capacitance_meaning="made up",
+        peak=PeakRecord(names[0], 1e6, (1e-3, 2e-3), False, 1e-3),
+        relative_error_estimate=1e-4,
+        requested_accuracy=1e-3,
+        accuracy_met=True,
+        n_unknowns=300,
+        metrics=dict(zip(header.metric_names, metrics.tolist(), strict=True)),
+        metric_units=dict(zip(header.metric_names, header.metric_units, strict=True)),
+        surface=surface,
+    )
+
+
 def make_study(path: Path, trials: int) -> None:
     """A study file with the demo's header and ``trials`` made-up trials (seeded)."""
     from elopt.optimizer.config.study_config import load_study_config
-    from elopt.optimizer.store import PROFILE_FIELDS, StudyWriter, TrialRecord
+    from elopt.optimizer.store import StudyWriter, TrialRecord
     from elopt.optimizer.study.search import study_header
 
     header = study_header(load_study_config(DEMO))
     rng = np.random.default_rng(1)
     n_par, n_met = len(header.parameter_names), len(header.metric_names)
     n_obj, n_con = len(header.objective_names), len(header.constraint_names)
-    samples = 240
+    samples = 120
     with StudyWriter.create(path, header, overwrite=True, fsync=False) as w:
         w.begin_session(target_trials=trials, hours=None, workers=2)
         for i in range(trials):
             failed = i % 23 == 5
             metrics = rng.uniform(0.1, 5.0, n_met)
-            profile = {name: rng.uniform(0, 1e-3, samples) for name in PROFILE_FIELDS}
-            profile["conductor"] = (np.arange(samples) >= samples // 2).astype(np.int16)
+            # a third of the trials break their limits; objectives and constraints follow the
+            # metrics as the writer checks
+            for name, limit in zip(
+                header.constraint_metrics, header.constraint_limits, strict=True
+            ):
+                metrics[header.metric_names.index(name)] = limit * (1.2 if i % 3 == 0 else 0.5)
+            judged = dict(zip(header.metric_names, metrics.tolist(), strict=True))
+            constraints = np.array(
+                [
+                    judged[m] - lim if kind == "max" else lim - judged[m]
+                    for m, kind, lim in zip(
+                        header.constraint_metrics,
+                        header.constraint_kinds,
+                        header.constraint_limits,
+                        strict=True,
+                    )
+                ]
+            )
             w.append(
                 TrialRecord(
                     state="failed" if failed else "complete",
                     params=rng.uniform(0.1, 4.0, n_par),
                     metrics=np.full(n_met, np.nan) if failed else metrics,
-                    objectives=np.full(n_obj, np.nan) if failed else metrics[:n_obj],
-                    constraints=np.full(n_con, np.nan) if failed else rng.uniform(-1, 0.3, n_con),
-                    feasible=not failed and i % 3 != 0,
+                    objectives=np.full(n_obj, np.nan)
+                    if failed
+                    else np.array([judged[o] for o in header.objective_names]),
+                    constraints=np.full(n_con, np.nan) if failed else constraints,
+                    feasible=not failed and bool(np.all(constraints <= 0)),
                     session=0,
                     started_unix=1e9 + i,
                     finished_unix=1e9 + i + 1.0,
                     solve_s=1.0,
-                    capacitance_F=np.zeros((0, 0)) if failed else np.eye(2) * 1e-13,
-                    profile=None if failed else profile,
-                    info={"failure": "made up"} if failed else {"conductors": ["sensor", "guard"]},
+                    design=None if failed else _design(header, rng, metrics, samples),
+                    info={"failure": "made up"} if failed else {},
                 )
             )
 
