@@ -101,6 +101,7 @@ def _near_plan(
     mirror: bool,
     exclude_self: bool,
     rho_near: float,
+    rho_whole: float,
 ):
     """Near (target, panel) pairs (B,) ``ti``, ``pj``, the target points, the panels' kinds and
     coefficients, the foot-point parameters and the grading depths (:func:`_pairs`; a mapped
@@ -110,11 +111,13 @@ def _near_plan(
     sgn = -1.0 if mirror else 1.0
     keep = 0
     pre = np.empty(ti.shape[0], np.complex128)
+    rho = np.empty(ti.shape[0])
     for b in range(ti.shape[0]):
         j = pj[b]
         if kind[j] == 3:
             pre[keep] = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], coef[j])
-            if bernstein_rho(pre[keep]) >= rho_near:
+            rho[keep] = bernstein_rho(pre[keep])
+            if rho[keep] >= rho_near:
                 continue
         ti[keep] = ti[b]
         pj[keep] = j
@@ -135,11 +138,17 @@ def _near_plan(
     # so does the innermost once it is no longer than the distance: one level beyond
     # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
     # A mapped panel grades towards its preimage's nearest parameter instead, by the
-    # preimage's parameter distance (a panel's parameter length is 2).
+    # preimage's parameter distance (a panel's parameter length is 2); where the preimage
+    # lies outside the Bernstein ellipse ``rho_whole``, the sub-rules' Gauss rule on the
+    # whole panel (cut at its end, one level) is as accurate as the node rule at ``rho_near``.
     levels = np.empty(n, np.int64)
     for b in range(n):
         ratio = length[pj[b]] / max(delta[b], 1e-300)
         if kd[b] == 3:
+            if rho[b] >= rho_whole:
+                tau_c[b] = -1.0
+                levels[b] = 1
+                continue
             tau_c[b] = min(max(pre[b].real, -1.0), 1.0)
             ratio = 2.0 / max(abs(pre[b] - tau_c[b]), 1e-300)
         lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
@@ -258,8 +267,23 @@ def add_near_corrections(
     p = x.shape[0]
     if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
         return  # every image centre is out of reach of every target (all above z = 0)
+    # The sub-rules' q-point Gauss rule errs like rho^(-2q) where the p-point node rule errs
+    # like rho_near^(-2p): equal at rho_near^(p/q).
+    rho_whole = rho_near ** (p / len(xq))
     plan = _near_plan(
-        tr, tz, kind, coef, length, centre_r, centre_z, reach, p, mirror, exclude_self, rho_near
+        tr,
+        tz,
+        kind,
+        coef,
+        length,
+        centre_r,
+        centre_z,
+        reach,
+        p,
+        mirror,
+        exclude_self,
+        rho_near,
+        rho_whole,
     )
     ti, pj, pr, pz, kd, cf, tau_c, levels = plan
     if len(ti) == 0:

@@ -384,7 +384,7 @@ def mapped_point(power: float, tau: float) -> tuple[float, float]:
     """Chord fraction and its tau-derivative on a mapped panel (``mesh.mapped_fraction``)."""
     m = abs(power)
     u = 0.5 * (tau + 1.0) if power > 0 else 0.5 * (1.0 - tau)
-    um1 = u ** (m - 1.0)
+    um1 = u * u if m == 3.0 else (u if m == 2.0 else u ** (m - 1.0))  # pow() is slow
     frac = um1 * u if power > 0 else 1.0 - um1 * u
     return frac, 0.5 * m * um1
 
@@ -457,8 +457,10 @@ def subrule_point(kind: int, c: np.ndarray, t: float, jac: float) -> tuple[float
     if kind == 0:
         s = 0.5 * (t + 1.0)
         return c[0] + s * (c[2] - c[0]), c[1] + s * (c[3] - c[1]), jac
-    r, z, element = panel_point(kind, c, t)
-    return r, z, 1.0 if kind == 3 else element
+    if kind == 3:
+        frac, _ = mapped_point(c[4], t)
+        return c[0] + frac * (c[2] - c[0]), c[1] + frac * (c[3] - c[1]), 1.0
+    return panel_point(kind, c, t)
 
 
 @njit(cache=True)
