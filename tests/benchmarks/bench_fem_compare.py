@@ -129,30 +129,29 @@ level pair's size and the Python of layout and meshes (stages of this first run)
 3.84 ms (14.3x -> 18.2x), sharp 6.32 -> 5.43 ms (9.3x -> 10.8x; near panels 0.40 + 0.73).
 The 30x target is not met.
 
-3 Dec 2026, ``--repeats 9 --stages --before`` (main's package at 71162d8 against the
-cornermap branch: mapped corner panels, DEVELOPERS.md "Mapped corner panels"), three runs,
-CPU ms, medians (the filleted probe has no singular corner: same mesh, its changes are noise):
+3 Dec 2026, ``--repeats 9 --before`` (main's package at 71162d8 against the cornermap
+branch: mapped corner panels, DEVELOPERS.md "Mapped corner panels"), CPU ms, medians (the
+filleted probe has no singular corner: the same mesh and C, its changes are noise):
 
     run (load at start -> end)   probe      BEM cpu before -> after   N before -> after
-    08:49 (1.00 -> 1.07)         filleted   4.26 -> 4.53              104+208 (both)
-                                 sharp      6.00 -> 5.04              148+344 -> 72+144
-    09:04 (1.87 -> 1.96)         filleted   3.95 -> 4.11
-                                 sharp      5.83 -> 5.85
-    09:05 (2.11 -> 2.40)         filleted   3.88 -> 4.08
-                                 sharp      5.65 -> 6.09
+    09:19 (1.03 -> 1.03)         filleted   4.49 -> 4.55              104+208 (both)
+    --stages                     sharp      6.36 -> 5.52              148+344 -> 72+144
+    09:20 (0.94 -> 0.95)         filleted   4.25 -> 4.30
+                                 sharp      6.05 -> 5.65
+    09:20 (0.95 -> 0.96)         filleted   4.03 -> 4.49
+                                 sharp      6.05 -> 5.67
 
-Sharp probe after: errors 1.7e-6 - 1.8e-6 (before 8.5e-8), estimate 3.0e-5 (both); FEM
-62.8 - 65.5 ms, so 10.7x - 12.8x against 10.8x - 11.6x before. The unknowns halve, but the
-near pairs of the twelve long mapped panels cost what the smaller matrices save (stages of
-the 09:05 run after: near panels 1.24 + 1.73 ms against 0.44 + 0.78 before at 148 + 344;
-far sums 0.05 + 0.13, self 0.16 + 0.21, LU and solve 0.13 + 0.25): a mapped panel's 4-node
-rule sees the map's distortion, so targets whose kernel singularity in the panel parameter
-lies inside the near ellipse reach several panel lengths (measured at level 1: 1138 real
-and 821 image pairs against 598 + 0 of the straight panels). Tried and not kept: the
-mapped panel halved once at level 0 (100 + 200 unknowns, 6.2 ms); 4-point near sub-rules
-at the 1e-6 entries (row errors of the potential up to 4.5e-6 on the sharp probe); one
-whole-panel rule for mapped pairs outside the Bernstein ellipse 4 (no change measured). The
-30x target is not met.
+Sharp probe after: error 1.8e-6 (before 8.5e-8), estimate 3.0e-5 (both); FEM 64.2 - 65.3 ms,
+so 11.4x - 11.8x against 10.3x - 10.7x before. The unknowns halve, but the near pairs of the
+twelve long mapped panels cost most of what the smaller matrices save (stages of the 09:19
+run after: near panels 1.21 + 1.67 ms, against 0.44 + 0.78 at 148 + 344 before; far sums
+0.05 + 0.14, self 0.14 + 0.18, LU and solve 0.05 + 0.27): a mapped panel's 4-node rule sees
+the map's distortion, so targets whose kernel singularity in the panel parameter lies inside
+the near ellipse reach several panel lengths (level 1: 1392 real and 821 image pairs, 36,000
+kernel values, against 598 + 0 pairs of the straight panels). Tried and not kept: the mapped
+panel halved once at level 0 (100 + 200 unknowns, 6.2 ms); 4-point near sub-rules at the
+1e-6 entries (errors of the potential of a unit density up to 4.5e-6 on the sharp probe).
+The 30x target is not met.
 """
 
 from __future__ import annotations
