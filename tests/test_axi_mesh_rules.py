@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from elopt.physics import geometry as geo
-from elopt.physics.bem_axi.mesh import GAP_FACTOR, build_mesh, default_rule
+from elopt.physics.bem_axi.mesh import GAP_FACTOR, build_mesh, default_rule, level_zero_unknowns
 from elopt.physics.bem_axi.solve import COARSE_RULE, CONDUCTOR_COARSE_RULE
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
 
@@ -94,3 +94,11 @@ def test_curve_samples_lie_on_the_pieces_and_are_fresh_arrays():
         assert np.array_equal(got, expected)
         got[:] = 0.0
         assert np.array_equal(curve.sample(per_piece), expected)
+
+
+@pytest.mark.parametrize("rule", list(RULES))
+@pytest.mark.parametrize("fillet_mm", [0.0, 0.05])
+def test_level_zero_unknowns_count_the_assembled_mesh(fillet_mm, rule):
+    layout = _probe(fillet_mm)
+    mesh = build_mesh(layout, 0, 4, RULES[rule])
+    assert level_zero_unknowns(layout, 4, RULES[rule]) == mesh.n_nodes

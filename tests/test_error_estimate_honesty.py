@@ -114,7 +114,11 @@ def test_true_error_is_within_the_estimate_in_95_percent_and_never_above_3x(reco
 
 @pytest.mark.slow
 @pytest.mark.parametrize("quantity", ["C", "peak"])
-def test_the_solve_stops_at_the_first_level_that_meets_the_request(records, quantity):
+def test_the_solve_stops_at_the_first_level_that_meets_the_request(
+    records, quantity, min_checked: int = 5
+):
+    """Every met run with three or more levels does not meet with one level less (at least
+    ``min_checked`` such runs; a two-level run stops at the fewest levels the loop can)."""
     checked = 0
     for name, req, _, est, run in records[quantity]:
         if run.stop_reason != "met":
@@ -125,7 +129,7 @@ def test_the_solve_stops_at_the_first_level_that_meets_the_request(records, quan
             sol = _Solved(run.levels[:-1], run.convergence, run.estimate.covered)
             assert not _replay(sol, one_less).accuracy_met, (name, req)
             checked += 1
-    assert checked >= 5
+    assert checked >= min_checked
 
 
 @pytest.mark.slow

@@ -172,7 +172,9 @@ class DielectricModel:
 #: level, neighbours within a factor 8. Measured on the spindle probe with a spacer
 #: (tests/benchmarks/bench_axi_dielectric.py): 128 + 256 unknowns against 164 + 328, the
 #: level-1 error 0.32 times the change that estimates it; the dielectric honesty tests pass.
-REGION_COARSE_RULE = CONDUCTOR_COARSE_RULE
+#: Without the conductors-only rule's mapped corner panels (the bound-charge rows and the
+#: junction grading do not handle them).
+REGION_COARSE_RULE = replace(CONDUCTOR_COARSE_RULE, mapped_steps=None)
 #: Relative error of the conductor and bound-charge rows' entries with REGION_COARSE_RULE
 #: (the homogeneous solve's COARSE_ENTRY_ERROR; 1e-8 otherwise), and the noise floors it sets
 #: (capacitance, peak). Measured as the change against 1e-8 entries, levels 0-3, on the
@@ -355,6 +357,7 @@ def _concat(meshes: list[AxiMesh]) -> AxiMesh:
         "weights_m",
     ):
         fields[name] = np.concatenate([getattr(m, name) for m in meshes])
+    fields["interp_jac"] = np.concatenate([m.density_scale for m in meshes])
     return replace(
         base,
         conductor=np.concatenate(parts["conductor"]),

@@ -73,6 +73,7 @@ def sub_mesh(mesh: AxiMesh, panels: np.ndarray) -> AxiMesh:
         mesh,
         **{f: getattr(mesh, f)[panels] for f in per_panel},
         **{f: getattr(mesh, f)[nodes] for f in per_node},
+        interp_jac=mesh.density_scale[nodes],
     )
 
 

@@ -10,6 +10,7 @@ matrix; the potential's evaluations (node rule and sub-rules alike) go through t
 
 from __future__ import annotations
 
+import cmath
 import math
 
 import numpy as np
@@ -64,6 +65,29 @@ def _pairs(
 
 
 @njit(cache=True)
+def mapped_preimage(r: float, z: float, c: np.ndarray) -> complex:
+    """The complex parameter tau of a mapped panel (coefficients ``c``, ``mesh.KIND_MAPPED``)
+    where the kernel of the point (r, z) is singular nearest the parameter interval: its
+    chord fraction u^m equals the point's complex chord coordinate (principal root)."""
+    if c[4] > 0:
+        o_r, o_z, f_r, f_z = c[0], c[1], c[2], c[3]
+    else:
+        o_r, o_z, f_r, f_z = c[2], c[3], c[0], c[1]
+    dr, dz = f_r - o_r, f_z - o_z
+    inv = 1.0 / (dr * dr + dz * dz)
+    w = complex(((r - o_r) * dr + (z - o_z) * dz) * inv, abs((r - o_r) * dz - (z - o_z) * dr) * inv)
+    u = cmath.exp(cmath.log(w) / abs(c[4])) if abs(w) > 1e-300 else 0.0j
+    return 2.0 * u - 1.0 if c[4] > 0 else 1.0 - 2.0 * u
+
+
+@njit(cache=True)
+def bernstein_rho(t: complex) -> float:
+    """Bernstein-ellipse parameter (>= 1) of [-1, 1] through the complex point ``t``."""
+    root = cmath.sqrt(t - 1.0) * cmath.sqrt(t + 1.0)
+    return max(abs(t + root), abs(t - root))
+
+
+@njit(cache=True)
 def _near_plan(
     tr: np.ndarray,
     tz: np.ndarray,
@@ -76,10 +100,29 @@ def _near_plan(
     order: int,
     mirror: bool,
     exclude_self: bool,
+    rho_near: float,
+    rho_whole: float,
 ):
     """Near (target, panel) pairs (B,) ``ti``, ``pj``, the target points, the panels' kinds and
-    coefficients, the foot-point parameters and the grading depths (:func:`_pairs`)."""
+    coefficients, the foot-point parameters and the grading depths (:func:`_pairs`; a mapped
+    panel's pairs only where the Bernstein parameter of :func:`mapped_preimage` is below
+    ``rho_near``)."""
     ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, order, mirror, exclude_self)
+    sgn = -1.0 if mirror else 1.0
+    keep = 0
+    pre = np.empty(ti.shape[0], np.complex128)
+    rho = np.empty(ti.shape[0])
+    for b in range(ti.shape[0]):
+        j = pj[b]
+        if kind[j] == 3:
+            pre[keep] = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], coef[j])
+            rho[keep] = bernstein_rho(pre[keep])
+            if rho[keep] >= rho_near:
+                continue
+        ti[keep] = ti[b]
+        pj[keep] = j
+        keep += 1
+    ti, pj = ti[:keep], pj[:keep]
     n = ti.shape[0]
     pr = np.empty(n)
     pz = np.empty(n)
@@ -94,9 +137,20 @@ def _near_plan(
     # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
     # so does the innermost once it is no longer than the distance: one level beyond
     # log2(length / distance) gives every piece the same Bernstein-ellipse margin.
+    # A mapped panel grades towards its preimage's nearest parameter instead, by the
+    # preimage's parameter distance (a panel's parameter length is 2); where the preimage
+    # lies outside the Bernstein ellipse ``rho_whole``, the sub-rules' Gauss rule on the
+    # whole panel (cut at its end, one level) is as accurate as the node rule at ``rho_near``.
     levels = np.empty(n, np.int64)
     for b in range(n):
         ratio = length[pj[b]] / max(delta[b], 1e-300)
+        if kd[b] == 3:
+            if rho[b] >= rho_whole:
+                tau_c[b] = -1.0
+                levels[b] = 1
+                continue
+            tau_c[b] = min(max(pre[b].real, -1.0), 1.0)
+            ratio = 2.0 / max(abs(pre[b] - tau_c[b]), 1e-300)
         lv = math.ceil(math.log2(max(ratio, 1.0))) + 1
         levels[b] = min(max(lv, 1), MAX_LEVELS)
     return ti, pj, pr, pz, kd, cf, tau_c, levels
@@ -104,9 +158,10 @@ def _near_plan(
 
 @njit(cache=True)
 def _add_field_rows(
-    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, bary, xq, wq
+    mat, ti, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, scale, mirror, x, bary, xq, wq
 ) -> None:
-    """(graded rule - node rule) of the field of the pairs into ``mat`` (M, N, 2)."""
+    """(graded rule, its columns times ``scale`` (N,) - node rule) of the field of the pairs
+    into ``mat`` (M, N, 2)."""
     p = x.shape[0]
     n = ti.shape[0]
     cols = np.empty((n, p), np.int64)
@@ -119,7 +174,9 @@ def _add_field_rows(
     for b in range(n):
         for k in range(p):
             for c in range(2):
-                mat[ti[b], cols[b, k], c] += sgn * (good[b, k, c] - direct[b, k, c])
+                mat[ti[b], cols[b, k], c] += sgn * (
+                    good[b, k, c] * scale[cols[b, k]] - direct[b, k, c]
+                )
 
 
 @njit(cache=True, error_model="numpy")
@@ -163,12 +220,16 @@ def _potential_params(
 
 
 @njit(cache=True)
-def _add_rows(mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, sgn: float):
-    """mat[ti[b], pj[b] * p + k] += sgn * rows[b, k] (each (target, node) pair once)."""
+def _add_rows(
+    mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, scale: np.ndarray, sgn: float
+):
+    """mat[ti[b], j] += sgn * rows[b, k] * scale[j], j = pj[b] * p + k (each (target, node)
+    pair once)."""
     p = rows.shape[1]
     for b in range(ti.shape[0]):
         for k in range(p):
-            mat[ti[b], pj[b] * p + k] += sgn * rows[b, k]
+            j = pj[b] * p + k
+            mat[ti[b], j] += sgn * rows[b, k] * scale[j]
 
 
 def add_near_corrections(
@@ -184,8 +245,10 @@ def add_near_corrections(
     sr: np.ndarray,
     sz: np.ndarray,
     w: np.ndarray,
+    scale: np.ndarray,
     mirror: bool,
     exclude_self: bool,
+    rho_near: float,
     x: np.ndarray,
     bary: np.ndarray,
     xq: np.ndarray,
@@ -194,28 +257,49 @@ def add_near_corrections(
     """Add (graded rule - node rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
     in place; image pairs (``mirror``) enter with a minus, as ``mat`` holds real-minus-image
     sums. Targets (M,) ``tr``, ``tz``; panels (P,) ``kind``, ``coef`` (P, 5), ``length``,
-    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``; nodes per panel p = len(x).
+    centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``, ``scale`` (``mesh.interp_jac``: a
+    mapped panel's sub-rules interpolate sigma times it); nodes per panel p = len(x).
+    A mapped panel's pairs within ``reach`` are near where the Bernstein parameter of
+    :func:`mapped_preimage` is below ``rho_near``.
 
     The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
     logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
     if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
         return  # every image centre is out of reach of every target (all above z = 0)
+    # The sub-rules' q-point Gauss rule errs like rho^(-2q) where the p-point node rule errs
+    # like rho_near^(-2p): equal at rho_near^(p/q).
+    rho_whole = rho_near ** (p / len(xq))
     plan = _near_plan(
-        tr, tz, kind, coef, length, centre_r, centre_z, reach, p, mirror, exclude_self
+        tr,
+        tz,
+        kind,
+        coef,
+        length,
+        centre_r,
+        centre_z,
+        reach,
+        p,
+        mirror,
+        exclude_self,
+        rho_near,
+        rho_whole,
     )
     ti, pj, pr, pz, kd, cf, tau_c, levels = plan
     if len(ti) == 0:
         return
     if mat.shape[2] == 2:
-        _add_field_rows(mat, *plan, sr, sz, w, mirror, x, bary, xq, wq)
+        _add_field_rows(mat, *plan, sr, sz, w, scale, mirror, x, bary, xq, wq)
         return
     sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
     counts = p + len(xq) * levels * sides
 
+    w_interp = w / scale  # the node rule's weights of the interpolated quantity
+
     def params(b0: int, b1: int, start: np.ndarray):
         return _potential_params(
-            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w_interp, mirror, x, xq, wq
         )
 
-    _add_rows(mat[..., 0], ti, pj, lagrange_sums(params, counts, x, bary), -1.0 if mirror else 1.0)
+    rows = lagrange_sums(params, counts, x, bary)
+    _add_rows(mat[..., 0], ti, pj, rows, scale, -1.0 if mirror else 1.0)

@@ -11,9 +11,11 @@ The grounded plane z = 0 enters through image panels at (r, -z) carrying -sigma.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import AxiMesh
+from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh
 from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections
 from elopt.physics.bem_axi.ring_sums import (
     collocation_sum,
@@ -90,6 +92,8 @@ def _correct_near(
     """
     p = mesh.order
     xq, wq = gauss_legendre(_rule_order(p))
+    factor = near_factor(p, rel_error)
+    rho = _bernstein_rho(factor)
     add_near_corrections(
         mat,
         np.ascontiguousarray(targets[:, 0]),
@@ -99,17 +103,40 @@ def _correct_near(
         mesh.length_m,
         np.ascontiguousarray(mesh.center_m[:, 0]),
         np.ascontiguousarray(mesh.center_m[:, 1]),
-        (near_factor(p, rel_error) + 0.5) * mesh.length_m,
+        _reach(mesh, factor, rho),
         np.ascontiguousarray(mesh.points_m[:, 0]),
         np.ascontiguousarray(mesh.points_m[:, 1]),
         mesh.weights_m,
+        mesh.density_scale,
         mirror,
         exclude_self,
+        rho,
         gauss_legendre(p)[0],
         barycentric_weights(p),
         xq,
         wq,
     )
+
+
+def _bernstein_rho(factor: float) -> float:
+    """The Bernstein-ellipse parameter of a point ``factor`` panel lengths past a panel's end
+    (:func:`near_factor`'s ellipse)."""
+    x0 = 1.0 + 2.0 * factor
+    return x0 + math.sqrt(x0 * x0 - 1.0)
+
+
+def _reach(mesh: AxiMesh, factor: float, rho: float) -> np.ndarray:
+    """Distance (P,) from each panel's centre beyond which its node rule is accurate: the
+    panel's length times ``factor`` + 1/2; a mapped panel's (chord fraction u^m), the
+    Bernstein ellipse ``rho`` about its parameter interval reaches |u| up to
+    1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord lengths from its corner (the
+    near pass then takes only the pairs inside that ellipse)."""
+    reach = (factor + 0.5) * mesh.length_m
+    mapped = mesh.kind == KIND_MAPPED
+    if mapped.any():
+        u_max = 0.5 + 0.25 * (rho + 1.0 / rho)
+        reach[mapped] = (u_max ** np.abs(mesh.coef[mapped, 4]) + 0.5) * mesh.length_m[mapped]
+    return reach
 
 
 def _operator(
@@ -164,6 +191,10 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     piece is short against the target's distance to the axis (the kernel's smooth part varies
     on that scale). Outer pieces take Gauss rules on the full kernel; the two innermost pieces
     take the split K(m) = A(m1) - K(m1) ln(m1)/pi, whose logarithm is integrated exactly.
+    On a mapped panel the smooth part of that split, ln(|y(t) - y(t_i)| / |t - t_i|), is
+    singular about the target's parameter distance d_c to the corner away from it (the map's
+    u^m - u_i^m has its other roots there), so the innermost piece is also at most d_c / 2
+    long; its rows interpolate sigma times the length element and are scaled by the nodes'.
     """
     p = mesh.order
     x, _ = gauss_legendre(p)
@@ -173,6 +204,11 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     tgt = mesh.points_m
     panel = np.repeat(np.arange(mesh.n_panels), p)
     ratio = 2.0 * mesh.length_m[panel] / np.maximum(tgt[:, 0], 1e-300)
+    mapped = mesh.kind[panel] == KIND_MAPPED
+    if mapped.any():
+        tau_t = np.tile(x, mesh.n_panels)
+        to_corner = np.where(mesh.coef[panel, 4] > 0, tau_t + 1.0, 1.0 - tau_t)
+        ratio = np.where(mapped, np.maximum(ratio, 4.0 / to_corner), ratio)
     levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, MAX_LEVELS).astype(np.int64)
     rows = self_rows(
         np.ascontiguousarray(tgt[:, 0]),
@@ -187,4 +223,4 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
         wq,
         logw_end,
     )
-    return rows.reshape(mesh.n_panels, p, p)
+    return rows.reshape(mesh.n_panels, p, p) * mesh.density_scale.reshape(-1, 1, p)

@@ -350,6 +350,13 @@ def normal_field_sum(
 def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, float]:
     """(r, z, |d(point)/d(tau)|) of a panel (see elopt.physics.bem_axi.mesh.panel_geometry)."""
     s = 0.5 * (tau + 1.0)
+    if kind == 3:
+        frac, dfrac = mapped_point(c[4], tau)
+        return (
+            c[0] + frac * (c[2] - c[0]),
+            c[1] + frac * (c[3] - c[1]),
+            dfrac * math.hypot(c[2] - c[0], c[3] - c[1]),
+        )
     if kind == 0:
         return (
             c[0] + s * (c[2] - c[0]),
@@ -370,6 +377,16 @@ def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, flo
         c[0] + c[2] * math.sin(u),
         du * math.hypot(c[1] * math.sin(u), c[2] * math.cos(u)),
     )
+
+
+@njit(cache=True)
+def mapped_point(power: float, tau: float) -> tuple[float, float]:
+    """Chord fraction and its tau-derivative on a mapped panel (``mesh.mapped_fraction``)."""
+    m = abs(power)
+    u = 0.5 * (tau + 1.0) if power > 0 else 0.5 * (1.0 - tau)
+    um1 = u * u if m == 3.0 else (u if m == 2.0 else u ** (m - 1.0))  # pow() is slow
+    frac = um1 * u if power > 0 else 1.0 - um1 * u
+    return frac, 0.5 * m * um1
 
 
 @njit(cache=True)
@@ -434,10 +451,15 @@ def straight_jac(kind: int, c: np.ndarray) -> float:
 @njit(cache=True)
 def subrule_point(kind: int, c: np.ndarray, t: float, jac: float) -> tuple[float, float, float]:
     """:func:`panel_point` at ``t``, a straight panel's (linear in t) with its length element
-    ``jac`` from :func:`straight_jac` (the sub-rules' points)."""
+    ``jac`` from :func:`straight_jac` (the sub-rules' points). A mapped panel (kind 3)
+    interpolates sigma times its length element, so its sub-rules take the element 1 (the
+    callers scale its rows by the nodes' ``mesh.interp_jac``)."""
     if kind == 0:
         s = 0.5 * (t + 1.0)
         return c[0] + s * (c[2] - c[0]), c[1] + s * (c[3] - c[1]), jac
+    if kind == 3:
+        frac, _ = mapped_point(c[4], t)
+        return c[0] + frac * (c[2] - c[0]), c[1] + frac * (c[3] - c[1]), 1.0
     return panel_point(kind, c, t)
 
 
@@ -747,12 +769,16 @@ def foot_points(
     for b in range(n):
         c = coef[b]
         r, z = tr[b], sgn * tz[b]
-        if kind[b] == 0:
+        if kind[b] == 0 or kind[b] == 3:
             dr, dz = c[2] - c[0], c[3] - c[1]
             s = ((r - c[0]) * dr + (z - c[1]) * dz) / (dr * dr + dz * dz)
             s = min(max(s, 0.0), 1.0)
-            tau[b] = 2.0 * s - 1.0
             dist[b] = math.hypot(r - c[0] - s * dr, z - c[1] - s * dz)
+            if kind[b] == 3:  # invert the map's chord fraction
+                m = abs(c[4])
+                s = 2.0 * s ** (1.0 / m) if c[4] > 0 else 2.0 - 2.0 * (1.0 - s) ** (1.0 / m)
+                s *= 0.5
+            tau[b] = 2.0 * s - 1.0
         elif kind[b] == 1:
             a0, a1 = c[3], c[4]
             ang = math.atan2(z - c[1], r - c[0])

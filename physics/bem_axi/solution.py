@@ -13,7 +13,7 @@ from functools import cached_property
 
 import numpy as np
 
-from elopt.physics.bem_axi.mesh import AxiMesh, panel_geometry
+from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh, panel_geometry
 from elopt.physics.bem_axi.operators import field_matrix, potential_matrix
 from elopt.physics.errors import SolverError
 from elopt.physics.layout import Layout
@@ -226,16 +226,41 @@ def _peaks(level: LevelResult, layout: Layout) -> tuple[LevelPeak, ...]:
     p = mesh.order
     # The peak of the interpolated density, not just of the nodes: 4p + 1 samples per panel.
     tau = np.linspace(-1.0, 1.0, 4 * p + 1)
-    lag = lagrange_matrix(tau, p).T
+    mapped = mesh.kind == KIND_MAPPED
+    if mapped.any():
+        # A mapped panel's density s^(alpha - 1) is unbounded at its corner: sampled from its
+        # node nearest the corner on (sigma there is as a graded panel's own corner value).
+        x0 = gauss_legendre(p)[0][0]
+        inner = x0 + 0.5 * (tau + 1.0) * (1.0 - x0)
+        tau = np.tile(tau, (mesh.n_panels, 1))
+        tau[mapped] = np.where(mesh.coef[mapped, 4:5] > 0, inner, -inner[::-1])
+    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, 4 * p + 1)))
     vals = np.maximum(
-        np.abs(faces[:, 0].reshape(-1, p) @ lag), np.abs(faces[:, 1].reshape(-1, p) @ lag)
+        np.abs(panel_densities(mesh, faces[:, 0], tau)),
+        np.abs(panel_densities(mesh, faces[:, 1], tau)),
     )
-    pts, _ = panel_geometry(mesh.kind, mesh.coef, np.broadcast_to(tau, (mesh.n_panels, len(tau))))
-    owner = np.repeat(mesh.conductor, len(tau))
-    singular = np.repeat(mesh.at_corner, len(tau))
+    owner = np.repeat(mesh.conductor, 4 * p + 1)
+    singular = np.repeat(mesh.at_corner, 4 * p + 1)
     return peaks_per_conductor(
         layout.names, owner, vals.ravel() / layout.eps_F_per_m, pts.reshape(-1, 2), singular
     )
+
+
+def panel_densities(mesh: AxiMesh, sigma: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Density (P, S) at parameters ``tau`` ((S,) on every panel, or (P, S)) from node values
+    ``sigma`` (N,): each panel's Lagrange interpolant; on a mapped corner panel that of sigma
+    times the length element (``mesh.interp_jac``), divided by the element at ``tau``."""
+    p = mesh.order
+    mapped = mesh.kind == KIND_MAPPED
+    if tau.ndim == 1 and not mapped.any():
+        return sigma.reshape(-1, p) @ lagrange_matrix(tau, p).T
+    tau = np.broadcast_to(tau, (mesh.n_panels, tau.shape[-1]))
+    q = (sigma * mesh.density_scale).reshape(-1, p)
+    values = np.einsum("bsk,bk->bs", lagrange_matrix(tau, p), q)
+    if not mapped.any():
+        return values
+    _, der = panel_geometry(mesh.kind, mesh.coef, tau)
+    return values / np.where(mapped[:, None], np.linalg.norm(der, axis=-1), 1.0)
 
 
 def _plane_quadrature(mesh: AxiMesh) -> tuple[np.ndarray, np.ndarray]:

@@ -13,7 +13,7 @@ from typing import Any
 
 from elopt.physics.bem3d import solve_3d
 from elopt.physics.bem3d.surfaces import MESH_MAX_PANELS
-from elopt.physics.bem_axi.mesh import build_mesh
+from elopt.physics.bem_axi.mesh import level_zero_unknowns
 from elopt.physics.bem_axi.solve import default_order, mesh_rule, solve_axisymmetric
 from elopt.physics.errors import ElectrodeError, GeometryError
 from elopt.physics.layout import Layout
@@ -58,12 +58,12 @@ def check_coarse_mesh(family: str, layout: Layout, solve_options: SolveOptions) 
     passes :data:`MAX_COARSE_UNKNOWNS`. The mesh is the solve's own (its order and its
     conductors-only rule), so that its grading, cached per layout and rule, is the solve's too
     (with another rule a trial paid a second grading: 0.8 ms of a 4.5 ms guarded-probe solve
-    at 1e-4, measured 3 Dec 2026)."""
+    at 1e-4, measured 3 Dec 2026); it is counted from those panels, not assembled."""
     if not layout.homogeneous:
         return
     tightest = min(solve_options.rel_accuracy, solve_options.peak_rel_accuracy or 1.0)
     order = solve_options.order or default_order(tightest)
-    n0 = build_mesh(layout, 0, order, mesh_rule(order, tightest, conductors_only=True)).n_nodes
+    n0 = level_zero_unknowns(layout, order, mesh_rule(order, tightest, conductors_only=True))
     if n0 > MAX_COARSE_UNKNOWNS:
         raise ElectrodeError(
             f"{family}: the coarsest mesh of this design already has {n0} unknowns, more than "

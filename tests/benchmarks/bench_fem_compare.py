@@ -156,6 +156,30 @@ differ from the float64 LU's by 1.5e-12 (relative, N = 344, condition number 1.1
 BLAS threads cost as much CPU as one at N = 344 and twice as much at 600. The 30x target is
 not met; what is left per solve is the discretisation (grading, meshes, entries: 2.0 of the
 filleted probe's 3.7 ms) and the LUs (1.4 ms of the sharp probe's 5.3).
+
+3 Dec 2026, ``--repeats 9 --before`` (main's package at 71162d8 against the cornermap
+branch: mapped corner panels, DEVELOPERS.md "Mapped corner panels"), CPU ms, medians (the
+filleted probe has no singular corner: the same mesh and C, its changes are noise):
+
+    run (load at start -> end)   probe      BEM cpu before -> after   N before -> after
+    09:19 (1.03 -> 1.03)         filleted   4.49 -> 4.55              104+208 (both)
+    --stages                     sharp      6.36 -> 5.52              148+344 -> 72+144
+    09:20 (0.94 -> 0.95)         filleted   4.25 -> 4.30
+                                 sharp      6.05 -> 5.65
+    09:20 (0.95 -> 0.96)         filleted   4.03 -> 4.49
+                                 sharp      6.05 -> 5.67
+
+Sharp probe after: error 1.8e-6 (before 8.5e-8), estimate 3.0e-5 (both); FEM 64.2 - 65.3 ms,
+so 11.4x - 11.8x against 10.3x - 10.7x before. The unknowns halve, but the near pairs of the
+twelve long mapped panels cost most of what the smaller matrices save (stages of the 09:19
+run after: near panels 1.21 + 1.67 ms, against 0.44 + 0.78 at 148 + 344 before; far sums
+0.05 + 0.14, self 0.14 + 0.18, LU and solve 0.05 + 0.27): a mapped panel's 4-node rule sees
+the map's distortion, so targets whose kernel singularity in the panel parameter lies inside
+the near ellipse reach several panel lengths (level 1: 1392 real and 821 image pairs, 36,000
+kernel values, against 598 + 0 pairs of the straight panels). Tried and not kept: the mapped
+panel halved once at level 0 (100 + 200 unknowns, 6.2 ms); 4-point near sub-rules at the
+1e-6 entries (errors of the potential of a unit density up to 4.5e-6 on the sharp probe).
+The 30x target is not met.
 """
 
 from __future__ import annotations
