@@ -145,6 +145,8 @@ def _nearest2(cr, cz, cloud_r, cloud_z, ends, box, bound):
     """The least squared distance (m^2) from (cr, cz) to the boxed cloud points, exactly as
     the plain minimum over all of them: a box is skipped only when its lower bound is not
     below the least distance found so far (``bound``: scratch (k,))."""
+    if len(ends) == 0:
+        return np.inf
     first = 0
     for c in range(len(ends)):
         bound[c] = _box_bound2(cr, box[c, 0], box[c, 1]) + _box_bound2(cz, box[c, 2], box[c, 3])
