@@ -180,6 +180,27 @@ kernel values, against 598 + 0 pairs of the straight panels). Tried and not kept
 panel halved once at level 0 (100 + 200 unknowns, 6.2 ms); 4-point near sub-rules at the
 1e-6 entries (errors of the potential of a unit density up to 4.5e-6 on the sharp probe).
 The 30x target is not met.
+
+3 Dec 2026 09:38 - 09:40, main's package at 477c9d7 against the gapgrade branch (level-0
+balance and gap splits of segment/arc curves in compiled passes, ``grading_kernels.py``; the
+same panels, meshes and C bit for bit), ``uptime`` load 0.8 - 1.1 (other work beside it).
+Level-0 grading alone (``mesh._base_panels`` with its caches cleared, CPU us, median of 2000,
+three alternating before/after process pairs; "new layout": a freshly built layout each
+time, so the curves' samples and corners are computed in it, as in a study trial):
+
+    probe      new layout before -> after   same layout before -> after
+    filleted   650 - 666 -> 298 - 300       497 - 511 -> 155 - 156
+    sharp      403 - 410 -> 225 - 236       317 - 324 -> 142 - 145
+
+Inside it (same layout, wall us, nested): _refine_gaps 320 - 330 -> 43 - 44 (filleted),
+193 - 201 -> 36 (sharp); _balance 119 - 123 -> 28, 63 - 65 -> 22. A trial (``bem_run``) timed
+300 times per process, three alternating pairs: filleted 5.06 / 5.14 / 5.23 -> 4.58 / 4.71 /
+4.61 ms, sharp 5.71 / 5.79 / 5.71 -> 5.56 / 5.60 / 5.38 ms. ``--repeats 9 --stages --before``
+at 09:40 (load 0.9 -> 1.1; the machine slower than at 09:19, the same package took 5.3
+instead of 4.0 - 4.5 ms): filleted 5.28 -> 4.73 ms (FEM 88.0 ms: 16.7x -> 18.6x), sharp 5.62
+-> 5.69 ms (72.9 ms: 13.0x -> 12.8x, noise), level-0 grading stage after 0.21 / 0.18 ms. The
+kernels load from numba's cache once per process (about 8 - 11 ms CPU after the runtime's own
+start). The 30x target is not met.
 """
 
 from __future__ import annotations
