@@ -21,6 +21,7 @@ from elopt.physics.bem_axi.dielectric_solve import dielectric_model
 from elopt.physics.bem_axi.solve import COARSE_RULE, CONDUCTOR_COARSE_RULE
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
 from elopt.physics.electrodes.uniform_field import UniformField, UniformFieldParams
+from elopt.physics.errors import GeometryError
 from elopt.physics.layout import Layout, driven
 
 RULES = (
@@ -204,7 +205,7 @@ def _simple_layouts() -> list[Layout]:
 
 
 def _random_layouts(count: int) -> list[Layout]:
-    """Coaxial spheres and disks at random sizes and gaps (timing-free geometry only)."""
+    """Coaxial spheres and disks at random sizes and gaps (10^-3 to 10^-0.5 apart)."""
     rng = np.random.default_rng(7)
     out = []
     while len(out) < count:
@@ -224,7 +225,7 @@ def _random_layouts(count: int) -> list[Layout]:
                     ground_plane=bool(rng.uniform() < 0.7),
                 )
             )
-        except Exception:  # shapes too close for the layout check: draw again
+        except GeometryError:  # rejected by the layout check: draw again
             continue
     return out
 

@@ -9,8 +9,11 @@ conductors' and the images' samples) and balances again, testing only panels new
 last test (an unchanged panel passed it before). Every value is computed by the same formulas,
 in the same order of operations, as the numpy functions of ``mesh.py`` (``_curve_lengths``,
 ``_curve_midpoints``, ``_CurvePanels.split``), so the panels are theirs bit for bit
-(``tests/test_axi_grading_kernels.py``). Curves with ellipse arcs (lengths by quadrature) stay
-on the numpy path. Compiled on first use (cached on disk); ``mesh.py`` imports this module only
+(``tests/test_axi_grading_kernels.py``; the arcs' cos and sin are the C library's, which
+numpy's matched on 200,000 random angles on the project machine). The nearest cloud point is
+searched through boxes of CHUNK points; a box is skipped only when a lower bound of its
+points' rounded squared distances is not below the least found so far, so the minimum is the
+plain one exactly. Curves with ellipse arcs (lengths by quadrature) stay on the numpy path. Compiled on first use (cached on disk); ``mesh.py`` imports this module only
 when it grades a curve.
 """
 
