@@ -24,7 +24,10 @@ import numpy as np
 
 from elopt.physics.bem2d.mesh import Panels
 from elopt.physics.bem2d.periodic import periodic_log_matrix, smooth_value, wrap
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
 from elopt.physics.quadrature import gauss_legendre
+
+drop_stale_kernel_caches()
 
 #: Targets closer than this many half-lengths to a panel's centre get the exact split.
 NEAR = 3.5

@@ -15,6 +15,10 @@ import math
 import numba
 import numpy as np
 
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
+
 _INV_4PI = 1.0 / (4.0 * np.pi)
 
 

@@ -20,6 +20,9 @@ import numpy as np
 import scipy.special
 
 from elopt.physics.bem2d.layered_green import TAIL, Slabs, octave_rule
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
 
 RAYS = 9
 

@@ -20,6 +20,9 @@ from numba import njit
 
 from elopt.physics.bem3d.mesh import TriangleMesh
 from elopt.physics.errors import GeometryError
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
 
 #: A triangle whose smallest height is below this fraction of its longest edge is degenerate.
 SLIVER_RATIO = 1e-6

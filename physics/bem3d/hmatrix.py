@@ -43,6 +43,9 @@ from numba import njit, prange
 
 from elopt.physics.bem3d import panel_integrals as pint
 from elopt.physics.bem3d.panels import PanelSet
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
 
 FOUR_PI = 4.0 * math.pi
 #: Leaf size and admissibility: on the guarded-pad demo's finest level (12,896 orbits) 16 / 4

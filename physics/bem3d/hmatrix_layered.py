@@ -66,6 +66,9 @@ from elopt.physics.bem3d.operators import (
     incomplete_lu,
 )
 from elopt.physics.errors import SolverError
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
 
 FOUR_PI = 4.0 * math.pi
 #: Neighbours within this many panel sizes measure how much of a part is stored densely.

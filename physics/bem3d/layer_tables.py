@@ -38,7 +38,10 @@ from numba import njit
 from scipy.special import j0, j1
 
 from elopt.physics.errors import SolverError
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
 from elopt.physics.layer_spectrum import TAIL_TOL, hankel_rule
+
+drop_stale_kernel_caches()
 
 #: Relative size of the truncated Hankel tail against the kernel scale (the shared value).
 HANKEL_TAIL = TAIL_TOL

@@ -56,8 +56,11 @@ from elopt.physics.bem3d.layer_tables import (
     hermite_value,
 )
 from elopt.physics.errors import GeometryError, SolverError
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
 from elopt.physics.layer_spectrum import StackSpectrum
 from elopt.physics.media import LayerStack
+
+drop_stale_kernel_caches()
 
 FOUR_PI = 4.0 * math.pi
 #: The remainder of a target-panel pair is integrated by the panel's centroid when its length

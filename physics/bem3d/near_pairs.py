@@ -11,6 +11,10 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
+
 
 def near_pairs(
     targets: np.ndarray, centers: np.ndarray, radii: np.ndarray

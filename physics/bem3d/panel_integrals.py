@@ -26,6 +26,10 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
+
 #: Heights over a triangle's plane below this fraction of its size count as in the plane.
 IN_PLANE = 1e-10
 #: Distance (in panel diameters) below which the closed form is used.

@@ -24,6 +24,10 @@ import math
 import numpy as np
 from numba import njit
 
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
+
 
 @njit(cache=True)
 def _lengths(piece_length, piece, t0, t1):

@@ -26,6 +26,9 @@ from elopt.physics.bem_axi.ring_sums import (
     straight_jac,
     subrule_point,
 )
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
 
 #: Deepest grading of the near-field sub-rules (2^-44 of a panel).
 MAX_LEVELS = 44

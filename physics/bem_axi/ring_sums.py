@@ -23,6 +23,10 @@ import math
 import numpy as np
 from numba import njit
 
+from elopt.physics.kernel_cache import drop_stale_kernel_caches
+
+drop_stale_kernel_caches()
+
 _SMALL_M = 1e-7
 
 
