@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -252,8 +253,22 @@ class Refinement:
     stop_reason: StopReason
 
 
+#: Seconds a reading of the available memory is reused: reading /proc/meminfo costs about
+#: 0.06 ms CPU, 2 % of a guarded-probe solve at 1e-4, which a study pays on every trial.
+MEMORY_READING_AGE_S = 1.0
+_memory_reading: list[float] = [-math.inf, 0.0]  # (monotonic time s, bytes) of the last one
+
+
 def available_memory_bytes() -> int:
-    """Memory the OS can give now (MemAvailable), or 4 GiB when it cannot say."""
+    """Memory the OS can give (MemAvailable) as read at most :data:`MEMORY_READING_AGE_S`
+    ago, or 4 GiB when it cannot say."""
+    now = time.monotonic()
+    if now - _memory_reading[0] > MEMORY_READING_AGE_S:
+        _memory_reading[:] = [now, _read_available_memory_bytes()]
+    return int(_memory_reading[1])
+
+
+def _read_available_memory_bytes() -> int:
     try:
         with open("/proc/meminfo", encoding="ascii") as fh:
             for line in fh:

@@ -90,6 +90,25 @@ def bernstein_rho(t: complex) -> float:
     return max(abs(t + root), abs(t - root))
 
 
+#: Relative margin around a Bernstein bound within which :func:`_rho_at_least` asks
+#: :func:`bernstein_rho` itself (both formulas err by a few units in the last place).
+FOCAL_MARGIN = 1e-9
+
+
+@njit(cache=True)
+def _rho_at_least(t: complex, focal: float, bound: float) -> bool:
+    """``bernstein_rho(t) >= bound`` (> 1) with the focal sum ``focal`` = |t - 1| + |t + 1| of
+    ``t``: the ellipse through t with foci -1 and 1 has rho + 1/rho = focal, increasing in rho
+    (rho >= 1), so a focal sum outside a relative FOCAL_MARGIN of bound + 1/bound decides it
+    without the two complex square roots; one inside it takes :func:`bernstein_rho`."""
+    edge = bound + 1.0 / bound
+    if focal > edge * (1.0 + FOCAL_MARGIN):
+        return True
+    if focal < edge * (1.0 - FOCAL_MARGIN):
+        return False
+    return bernstein_rho(t) >= bound
+
+
 @njit(cache=True)
 def _near_plan(
     tr: np.ndarray,
@@ -114,14 +133,16 @@ def _near_plan(
     sgn = -1.0 if mirror else 1.0
     keep = 0
     pre = np.empty(ti.shape[0], np.complex128)
-    rho = np.empty(ti.shape[0])
+    whole = np.zeros(ti.shape[0], np.bool_)  # a mapped pair's preimage beyond rho_whole
     for b in range(ti.shape[0]):
         j = pj[b]
         if kind[j] == 3:
-            pre[keep] = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], coef[j])
-            rho[keep] = bernstein_rho(pre[keep])
-            if rho[keep] >= rho_near:
+            t = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], coef[j])
+            focal = abs(t - 1.0) + abs(t + 1.0)
+            if _rho_at_least(t, focal, rho_near):
                 continue
+            pre[keep] = t
+            whole[keep] = _rho_at_least(t, focal, rho_whole)
         ti[keep] = ti[b]
         pj[keep] = j
         keep += 1
@@ -148,7 +169,7 @@ def _near_plan(
     for b in range(n):
         ratio = length[pj[b]] / max(delta[b], 1e-300)
         if kd[b] == 3:
-            if rho[b] >= rho_whole:
+            if whole[b]:
                 tau_c[b] = -1.0
                 levels[b] = 1
                 continue
