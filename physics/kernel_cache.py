@@ -36,6 +36,7 @@ KERNEL_MODULES = (
     "bem_axi/grading_kernels.py",
     "bem_axi/near_sums.py",
     "bem_axi/ring_sums.py",
+    "geometry_kernels.py",
 )
 PACKAGE_DIR = Path(__file__).resolve().parent
 STAMP_NAME = "kernel-sources.sha256"
