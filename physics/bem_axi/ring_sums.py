@@ -251,7 +251,10 @@ def batch_edges(counts: np.ndarray) -> np.ndarray:
     total = int(cum[-1]) if len(cum) else 0
     cuts = np.searchsorted(cum, np.arange(BATCH_PAIRS, total, BATCH_PAIRS), side="right")
     edges = np.concatenate(([0], cuts, [len(counts)]))  # non-decreasing: drop repeats
-    return edges[np.diff(edges, prepend=-1) != 0]
+    keep = np.empty(len(edges), np.bool_)  # (np.diff with prepend: twice the 6 us per call)
+    keep[0] = True
+    np.not_equal(edges[1:], edges[:-1], out=keep[1:])
+    return edges[keep]
 
 
 def collocation_sum(
