@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from test_axi_mesh_rules import _probe as guarded_probe
 
 from elopt.physics import geometry as geo
 
@@ -165,21 +166,8 @@ def test_compiled_check_answers_as_the_numpy_version():
 
 
 def test_compiled_check_on_the_families_curves():
-    from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
-
     for fillet_mm in (0.0, 0.001, 0.05, 0.2):
-        layout = GuardedDisk().build(
-            GuardedDiskParams(
-                sensor_radius_mm=2.0,
-                guard_gap_mm=0.1,
-                guard_width_mm=1.9,
-                thickness_mm=0.5,
-                fillet_mm=fillet_mm,
-                standoff_mm=0.2,
-                drive_V=1.0,
-            )
-        )
-        for conductor in layout.conductors:
+        for conductor in guarded_probe(fillet_mm).conductors:
             curve = conductor.shape
             for count in (4, 16, 64):
                 pts = curve.sample(count)
