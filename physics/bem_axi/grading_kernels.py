@@ -13,8 +13,9 @@ in the same order of operations, as the numpy functions of ``mesh.py`` (``_curve
 numpy's matched on 200,000 random angles on the project machine). The nearest cloud point is
 searched through boxes of CHUNK points; a box is skipped only when a lower bound of its
 points' rounded squared distances is not below the least found so far, so the minimum is the
-plain one exactly. Curves with ellipse arcs (lengths by quadrature) stay on the numpy path. Compiled on first use (cached on disk); ``mesh.py`` imports this module only
-when it grades a curve.
+plain one exactly. Curves with ellipse arcs (lengths by quadrature) stay on the numpy path.
+Compiled on first use (cached on disk); ``mesh.py`` imports this module only when it grades a
+curve.
 """
 
 from __future__ import annotations
