@@ -201,6 +201,18 @@ instead of 4.0 - 4.5 ms): filleted 5.28 -> 4.73 ms (FEM 88.0 ms: 16.7x -> 18.6x)
 -> 5.69 ms (72.9 ms: 13.0x -> 12.8x, noise), level-0 grading stage after 0.21 / 0.18 ms. The
 kernels load from numba's cache once per process (about 8 - 11 ms CPU after the runtime's own
 start). The 30x target is not met.
+
+3 Dec 2026 10:14, the merged main at 18595d7 (mapped corner panels, the layout and grading
+cuts, ``subrule_point`` inlined again into the near pass, the glue branch's memory reading,
+compiled self-intersection check, mapped near test and batch edges) against main's package at
+71162d8 (last stop's), ``--repeats 9 --before``, three runs, ``uptime`` load 0.7 -> 0.8, CPU ms:
+
+    probe       BEM cpu before -> after                  FEM cpu             FEM/BEM (median run)
+    filleted    4.25 / 4.40 / 4.37 -> 3.33 / 3.51 / 3.49   78.9 / 79.8 / 78.1  18.1x -> 22.7x
+    sharp       5.97 / 6.38 / 6.06 -> 4.22 / 4.43 / 4.51   65.0 / 67.1 / 65.6  10.8x -> 15.2x
+
+Unknowns 104+208 (filleted, both) and 148+344 -> 72+144 (sharp); C_sense errors 2.7e-6 (both)
+and 8.5e-8 -> 1.8e-6, estimates 2.2e-5 / 3.0e-5. The 30x target is not met.
 """
 
 from __future__ import annotations
