@@ -13,13 +13,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy.integrate import quad
+from test_axi_mesh_rules import _probe as guarded_probe
 
 from elopt.physics.bem_axi import mesh as axi_mesh
 from elopt.physics.bem_axi.operators import collocation_matrix, near_factor
 from elopt.physics.bem_axi.ring_kernels import ring_potential
 from elopt.physics.bem_axi.ring_sums import foot_points
 from elopt.physics.bem_axi.solve import COARSE_ENTRY_ERROR, mesh_rule
-from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
 from elopt.physics.quadrature import gauss_legendre
 
 ORDER = 4
@@ -28,16 +28,7 @@ ORDER = 4
 @pytest.fixture(scope="module")
 def probe_mesh() -> axi_mesh.AxiMesh:
     """Level 0 of a filleted guarded probe (segments and arcs) at the coarse 1e-4 rule."""
-    params = GuardedDiskParams(
-        sensor_radius_mm=2.0,
-        guard_gap_mm=0.1,
-        guard_width_mm=1.9,
-        thickness_mm=0.5,
-        fillet_mm=0.05,
-        standoff_mm=0.2,
-        drive_V=1.0,
-    )
-    layout = GuardedDisk().build(params)
+    layout = guarded_probe(0.05)
     return axi_mesh.build_mesh(layout, 0, ORDER, mesh_rule(ORDER, 1e-4, conductors_only=True))
 
 

@@ -515,12 +515,11 @@ def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
     for ci, (curve, panels, ends) in enumerate(_base_intervals(layout, rule)):
         corner_ends, mapped_ends = ends
         offset = len(pieces)
-        for pc in curve.pieces:
-            kd, sp = _piece_spec(pc)
-            pieces.append(pc)
-            conductor.append(ci)
-            kind.append(kd)
-            spec.append(sp)
+        _, piece_kind, piece_spec, _ = _curve_pieces(curve)  # cached by the grading
+        pieces.extend(curve.pieces)
+        conductor.append(np.full(len(curve.pieces), ci, dtype=np.int64))
+        kind.append(piece_kind)
+        spec.append(piece_spec)
         piece_id.append(panels.piece + offset)
         t0.append(panels.t0)
         t1.append(panels.t1)
@@ -536,9 +535,9 @@ def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
         t0=np.concatenate(t0),
         t1=np.concatenate(t1),
         pieces=tuple(pieces),
-        conductor=np.asarray(conductor, dtype=np.int64),
-        kind=np.asarray(kind, dtype=np.int64),
-        spec=np.asarray(spec, dtype=float).reshape(-1, 5),
+        conductor=np.concatenate(conductor),
+        kind=np.concatenate(kind),
+        spec=np.concatenate(spec),
         corner_ends=tuple(corners),
         mapped_ends=tuple(mapped),
         signs=signs,
