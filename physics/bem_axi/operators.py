@@ -2,9 +2,11 @@
 
 ``potential_matrix(mesh, X)`` returns T (M, N) with phi(X_m) = (1/eps) sum_n T[m, n] sigma_n
 for node values sigma (C/m^2); ``field_matrix`` returns (M, N, 2) for (E_r, E_z) likewise.
-Far panels use their Gauss nodes directly. Panels closer to a target than ``NEAR_FACTOR``
-times their length are integrated on sub-rules graded towards the target's foot point, with
-sigma interpolated from the panel's nodes. The collocation matrix replaces each panel's
+Far panels use their Gauss nodes directly, except the mapped corner panels of the collocation
+matrix, which take an upsampled Gauss rule in their parameter (:func:`mapped_far_rule`). Panels
+closer to a target than ``NEAR_FACTOR`` times their length (mapped ones: inside the Bernstein
+ellipse of their far rule) are integrated on sub-rules graded towards the target's foot
+point, with sigma interpolated from the panel's nodes. The collocation matrix replaces each panel's
 self-interaction by a product rule that integrates the logarithmic part of the kernel exactly.
 The grounded plane z = 0 enters through image panels at (r, -z) carrying -sigma.
 """
@@ -12,6 +14,7 @@ The grounded plane z = 0 enters through image panels at (r, -z) carrying -sigma.
 from __future__ import annotations
 
 import math
+from functools import lru_cache
 
 import numpy as np
 
@@ -21,13 +24,23 @@ from elopt.physics.bem_axi.ring_sums import (
     collocation_sum,
     field_sum,
     node_rows,
+    panel_points,
+    panel_rule_columns,
     potential_sum,
     self_rows,
 )
-from elopt.physics.quadrature import barycentric_weights, end_log_weights, gauss_legendre
+from elopt.physics.quadrature import (
+    barycentric_weights,
+    end_log_weights,
+    gauss_legendre,
+    lagrange_matrix,
+)
 
 #: A panel is "near" a target closer than at least this many panel lengths (lower bound).
 NEAR_FACTOR = 1.0
+#: Gauss points of a mapped corner panel's far rule in the collocation matrix: the panel's
+#: own, its image's in z = 0.
+MAPPED_FAR_POINTS = (12, 8)
 
 
 def entry_tolerance(p: int) -> float:
@@ -53,6 +66,12 @@ def near_factor(p: int, rel_error: float | None = None) -> float:
     rho = rel_error ** (-1.0 / (2 * p))
     x0 = 0.5 * (rho + 1.0 / rho)
     return max(0.5 * (x0 - 1.0), NEAR_FACTOR)
+
+
+def mapped_rho(n: int, rel_error: float) -> float:
+    """Bernstein-ellipse parameter of [-1, 1] outside which an n-point Gauss rule in a mapped
+    panel's parameter is accurate to ``rel_error`` (error like rho^(-2n))."""
+    return rel_error ** (-1.0 / (2 * n))
 
 
 def _rule_order(p: int) -> int:
@@ -82,18 +101,26 @@ def _correct_near(
     mirror: bool,
     exclude_self: bool,
     rel_error: float | None = None,
+    mapped_points: int | None = None,
 ) -> None:
-    """Replace the direct-rule value of (target, panel) pairs closer than
+    """Replace the far-rule value of (target, panel) pairs closer than
     (:func:`near_factor` + 1/2) panel lengths to the panel's centre by graded sub-rules, with
     sigma interpolated from the panel's nodes (in place; :mod:`near_sums`).
 
+    The far rule of a mapped panel is what ``mat`` holds for it: its node rule
+    (``mapped_points`` None) or the ``mapped_points``-point rule of :func:`mapped_far_rule`;
+    its near pairs are those inside the Bernstein ellipse where that rule errs by
+    ``rel_error`` (:func:`mapped_rho`).
     ``mat`` (M, N, ncomp) holds real-minus-image sums; image corrections enter with a minus.
     Each (target, node) pair occurs once, so a plain indexed add is exact.
     """
     p = mesh.order
+    if rel_error is None:
+        rel_error = entry_tolerance(p)
     xq, wq = gauss_legendre(_rule_order(p))
     factor = near_factor(p, rel_error)
-    rho = _bernstein_rho(factor)
+    rho = mapped_rho(mapped_points, rel_error) if mapped_points else _bernstein_rho(factor)
+    far = gauss_legendre(mapped_points) if mapped_points else None
     add_near_corrections(
         mat,
         np.ascontiguousarray(targets[:, 0]),
@@ -115,6 +142,7 @@ def _correct_near(
         barycentric_weights(p),
         xq,
         wq,
+        far,
     )
 
 
@@ -126,7 +154,7 @@ def _bernstein_rho(factor: float) -> float:
 
 
 def _reach(mesh: AxiMesh, factor: float, rho: float) -> np.ndarray:
-    """Distance (P,) from each panel's centre beyond which its node rule is accurate: the
+    """Distance (P,) from each panel's centre beyond which its far rule is accurate: the
     panel's length times ``factor`` + 1/2; a mapped panel's (chord fraction u^m), the
     Bernstein ellipse ``rho`` about its parameter interval reaches |u| up to
     1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord lengths from its corner (the
@@ -170,18 +198,65 @@ def collocation_matrix(
     mesh: AxiMesh, ground_plane: bool, entry_error: float | None = None
 ) -> np.ndarray:
     """A (N, N): potential at each node, with exact log-singular self-panel integration;
-    off-panel entries to relative error ``entry_error`` (default :func:`entry_tolerance`)."""
+    off-panel entries to relative error ``entry_error`` (default :func:`entry_tolerance`).
+    Mapped panels' far columns take :func:`mapped_far_rule` of ``MAPPED_FAR_POINTS`` points."""
     src = mesh.points_m
     r, z = np.ascontiguousarray(src[:, 0]), np.ascontiguousarray(src[:, 1])
     p = mesh.order
-    mat = collocation_sum(r, z, mesh.weights_m, ground_plane, own_run=p)[..., None]
-    _correct_near(mat, mesh, src, False, True, entry_error)
+    mat = collocation_sum(r, z, mesh.weights_m, ground_plane, own_run=p)
+    n_real, n_image = _set_mapped_columns(mat, mesh, ground_plane)
+    mat = mat[..., None]
+    _correct_near(mat, mesh, src, False, True, entry_error, n_real)
     if ground_plane:
-        _correct_near(mat, mesh, src, True, False, entry_error)
+        _correct_near(mat, mesh, src, True, False, entry_error, n_image)
     mat = mat[..., 0]
     idx = np.arange(mesh.n_panels)[:, None] * p + np.arange(p)
     mat[idx[:, :, None], idx[:, None, :]] += _self_blocks(mesh)
     return mat
+
+
+def _set_mapped_columns(
+    mat: np.ndarray, mesh: AxiMesh, ground_plane: bool
+) -> tuple[int | None, int | None]:
+    """Overwrite the columns of the mapped panels in the far sum ``mat`` (N, N) (their node
+    rule) by :func:`mapped_far_rule` of ``MAPPED_FAR_POINTS`` points, the image's with the
+    second count; returns those counts (None, None without mapped panels)."""
+    panels = np.flatnonzero(mesh.kind == KIND_MAPPED)
+    if len(panels) == 0:
+        return None, None
+    p = mesh.order
+    n_real, n_image = MAPPED_FAR_POINTS
+    r, z = np.ascontiguousarray(mesh.points_m[:, 0]), np.ascontiguousarray(mesh.points_m[:, 1])
+    cols = (panels[:, None] * p + np.arange(p)).ravel()
+    pts, rule = mapped_far_rule(mesh, panels, n_real)
+    own = np.arange(mesh.n_nodes) // p  # each node's own panel: the self rule's
+    mat[:, cols] = panel_rule_columns(r, z, pts[:, 0].copy(), pts[:, 1].copy(), rule, own, panels)
+    if ground_plane:
+        pts, rule = mapped_far_rule(mesh, panels, n_image)
+        none = np.full(mesh.n_nodes, -1)
+        mat[:, cols] -= panel_rule_columns(r, z, pts[:, 0].copy(), -pts[:, 1], rule, none, panels)
+    return n_real, n_image
+
+
+def mapped_far_rule(mesh: AxiMesh, panels: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """The far rule of mapped panels ``panels`` (J,): n Gauss points in each one's parameter,
+    points (J * n, 2) in m (panel-major), and weights (J, n, p) of its node values of sigma:
+    Gauss weight times the Lagrange basis of the p nodes at the point times the node's
+    ``interp_jac`` (the panel interpolates sigma times the length element; the ring kernel
+    carries r'). Accurate outside :func:`mapped_rho` (n), where the node rule needs
+    :func:`mapped_rho` (p)."""
+    pts = panel_points(mesh.kind[panels], mesh.coef[panels], gauss_legendre(n)[0])
+    scale = mesh.density_scale.reshape(-1, mesh.order)[panels]
+    return pts, _far_basis(n, mesh.order)[None] * scale[:, None, :]
+
+
+@lru_cache(maxsize=16)
+def _far_basis(n: int, p: int) -> np.ndarray:
+    """(n, p): the n-point Gauss weights times the Lagrange basis of p Gauss nodes there."""
+    s, ws = gauss_legendre(n)
+    out = ws[:, None] * lagrange_matrix(s, p)
+    out.setflags(write=False)
+    return out
 
 
 def _self_blocks(mesh: AxiMesh) -> np.ndarray:

@@ -278,6 +278,79 @@ def collocation_sum(
     return out
 
 
+@njit(cache=True, error_model="numpy")
+def _point_params(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    own: np.ndarray,
+    point_panel: np.ndarray,
+    i0: int,
+    i1: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    """m1 and r' / (pi rho_plus) (B,) of targets i0..i1-1 against the points (U,), row by
+    row. A point on the target's own panel (``own[i] == point_panel[u]``) or coincident with
+    it takes m1 = 1 and a zero scale (value 0)."""
+    n_u = sr.shape[0]
+    m1 = np.empty((i1 - i0) * n_u)
+    scale = np.empty((i1 - i0) * n_u)
+    for i in range(i0, i1):
+        e = (i - i0) * n_u
+        for u in range(n_u):
+            dz = tz[i] - sz[u]
+            a = tr[i] + sr[u]
+            b = tr[i] - sr[u]
+            inv = 1.0 / (a * a + dz * dz)
+            rm2 = b * b + dz * dz
+            keep = rm2 > 0.0 and own[i] != point_panel[u]
+            m1[e + u] = rm2 * inv if keep else 1.0
+            scale[e + u] = sr[u] * math.sqrt(inv) * _INV_PI if keep else 0.0
+    return m1, scale
+
+
+@njit(cache=True)
+def _point_fill(v: np.ndarray, rule: np.ndarray, i0: int, i1: int, out: np.ndarray) -> None:
+    """Rows i0..i1-1 of :func:`panel_rule_columns` from the values ``v`` (order of
+    :func:`_point_params`)."""
+    n_pan, n_u, p = rule.shape
+    for i in range(i0, i1):
+        e = (i - i0) * n_pan * n_u
+        for j in range(n_pan):
+            for k in range(p):
+                out[i, j * p + k] = 0.0
+            for u in range(n_u):
+                g = v[e + j * n_u + u]
+                for k in range(p):
+                    out[i, j * p + k] += g * rule[j, u, k]
+
+
+def panel_rule_columns(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    rule: np.ndarray,
+    own: np.ndarray,
+    panels: np.ndarray,
+) -> np.ndarray:
+    """(M, J * p): the potential at targets (M,) ``tr``, ``tz`` of J panels, each integrated
+    by its own points (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights
+    ``rule`` (J, n, p): column j * p + k is sum_u G(t, s_(j, u)) rule[j, u, k], G the ring
+    potential (times r'). Targets whose ``own`` (M,) panel is ``panels[j]`` (J,) leave that
+    panel out (the self rule's; -1: none). Values in batches of about ``BATCH_PAIRS`` through
+    :func:`scaled_k`."""
+    n_pan, n_u, p = rule.shape
+    m = tr.shape[0]
+    out = np.empty((m, n_pan * p))
+    point_panel = np.repeat(panels, n_u)
+    edges = batch_edges(np.full(m, len(sr)))
+    for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
+        m1, scale = _point_params(tr, tz, sr, sz, own, point_panel, int(i0), int(i1))
+        _point_fill(scaled_k(m1, scale), rule, int(i0), int(i1), out)
+    return out
+
+
 @njit(cache=True)
 def node_rows(
     tr: np.ndarray,
@@ -384,6 +457,18 @@ def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, flo
         c[0] + c[2] * math.sin(u),
         du * math.hypot(c[1] * math.sin(u), c[2] * math.cos(u)),
     )
+
+
+@njit(cache=True)
+def panel_points(kind: np.ndarray, coef: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Points (J * n, 2) of panels (J,) ``kind``, ``coef`` at parameters ``tau`` (n,), panel-major
+    (:func:`panel_point`)."""
+    n = tau.shape[0]
+    out = np.empty((kind.shape[0] * n, 2))
+    for j in range(kind.shape[0]):
+        for u in range(n):
+            out[j * n + u, 0], out[j * n + u, 1], _ = panel_point(kind[j], coef[j], tau[u])
+    return out
 
 
 @njit(cache=True)
