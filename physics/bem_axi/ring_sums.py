@@ -285,44 +285,49 @@ def _point_params(
     sr: np.ndarray,
     sz: np.ndarray,
     own: np.ndarray,
-    point_panel: np.ndarray,
+    panels: np.ndarray,
     i0: int,
     i1: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """m1 and r' / (pi rho_plus) (B,) of targets i0..i1-1 against the points (U,), row by
-    row. A point on the target's own panel (``own[i] == point_panel[u]``) or coincident with
-    it takes m1 = 1 and a zero scale (value 0)."""
-    n_u = sr.shape[0]
-    m1 = np.empty((i1 - i0) * n_u)
-    scale = np.empty((i1 - i0) * n_u)
+    """m1 and r' / (pi rho_plus) (B,) of targets i0..i1-1 against the points (J * n,), row by
+    row; the points of the target's ``own`` panel (one of ``panels`` (J,)) take m1 = 1 and a
+    zero scale (value 0). Other panels' points never meet a target node (Gauss points lie
+    inside their panel), so the loop has no branch."""
+    n_pts = sr.shape[0]
+    n_u = n_pts // panels.shape[0]
+    m1 = np.empty((i1 - i0) * n_pts)
+    scale = np.empty((i1 - i0) * n_pts)
     for i in range(i0, i1):
-        e = (i - i0) * n_u
-        for u in range(n_u):
+        e = (i - i0) * n_pts
+        for u in range(n_pts):
             dz = tz[i] - sz[u]
             a = tr[i] + sr[u]
             b = tr[i] - sr[u]
             inv = 1.0 / (a * a + dz * dz)
-            rm2 = b * b + dz * dz
-            keep = rm2 > 0.0 and own[i] != point_panel[u]
-            m1[e + u] = rm2 * inv if keep else 1.0
-            scale[e + u] = sr[u] * math.sqrt(inv) * _INV_PI if keep else 0.0
+            m1[e + u] = (b * b + dz * dz) * inv
+            scale[e + u] = sr[u] * math.sqrt(inv) * _INV_PI
+        for j in range(panels.shape[0]):
+            if panels[j] == own[i]:
+                for u in range(j * n_u, (j + 1) * n_u):
+                    m1[e + u] = 1.0
+                    scale[e + u] = 0.0
     return m1, scale
 
 
 @njit(cache=True)
-def _point_fill(v: np.ndarray, rule: np.ndarray, i0: int, i1: int, out: np.ndarray) -> None:
+def _point_fill(v: np.ndarray, rule_t: np.ndarray, i0: int, i1: int, out: np.ndarray) -> None:
     """Rows i0..i1-1 of :func:`panel_rule_columns` from the values ``v`` (order of
-    :func:`_point_params`)."""
-    n_pan, n_u, p = rule.shape
+    :func:`_point_params`) and the rule transposed, ``rule_t`` (J, p, n)."""
+    n_pan, p, n_u = rule_t.shape
     for i in range(i0, i1):
         e = (i - i0) * n_pan * n_u
         for j in range(n_pan):
+            base = e + j * n_u
             for k in range(p):
-                out[i, j * p + k] = 0.0
-            for u in range(n_u):
-                g = v[e + j * n_u + u]
-                for k in range(p):
-                    out[i, j * p + k] += g * rule[j, u, k]
+                acc = 0.0
+                for u in range(n_u):
+                    acc += v[base + u] * rule_t[j, k, u]
+                out[i, j * p + k] = acc
 
 
 def panel_rule_columns(
@@ -340,14 +345,13 @@ def panel_rule_columns(
     potential (times r'). Targets whose ``own`` (M,) panel is ``panels[j]`` (J,) leave that
     panel out (the self rule's; -1: none). Values in batches of about ``BATCH_PAIRS`` through
     :func:`scaled_k`."""
-    n_pan, n_u, p = rule.shape
     m = tr.shape[0]
-    out = np.empty((m, n_pan * p))
-    point_panel = np.repeat(panels, n_u)
+    out = np.empty((m, rule.shape[0] * rule.shape[2]))
+    rule_t = np.ascontiguousarray(rule.transpose(0, 2, 1))
     edges = batch_edges(np.full(m, len(sr)))
     for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
-        m1, scale = _point_params(tr, tz, sr, sz, own, point_panel, int(i0), int(i1))
-        _point_fill(scaled_k(m1, scale), rule, int(i0), int(i1), out)
+        m1, scale = _point_params(tr, tz, sr, sz, own, panels, int(i0), int(i1))
+        _point_fill(scaled_k(m1, scale), rule_t, int(i0), int(i1), out)
     return out
 
 
