@@ -128,9 +128,7 @@ def _correct_near(
         mesh.kind,
         mesh.coef,
         mesh.length_m,
-        np.ascontiguousarray(mesh.center_m[:, 0]),
-        np.ascontiguousarray(mesh.center_m[:, 1]),
-        _reach(mesh, factor, rho),
+        *_near_zones(mesh, factor, rho),
         np.ascontiguousarray(mesh.points_m[:, 0]),
         np.ascontiguousarray(mesh.points_m[:, 1]),
         mesh.weights_m,
@@ -153,18 +151,23 @@ def _bernstein_rho(factor: float) -> float:
     return x0 + math.sqrt(x0 * x0 - 1.0)
 
 
-def _reach(mesh: AxiMesh, factor: float, rho: float) -> np.ndarray:
-    """Distance (P,) from each panel's centre beyond which its far rule is accurate: the
-    panel's length times ``factor`` + 1/2; a mapped panel's (chord fraction u^m), the
-    Bernstein ellipse ``rho`` about its parameter interval reaches |u| up to
-    1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord lengths from its corner (the
-    near pass then takes only the pairs inside that ellipse)."""
+def _near_zones(
+    mesh: AxiMesh, factor: float, rho: float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centres (P,) r, z and radii (P,) of the discs beyond which each panel's far rule is
+    accurate: about the panel's centre, its length times ``factor`` + 1/2; a mapped panel's
+    (chord fraction u^m) about its corner: the Bernstein ellipse ``rho`` about its parameter
+    interval reaches |u| up to 1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord
+    lengths from the corner (the near pass then takes only the pairs inside that ellipse)."""
+    centre = mesh.center_m.copy()
     reach = (factor + 0.5) * mesh.length_m
     mapped = mesh.kind == KIND_MAPPED
     if mapped.any():
+        c = mesh.coef[mapped]
+        centre[mapped] = np.where(c[:, 4:5] > 0, c[:, 0:2], c[:, 2:4])
         u_max = 0.5 + 0.25 * (rho + 1.0 / rho)
-        reach[mapped] = (u_max ** np.abs(mesh.coef[mapped, 4]) + 0.5) * mesh.length_m[mapped]
-    return reach
+        reach[mapped] = u_max ** np.abs(c[:, 4]) * mesh.length_m[mapped]
+    return centre[:, 0].copy(), centre[:, 1].copy(), reach
 
 
 def _operator(
