@@ -227,17 +227,17 @@ def _set_mapped_columns(
     panels = np.flatnonzero(mesh.kind == KIND_MAPPED)
     if len(panels) == 0:
         return None, None
-    p = mesh.order
     n_real, n_image = MAPPED_FAR_POINTS
     r, z = np.ascontiguousarray(mesh.points_m[:, 0]), np.ascontiguousarray(mesh.points_m[:, 1])
-    cols = (panels[:, None] * p + np.arange(p)).ravel()
     pts, rule = mapped_far_rule(mesh, panels, n_real)
-    own = np.arange(mesh.n_nodes) // p  # each node's own panel: the self rule's
-    mat[:, cols] = panel_rule_columns(r, z, pts[:, 0].copy(), pts[:, 1].copy(), rule, own, panels)
+    own = np.arange(mesh.n_nodes) // mesh.order  # each node's own panel: the self rule's
+    sr, sz = pts[:, 0].copy(), pts[:, 1].copy()
+    panel_rule_columns(mat, r, z, sr, sz, rule, own, panels, 1.0, False)
     if ground_plane:
         pts, rule = mapped_far_rule(mesh, panels, n_image)
         none = np.full(mesh.n_nodes, -1)
-        mat[:, cols] -= panel_rule_columns(r, z, pts[:, 0].copy(), -pts[:, 1], rule, none, panels)
+        sr, sz = pts[:, 0].copy(), -pts[:, 1]
+        panel_rule_columns(mat, r, z, sr, sz, rule, none, panels, -1.0, True)
     return n_real, n_image
 
 

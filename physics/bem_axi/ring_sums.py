@@ -315,7 +315,16 @@ def _point_params(
 
 
 @njit(cache=True)
-def _point_fill(v: np.ndarray, rule_t: np.ndarray, i0: int, i1: int, out: np.ndarray) -> None:
+def _point_fill(
+    v: np.ndarray,
+    rule_t: np.ndarray,
+    panels: np.ndarray,
+    sign: float,
+    add: bool,
+    i0: int,
+    i1: int,
+    mat: np.ndarray,
+) -> None:
     """Rows i0..i1-1 of :func:`panel_rule_columns` from the values ``v`` (order of
     :func:`_point_params`) and the rule transposed, ``rule_t`` (J, p, n)."""
     n_pan, p, n_u = rule_t.shape
@@ -327,10 +336,12 @@ def _point_fill(v: np.ndarray, rule_t: np.ndarray, i0: int, i1: int, out: np.nda
                 acc = 0.0
                 for u in range(n_u):
                     acc += v[base + u] * rule_t[j, k, u]
-                out[i, j * p + k] = acc
+                col = panels[j] * p + k
+                mat[i, col] = (mat[i, col] if add else 0.0) + sign * acc
 
 
 def panel_rule_columns(
+    mat: np.ndarray,
     tr: np.ndarray,
     tz: np.ndarray,
     sr: np.ndarray,
@@ -338,21 +349,22 @@ def panel_rule_columns(
     rule: np.ndarray,
     own: np.ndarray,
     panels: np.ndarray,
-) -> np.ndarray:
-    """(M, J * p): the potential at targets (M,) ``tr``, ``tz`` of J panels, each integrated
-    by its own points (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights
-    ``rule`` (J, n, p): column j * p + k is sum_u G(t, s_(j, u)) rule[j, u, k], G the ring
+    sign: float,
+    add: bool,
+) -> None:
+    """Set (``add`` False) or add to the node columns of J panels in ``mat`` (M, N) ``sign``
+    times their potential at targets (M,) ``tr``, ``tz``, each panel integrated by its own
+    points (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights ``rule``
+    (J, n, p): column panels[j] * p + k takes sum_u G(t, s_(j, u)) rule[j, u, k], G the ring
     potential (times r'). Targets whose ``own`` (M,) panel is ``panels[j]`` (J,) leave that
     panel out (the self rule's; -1: none). Values in batches of about ``BATCH_PAIRS`` through
     :func:`scaled_k`."""
     m = tr.shape[0]
-    out = np.empty((m, rule.shape[0] * rule.shape[2]))
     rule_t = np.ascontiguousarray(rule.transpose(0, 2, 1))
     edges = batch_edges(np.full(m, len(sr)))
     for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
         m1, scale = _point_params(tr, tz, sr, sz, own, panels, int(i0), int(i1))
-        _point_fill(scaled_k(m1, scale), rule_t, int(i0), int(i1), out)
-    return out
+        _point_fill(scaled_k(m1, scale), rule_t, panels, sign, add, int(i0), int(i1), mat)
 
 
 @njit(cache=True)
