@@ -69,6 +69,33 @@ def _pairs(
 
 
 @njit(cache=True)
+def near_zones(
+    kind: np.ndarray,
+    coef: np.ndarray,
+    length: np.ndarray,
+    centre: np.ndarray,
+    factor: float,
+    u_max: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centres (P,) r, z and radii (P,) of the near discs of panels (P,) ``kind``, ``coef``,
+    ``length``, ``centre`` (P, 2): the centre and (``factor`` + 1/2) lengths; a mapped panel's
+    (kind 3, chord fraction u^m) its corner and ``u_max``^m chord lengths."""
+    n = kind.shape[0]
+    cr, cz, reach = np.empty(n), np.empty(n), np.empty(n)
+    for j in range(n):
+        c = coef[j]
+        if kind[j] == 3:
+            at_start = c[4] > 0
+            cr[j] = c[0] if at_start else c[2]
+            cz[j] = c[1] if at_start else c[3]
+            reach[j] = u_max ** abs(c[4]) * length[j]
+        else:
+            cr[j], cz[j] = centre[j, 0], centre[j, 1]
+            reach[j] = (factor + 0.5) * length[j]
+    return cr, cz, reach
+
+
+@njit(cache=True)
 def mapped_preimage(r: float, z: float, c: np.ndarray) -> complex:
     """The complex parameter tau of a mapped panel (coefficients ``c``, ``mesh.KIND_MAPPED``)
     where the kernel of the point (r, z) is singular nearest the parameter interval: its

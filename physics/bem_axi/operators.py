@@ -19,7 +19,7 @@ from functools import lru_cache
 import numpy as np
 
 from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh
-from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections
+from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections, near_zones
 from elopt.physics.bem_axi.ring_sums import (
     collocation_sum,
     field_sum,
@@ -159,15 +159,8 @@ def _near_zones(
     (chord fraction u^m) about its corner: the Bernstein ellipse ``rho`` about its parameter
     interval reaches |u| up to 1/2 + (rho + 1/rho) / 4, i.e. that to the m-th power chord
     lengths from the corner (the near pass then takes only the pairs inside that ellipse)."""
-    centre = mesh.center_m.copy()
-    reach = (factor + 0.5) * mesh.length_m
-    mapped = mesh.kind == KIND_MAPPED
-    if mapped.any():
-        c = mesh.coef[mapped]
-        centre[mapped] = np.where(c[:, 4:5] > 0, c[:, 0:2], c[:, 2:4])
-        u_max = 0.5 + 0.25 * (rho + 1.0 / rho)
-        reach[mapped] = u_max ** np.abs(c[:, 4]) * mesh.length_m[mapped]
-    return centre[:, 0].copy(), centre[:, 1].copy(), reach
+    u_max = 0.5 + 0.25 * (rho + 1.0 / rho)
+    return near_zones(mesh.kind, mesh.coef, mesh.length_m, mesh.center_m, factor, u_max)
 
 
 def _operator(
@@ -213,8 +206,10 @@ def collocation_matrix(
     if ground_plane:
         _correct_near(mat, mesh, src, True, False, entry_error, n_image)
     mat = mat[..., 0]
-    idx = np.arange(mesh.n_panels)[:, None] * p + np.arange(p)
-    mat[idx[:, :, None], idx[:, None, :]] += _self_blocks(mesh)
+    # The diagonal blocks (P, p, p) as a view (einsum's views are writeable): a third of the
+    # time of a fancy-indexed add.
+    blocks = np.einsum("ikil->ikl", mat.reshape(mesh.n_panels, p, mesh.n_panels, p))
+    blocks += _self_blocks(mesh)
     return mat
 
 

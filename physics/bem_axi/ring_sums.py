@@ -249,6 +249,8 @@ def batch_edges(counts: np.ndarray) -> np.ndarray:
     of about ``BATCH_PAIRS`` values (at least one item per batch)."""
     cum = np.cumsum(counts)
     total = int(cum[-1]) if len(cum) else 0
+    if total <= BATCH_PAIRS:  # one batch (most calls: 6 us -> 1 us)
+        return np.array([0, len(counts)])
     cuts = np.searchsorted(cum, np.arange(BATCH_PAIRS, total, BATCH_PAIRS), side="right")
     edges = np.concatenate(([0], cuts, [len(counts)]))  # non-decreasing: drop repeats
     keep = np.empty(len(edges), np.bool_)  # (np.diff with prepend: twice the 6 us per call)
