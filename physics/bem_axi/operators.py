@@ -39,7 +39,10 @@ from elopt.physics.quadrature import (
 #: A panel is "near" a target closer than at least this many panel lengths (lower bound).
 NEAR_FACTOR = 1.0
 #: Gauss points of a mapped corner panel's far rule in the collocation matrix: the panel's
-#: own, its image's in z = 0.
+#: own, its image's in z = 0. Measured (collocation of both levels of three sharp guarded
+#: probes, 1e-6 entries, in-process A/B): (12, 8) 1.56 - 2.72 ms, against (10, 8), (14, 8),
+#: (12, 6), (12, 10), (10, 6), (14, 10) 0.3 - 12 % slower; fewer points put more pairs near,
+#: more cost every target.
 MAPPED_FAR_POINTS = (12, 8)
 
 
