@@ -413,13 +413,19 @@ def build_mesh(
     """
     if rule is None:
         rule = default_rule(order)
+    from elopt.physics.bem_axi.mesh_kernels import split_panels
+
     base = _base_panels(layout, rule)
-    frac = np.linspace(0.0, 1.0, 2**level + 1)
-    edges = base.t0[:, None] + (base.t1 - base.t0)[:, None] * frac  # (M, 2**level + 1)
-    piece = np.repeat(base.piece, 2**level)
-    t0, t1 = edges[:, :-1].ravel(), edges[:, 1:].ravel()
+    piece, t0, t1 = split_panels(base.piece, base.t0, base.t1, _level_fractions(level))
     piece, t0, t1 = _grade_corners(base, piece, t0, t1, rule.steps_per_level * level, rule)
     return _assemble_mesh(layout, base, piece, t0, t1, level, order)
+
+
+@lru_cache(maxsize=16)
+def _level_fractions(level: int) -> np.ndarray:
+    """Fractions (2**level + 1,) of a level-0 panel's parameter interval at its level-``level``
+    panels' edges."""
+    return np.linspace(0.0, 1.0, 2**level + 1)
 
 
 def level_zero_unknowns(layout: Layout, order: int, rule: MeshRule | None = None) -> int:
@@ -478,7 +484,8 @@ class _BasePanels:
     touching the corner is mapped at every level, never graded further);
     ``signs`` (conductors,): orientation of each conductor's normal; ``corner_piece``,
     ``corner_at_end`` (K,): ``corner_ends`` as arrays; ``mapped_piece`` (M,) and
-    ``mapped_power`` (M,): ``mapped_ends``' pieces and map powers, negative at a piece's end.
+    ``mapped_power`` (M,) (float; ``mapped_powers`` the same as ints): ``mapped_ends``' pieces
+    and map powers, negative at a piece's end.
     """
 
     piece: np.ndarray
@@ -494,7 +501,8 @@ class _BasePanels:
     corner_piece: np.ndarray
     corner_at_end: np.ndarray
     mapped_piece: np.ndarray
-    mapped_power: tuple[int, ...]
+    mapped_power: np.ndarray
+    mapped_powers: tuple[int, ...]
 
 
 def _piece_spec(piece) -> tuple[int, tuple[float, ...]]:
@@ -550,7 +558,8 @@ def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
         corner_piece=np.array([k for k, _ in corners], dtype=np.int64),
         corner_at_end=np.array([e for _, e in corners], dtype=np.bool_),
         mapped_piece=np.array([k for k, _, _ in mapped], dtype=np.int64),
-        mapped_power=tuple(-m if e else m for _, e, m in mapped),
+        mapped_power=np.array([-m if e else m for _, e, m in mapped], dtype=float),
+        mapped_powers=tuple(-m if e else m for _, e, m in mapped),
     )
 
 
@@ -674,7 +683,7 @@ def _assemble_mesh(
     from elopt.physics.bem_axi.mesh_kernels import assemble_panels
 
     xg, wg = gauss_legendre(order)
-    frac, dfrac = _mapped_tables(order, base.mapped_power)
+    frac, dfrac = _mapped_tables(order, base.mapped_powers)
     (conductor, kind, coef, length, centre, at_corner, *nodes) = assemble_panels(
         base.kind,
         base.spec,
@@ -686,7 +695,7 @@ def _assemble_mesh(
         base.corner_piece,
         base.corner_at_end,
         base.mapped_piece,
-        np.asarray(base.mapped_power, dtype=float),
+        base.mapped_power,
         frac,
         dfrac,
         xg,

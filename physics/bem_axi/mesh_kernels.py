@@ -1,5 +1,7 @@
 """Compiled assembly of an axisymmetric mesh's panel and node arrays from its panels.
 
+:func:`split_panels` cuts the level-0 panels into a level's panels.
+
 :func:`assemble_panels` takes panels as flat arrays (P,): ``piece`` (index into the pieces),
 parameters ``t0`` < ``t1``; per piece (n,): ``piece_kind`` (``mesh.KIND_SEGMENT`` 0,
 ``KIND_ARC`` 1, ``KIND_ELLIPSE`` 2), ``piece_spec`` (n, 5) (``mesh._piece_spec``) and
@@ -25,6 +27,24 @@ from elopt.physics.kernel_cache import drop_stale_kernel_caches
 drop_stale_kernel_caches()
 
 _SEGMENT, _ARC, _MAPPED = 0, 1, 3
+
+
+@njit(cache=True)
+def split_panels(piece, t0, t1, frac):
+    """Panels (piece, t0, t1) (P,) each cut at the fractions ``frac`` (S + 1,) of its parameter
+    interval, edges t0 + (t1 - t0) * frac: panels (P * S,) in order."""
+    s = len(frac) - 1
+    n = len(piece)
+    piece2 = np.empty(n * s, np.int64)
+    a = np.empty(n * s)
+    b = np.empty(n * s)
+    for i in range(n):
+        d = t1[i] - t0[i]
+        for j in range(s):
+            piece2[i * s + j] = piece[i]
+            a[i * s + j] = t0[i] + d * frac[j]
+            b[i * s + j] = t0[i] + d * frac[j + 1]
+    return piece2, a, b
 
 
 @njit(cache=True)
