@@ -411,10 +411,10 @@ def build_mesh(
     :func:`default_rule`); level L splits every level-0 panel into 2**L and grades singular
     corners ``rule.steps_per_level * L`` steps more.
     """
-    if rule is None:
-        rule = default_rule(order)
     from elopt.physics.bem_axi.mesh_kernels import split_panels
 
+    if rule is None:
+        rule = default_rule(order)
     base = _base_panels(layout, rule)
     piece, t0, t1 = split_panels(base.piece, base.t0, base.t1, _level_fractions(level))
     piece, t0, t1 = _grade_corners(base, piece, t0, t1, rule.steps_per_level * level, rule)
@@ -680,6 +680,8 @@ def _assemble_mesh(
     level: int,
     order: int,
 ) -> AxiMesh:
+    """The mesh of the panels (piece, t0, t1) (P,) of ``base``'s pieces (compiled:
+    :func:`mesh_kernels.assemble_panels`)."""
     from elopt.physics.bem_axi.mesh_kernels import assemble_panels
 
     xg, wg = gauss_legendre(order)
