@@ -1,14 +1,15 @@
-"""The compiled mesh assembly (physics/bem_axi/mesh_kernels.py) gives the meshes of the plain
-numpy assembly bit for bit.
+"""The compiled mesh assembly (physics/bem_axi/mesh_kernels.py) gives the meshes of the plain numpy
+assembly bit for bit.
 
 The reference below is the numpy code the kernels replaced: level-0 panels cut into a level's
-panels at ``np.linspace`` fractions, panel coefficients from the pieces' specs, singular and mapped corner panels marked, nodes and centres by ``mesh.panel_geometry``,
-length elements, tangents, normals, weights, panel lengths and arc lengths. It is the
-project's own discretisation, not physics, so the check is equality with it: every array of
-the mesh with its dtype and shape to the last bit, at levels 0-3 with 4, 6 and 8 nodes per
-panel under every mesh rule, on the layouts of tests/test_axi_grading_kernels.py (guarded
-probes, their dielectric variants and interface chains, spheres, spheroids, disks, the
-uniform-field profile, random coaxial sets).
+panels at ``np.linspace`` fractions, panel coefficients from the pieces' specs, singular and
+mapped corner panels marked, nodes and centres by ``mesh.panel_geometry``, length elements,
+tangents, normals, weights, panel lengths and arc lengths. It is the project's own
+discretisation, not physics, so the check is equality with it: every array of the mesh with its
+dtype and shape to the last bit, at levels 0-3 with 4 and 6 nodes per panel (and 8 on the
+guarded probes and the simple layouts) under every mesh rule, on the layouts of
+tests/test_axi_grading_kernels.py (guarded probes, their dielectric variants and interface
+chains, spheres, spheroids, disks, the uniform-field profile, random coaxial sets).
 """
 
 from __future__ import annotations
