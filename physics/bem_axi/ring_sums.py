@@ -248,25 +248,31 @@ def _collocation_fill(
         c = img + (n - i if image else 0)
 
 
-@njit(cache=True)
 def batch_edges(counts: np.ndarray) -> np.ndarray:
     """Edges (k + 1,) cutting items with ``counts`` (n,) values each into consecutive batches
     of about ``BATCH_PAIRS`` values (at least one item per batch): a batch ends before the
-    item whose running count passes the next multiple of ``BATCH_PAIRS``. (Compiled: the numpy
-    form with cumsum and searchsorted took 5 - 7 us per call, a few calls per level.)"""
+    item whose running count passes the next multiple of ``BATCH_PAIRS`` (read here at each
+    call, so that tests can make batches small)."""
+    return _batch_edges(counts, BATCH_PAIRS)
+
+
+@njit(cache=True)
+def _batch_edges(counts: np.ndarray, batch: int) -> np.ndarray:
+    """:func:`batch_edges` with batches of about ``batch`` values (compiled: the numpy form
+    with cumsum and searchsorted took 5 - 7 us per call, a few calls per level)."""
     n = counts.shape[0]
     edges = np.empty(n + 1, np.int64)
     edges[0] = 0
     n_edges = 1
     running = 0
-    bound = BATCH_PAIRS
+    bound = batch
     for i in range(n):
         running += counts[i]
         while running > bound:
             if i > edges[n_edges - 1]:
                 edges[n_edges] = i
                 n_edges += 1
-            bound += BATCH_PAIRS
+            bound += batch
     if n > edges[n_edges - 1]:
         edges[n_edges] = n
         n_edges += 1
@@ -747,7 +753,8 @@ def _self_levels(
     n_rule: int,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Graded pieces per side (N,) of each node's self row and the start (N + 1,) of its
-    evaluations (per side and piece ``n_rule`` points, the innermost twice).
+    evaluations (per side and piece ``n_rule`` points, the innermost twice; a node lies inside
+    its panel, so both sides have pieces).
 
     Down to pieces of about half the target's distance r to the axis (the kernel's smooth part
     varies on that scale): 1 + ceil(log2(2 L / r)) pieces, L the panel length; on a mapped
@@ -830,7 +837,9 @@ def _self_params(
 
 
 @njit(cache=True)
-def _self_point(kind: int, c, t: float, jac: float) -> tuple[float, float, float]:
+def _self_point(
+    kind: int, c: tuple[float, float, float, float, float], t: float, jac: float
+) -> tuple[float, float, float]:
     """:func:`subrule_point` without a mapped panel's length element, which it computes and
     discards (a hypot per point: the sharp probe's self rows took 1.6 times as long)."""
     if kind == 3:
