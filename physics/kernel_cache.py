@@ -34,6 +34,7 @@ KERNEL_MODULES = (
     "bem3d/near_pairs.py",
     "bem3d/panel_integrals.py",
     "bem_axi/grading_kernels.py",
+    "bem_axi/mesh_kernels.py",
     "bem_axi/near_sums.py",
     "bem_axi/ring_sums.py",
     "geometry_kernels.py",

@@ -411,15 +411,21 @@ def build_mesh(
     :func:`default_rule`); level L splits every level-0 panel into 2**L and grades singular
     corners ``rule.steps_per_level * L`` steps more.
     """
+    from elopt.physics.bem_axi.mesh_kernels import split_panels
+
     if rule is None:
         rule = default_rule(order)
     base = _base_panels(layout, rule)
-    frac = np.linspace(0.0, 1.0, 2**level + 1)
-    edges = base.t0[:, None] + (base.t1 - base.t0)[:, None] * frac  # (M, 2**level + 1)
-    piece = np.repeat(base.piece, 2**level)
-    t0, t1 = edges[:, :-1].ravel(), edges[:, 1:].ravel()
+    piece, t0, t1 = split_panels(base.piece, base.t0, base.t1, _level_fractions(level))
     piece, t0, t1 = _grade_corners(base, piece, t0, t1, rule.steps_per_level * level, rule)
     return _assemble_mesh(layout, base, piece, t0, t1, level, order)
+
+
+@lru_cache(maxsize=16)
+def _level_fractions(level: int) -> np.ndarray:
+    """Fractions (2**level + 1,) of a level-0 panel's parameter interval at its level-``level``
+    panels' edges."""
+    return np.linspace(0.0, 1.0, 2**level + 1)
 
 
 def level_zero_unknowns(layout: Layout, order: int, rule: MeshRule | None = None) -> int:
@@ -476,7 +482,10 @@ class _BasePanels:
     ``corner_ends``: (piece, at_end) of every singular corner, graded further per level;
     ``mapped_ends``: (piece, at_end, map power) of every mapped corner side (its panel
     touching the corner is mapped at every level, never graded further);
-    ``signs`` (conductors,): orientation of each conductor's normal.
+    ``signs`` (conductors,): orientation of each conductor's normal; ``corner_piece``,
+    ``corner_at_end`` (K,): ``corner_ends`` as arrays; ``mapped_piece`` (M,) and
+    ``mapped_power`` (M,) (float; ``mapped_powers`` the same as ints): ``mapped_ends``' pieces
+    and map powers, negative at a piece's end.
     """
 
     piece: np.ndarray
@@ -489,6 +498,11 @@ class _BasePanels:
     corner_ends: tuple[tuple[int, bool], ...]
     mapped_ends: tuple[tuple[int, bool, int], ...]
     signs: np.ndarray
+    corner_piece: np.ndarray
+    corner_at_end: np.ndarray
+    mapped_piece: np.ndarray
+    mapped_power: np.ndarray
+    mapped_powers: tuple[int, ...]
 
 
 def _piece_spec(piece) -> tuple[int, tuple[float, ...]]:
@@ -541,34 +555,12 @@ def _base_panels(layout: Layout, rule: MeshRule) -> _BasePanels:
         corner_ends=tuple(corners),
         mapped_ends=tuple(mapped),
         signs=signs,
+        corner_piece=np.array([k for k, _ in corners], dtype=np.int64),
+        corner_at_end=np.array([e for _, e in corners], dtype=np.bool_),
+        mapped_piece=np.array([k for k, _, _ in mapped], dtype=np.int64),
+        mapped_power=np.array([-m if e else m for _, e, m in mapped], dtype=float),
+        mapped_powers=tuple(-m if e else m for _, e, m in mapped),
     )
-
-
-def _panel_coefs(
-    piece_kind: np.ndarray,
-    piece_spec: np.ndarray,
-    piece: np.ndarray,
-    t0: np.ndarray,
-    t1: np.ndarray,
-):
-    """Kind (P,) and coefficients (P, 5) for :func:`panel_geometry` of the panels (piece, t0,
-    t1) (P,) of pieces with kinds (n,) and :func:`_piece_spec` rows (n, 5)."""
-    kind = piece_kind[piece]
-    sp = piece_spec[piece]
-    coef = np.empty((len(piece), 5))
-    seg = kind == KIND_SEGMENT
-    if np.any(seg):
-        s, a0, a1 = sp[seg], t0[seg][:, None], t1[seg][:, None]
-        coef[seg, 0:2] = 0.5 * (1 - a0) * s[:, 0:2] + 0.5 * (1 + a0) * s[:, 2:4]
-        coef[seg, 2:4] = 0.5 * (1 - a1) * s[:, 0:2] + 0.5 * (1 + a1) * s[:, 2:4]
-        coef[seg, 4] = 0.0
-    rest = ~seg
-    if np.any(rest):
-        s = sp[rest]
-        coef[rest, 0:3] = s[:, 0:3]
-        coef[rest, 3] = s[:, 3] + 0.5 * (t0[rest] + 1) * s[:, 4]
-        coef[rest, 4] = s[:, 3] + 0.5 * (t1[rest] + 1) * s[:, 4]
-    return kind, coef
 
 
 def clear_mesh_cache() -> None:
@@ -688,55 +680,54 @@ def _assemble_mesh(
     level: int,
     order: int,
 ) -> AxiMesh:
+    """The mesh of the panels (piece, t0, t1) (P,) of ``base``'s pieces (compiled:
+    :func:`mesh_kernels.assemble_panels`)."""
+    from elopt.physics.bem_axi.mesh_kernels import assemble_panels
+
     xg, wg = gauss_legendre(order)
-    kind_a, coef_a = _panel_coefs(base.kind, base.spec, piece, t0, t1)
-    conductor_a = base.conductor[piece]
-    first, last = _piece_ends(piece)
-    at_corner = np.zeros(len(piece), dtype=bool)
-    for k, at_end in base.corner_ends:
-        at_corner[last[k] if at_end else first[k]] = True
-    for k, at_end, power in base.mapped_ends:
-        j = last[k] if at_end else first[k]
-        at_corner[j] = True
-        kind_a[j] = KIND_MAPPED
-        coef_a[j, 4] = -power if at_end else power
-    mapped = kind_a == KIND_MAPPED
-    # The nodes and, last, the centre (tau = 0) of every panel in one call.
-    tau = np.broadcast_to(np.append(xg, 0.0), (len(kind_a), order + 1))
-    pts, der = panel_geometry(kind_a, coef_a, tau)
-    center, pts, der = pts[:, order], pts[:, :order], der[:, :order]
-    if mapped.any():  # a mapped panel's centre: the chord's midpoint (tau = 0 is off it)
-        center[mapped] = 0.5 * (coef_a[mapped, 0:2] + coef_a[mapped, 2:4])
-    jac = np.linalg.norm(der, axis=-1)
-    tang = der / jac[..., None]
-    sgn = base.signs[conductor_a][:, None, None]
-    normals = sgn * np.stack([tang[..., 1], -tang[..., 0]], axis=-1)
-    weights = jac * wg
-    length = weights.sum(axis=1)
-    # Arc length from the start of each conductor's curve to the start of each panel.
-    ends = np.cumsum(length)
-    first_of = np.searchsorted(conductor_a, conductor_a)
-    arc_start = ends - length - np.where(first_of > 0, ends[first_of - 1], 0.0)
-    frac = np.broadcast_to(0.5 * (xg + 1.0), (len(kind_a), order))
-    if mapped.any():
-        frac = frac.copy()
-        frac[mapped] = mapped_fraction(xg, coef_a[mapped, 4][:, None])[0]
-    arc = arc_start[:, None] + frac * length[:, None]
-    interp_jac = np.where(mapped[:, None], jac, 1.0)
+    frac, dfrac = _mapped_tables(order, base.mapped_powers)
+    (conductor, kind, coef, length, centre, at_corner, *nodes) = assemble_panels(
+        base.kind,
+        base.spec,
+        base.conductor,
+        base.signs,
+        piece,
+        t0,
+        t1,
+        base.corner_piece,
+        base.corner_at_end,
+        base.mapped_piece,
+        base.mapped_power,
+        frac,
+        dfrac,
+        xg,
+        wg,
+    )
+    points, tangents, normals, jac, weights, arc, interp_jac = nodes
     return AxiMesh(
         order=order,
         level=level,
-        conductor=conductor_a,
-        kind=kind_a,
-        coef=coef_a,
+        conductor=conductor,
+        kind=kind,
+        coef=coef,
         length_m=length,
-        center_m=center,
+        center_m=centre,
         at_corner=at_corner,
-        points_m=pts.reshape(-1, 2),
-        tangents=tang.reshape(-1, 2),
-        normals=normals.reshape(-1, 2),
-        jac_m=jac.reshape(-1),
-        weights_m=weights.reshape(-1),
-        arc_m=arc.reshape(-1),
-        interp_jac=interp_jac.reshape(-1),
+        points_m=points,
+        tangents=tangents,
+        normals=normals,
+        jac_m=jac,
+        weights_m=weights,
+        arc_m=arc,
+        interp_jac=interp_jac,
     )
+
+
+@lru_cache(maxsize=64)
+def _mapped_tables(order: int, powers: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`mapped_fraction` and its derivative (M, order) at the Gauss-Legendre nodes for
+    signed map powers ``powers`` (M,), computed by numpy (its power is not the C library's)."""
+    xg, _ = gauss_legendre(order)
+    m = np.array(powers, dtype=float).reshape(-1, 1)
+    frac, dfrac = mapped_fraction(np.broadcast_to(xg, (len(m), order)), m)
+    return np.ascontiguousarray(frac), np.ascontiguousarray(dfrac)

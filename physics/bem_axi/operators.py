@@ -21,13 +21,13 @@ import numpy as np
 from elopt.physics.bem_axi.mesh import KIND_MAPPED, AxiMesh
 from elopt.physics.bem_axi.near_sums import MAX_LEVELS, add_near_corrections, near_zones
 from elopt.physics.bem_axi.ring_sums import (
+    add_self_blocks,
     collocation_sum,
     field_sum,
     node_rows,
     panel_points,
     panel_rule_columns,
     potential_sum,
-    self_rows,
 )
 from elopt.physics.quadrature import (
     barycentric_weights,
@@ -209,10 +209,7 @@ def collocation_matrix(
     if ground_plane:
         _correct_near(mat, mesh, src, True, False, entry_error, n_image)
     mat = mat[..., 0]
-    # The diagonal blocks (P, p, p) as a view (einsum's views are writeable): a third of the
-    # time of a fancy-indexed add.
-    blocks = np.einsum("ikil->ikl", mat.reshape(mesh.n_panels, p, mesh.n_panels, p))
-    blocks += _self_blocks(mesh)
+    _self_blocks(mesh, mat)
     return mat
 
 
@@ -260,8 +257,9 @@ def _far_basis(n: int, p: int) -> np.ndarray:
     return out
 
 
-def _self_blocks(mesh: AxiMesh) -> np.ndarray:
-    """Self-interaction (P, p, p) of each panel: target node i, source node k.
+def _self_blocks(mesh: AxiMesh, mat: np.ndarray) -> None:
+    """Add the self-interaction of each panel into ``mat`` (N, N): target node i, source node
+    k of i's panel (:func:`ring_sums.add_self_blocks`).
 
     The panel is cut at the target's parameter and graded towards it until the innermost
     piece is short against the target's distance to the axis (the kernel's smooth part varies
@@ -273,30 +271,18 @@ def _self_blocks(mesh: AxiMesh) -> np.ndarray:
     long; its rows interpolate sigma times the length element and are scaled by the nodes'.
     """
     p = mesh.order
-    x, _ = gauss_legendre(p)
-    xq, _ = gauss_legendre(_rule_order(p))
-    wq = gauss_legendre(_rule_order(p))[1]
-    logw_end = end_log_weights(len(xq))
-    tgt = mesh.points_m
-    panel = np.repeat(np.arange(mesh.n_panels), p)
-    ratio = 2.0 * mesh.length_m[panel] / np.maximum(tgt[:, 0], 1e-300)
-    mapped = mesh.kind[panel] == KIND_MAPPED
-    if mapped.any():
-        tau_t = np.tile(x, mesh.n_panels)
-        to_corner = np.where(mesh.coef[panel, 4] > 0, tau_t + 1.0, 1.0 - tau_t)
-        ratio = np.where(mapped, np.maximum(ratio, 4.0 / to_corner), ratio)
-    levels = np.clip(np.ceil(np.log2(np.maximum(ratio, 1.0))) + 1, 1, MAX_LEVELS).astype(np.int64)
-    rows = self_rows(
-        np.ascontiguousarray(tgt[:, 0]),
-        np.ascontiguousarray(tgt[:, 1]),
-        mesh.kind[panel],
-        np.ascontiguousarray(mesh.coef[panel]),
-        np.tile(x, mesh.n_panels),
-        levels,
-        x,
+    xq, wq = gauss_legendre(_rule_order(p))
+    add_self_blocks(
+        mat,
+        mesh.points_m,
+        mesh.kind,
+        mesh.coef,
+        mesh.length_m,
+        mesh.density_scale,
+        MAX_LEVELS,
+        gauss_legendre(p)[0],
         barycentric_weights(p),
         xq,
         wq,
-        logw_end,
+        end_log_weights(len(xq)),
     )
-    return rows.reshape(mesh.n_panels, p, p) * mesh.density_scale.reshape(-1, 1, p)

@@ -415,7 +415,8 @@ def stage_times_ms(params: GuardedDiskParams, repeats: int) -> dict[str, float]:
         out[f"{tag} mesh"] = cpu_ms(lambda m=m: axi_mesh.build_mesh(layout, m.level, order, rule))
         r, z = m.points_m[:, 0].copy(), m.points_m[:, 1].copy()
         far = cpu_ms(lambda r=r, z=z, w=m.weights_m: collocation_sum(r, z, w, layout.ground_plane))
-        own = cpu_ms(lambda m=m: operators._self_blocks(m))
+        scratch = np.zeros((m.n_nodes, m.n_nodes))
+        own = cpu_ms(lambda m=m, a=scratch: operators._self_blocks(m, a))
         whole = cpu_ms(
             lambda m=m: operators.collocation_matrix(m, layout.ground_plane, entry_error)
         )
