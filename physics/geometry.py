@@ -594,11 +594,15 @@ def _fillet_pieces(
 
 
 def _dots(a: Sequence[tuple[float, float]], b: Sequence[tuple[float, float]]) -> list[float]:
-    """Dot products of the 2-vectors ``a[k] . b[k]`` (K,) by one stacked matmul, which takes
-    BLAS's dot per pair: the same rounding as ``np.dot`` of each pair, in one numpy call."""
+    """Dot products of the 2-vectors ``a[k] . b[k]`` (K,), each the value of ``np.dot`` of the
+    pair (BLAS's, which may fuse a product into the sum): by one stacked matmul, which takes
+    BLAS's dot per pair; or on plain floats when in every pair one of the two products is
+    zero (an axis-parallel vector), where any rounding order, fused or not, gives the other
+    product (a zero's sign aside)."""
+    products = [(x0 * y0, x1 * y1) for (x0, x1), (y0, y1) in zip(a, b, strict=True)]
+    if all(p == 0.0 or q == 0.0 for p, q in products):
+        return [p + q for p, q in products]
     n = len(a)
-    if not n:
-        return []
     ab = np.fromiter(chain.from_iterable(chain(a, b)), float, 4 * n).reshape(2, n, 2)
     return np.matmul(ab[0][:, None, :], ab[1][:, :, None]).ravel().tolist()
 

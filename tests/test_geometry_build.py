@@ -44,6 +44,20 @@ def test_batched_dots_round_as_numpy_dot_of_each_pair():
     assert geo._dots([], []) == []
 
 
+def test_dots_of_axis_parallel_vectors_are_numpy_dot_values():
+    # One product of each pair zero: the plain sum, whatever BLAS's order of rounding.
+    rng = np.random.default_rng(6)
+    a = rng.standard_normal((500, 2)) * rng.uniform(1e-6, 1e3, (500, 1))
+    b = rng.standard_normal((500, 2))
+    a[::2, 0] = 0.0
+    b[1::2, 1] = 0.0
+    got = geo._dots([tuple(x) for x in a], [tuple(x) for x in b])
+    want = [float(np.dot(x, y)) for x, y in zip(a, b, strict=True)]
+    assert got == want
+    tiny = [(1e-170, 1.0)], [(1e-170, 3.0)]  # a product below the smallest double
+    assert geo._dots(*tiny) == [float(np.dot(tiny[0][0], tiny[1][0]))]
+
+
 @pytest.mark.parametrize("scale", [1e-12, 1e-3, 1.0, 1e6])
 def test_short_segment_test_decides_as_the_blas_root(scale):
     rng = np.random.default_rng(8)
