@@ -18,6 +18,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import cached_property
+from itertools import chain
 from typing import Literal
 
 import numpy as np
@@ -34,11 +35,10 @@ def format_point(p: Sequence[float]) -> str:
 
 
 def _check_finite(name: str, values: Sequence[float]) -> None:
-    for v in values:
-        if not math.isfinite(v):
-            raise GeometryError(
-                f"{name}: every coordinate must be finite, got ({', '.join(map(str, values))})"
-            )
+    if not all(map(math.isfinite, values)):
+        raise GeometryError(
+            f"{name}: every coordinate must be finite, got ({', '.join(map(str, values))})"
+        )
 
 
 @dataclass(frozen=True)
@@ -113,8 +113,8 @@ class Arc:
     def _point_at(self, angle: float) -> tuple[float, float]:
         """The point at ``angle``: :meth:`points`' formulas (numpy's cos and sin), bit for bit."""
         return (
-            self.center[0] + self.radius * np.cos(angle),
-            self.center[1] + self.radius * np.sin(angle),
+            self.center[0] + self.radius * float(np.cos(angle)),
+            self.center[1] + self.radius * float(np.sin(angle)),
         )
 
     def _angles(self, t: np.ndarray) -> np.ndarray:
@@ -216,9 +216,11 @@ class Curve:
     @cached_property
     def size(self) -> float:
         """Largest extent of the curve in metres (for tolerances)."""
-        pts = self.sample(16)[::4]  # the points of sample(4), bit for bit
-        r, z = pts[:, 0], pts[:, 1]
-        return float(max(r.max() - r.min(), z.max() - z.min())) or self.pieces[0].length
+        from elopt.physics.geometry_kernels import bounding_box
+
+        # the points of sample(4), bit for bit: every fourth of sample(16)
+        r_lo, z_lo, r_hi, z_hi = bounding_box(self._points(16), 4)
+        return float(max(r_hi - r_lo, z_hi - z_lo)) or self.pieces[0].length
 
     @cached_property
     def kind(self) -> CurveKind:
@@ -235,6 +237,10 @@ class Curve:
         """Polyline through the curve, ``per_piece`` chords per piece; shape (M, 2) (a new
         array each call; the points are computed once per curve and count, or taken from a
         count that is a multiple of it: the same parameters give the same points)."""
+        return self._points(per_piece).copy()
+
+    def _points(self, per_piece: int) -> np.ndarray:
+        """:meth:`sample`'s points: the cached array itself, for reading only; (M, 2), metres."""
         pts = self._samples.get(per_piece)
         if pts is None:
             finer = [k for k in self._samples if k % per_piece == 0]
@@ -243,7 +249,15 @@ class Curve:
             else:
                 pts = self._sample(per_piece)
             self._samples[per_piece] = pts
-        return pts.copy()
+        return pts
+
+    @cached_property
+    def sample_box(self) -> tuple[float, float, float, float]:
+        """(r_lo, z_lo, r_hi, z_hi) in metres of the points of ``sample(16)`` (a zero's sign
+        may differ from numpy's min and max)."""
+        from elopt.physics.geometry_kernels import bounding_box
+
+        return bounding_box(self._points(16), 1)
 
     @cached_property
     def _samples(self) -> dict[int, np.ndarray]:
@@ -251,42 +265,40 @@ class Curve:
 
     @cached_property
     def _piece_table(self) -> tuple:
-        """Indices and point formulas' data of the segments (ends (n, 1, 2) each) and of the
-        arcs (centre, radius, start angle, sweep (n, 5)), for :meth:`_sample`."""
-        seg = [k for k, p in enumerate(self.pieces) if isinstance(p, Segment)]
-        arc = [k for k, p in enumerate(self.pieces) if isinstance(p, Arc)]
-        a = np.asarray([self.pieces[k].start for k in seg]).reshape(-1, 1, 2)
-        b = np.asarray([self.pieces[k].end for k in seg]).reshape(-1, 1, 2)
-        spec = np.asarray(
-            [(*p.center, p.radius, p.start_angle, p.sweep) for p in (self.pieces[k] for k in arc)]
-        ).reshape(-1, 5)
-        other = [k for k, p in enumerate(self.pieces) if not isinstance(p, (Segment, Arc))]
+        """Indices and point formulas' data of the segments (ends (n, 2, 2): start, end) and
+        of the arcs (centre, radius, start angle, sweep (n, 5)), for :meth:`_sample`."""
+        seg, arc, other, ends, spec = [], [], [], [], []
+        for k, p in enumerate(self.pieces):
+            if isinstance(p, Segment):
+                seg.append(k)
+                ends += (*p.start, *p.end)
+            elif isinstance(p, Arc):
+                arc.append(k)
+                spec += (*p.center, p.radius, p.start_angle, p.sweep)
+            else:
+                other.append(k)
         return (
             np.array(seg, np.intp),
-            a,
-            b,
+            np.array(ends, dtype=float).reshape(-1, 2, 2),
             np.array(arc, np.intp),
-            spec,
+            np.array(spec, dtype=float).reshape(-1, 5),
             other,
-            np.asarray([self.end]),
+            self.end,
         )
 
     def _sample(self, per_piece: int) -> np.ndarray:
         # Segments and arcs of every piece at once, by the formulas of their points().
+        from elopt.physics.geometry_kernels import chain_points
+
         t, before, after = _chord_parameters(per_piece)
-        seg, a, b, arc, spec, other, end = self._piece_table
+        seg, ends, arc, spec, other, end = self._piece_table
         flat = np.empty((len(self.pieces) * per_piece + 1, 2))
         out = flat[:-1].reshape(len(self.pieces), per_piece, 2)
-        if len(seg):
-            out[seg] = before[None, :, None] * a + after[None, :, None] * b
-        if len(arc):
-            ang = spec[:, 3:4] + after[None, :] * spec[:, 4:5]
-            out[arc] = spec[:, None, 0:2] + spec[:, 2:3, None] * np.stack(
-                [np.cos(ang), np.sin(ang)], axis=-1
-            )
+        ang = spec[:, 3:4] + after * spec[:, 4:5]
+        chain_points(out, seg, ends, arc, spec, before, after, np.cos(ang), np.sin(ang))
         for k in other:
             out[k] = self.pieces[k].points(t)
-        flat[-1] = end[0]
+        flat[-1] = end
         return flat
 
     def corners(self) -> tuple[Corner, ...]:
@@ -300,15 +312,15 @@ class Curve:
         size = self.size
         n = len(self.pieces)
         joints = list(range(n - 1)) + ([n - 1] if kind == "ring" else [])
-        for i in joints:
-            a = self.pieces[i]
-            b = self.pieces[(i + 1) % n]
-            ta = _end_tangent(a, True)
-            tb = _end_tangent(b, False)
-            turn = math.atan2(ta[0] * tb[1] - ta[1] * tb[0], float(ta @ tb))
+        ends = [(self.pieces[i], True) for i in joints]
+        starts = [(self.pieces[(i + 1) % n], False) for i in joints]
+        tangents = _end_tangents(ends + starts)
+        ta, tb = tangents[: len(joints)], tangents[len(joints) :]
+        for i, (a0, a1), (b0, b1), dot in zip(joints, ta, tb, _dots(ta, tb), strict=True):
+            turn = math.atan2(a0 * b1 - a1 * b0, dot)
             if abs(turn) < 1e-6:
                 continue
-            out.append(Corner(a.end, i, True, math.pi - abs(turn)))
+            out.append(Corner(self.pieces[i].end, i, True, math.pi - abs(turn)))
         if kind == "sheet":
             tol = JOIN_TOLERANCE * size
             if self.start[0] > tol:
@@ -335,23 +347,25 @@ class Curve:
 
     def validate(self, name: str) -> None:
         """Raise GeometryError naming ``name`` if the curve crosses the axis or itself."""
-        pts = self.sample(16)
+        pts = self._points(16)
         tol = JOIN_TOLERANCE * self.size
-        rmin = float(pts[:, 0].min())
-        if rmin < -tol:
+        r_lo, z_lo, r_hi, z_hi = self.sample_box
+        if r_lo < -tol:
             i = int(pts[:, 0].argmin())
             raise GeometryError(
-                f"conductor '{name}': the generating curve crosses the axis (reaches r = {rmin:.6g} m "
-                f"at z = {pts[i, 1]:.6g} m); every point must have r >= 0"
+                f"conductor '{name}': the generating curve crosses the axis (reaches r = "
+                f"{float(pts[:, 0].min()):.6g} m at z = {pts[i, 1]:.6g} m); every point must "
+                "have r >= 0"
             )
-        interior_axis = pts[1:-1, 0] <= tol
-        if np.any(interior_axis):
+        interior_axis = pts[1:-1, 0] <= tol if r_lo <= tol else None
+        if interior_axis is not None and interior_axis.any():
             i = int(np.argmax(interior_axis)) + 1
             raise GeometryError(
                 f"conductor '{name}': the generating curve touches the axis at z = {pts[i, 1]:.6g} m "
                 "away from its ends; a curve may meet the axis only at its first and last point"
             )
-        hit = _first_self_intersection(pts, closed=self.kind == "ring")
+        extent = max(r_hi - r_lo, z_hi - z_lo)
+        hit = _first_self_intersection(pts, closed=self.kind == "ring", extent=extent)
         if hit is not None:
             raise GeometryError(
                 f"conductor '{name}': the generating curve intersects itself near "
@@ -371,27 +385,42 @@ def _chord_parameters(per_piece: int) -> tuple[np.ndarray, np.ndarray, np.ndarra
     return out
 
 
-def _end_tangent(piece, at_end: bool) -> np.ndarray:
-    """Unit tangent (2,) of ``piece`` at its end (or start): its ``tangents`` at t = +-1 by the
-    same formulas, bit for bit, without their (1, 2) arrays for segments and arcs."""
-    if isinstance(piece, Segment):
-        length = piece.length
-        return np.array([(piece.end[k] - piece.start[k]) / length for k in (0, 1)])
-    if isinstance(piece, Arc):
-        a = piece.start_angle + piece.sweep if at_end else piece.start_angle
-        turn = math.copysign(1.0, piece.sweep)
-        return np.array([turn * -np.sin(a), turn * np.cos(a)])
-    return piece.tangents(np.array([1.0 if at_end else -1.0]))[0]
+def _end_tangents(ends: list[tuple[Piece, bool]]) -> list[tuple[float, float]]:
+    """Unit tangents (r, z) of pieces at their ends (``True``) or starts: their ``tangents``
+    at t = +-1 by the same formulas, bit for bit, with one numpy sin and cos call for all the
+    arcs instead of (1, 2) arrays per piece."""
+    out: list[tuple[float, float]] = [(0.0, 0.0)] * len(ends)
+    arcs, angles = [], []
+    for k, (piece, at_end) in enumerate(ends):
+        if isinstance(piece, Segment):
+            (r0, z0), (r1, z1), length = piece.start, piece.end, piece.length
+            out[k] = ((r1 - r0) / length, (z1 - z0) / length)
+        elif isinstance(piece, Arc):
+            arcs.append(k)
+            angles.append(piece.start_angle + piece.sweep if at_end else piece.start_angle)
+        else:
+            out[k] = tuple(piece.tangents(np.array([1.0 if at_end else -1.0]))[0].tolist())
+    if arcs:
+        sin, cos = np.sin(angles).tolist(), np.cos(angles).tolist()
+        for k, s, c in zip(arcs, sin, cos, strict=True):
+            turn = math.copysign(1.0, ends[k][0].sweep)
+            out[k] = (turn * -s, turn * c)
+    return out
 
 
-def _first_self_intersection(pts: np.ndarray, closed: bool) -> tuple[float, float] | None:
+def _first_self_intersection(
+    pts: np.ndarray, closed: bool, extent: float | None = None
+) -> tuple[float, float] | None:
     """A point where two non-adjacent chords of the polyline cross or touch (the middle of the
     first such chord, row-major over the pairs), else None; ``closed``: the first and the last
-    chord are neighbours. Compiled (:mod:`elopt.physics.geometry_kernels`: 40-50 us of numpy
-    per guarded-probe curve, which a study trial pays twice)."""
+    chord are neighbours; ``extent``: the larger side (m) of the points' bounding box, when
+    known. Compiled (:mod:`elopt.physics.geometry_kernels`: 40-50 us of numpy per
+    guarded-probe curve, which a study trial pays twice)."""
     from elopt.physics.geometry_kernels import first_touching_chords
 
-    tol = 1e-9 * float(np.max(pts.max(axis=0) - pts.min(axis=0)))
+    if extent is None:
+        extent = float(np.max(pts.max(axis=0) - pts.min(axis=0)))
+    tol = 1e-9 * extent
     i, j = first_touching_chords(np.ascontiguousarray(pts, dtype=float), tol, closed)
     if i < 0:
         return None
@@ -479,8 +508,8 @@ def rounded_polyline(
     tolerance is left a sharp corner.
     """
     # Plain floats for the elementwise arithmetic (the same IEEE operations as numpy's on the
-    # 2-vectors); lengths, dot products and tangents stay numpy's (BLAS's dot rounds
-    # differently from the written-out sum), so that the pieces are the same to the bit.
+    # 2-vectors); dot products stay BLAS's (whose dot rounds differently from the written-out
+    # sum: :func:`_dots`) and tangents numpy's, so that the pieces are the same to the bit.
     v = [(float(p[0]), float(p[1])) for p in vertices]
     if len(v) < 2:
         raise GeometryError(f"{name}: needs at least two vertices")
@@ -488,75 +517,149 @@ def rounded_polyline(
         raise GeometryError(
             f"{name}: fillet radius must be finite and >= 0, got {float(fillet_radius):.6g} m"
         )
-    extent = max(max(p[c] for p in v) - min(p[c] for p in v) for c in (0, 1))
+    radius = float(fillet_radius)
+    rs, zs = zip(*v, strict=True)
+    extent = max(max(rs) - min(rs), max(zs) - min(zs))
     n = len(v)
-    edge = np.array([(v[k + 1][0] - v[k][0], v[k + 1][1] - v[k][1]) for k in range(n - 1)])
-    lengths = np.array([math.sqrt(e.dot(e)) for e in edge])
+    edges = [(v[k + 1][0] - v[k][0], v[k + 1][1] - v[k][1]) for k in range(n - 1)]
+    lengths = [math.sqrt(d) for d in _dots(edges, edges)]
     for k in range(n - 1):
         if lengths[k] == 0:
             raise GeometryError(
                 f"{name}: two consecutive corners repeat the point {format_point(v[k])}"
             )
-    unit_array = edge / lengths[:, None]
-    units = unit_array.tolist()
-    turns = np.zeros(n)
-    for k in range(1, n - 1):
+    units = [(e[0] / s, e[1] / s) for e, s in zip(edges, lengths, strict=True)]
+    turn = [0.0] * n
+    for k, c in enumerate(_dots(units[:-1], units[1:]), start=1):
         (a0, a1), (b0, b1) = units[k - 1], units[k]
-        turns[k] = math.atan2(a0 * b1 - a1 * b0, float(unit_array[k - 1] @ unit_array[k]))
-    rounded = (np.abs(turns) >= 1e-12) & (
-        fillet_radius * np.abs(turns) > 16 * JOIN_TOLERANCE * extent
-    )
-    tangent = np.where(rounded, np.tan(np.abs(turns) / 2), 0.0)
-    backs = _close_near_zero_straights(fillet_radius * tangent, rounded, lengths, extent)
+        turn[k] = math.atan2(a0 * b1 - a1 * b0, c)
+    is_rounded = [abs(x) >= 1e-12 and radius * abs(x) > 16 * JOIN_TOLERANCE * extent for x in turn]
+    tangent = _half_turn_tangents(turn, is_rounded)
+    back = _close_near_zero_straights([radius * x for x in tangent], is_rounded, lengths, extent)
     slack = JOIN_TOLERANCE * extent
     for k in range(n - 1):
-        if backs[k] + backs[k + 1] > lengths[k] * (1 + 1e-12) + slack:
+        if back[k] + back[k + 1] > lengths[k] * (1 + 1e-12) + slack:
             raise GeometryError(
                 f"{name}: fillets of radius {fillet_radius:.6g} m overlap on the edge from "
                 f"{format_point(v[k])} to {format_point(v[k + 1])} (length {lengths[k]:.6g} m)"
             )
-    back, turn, is_rounded = backs.tolist(), turns.tolist(), rounded.tolist()
-    tangent_list = tangent.tolist()
-    pieces: list[Piece] = []
+    return Curve(_fillet_pieces(v, units, turn, is_rounded, tangent, back, extent))
+
+
+def _fillet_pieces(
+    v: list[tuple[float, float]],
+    units: list[tuple[float, float]],
+    turn: list[float],
+    is_rounded: list[bool],
+    tangent: list[float],
+    back: list[float],
+    extent: float,
+) -> tuple[Piece, ...]:
+    """The segments and fillet arcs of :func:`rounded_polyline` (vertices ``v`` (n,), unit
+    edge directions (n - 1,), turn angles, rounded flags, tan(|turn| / 2) and tangent
+    lengths (n,) per vertex, metres and radians); a segment shorter than the join tolerance
+    is left out."""
+    n = len(v)
+    starts, stops, arcs = [], [], []
     prev = v[0]
     for k in range(1, n):
         p_in = v[k]
         if k < n - 1:
             u = units[k - 1]
             p_in = (p_in[0] - back[k] * u[0], p_in[1] - back[k] * u[1])
-        step = np.array((p_in[0] - prev[0], p_in[1] - prev[1]))
-        if math.sqrt(step.dot(step)) > JOIN_TOLERANCE * extent:
-            pieces.append(Segment(prev, p_in))
+        starts.append(prev)
+        stops.append(p_in)
         if k == n - 1 or not is_rounded[k]:
+            arcs.append(None)
             prev = p_in
             continue
-        radius = back[k] / tangent_list[k]
+        radius = back[k] / tangent[k]
         u1 = units[k - 1]
         side = math.copysign(1.0, turn[k])
         center = (p_in[0] + radius * (-u1[1] * side), p_in[1] + radius * (u1[0] * side))
         a0 = math.atan2(p_in[1] - center[1], p_in[0] - center[0])
-        pieces.append(Arc(center, radius, a0, a0 + turn[k]))
+        arcs.append((center, radius, a0, a0 + turn[k]))
         u2 = units[k]
         prev = (v[k][0] + back[k] * u2[0], v[k][1] + back[k] * u2[1])
-    return Curve(tuple(pieces))
+    pieces: list[Piece] = []
+    made: list[Arc] = []
+    for a, b, arc in zip(starts, stops, arcs, strict=True):
+        if _longer_than(b[0] - a[0], b[1] - a[1], JOIN_TOLERANCE * extent):
+            pieces.append(Segment(a, b))
+        if arc is not None:
+            made.append(Arc(*arc))
+            pieces.append(made[-1])
+    _seed_arc_ends(made)
+    return tuple(pieces)
+
+
+def _dots(a: Sequence[tuple[float, float]], b: Sequence[tuple[float, float]]) -> list[float]:
+    """Dot products of the 2-vectors ``a[k] . b[k]`` (K,), each the value of ``np.dot`` of the
+    pair (BLAS's, which may fuse a product into the sum): by one stacked matmul, which takes
+    BLAS's dot per pair; or on plain floats when in every pair one of the two products is
+    zero (an axis-parallel vector), where any rounding order, fused or not, gives the other
+    product (a zero's sign aside)."""
+    products = [(x0 * y0, x1 * y1) for (x0, x1), (y0, y1) in zip(a, b, strict=True)]
+    if all(p == 0.0 or q == 0.0 for p, q in products):
+        return [p + q for p, q in products]
+    n = len(a)
+    ab = np.fromiter(chain.from_iterable(chain(a, b)), float, 4 * n).reshape(2, n, 2)
+    return np.matmul(ab[0][:, None, :], ab[1][:, :, None]).ravel().tolist()
+
+
+def _longer_than(dr: float, dz: float, length: float) -> bool:
+    """``math.sqrt(np.dot(step, step)) > length`` for the step (dr, dz) in metres, with the
+    dot rounded by BLAS: decided on plain floats when their root is further than 1e-9 of
+    ``length`` from it (both roots agree to a few units in the last place, so they fall on
+    the same side there), by BLAS's dot otherwise."""
+    root = math.sqrt(dr * dr + dz * dz)
+    if 1e-150 < length < 1e150 and abs(root - length) > 1e-9 * length:
+        return root > length
+    step = np.array((dr, dz))
+    return math.sqrt(step.dot(step)) > length
+
+
+def _half_turn_tangents(turn: list[float], is_rounded: list[bool]) -> list[float]:
+    """tan(|turn| / 2) (numpy's tan, one call) at the rounded vertices, 0 elsewhere; (n,)."""
+    idx = [k for k, r in enumerate(is_rounded) if r]
+    out = [0.0] * len(turn)
+    if idx:
+        for k, x in zip(idx, np.tan([abs(turn[k]) / 2 for k in idx]).tolist(), strict=True):
+            out[k] = x
+    return out
+
+
+def _seed_arc_ends(arcs: list[Arc]) -> None:
+    """Store the end points of ``arcs`` (their cached ``start`` and ``end``), computed by
+    :meth:`Arc._point_at`'s formulas with one numpy cos and one sin call for all of them."""
+    if not arcs:
+        return
+    angles = [x for a in arcs for x in (a.start_angle, a.start_angle + a.sweep)]
+    cos, sin = np.cos(angles).tolist(), np.sin(angles).tolist()
+    for i, a in enumerate(arcs):
+        for j, key in ((2 * i, "start"), (2 * i + 1, "end")):
+            a.__dict__[key] = (a.center[0] + a.radius * cos[j], a.center[1] + a.radius * sin[j])
 
 
 def _close_near_zero_straights(
-    backs: np.ndarray, rounded: np.ndarray, lengths: np.ndarray, extent: float
-) -> np.ndarray:
+    backs: list[float], rounded: list[bool], lengths: list[float], extent: float
+) -> list[float]:
     """Tangent lengths (n,) per vertex after closing straights (edge k from vertex k to k + 1)
     left shorter than NEAR_ZERO_STRAIGHT x ``extent``: the least-norm change of the rounded
     corners' tangent lengths that makes each such edge's two tangents fill it exactly. When
     the closures contradict each other (no change keeps every edge free of overlap), the
     nominal tangents are kept."""
+    if not _has_near_zero_straight(backs, rounded, lengths, extent):
+        return backs
     n = len(backs)
-    out = backs.copy()
+    out = np.array(backs)
+    lengths = np.array(lengths)
     for _ in range(3):
         left = lengths - out[:-1] - out[1:]
         near = np.nonzero((left > 0) & (left <= NEAR_ZERO_STRAIGHT * extent))[0]
         rows = [k for k in near if rounded[k] or rounded[k + 1]]
         if not rows:
-            return out
+            return out.tolist()
         a = np.zeros((len(rows), n))
         for i, k in enumerate(rows):
             a[i, k] = float(rounded[k])
@@ -564,9 +667,23 @@ def _close_near_zero_straights(
         delta = np.linalg.lstsq(a, left[rows], rcond=None)[0]
         trial = out + delta
         if np.any(lengths - trial[:-1] - trial[1:] < -JOIN_TOLERANCE * extent):
-            return out
+            return out.tolist()
         out = trial
-    return out
+    return out.tolist()
+
+
+def _has_near_zero_straight(
+    backs: list[float], rounded: list[bool], lengths: list[float], extent: float
+) -> bool:
+    """Whether an edge next to a rounded vertex leaves a straight in (0, NEAR_ZERO_STRAIGHT x
+    ``extent``] between its tangents (:func:`_close_near_zero_straights`' first test, on
+    plain floats)."""
+    limit = NEAR_ZERO_STRAIGHT * extent
+    for k in range(len(lengths)):
+        left = lengths[k] - backs[k] - backs[k + 1]
+        if 0 < left <= limit and (rounded[k] or rounded[k + 1]):
+            return True
+    return False
 
 
 def sphere(radius: float, center_z: float = 0.0) -> Curve:

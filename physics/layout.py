@@ -23,8 +23,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
-
 from elopt.physics.errors import GeometryError
 from elopt.physics.geometry import (
     Curve,
@@ -152,43 +150,43 @@ class Layout:
             raise KeyError(f"no conductor '{name}'; conductors are {list(self.names)}") from None
 
     def _validate_curves(self) -> None:
-        polylines = []
         for c in self.conductors:
             c.shape.validate(c.name)
-            pts = c.shape.sample(16)
             if self.ground_plane:
-                zmin = float(pts[:, 1].min())
-                if zmin <= 0:
-                    i = int(pts[:, 1].argmin())
+                if c.shape.sample_box[1] <= 0:
+                    pts = c.shape.sample(16)
+                    zmin, i = float(pts[:, 1].min()), int(pts[:, 1].argmin())
                     raise GeometryError(
                         f"conductor '{c.name}': touches or crosses the ground plane z = 0 "
                         f"(reaches z = {zmin:.6g} m at r = {pts[i, 0]:.6g} m); every point must "
                         "have z > 0"
                     )
-            polylines.append(pts)
         for i in range(len(self.conductors)):
             for j in range(i + 1, len(self.conductors)):
-                _check_apart(self.conductors[i], polylines[i], self.conductors[j], polylines[j])
+                _check_apart(self.conductors[i], self.conductors[j])
 
 
-def _check_apart(a: Conductor, pa: np.ndarray, b: Conductor, pb: np.ndarray) -> None:
+def _check_apart(a: Conductor, b: Conductor) -> None:
+    """Raise GeometryError when the curves of ``a`` and ``b`` (their ``sample(16)``
+    polylines) touch, or one starts inside the other's outline."""
     size = max(a.shape.size, b.shape.size)
     tol = 1e-9 * size
     # Polylines whose bounding boxes lie farther apart than the tolerance cannot touch.
-    lo_a, hi_a, lo_b, hi_b = pa.min(axis=0), pa.max(axis=0), pb.min(axis=0), pb.max(axis=0)
-    if np.all(lo_a <= hi_b + tol) and np.all(lo_b <= hi_a + tol):
-        dist, where = polyline_distance(pa, pb)
+    box_a, box_b = a.shape.sample_box, b.shape.sample_box
+    if all(box_a[k] <= box_b[k + 2] + tol and box_b[k] <= box_a[k + 2] + tol for k in (0, 1)):
+        dist, where = polyline_distance(a.shape.sample(16), b.shape.sample(16))
         if dist <= tol:
             raise GeometryError(
                 f"conductors '{a.name}' and '{b.name}' touch or intersect near (r, z) = "
                 f"({where[0]:.6g}, {where[1]:.6g}) m (distance {dist:.3g} m); conductors must be "
                 "apart"
             )
-    for inner, pin, outer in ((a, pa, b), (b, pb, a)):
+    for inner, outer in ((a, b), (b, a)):
+        pin = inner.shape.sample(16)[:1]
         if outside_outline_box(outer.shape, pin[0]):
             continue
         outline = closed_outline(outer.shape)
-        if outline is not None and point_in_region(pin[:1], outline)[0]:
+        if outline is not None and point_in_region(pin, outline)[0]:
             raise GeometryError(
                 f"conductor '{inner.name}' lies inside conductor '{outer.name}' (point "
                 f"({pin[0, 0]:.6g}, {pin[0, 1]:.6g}) m); conductors must not overlap"
