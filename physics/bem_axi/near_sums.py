@@ -1,9 +1,10 @@
 """Compiled near-field correction of the axisymmetric operators (numba).
 
 The far sums of :mod:`elopt.physics.bem_axi.ring_sums` give every (target, node) entry by the
-source panel's own Gauss rule. For (target, panel) pairs closer than a reach, this pass swaps
+source panel's own Gauss rule (a mapped panel's in the collocation matrix: its upsampled rule,
+``operators.mapped_far_rule``). For (target, panel) pairs closer than a reach, this pass swaps
 that value for the graded sub-rule of ``ring_sums.near_rows``: it finds the pairs, their foot
-points and grading depths in one compiled call, and adds (accurate - node rule) into the
+points and grading depths in one compiled call, and adds (accurate - far rule) into the
 matrix; the potential's evaluations (node rule and sub-rules alike) go through the batched
 ``ring_sums.scaled_k`` and ``ring_sums.lagrange_rows``.
 """
@@ -65,6 +66,33 @@ def _pairs(
             pj[count] = j
             count += (dr * dr + dz * dz < reach[j] * reach[j]) & (j != own)
     return ti[:count], pj[:count]
+
+
+@njit(cache=True)
+def near_zones(
+    kind: np.ndarray,
+    coef: np.ndarray,
+    length: np.ndarray,
+    centre: np.ndarray,
+    factor: float,
+    u_max: float,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centres (P,) r, z and radii (P,) of the near discs of panels (P,) ``kind``, ``coef``,
+    ``length``, ``centre`` (P, 2): the centre and (``factor`` + 1/2) lengths; a mapped panel's
+    (kind 3, chord fraction u^m) its corner and ``u_max``^m chord lengths."""
+    n = kind.shape[0]
+    cr, cz, reach = np.empty(n), np.empty(n), np.empty(n)
+    for j in range(n):
+        c = coef[j]
+        if kind[j] == 3:
+            at_start = c[4] > 0
+            cr[j] = c[0] if at_start else c[2]
+            cz[j] = c[1] if at_start else c[3]
+            reach[j] = u_max ** abs(c[4]) * length[j]
+        else:
+            cr[j], cz[j] = centre[j, 0], centre[j, 1]
+            reach[j] = (factor + 0.5) * length[j]
+    return cr, cz, reach
 
 
 @njit(cache=True)
@@ -205,13 +233,14 @@ def _add_field_rows(
 
 @njit(cache=True, error_model="numpy")
 def _potential_params(
-    b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq
+    b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w, mirror, x, xq, wq, xf, wf
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """m1, scale (K(1 - m1) times it is the value) and parameter tau of every evaluation of
-    pairs b0..b1-1 (from ``start[b]``): first the p nodes of the panel, negated at tau = x_k
-    (the node rule the far sum holds, taken out), then the points of the graded sub-rule of
-    :func:`ring_sums.subrule_points`, computed here in the same order and by the same formulas
-    without its point arrays (half the time)."""
+    pairs b0..b1-1 (from ``start[b]``): first the far rule the far sum holds, negated (taken
+    out): the p nodes of the panel at tau = x_k, or on a mapped panel with a far rule of its
+    own (``xf``, ``wf`` not empty) that rule's points; then the points of the graded sub-rule
+    of :func:`ring_sums.subrule_points`, computed here in the same order and by the same
+    formulas without its point arrays (half the time)."""
     p = x.shape[0]
     nq = xq.shape[0]
     total = start[b1] - start[b0]
@@ -220,12 +249,19 @@ def _potential_params(
     for b in range(b0, b1):
         e = start[b] - start[b0]
         t_r, t_z = pr[b], pz[b]
-        for k in range(p):
-            j = pj[b] * p + k
-            m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
-            tau_out[e] = x[k]
-            e += 1
         kind, c, tc, lv = kd[b], cf[b], tau_c[b], levels[b]
+        if kind == 3 and xf.shape[0] > 0:
+            for k in range(xf.shape[0]):
+                rs, zs, _ = subrule_point(kind, c, xf[k], 0.0)
+                m1[e], scale[e] = ring_m1_scale(t_r, t_z, rs, sgn * zs, -rs * wf[k])
+                tau_out[e] = xf[k]
+                e += 1
+        else:
+            for k in range(p):
+                j = pj[b] * p + k
+                m1[e], scale[e] = ring_m1_scale(t_r, t_z, sr[j], sgn * sz[j], -sr[j] * w[j])
+                tau_out[e] = x[k]
+                e += 1
         jac = straight_jac(kind, c)
         for side in (1.0, -1.0):
             span = 1.0 - tc if side > 0 else tc + 1.0
@@ -277,23 +313,28 @@ def add_near_corrections(
     bary: np.ndarray,
     xq: np.ndarray,
     wq: np.ndarray,
+    mapped_far: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> None:
-    """Add (graded rule - node rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
+    """Add (graded rule - far rule) of near (target, panel) pairs into ``mat`` (M, N, ncomp)
     in place; image pairs (``mirror``) enter with a minus, as ``mat`` holds real-minus-image
     sums. Targets (M,) ``tr``, ``tz``; panels (P,) ``kind``, ``coef`` (P, 5), ``length``,
     centres, ``reach``; nodes (N,) ``sr``, ``sz``, ``w``, ``scale`` (``mesh.interp_jac``: a
     mapped panel's sub-rules interpolate sigma times it); nodes per panel p = len(x).
-    A mapped panel's pairs within ``reach`` are near where the Bernstein parameter of
-    :func:`mapped_preimage` is below ``rho_near``.
+    The far rule ``mat`` holds is the node rule; a mapped panel's is the Gauss rule
+    ``mapped_far`` (points, weights in its parameter, of the interpolated quantity) where
+    given (the potential only). A mapped panel's pairs within ``reach`` are near where the
+    Bernstein parameter of :func:`mapped_preimage` is below ``rho_near`` (that far rule's
+    bound).
 
     The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
     logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
     if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
         return  # every image centre is out of reach of every target (all above z = 0)
-    # The sub-rules' q-point Gauss rule errs like rho^(-2q) where the p-point node rule errs
-    # like rho_near^(-2p): equal at rho_near^(p/q).
-    rho_whole = rho_near ** (p / len(xq))
+    n_far = p if mapped_far is None else len(mapped_far[0])
+    # The sub-rules' q-point Gauss rule errs like rho^(-2q) where the mapped panels' n-point
+    # far rule errs like rho_near^(-2n): equal at rho_near^(n/q) (none with n >= q).
+    rho_whole = rho_near ** (n_far / len(xq))
     plan = _near_plan(
         tr,
         tz,
@@ -313,16 +354,39 @@ def add_near_corrections(
     if len(ti) == 0:
         return
     if mat.shape[2] == 2:
+        if mapped_far is not None:
+            raise ValueError("the field's far sums hold the node rule of every panel")
         _add_field_rows(mat, *plan, sr, sz, w, scale, mirror, x, bary, xq, wq)
         return
     sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
     counts = p + len(xq) * levels * sides
+    if mapped_far is not None:
+        counts[kd == 3] += n_far - p
 
     w_interp = w / scale  # the node rule's weights of the interpolated quantity
+    xf, wf = mapped_far if mapped_far is not None else (np.empty(0), np.empty(0))
 
     def params(b0: int, b1: int, start: np.ndarray):
         return _potential_params(
-            b0, b1, start, pj, pr, pz, kd, cf, tau_c, levels, sr, sz, w_interp, mirror, x, xq, wq
+            b0,
+            b1,
+            start,
+            pj,
+            pr,
+            pz,
+            kd,
+            cf,
+            tau_c,
+            levels,
+            sr,
+            sz,
+            w_interp,
+            mirror,
+            x,
+            xq,
+            wq,
+            xf,
+            wf,
         )
 
     rows = lagrange_sums(params, counts, x, bary)

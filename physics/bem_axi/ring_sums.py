@@ -306,6 +306,95 @@ def _collocation_counts(n: int, image: bool) -> np.ndarray:
     return out
 
 
+@njit(cache=True, error_model="numpy")
+def _point_params(
+    tr: np.ndarray,
+    tz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    own: np.ndarray,
+    panels: np.ndarray,
+    i0: int,
+    i1: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    """m1 and r' / (pi rho_plus) (B,) of targets i0..i1-1 against the points (J * n,), row by
+    row; the points of the target's ``own`` panel (one of ``panels`` (J,)) take m1 = 1 and a
+    zero scale (value 0). Other panels' points never meet a target node (Gauss points lie
+    inside their panel), so the loop has no branch."""
+    n_pts = sr.shape[0]
+    n_u = n_pts // panels.shape[0]
+    m1 = np.empty((i1 - i0) * n_pts)
+    scale = np.empty((i1 - i0) * n_pts)
+    for i in range(i0, i1):
+        e = (i - i0) * n_pts
+        for u in range(n_pts):
+            dz = tz[i] - sz[u]
+            a = tr[i] + sr[u]
+            b = tr[i] - sr[u]
+            inv = 1.0 / (a * a + dz * dz)
+            m1[e + u] = (b * b + dz * dz) * inv
+            scale[e + u] = sr[u] * math.sqrt(inv) * _INV_PI
+        for j in range(panels.shape[0]):
+            if panels[j] == own[i]:
+                for u in range(j * n_u, (j + 1) * n_u):
+                    m1[e + u] = 1.0
+                    scale[e + u] = 0.0
+    return m1, scale
+
+
+@njit(cache=True)
+def _point_fill(
+    v: np.ndarray,
+    rule_t: np.ndarray,
+    panels: np.ndarray,
+    sign: float,
+    add: bool,
+    i0: int,
+    i1: int,
+    mat: np.ndarray,
+) -> None:
+    """Rows i0..i1-1 of :func:`panel_rule_columns` from the values ``v`` (order of
+    :func:`_point_params`) and the rule transposed, ``rule_t`` (J, p, n)."""
+    n_pan, p, n_u = rule_t.shape
+    for i in range(i0, i1):
+        e = (i - i0) * n_pan * n_u
+        for j in range(n_pan):
+            base = e + j * n_u
+            for k in range(p):
+                acc = 0.0
+                for u in range(n_u):
+                    acc += v[base + u] * rule_t[j, k, u]
+                col = panels[j] * p + k
+                mat[i, col] = (mat[i, col] if add else 0.0) + sign * acc
+
+
+def panel_rule_columns(
+    mat: np.ndarray,
+    tr: np.ndarray,
+    tz: np.ndarray,
+    sr: np.ndarray,
+    sz: np.ndarray,
+    rule: np.ndarray,
+    own: np.ndarray,
+    panels: np.ndarray,
+    sign: float,
+    add: bool,
+) -> None:
+    """Set (``add`` False) or add to the node columns of J panels in ``mat`` (M, N) ``sign``
+    times their potential at targets (M,) ``tr``, ``tz``, each panel integrated by its own
+    points (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights ``rule``
+    (J, n, p): column panels[j] * p + k takes sum_u G(t, s_(j, u)) rule[j, u, k], G the ring
+    potential (times r'). Targets whose ``own`` (M,) panel is ``panels[j]`` (J,) leave that
+    panel out (the self rule's; -1: none). Values in batches of about ``BATCH_PAIRS`` through
+    :func:`scaled_k`."""
+    m = tr.shape[0]
+    rule_t = np.ascontiguousarray(rule.transpose(0, 2, 1))
+    edges = batch_edges(np.full(m, len(sr)))
+    for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
+        m1, scale = _point_params(tr, tz, sr, sz, own, panels, int(i0), int(i1))
+        _point_fill(scaled_k(m1, scale), rule_t, panels, sign, add, int(i0), int(i1), mat)
+
+
 @njit(cache=True)
 def node_rows(
     tr: np.ndarray,
@@ -412,6 +501,18 @@ def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, flo
         c[0] + c[2] * math.sin(u),
         du * math.hypot(c[1] * math.sin(u), c[2] * math.cos(u)),
     )
+
+
+@njit(cache=True)
+def panel_points(kind: np.ndarray, coef: np.ndarray, tau: np.ndarray) -> np.ndarray:
+    """Points (J * n, 2) of panels (J,) ``kind``, ``coef`` at parameters ``tau`` (n,), panel-major
+    (:func:`panel_point`)."""
+    n = tau.shape[0]
+    out = np.empty((kind.shape[0] * n, 2))
+    for j in range(kind.shape[0]):
+        for u in range(n):
+            out[j * n + u, 0], out[j * n + u, 1], _ = panel_point(kind[j], coef[j], tau[u])
+    return out
 
 
 @njit(cache=True)

@@ -213,6 +213,18 @@ compiled self-intersection check, mapped near test and batch edges) against main
 
 Unknowns 104+208 (filleted, both) and 148+344 -> 72+144 (sharp); C_sense errors 2.7e-6 (both)
 and 8.5e-8 -> 1.8e-6, estimates 2.2e-5 / 3.0e-5. The 30x target is not met.
+
+3 Dec 2026 12:00, the upmap branch (mapped corner panels' upsampled far rule in the
+collocation matrix, merged with main at 5aa7c1b) against main's package at 5aa7c1b,
+``--repeats 9 --before``, five runs, ``uptime`` load 1.0 - 2.1, CPU ms:
+
+    probe       BEM cpu before -> after                                   FEM cpu
+    filleted    2.48 / 2.55 / 2.35 / 2.46 / 2.45 -> 2.47 / 2.46 / 2.49 / 2.55 / 2.53   76 - 80
+    sharp       3.33 / 3.44 / 3.40 / 3.41 / 3.38 -> 2.46 / 2.23 / 3.57 / 2.38 / 2.34   64 - 66
+
+(the sharp 3.57 run is load: its stages are those of the others). C_sense errors 2.7e-6 and
+1.8e-6 -> 1.9e-6, estimates 2.2e-5 / 3.0e-5 as before; sharp FEM/BEM 19.1x -> 27.0x (median
+run). The 30x target is not met for the sharp probe.
 """
 
 from __future__ import annotations
