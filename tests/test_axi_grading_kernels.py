@@ -2,16 +2,18 @@
 plain numpy grading bit for bit.
 
 The reference below is the numpy code the kernels replaced (balance by neighbour lengths,
-then splits of panels longer than GAP_FACTOR times their distance to the other conductors'
-and the images' samples, every panel re-tested per round). It is the project's own rule, not
-physics, so the check is equality with it: same pieces and the same parameters to the last
-bit, on guarded probes (filleted and sharp, many gaps and standoffs, recessed, with each
-dielectric insulator and its interface chains), the uniform-field profile, spheres, spheroids
-(ellipse arcs: the numpy path), disks (sheets) and random coaxial sets, with and without the
-ground plane, under every mesh rule.
+then splits of panels longer than the rule's gap factor times their distance to the other
+conductors' and the images' samples, every panel re-tested per round). It is the project's own
+rule, not physics, so the check is equality with it: same pieces and the same parameters to
+the last bit, on guarded probes (filleted and sharp, many gaps and standoffs, recessed, with
+each dielectric insulator and its interface chains), the uniform-field profile, spheres,
+spheroids (ellipse arcs: the numpy path), disks (sheets) and random coaxial sets, with and
+without the ground plane, under every mesh rule and one with another gap factor.
 """
 
 from __future__ import annotations
+
+from dataclasses import replace
 
 import numpy as np
 
@@ -30,6 +32,7 @@ RULES = (
     mesh.default_rule(8),
     COARSE_RULE,
     CONDUCTOR_COARSE_RULE,
+    replace(CONDUCTOR_COARSE_RULE, gap_factor=3.0),  # a gap factor other than the default
 )
 MM = 1e-3
 
@@ -94,7 +97,7 @@ def _ref_balance(curve, panels, ratio):
         panels = _ref_split(panels, mask)
 
 
-def _ref_refine_gaps(layout, per_conductor, balance_ratio):
+def _ref_refine_gaps(layout, per_conductor, balance_ratio, gap_factor):
     samples = [cond.shape.sample(24) for cond in layout.conductors]
     out = []
     for ci, (curve, panels, ends) in enumerate(per_conductor):
@@ -107,7 +110,7 @@ def _ref_refine_gaps(layout, per_conductor, balance_ratio):
                 lengths = _ref_lengths(curve, panels)
                 centres = _ref_midpoints(curve, panels)
                 gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
-                bad = lengths > mesh.GAP_FACTOR * np.sqrt(gap2.min(axis=1))
+                bad = lengths > gap_factor * np.sqrt(gap2.min(axis=1))
                 if not bad.any():
                     break
                 panels = _ref_balance(curve, _ref_split(panels, bad), balance_ratio)
@@ -246,9 +249,9 @@ def _compare(layouts: list[Layout], monkeypatch) -> tuple[int, int]:
             with monkeypatch.context() as m:
                 seen = {}
 
-                def ref_gaps(lay, per_conductor, ratio, seen=seen):
+                def ref_gaps(lay, per_conductor, ratio, gap_factor, seen=seen):
                     seen["before"] = [len(p.piece) for _, p, _ in per_conductor]
-                    return _ref_refine_gaps(lay, per_conductor, ratio)
+                    return _ref_refine_gaps(lay, per_conductor, ratio, gap_factor)
 
                 def ref_balance(curve, panels, ratio, seen=seen):
                     out = _ref_balance(curve, panels, ratio)

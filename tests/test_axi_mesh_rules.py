@@ -2,10 +2,11 @@
 
 These are the project's rules, not physics: levels of the ratio-2 rule nest (every panel
 edge of level L is an edge of level L + 1; the coarser grading ratios re-grade each level's
-corner panels from the split level-0 panel, so only their level 0 nests in level 1), neighbours along a curve differ by at most the rule's balance ratio,
-level-0 panels are at most GAP_FACTOR times their distance to another conductor or an image,
-and the panels flagged ``at_corner`` touch a singular corner. The sampled polyline of a curve
-lies on its pieces and is a fresh array at every call.
+corner panels from the split level-0 panel, so only their level 0 nests in level 1),
+neighbours along a curve differ by at most the rule's balance ratio, level-0 panels are at
+most the rule's gap factor times their distance to another conductor or an image, and the
+panels flagged ``at_corner`` touch a singular corner. The sampled polyline of a curve lies on
+its pieces and is a fresh array at every call.
 """
 
 from __future__ import annotations
@@ -14,7 +15,7 @@ import numpy as np
 import pytest
 
 from elopt.physics import geometry as geo
-from elopt.physics.bem_axi.mesh import GAP_FACTOR, build_mesh, default_rule, level_zero_unknowns
+from elopt.physics.bem_axi.mesh import build_mesh, default_rule, level_zero_unknowns
 from elopt.physics.bem_axi.solve import COARSE_RULE, CONDUCTOR_COARSE_RULE
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
 
@@ -66,6 +67,7 @@ def test_levels_nest_and_neighbours_stay_balanced(fillet_mm, rule):
 def test_level_zero_panels_respect_the_gap_rule_and_flag_their_corners(fillet_mm):
     layout = _probe(fillet_mm)
     mesh = build_mesh(layout, 0, 4, CONDUCTOR_COARSE_RULE)
+    gap_factor = CONDUCTOR_COARSE_RULE.gap_factor
     samples = [c.shape.sample(24) for c in layout.conductors]
     for c in range(len(layout.conductors)):
         others = [s for j, s in enumerate(samples) if j != c]
@@ -73,7 +75,7 @@ def test_level_zero_panels_respect_the_gap_rule_and_flag_their_corners(fillet_mm
         cloud = np.concatenate(others)
         sel = mesh.conductor == c
         dist = np.min(np.linalg.norm(mesh.center_m[sel, None, :] - cloud[None], axis=-1), axis=1)
-        assert np.all(mesh.length_m[sel] <= GAP_FACTOR * dist * (1 + 1e-12))
+        assert np.all(mesh.length_m[sel] <= gap_factor * dist * (1 + 1e-12))
     corners = np.array(
         [k.point for cond in layout.conductors for k in cond.shape.corners() if k.singular]
     ).reshape(-1, 2)

@@ -44,7 +44,8 @@ def corner_levels(order: int) -> int:
     return CORNER_LEVELS_0.get(order, 3 * order // 2)
 
 
-#: A panel is at most this many times its distance to another conductor or an image.
+#: A panel is at most this many times its distance to another conductor or an image (the
+#: default of MeshRule.gap_factor).
 GAP_FACTOR = 2.0
 #: (r, z) -> (r, -z): a point's image in the ground plane.
 _MIRROR_Z = np.array([1.0, -1.0])
@@ -60,7 +61,8 @@ class MeshRule:
     differ in length by at most ``balance_ratio``. ``mapped_steps``: when set, the straight
     side of a singular corner with a polynomial map (:func:`corner_map_power`) is not graded
     by ``corner_steps`` but cut this many times at level 0 and never per level; its panel
-    touching the corner is a mapped panel (``KIND_MAPPED``).
+    touching the corner is a mapped panel (``KIND_MAPPED``). ``gap_factor``: a level-0 panel
+    is at most this many times its distance to another conductor or an image.
     """
 
     corner_steps: int
@@ -68,6 +70,7 @@ class MeshRule:
     grade_ratio: float = 2.0
     balance_ratio: float = 2.0
     mapped_steps: int | None = None
+    gap_factor: float = GAP_FACTOR
 
 
 #: Map powers m of mapped corner panels by the conductor's opening angle at the corner: the
@@ -604,11 +607,11 @@ def _base_intervals(layout: Layout, rule: MeshRule):
                 _grade_towards(intervals[k], False, 1, 2.0)  # one mapped panel per corner
         panels = _balance(curve, _CurvePanels.of(intervals), rule.balance_ratio)
         per_conductor.append((curve, panels, (frozenset(corner_ends), frozenset(mapped_ends))))
-    return tuple(_refine_gaps(layout, per_conductor, rule.balance_ratio))
+    return tuple(_refine_gaps(layout, per_conductor, rule.balance_ratio, rule.gap_factor))
 
 
-def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
-    """Split panels longer than GAP_FACTOR times their distance to other surfaces/images.
+def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float, gap_factor: float) -> list:
+    """Split panels longer than ``gap_factor`` times their distance to other surfaces/images.
 
     The cloud of distances is every conductor's ``sample(24)`` and, over a ground plane, their
     images; a conductor's own samples (not its image) are left out for its panels."""
@@ -622,7 +625,9 @@ def _refine_gaps(layout: Layout, per_conductor, balance_ratio: float) -> list:
     for ci, (curve, panels, ends) in enumerate(per_conductor):
         lo, hi = bounds[ci], bounds[ci + 1]
         if hi - lo < len(cloud):
-            panels = _refine_curve_gaps(curve, panels, balance_ratio, cloud_r, cloud_z, lo, hi)
+            panels = _refine_curve_gaps(
+                curve, panels, balance_ratio, gap_factor, cloud_r, cloud_z, lo, hi
+            )
         out.append((curve, panels, ends))
     return out
 
@@ -631,6 +636,7 @@ def _refine_curve_gaps(
     curve: Curve,
     panels: _CurvePanels,
     balance_ratio: float,
+    gap_factor: float,
     cloud_r: np.ndarray,
     cloud_z: np.ndarray,
     lo: int,
@@ -654,7 +660,7 @@ def _refine_curve_gaps(
                 cloud_z,
                 lo,
                 hi,
-                GAP_FACTOR,
+                float(gap_factor),
                 rounds,
             )
         )
@@ -664,7 +670,7 @@ def _refine_curve_gaps(
         lengths = _curve_lengths(curve, panels)
         centres = _curve_midpoints(curve, panels)
         gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
-        bad = lengths > GAP_FACTOR * np.sqrt(gap2.min(axis=1))
+        bad = lengths > gap_factor * np.sqrt(gap2.min(axis=1))
         if not bad.any():
             break
         panels = _balance(curve, panels.split(bad), balance_ratio)

@@ -10,9 +10,11 @@ each stop's capacitance-matrix estimate with its true error (entry (i, j) scaled
 sqrt(C_ii C_jj)) against the probe's own solve at rel_accuracy 1e-8 (no published value
 exists for these probes; the reference's own estimate is below 1e-8).
 
-    python3 tests/benchmarks/measure_error_estimate_probes.py
+    python3 tests/benchmarks/measure_error_estimate_probes.py [--gap-factor G]
 
-Prints every (probe, request) whose true error exceeds its estimate, then the count, the
+The solves take the solve's own rule (bem_axi.solve.mesh_rule: CONDUCTOR_COARSE_RULE at these
+requests, the default rule for the 1e-8 reference); ``--gap-factor G`` replaces that coarse
+rule's gap factor (MeshRule.gap_factor) for the run. Prints every (probe, request) whose true error exceeds its estimate, then the count, the
 largest true / estimate and the mean unknowns (summed over the levels) at 1e-4.
 
 Measured 3 Dec 2026 (conductors-only coarse rule, 4 nodes per panel), before the coarse
@@ -32,10 +34,21 @@ estimate 0.94, the same levels (mean 453 unknowns at 1e-4).
 Re-measured 3 Dec 2026 with the mapped corner panels' upsampled far rule in the collocation
 matrix (bem_axi.operators.mapped_far_rule): none of 156 above the estimate, the largest
 true / estimate 0.94, mean 384 unknowns at 1e-4 (as with their node rule).
+
+Measured 3 Dec 2026 with the mapped corner panels (their node rule), per gap factor of the
+coarse rule (``--gap-factor``; pairs above the estimate, largest true / estimate, mean unknowns at 1e-4):
+2 (the rule's): 0 of 156, 0.94, 384; 2.25: 1, 2.33, 367; 2.5: 10, 3.09, 347; 3: 13, 3.09, 340;
+4: 25, 6.20, 329. Above 2 the pairs above the estimate are the 0.05 mm gaps (two-level stops
+at fillet 0.02 mm up to 1.79 times, the sharp probe at 1 mm standoff 1.22 times, a
+three-level stop at fillet 0.1 mm 2.33 - 3.09 times) and, at 4, the 0.1 mm gaps at fillet
+0.05 mm (up to 2.55 times) and every standoff's 0.1 mm fillet at the 0.05 mm gap (up to 6.2
+times). The rule keeps 2.
 """
 
 from __future__ import annotations
 
+import argparse
+import dataclasses
 import itertools
 import sys
 from pathlib import Path
@@ -46,6 +59,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 import test_error_estimate_honesty as honesty  # noqa: E402
 
+from elopt.physics.bem_axi import solve  # noqa: E402
 from elopt.physics.bem_axi.solve import solve_axisymmetric  # noqa: E402
 from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams  # noqa: E402
 from elopt.physics.refinement import SolveOptions, relative_change  # noqa: E402
@@ -75,7 +89,21 @@ def probes() -> list[GuardedDiskParams]:
     return out
 
 
+def use_gap_factor(gap_factor: float | None) -> None:
+    """Give the solve's conductors-only coarse rule (bem_axi.solve.CONDUCTOR_COARSE_RULE, read
+    by solve.mesh_rule at each solve) this gap factor; None keeps the rule as it is."""
+    if gap_factor is not None:
+        rule = dataclasses.replace(solve.CONDUCTOR_COARSE_RULE, gap_factor=gap_factor)
+        solve.CONDUCTOR_COARSE_RULE = rule
+
+
 def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument(
+        "--gap-factor", type=float, default=None, help="the coarse rule's gap factor to try"
+    )
+    use_gap_factor(parser.parse_args().gap_factor)
+    print(f"rule: {solve.CONDUCTOR_COARSE_RULE}")
     limit_blas_threads()
     rows = []
     for p in probes():
