@@ -23,6 +23,7 @@ from elopt.physics.bem_axi.ring_sums import (
     lagrange_sums,
     near_rows,
     node_rows,
+    panel_coefs,
     ring_m1_scale,
     straight_jac,
     subrule_point,
@@ -249,7 +250,7 @@ def _potential_params(
     for b in range(b0, b1):
         e = start[b] - start[b0]
         t_r, t_z = pr[b], pz[b]
-        kind, c, tc, lv = kd[b], cf[b], tau_c[b], levels[b]
+        kind, c, tc, lv = kd[b], panel_coefs(cf, b), tau_c[b], levels[b]
         if kind == 3 and xf.shape[0] > 0:
             for k in range(xf.shape[0]):
                 rs, zs, _ = subrule_point(kind, c, xf[k], 0.0)
