@@ -13,27 +13,18 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from test_axi_grading_kernels import _probe as guarded_probe_params
 
 from elopt.physics import geometry as geo
 from elopt.physics.bem_axi.mesh import build_mesh, default_rule, level_zero_unknowns
 from elopt.physics.bem_axi.solve import COARSE_RULE, CONDUCTOR_COARSE_RULE
-from elopt.physics.electrodes.guarded_disk import GuardedDisk, GuardedDiskParams
+from elopt.physics.electrodes.guarded_disk import GuardedDisk
 
 RULES = {"default": default_rule(4), "coarse": COARSE_RULE, "conductors": CONDUCTOR_COARSE_RULE}
 
 
 def _probe(fillet_mm: float) -> object:
-    return GuardedDisk().build(
-        GuardedDiskParams(
-            sensor_radius_mm=2.0,
-            guard_gap_mm=0.1,
-            guard_width_mm=1.9,
-            thickness_mm=0.5,
-            fillet_mm=fillet_mm,
-            standoff_mm=0.2,
-            drive_V=1.0,
-        )
-    )
+    return GuardedDisk().build(guarded_probe_params(fillet_mm=fillet_mm))
 
 
 def _edges(mesh, conductor: int) -> np.ndarray:

@@ -9,23 +9,16 @@ import math
 
 import numpy as np
 import pytest
+from test_axi_grading_kernels import _probe as guarded_probe_params
 
 from elopt.physics import geometry as geo
-from elopt.physics.electrodes.guarded_disk import GuardedDiskParams, guard_curve, sensor_curve
+from elopt.physics.electrodes.guarded_disk import guard_curve, sensor_curve
 
 
 def _probe_curves() -> list[geo.Curve]:
     curves = []
     for fillet_mm in (0.0, 0.001, 0.05, 0.25):
-        p = GuardedDiskParams(
-            sensor_radius_mm=2.0,
-            guard_gap_mm=0.1,
-            guard_width_mm=1.9,
-            thickness_mm=0.5,
-            fillet_mm=fillet_mm,
-            standoff_mm=0.2,
-            drive_V=1.0,
-        )
+        p = guarded_probe_params(fillet_mm=fillet_mm)
         curves += [sensor_curve(p), guard_curve(p)]
     return curves
 
