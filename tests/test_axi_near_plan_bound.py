@@ -10,7 +10,14 @@ import math
 
 import numpy as np
 
-from elopt.physics.bem_axi.near_sums import FOCAL_MARGIN, _rho_at_least, bernstein_rho
+from elopt.physics.bem_axi.near_sums import (
+    FOCAL_MARGIN,
+    _chord_coordinate,
+    _rho_at_least,
+    _surely_outside,
+    bernstein_rho,
+    mapped_preimage,
+)
 
 
 def _decide(t: complex, bound: float) -> bool:
@@ -47,3 +54,31 @@ def test_decision_equals_bernstein_rho_everywhere():
             focal = abs(t - 1.0) + abs(t + 1.0)
             n_close += abs(focal / (bound + 1.0 / bound) - 1.0) <= FOCAL_MARGIN
     assert n_close > 0  # the fallback branch was taken too
+
+
+def test_sure_drop_of_mapped_pairs_only_where_the_exact_test_drops_them():
+    # A mapped panel from the corner (0, 0) to (1, 0): a point's chord coordinate is (r, |z|).
+    # Points on the preimage ellipse's image (u = ((w + 1/w)/2 + 1)/2 on E_rho, entry 23,
+    # w^m the point) a little inside and outside it, and anywhere around the corner.
+    rng = np.random.default_rng(11)
+    n_sure = n_outside = 0
+    for m in (2.0, 3.0):
+        c = (0.0, 0.0, 1.0, 0.0, m)
+        for bound in (1.2, 1.7782794100389228, 2.371373705661655, 5.0):
+            pts = []
+            for scale in (1 - 1e-6, 1.0, 1 + 1e-7, 1 + 1e-6, 1 + 3e-6, 1.01, 1.3, 2.0):
+                for th in rng.uniform(0.0, 2 * math.pi, 100):
+                    w = bound * scale * cmath.exp(1j * th)
+                    u = (0.5 * (w + 1.0 / w) + 1.0) / 2.0
+                    pts.append(u**m)
+            pts += list(rng.uniform(-4.0, 4.0, 2000) + 1j * rng.uniform(-4.0, 4.0, 2000))
+            pts += [0j, 1e-310 + 0j, -1.0 + 0j, -1.0 + 1e-17j, 1.0 + 0j]
+            for p in pts:
+                w_re, w_im = _chord_coordinate(p.real, p.imag, c)
+                t = mapped_preimage(p.real, p.imag, c)
+                exact = _rho_at_least(t, abs(t - 1.0) + abs(t + 1.0), bound)
+                sure = _surely_outside(w_re, w_im, m, bound + 1.0 / bound)
+                assert exact or not sure, (p, m, bound)
+                n_sure += sure
+                n_outside += bernstein_rho(t) > 1.01 * bound
+    assert n_sure > 0.9 * n_outside  # and it drops nearly all pairs clearly outside

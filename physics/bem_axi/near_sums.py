@@ -50,7 +50,9 @@ def _pairs(
     """(target, panel) index pairs with the target closer than ``reach`` (P,) to the panel's
     centre (mirrored in z = 0 when ``mirror``); a node's own panel left out on request."""
     m, n_p = tr.shape[0], centre_r.shape[0]
-    sgn = -1.0 if mirror else 1.0
+    cz = -centre_z if mirror else centre_z
+    reach2 = reach * reach
+    close = np.empty(n_p, np.bool_)
     ti = np.empty(m * 8 + n_p, np.int64)
     pj = np.empty(m * 8 + n_p, np.int64)
     count = 0
@@ -58,14 +60,20 @@ def _pairs(
         if count + n_p > ti.shape[0]:
             ti = np.concatenate((ti, np.empty(ti.shape[0], np.int64)))
             pj = np.concatenate((pj, np.empty(pj.shape[0], np.int64)))
-        own = i // order if exclude_self else -1
-        # Branch-free: every panel is written, the count moves on for the close ones.
+        # The test over every panel first (a loop the compiler vectorises), then the few
+        # close ones listed: 1.7 - 2.8 times as fast as listing within the test.
+        r, z = tr[i], tz[i]
         for j in range(n_p):
-            dr = tr[i] - centre_r[j]
-            dz = tz[i] - sgn * centre_z[j]
-            ti[count] = i
-            pj[count] = j
-            count += (dr * dr + dz * dz < reach[j] * reach[j]) & (j != own)
+            dr = r - centre_r[j]
+            dz = z - cz[j]
+            close[j] = dr * dr + dz * dz < reach2[j]
+        if exclude_self:
+            close[i // order] = False
+        for j in range(n_p):
+            if close[j]:
+                ti[count] = i
+                pj[count] = j
+                count += 1
     return ti[:count], pj[:count]
 
 
@@ -84,7 +92,7 @@ def near_zones(
     n = kind.shape[0]
     cr, cz, reach = np.empty(n), np.empty(n), np.empty(n)
     for j in range(n):
-        c = coef[j]
+        c = panel_coefs(coef, j)
         if kind[j] == 3:
             at_start = c[4] > 0
             cr[j] = c[0] if at_start else c[2]
@@ -101,15 +109,58 @@ def mapped_preimage(r: float, z: float, c: np.ndarray) -> complex:
     """The complex parameter tau of a mapped panel (coefficients ``c``, ``mesh.KIND_MAPPED``)
     where the kernel of the point (r, z) is singular nearest the parameter interval: its
     chord fraction u^m equals the point's complex chord coordinate (principal root)."""
+    w = complex(*_chord_coordinate(r, z, c))
+    u = cmath.exp(cmath.log(w) / abs(c[4])) if abs(w) > 1e-300 else 0.0j
+    return 2.0 * u - 1.0 if c[4] > 0 else 1.0 - 2.0 * u
+
+
+@njit(cache=True)
+def _chord_coordinate(r: float, z: float, c: np.ndarray) -> tuple[float, float]:
+    """Real and imaginary part (>= 0) of the point (r, z) in units of a mapped panel's chord
+    from its corner (the chord along the real axis; coefficients ``c``)."""
     if c[4] > 0:
         o_r, o_z, f_r, f_z = c[0], c[1], c[2], c[3]
     else:
         o_r, o_z, f_r, f_z = c[2], c[3], c[0], c[1]
     dr, dz = f_r - o_r, f_z - o_z
     inv = 1.0 / (dr * dr + dz * dz)
-    w = complex(((r - o_r) * dr + (z - o_z) * dz) * inv, abs((r - o_r) * dz - (z - o_z) * dr) * inv)
-    u = cmath.exp(cmath.log(w) / abs(c[4])) if abs(w) > 1e-300 else 0.0j
-    return 2.0 * u - 1.0 if c[4] > 0 else 1.0 - 2.0 * u
+    return ((r - o_r) * dr + (z - o_z) * dz) * inv, abs((r - o_r) * dz - (z - o_z) * dr) * inv
+
+
+#: Relative margin by which :func:`_surely_outside` keeps clear of the focal-sum bound: far
+#: above the rounding of its own bound and of the exact test's focal sum (a few units in
+#: the last place), so that every pair it drops the exact test drops too.
+SURE_MARGIN = 1e-6
+
+
+@njit(cache=True)
+def _surely_outside(w_re: float, w_im: float, m: float, edge: float) -> bool:
+    """Whether the preimage t = +-(2 u - 1), u = w^(1/m) the principal root of the chord
+    coordinate w (``w_im`` >= 0, m = 2 or 3; other m: False), has a focal sum
+    |t - 1| + |t + 1| = 2 (|u| + |u - 1|) certainly above ``edge`` (by SURE_MARGIN), without
+    the complex logarithm and exponential of :func:`mapped_preimage` (a third of the time).
+
+    With R = |u| and c >= cos(arg u): |u - 1|^2 >= R^2 - 2 R c + 1, so |u| + |u - 1| >=
+    R + sqrt(R^2 - 2 R c + 1), increasing in R and equal to E at R* = (E^2 - 1) / (2 (E - c));
+    so R > R*, i.e. |w| > R*^m, puts the sum above E = edge (1 + SURE_MARGIN) / 2. c is
+    cos(arg(w) / 2) for m = 2; for m = 3 three Newton steps on 4 c^3 - 3 c = cos(arg w) from
+    c = 1, which stay above the root (the cubic is convex and increasing above 1/2, and the
+    root cos(arg(w) / 3) is at least 1/2)."""
+    size = math.sqrt(w_re * w_re + w_im * w_im)
+    if size == 0.0:
+        return False
+    x = w_re / size
+    if m == 2.0:
+        c = math.sqrt(0.5 * (1.0 + x))
+    elif m == 3.0:
+        c = 1.0
+        for _ in range(3):
+            c -= (4.0 * c * c * c - 3.0 * c - x) / (12.0 * c * c - 3.0)
+    else:
+        return False
+    e = 0.5 * edge * (1.0 + SURE_MARGIN)
+    radius = (e * e - 1.0) / (2.0 * (e - c))
+    return size > (radius * radius if m == 2.0 else radius * radius * radius)
 
 
 @njit(cache=True)
@@ -160,13 +211,18 @@ def _near_plan(
     ``rho_near``)."""
     ti, pj = _pairs(tr, tz, centre_r, centre_z, reach, order, mirror, exclude_self)
     sgn = -1.0 if mirror else 1.0
+    edge_near = rho_near + 1.0 / rho_near
     keep = 0
     pre = np.empty(ti.shape[0], np.complex128)
     whole = np.zeros(ti.shape[0], np.bool_)  # a mapped pair's preimage beyond rho_whole
     for b in range(ti.shape[0]):
         j = pj[b]
         if kind[j] == 3:
-            t = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], coef[j])
+            c = panel_coefs(coef, j)
+            w_re, w_im = _chord_coordinate(tr[ti[b]], sgn * tz[ti[b]], c)
+            if _surely_outside(w_re, w_im, abs(c[4]), edge_near):
+                continue
+            t = mapped_preimage(tr[ti[b]], sgn * tz[ti[b]], c)
             focal = abs(t - 1.0) + abs(t + 1.0)
             if _rho_at_least(t, focal, rho_near):
                 continue
@@ -185,7 +241,8 @@ def _near_plan(
         pr[b] = tr[ti[b]]
         pz[b] = tz[ti[b]]
         kd[b] = kind[pj[b]]
-        cf[b] = coef[pj[b]]
+        for k in range(coef.shape[1]):
+            cf[b, k] = coef[pj[b], k]
     tau_c, delta = foot_points(pr, pz, kd, cf, mirror)
     # Graded pieces (ratio 2 towards the foot) lie at least their own length from the target;
     # so does the innermost once it is no longer than the distance: one level beyond
@@ -281,16 +338,38 @@ def _potential_params(
 
 
 @njit(cache=True)
-def _add_rows(
-    mat: np.ndarray, ti: np.ndarray, pj: np.ndarray, rows: np.ndarray, scale: np.ndarray, sgn: float
-):
-    """mat[ti[b], j] += sgn * rows[b, k] * scale[j], j = pj[b] * p + k (each (target, node)
-    pair once)."""
-    p = rows.shape[1]
-    for b in range(ti.shape[0]):
-        for k in range(p):
-            j = pj[b] * p + k
-            mat[ti[b], j] += sgn * rows[b, k] * scale[j]
+def _images_out_of_reach(tz: np.ndarray, centre_z: np.ndarray, reach: np.ndarray) -> bool:
+    """Whether targets (M,) ``tz`` (some) all lie above z = 0 and every panel's image centre
+    (P,) -``centre_z`` is out of ``reach`` of the lowest (a compiled test: the numpy one
+    took 4 us)."""
+    if tz.shape[0] == 0:
+        return False
+    low = tz.min()
+    if low < 0.0:
+        return False
+    for j in range(centre_z.shape[0]):
+        if low + centre_z[j] < reach[j]:
+            return False
+    return True
+
+
+@njit(cache=True)
+def _eval_counts(
+    kd: np.ndarray, tau_c: np.ndarray, levels: np.ndarray, p: int, n_q: int, n_far: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Evaluations (B,) of each pair of :func:`_potential_params` and their start (B + 1,):
+    the far rule's points (``n_far`` on a mapped panel, else the p nodes), then ``n_q`` per
+    graded piece on each side of the cut with room (one numpy expression per step took
+    five times as long)."""
+    n = kd.shape[0]
+    counts = np.empty(n, np.int64)
+    start = np.empty(n + 1, np.int64)
+    start[0] = 0
+    for b in range(n):
+        sides = (tau_c[b] < 1.0) + (tau_c[b] > -1.0)
+        counts[b] = (n_far if kd[b] == 3 else p) + n_q * levels[b] * sides
+        start[b + 1] = start[b] + counts[b]
+    return counts, start
 
 
 def add_near_corrections(
@@ -330,8 +409,8 @@ def add_near_corrections(
     The potential's evaluations go through ``ring_sums.scaled_k`` in batches (vectorised
     logarithm); the field keeps the scalar loops of ``ring_sums.near_rows``."""
     p = x.shape[0]
-    if mirror and len(tz) and tz.min() >= 0.0 and np.all(tz.min() + centre_z >= reach):
-        return  # every image centre is out of reach of every target (all above z = 0)
+    if mirror and _images_out_of_reach(tz, centre_z, reach):
+        return
     n_far = p if mapped_far is None else len(mapped_far[0])
     # The sub-rules' q-point Gauss rule errs like rho^(-2q) where the mapped panels' n-point
     # far rule errs like rho_near^(-2n): equal at rho_near^(n/q) (none with n >= q).
@@ -359,11 +438,7 @@ def add_near_corrections(
             raise ValueError("the field's far sums hold the node rule of every panel")
         _add_field_rows(mat, *plan, sr, sz, w, scale, mirror, x, bary, xq, wq)
         return
-    sides = (tau_c < 1.0).astype(np.int64) + (tau_c > -1.0)
-    counts = p + len(xq) * levels * sides
-    if mapped_far is not None:
-        counts[kd == 3] += n_far - p
-
+    counts, start = _eval_counts(kd, tau_c, levels, p, len(xq), n_far)
     w_interp = w / scale  # the node rule's weights of the interpolated quantity
     xf, wf = mapped_far if mapped_far is not None else (np.empty(0), np.empty(0))
 
@@ -390,5 +465,5 @@ def add_near_corrections(
             wf,
         )
 
-    rows = lagrange_sums(params, counts, x, bary)
-    _add_rows(mat[..., 0], ti, pj, rows, scale, -1.0 if mirror else 1.0)
+    sgn = -1.0 if mirror else 1.0
+    lagrange_sums(params, counts, start, x, bary, mat[..., 0], ti, pj, scale, sgn)

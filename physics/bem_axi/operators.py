@@ -24,8 +24,8 @@ from elopt.physics.bem_axi.ring_sums import (
     add_self_blocks,
     collocation_sum,
     field_sum,
+    mapped_rule_points,
     node_rows,
-    panel_points,
     panel_rule_columns,
     potential_sum,
 )
@@ -224,28 +224,33 @@ def _set_mapped_columns(
         return None, None
     n_real, n_image = MAPPED_FAR_POINTS
     r, z = np.ascontiguousarray(mesh.points_m[:, 0]), np.ascontiguousarray(mesh.points_m[:, 1])
-    pts, rule = mapped_far_rule(mesh, panels, n_real)
-    own = np.arange(mesh.n_nodes) // mesh.order  # each node's own panel: the self rule's
-    sr, sz = pts[:, 0].copy(), pts[:, 1].copy()
-    panel_rule_columns(mat, r, z, sr, sz, rule, own, panels, 1.0, False)
-    if ground_plane:
-        pts, rule = mapped_far_rule(mesh, panels, n_image)
-        none = np.full(mesh.n_nodes, -1)
-        sr, sz = pts[:, 0].copy(), -pts[:, 1]
-        panel_rule_columns(mat, r, z, sr, sz, rule, none, panels, -1.0, True)
+    sr, sz, rule = mapped_far_rule(mesh, panels, n_real, n_image if ground_plane else 0)
+    panel_rule_columns(mat, r, z, sr, sz, rule, mesh.order, panels, n_real)
     return n_real, n_image
 
 
-def mapped_far_rule(mesh: AxiMesh, panels: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+def mapped_far_rule(
+    mesh: AxiMesh, panels: np.ndarray, n: int, n_image: int = 0
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The far rule of mapped panels ``panels`` (J,): n Gauss points in each one's parameter,
-    points (J * n, 2) in m (panel-major), and weights (J, n, p) of its node values of sigma:
-    Gauss weight times the Lagrange basis of the p nodes at the point times the node's
-    ``interp_jac`` (the panel interpolates sigma times the length element; the ring kernel
-    carries r'). Accurate outside :func:`mapped_rho` (n), where the node rule needs
-    :func:`mapped_rho` (p)."""
-    pts = panel_points(mesh.kind[panels], mesh.coef[panels], gauss_legendre(n)[0])
-    scale = mesh.density_scale.reshape(-1, mesh.order)[panels]
-    return pts, _far_basis(n, mesh.order)[None] * scale[:, None, :]
+    then ``n_image`` in its image's in z = 0; points (J * (n + n_image),) r, z in m
+    (panel-major), and weights (J, n + n_image, p) of its node values of sigma: Gauss weight
+    times the Lagrange basis of the p nodes at the point times the node's ``interp_jac``
+    (the panel interpolates sigma times the length element; the ring kernel carries r').
+    Accurate outside :func:`mapped_rho` (n), where the node rule needs :func:`mapped_rho` (p)."""
+    return mapped_rule_points(
+        mesh.kind,
+        mesh.coef,
+        panels,
+        mesh.density_scale,
+        gauss_legendre(n)[0],
+        _far_basis(n, mesh.order),
+        gauss_legendre(n_image)[0] if n_image else _NO_POINTS,
+        _far_basis(n_image, mesh.order) if n_image else np.empty((0, mesh.order)),
+    )
+
+
+_NO_POINTS = np.empty(0)
 
 
 @lru_cache(maxsize=16)

@@ -312,15 +312,17 @@ def _point_params(
     tz: np.ndarray,
     sr: np.ndarray,
     sz: np.ndarray,
-    own: np.ndarray,
+    order: int,
     panels: np.ndarray,
+    n_own: int,
     i0: int,
     i1: int,
 ) -> tuple[np.ndarray, np.ndarray]:
     """m1 and r' / (pi rho_plus) (B,) of targets i0..i1-1 against the points (J * n,), row by
-    row; the points of the target's ``own`` panel (one of ``panels`` (J,)) take m1 = 1 and a
-    zero scale (value 0). Other panels' points never meet a target node (Gauss points lie
-    inside their panel), so the loop has no branch."""
+    row; the first ``n_own`` points of the target's own panel (one of ``panels`` (J,); a
+    target's panel is its index // ``order``) take m1 = 1 and a zero scale (value 0). Other
+    panels' points never meet a target node (Gauss points lie inside their panel, images
+    below z = 0), so the loop has no branch."""
     n_pts = sr.shape[0]
     n_u = n_pts // panels.shape[0]
     m1 = np.empty((i1 - i0) * n_pts)
@@ -335,8 +337,8 @@ def _point_params(
             m1[e + u] = (b * b + dz * dz) * inv
             scale[e + u] = sr[u] * math.sqrt(inv) * _INV_PI
         for j in range(panels.shape[0]):
-            if panels[j] == own[i]:
-                for u in range(j * n_u, (j + 1) * n_u):
+            if panels[j] == i // order:
+                for u in range(j * n_u, j * n_u + n_own):
                     m1[e + u] = 1.0
                     scale[e + u] = 0.0
     return m1, scale
@@ -345,27 +347,55 @@ def _point_params(
 @njit(cache=True)
 def _point_fill(
     v: np.ndarray,
-    rule_t: np.ndarray,
+    rule: np.ndarray,
     panels: np.ndarray,
-    sign: float,
-    add: bool,
+    n_own: int,
     i0: int,
     i1: int,
     mat: np.ndarray,
 ) -> None:
     """Rows i0..i1-1 of :func:`panel_rule_columns` from the values ``v`` (order of
-    :func:`_point_params`) and the rule transposed, ``rule_t`` (J, p, n)."""
-    n_pan, p, n_u = rule_t.shape
+    :func:`_point_params`) and the rule (J, n, p): the sum over a panel's first ``n_own``
+    points, minus that over the rest."""
+    n_pan, n_u, p = rule.shape
+    own = np.empty(p)
+    image = np.empty(p)
     for i in range(i0, i1):
         e = (i - i0) * n_pan * n_u
         for j in range(n_pan):
             base = e + j * n_u
-            for k in range(p):
-                acc = 0.0
+            if p == 4:
+                own[0], own[1], own[2], own[3] = _rule_sums4(v, rule, j, base, 0, n_own)
+                image[0], image[1], image[2], image[3] = _rule_sums4(v, rule, j, base, n_own, n_u)
+            else:
+                own[:] = 0.0
+                image[:] = 0.0
                 for u in range(n_u):
-                    acc += v[base + u] * rule_t[j, k, u]
+                    for k in range(p):
+                        if u < n_own:
+                            own[k] += v[base + u] * rule[j, u, k]
+                        else:
+                            image[k] += v[base + u] * rule[j, u, k]
+            for k in range(p):
                 col = panels[j] * p + k
-                mat[i, col] = (mat[i, col] if add else 0.0) + sign * acc
+                mat[i, col] = 0.0 + own[k]
+                if n_own < n_u:
+                    mat[i, col] = mat[i, col] + -1.0 * image[k]
+
+
+@njit(cache=True)
+def _rule_sums4(v: np.ndarray, rule: np.ndarray, j: int, base: int, u0: int, u1: int):
+    """sum_u v[base + u] rule[j, u, k] over u0 <= u < u1 for k = 0..3 (:func:`_point_fill`
+    with four nodes), each summed in the order of u in registers: half the time of the sums
+    one k at a time (their loads of v and of the rule dominated), the same bits."""
+    a0 = a1 = a2 = a3 = 0.0
+    for u in range(u0, u1):
+        x = v[base + u]
+        a0 += x * rule[j, u, 0]
+        a1 += x * rule[j, u, 1]
+        a2 += x * rule[j, u, 2]
+        a3 += x * rule[j, u, 3]
+    return a0, a1, a2, a3
 
 
 def panel_rule_columns(
@@ -375,24 +405,58 @@ def panel_rule_columns(
     sr: np.ndarray,
     sz: np.ndarray,
     rule: np.ndarray,
-    own: np.ndarray,
+    order: int,
     panels: np.ndarray,
-    sign: float,
-    add: bool,
+    n_own: int,
 ) -> None:
-    """Set (``add`` False) or add to the node columns of J panels in ``mat`` (M, N) ``sign``
-    times their potential at targets (M,) ``tr``, ``tz``, each panel integrated by its own
-    points (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights ``rule``
-    (J, n, p): column panels[j] * p + k takes sum_u G(t, s_(j, u)) rule[j, u, k], G the ring
-    potential (times r'). Targets whose ``own`` (M,) panel is ``panels[j]`` (J,) leave that
-    panel out (the self rule's; -1: none). Values in batches of about ``BATCH_PAIRS`` through
-    :func:`scaled_k`."""
+    """Set the node columns of J panels in ``mat`` (M, N) to their potential at targets (M,)
+    ``tr``, ``tz`` (the nodes, ``order`` per panel), each panel integrated by its own points
+    (J * n,) ``sr``, ``sz`` (panel-major) with the node columns' weights ``rule`` (J, n, p):
+    column panels[j] * p + k takes sum_u G(t, s_(j, u)) rule[j, u, k], G the ring potential
+    (times r'), the sum over the panel's first ``n_own`` points minus that over the others
+    (its image's, real minus image as the far sum holds them). Targets on panel
+    ``panels[j]`` leave its first ``n_own`` points out (the self rule's). Values in batches
+    of about ``BATCH_PAIRS`` through :func:`scaled_k`."""
     m = tr.shape[0]
-    rule_t = np.ascontiguousarray(rule.transpose(0, 2, 1))
+    rule = np.ascontiguousarray(rule)
     edges = batch_edges(np.full(m, len(sr)))
     for i0, i1 in zip(edges[:-1], edges[1:], strict=True):
-        m1, scale = _point_params(tr, tz, sr, sz, own, panels, int(i0), int(i1))
-        _point_fill(scaled_k(m1, scale), rule_t, panels, sign, add, int(i0), int(i1), mat)
+        m1, scale = _point_params(tr, tz, sr, sz, order, panels, n_own, int(i0), int(i1))
+        _point_fill(scaled_k(m1, scale), rule, panels, n_own, int(i0), int(i1), mat)
+
+
+@njit(cache=True)
+def mapped_rule_points(
+    kind: np.ndarray,
+    coef: np.ndarray,
+    panels: np.ndarray,
+    density_scale: np.ndarray,
+    tau: np.ndarray,
+    basis: np.ndarray,
+    image_tau: np.ndarray,
+    image_basis: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Points (J * n,) r, z and weights (J, n, p) of :func:`panel_rule_columns` for panels
+    ``panels`` (J,): per panel its points at parameters ``tau`` (n0,), then its image's in
+    z = 0 at ``image_tau`` (n1,) (n = n0 + n1), each weighted by ``basis`` (n0, p) or
+    ``image_basis`` (n1, p) times the panel's nodes' ``density_scale`` (N,)."""
+    n0, p = basis.shape
+    n1 = image_tau.shape[0]
+    n = n0 + n1
+    sr = np.empty(panels.shape[0] * n)
+    sz = np.empty(panels.shape[0] * n)
+    rule = np.empty((panels.shape[0], n, p))
+    for j in range(panels.shape[0]):
+        c = panel_coefs(coef, panels[j])
+        for u in range(n):
+            image = u >= n0
+            t = image_tau[u - n0] if image else tau[u]
+            sr[j * n + u], zs, _ = panel_point(kind[panels[j]], c, t)
+            sz[j * n + u] = -zs if image else zs
+            for k in range(p):
+                b = image_basis[u - n0, k] if image else basis[u, k]
+                rule[j, u, k] = b * density_scale[panels[j] * p + k]
+    return sr, sz, rule
 
 
 @njit(cache=True)
@@ -501,18 +565,6 @@ def panel_point(kind: int, c: np.ndarray, tau: float) -> tuple[float, float, flo
         c[0] + c[2] * math.sin(u),
         du * math.hypot(c[1] * math.sin(u), c[2] * math.cos(u)),
     )
-
-
-@njit(cache=True)
-def panel_points(kind: np.ndarray, coef: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    """Points (J * n, 2) of panels (J,) ``kind``, ``coef`` at parameters ``tau`` (n,), panel-major
-    (:func:`panel_point`)."""
-    n = tau.shape[0]
-    out = np.empty((kind.shape[0] * n, 2))
-    for j in range(kind.shape[0]):
-        for u in range(n):
-            out[j * n + u, 0], out[j * n + u, 1], _ = panel_point(kind[j], coef[j], tau[u])
-    return out
 
 
 @njit(cache=True)
@@ -745,11 +797,16 @@ def lagrange_rows(
     b1: int,
     x: np.ndarray,
     bary: np.ndarray,
-    out: np.ndarray,
+    mat: np.ndarray,
+    rows: np.ndarray,
+    panels: np.ndarray,
+    col_scale: np.ndarray,
+    sign: float,
 ) -> None:
-    """Add sum_e v[e] l_k(tau[e]) over the evaluations e of each group b0..b1-1 (from
-    ``start[b] - start[b0]`` in ``v``, ``tau``) into ``out[b, k]``; l_k the Lagrange basis on
-    nodes ``x`` in [-1, 1].
+    """Add ``sign`` * sum_e v[e] l_k(tau[e]) * ``col_scale[j]`` over the evaluations e of each
+    group b0..b1-1 (from ``start[b] - start[b0]`` in ``v``, ``tau``) into
+    ``mat[rows[b], j]``, j = panels[b] * p + k; l_k the Lagrange basis on the p nodes ``x``
+    in [-1, 1]. Each (row, column) pair once.
 
     The moments sum_e v[e] tau[e]^j are taken first and turned into the basis by
     :func:`lagrange_coefficients`: half the time of the basis at every point. Measured
@@ -775,7 +832,8 @@ def lagrange_rows(
             s = 0.0
             for j in range(p):
                 s += mom[j] * coef[j, k]
-            out[b, k] += s
+            col = panels[b] * p + k
+            mat[rows[b], col] += sign * s * col_scale[col]
 
 
 @njit(cache=True, error_model="numpy")
@@ -797,17 +855,27 @@ def _moments4(v: np.ndarray, tau: np.ndarray, e0: int, e1: int):
     return m0, m1, m2, m3
 
 
-def lagrange_sums(params, counts: np.ndarray, x: np.ndarray, bary: np.ndarray) -> np.ndarray:
-    """(B, p): :func:`lagrange_rows` of groups with ``counts`` (B,) evaluations each, whose
-    m1, scale and tau ``params(b0, b1, start)`` returns for groups b0..b1-1, in batches of
-    about ``BATCH_PAIRS`` through :func:`scaled_k`."""
-    start = np.concatenate(([0], np.cumsum(counts)))
-    out = np.zeros((len(counts), len(x)))
+def lagrange_sums(
+    params,
+    counts: np.ndarray,
+    start: np.ndarray,
+    x: np.ndarray,
+    bary: np.ndarray,
+    mat: np.ndarray,
+    rows: np.ndarray,
+    panels: np.ndarray,
+    col_scale: np.ndarray,
+    sign: float,
+) -> None:
+    """:func:`lagrange_rows` into ``mat`` of groups with ``counts`` (B,) evaluations each, from
+    ``start`` (B + 1,) (the running sum of ``counts`` from 0), whose m1, scale and tau
+    ``params(b0, b1, start)`` returns for groups b0..b1-1, in batches of about
+    ``BATCH_PAIRS`` through :func:`scaled_k`."""
     edges = batch_edges(counts).tolist()
     for b0, b1 in zip(edges[:-1], edges[1:], strict=True):
         m1, scale, tau = params(b0, b1, start)
-        lagrange_rows(scaled_k(m1, scale), tau, start, b0, b1, x, bary, out)
-    return out
+        v = scaled_k(m1, scale)
+        lagrange_rows(v, tau, start, b0, b1, x, bary, mat, rows, panels, col_scale, sign)
 
 
 def add_self_blocks(
@@ -1003,7 +1071,7 @@ def foot_points(
     dist = np.empty(n)
     sgn = -1.0 if mirror else 1.0
     for b in range(n):
-        c = coef[b]
+        c = panel_coefs(coef, b)
         r, z = tr[b], sgn * tz[b]
         if kind[b] == 0 or kind[b] == 3:
             dr, dz = c[2] - c[0], c[3] - c[1]
