@@ -225,6 +225,23 @@ collocation matrix, merged with main at 5aa7c1b) against main's package at 5aa7c
 (the sharp 3.57 run is load: its stages are those of the others). C_sense errors 2.7e-6 and
 1.8e-6 -> 1.9e-6, estimates 2.2e-5 / 3.0e-5 as before; sharp FEM/BEM 19.1x -> 27.0x (median
 run). The 30x target is not met for the sharp probe.
+
+3 Dec 2026 12:35, the merged main at 9cde1ec (the upmap branch above; the compiled mesh
+assembly and level split; the cheaper layout build; self rows added in place, compiled
+batching and K's fused Horner steps; the near pass's pair search, plan and mapped columns
+compiled tighter) against last stop's package at 7dc196c, ``--repeats 9 --before``, three runs
+on a near-idle machine (``uptime`` load 0.7 -> 0.8), CPU ms:
+
+    probe       BEM cpu before -> after                    FEM cpu             FEM/BEM (median run)
+    filleted    3.62 / 3.42 / 3.68 -> 2.44 / 2.38 / 2.41   79.0 / 76.9 / 78.7  21.8x -> 32.3x
+    sharp       4.53 / 4.63 / 4.45 -> 2.14 / 1.95 / 1.96   65.0 / 65.4 / 65.2  14.3x -> 33.2x
+
+Both at or above 30x in every run (lowest: sharp 30.4x in the first). Unknowns 104+208 and
+72+144 (both), C_sense errors 2.7e-6 and 1.8e-6 -> 1.9e-6, estimates 2.2e-5 / 3.0e-5. Stages
+after (``--stages``, CPU ms, filleted / sharp): layout 0.22 / 0.15, level-0 grading 0.14 /
+0.13, meshes 0.02 + 0.02 (both), far sums 0.06 + 0.21 / 0.04 + 0.10, self panels 0.04 + 0.06
+(both), near panels (the sharp probe's with its mapped columns) 0.20 + 0.27 / 0.26 + 0.43,
+LU and solve 0.13 + 0.53 / 0.08 + 0.23.
 """
 
 from __future__ import annotations
