@@ -1,9 +1,10 @@
 """The compiled level-0 grading (physics/bem_axi/grading_kernels.py) gives the panels of the
 plain numpy grading bit for bit.
 
-The reference below is the numpy code the kernels replaced (balance by neighbour lengths,
-then splits of panels longer than the rule's gap factor times their distance to the other
-conductors' and the images' samples, every panel re-tested per round). It is the project's own
+The reference is the grading's own numpy path, which curves with ellipse arcs take and which
+the kernels replaced for the others (balance by neighbour lengths, then splits of panels
+longer than the rule's gap factor times their distance to the other conductors' and the
+images' samples, every panel re-tested per round): every curve is sent down it here. It is the project's own
 rule, not physics, so the check is equality with it: same pieces and the same parameters to
 the last bit, on guarded probes (filleted and sharp, many gaps and standoffs, recessed, with
 each dielectric insulator and its interface chains), the uniform-field profile, spheres,
@@ -37,85 +38,16 @@ RULES = (
 MM = 1e-3
 
 
-def _ref_lengths(curve, panels) -> np.ndarray:
-    piece_length, piece_kind, _, _ = mesh._curve_pieces(curve)
-    lengths = piece_length[panels.piece] * (0.5 * (panels.t1 - panels.t0))
-    for j in np.nonzero(piece_kind == mesh.KIND_ELLIPSE)[0].tolist():
-        sel = panels.piece == j
-        ab = np.stack([panels.t0[sel], panels.t1[sel]], axis=1)
-        lengths[sel] = mesh._interval_lengths(curve.pieces[j], ab)
-    return lengths
+_CURVE_PIECES = mesh._curve_pieces
 
 
-def _ref_midpoints(curve, panels) -> np.ndarray:
-    _, piece_kind, piece_spec, _ = mesh._curve_pieces(curve)
-    mid = 0.5 * (panels.t0 + panels.t1)
-    kind = piece_kind[panels.piece]
-    sp = piece_spec[panels.piece]
-    out = np.empty((len(mid), 2))
-    seg = kind == mesh.KIND_SEGMENT
-    m = mid[seg][:, None]
-    out[seg] = 0.5 * (1 - m) * sp[seg, 0:2] + 0.5 * (1 + m) * sp[seg, 2:4]
-    for k in (mesh.KIND_ARC, mesh.KIND_ELLIPSE):
-        sel = kind == k
-        c = sp[sel]
-        ang = c[:, 3] + 0.5 * (mid[sel] + 1) * c[:, 4]
-        if k == mesh.KIND_ARC:
-            out[sel, 0] = c[:, 0] + c[:, 2] * np.cos(ang)
-            out[sel, 1] = c[:, 1] + c[:, 2] * np.sin(ang)
-        else:
-            out[sel, 0] = c[:, 1] * np.cos(ang)
-            out[sel, 1] = c[:, 0] + c[:, 2] * np.sin(ang)
-    return out
+def _numpy_path(curve):
+    """``mesh._curve_pieces`` reporting every curve as not compiled: the grading then takes
+    its numpy path (the one ellipse arcs take), the reference here."""
+    return (*_CURVE_PIECES(curve)[:3], False)
 
 
-def _ref_split(panels, mask):
-    reps = np.where(mask, 2, 1)
-    idx = np.repeat(np.arange(len(panels.piece)), reps)
-    t0, t1 = panels.t0[idx], panels.t1[idx]
-    cut = np.nonzero(mask)[0]
-    first = (np.cumsum(reps) - reps)[cut]
-    mid = 0.5 * (panels.t0[cut] + panels.t1[cut])
-    t1[first] = mid
-    t0[first + 1] = mid
-    return mesh._CurvePanels(panels.piece[idx], t0, t1)
-
-
-def _ref_balance(curve, panels, ratio):
-    closed = curve.kind == "ring"
-    while True:
-        lengths = _ref_lengths(curve, panels)
-        n = len(lengths)
-        a = np.arange(n - 1 + int(closed))
-        b = (a + 1) % n
-        la, lb = lengths[a], lengths[b]
-        mask = np.zeros(n, dtype=bool)
-        mask[a[la > ratio * lb * (1 + 1e-9)]] = True
-        mask[b[lb > ratio * la * (1 + 1e-9)]] = True
-        if not mask.any():
-            return panels
-        panels = _ref_split(panels, mask)
-
-
-def _ref_refine_gaps(layout, per_conductor, balance_ratio, gap_factor):
-    samples = [cond.shape.sample(24) for cond in layout.conductors]
-    out = []
-    for ci, (curve, panels, ends) in enumerate(per_conductor):
-        others = [samples[j] for j in range(len(samples)) if j != ci]
-        if layout.ground_plane:
-            others += [s * np.array([1.0, -1.0]) for s in samples]
-        if others:
-            cloud_r, cloud_z = np.concatenate(others).T.copy()
-            for _ in range(40):
-                lengths = _ref_lengths(curve, panels)
-                centres = _ref_midpoints(curve, panels)
-                gap2 = (centres[:, 0, None] - cloud_r) ** 2 + (centres[:, 1, None] - cloud_z) ** 2
-                bad = lengths > gap_factor * np.sqrt(gap2.min(axis=1))
-                if not bad.any():
-                    break
-                panels = _ref_balance(curve, _ref_split(panels, bad), balance_ratio)
-        out.append((curve, panels, ends))
-    return out
+_numpy_path.cache_clear = _CURVE_PIECES.cache_clear
 
 
 def _probe(**kw) -> GuardedDiskParams:
@@ -248,20 +180,22 @@ def _compare(layouts: list[Layout], monkeypatch) -> tuple[int, int]:
             new = _level0(layout, rule)
             with monkeypatch.context() as m:
                 seen = {}
+                gaps, balance = mesh._refine_gaps, mesh._balance
 
-                def ref_gaps(lay, per_conductor, ratio, gap_factor, seen=seen):
+                def spy_gaps(lay, per_conductor, ratio, gap_factor, seen=seen, gaps=gaps):
                     seen["before"] = [len(p.piece) for _, p, _ in per_conductor]
-                    return _ref_refine_gaps(lay, per_conductor, ratio, gap_factor)
+                    return gaps(lay, per_conductor, ratio, gap_factor)
 
-                def ref_balance(curve, panels, ratio, seen=seen):
-                    out = _ref_balance(curve, panels, ratio)
+                def spy_balance(curve, panels, ratio, seen=seen, balance=balance):
+                    out = balance(curve, panels, ratio)
                     seen["balanced"] = seen.get("balanced", 0) + (
                         len(out.piece) > len(panels.piece)
                     )
                     return out
 
-                m.setattr(mesh, "_refine_gaps", ref_gaps)
-                m.setattr(mesh, "_balance", ref_balance)
+                m.setattr(mesh, "_curve_pieces", _numpy_path)
+                m.setattr(mesh, "_refine_gaps", spy_gaps)
+                m.setattr(mesh, "_balance", spy_balance)
                 ref = _level0(layout, rule)
             assert len(new) == len(ref)
             for (p1, a1, b1), (p2, a2, b2) in zip(new, ref, strict=True):
